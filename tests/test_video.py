@@ -1,0 +1,139 @@
+"""Tests of vidodo.video: container timestamps, orientation, dropped frames, truncation.
+
+Reference values come from outside vidodo: ``ffprobe`` (FFmpeg) reports each frame's
+presentation time and the rotation tag; clips are made with Debian's ``ffmpeg``.
+"""
+
+from __future__ import annotations
+
+import shutil
+import subprocess
+
+import numpy as np
+import pytest
+
+from vidodo.errors import InputError
+from vidodo.video import (
+    VideoReader,
+    VideoTruncatedError,
+    analyse_timing,
+    probe_video,
+    readout_fraction,
+)
+
+pytestmark = pytest.mark.skipif(shutil.which("ffmpeg") is None, reason="needs ffmpeg")
+
+
+def _ffmpeg(*args):
+    subprocess.run(["ffmpeg", "-loglevel", "error", "-y", *args], check=True)
+
+
+def _ffprobe_pts(path):
+    out = subprocess.run(
+        ["ffprobe", "-v", "error", "-select_streams", "v", "-show_entries",
+         "frame=pts_time", "-of", "csv=p=0", str(path)],
+        check=True, capture_output=True, text=True,
+    ).stdout
+    return np.array([float(x.strip().strip(",")) for x in out.split() if x.strip(",")])
+
+
+@pytest.fixture(scope="module")
+def vfr_clip(tmp_path_factory):
+    """A variable-rate H.264 clip: 30 fps, then a 50 ms stall, then a slower section."""
+    path = tmp_path_factory.mktemp("video") / "vfr.mp4"
+    _ffmpeg(
+        "-f", "lavfi", "-i", "testsrc=size=160x120:rate=30,noise=alls=30:allf=t",
+        "-frames:v", "60",
+        "-vf", "settb=1/90000,setpts='(N/30 + gte(N\\,20)*0.05 + gte(N\\,40)*N*0.0123)/TB'",
+        "-fps_mode", "passthrough", "-enc_time_base", "1/90000",
+        "-video_track_timescale", "90000", "-c:v", "libx264", "-pix_fmt", "yuv420p",
+        str(path),
+    )
+    return path
+
+
+@pytest.mark.parametrize("threaded", [False, True])
+def test_vfr_timestamps_match_ffprobe(vfr_clip, threaded):
+    """Frame times equal the container PTS that ffprobe reports (< 1 ms), not i/fps."""
+    truth = _ffprobe_pts(vfr_clip)
+    with VideoReader(vfr_clip, threaded=threaded) as reader:
+        got = [(i, t) for i, t, _frame in reader]
+        timing = reader.timing()
+    idx = np.array([i for i, _ in got])
+    t = np.array([t for _, t in got])
+    assert idx.tolist() == list(range(len(truth)))
+    assert np.max(np.abs(t - truth)) < 1e-3
+    assert np.all(np.diff(timing.t_s) > 0)
+    # The 50 ms stall after frame 19 is longer than 1.6 intervals: reported as a drop.
+    assert any(d[0] == 20 for d in timing.dropped)
+
+
+def test_truncated_file_reports_where_it_stopped(tmp_path):
+    """A file cut in half (index at the front) yields the first frames, then an error."""
+    full = tmp_path / "full.mp4"
+    _ffmpeg("-f", "lavfi", "-i", "testsrc=size=160x120:rate=30,noise=alls=30:allf=t",
+            "-frames:v", "90", "-c:v", "libx264", "-pix_fmt", "yuv420p",
+            "-movflags", "+faststart", str(full))
+    data = full.read_bytes()
+    cut = tmp_path / "cut.mp4"
+    cut.write_bytes(data[: len(data) // 2])
+    seen = []
+    with pytest.raises(VideoTruncatedError, match=r"stopped at frame \d+") as info:
+        with VideoReader(cut) as reader:
+            for i, _t, _f in reader:
+                seen.append(i)
+    assert 0 < len(seen) < 90
+    assert info.value.frames_read == len(seen)
+    assert str(cut) in str(info.value)
+
+
+def test_cut_without_index_cannot_open(tmp_path):
+    """Cut before the index (moov at the end): a clear InputError, not a crash."""
+    full = tmp_path / "full.mp4"
+    _ffmpeg("-f", "lavfi", "-i", "testsrc=size=160x120:rate=30,noise=alls=30:allf=t",
+            "-frames:v", "60", "-c:v", "libx264", "-pix_fmt", "yuv420p", str(full))
+    cut = tmp_path / "cut.mp4"
+    cut.write_bytes(full.read_bytes()[:20000])
+    with pytest.raises(InputError, match="cut.mp4"):
+        VideoReader(cut)
+    with pytest.raises(InputError, match="not found"):
+        VideoReader(tmp_path / "missing.mp4")
+
+
+@pytest.mark.parametrize("rotate_tag", [0, 90, 180, 270])
+def test_orientation_and_readout_axis(tmp_path, rotate_tag):
+    """The sensor's first-read row (a white stripe at the stored top) maps to readout 0.
+
+    ffmpeg's ``rotate`` stream tag sets the display matrix; OpenCV applies it, so the
+    stored top row arrives at another edge and the scan axis must follow it.
+    """
+    src = tmp_path / "top.mp4"
+    _ffmpeg("-f", "lavfi", "-i", "color=black:size=160x120:rate=30",
+            "-vf", "drawbox=x=0:y=0:w=160:h=8:color=white:t=fill", "-frames:v", "3",
+            "-c:v", "libx264", "-pix_fmt", "yuv420p", str(src))
+    path = tmp_path / f"rot{rotate_tag}.mp4"
+    _ffmpeg("-i", str(src), "-c", "copy", "-metadata:s:v:0", f"rotate={rotate_tag}", str(path))
+    info = probe_video(path)
+    with VideoReader(path, threaded=False) as reader:
+        frame = next(iter(reader))[2]
+    assert frame.shape[:2] == (info.height_px, info.width_px)
+    vs, us = np.nonzero(frame[..., 1] > 128)
+    white = readout_fraction(us, vs, info)
+    vv, uu = np.mgrid[0:info.height_px, 0:info.width_px]
+    dark = readout_fraction(uu[frame[..., 1] < 64], vv[frame[..., 1] < 64], info)
+    assert white.max() < 0.1  # the stripe is 8 of 120 sensor rows
+    assert dark.min() > 0.05
+
+
+def test_analyse_timing_finds_drops_and_duplicates():
+    """Worked example (hand calculation): 30 fps, frame 5 missing, frame 8 repeated."""
+    t = np.arange(12) / 30.0
+    t = np.delete(t, 5)  # one frame lost before new index 5
+    t = np.insert(t, 8, t[7])  # frame 8 repeats frame 7's time
+    t[-1] = 0.0  # a decoder bug returning 0 at the end
+    timing = analyse_timing(t)
+    assert timing.dropped == ((5, pytest.approx(6 / 30.0), 1),)
+    assert timing.duplicated == (8,)
+    assert timing.bad_timestamps == (len(t) - 1,)
+    assert np.all(np.diff(timing.t_s) > 0)
+    assert timing.interval_s == pytest.approx(1 / 30.0)

@@ -1,0 +1,394 @@
+"""Reading video frames with their container presentation timestamps.
+
+Phones record with a variable frame rate, so a frame's time is never ``index / fps``:
+every frame carries the presentation time its container gives it (OpenCV's
+``CAP_PROP_POS_MSEC`` read right after ``read()``, which follows the stream's PTS in
+OpenCV >= 4.2). The reader checks that these times increase, reports frames that look
+dropped (an interval well over the typical one) or duplicated (a repeated timestamp or
+an image identical to the previous one), reads the orientation metadata, and raises
+:class:`VideoTruncatedError` naming the frame where a truncated or corrupt file stopped,
+after handing out every frame it could decode.
+
+Decoding can run in a background thread (OpenCV releases the GIL while it decodes), so
+that decoding the next frame overlaps the caller's work on the current one. Only a few
+frames are ever held in memory.
+"""
+
+from __future__ import annotations
+
+import math
+import queue
+import threading
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import cv2
+import numpy as np
+
+from .errors import InputError
+
+__all__ = [
+    "VideoInfo",
+    "FrameTiming",
+    "VideoReader",
+    "VideoTruncatedError",
+    "probe_video",
+    "analyse_timing",
+    "readout_fraction",
+]
+
+
+class VideoTruncatedError(InputError):
+    """The video stopped before its container said it would (truncated or corrupt).
+
+    Every frame before the stop was handed out; ``frames_read`` and ``t_last_s`` say
+    where it stopped.
+    """
+
+    def __init__(self, message, *, frames_read=0, t_last_s=float("nan"), partial=None):
+        super().__init__(message)
+        self.frames_read = frames_read
+        """Frames decoded before the stop."""
+        self.t_last_s = t_last_s
+        """Presentation time of the last good frame [s]."""
+        self.partial = partial
+        """Whatever a caller computed from the frames that were read (e.g. a track)."""
+
+
+@dataclass(frozen=True)
+class VideoInfo:
+    """What the container says about a video before any frame is decoded."""
+
+    path: Path
+    width_px: int
+    """Frame width as delivered (after applying the orientation metadata) [px]."""
+    height_px: int
+    """Frame height as delivered [px]."""
+    frame_count: int
+    """Frame count the container claims (0 when unknown)."""
+    nominal_fps: float
+    """Frame rate the container claims; wrong for variable-rate video [1/s]."""
+    orientation_deg: int
+    """Rotation metadata as OpenCV reports it (0, 90, 180, 270) [deg]."""
+    rotated: bool
+    """True if OpenCV applied the rotation, so frames arrive upright."""
+    codec: str
+    """Four-character codec code, e.g. 'h264'."""
+
+
+@dataclass(frozen=True)
+class FrameTiming:
+    """Timing analysis of the frames read so far."""
+
+    t_s: np.ndarray
+    """Presentation time of every frame, ndarray of shape (N,) [s]."""
+    interval_s: float
+    """Median interval between frames [s]."""
+    dropped: tuple = ()
+    """``(frame_index, t_s, frames_missing)`` for every interval that looks like lost
+    frames (longer than 1.6 median intervals) before ``frame_index``."""
+    duplicated: tuple = ()
+    """Indices of frames whose timestamp does not increase or whose image equals the
+    previous frame's."""
+    bad_timestamps: tuple = ()
+    """Indices of frames whose timestamp went backwards (replaced by an estimate)."""
+    warnings: list = field(default_factory=list)
+
+
+def probe_video(path) -> VideoInfo:
+    """Open ``path`` and read what its container says.
+
+    Raises
+    ------
+    InputError
+        If the file is missing or cannot be decoded.
+    """
+    cap = _open(path)
+    try:
+        return _info(cap, Path(path))
+    finally:
+        cap.release()
+
+
+def _open(path):
+    p = Path(path)
+    if not p.is_file():
+        raise InputError(f"{p}: video file not found; check the path")
+    cap = cv2.VideoCapture(str(p), cv2.CAP_FFMPEG)
+    if not cap.isOpened():
+        raise InputError(
+            f"{p}: cannot open as video (unknown format, or truncated before its index "
+            "was written); re-export or re-copy the file"
+        )
+    return cap
+
+
+def _info(cap, p: Path) -> VideoInfo:
+    fourcc = int(cap.get(cv2.CAP_PROP_FOURCC))
+    codec = "".join(chr((fourcc >> (8 * i)) & 0xFF) for i in range(4)).strip("\x00")
+    orient = cap.get(cv2.CAP_PROP_ORIENTATION_META)
+    orient = int(round(orient)) % 360 if math.isfinite(orient) and orient >= 0 else 0
+    count = cap.get(cv2.CAP_PROP_FRAME_COUNT)
+    return VideoInfo(
+        path=p,
+        width_px=int(cap.get(cv2.CAP_PROP_FRAME_WIDTH)),
+        height_px=int(cap.get(cv2.CAP_PROP_FRAME_HEIGHT)),
+        frame_count=int(count) if math.isfinite(count) and count > 0 else 0,
+        nominal_fps=float(cap.get(cv2.CAP_PROP_FPS)),
+        orientation_deg=orient,
+        rotated=bool(cap.get(cv2.CAP_PROP_ORIENTATION_AUTO) > 0),
+        codec=codec,
+    )
+
+
+def readout_fraction(u_px, v_px, info: VideoInfo):
+    """Fraction of the sensor readout elapsed when pixel (u, v) was read.
+
+    A rolling shutter reads sensor rows top to bottom; the delivered image may be
+    rotated from the sensor by the orientation metadata, so the scan axis follows the
+    sensor, not the picture (common practice).
+
+    Parameters
+    ----------
+    u_px, v_px : array_like
+        Pixel coordinates in the delivered frame [px].
+    info : VideoInfo
+        The video the pixels come from.
+
+    Returns
+    -------
+    ndarray
+        Fraction in [0, 1): 0 for the first sensor row read.
+    """
+    u = np.asarray(u_px, dtype=float)
+    v = np.asarray(v_px, dtype=float)
+    w, h = info.width_px, info.height_px
+    rot = info.orientation_deg if info.rotated else 0
+    # OpenCV reports the metadata as the counter-clockwise angle it rotates the stored
+    # frame by: with 270 the stored top row arrives as the left column, with 90 as the
+    # right column (checked in tests/test_video.py against ffmpeg's rotate tag).
+    if rot == 270:
+        return np.clip(u / w, 0.0, 1.0)
+    if rot == 180:
+        return np.clip((h - 1 - v) / h, 0.0, 1.0)
+    if rot == 90:
+        return np.clip((w - 1 - u) / w, 0.0, 1.0)
+    return np.clip(v / h, 0.0, 1.0)
+
+
+def analyse_timing(t_s, identical=None, *, gap_factor=1.6) -> FrameTiming:
+    """Find dropped and duplicated frames from presentation times.
+
+    Parameters
+    ----------
+    t_s : array_like
+        Presentation time of each frame as read [s].
+    identical : array_like of bool, optional
+        True where a frame's image equals the previous frame's.
+    gap_factor : float
+        An interval longer than this many median intervals counts as lost frames.
+
+    Returns
+    -------
+    FrameTiming
+        The analysis; ``t_s`` has backward timestamps replaced by estimates.
+    """
+    t = np.asarray(t_s, dtype=float).copy()
+    n = t.size
+    warnings: list[str] = []
+    if n < 2:
+        return FrameTiming(t_s=t, interval_s=float("nan"), warnings=warnings)
+    dt = np.diff(t)
+    good = dt > 0
+    interval = float(np.median(dt[good])) if good.any() else float("nan")
+    valid = np.ones(n, dtype=bool)
+    bad = []
+    dup = []
+    latest = t[0]
+    for i in range(1, n):
+        if t[i] > latest:
+            latest = t[i]
+            continue
+        valid[i] = False
+        (dup if t[i] == latest else bad).append(i)
+    if not valid.all():
+        # Keep time increasing: stamps that repeat or go backwards are interpolated by
+        # frame index between their valid neighbours (extrapolated at the end).
+        idx = np.arange(n)
+        ok = np.flatnonzero(valid)
+        step = interval if math.isfinite(interval) else 1e-3
+        fixed = np.interp(idx, ok, t[ok])
+        after = idx > ok[-1]
+        fixed[after] = t[ok[-1]] + (idx[after] - ok[-1]) * step
+        t = fixed
+    if identical is not None:
+        same = np.flatnonzero(np.asarray(identical, dtype=bool))
+        dup = sorted(set(dup) | {int(i) for i in same if i > 0})
+    dropped = []
+    if math.isfinite(interval):
+        dt = np.diff(t)
+        for i in np.flatnonzero(dt > gap_factor * interval):
+            missing = int(round(dt[i] / interval)) - 1
+            dropped.append((int(i + 1), float(t[i + 1]), max(missing, 1)))
+    if bad:
+        warnings.append(
+            f"{len(bad)} frame timestamps went backwards (first at frame {bad[0]}); "
+            "replaced by the typical interval"
+        )
+    if dropped:
+        lost = sum(d[2] for d in dropped)
+        warnings.append(
+            f"about {lost} frames look dropped in {len(dropped)} places (first before "
+            f"frame {dropped[0][0]} at t = {dropped[0][1]:.3f} s)"
+        )
+    if dup:
+        warnings.append(f"{len(dup)} frames look duplicated (first: frame {dup[0]})")
+    return FrameTiming(t_s=t, interval_s=interval, dropped=tuple(dropped),
+                       duplicated=tuple(dup), bad_timestamps=tuple(bad), warnings=warnings)
+
+
+_END = object()
+
+
+class VideoReader:
+    """Iterate over ``(index, t_s, frame_bgr)`` of a video, holding only a few frames.
+
+    Parameters
+    ----------
+    path : str or Path
+        The video file.
+    threaded : bool
+        Decode in a background thread so decoding overlaps the caller's work.
+    queue_frames : int
+        Decoded frames held ahead of the caller when threaded.
+    check_identical : bool
+        Compare each frame with the previous one (a subsampled exact comparison) to
+        find repeated images.
+
+    Notes
+    -----
+    The iterator raises :class:`VideoTruncatedError` after the last good frame when the
+    stream ends clearly before the frame count its container claims. After iteration,
+    :meth:`timing` analyses the timestamps of every frame read.
+
+    Examples
+    --------
+    >>> with VideoReader("run/video.mp4") as reader:  # doctest: +SKIP
+    ...     for index, t_s, frame in reader:
+    ...         pass
+    """
+
+    def __init__(self, path, *, threaded=True, queue_frames=4, check_identical=True):
+        self.path = Path(path)
+        self._cap = _open(self.path)
+        self.info = _info(self._cap, self.path)
+        self.threaded = bool(threaded)
+        self.queue_frames = max(1, int(queue_frames))
+        self.check_identical = check_identical
+        self._t: list[float] = []
+        self._identical: list[bool] = []
+        self._stop = threading.Event()
+        self._thread = None
+
+    # -- context manager -------------------------------------------------------
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+    def close(self):
+        """Stop the decoding thread and release the file."""
+        self._stop.set()
+        if self._thread is not None:
+            self._thread.join(timeout=5.0)
+            self._thread = None
+        if self._cap is not None:
+            self._cap.release()
+            self._cap = None
+
+    # -- reading ---------------------------------------------------------------
+    def _decode(self):
+        """Yield ``(t_ms, frame)`` until the stream ends."""
+        cap = self._cap
+        while not self._stop.is_set():
+            ok, frame = cap.read()
+            if not ok or frame is None:
+                return
+            yield cap.get(cv2.CAP_PROP_POS_MSEC), frame
+
+    def _threaded(self):
+        q: queue.Queue = queue.Queue(maxsize=self.queue_frames)
+
+        def work():
+            try:
+                for item in self._decode():
+                    while not self._stop.is_set():
+                        try:
+                            q.put(item, timeout=0.1)
+                            break
+                        except queue.Full:
+                            continue
+            except BaseException as exc:  # forwarded to the consumer
+                q.put(exc)
+                return
+            q.put(_END)
+
+        self._thread = threading.Thread(target=work, name="vidodo-decode", daemon=True)
+        self._thread.start()
+        while True:
+            item = q.get()
+            if item is _END:
+                return
+            if isinstance(item, BaseException):
+                raise item
+            yield item
+
+    def __iter__(self):
+        if self._cap is None:
+            raise InputError(f"{self.path}: reader already closed; open the video again")
+        source = self._threaded() if self.threaded else self._decode()
+        prev_small = None
+        for t_ms, frame in source:
+            index = len(self._t)
+            t = t_ms / 1000.0
+            if self.check_identical:
+                small = frame[::8, ::8]
+                same = prev_small is not None and np.array_equal(small, prev_small)
+                prev_small = small.copy()
+            else:
+                same = False
+            self._t.append(t)
+            self._identical.append(same)
+            yield index, t, frame
+        self._check_complete()
+
+    def _check_complete(self):
+        n = len(self._t)
+        claimed = self.info.frame_count
+        if n == 0:
+            raise VideoTruncatedError(
+                f"{self.path}: no frame could be decoded; the file is empty, truncated or "
+                "corrupt - re-copy it from the phone",
+                frames_read=0,
+            )
+        # Containers with an index give an exact count; allow a little slack for
+        # those that estimate it from duration and rate.
+        if claimed and n < claimed - max(2, int(0.01 * claimed)):
+            t_last = self._t[-1]
+            raise VideoTruncatedError(
+                f"{self.path}: stopped at frame {n} (t = {t_last:.3f} s) of {claimed} the "
+                "container lists; the file is truncated or corrupt there - frames before it "
+                "were used; re-copy the file to analyse the rest",
+                frames_read=n,
+                t_last_s=t_last,
+            )
+
+    @property
+    def frames_read(self) -> int:
+        """Frames handed out so far."""
+        return len(self._t)
+
+    def timing(self) -> FrameTiming:
+        """Timing analysis of the frames read so far (see :func:`analyse_timing`)."""
+        return analyse_timing(self._t, self._identical if self.check_identical else None)
