@@ -1,0 +1,83 @@
+"""Progress bars for long stages, shown on stderr only when a person is watching.
+
+Library stages take an optional ``progress`` callable; commands make one with
+:func:`progress_bar`. The bar is drawn with tqdm on stderr, and is silent when stderr is
+not a terminal (pipes, CI logs, worker processes) or when the user asked for
+``--quiet``.
+"""
+
+from __future__ import annotations
+
+import sys
+
+from tqdm import tqdm
+
+__all__ = ["Progress", "progress_bar", "enabled"]
+
+
+def enabled(*, quiet: bool = False, stream=None) -> bool:
+    """True when a bar should be drawn: not quiet and the stream is a terminal."""
+    if quiet:
+        return False
+    stream = sys.stderr if stream is None else stream
+    try:
+        return bool(stream.isatty())
+    except (AttributeError, ValueError):
+        return False
+
+
+class Progress:
+    """A progress bar that is also a ``progress(done, total=None)`` callback.
+
+    Use it as a context manager. Call it with the number of items done so far (absolute,
+    so a stage can report from anywhere), or use :meth:`update` for increments.
+    When disabled it does nothing and costs nothing.
+    """
+
+    def __init__(self, total=None, desc: str = "", *, unit: str = "frame",
+                 quiet: bool = False, stream=None):
+        stream = sys.stderr if stream is None else stream
+        self.active = enabled(quiet=quiet, stream=stream)
+        self._bar = None
+        if self.active:
+            self._bar = tqdm(total=total, desc=desc, unit=unit, file=stream,
+                             leave=False, dynamic_ncols=True, mininterval=0.2)
+
+    def __call__(self, done, total=None):
+        """Report ``done`` items finished of ``total`` (total may change)."""
+        if self._bar is None:
+            return
+        if total is not None and total != self._bar.total:
+            self._bar.total = total
+            self._bar.refresh()
+        self._bar.n = done
+        self._bar.refresh()
+
+    def update(self, n=1):
+        """Add ``n`` finished items."""
+        if self._bar is not None:
+            self._bar.update(n)
+
+    def set_description(self, desc: str):
+        """Change the label in front of the bar."""
+        if self._bar is not None:
+            self._bar.set_description(desc)
+
+    def close(self):
+        """Remove the bar from the terminal."""
+        if self._bar is not None:
+            self._bar.close()
+            self._bar = None
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+        return False
+
+
+def progress_bar(total=None, desc: str = "", *, unit: str = "frame", quiet: bool = False,
+                 stream=None) -> Progress:
+    """A :class:`Progress` for a command: on stderr, off when quiet or not a terminal."""
+    return Progress(total, desc, unit=unit, quiet=quiet, stream=stream)

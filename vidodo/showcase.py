@@ -1,0 +1,195 @@
+"""Everything a person looks at, from one grade: plots, the HTML report, the replay.
+
+:func:`render_all` is what ``vidodo grade`` and ``vidodo report`` call after the grade
+outputs (``drift.csv``, ``events.csv``, ``summary.json``) are written. It reads those
+files back, so the pictures show exactly the figures the files hold.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import pandas as pd
+
+from .errors import InputError
+from .html import write_html
+from .plots import source_prefixes, write_plots
+
+__all__ = ["GradeData", "load_grade_dir", "field_from_summary", "render_all",
+           "PLOT_CAPTIONS"]
+
+PLOT_CAPTIONS = {
+    "field_map": "Field map: truth track and every odometry source, events numbered "
+                 "as in the events table",
+    "error_vs_time": "Anchored drift over time per source (solid: distance, dashed: "
+                     "along-track, dotted: cross-track); event windows shaded",
+    "speed": "Ground speed of the truth track against each odometry source",
+}
+
+
+@dataclass(frozen=True)
+class GradeData:
+    """The grade outputs of one run, as read back from its folder."""
+
+    drift: pd.DataFrame
+    """Drift table, one row per truth sample (SI units, see DEVELOPERS.md)."""
+    events: pd.DataFrame
+    """Events table, one row per event."""
+    summary: dict
+    """Content of summary.json."""
+    folder: Path | None = None
+    """The grade folder the data came from."""
+    field: object | None = None
+    """Field profile (tile grid) when it could be found, else None."""
+
+    @property
+    def sources(self) -> dict[str, str]:
+        """Source display name -> drift column prefix, in summary order."""
+        return source_prefixes(self.drift, (self.summary.get("sources") or {}).keys())
+
+
+def _read_csv(path: Path) -> pd.DataFrame:
+    try:
+        return pd.read_csv(path, keep_default_na=True)
+    except FileNotFoundError:
+        raise InputError(f"{path}: file not found; run `vidodo grade --out "
+                         f"{path.parent}` first") from None
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path}: not a readable CSV ({exc}); grade the run again") from None
+
+
+def field_from_summary(summary: dict, folder: Path | None = None):
+    """The field profile a grade used, or None when it cannot be found.
+
+    Looked for, in order: a ``field`` table in the summary (``tiles_x, tiles_y,
+    tile_size_m``), ``inputs.field`` as a path to field.toml (relative to the grade
+    folder or absolute), ``field.toml`` in the grade folder.
+    """
+    from .profiles import FieldProfile, load_field
+
+    f = summary.get("field")
+    if isinstance(f, dict) and {"tiles_x", "tiles_y", "tile_size_m"} <= set(f):
+        try:
+            return FieldProfile(int(f["tiles_x"]), int(f["tiles_y"]), float(f["tile_size_m"]))
+        except (TypeError, ValueError):
+            pass
+    candidates = []
+    p = (summary.get("inputs") or {}).get("field")
+    if isinstance(p, str) and p:
+        candidates.append(Path(p))
+        if folder is not None:
+            candidates.append(folder / p)
+    if folder is not None:
+        candidates.append(folder / "field.toml")
+    for c in candidates:
+        if c.is_file():
+            try:
+                return load_field(c)
+            except InputError:
+                continue
+    return None
+
+
+def load_grade_dir(folder) -> GradeData:
+    """Read ``drift.csv``, ``events.csv`` and ``summary.json`` of a grade folder.
+
+    Raises
+    ------
+    InputError
+        Naming the missing or unreadable file.
+    """
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise InputError(f"{folder}: not a folder; give the --out folder of `vidodo grade`")
+    spath = folder / "summary.json"
+    try:
+        summary = json.loads(spath.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise InputError(f"{spath}: file not found; run `vidodo grade --out {folder}` "
+                         "first") from None
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise InputError(f"{spath}: not valid JSON ({exc}); grade the run again") from None
+    if not isinstance(summary, dict):
+        raise InputError(f"{spath}: expected a JSON object; grade the run again")
+    drift = _read_csv(folder / "drift.csv")
+    for col in ("t_s", "truth_x_m", "truth_y_m"):
+        if col not in drift:
+            raise InputError(f"{folder / 'drift.csv'}: missing column '{col}'; "
+                             "grade the run again")
+    epath = folder / "events.csv"
+    events = _read_csv(epath) if epath.is_file() else pd.DataFrame(
+        columns=["kind", "t_start_s", "t_end_s", "x_m", "y_m", "magnitude",
+                 "magnitude_unit", "sources", "detail"])
+    return GradeData(drift=drift, events=events, summary=summary, folder=folder,
+                     field=field_from_summary(summary, folder))
+
+
+def _grade_folder_of(grade_result_or_dir, out_dir: Path) -> Path:
+    """A folder holding the grade outputs: the given one, or ``out_dir`` after writing."""
+    if isinstance(grade_result_or_dir, str | Path):
+        return Path(grade_result_or_dir)
+    if (out_dir / "summary.json").is_file() and (out_dir / "drift.csv").is_file():
+        return out_dir
+    from . import report  # written by the grading stage
+
+    report.write_outputs(grade_result_or_dir, out_dir)
+    return out_dir
+
+
+def _run_title(summary: dict) -> str:
+    inputs = summary.get("inputs") or {}
+    run = inputs.get("run") or inputs.get("video") or ""
+    if not run:
+        return ""
+    p = Path(str(run))
+    return p.parent.name if p.name == "video.mp4" and p.parent.name else p.name
+
+
+def render_all(grade_result_or_dir, out_dir, *, replay: bool = True, units: str = "mm",
+               progress=None) -> list[Path]:
+    """Write the plots, the HTML report and (optionally) the annotated replay.
+
+    Parameters
+    ----------
+    grade_result_or_dir : GradeResult or path
+        A grade folder holding drift.csv, events.csv and summary.json, or a
+        ``GradeResult`` (its outputs are written into ``out_dir`` first unless they are
+        already there).
+    out_dir : path
+        Where the pictures go (usually the grade folder itself).
+    replay : bool
+        Also write ``replay.mp4`` (needs the footage named in ``summary.inputs.video``
+        and the robot profile in ``summary.inputs.robot``).
+    units : {'mm', 'in', 'm'}
+        Display unit for lengths.
+    progress : callable, optional
+        ``progress(done, total)`` for the replay's frames.
+
+    Returns
+    -------
+    list of Path
+        The files written: three PNGs, ``report.html`` and, if asked, ``replay.mp4``.
+    """
+    out_dir = Path(out_dir)
+    folder = _grade_folder_of(grade_result_or_dir, out_dir)
+    data = load_grade_dir(folder)
+    title = _run_title(data.summary)
+    pngs = write_plots(data.drift, data.events, out_dir, field=data.field,
+                       sources=data.sources, unit=units, title=title)
+    written = list(pngs.values())
+    extra = []
+    if replay:
+        from .replay import replay_from_grade
+
+        path = replay_from_grade(data, out_dir / "replay.mp4", units=units, progress=progress)
+        written.append(path)
+        extra.append(path.name)
+    images = {PLOT_CAPTIONS.get(k, k): p for k, p in pngs.items()}
+    html_path = write_html(out_dir / "report.html", data.summary, images, unit=units,
+                           title=f"vidodo report: {title}" if title else None,
+                           extra_files=extra)
+    written.append(html_path)
+    return written
+
