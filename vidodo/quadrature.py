@@ -160,6 +160,8 @@ def threshold_channel(values, threshold=None, *, band: float = 0.15,
         below, above = fin[fin < thr], fin[fin >= thr]
         lo_m = float(below.mean()) if below.size else thr
         hi_m = float(above.mean()) if above.size else thr
+        if threshold is None and below.size and above.size:
+            thr = 0.5 * (lo_m + hi_m)  # centre the band between the two levels
     moving = uniq.size > 1 and (binary or (sep >= min_separation or threshold is not None)) \
         and lo_m < thr <= hi_m
     half = band * (hi_m - lo_m)
