@@ -1,0 +1,788 @@
+"""Fit the robot profile's geometry to the truth track.
+
+The truth track (video clock) gives the robot's body motion over short windows; the
+log gives what each encoder and the IMU counted over the same windows. Through the
+single wheel model (:mod:`vidodo.wheels`) each window predicts every wheel's rim travel
+from the body increment, so the profile numbers follow by robust least squares over
+many windows:
+
+* per wheel: a radius scale ``k`` (true rim travel = ``k`` x profile rim travel) and a
+  lever-arm correction ``dl`` (the wheel's offset perpendicular to the direction it
+  reads: the lateral offset of a forward-rolling wheel, the forward offset of a
+  sideways one);
+* the IMU: a scale ``c`` on the logged heading change and, per run, a bias rate;
+* per run: a correction to the clock offset and a small log-clock rate error, with
+  ``t_video = t_log + offset_s + d_offset_s + rate * (t_log - t_mid)``.
+
+Encoder (and IMU) sign errors are found first, from the cosine similarity between the
+measured and the predicted travel over all windows, and flagged.
+
+Residual for wheel ``i`` in window ``w`` (rim metres)::
+
+    k_i * sign_i * metres_per_tick_i * dticks_i,w  -  (A_i + [0, 0, dl_i]) @ U_w
+
+with ``U_w`` the truth body increment (exponential coordinates summed frame by frame)
+and ``A_i`` the wheel's row of the wheel matrix; for the IMU (radians)::
+
+    c * dpsi_w  -  bias * dt_w  -  dtheta_w.
+
+The solve is iteratively reweighted least squares (Huber weights, a per-sensor noise
+scale from the median absolute deviation; :func:`scipy.optimize.least_squares` for each
+step), with a weak prior that holds every value at the profile when the data say
+nothing. Standard errors come from the Jacobian, ``cov = s^2 (J^T J)^-1``, assuming
+independent windows; a value whose standard error exceeds the wanted precision is
+reported as not identifiable (with a motion that would fix it) and left as it was.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy.optimize import least_squares
+
+from .errors import InputError, MeasurementError
+from .outputs import atomic_file
+from .profiles import RobotProfile, dump_toml, robot_to_dict
+from .se2 import relative_pose
+from .wheels import wheel_rows
+
+__all__ = [
+    "FitRun",
+    "ProfileFit",
+    "TOLERANCES",
+    "fit_profile",
+    "truth_increments",
+    "log_map_increment",
+    "write_profile",
+]
+
+TOLERANCES = {
+    "radius": 1e-3,
+    "lever": 0.5e-3,
+    "imu_scale": 0.5e-3,
+    "imu_bias": math.radians(0.01),
+    "clock_offset": 2e-3,
+    "clock_rate": 20e-6,
+}
+"""Wanted precision (one standard error) per kind of value: radius scale [-], lever arm
+[m], IMU scale [-], IMU bias rate [rad/s], clock offset [s], clock rate [-]. A value is
+'yes' (identifiable) when its standard error is within this, 'weak' within 5 times
+this, else 'no'."""
+
+_PRIOR_SIGMA = {
+    "radius": 0.2,
+    "lever": 0.05,
+    "imu_scale": 0.2,
+    "imu_bias": math.radians(2.0),
+    "clock_offset": 0.2,
+    "clock_rate": 2e-3,
+}
+"""Width of the weak prior that holds a value at the profile when the data carry no
+information about it (one sigma, units as in :data:`TOLERANCES`)."""
+
+SUGGESTIONS = {
+    "radius": "drive straight lines of a few metres, forward and back",
+    "radius_side": "drive (or push the robot) sideways a metre or two each way",
+    "lever": "spin in place several full turns each way, then drive a square",
+    "imu_scale": "spin in place several full turns each way",
+    "imu_bias": "stand still for 5 s at the start and at the end, and drive for longer",
+    "clock_offset": "start and stop sharply a few times",
+    "clock_rate": "drive for longer, with sharp starts and stops near both ends",
+}
+"""The motion that would pin down each kind of value."""
+
+_HUBER_K = 1.345
+"""Huber tuning constant in units of the noise scale (95 % efficiency on Gaussian
+noise; Huber 1964, common practice)."""
+
+
+@dataclass(frozen=True)
+class FitRun:
+    """One graded run as the fit needs it.
+
+    Attributes
+    ----------
+    name : str
+        Label used in tables and warnings.
+    truth : DataFrame
+        Truth track on the video clock: ``t_s`` [s], ``x_m``, ``y_m`` [m],
+        ``heading_rad`` (continuous) [rad]; optional ``detected`` and
+        ``interpolated`` flags (windows touching an undetected or interpolated frame
+        are dropped).
+    log : DataFrame
+        Log frame on the log clock: ``t_s`` [s], ``ticks_<wheel>`` (unwrapped counts,
+        sign not applied), ``imu_heading_rad`` [rad] (profile scale and sign applied).
+    offset_s : float
+        Clock offset, ``t_video_s = t_log_s + offset_s + rate * (t_log_s - ref_log_s)``
+        [s].
+    exclude_windows : tuple of (float, float)
+        Video-clock intervals ``(t_start_s, t_end_s)`` to leave out (events) [s].
+    rate : float
+        Log-clock rate error already known from the clock sync [-].
+    ref_log_s : float
+        Log time the rate term is referred to [s].
+    """
+
+    name: str
+    truth: pd.DataFrame
+    log: pd.DataFrame
+    offset_s: float
+    exclude_windows: tuple = ()
+    rate: float = 0.0
+    ref_log_s: float = 0.0
+
+
+@dataclass(frozen=True)
+class ProfileFit:
+    """The fitted profile values and what they are worth.
+
+    Attributes
+    ----------
+    table : DataFrame
+        One row per value: ``parameter`` (e.g. ``wheel left y_m``), ``kind``,
+        ``target`` (wheel name, ``imu`` or run name), ``unit`` (SI), ``profile``,
+        ``estimate`` (NaN when not identifiable), ``std_error``, ``change``
+        (estimate - profile), ``identifiable`` (``yes``, ``weak``, ``no``),
+        ``written`` (the corrected profile carries the estimate) and ``suggestion``
+        (a motion that would pin the value down, empty when identifiable).
+    robot : RobotProfile
+        The profile handed in.
+    corrected_robot : RobotProfile
+        The profile with every written estimate applied.
+    inverted : tuple of str
+        Wheels (and ``imu``) whose counts run against their profile sign.
+    n_windows : dict
+        Windows used per run.
+    noise : dict
+        Fitted noise scale per sensor (MAD of residuals): wheels [m], ``imu`` [rad].
+    covariance : ndarray of shape (P, P)
+        Covariance of the free parameters in the solver's units (see ``names``).
+    names : tuple of str
+        Solver parameter names, in covariance order.
+    warnings : tuple of str
+        Anything that makes a value uncertain.
+    """
+
+    table: pd.DataFrame
+    robot: RobotProfile
+    corrected_robot: RobotProfile
+    inverted: tuple
+    n_windows: dict
+    noise: dict
+    covariance: np.ndarray = field(repr=False)
+    names: tuple = ()
+    warnings: tuple = ()
+
+
+# ----------------------------------------------------------------------- increments
+def log_map_increment(dx_m, dy_m, dtheta_rad):
+    """Exponential coordinates ``(ux, uy, dtheta)`` of a relative pose.
+
+    Inverse of :func:`vidodo.se2.exp_increment`: the constant twist times duration
+    that carries the body from the start pose to the relative pose ``(dx, dy,
+    dtheta)`` on one constant-curvature arc (Lynch & Park, *Modern Robotics*, 2017,
+    section 13.4).
+
+    Returns
+    -------
+    ndarray of shape (N, 3)
+        ``(ux_m, uy_m, dtheta_rad)``.
+    """
+    dx = np.asarray(dx_m, dtype=float)
+    dy = np.asarray(dy_m, dtype=float)
+    th = np.asarray(dtheta_rad, dtype=float)
+    small = np.abs(th) < 1e-6
+    th_safe = np.where(small, 1.0, th)
+    a = np.where(small, 1.0 - th**2 / 6.0, np.sin(th_safe) / th_safe)
+    b = np.where(small, th / 2.0 - th**3 / 24.0, (1.0 - np.cos(th_safe)) / th_safe)
+    det = a * a + b * b
+    ux = (a * dx + b * dy) / det
+    uy = (-b * dx + a * dy) / det
+    return np.column_stack([np.atleast_1d(ux), np.atleast_1d(uy), np.atleast_1d(th)])
+
+
+def truth_increments(truth: pd.DataFrame) -> np.ndarray:
+    """Cumulative body increments of a truth track, frame by frame.
+
+    Parameters
+    ----------
+    truth : DataFrame
+        Columns ``x_m``, ``y_m``, ``heading_rad``.
+
+    Returns
+    -------
+    ndarray of shape (N, 3)
+        Row ``j`` minus row ``i`` is the body motion ``(ux_m, uy_m, dtheta_rad)``
+        from frame ``i`` to frame ``j``; row 0 is zero.
+    """
+    pose = truth[["x_m", "y_m", "heading_rad"]].to_numpy(float)
+    rel = relative_pose(pose[:-1], pose[1:])
+    u = log_map_increment(rel[:, 0], rel[:, 1], rel[:, 2])
+    u = np.nan_to_num(u, nan=0.0)
+    return np.vstack([np.zeros((1, 3)), np.cumsum(u, axis=0)])
+
+
+# --------------------------------------------------------------------------- windows
+@dataclass(frozen=True)
+class _Windows:
+    ta: np.ndarray
+    tb: np.ndarray
+    u: np.ndarray  # (W, 3) body increments
+    dtheta: np.ndarray  # (W,) heading change [rad]
+
+
+def _windows(run: FitRun, window_s, margin_s, extra_exclude) -> _Windows:
+    tr = run.truth
+    for col in ("t_s", "x_m", "y_m", "heading_rad"):
+        if col not in tr.columns:
+            raise InputError(f"truth track of run {run.name!r}: missing column '{col}'")
+    tr = tr.sort_values("t_s").reset_index(drop=True)
+    t = tr["t_s"].to_numpy(float)
+    ok = np.isfinite(tr[["x_m", "y_m", "heading_rad"]].to_numpy(float)).all(axis=1)
+    if "detected" in tr.columns:
+        ok &= tr["detected"].fillna(False).to_numpy(bool)
+    if "interpolated" in tr.columns:
+        ok &= ~tr["interpolated"].fillna(True).to_numpy(bool)
+    cum = truth_increments(tr)
+    lt = run.log["t_s"].to_numpy(float)
+    lo = lt[0] + run.offset_s + run.rate * (lt[0] - run.ref_log_s) + 0.05
+    hi = lt[-1] + run.offset_s + run.rate * (lt[-1] - run.ref_log_s) - 0.05
+    ok &= (t >= lo) & (t <= hi)
+    excl = [tuple(map(float, w)) for w in tuple(run.exclude_windows) + tuple(extra_exclude)]
+    starts, ends = [], []
+    i = None
+    for j in range(len(t)):
+        if not ok[j]:
+            i = None
+            continue
+        if i is None:
+            i = j
+            continue
+        if t[j] - t[i] >= window_s:
+            starts.append(i)
+            ends.append(j)
+            i = j
+    ia, ib = np.asarray(starts, int), np.asarray(ends, int)
+    keep = np.ones(len(ia), bool)
+    for a, b in excl:
+        keep &= ~((t[ia] < b + margin_s) & (t[ib] > a - margin_s))
+    ia, ib = ia[keep], ib[keep]
+    u = cum[ib] - cum[ia]
+    return _Windows(t[ia], t[ib], u, u[:, 2].copy())
+
+
+# ------------------------------------------------------------------------- the model
+@dataclass
+class _RunData:
+    name: str
+    win: _Windows
+    log_t: np.ndarray
+    ticks: list  # per fitted wheel: cumulative counts (sign not applied)
+    psi: np.ndarray | None
+    offset_s: float
+    t_mid: float
+    rate0: float = 0.0
+    ref0: float = 0.0
+    i_delta: int = -1
+    i_rate: int = -1
+    i_bias: int = -1
+
+
+def _log_times(rd: _RunData, t_video, delta, rate):
+    """Invert ``t_video = t_log + offset + rate0 (t_log - ref0) + delta + rate (t_log - mid)``."""
+    return ((t_video - rd.offset_s - delta + rd.rate0 * rd.ref0 + rate * rd.t_mid)
+            / (1.0 + rd.rate0 + rate))
+
+
+class _Model:
+    """Parameter layout and residuals of the fit."""
+
+    def __init__(self, robot, wheels, m_per_tick, runs, use_imu, fit_clock):
+        self.robot = robot
+        self.wheels = wheels
+        self.a = wheel_rows(wheels)
+        self.mpt = np.asarray(m_per_tick, float)  # sign included
+        self.runs = runs
+        self.use_imu = use_imu
+        names, kinds, centre = [], [], []
+
+        def add(name, kind, c):
+            names.append(name)
+            kinds.append(kind)
+            centre.append(c)
+            return len(names) - 1
+
+        self.i_k = [add(f"k:{w.name}", "radius", 1.0) for w in wheels]
+        self.i_l = [add(f"dl:{w.name}", "lever", 0.0) for w in wheels]
+        self.i_c = add("c:imu", "imu_scale", 1.0) if use_imu else -1
+        for rd in runs:
+            if fit_clock:
+                rd.i_delta = add(f"delta:{rd.name}", "clock_offset", 0.0)
+                rd.i_rate = add(f"rate:{rd.name}", "clock_rate", 0.0)
+            if use_imu:
+                rd.i_bias = add(f"bias:{rd.name}", "imu_bias", 0.0)
+        self.names, self.kinds = names, kinds
+        self.centre = np.asarray(centre, float)
+        self.prior_sigma = np.array([_PRIOR_SIGMA[k] for k in kinds])
+        # per data residual: its sensor group (wheel j -> j, imu -> len(wheels)) and its
+        # window (numbered over all runs); windows sharing an end frame are adjacent
+        groups, wins, adjacent = [], [], []
+        base = 0
+        for rd in runs:
+            n = len(rd.win.ta)
+            for j in range(len(wheels) + (1 if use_imu else 0)):
+                groups.append(np.full(n, j))
+                wins.append(base + np.arange(n))
+            adjacent.append(base + np.flatnonzero(rd.win.tb[:-1] == rd.win.ta[1:]))
+            base += n
+        self.groups = np.concatenate(groups) if groups else np.zeros(0, int)
+        self.row_window = np.concatenate(wins) if wins else np.zeros(0, int)
+        self.adjacent = np.concatenate(adjacent) if adjacent else np.zeros(0, int)
+        self.n_windows = base
+        self.n_groups = len(wheels) + (1 if use_imu else 0)
+
+    def data_residuals(self, theta):
+        out = []
+        for rd in self.runs:
+            delta = theta[rd.i_delta] if rd.i_delta >= 0 else 0.0
+            rate = theta[rd.i_rate] if rd.i_rate >= 0 else 0.0
+            la = _log_times(rd, rd.win.ta, delta, rate)
+            lb = _log_times(rd, rd.win.tb, delta, rate)
+            for j in range(len(self.wheels)):
+                tk = rd.ticks[j]
+                rim = self.mpt[j] * (np.interp(lb, rd.log_t, tk) - np.interp(la, rd.log_t, tk))
+                pred = rd.win.u @ self.a[j] + theta[self.i_l[j]] * rd.win.u[:, 2]
+                out.append(theta[self.i_k[j]] * rim - pred)
+            if self.use_imu:
+                dpsi = np.interp(lb, rd.log_t, rd.psi) - np.interp(la, rd.log_t, rd.psi)
+                dt = rd.win.tb - rd.win.ta
+                out.append(theta[self.i_c] * dpsi - theta[rd.i_bias] * dt - rd.win.dtheta)
+        return np.concatenate(out) if out else np.zeros(0)
+
+
+def _huber_weights(z, k=_HUBER_K):
+    az = np.abs(z)
+    return np.where(az <= k, 1.0, k / np.maximum(az, 1e-300))
+
+
+def _robust_scale(r):
+    """Normalised median absolute deviation about zero (1.4826 MAD; common practice)."""
+    r = r[np.isfinite(r)]
+    return 1.4826 * float(np.median(np.abs(r))) if r.size else float("nan")
+
+
+def _solve(model: _Model, theta0, free, *, max_iter=12):
+    """IRLS: Huber weights and per-group noise scales around scipy's least squares."""
+    theta = theta0.copy()
+    free = np.asarray(free, bool)
+    n_groups = model.n_groups
+    sig = np.ones(n_groups)
+    raw = model.data_residuals(theta)
+    for g in range(n_groups):
+        s = _robust_scale(raw[model.groups == g])
+        sig[g] = s if np.isfinite(s) and s > 0 else 1.0
+    w = np.ones_like(raw)
+
+    def fun(x):
+        th = theta.copy()
+        th[free] = x
+        r = model.data_residuals(th) / sig[model.groups] * np.sqrt(w)
+        p = (th - model.centre) / model.prior_sigma
+        return np.concatenate([r, p[free]])
+
+    sol = None
+    for _ in range(max_iter):
+        sol = least_squares(fun, theta[free], x_scale="jac", method="trf",
+                            xtol=1e-12, ftol=1e-12, gtol=1e-12)
+        new = theta.copy()
+        new[free] = sol.x
+        raw = model.data_residuals(new)
+        new_sig = sig.copy()
+        for g in range(n_groups):
+            s = _robust_scale(raw[model.groups == g])
+            # floor far below any real noise so a noise-free case stays well posed
+            new_sig[g] = max(s, 1e-12) if np.isfinite(s) else sig[g]
+        w = _huber_weights(raw / new_sig[model.groups])
+        step = np.abs(new - theta)
+        theta = new
+        changed_sig = np.max(np.abs(np.log(new_sig / sig)))
+        sig = new_sig
+        if changed_sig < 0.01 and np.all(step <= 1e-9 + 1e-6 * np.abs(theta)):
+            break
+    # final Jacobian at the converged weights and scales
+    sol = least_squares(fun, theta[free], x_scale="jac", method="trf",
+                        xtol=1e-12, ftol=1e-12, gtol=1e-12)
+    theta[free] = sol.x
+    m_d = len(raw)
+    jd, jp = sol.jac[:m_d], sol.jac[m_d:]
+    cov = _sandwich_cov(model, jd, jp, sol.fun[:m_d], int(free.sum()))
+    return theta, cov, sig, raw
+
+
+def _sandwich_cov(model: _Model, jd, jp, z, n_free):
+    """Covariance of the estimate with noise shared by adjacent windows.
+
+    Adjacent windows share an end frame, so the truth noise at that frame enters both
+    with opposite signs (and every sensor of a window sees the same truth noise). The
+    residuals are therefore modelled as a vector moving average of order one across
+    windows, with lag-0 and lag-1 covariance matrices ``G0``, ``G1`` (sensor by sensor)
+    pooled over all windows. The covariance is the sandwich
+    ``H^-1 (sum_t J_t' G0 J_t + sum_adj (J_t+1' G1 J_t + J_t' G1' J_t+1) + P) H^-1``
+    with ``H = J'J + P`` and ``P`` the prior's information (Newey & West 1987, with the
+    autocovariances from a pooled model rather than from single products; common
+    practice for residuals that are differences of endpoint errors). Without
+    correlation between windows it reduces to ``s^2 (J'J)^-1``.
+    """
+    n_t, n_g, n_p = model.n_windows, model.n_groups, jd.shape[1]
+    zt = np.zeros((n_t, n_g))
+    jt = np.zeros((n_t, n_g, n_p))
+    zt[model.row_window, model.groups] = z
+    jt[model.row_window, model.groups] = jd
+    dof = max(len(z) - n_free, 1) / max(len(z), 1)
+    g0 = zt.T @ zt / n_t / dof
+    adj = model.adjacent
+    g1 = zt[adj + 1].T @ zt[adj] / n_t / dof if adj.size else np.zeros((n_g, n_g))
+    meat = np.einsum("tgp,gh,thq->pq", jt, g0, jt)
+    if adj.size:
+        cross = np.einsum("tgp,gh,thq->pq", jt[adj + 1], g1, jt[adj])
+        meat += cross + cross.T
+    # a pooled estimate can be slightly indefinite: keep its non-negative part
+    ev, vec = np.linalg.eigh(0.5 * (meat + meat.T))
+    meat = (vec * np.clip(ev, 0.0, None)) @ vec.T
+    prior = jp.T @ jp
+    h_inv = np.linalg.pinv(jd.T @ jd + prior)
+    return h_inv @ (meat + prior) @ h_inv
+
+
+# --------------------------------------------------------------------- sign checks
+def _similarity(a, b):
+    den = math.sqrt(float(a @ a) * float(b @ b))
+    return float(a @ b) / den if den > 0 else float("nan")
+
+
+# ----------------------------------------------------------------------------- fit
+def fit_profile(runs, robot: RobotProfile, *, exclude_windows=None, window_s=0.4,
+                exclude_margin_s=0.25, fit_clock=True, fit_imu=True, tolerances=None,
+                max_iter=12) -> ProfileFit:
+    """Fit wheel radii, lever arms, IMU scale and bias, and clock terms to truth.
+
+    Parameters
+    ----------
+    runs : sequence of FitRun
+        Graded runs of the same robot.
+    robot : RobotProfile
+        The profile the logs were read with (the one to correct).
+    exclude_windows : sequence of sequence of (float, float), optional
+        Per run, extra video-clock intervals to leave out [s].
+    window_s : float
+        Length of each fitting window [s].
+    exclude_margin_s : float
+        Margin added around every excluded interval [s].
+    fit_clock : bool
+        Fit a clock-offset correction and a log-clock rate error per run.
+    fit_imu : bool
+        Fit the IMU scale and per-run bias rate (when the log has IMU heading).
+    tolerances : dict, optional
+        Overrides of :data:`TOLERANCES`.
+    max_iter : int
+        Reweighting iterations.
+
+    Returns
+    -------
+    ProfileFit
+
+    Raises
+    ------
+    InputError
+        A run lacks a column the fit needs.
+    MeasurementError
+        Too few usable windows to fit anything.
+    """
+    tol = {**TOLERANCES, **(tolerances or {})}
+    runs = list(runs)
+    if not runs:
+        raise InputError("fit_profile: no runs given; pass at least one graded run")
+    extra = list(exclude_windows) if exclude_windows is not None else [()] * len(runs)
+    if len(extra) != len(runs):
+        raise InputError("fit_profile: exclude_windows needs one entry per run")
+    warnings: list[str] = []
+
+    wins = []
+    for run, ex in zip(runs, extra, strict=True):
+        if "t_s" not in run.log.columns:
+            raise InputError(f"log of run {run.name!r}: missing column 't_s'")
+        wins.append(_windows(run, window_s, exclude_margin_s, ex))
+    n_win = {run.name: len(w.ta) for run, w in zip(runs, wins, strict=True)}
+    total = sum(n_win.values())
+    if total < 10:
+        raise MeasurementError(
+            f"fit_profile: only {total} usable {window_s} s windows outside events; "
+            "film a longer run with the marker in view"
+        )
+
+    # wheels with a ticks column in every run
+    wheels = []
+    for w in robot.wheels:
+        col = f"ticks_{w.name}"
+        if all(col in run.log.columns for run in runs):
+            wheels.append(w)
+        else:
+            warnings.append(f"wheel {w.name}: no '{col}' column in every log; not fitted")
+    use_imu = fit_imu and robot.imu is not None and all(
+        "imu_heading_rad" in run.log.columns for run in runs)
+
+    # ---- sign check per wheel and the IMU, on the profile geometry
+    a0 = wheel_rows(wheels)
+    mpt = np.array([w.sign * w.metres_per_tick for w in wheels])
+    rundata = []
+    for run, win in zip(runs, wins, strict=True):
+        lt = run.log["t_s"].to_numpy(float)
+        ticks = [run.log[f"ticks_{w.name}"].to_numpy(float) for w in wheels]
+        psi = run.log["imu_heading_rad"].to_numpy(float) if use_imu else None
+        rundata.append(_RunData(run.name, win, lt, ticks, psi, float(run.offset_s),
+                                float(0.5 * (lt[0] + lt[-1])), float(run.rate),
+                                float(run.ref_log_s)))
+    inverted = []
+    flip = np.ones(len(wheels))
+    usable = np.ones(len(wheels), bool)
+    for j, w in enumerate(wheels):
+        meas, pred = [], []
+        for rd in rundata:
+            la, lb = _log_times(rd, rd.win.ta, 0, 0), _log_times(rd, rd.win.tb, 0, 0)
+            tk = rd.ticks[j]
+            meas.append(mpt[j] * (np.interp(lb, rd.log_t, tk) - np.interp(la, rd.log_t, tk)))
+            pred.append(rd.win.u @ a0[j])
+        meas, pred = np.concatenate(meas), np.concatenate(pred)
+        if not np.all(np.isfinite(meas)):
+            usable[j] = False
+            warnings.append(f"wheel {w.name}: ticks are not finite in every window; not fitted")
+            continue
+        sim = _similarity(meas, pred)
+        if not np.isfinite(sim) or float(pred @ pred) < (10 * w.metres_per_tick) ** 2:
+            usable[j] = False
+            warnings.append(f"wheel {w.name}: the run barely moves it; not fitted")
+        elif sim < -0.5:
+            flip[j] = -1.0
+            inverted.append(w.name)
+            warnings.append(
+                f"wheel {w.name}: counts run against its rolling direction (similarity "
+                f"{sim:+.2f}); the corrected profile sets sign = {-w.sign}")
+        elif sim < 0.5:
+            usable[j] = False
+            warnings.append(
+                f"wheel {w.name}: counts do not follow the motion (similarity {sim:+.2f}); "
+                "check its column, position and direction in the profile; not fitted")
+    imu_flip = 1.0
+    if use_imu:
+        meas = np.concatenate([np.interp(_log_times(rd, rd.win.tb, 0, 0), rd.log_t, rd.psi)
+                               - np.interp(_log_times(rd, rd.win.ta, 0, 0), rd.log_t, rd.psi)
+                               for rd in rundata])
+        pred = np.concatenate([rd.win.dtheta for rd in rundata])
+        sim = _similarity(meas, pred)
+        if not np.isfinite(sim) or float(pred @ pred) < 1e-4:
+            use_imu = False
+            warnings.append("imu: the run barely turns; IMU not fitted")
+        elif sim < -0.5:
+            imu_flip = -1.0
+            inverted.append("imu")
+            warnings.append(f"imu: heading runs clockwise-positive (similarity {sim:+.2f}); "
+                            f"the corrected profile sets sign = {-robot.imu.sign}")
+        elif sim < 0.5:
+            use_imu = False
+            warnings.append(f"imu: heading does not follow the motion (similarity "
+                            f"{sim:+.2f}); check its column and unit; not fitted")
+    if use_imu:
+        for rd in rundata:
+            rd.psi = imu_flip * rd.psi
+    keep = [j for j in range(len(wheels)) if usable[j]]
+    fwheels = [wheels[j] for j in keep]
+    fmpt = mpt[keep] * flip[keep]
+    for rd in rundata:
+        rd.ticks = [rd.ticks[j] for j in keep]
+    if not fwheels and not use_imu:
+        raise MeasurementError("fit_profile: no wheel or IMU follows the truth track; "
+                               "check the profile's columns and wheel directions")
+
+    model = _Model(robot, fwheels, fmpt, rundata, use_imu, fit_clock)
+    theta0 = model.centre.copy()
+    free = np.ones(len(theta0), bool)
+    theta, cov, sig, raw = _solve(model, theta0, free, max_iter=max_iter)
+    se = np.full(len(theta), np.nan)
+    se[free] = np.sqrt(np.clip(np.diag(cov), 0, None))
+    status = _status(se, model.kinds, tol)
+    # refit with the values the data cannot fix held at the profile
+    fixed = status == "no"
+    if fixed.any():
+        theta_r, cov_r, sig, raw = _solve(model, model.centre.copy(), ~fixed,
+                                          max_iter=max_iter)
+        theta = np.where(fixed, model.centre, theta_r)
+        se_free = np.sqrt(np.clip(np.diag(cov_r), 0, None))
+        se[~fixed] = se_free
+        full_cov = np.zeros((len(theta), len(theta)))
+        idx = np.flatnonzero(~fixed)
+        full_cov[np.ix_(idx, idx)] = cov_r
+        cov = full_cov
+        status = np.where(fixed, "no", _status(se, model.kinds, tol))
+    noise = {w.name: float(sig[g]) for g, w in enumerate(fwheels)}
+    if use_imu:
+        noise["imu"] = float(sig[len(fwheels)])
+    table, corrected = _tabulate(robot, model, theta, se, cov, status, inverted, imu_flip,
+                                 tol, warnings)
+    for rd in rundata:
+        if rd.i_rate >= 0 and status[rd.i_rate] == "yes":
+            r = theta[rd.i_rate]
+            if abs(r) > 5 * se[rd.i_rate]:
+                warnings.append(f"run {rd.name}: the log clock runs {r * 1e6:+.0f} ppm "
+                                "against the video clock")
+    return ProfileFit(table=table, robot=robot, corrected_robot=corrected,
+                      inverted=tuple(inverted), n_windows=n_win, noise=noise,
+                      covariance=cov, names=tuple(model.names), warnings=tuple(warnings))
+
+
+def _status(se, kinds, tol):
+    out = []
+    for s, k in zip(se, kinds, strict=True):
+        t = tol[k]
+        out.append("yes" if s <= t else ("weak" if s <= 5 * t else "no"))
+    return np.asarray(out, dtype=object)
+
+
+# ------------------------------------------------------------------------ tabulate
+def _lever_display(w):
+    """How a wheel's lever arm maps onto its profile keys.
+
+    Returns (key, profile value, d value / d lever, position step per unit lever).
+    """
+    e = wheel_rows([w])[0]
+    ex, ey = e[0], e[1]
+    n = ex * ex + ey * ey
+    step = np.array([ey, -ex]) / n
+    if abs(ey) < 1e-9:
+        return "y_m", w.y_m, -1.0 / ex, step
+    if abs(ex) < 1e-9:
+        return "x_m", w.x_m, 1.0 / ey, step
+    return "lever_m", float(e[2]), 1.0, step
+
+
+def _tabulate(robot, model, theta, se, cov, status, inverted, imu_flip, tol, warnings):
+    rows = []
+    new_wheels = {w.name: w for w in robot.wheels}
+
+    def row(parameter, kind, target, unit, prof, est, s, st, written, sugg_kind=None):
+        sugg = "" if st == "yes" else SUGGESTIONS[sugg_kind or kind]
+        rows.append(dict(parameter=parameter, kind=kind, target=target, unit=unit,
+                         profile=prof, estimate=est if st != "no" else float("nan"),
+                         std_error=s, change=(est - prof) if st != "no" else float("nan"),
+                         identifiable=st, written=written, suggestion=sugg))
+
+    def write_ok(i):
+        if status[i] == "yes":
+            return True
+        return status[i] == "weak" and abs(theta[i] - model.centre[i]) > 3 * se[i]
+
+    for j, w in enumerate(model.wheels):
+        ik, il = model.i_k[j], model.i_l[j]
+        sign = -w.sign if w.name in inverted else w.sign
+        side = abs(wheel_rows([w])[0][0]) < 1e-9
+        r_est = w.radius_m * theta[ik]
+        wr = write_ok(ik)
+        row(f"wheel {w.name} radius_m", "radius", w.name, "m", w.radius_m, r_est,
+            w.radius_m * se[ik], status[ik], wr, "radius_side" if side else None)
+        key, prof, dv, step = _lever_display(w)
+        lw = write_ok(il)
+        row(f"wheel {w.name} {key}", "lever", w.name, "m", prof, prof + dv * theta[il],
+            abs(dv) * se[il], status[il], lw)
+        row(f"wheel {w.name} sign", "sign", w.name, "", float(w.sign), float(sign), 0.0,
+            "yes", w.name in inverted)
+        changes = {"sign": sign}
+        if wr:
+            changes["radius_m"] = float(r_est)
+        if lw:
+            changes["x_m"] = float(w.x_m + step[0] * theta[il])
+            changes["y_m"] = float(w.y_m + step[1] * theta[il])
+        new_wheels[w.name] = dataclasses.replace(w, **changes)
+    # derived track width per source of forward-rolling wheels on both sides
+    for src in robot.resolved_sources():
+        idx = [j for j, w in enumerate(model.wheels) if w.name in src.wheels
+               and abs(wheel_rows([w])[0][1]) < 1e-9 and abs(w.direction_rad) < 1e-9]
+        left = [j for j in idx if model.wheels[j].y_m > 0]
+        right = [j for j in idx if model.wheels[j].y_m < 0]
+        if not left or not right:
+            continue
+        grad = np.zeros(len(theta))
+        prof = (np.mean([model.wheels[j].y_m for j in left])
+                - np.mean([model.wheels[j].y_m for j in right]))
+        est = prof
+        for group, sgn in ((left, 1.0), (right, -1.0)):
+            for j in group:
+                # y = y_profile - dl / ex with ex = 1 for a forward-rolling plain wheel
+                ex = wheel_rows([model.wheels[j]])[0][0]
+                g = -sgn / ex / len(group)
+                grad[model.i_l[j]] += g
+                est += g * theta[model.i_l[j]]
+        s = float(math.sqrt(max(grad @ cov @ grad, 0.0)))
+        st = "no" if any(status[model.i_l[j]] == "no" for j in left + right) else (
+            _status([s], ["lever"], tol)[0])
+        written = all(new_wheels[model.wheels[j].name].y_m != model.wheels[j].y_m
+                      for j in left + right)
+        row(f"source {src.name} track_width_m", "lever", src.name, "m", prof, est, s, st,
+            written)
+    new_imu = robot.imu
+    if model.use_imu:
+        ic = model.i_c
+        scale = robot.imu.scale * theta[ic]
+        iw = write_ok(ic)
+        row("imu scale", "imu_scale", "imu", "", robot.imu.scale, scale,
+            robot.imu.scale * se[ic], status[ic], iw)
+        sign = -robot.imu.sign if imu_flip < 0 else robot.imu.sign
+        row("imu sign", "sign", "imu", "", float(robot.imu.sign), float(sign), 0.0, "yes",
+            imu_flip < 0)
+        new_imu = dataclasses.replace(robot.imu, sign=sign,
+                                      scale=float(scale) if iw else robot.imu.scale)
+    elif robot.imu is not None and imu_flip < 0:
+        new_imu = dataclasses.replace(robot.imu, sign=-robot.imu.sign)
+    for rd in model.runs:
+        if rd.i_bias >= 0:
+            i = rd.i_bias
+            row(f"run {rd.name} imu bias_radps", "imu_bias", rd.name, "rad/s", 0.0,
+                theta[i], se[i], status[i], False)
+        if rd.i_delta >= 0:
+            i = rd.i_delta
+            row(f"run {rd.name} clock offset_s", "clock_offset", rd.name, "s",
+                rd.offset_s, rd.offset_s + theta[i], se[i], status[i], False)
+            i = rd.i_rate
+            row(f"run {rd.name} clock rate", "clock_rate", rd.name, "", 0.0, theta[i],
+                se[i], status[i], False)
+    for r in rows:
+        if r["identifiable"] == "no":
+            warnings.append(f"{r['parameter']}: not identifiable from these runs "
+                            f"(standard error {r['std_error']:.3g} {r['unit']}); "
+                            f"to fix it: {r['suggestion']}")
+    corrected = dataclasses.replace(
+        robot, wheels=tuple(new_wheels[w.name] for w in robot.wheels), imu=new_imu,
+        path=None)
+    return pd.DataFrame(rows), corrected
+
+
+def write_profile(fit: ProfileFit, path) -> None:
+    """Write the corrected robot profile as TOML, with a header naming what changed.
+
+    Parameters
+    ----------
+    fit : ProfileFit
+    path : str or Path
+        Target file; written atomically.
+    """
+    changed = fit.table[fit.table["written"].astype(bool)]
+    lines = ["Robot profile corrected by vidodo's profile fit.", "Changed values:"]
+    for r in changed.itertuples():
+        lines.append(f"  {r.parameter}: {r.profile:.6g} -> {r.estimate:.6g}")
+    if changed.empty:
+        lines.append("  none")
+    text = dump_toml(robot_to_dict(fit.corrected_robot), header="\n".join(lines))
+    with atomic_file(path) as tmp:
+        tmp.write_text(text, encoding="utf-8")
