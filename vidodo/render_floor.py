@@ -1,0 +1,276 @@
+"""The floor for the synthetic renderer: a tiled texture and how a camera sees it.
+
+The floor is a texture in floor metres: square tiles with slight per-tile colour
+variation, a fine pebbled surface, darker seams, a plain surround outside the field,
+and fiducials lying flat where the field profile puts them. A camera sees it through
+per-pixel viewing rays (see :mod:`vidodo.render`); each pixel's floor point is looked
+up in a mip-map pyramid at the level that matches the pixel's footprint on the floor
+(trilinear filtering), so distant tiles are area-averaged instead of aliased.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+from .profiles import FieldProfile, marker_corners_local
+
+__all__ = ["FloorTexture", "floor_texture", "plate_modules", "sample_floor",
+           "footprint_level", "BACKDROP_BGR", "SURROUND_BGR"]
+
+BACKDROP_BGR = (176.0, 182.0, 186.0)
+"""Colour of everything that is not floor (walls above the horizon)."""
+SURROUND_BGR = (128.0, 134.0, 138.0)
+"""Mean colour of the floor around the field."""
+TILE_BGR = (96.0, 98.0, 102.0)
+"""Mean colour of a foam tile (grey)."""
+PRINT_BLACK = 28.0
+"""Grey level of a printed marker's black under the scene light."""
+PRINT_WHITE = 226.0
+"""Grey level of a printed marker's white paper."""
+SEAM_WIDTH_M = 0.003
+"""Width of a tile seam [m] (from memory: foam tile joints are a few millimetres)."""
+MARGIN_M = 0.6
+"""Surround floor kept in the texture on each side of the field [m]."""
+
+
+@dataclass(frozen=True)
+class FloorTexture:
+    """A floor texture pyramid in floor metres."""
+
+    levels: tuple
+    """BGR uint8 images; level l has texel ``texel_m * 2**l``."""
+    x0_m: float
+    """Floor x of the texture's left edge [m]."""
+    y0_m: float
+    """Floor y of the texture's top edge (row 0) [m]."""
+    texel_m: float
+    """Side of one level-0 texel [m]."""
+
+
+def plate_modules(family: str, marker_id: int, quiet_modules: int = 1) -> np.ndarray:
+    """The printed plate of a marker, one array cell per module (row 0 = printed top).
+
+    The marker image comes from ``cv2.aruco.generateImageMarker`` with one pixel per
+    module (black border included); ``quiet_modules`` rows of white paper surround it.
+
+    Returns
+    -------
+    ndarray of shape (n + 2q, n + 2q), float32
+        Grey levels (``PRINT_BLACK`` or ``PRINT_WHITE``).
+    """
+    dictionary = cv2.aruco.getPredefinedDictionary(getattr(cv2.aruco, family))
+    n = dictionary.markerSize + 2
+    img = cv2.aruco.generateImageMarker(dictionary, marker_id, n, borderBits=1)
+    plate = np.pad(img, quiet_modules, constant_values=255)
+    return np.where(plate > 127, PRINT_WHITE, PRINT_BLACK).astype(np.float32)
+
+
+def plate_lookup(modules, size_m, local_x, local_y, quiet_modules=1):
+    """Grey level of a marker plate at points in the marker's own frame.
+
+    Parameters
+    ----------
+    modules : ndarray of shape (m, m)
+        From :func:`plate_modules`.
+    size_m : float
+        Side of the marker's black square [m].
+    local_x, local_y : ndarray
+        Points in the marker frame (x right, y towards the printed top) [m].
+    quiet_modules : int
+        Quiet-zone width the plate was made with [modules].
+
+    Returns
+    -------
+    value : ndarray, float32
+        Grey level, NaN outside the plate.
+    """
+    m = modules.shape[0]
+    module_m = size_m / (m - 2 * quiet_modules)
+    half = 0.5 * m * module_m
+    col = np.floor((local_x + half) / module_m)
+    row = np.floor((half - local_y) / module_m)
+    inside = (col >= 0) & (col < m) & (row >= 0) & (row < m)
+    out = np.full(np.shape(local_x), np.nan, np.float32)
+    out[inside] = modules[row[inside].astype(int), col[inside].astype(int)]
+    return out
+
+
+def _paint_floor_marker(grey_bgr, x0, y0, texel, fm, supersample=4):
+    """Paint a flat fiducial into the texture with ``supersample**2`` samples per texel."""
+    modules = plate_modules(fm.family, fm.id)
+    n_total = modules.shape[0]
+    plate_half = 0.5 * fm.size_m * n_total / (n_total - 2)
+    corners = marker_corners_local(2 * plate_half)
+    c, s = math.cos(fm.yaw_rad), math.sin(fm.yaw_rad)
+    world = corners @ np.array([[c, s], [-s, c]]) + [fm.x_m, fm.y_m]
+    i0 = max(int(math.floor((world[:, 0].min() - x0) / texel)) - 1, 0)
+    i1 = min(int(math.ceil((world[:, 0].max() - x0) / texel)) + 1, grey_bgr.shape[1])
+    j0 = max(int(math.floor((world[:, 1].min() - y0) / texel)) - 1, 0)
+    j1 = min(int(math.ceil((world[:, 1].max() - y0) / texel)) + 1, grey_bgr.shape[0])
+    if i1 <= i0 or j1 <= j0:
+        return
+    sub = (np.arange(supersample) + 0.5) / supersample
+    xs = x0 + (np.arange(i0, i1)[:, None] + sub[None, :]).ravel() * texel
+    ys = y0 + (np.arange(j0, j1)[:, None] + sub[None, :]).ravel() * texel
+    gx, gy = np.meshgrid(xs - fm.x_m, ys - fm.y_m)
+    lx, ly = c * gx + s * gy, -s * gx + c * gy
+    value = plate_lookup(modules, fm.size_m, lx, ly)
+    inside = np.isfinite(value)
+    shape = (j1 - j0, supersample, i1 - i0, supersample)
+    cover = inside.reshape(shape).mean(axis=(1, 3))[..., None]
+    grey = np.where(inside, value, 0.0).reshape(shape).sum(axis=(1, 3))[..., None]
+    grey = grey / np.maximum(cover * supersample**2, 1e-9)
+    patch = grey_bgr[j0:j1, i0:i1]
+    patch[:] = patch * (1.0 - cover) + grey * cover
+
+
+def _smooth_noise(rng, shape, scale_px):
+    """Unit-variance Gaussian noise with correlation length ``scale_px`` texels."""
+    if scale_px <= 1.5:
+        noise = rng.standard_normal(shape, dtype=np.float32)
+        if scale_px > 0.5:
+            noise = cv2.GaussianBlur(noise, (0, 0), scale_px)
+    else:
+        small = (max(int(shape[1] / scale_px), 2), max(int(shape[0] / scale_px), 2))
+        coarse = rng.standard_normal((small[1], small[0]), dtype=np.float32)
+        noise = cv2.resize(coarse, (shape[1], shape[0]), interpolation=cv2.INTER_CUBIC)
+    std = float(noise.std())
+    return noise / std if std > 0 else noise
+
+
+@functools.lru_cache(maxsize=2)
+def floor_texture(field: FieldProfile, floor_seed: int, texel_m: float) -> FloorTexture:
+    """Build (and cache) the floor texture pyramid of a field.
+
+    Parameters
+    ----------
+    field : FieldProfile
+        Tile grid and floor fiducials.
+    floor_seed : int
+        Seed of the tile colours and surface texture.
+    texel_m : float
+        Side of one level-0 texel [m].
+    """
+    rng = np.random.default_rng([int(floor_seed), 7919])
+    sx, sy = field.size_m
+    n_levels = 6
+    block = 2 ** (n_levels - 1)
+    nx = int(math.ceil((sx + 2 * MARGIN_M) / texel_m / block)) * block
+    ny = int(math.ceil((sy + 2 * MARGIN_M) / texel_m / block)) * block
+    x0 = -0.5 * (nx * texel_m - sx)
+    y0 = -0.5 * (ny * texel_m - sy)
+    xc = x0 + (np.arange(nx) + 0.5) * texel_m
+    yc = y0 + (np.arange(ny) + 0.5) * texel_m
+    ts = field.tile_size_m
+    in_x = (xc >= 0) & (xc < sx)
+    in_y = (yc >= 0) & (yc < sy)
+    inside = in_y[:, None] & in_x[None, :]
+    # per-tile colour: brightness +-4 %, slight hue shift per channel (+-1.5 %)
+    tile_gain = 1.0 + 0.04 * rng.standard_normal((field.tiles_y, field.tiles_x, 1))
+    tile_tint = 1.0 + 0.015 * rng.standard_normal((field.tiles_y, field.tiles_x, 3))
+    tile_bgr = (np.array(TILE_BGR) * tile_gain * tile_tint).astype(np.float32)
+    ix = np.clip(np.floor(xc / ts).astype(int), 0, field.tiles_x - 1)
+    iy = np.clip(np.floor(yc / ts).astype(int), 0, field.tiles_y - 1)
+    img = np.empty((ny, nx, 3), np.float32)
+    img[:] = np.array(SURROUND_BGR, np.float32)
+    img[inside] = tile_bgr[iy[:, None], ix[None, :]][inside]
+    # surface: fine pebbles (about 1.5 mm) and mottling (about 4 cm), stronger on foam
+    fine = _smooth_noise(rng, (ny, nx), 0.0015 / texel_m)
+    mottle = _smooth_noise(rng, (ny, nx), 0.04 / texel_m)
+    amp_fine = np.where(inside, 9.0, 4.0).astype(np.float32)
+    amp_mottle = np.where(inside, 3.0, 5.0).astype(np.float32)
+    # the surround's texture fades out towards the texture edge (beyond it: flat colour)
+    dx = np.minimum(xc - x0, x0 + nx * texel_m - xc)
+    dy = np.minimum(yc - y0, y0 + ny * texel_m - yc)
+    fade = np.clip(np.minimum(dy[:, None], dx[None, :]) / (0.5 * MARGIN_M), 0, 1)
+    fade = fade.astype(np.float32)
+    img += ((amp_fine * fine + amp_mottle * mottle) * np.where(inside, 1.0, fade))[..., None]
+    # seams: anti-aliased dark lines on every tile boundary (coverage of a texel)
+    def seam_cover(c, n_tiles):
+        d = np.abs(c - np.clip(np.round(c / ts), 0, n_tiles) * ts)
+        return np.clip((0.5 * SEAM_WIDTH_M - d) / texel_m + 0.5, 0.0, 1.0)
+
+    cx = seam_cover(xc, field.tiles_x) * ((yc >= -SEAM_WIDTH_M) & (yc <= sy + SEAM_WIDTH_M))[
+        :, None]
+    cy = (seam_cover(yc, field.tiles_y)[:, None]
+          * ((xc >= -SEAM_WIDTH_M) & (xc <= sx + SEAM_WIDTH_M))[None, :])
+    cover = 1.0 - (1.0 - cx) * (1.0 - cy)
+    img *= (1.0 - 0.45 * cover)[..., None].astype(np.float32)
+    for fm in field.floor_markers:
+        _paint_floor_marker(img, x0, y0, texel_m, fm)
+    base = np.clip(np.rint(img), 0, 255).astype(np.uint8)
+    levels = [base]
+    while len(levels) < n_levels and min(levels[-1].shape[:2]) >= 16:
+        levels.append(cv2.pyrDown(levels[-1]))
+    return FloorTexture(levels=tuple(levels), x0_m=x0, y0_m=y0, texel_m=texel_m)
+
+
+def footprint_level(floor_x_m, floor_y_m, texel_m, step_px=1):
+    """Mip level per pixel from the floor footprint of one pixel.
+
+    The footprint is the longer of the two pixel edges mapped onto the floor (finite
+    differences of the floor coordinates); level ``log2(footprint / texel)``.
+
+    Parameters
+    ----------
+    floor_x_m, floor_y_m : ndarray of shape (H, W)
+        Floor point of each pixel (NaN where the ray misses the floor) [m].
+    texel_m : float
+        Level-0 texel [m].
+    step_px : float
+        Pixel spacing of the given grid [px].
+    """
+    gxu = np.gradient(floor_x_m, axis=1)
+    gyu = np.gradient(floor_y_m, axis=1)
+    gxv = np.gradient(floor_x_m, axis=0)
+    gyv = np.gradient(floor_y_m, axis=0)
+    foot = np.maximum(np.hypot(gxu, gyu), np.hypot(gxv, gyv)) / step_px
+    with np.errstate(divide="ignore", invalid="ignore"):
+        level = np.log2(foot / texel_m)
+    return np.nan_to_num(level, nan=0.0, posinf=0.0, neginf=0.0).astype(np.float32)
+
+
+def sample_floor(tex: FloorTexture, floor_x_m, floor_y_m, level, valid):
+    """Colour of the floor seen by each pixel (trilinear mip-map filtering).
+
+    Parameters
+    ----------
+    tex : FloorTexture
+    floor_x_m, floor_y_m : ndarray of shape (H, W), float32
+        Floor point of each pixel [m].
+    level : ndarray of shape (H, W), float32
+        Mip level from :func:`footprint_level`.
+    valid : ndarray of shape (H, W), bool
+        False where the ray does not reach the floor (backdrop).
+
+    Returns
+    -------
+    ndarray of shape (H, W, 3), uint8
+    """
+    h, w = floor_x_m.shape
+    top = len(tex.levels) - 1
+    lev = np.clip(level, 0.0, float(top))
+    acc = np.zeros((h, w, 3), np.float32)
+    map_x0 = (floor_x_m - tex.x0_m) / tex.texel_m - 0.5
+    map_y0 = (floor_y_m - tex.y0_m) / tex.texel_m - 0.5
+    map_x0 = np.where(valid, map_x0, -1e4).astype(np.float32)
+    map_y0 = np.where(valid, map_y0, -1e4).astype(np.float32)
+    for lv in range(int(np.floor(lev.min())), int(np.ceil(lev.max())) + 1):
+        weight = np.clip(1.0 - np.abs(lev - lv), 0.0, 1.0)
+        rows = np.flatnonzero(weight.max(axis=1) > 0)
+        if rows.size == 0:
+            continue
+        r0, r1 = rows[0], rows[-1] + 1
+        scale = 0.5**lv
+        mx = (map_x0[r0:r1] + 0.5) * scale - 0.5
+        my = (map_y0[r0:r1] + 0.5) * scale - 0.5
+        img = cv2.remap(tex.levels[lv], mx, my, cv2.INTER_LINEAR,
+                        borderMode=cv2.BORDER_CONSTANT, borderValue=SURROUND_BGR)
+        acc[r0:r1] += weight[r0:r1, :, None] * img
+    acc[~valid] = BACKDROP_BGR
+    return np.clip(acc + 0.5, 0, 255).astype(np.uint8)
