@@ -58,6 +58,8 @@ __all__ = [
     "truth_increments",
     "log_map_increment",
     "write_profile",
+    "anchored_drift",
+    "drift_comparison",
 ]
 
 TOLERANCES = {
@@ -786,3 +788,83 @@ def write_profile(fit: ProfileFit, path) -> None:
     text = dump_toml(robot_to_dict(fit.corrected_robot), header="\n".join(lines))
     with atomic_file(path) as tmp:
         tmp.write_text(text, encoding="utf-8")
+
+
+# ------------------------------------------------------------------ before / after
+def anchored_drift(run: FitRun, tracks: dict) -> dict:
+    """Anchored drift figures per odometry source for one run.
+
+    Each source track (log clock) is mapped onto the video clock with the run's clock,
+    sampled at the truth times, and moved rigidly so that it starts on the truth pose
+    at motion start (:func:`vidodo.metrics.anchor_poses`); the figures are those of
+    :func:`vidodo.metrics.source_metrics`.
+
+    Parameters
+    ----------
+    run : FitRun
+    tracks : dict of str -> DataFrame
+        Odometry tracks (``t_s`` on the log clock, ``x_m, y_m, heading_rad``).
+
+    Returns
+    -------
+    dict of str -> SourceMetrics
+    """
+    from .metrics import anchor_poses, motion_start_index, path_length, source_metrics
+
+    tr = run.truth.sort_values("t_s")
+    t = tr["t_s"].to_numpy(float)
+    q = tr[["x_m", "y_m", "heading_rad"]].to_numpy(float).copy()
+    if "detected" in tr.columns:
+        q[~tr["detected"].fillna(False).to_numpy(bool)] = np.nan
+    sig = float(np.nanmedian(tr["sigma_xy_m"])) if "sigma_xy_m" in tr.columns else 0.002
+    sig_h = (float(np.nanmedian(tr["sigma_heading_rad"]))
+             if "sigma_heading_rad" in tr.columns else 0.0)
+    k0 = motion_start_index(q[:, :2], sig)
+    if k0 is None:
+        raise MeasurementError(f"run {run.name!r}: the truth track never moves; nothing to "
+                               "anchor")
+    cum = path_length(q[:, :2], gate_m=2.0 * sig)
+    out = {}
+    for name, df in tracks.items():
+        tl = df["t_s"].to_numpy(float)
+        tv = tl + run.offset_s + run.rate * (tl - run.ref_log_s)
+        p = np.column_stack([np.interp(t, tv, df[c].to_numpy(float), left=np.nan,
+                                       right=np.nan)
+                             for c in ("x_m", "y_m", "heading_rad")])
+        if not np.isfinite(p[k0]).all():
+            continue
+        anchored = anchor_poses(p, p[k0], q[k0])
+        anchored[:k0] = np.nan
+        out[name] = source_metrics(t, q, anchored, cum, sigma_heading_rad=sig_h, name=name)
+    return out
+
+
+def drift_comparison(before: dict, after: dict, run_name: str = "") -> pd.DataFrame:
+    """Before/after table of anchored drift per source.
+
+    Parameters
+    ----------
+    before, after : dict of str -> SourceMetrics
+        From :func:`anchored_drift` with the profile handed in and the corrected one.
+    run_name : str
+
+    Returns
+    -------
+    DataFrame
+        Columns ``run, source``, then ``final_err_m``, ``max_err_m``, ``ate_rmse_m``
+        before and after (suffixes ``_before``, ``_after``) and ``max_err_ratio``
+        (before / after).
+    """
+    rows = []
+    for name in before:
+        if name not in after:
+            continue
+        b, a = before[name], after[name]
+        row = {"run": run_name, "source": name}
+        for key in ("final_err_m", "max_err_m", "ate_rmse_m"):
+            row[f"{key}_before"] = getattr(b, key)
+            row[f"{key}_after"] = getattr(a, key)
+        row["max_err_ratio"] = (b.max_err_m / a.max_err_m if a.max_err_m > 0
+                                else float("inf"))
+        rows.append(row)
+    return pd.DataFrame(rows)
