@@ -1,0 +1,110 @@
+"""``vidodo grade VIDEO LOG --robot R.toml --field F.toml --out DIR``: the main job."""
+
+from __future__ import annotations
+
+import math
+import sys
+from pathlib import Path
+
+from ..errors import EXIT_OK, EXIT_TOLERANCE, InputError
+
+NAME = "grade"
+HELP = "measure the run from the video, line up the log, report drift and events"
+DESCRIPTION = (
+    "Track the robot in the footage, put the robot's log on the video clock, place every "
+    "odometry source on the floor at motion start, and write drift.csv, events.csv, "
+    "summary.json and track.csv into --out. Prints a short verdict. Exit 0 when every "
+    "source is within tolerance (or none was set), 4 when some source is outside, 3 when "
+    "the run could not be measured."
+)
+
+_UNITS = {"mm": 1000.0, "m": 1.0, "in": 1.0 / 0.0254}
+
+
+def add_arguments(parser):
+    """Options of the verb."""
+    parser.add_argument("video", type=Path, help="the footage of the run")
+    parser.add_argument("log", type=Path, help="the robot's log CSV")
+    parser.add_argument("--robot", type=Path, required=True, help="robot profile (TOML)")
+    parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
+    parser.add_argument("--camera", type=Path, help="camera profile (TOML), if calibrated")
+    parser.add_argument("--track", type=Path,
+                        help="reuse this truth track (track.csv) instead of tracking the video")
+    parser.add_argument("--clock-offset", type=float, metavar="S",
+                        help="video time minus log time [s]; found automatically if absent")
+    parser.add_argument("--tol-pos-m", type=float, metavar="M",
+                        help="largest final position error that passes [m]")
+    parser.add_argument("--tol-heading-deg", type=float, metavar="DEG",
+                        help="largest final heading error that passes [deg]")
+    parser.add_argument("--units", choices=sorted(_UNITS), default="mm",
+                        help="length unit of the printed verdict (files stay in metres)")
+    parser.add_argument("--out", type=Path, required=True, help="output folder")
+
+
+def _fmt(v, scale, digits=0, unit=""):
+    if v is None or (isinstance(v, float) and not math.isfinite(v)):
+        return "n/a"
+    return f"{v * scale:.{digits}f}{unit}"
+
+
+def verdict_lines(result, *, units="mm"):
+    """The short terminal verdict, one line per source plus events and clock."""
+    k = _UNITS[units]
+    dig = 0 if units == "mm" else (3 if units == "m" else 2)
+    c = result.clock
+    lines = []
+    if c.method == "manual":
+        lines.append(f"clock: log + {c.offset_s:+.4f} s (manual)")
+    else:
+        sig = "?" if c.sigma_s is None else f"{c.sigma_s * 1000:.1f}"
+        lines.append(f"clock: log + {c.offset_s:+.4f} s (+-{sig} ms, confidence "
+                     f"{c.confidence:.2f}, from {c.source})")
+    for name, m in result.metrics.items():
+        p = result.passed.get(name)
+        mark = "PASS" if p else ("FAIL" if p is False else "    ")
+        lines.append(
+            f"{mark} {name:<14} final {_fmt(m.final_err_m, k, dig, ' ' + units)}"
+            f" / {_fmt(m.final_heading_err_rad, 180 / math.pi, 1, ' deg')}"
+            f"  drift {_fmt(m.drift_pct, 1, 1, ' %')}"
+            f"  ATE {_fmt(m.ate_rmse_m, k, dig, ' ' + units)}"
+            f"  max {_fmt(m.max_err_m, k, dig, ' ' + units)} at "
+            f"{_fmt(m.max_err_t_s, 1, 1, ' s')}")
+    n = len(result.event_list)
+    if n:
+        kinds = {}
+        for e in result.event_list:
+            kinds[e.kind] = kinds.get(e.kind, 0) + 1
+        lines.append("events: " + ", ".join(f"{v} {kk}" for kk, v in kinds.items()))
+    else:
+        lines.append("events: none")
+    lines.append(f"verdict: {result.verdict}")
+    return lines
+
+
+def run(args) -> int:
+    """Grade, write, print the verdict; exit 0 pass, 4 outside tolerance."""
+    from ..pipeline import Tolerances, grade_run
+    from ..progress import progress_bar
+    from ..report import write_outputs
+
+    if args.tol_pos_m is not None and args.tol_pos_m <= 0:
+        raise InputError("--tol-pos-m must be positive")
+    if args.tol_heading_deg is not None and args.tol_heading_deg <= 0:
+        raise InputError("--tol-heading-deg must be positive")
+    tol = Tolerances(
+        position_m=args.tol_pos_m,
+        heading_rad=None if args.tol_heading_deg is None else math.radians(args.tol_heading_deg))
+    if args.track is None and not args.video.is_file():
+        raise InputError(f"{args.video}: file not found; check the video path")
+    with progress_bar(desc="tracking", quiet=args.quiet) as bar:
+        result = grade_run(args.video, args.log, args.robot, args.field, args.camera,
+                           clock_offset_s=args.clock_offset, tolerances=tol, progress=bar,
+                           track=args.track)
+    write_outputs(result, args.out)
+    for w in result.warnings:
+        print(f"vidodo grade: warning: {w}", file=sys.stderr)
+    if not args.quiet:
+        for line in verdict_lines(result, units=args.units):
+            print(line)
+        print(f"outputs: {args.out}")
+    return EXIT_TOLERANCE if result.verdict == "fail" else EXIT_OK

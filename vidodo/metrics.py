@@ -1,0 +1,517 @@
+"""Alignment of odometry to the truth track, trajectory errors and the drift table.
+
+Two ways of placing an odometry source (which starts at (0, 0, 0) in its own frame) on
+the floor:
+
+* **anchored**: the source is moved rigidly so that its pose at motion start equals the
+  truth pose there (:func:`anchor_poses`). Its error afterwards is the *anchored drift*,
+  what the team experiences when the robot starts from a known spot.
+* **best fit**: the rigid SE(2) motion (rotation and translation, no scale) that brings
+  the source's positions closest to the truth positions in the least-squares sense
+  (Umeyama, IEEE TPAMI 13(4):376, 1991; :func:`umeyama`). The RMS of what is left is
+  the absolute trajectory error (ATE, Sturm et al., IROS 2012).
+
+Relative pose error (RPE, Sturm et al. 2012) compares the motion between two instants:
+``E_ij = (Q_i^-1 Q_j)^-1 (P_i^-1 P_j)`` where Q is truth and P the source; it is
+independent of the alignment. Pairs are chosen by time (``t_j >= t_i + delta_s``) or by
+distance travelled along the truth path (``s_j >= s_i + delta_m``).
+
+Path length is accumulated only over steps longer than a gate set by the truth track's
+1-sigma (:func:`path_length`), so that position noise on a robot standing still does
+not add up to metres of imaginary travel.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from .errors import MeasurementError
+from .se2 import relative_pose, rotate, wrap_angle
+
+__all__ = [
+    "Alignment",
+    "SourceMetrics",
+    "umeyama",
+    "transform_poses",
+    "anchor_poses",
+    "path_length",
+    "motion_start_index",
+    "travel_direction",
+    "along_cross",
+    "pairs_by_time",
+    "pairs_by_distance",
+    "rpe",
+    "ate",
+    "source_metrics",
+    "drift_table",
+    "column_prefix",
+]
+
+
+@dataclass(frozen=True)
+class Alignment:
+    """A similarity transform ``dst ~= scale * rotation @ src + translation``."""
+
+    rotation: np.ndarray
+    """Rotation matrix, ndarray of shape (d, d)."""
+    translation: np.ndarray
+    """Translation, ndarray of shape (d,) [m]."""
+    scale: float
+    """Scale factor (1.0 for a rigid alignment)."""
+    rmse_m: float
+    """RMS distance between aligned source points and destination points [m]."""
+    n_points: int
+    """Number of point pairs used."""
+
+    @property
+    def angle_rad(self) -> float:
+        """Rotation angle of a planar alignment, counter-clockwise [rad]."""
+        return math.atan2(self.rotation[1, 0], self.rotation[0, 0])
+
+    def apply(self, points):
+        """Map points, ndarray of shape (N, d), with this transform."""
+        p = np.asarray(points, dtype=float)
+        return self.scale * p @ self.rotation.T + self.translation
+
+
+def umeyama(src, dst, *, with_scale=False) -> Alignment:
+    """Least-squares rigid (or similarity) transform from ``src`` to ``dst``.
+
+    Follows Umeyama (IEEE TPAMI 13(4):376, 1991), eqs. (34)-(42): with
+    ``Sigma_xy = (1/n) sum (y_i - mu_y)(x_i - mu_x)^T = U D V^T``, ``S = diag(1,..,-1)``
+    when ``det(Sigma_xy) < 0``, ``R = U S V^T``, ``c = tr(D S) / sigma_x^2`` and
+    ``t = mu_y - c R mu_x``. The sign correction keeps R a rotation, never a reflection.
+
+    Parameters
+    ----------
+    src, dst : ndarray of shape (N, d)
+        Corresponding points; rows with any NaN in either are left out.
+    with_scale : bool
+        Also fit the scale ``c`` (a similarity); otherwise ``c = 1``.
+
+    Returns
+    -------
+    Alignment
+
+    Raises
+    ------
+    MeasurementError
+        Fewer than two usable pairs, or all source points coincide.
+
+    Examples
+    --------
+    >>> a = umeyama([[0, 0], [1, 0]], [[1, 1], [1, 2]])
+    >>> round(a.angle_rad, 6), a.translation.round(6).tolist()
+    (1.570796, [1.0, 1.0])
+    """
+    x = np.asarray(src, dtype=float)
+    y = np.asarray(dst, dtype=float)
+    if x.shape != y.shape or x.ndim != 2:
+        raise ValueError(f"src and dst must have the same (N, d) shape, got {x.shape}, {y.shape}")
+    ok = np.isfinite(x).all(axis=1) & np.isfinite(y).all(axis=1)
+    x, y = x[ok], y[ok]
+    n, d = x.shape
+    if n < 2:
+        raise MeasurementError(f"alignment needs at least 2 point pairs, got {n}")
+    mu_x, mu_y = x.mean(axis=0), y.mean(axis=0)
+    xc, yc = x - mu_x, y - mu_y
+    var_x = float((xc**2).sum() / n)
+    if var_x <= 1e-18:
+        raise MeasurementError("alignment is undefined: all source points coincide")
+    cov = yc.T @ xc / n
+    u, dvals, vt = np.linalg.svd(cov)
+    s = np.ones(d)
+    if np.linalg.det(cov) < 0 or (
+        np.linalg.matrix_rank(cov) == d - 1 and np.linalg.det(u) * np.linalg.det(vt) < 0
+    ):
+        s[-1] = -1.0
+    rot = u @ np.diag(s) @ vt
+    c = float((dvals * s).sum() / var_x) if with_scale else 1.0
+    t = mu_y - c * rot @ mu_x
+    resid = y - (c * x @ rot.T + t)
+    rmse = float(np.sqrt((resid**2).sum(axis=1).mean()))
+    return Alignment(rotation=rot, translation=t, scale=c, rmse_m=rmse, n_points=int(n))
+
+
+def transform_poses(poses, alignment: Alignment):
+    """Apply a planar alignment to poses ``(x_m, y_m, heading_rad)``, ndarray (N, 3)."""
+    p = np.asarray(poses, dtype=float).reshape(-1, 3)
+    xy = alignment.apply(p[:, :2])
+    return np.column_stack([xy, p[:, 2] + alignment.angle_rad])
+
+
+def anchor_poses(poses, source_pose, truth_pose):
+    """Move poses rigidly so that ``source_pose`` lands on ``truth_pose``.
+
+    The transform is ``T = Q_a P_a^-1`` applied on the left of every pose (Lynch & Park,
+    *Modern Robotics*, 2017, sec. 3.2 composition of planar rigid motions).
+
+    Parameters
+    ----------
+    poses : ndarray of shape (N, 3)
+        Source poses in the source's own frame.
+    source_pose, truth_pose : sequence of 3 float
+        The source's and the truth's pose at the anchor instant.
+
+    Returns
+    -------
+    ndarray of shape (N, 3)
+        Poses in the floor frame; heading continuous.
+    """
+    p = np.asarray(poses, dtype=float).reshape(-1, 3)
+    px, py, ph = (float(v) for v in source_pose)
+    qx, qy, qh = (float(v) for v in truth_pose)
+    dh = qh - ph
+    rx, ry = rotate(p[:, 0] - px, p[:, 1] - py, dh)
+    return np.column_stack([qx + rx, qy + ry, p[:, 2] + dh])
+
+
+def path_length(xy, gate_m=0.0):
+    """Cumulative path length with steps shorter than ``gate_m`` held back.
+
+    A step is added only once the position has moved at least ``gate_m`` from the
+    last counted point, so noise of a standing robot does not accumulate. With
+    ``gate_m`` = 3 sigma of the position noise the chord error on a curve of radius R
+    is about ``gate_m^2 / (24 R^2)`` of the length, negligible for any real path.
+
+    Parameters
+    ----------
+    xy : ndarray of shape (N, 2)
+        Positions [m]; NaN rows are skipped (the length holds over them).
+    gate_m : float
+        Minimum counted step [m].
+
+    Returns
+    -------
+    ndarray of shape (N,)
+        Cumulative length at each sample [m], 0 at the first.
+    """
+    p = np.asarray(xy, dtype=float).reshape(-1, 2)
+    out = np.zeros(len(p))
+    total = 0.0
+    last = None
+    for i in range(len(p)):
+        if np.isfinite(p[i]).all():
+            if last is None:
+                last = p[i]
+            else:
+                step = math.hypot(p[i, 0] - last[0], p[i, 1] - last[1])
+                if step >= gate_m:
+                    total += step
+                    last = p[i]
+        out[i] = total
+    return out
+
+
+def motion_start_index(xy, sigma_m, *, min_move_m=0.01):
+    """Index of the last sample at rest before the robot first moves.
+
+    The robot has moved once it is more than ``max(5 * sigma_m, min_move_m)`` from its
+    first position; the start is the last sample before that within
+    ``max(2 * sigma_m, min_move_m / 4)`` of the first position.
+
+    Returns
+    -------
+    int or None
+        None when the robot never moves that far.
+    """
+    p = np.asarray(xy, dtype=float).reshape(-1, 2)
+    good = np.flatnonzero(np.isfinite(p).all(axis=1))
+    if good.size < 2:
+        return None
+    p0 = p[good[0]]
+    d = np.hypot(p[:, 0] - p0[0], p[:, 1] - p0[1])
+    moved = np.flatnonzero(d > max(5.0 * sigma_m, min_move_m))
+    if moved.size == 0:
+        return None
+    first = moved[0]
+    near = good[(good < first) & (d[good] <= max(2.0 * sigma_m, min_move_m / 4))]
+    return int(near[-1]) if near.size else int(good[0])
+
+
+def travel_direction(xy, heading_rad, *, min_step_m):
+    """Direction of travel along the truth path, held while the robot stands.
+
+    The direction of the displacement over the smallest centred window that spans at
+    least ``min_step_m``; before the first such displacement the heading is used.
+
+    Returns
+    -------
+    ndarray of shape (N,)
+        Direction [rad].
+    """
+    p = np.asarray(xy, dtype=float).reshape(-1, 2)
+    h = np.asarray(heading_rad, dtype=float)
+    n = len(p)
+    out = np.full(n, np.nan)
+    # forward and backward neighbours by cumulative path length
+    s = path_length(p, gate_m=0.0)
+    last = np.nan
+    j_lo = 0
+    j_hi = 0
+    for i in range(n):
+        while j_hi < n - 1 and s[j_hi] - s[i] < min_step_m / 2:
+            j_hi += 1
+        while j_lo < i and s[i] - s[j_lo + 1] >= min_step_m / 2:
+            j_lo += 1
+        d = p[j_hi] - p[j_lo]
+        if np.isfinite(d).all() and math.hypot(*d) >= min_step_m * 0.5:
+            last = math.atan2(d[1], d[0])
+        out[i] = last
+    first = np.flatnonzero(np.isfinite(out))
+    if first.size:
+        out[: first[0]] = h[: first[0]]
+    else:
+        out = h.copy()
+    return out
+
+
+def along_cross(err_xy, direction_rad):
+    """Split floor-frame errors into along-track and cross-track (left) components."""
+    e = np.asarray(err_xy, dtype=float).reshape(-1, 2)
+    return rotate(e[:, 0], e[:, 1], -np.asarray(direction_rad, dtype=float))
+
+
+def pairs_by_time(t_s, delta_s):
+    """Index pairs ``(i, j)``: j is the first sample with ``t_j >= t_i + delta_s``."""
+    t = np.asarray(t_s, dtype=float)
+    j = np.searchsorted(t, t + delta_s - 1e-9, side="left")
+    i = np.arange(len(t))
+    keep = j < len(t)
+    return i[keep], j[keep]
+
+
+def pairs_by_distance(cum_length_m, delta_m):
+    """Index pairs ``(i, j)``: j is the first sample ``delta_m`` further along the path."""
+    s = np.asarray(cum_length_m, dtype=float)
+    j = np.searchsorted(s, s + delta_m - 1e-12, side="left")
+    i = np.arange(len(s))
+    keep = j < len(s)
+    return i[keep], j[keep]
+
+
+def rpe(truth_poses, est_poses, i, j):
+    """Relative pose errors over the pairs ``(i, j)`` (Sturm et al., IROS 2012, eq. 1).
+
+    Returns
+    -------
+    tuple of ndarray
+        Translational error [m] and absolute rotational error [rad] per pair with both
+        ends finite.
+    """
+    q = np.asarray(truth_poses, dtype=float).reshape(-1, 3)
+    p = np.asarray(est_poses, dtype=float).reshape(-1, 3)
+    i = np.asarray(i, dtype=int)
+    j = np.asarray(j, dtype=int)
+    dq = relative_pose(q[i], q[j])
+    dp = relative_pose(p[i], p[j])
+    e = relative_pose(dq, dp)
+    ok = np.isfinite(e).all(axis=1)
+    return np.hypot(e[ok, 0], e[ok, 1]), np.abs(e[ok, 2])
+
+
+def _rmse(v):
+    v = np.asarray(v, dtype=float)
+    return float(np.sqrt(np.mean(v**2))) if v.size else None
+
+
+def ate(truth_xy, est_xy):
+    """Absolute trajectory error after a rigid SE(2) fit (Sturm et al., IROS 2012).
+
+    Returns
+    -------
+    tuple of (float, Alignment)
+        RMSE [m] and the fitted alignment (source -> floor).
+    """
+    al = umeyama(est_xy, truth_xy, with_scale=False)
+    return al.rmse_m, al
+
+
+@dataclass(frozen=True)
+class SourceMetrics:
+    """Figures of one odometry source against the truth track (anchored unless said)."""
+
+    ate_rmse_m: float | None
+    """RMS position error after the best-fit SE(2) alignment [m]."""
+    rpe_0p5m_rmse_m: float | None
+    """RMS translational relative error over 0.5 m of truth path [m]."""
+    rpe_1s_rmse_m: float | None
+    """RMS translational relative error over 1 s [m]."""
+    final_err_m: float | None
+    """Anchored position error at the last sample both cover [m]."""
+    final_heading_err_rad: float | None
+    """Anchored heading error (source minus truth) at that sample [rad]."""
+    drift_pct: float | None
+    """Final anchored position error as a percentage of truth path length [%]."""
+    heading_drift_deg_per_turn: float | None
+    """Final heading error per full turn the robot made [deg/turn]."""
+    max_err_m: float | None
+    """Largest anchored position error [m]."""
+    max_err_t_s: float | None
+    """Video time of the largest error [s]."""
+    max_err_x_m: float | None
+    """Truth floor position at the largest error, x [m]."""
+    max_err_y_m: float | None
+    """Truth floor position at the largest error, y [m]."""
+    path_length_m: float | None
+    """Truth path length over the samples this source covers [m]."""
+    coverage_s: float
+    """Duration over which both the truth and this source have poses [s]."""
+    best_fit_angle_rad: float | None
+    """Rotation of the best-fit alignment (source frame -> floor) [rad]."""
+    warnings: tuple[str, ...] = ()
+    """What could not be measured for this source, and why."""
+
+    def to_dict(self) -> dict:
+        """Plain dict for JSON (None for figures that could not be measured)."""
+        out = {}
+        for k, v in self.__dict__.items():
+            out[k] = list(v) if isinstance(v, tuple) else v
+        return out
+
+
+def source_metrics(t_s, truth_poses, anchored_poses, cum_length_m, *, sigma_heading_rad=0.0,
+                   min_path_m=0.25, min_turn_rad=math.pi / 2, rpe_delta_m=0.5,
+                   rpe_delta_s=1.0, name="source") -> SourceMetrics:
+    """Compute every per-source figure from anchored poses on the truth time grid.
+
+    Parameters
+    ----------
+    t_s : ndarray of shape (N,)
+        Video time of each truth sample [s].
+    truth_poses, anchored_poses : ndarray of shape (N, 3)
+        Truth and anchored source poses (NaN where missing).
+    cum_length_m : ndarray of shape (N,)
+        Truth path length (see :func:`path_length`) [m].
+    sigma_heading_rad : float
+        Typical truth heading 1-sigma [rad]: heading turned below 5 sigma per sample is
+        not counted towards turns.
+    min_path_m : float
+        Below this path length drift in percent is not reported [m].
+    min_turn_rad : float
+        Below this total turning heading drift per turn is not reported [rad].
+
+    Returns
+    -------
+    SourceMetrics
+    """
+    t = np.asarray(t_s, dtype=float)
+    q = np.asarray(truth_poses, dtype=float).reshape(-1, 3)
+    p = np.asarray(anchored_poses, dtype=float).reshape(-1, 3)
+    s = np.asarray(cum_length_m, dtype=float)
+    warn = []
+    both = np.isfinite(q).all(axis=1) & np.isfinite(p).all(axis=1)
+    idx = np.flatnonzero(both)
+    if idx.size < 2:
+        raise MeasurementError(
+            f"source {name!r}: fewer than 2 samples overlap the truth track; "
+            "check the clock offset and that the log covers the video"
+        )
+    err = np.hypot(p[:, 0] - q[:, 0], p[:, 1] - q[:, 1])
+    herr = wrap_angle(p[:, 2] - q[:, 2])
+    last = idx[-1]
+    kmax = idx[int(np.argmax(err[idx]))]
+    plen = float(s[last] - s[idx[0]])
+    try:
+        ate_m, al = ate(q[idx, :2], p[idx, :2])
+        angle = al.angle_rad
+    except MeasurementError as exc:
+        ate_m, angle = None, None
+        warn.append(f"{name}: ATE not measured ({exc})")
+    sub_t, sub_q, sub_p, sub_s = t[idx], q[idx], p[idx], s[idx]
+    i, j = pairs_by_distance(sub_s, rpe_delta_m)
+    rpe_m = _rmse(rpe(sub_q, sub_p, i, j)[0])
+    if rpe_m is None:
+        warn.append(f"{name}: RPE over {rpe_delta_m} m not measured (path shorter than that)")
+    i, j = pairs_by_time(sub_t, rpe_delta_s)
+    rpe_s = _rmse(rpe(sub_q, sub_p, i, j)[0])
+    if rpe_s is None:
+        warn.append(f"{name}: RPE over {rpe_delta_s} s not measured (overlap shorter)")
+    drift = None
+    if plen >= min_path_m:
+        drift = 100.0 * float(err[last]) / plen
+    else:
+        warn.append(f"{name}: drift % not measured (truth path {plen:.2f} m < {min_path_m} m)")
+    dh = np.abs(np.diff(np.unwrap(sub_q[:, 2])))
+    turned = float(dh[dh > 5.0 * sigma_heading_rad / math.sqrt(2.0)].sum()) if dh.size else 0.0
+    per_turn = None
+    if turned >= min_turn_rad:
+        per_turn = math.degrees(float(herr[last])) / (turned / (2.0 * math.pi))
+    else:
+        warn.append(f"{name}: heading drift per turn not measured (robot turned "
+                    f"{math.degrees(turned):.0f} deg < {math.degrees(min_turn_rad):.0f} deg)")
+    return SourceMetrics(
+        ate_rmse_m=ate_m,
+        rpe_0p5m_rmse_m=rpe_m,
+        rpe_1s_rmse_m=rpe_s,
+        final_err_m=float(err[last]),
+        final_heading_err_rad=float(herr[last]),
+        drift_pct=drift,
+        heading_drift_deg_per_turn=per_turn,
+        max_err_m=float(err[kmax]),
+        max_err_t_s=float(t[kmax]),
+        max_err_x_m=float(q[kmax, 0]),
+        max_err_y_m=float(q[kmax, 1]),
+        path_length_m=plen,
+        coverage_s=float(t[last] - t[idx[0]]),
+        best_fit_angle_rad=angle,
+        warnings=tuple(warn),
+    )
+
+
+def column_prefix(name: str) -> str:
+    """Source name as a column prefix: every character outside [a-z0-9] becomes '_'."""
+    return re.sub(r"[^a-z0-9]", "_", name.lower())
+
+
+def drift_table(truth: pd.DataFrame, anchored: dict, cum_length_m, direction_rad,
+                event_flags=None) -> pd.DataFrame:
+    """The drift table: one row per truth sample (format in DEVELOPERS.md).
+
+    Parameters
+    ----------
+    truth : DataFrame
+        Truth track (``t_s, x_m, y_m, heading_rad, sigma_xy_m, sigma_heading_rad``).
+    anchored : dict of str -> ndarray of shape (N, 3)
+        Anchored poses per source on the truth time grid.
+    cum_length_m : ndarray of shape (N,)
+        Truth path length [m].
+    direction_rad : ndarray of shape (N,)
+        Direction of travel used for along/cross-track [rad].
+    event_flags : sequence of str, optional
+        Per sample, the active event kinds joined with ';'.
+
+    Returns
+    -------
+    DataFrame
+    """
+    n = len(truth)
+    cols = {
+        "t_s": truth["t_s"].to_numpy(float),
+        "truth_x_m": truth["x_m"].to_numpy(float),
+        "truth_y_m": truth["y_m"].to_numpy(float),
+        "truth_heading_rad": truth["heading_rad"].to_numpy(float),
+        "truth_sigma_xy_m": truth["sigma_xy_m"].to_numpy(float),
+        "truth_sigma_heading_rad": truth["sigma_heading_rad"].to_numpy(float),
+        "path_length_m": np.asarray(cum_length_m, dtype=float),
+    }
+    q = np.column_stack([cols["truth_x_m"], cols["truth_y_m"], cols["truth_heading_rad"]])
+    for name, poses in anchored.items():
+        pre = column_prefix(name)
+        p = np.asarray(poses, dtype=float).reshape(-1, 3)
+        ex, ey = p[:, 0] - q[:, 0], p[:, 1] - q[:, 1]
+        along, cross = along_cross(np.column_stack([ex, ey]), direction_rad)
+        cols[f"{pre}_x_m"] = p[:, 0]
+        cols[f"{pre}_y_m"] = p[:, 1]
+        cols[f"{pre}_heading_rad"] = p[:, 2]
+        cols[f"{pre}_err_m"] = np.hypot(ex, ey)
+        cols[f"{pre}_along_m"] = along
+        cols[f"{pre}_cross_m"] = cross
+        cols[f"{pre}_heading_err_rad"] = wrap_angle(p[:, 2] - q[:, 2])
+    cols["events"] = list(event_flags) if event_flags is not None else [""] * n
+    return pd.DataFrame(cols)

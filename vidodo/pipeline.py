@@ -1,0 +1,429 @@
+"""Grading a run: the one place that wires the stages together.
+
+``grade_run`` takes the footage and the robot's log, measures the truth track (or
+reuses one), reads the log and rebuilds every odometry source, puts the log on the
+video clock (:mod:`vidodo.sync`), anchors each source at the truth pose where motion
+starts, computes the per-source figures (:mod:`vidodo.metrics`), finds events
+(:mod:`vidodo.events`) and compares each source with the user's tolerances.
+
+Pass/fail compares a source's *final* anchored position and heading errors (where the
+robot believes it is at the end of the run, having started from the truth pose) with
+the tolerances. Without tolerances every source is graded but none passes or fails.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field, replace
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from . import __version__
+from .errors import InputError, MeasurementError
+from .events import EventSettings, active_kinds, detect_events, events_frame
+from .metrics import (
+    SourceMetrics,
+    anchor_poses,
+    drift_table,
+    motion_start_index,
+    path_length,
+    source_metrics,
+    travel_direction,
+    umeyama,
+)
+from .profiles import FieldProfile, RobotProfile, load_camera, load_field, load_robot
+from .sync import ClockSync, estimate_clock, manual_clock
+
+__all__ = ["Tolerances", "GradeResult", "grade_run", "grade_tracks", "read_track_csv",
+           "TRACK_COLUMNS"]
+
+TRACK_COLUMNS = ["t_s", "x_m", "y_m", "heading_rad", "sigma_xy_m", "sigma_heading_rad",
+                 "vx_mps", "vy_mps", "speed_mps", "omega_radps", "ax_mps2", "ay_mps2",
+                 "detected", "interpolated"]
+_REQUIRED = ["t_s", "x_m", "y_m", "heading_rad", "sigma_xy_m", "sigma_heading_rad"]
+
+
+@dataclass(frozen=True)
+class Tolerances:
+    """What a source may be off by at the end of the run and still pass."""
+
+    position_m: float | None = None
+    """Final anchored position error allowed [m] (None: not graded)."""
+    heading_rad: float | None = None
+    """Final anchored heading error allowed [rad] (None: not graded)."""
+
+    @property
+    def is_set(self) -> bool:
+        """True when at least one tolerance is given."""
+        return self.position_m is not None or self.heading_rad is not None
+
+    def check(self, m: SourceMetrics) -> bool | None:
+        """Pass (True), fail (False) or not graded (None) for one source."""
+        if not self.is_set:
+            return None
+        ok = True
+        if self.position_m is not None:
+            ok &= m.final_err_m is not None and m.final_err_m <= self.position_m
+        if self.heading_rad is not None:
+            ok &= (m.final_heading_err_rad is not None
+                   and abs(m.final_heading_err_rad) <= self.heading_rad)
+        return bool(ok)
+
+    def to_dict(self) -> dict:
+        """For the summary (display units beside SI)."""
+        return {"position_m": self.position_m, "heading_rad": self.heading_rad,
+                "heading_deg": None if self.heading_rad is None
+                else math.degrees(self.heading_rad),
+                "compared": "final anchored error"}
+
+
+@dataclass(frozen=True)
+class GradeResult:
+    """Everything measured about one run."""
+
+    truth: pd.DataFrame
+    """Truth track, video clock (columns in DEVELOPERS.md)."""
+    truth_quality: dict
+    """Tracker quality figures."""
+    clock: ClockSync
+    """Log clock -> video clock."""
+    odometry: dict
+    """Per source: DataFrame on the video clock in the source's own frame."""
+    anchored: dict
+    """Per source: DataFrame ``t_s, x_m, y_m, heading_rad`` on the truth samples,
+    anchored at motion start (floor frame; NaN outside the log)."""
+    best_fit: dict
+    """Per source: the rigid SE(2) :class:`~vidodo.metrics.Alignment` of the anchored
+    track onto truth (over the whole overlap)."""
+    anchor: dict
+    """Anchor instant and truth pose: ``t_s, x_m, y_m, heading_rad, index``."""
+    metrics: dict
+    """Per source: :class:`~vidodo.metrics.SourceMetrics`."""
+    drift: pd.DataFrame
+    """The drift table (drift.csv)."""
+    events: pd.DataFrame
+    """The events table (events.csv)."""
+    event_list: tuple
+    """The same events as :class:`~vidodo.events.Event` objects."""
+    tolerances: Tolerances
+    """Tolerances used."""
+    summary: dict
+    """summary.json content."""
+    warnings: tuple[str, ...] = ()
+    """What could not be measured, or is doubtful."""
+    passed: dict = field(default_factory=dict)
+    """Per source: True, False or None (no tolerance)."""
+
+    @property
+    def verdict(self) -> str:
+        """'pass', 'fail' or 'graded' (no tolerance set)."""
+        return self.summary["verdict"]
+
+
+def read_track_csv(path) -> pd.DataFrame:
+    """Read a truth track CSV written by ``vidodo track`` or ``vidodo grade``.
+
+    Raises
+    ------
+    InputError
+        File missing, or a required column absent.
+    """
+    p = Path(path)
+    try:
+        df = pd.read_csv(p)
+    except FileNotFoundError:
+        raise InputError(f"{p}: file not found; check the --track path") from None
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
+        raise InputError(f"{p}: not a readable CSV ({exc}); give a track.csv") from None
+    missing = [c for c in _REQUIRED if c not in df.columns]
+    if missing:
+        raise InputError(f"{p}: missing column(s) {missing}; give a track written by "
+                         "'vidodo track'")
+    for c in ("detected", "interpolated"):
+        if c in df.columns:
+            df[c] = df[c].astype(str).str.lower().isin(["true", "1", "1.0"])
+    if not np.all(np.diff(df["t_s"].to_numpy(float)) > 0):
+        raise InputError(f"{p}: column t_s must be strictly increasing")
+    return df
+
+
+def _profile(obj, loader):
+    if obj is None or isinstance(obj, RobotProfile | FieldProfile) or hasattr(obj, "fx_px"):
+        return obj
+    return loader(obj)
+
+
+def _interp_poses(t_query, df):
+    """Poses of ``df`` (t_s, x, y, heading) at ``t_query``; NaN outside its span."""
+    t = df["t_s"].to_numpy(float)
+    out = np.full((len(t_query), 3), np.nan)
+    if len(t) < 2:
+        return out
+    h = np.unwrap(df["heading_rad"].to_numpy(float))
+    for i, v in enumerate((df["x_m"].to_numpy(float), df["y_m"].to_numpy(float), h)):
+        out[:, i] = np.interp(t_query, t, v, left=np.nan, right=np.nan)
+    return out
+
+
+def _anchor(truth, sxy):
+    """Anchor sample and truth pose there (mean over the still time before motion)."""
+    t = truth["t_s"].to_numpy(float)
+    q = truth[["x_m", "y_m", "heading_rad"]].to_numpy(float).copy()
+    if "detected" in truth:
+        q[~truth["detected"].to_numpy(bool)] = np.nan
+    k = motion_start_index(q[:, :2], sxy)
+    moved = k is not None
+    if k is None:
+        good = np.flatnonzero(np.isfinite(q).all(axis=1))
+        if good.size == 0:
+            raise MeasurementError("truth track has no detected sample; nothing to grade")
+        k = int(good[0])
+    # average the still samples within 1 s before the start (robot at rest)
+    still = np.flatnonzero((t >= t[k] - 1.0) & (t <= t[k]) & np.isfinite(q).all(axis=1))
+    if moved and still.size:
+        x, y = q[still, 0].mean(), q[still, 1].mean()
+        h = math.atan2(np.sin(q[still, 2]).mean(), np.cos(q[still, 2]).mean())
+    else:
+        x, y, h = q[k]
+    return k, (float(x), float(y), float(h)), moved
+
+
+def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
+                 truth_quality=None, truth_warnings=(), inputs=None,
+                 event_settings=None, odometry=None) -> GradeResult:
+    """Grade a run from a truth track and a log already read.
+
+    Parameters
+    ----------
+    truth : DataFrame
+        Truth track (video clock).
+    log : LogData
+        The robot's log (:func:`vidodo.logs.read_log`).
+    robot : RobotProfile
+    clock_offset_s : float, optional
+        Manual ``t_video - t_log`` [s]; found automatically when None.
+    tolerances : Tolerances, optional
+    odometry : dict of str -> DataFrame, optional
+        Odometry sources on the log clock; rebuilt from ``log`` when None.
+
+    Returns
+    -------
+    GradeResult
+    """
+    from .odometry import odometry_result, rim_travel
+
+    tol = tolerances or Tolerances()
+    warn = list(truth_warnings)
+    missing = [c for c in _REQUIRED if c not in truth.columns]
+    if missing:
+        raise InputError(f"truth track: missing column(s) {missing}")
+    truth = truth.reset_index(drop=True)
+    warn += list(getattr(log, "warnings", []))
+    if odometry is None:
+        od = odometry_result(log, robot)
+        odometry = od.tracks
+        warn += list(od.warnings)
+    if clock_offset_s is None:
+        clock = estimate_clock(truth, odometry)
+    else:
+        clock = manual_clock(truth, odometry, float(clock_offset_s))
+    warn += list(clock.warnings)
+
+    t = truth["t_s"].to_numpy(float)
+    sxy_all = truth["sigma_xy_m"].to_numpy(float)
+    sxy = float(np.nanmedian(sxy_all)) if np.isfinite(sxy_all).any() else 0.002
+    sh_all = truth["sigma_heading_rad"].to_numpy(float)
+    sh = float(np.nanmedian(sh_all)) if np.isfinite(sh_all).any() else math.radians(0.5)
+    q = truth[["x_m", "y_m", "heading_rad"]].to_numpy(float).copy()
+    q[:, 2] = _unwrap_nan(q[:, 2])
+    k_anchor, anchor_pose, moved = _anchor(truth, sxy)
+    t_anchor = float(t[k_anchor])
+    if not moved:
+        warn.append("the truth track shows no motion: drift %, RPE and heading drift per "
+                    "turn are not measured")
+
+    video_tracks = {}
+    anchored = {}
+    best = {}
+    metrics = {}
+    cum = path_length(q[:, :2], gate_m=3.0 * sxy)
+    for name, df in odometry.items():
+        vdf = df.copy()
+        vdf["t_s"] = clock.to_video(df["t_s"].to_numpy(float))
+        video_tracks[name] = vdf
+        p = _interp_poses(t, vdf)
+        if not np.isfinite(p).all(axis=1).any():
+            warn.append(f"source {name!r}: the log does not cover the video; not graded")
+            continue
+        ta = t_anchor
+        pa = _interp_poses(np.array([ta]), vdf)[0]
+        qa = anchor_pose
+        if not np.isfinite(pa).all():
+            first = int(np.flatnonzero(np.isfinite(p).all(axis=1) & np.isfinite(q).all(
+                axis=1))[0])
+            ta, pa, qa = float(t[first]), p[first], tuple(q[first])
+            warn.append(f"source {name!r}: the log starts after motion start; anchored at "
+                        f"{ta:.2f} s instead")
+        a = anchor_poses(p, pa, qa)
+        anchored[name] = pd.DataFrame({"t_s": t, "x_m": a[:, 0], "y_m": a[:, 1],
+                                       "heading_rad": a[:, 2]})
+        try:
+            m = source_metrics(t, q, a, cum, sigma_heading_rad=sh, name=name)
+        except MeasurementError as exc:
+            warn.append(str(exc))
+            continue
+        metrics[name] = m
+        if not moved:
+            m = _without_motion_figures(m)
+            metrics[name] = m
+        warn += list(m.warnings)
+        ok = np.isfinite(a).all(axis=1) & np.isfinite(q).all(axis=1)
+        try:
+            best[name] = umeyama(a[ok, :2], q[ok, :2])
+        except MeasurementError:
+            pass
+    if not metrics:
+        raise MeasurementError("no odometry source overlaps the truth track; nothing graded")
+
+    # events
+    wheel_travel = None
+    names = [w for w in robot.wheels if f"ticks_{w.name}" in log.frame.columns]
+    if names:
+        steps = rim_travel(log, names)
+        cumt = np.vstack([np.zeros((1, len(names))), np.cumsum(steps, axis=0)])
+        wheel_travel = pd.DataFrame(cumt, columns=[w.name for w in names])
+        wheel_travel.insert(0, "t_s", clock.to_video(log.frame["t_s"].to_numpy(float)))
+    imu = None
+    if "imu_heading_rad" in log.frame.columns:
+        imu = pd.DataFrame({"t_s": clock.to_video(log.frame["t_s"].to_numpy(float)),
+                            "heading_rad": log.frame["imu_heading_rad"].to_numpy(float)})
+    src_poses = {n: (v["t_s"].to_numpy(float),
+                     v[["x_m", "y_m", "heading_rad"]].to_numpy(float))
+                 for n, v in video_tracks.items() if n in metrics}
+    ev = detect_events(truth, wheel_travel, robot, imu_heading=imu, source_poses=src_poses,
+                       settings=event_settings or EventSettings())
+    warn += list(ev.warnings)
+    flags = active_kinds(t, ev.events)
+    direction = travel_direction(q[:, :2], q[:, 2], min_step_m=max(6.0 * sxy, 0.01))
+    drift = drift_table(truth, {n: anchored[n][["x_m", "y_m", "heading_rad"]].to_numpy()
+                                for n in metrics}, cum, direction, flags)
+    events_df = events_frame(ev.events)
+    passed = {n: tol.check(m) for n, m in metrics.items()}
+    if not tol.is_set:
+        verdict = "graded"
+    else:
+        verdict = "pass" if all(v for v in passed.values()) else "fail"
+    anchor = {"t_s": t_anchor, "x_m": anchor_pose[0], "y_m": anchor_pose[1],
+              "heading_rad": anchor_pose[2], "index": int(k_anchor), "motion": moved}
+    warn = list(dict.fromkeys(warn))
+    summary = {
+        "vidodo_version": __version__,
+        "inputs": dict(inputs or {}),
+        "settings": {"events": asdict(event_settings or EventSettings()), "anchor": anchor},
+        "clock": {"offset_s": clock.offset_s, "sigma_s": clock.sigma_s,
+                  "confidence": clock.confidence, "method": clock.method,
+                  "source": clock.source, "rate": clock.rate, "ref_log_s": clock.ref_log_s},
+        "truth": dict(truth_quality or {}),
+        "sources": {n: {**{k: v for k, v in m.to_dict().items() if k != "warnings"},
+                        "pass": passed[n]} for n, m in metrics.items()},
+        "events": events_df.to_dict(orient="records"),
+        "tolerances": tol.to_dict(),
+        "verdict": verdict,
+        "warnings": warn,
+    }
+    return GradeResult(truth=truth, truth_quality=dict(truth_quality or {}), clock=clock,
+                       odometry=video_tracks, anchored=anchored, best_fit=best,
+                       anchor=anchor, metrics=metrics, drift=drift, events=events_df,
+                       event_list=ev.events, tolerances=tol, summary=_jsonable(summary),
+                       warnings=tuple(warn), passed=passed)
+
+
+def _without_motion_figures(m: SourceMetrics) -> SourceMetrics:
+    return replace(m, drift_pct=None, heading_drift_deg_per_turn=None, rpe_0p5m_rmse_m=None,
+                   ate_rmse_m=None)
+
+
+def _unwrap_nan(h):
+    out = h.copy()
+    ok = np.isfinite(h)
+    out[ok] = np.unwrap(h[ok])
+    return out
+
+
+def _jsonable(obj):
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.generic):
+        obj = obj.item()
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    if isinstance(obj, Path):
+        return str(obj)
+    return obj
+
+
+def grade_run(video, log, robot, field_profile, camera=None, *, clock_offset_s=None,
+              tolerances=None, progress=None, track=None, event_settings=None) -> GradeResult:
+    """Grade one run: video + log + profiles -> drift, events, verdict.
+
+    Parameters
+    ----------
+    video : str or Path
+        The footage (not read when ``track`` is given).
+    log : str, Path or LogData
+        The robot's log CSV.
+    robot, field_profile : profile or path
+        Robot and field profiles (TOML paths or loaded profiles).
+    camera : CameraProfile or path, optional
+        Lens profile; the tracker estimates one when absent.
+    clock_offset_s : float, optional
+        Manual ``t_video - t_log`` [s].
+    tolerances : Tolerances, optional
+        Pass/fail limits; none by default.
+    progress : callable, optional
+        Passed to the tracker.
+    track : DataFrame or path, optional
+        A truth track to reuse instead of tracking the video.
+
+    Returns
+    -------
+    GradeResult
+
+    Raises
+    ------
+    InputError, MeasurementError (SyncError, TrackingError)
+        With one line saying what is wrong and what to do.
+    """
+    from .logs import LogData, read_log
+
+    robot = _profile(robot, load_robot)
+    field_profile = _profile(field_profile, load_field)
+    camera = _profile(camera, load_camera)
+    inputs = {"video": str(video) if video is not None else None,
+              "log": str(getattr(log, "path", log)),
+              "robot": str(robot.path) if robot.path else robot.name,
+              "field": str(field_profile.path) if field_profile and field_profile.path
+              else None,
+              "camera": str(camera.path) if camera is not None and camera.path else None}
+    quality, twarn = {}, []
+    if track is None:
+        from .track import track_video
+
+        tres = track_video(video, robot, field_profile, camera, progress=progress)
+        truth = tres.track
+        quality = dict(tres.quality)
+        twarn = list(tres.warnings)
+    elif isinstance(track, pd.DataFrame):
+        truth = track
+        inputs["track"] = "given"
+    else:
+        truth = read_track_csv(track)
+        inputs["track"] = str(track)
+    logdata = log if isinstance(log, LogData) else read_log(log, robot)
+    return grade_tracks(truth, logdata, robot, clock_offset_s=clock_offset_s,
+                        tolerances=tolerances, truth_quality=quality, truth_warnings=twarn,
+                        inputs=inputs, event_settings=event_settings)
