@@ -9,6 +9,7 @@ known offset and rate. The fit is then handed a deliberately wrong profile.
 from __future__ import annotations
 
 import dataclasses
+import json
 import math
 
 import numpy as np
@@ -331,3 +332,49 @@ def test_corrected_profile_cuts_anchored_drift():
     table = drift_comparison(before, after, "run")
     assert set(table["source"]) == {"tracking", "tracking+imu"}
     assert (table["max_err_ratio"] >= 5).all(), table.to_string()
+
+
+def _raw_log(run, profile):
+    """The log as a team's CSV would hold it (profile column names, raw counts, deg)."""
+    raw = pd.DataFrame({profile.time_column: run.log["t_s"]})
+    for w in profile.wheels:
+        raw[w.column] = np.round(run.log[f"ticks_{w.name}"]).astype(np.int64)
+    raw[profile.imu.column] = np.degrees(
+        run.log["imu_heading_rad"] / (profile.imu.sign * profile.imu.scale))
+    return raw
+
+
+def test_tune_command_on_a_grade_folder(tmp_path, capsys):
+    """The verb reads a grade folder (drift.csv, events.csv, summary.json, as in
+    DEVELOPERS.md), writes robot.toml, fit.csv and drift.csv, and prints the table."""
+    from vidodo.cli_main import main
+    from vidodo.profiles import dump_toml, robot_to_dict
+
+    true = pod_robot()
+    wrong = _wrong_pods(true)
+    run = constructed_run(true, profile=wrong, noise_xy_m=0.0005, noise_heading_rad=0.002,
+                          quantize=True)
+    grade = tmp_path / "grade"
+    grade.mkdir()
+    _raw_log(run, wrong).to_csv(tmp_path / "log.csv", index=False)
+    (tmp_path / "robot.toml").write_text(dump_toml(robot_to_dict(wrong)))
+    tr = run.truth
+    pd.DataFrame({"t_s": tr["t_s"], "truth_x_m": tr["x_m"], "truth_y_m": tr["y_m"],
+                  "truth_heading_rad": tr["heading_rad"], "truth_sigma_xy_m": 0.0005,
+                  "truth_sigma_heading_rad": 0.002}).to_csv(grade / "drift.csv", index=False)
+    pd.DataFrame({"kind": ["shove"], "t_start_s": [30.0], "t_end_s": [30.4]}).to_csv(
+        grade / "events.csv", index=False)
+    (grade / "summary.json").write_text(json.dumps({
+        "inputs": {"log": str(tmp_path / "log.csv"), "robot": str(tmp_path / "robot.toml")},
+        "clock": {"offset_s": run.offset_s}}))
+    out = tmp_path / "tuned"
+    assert main(["tune", str(grade), "--out", str(out)]) == 0
+    printed = capsys.readouterr().out
+    assert "wheel left y_m" in printed and "imu scale" in printed
+    fixed = load_robot(out / "robot.toml")
+    assert fixed.wheel("right").sign == 1
+    assert abs(fixed.wheel("left").y_m - 0.16) < 1e-3
+    table = pd.read_csv(out / "fit.csv")
+    assert {"parameter", "estimate", "std_error", "identifiable"} <= set(table.columns)
+    drift = pd.read_csv(out / "drift.csv")
+    assert (drift["max_err_ratio"] >= 5).all()

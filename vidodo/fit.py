@@ -708,13 +708,15 @@ def _tabulate(robot, model, theta, se, cov, status, inverted, imu_flip, tol, war
             changes["y_m"] = float(w.y_m + step[1] * theta[il])
         new_wheels[w.name] = dataclasses.replace(w, **changes)
     # derived track width per source of forward-rolling wheels on both sides
+    seen = set()
     for src in robot.resolved_sources():
         idx = [j for j, w in enumerate(model.wheels) if w.name in src.wheels
                and abs(wheel_rows([w])[0][1]) < 1e-9 and abs(w.direction_rad) < 1e-9]
         left = [j for j in idx if model.wheels[j].y_m > 0]
         right = [j for j in idx if model.wheels[j].y_m < 0]
-        if not left or not right:
+        if not left or not right or tuple(idx) in seen:
             continue
+        seen.add(tuple(idx))
         grad = np.zeros(len(theta))
         prof = (np.mean([model.wheels[j].y_m for j in left])
                 - np.mean([model.wheels[j].y_m for j in right]))

@@ -1,0 +1,216 @@
+"""``vidodo tune RUN... --robot R.toml --out DIR``: a corrected robot profile from truth."""
+
+from __future__ import annotations
+
+import json
+import math
+import sys
+from pathlib import Path
+
+import pandas as pd
+
+from ..errors import InputError
+from ..fit import FitRun, anchored_drift, drift_comparison, fit_profile, write_profile
+from ..logs import read_log
+from ..odometry import odometry_tracks
+from ..outputs import staged_dir
+from ..profiles import load_robot
+
+NAME = "tune"
+HELP = "fit wheel radii, offsets and IMU scale to the video truth; write a corrected profile"
+DESCRIPTION = (
+    "From one or more graded runs of the same robot (grade output folders, or VIDEO LOG "
+    "pairs that are graded first) fit each wheel's radius and offset, the IMU scale and "
+    "bias, and the log clock's offset and rate to the truth track, leaving out event "
+    "windows. Writes DIR/robot.toml (the corrected profile), DIR/fit.csv (every value "
+    "with its standard error and whether the runs pin it down) and DIR/drift.csv "
+    "(anchored drift per source before and after the correction)."
+)
+
+
+def add_arguments(parser):
+    """Options of the verb."""
+    parser.add_argument("inputs", nargs="+", type=Path,
+                        help="grade output folders, or VIDEO LOG pairs to grade first")
+    parser.add_argument("--robot", type=Path,
+                        help="robot profile to correct (default: the one the grade used)")
+    parser.add_argument("--field", type=Path, help="field profile (for VIDEO LOG pairs)")
+    parser.add_argument("--camera", type=Path, help="camera profile (for VIDEO LOG pairs)")
+    parser.add_argument("--out", type=Path, required=True, help="folder to write")
+    parser.add_argument("--window", type=float, default=0.4, metavar="S",
+                        help="length of each fitting window in seconds (default 0.4)")
+    parser.add_argument("--no-clock", action="store_true",
+                        help="keep the graded clock offset; do not fit offset and rate")
+
+
+# ------------------------------------------------------------------------ inputs
+def _grade_dir_run(folder: Path, robot_arg):
+    """FitRun, log path and robot path from a grade output folder."""
+    summary_p = folder / "summary.json"
+    drift_p = folder / "drift.csv"
+    for p in (summary_p, drift_p):
+        if not p.exists():
+            raise InputError(f"{p}: not found; pass a folder written by 'vidodo grade --out'")
+    summary = json.loads(summary_p.read_text(encoding="utf-8"))
+    inputs = summary.get("inputs", {})
+    log_path = inputs.get("log")
+    if not log_path:
+        raise InputError(f"{summary_p}: 'inputs' names no log; re-grade the run")
+    robot_path = robot_arg or inputs.get("robot")
+    if not robot_path:
+        raise InputError(f"{summary_p}: 'inputs' names no robot profile; pass --robot")
+    clock = summary.get("clock", {})
+    if "offset_s" not in clock:
+        raise InputError(f"{summary_p}: no clock offset; re-grade the run")
+    drift = pd.read_csv(drift_p)
+    need = ["t_s", "truth_x_m", "truth_y_m", "truth_heading_rad"]
+    missing = [c for c in need if c not in drift.columns]
+    if missing:
+        raise InputError(f"{drift_p}: missing column(s) {missing}; re-grade the run")
+    truth = pd.DataFrame({
+        "t_s": drift["t_s"], "x_m": drift["truth_x_m"], "y_m": drift["truth_y_m"],
+        "heading_rad": drift["truth_heading_rad"]})
+    for c in ("sigma_xy_m", "sigma_heading_rad"):
+        if f"truth_{c}" in drift.columns:
+            truth[c] = drift[f"truth_{c}"]
+    events = []
+    ev_p = folder / "events.csv"
+    if ev_p.exists():
+        ev = pd.read_csv(ev_p)
+        if len(ev):
+            events = list(zip(ev["t_start_s"].astype(float), ev["t_end_s"].astype(float),
+                              strict=True))
+    log_path = Path(log_path)
+    if not log_path.is_absolute() and not log_path.exists():
+        log_path = folder / log_path
+    spec = dict(name=folder.name, truth=truth, offset_s=float(clock["offset_s"]),
+                exclude_windows=tuple(events), rate=float(clock.get("rate", 0.0) or 0.0),
+                ref_log_s=float(clock.get("ref_log_s", 0.0) or 0.0))
+    return spec, log_path, Path(robot_path)
+
+
+def _graded_pair(video: Path, log: Path, args, robot_path):
+    """Grade a VIDEO LOG pair with the pipeline and return the same as above."""
+    from .. import pipeline
+    from ..profiles import load_camera, load_field
+
+    if args.field is None:
+        raise InputError("tune: VIDEO LOG pairs need --field (the field profile)")
+    robot = load_robot(robot_path)
+    field = load_field(args.field)
+    camera = load_camera(args.camera) if args.camera else None
+    result = pipeline.grade_run(video, log, robot, field, camera)
+    ev = getattr(result, "events", None)
+    events = []
+    if ev is not None and len(ev):
+        events = list(zip(ev["t_start_s"].astype(float), ev["t_end_s"].astype(float),
+                          strict=True))
+    clock = result.clock
+    spec = dict(name=video.stem, truth=result.truth, offset_s=float(clock.offset_s),
+                exclude_windows=tuple(events), rate=float(getattr(clock, "rate", 0.0)),
+                ref_log_s=float(getattr(clock, "ref_log_s", 0.0)))
+    return spec, log, robot_path
+
+
+def _collect(args):
+    specs = []
+    items = list(args.inputs)
+    i = 0
+    while i < len(items):
+        p = items[i]
+        if p.is_dir():
+            specs.append(_grade_dir_run(p, args.robot))
+            i += 1
+        elif i + 1 < len(items) and items[i + 1].is_file():
+            if args.robot is None:
+                raise InputError("tune: VIDEO LOG pairs need --robot (the profile to correct)")
+            specs.append(_graded_pair(p, items[i + 1], args, args.robot))
+            i += 2
+        else:
+            raise InputError(f"{p}: not a grade folder, and not followed by a log file; "
+                             "pass grade output folders or VIDEO LOG pairs")
+    robots = {str(s[2].resolve()) for s in specs}
+    if len(robots) > 1:
+        raise InputError(f"tune: the runs were graded with different robot profiles "
+                         f"{sorted(robots)}; pass --robot to name the one to correct")
+    return specs
+
+
+# ------------------------------------------------------------------------ display
+def _display(row) -> tuple[str, str, str, str]:
+    """Profile, estimate, standard error and change in display units."""
+    kind, unit = row["kind"], row["unit"]
+
+    def f(v, scale, fmt):
+        return "-" if v is None or (isinstance(v, float) and math.isnan(v)) else fmt.format(
+            v * scale)
+
+    if kind == "sign":
+        return (f(row["profile"], 1, "{:+.0f}"), f(row["estimate"], 1, "{:+.0f}"), "", "")
+    if unit == "m":
+        pct = (row["change"] / row["profile"] * 100.0) if kind == "radius" else None
+        ch = f(row["change"], 1e3, "{:+.2f} mm")
+        if pct is not None and not math.isnan(pct):
+            ch += f" ({pct:+.2f} %)"
+        return (f(row["profile"], 1e3, "{:.2f} mm"), f(row["estimate"], 1e3, "{:.2f} mm"),
+                f(row["std_error"], 1e3, "{:.3f} mm"), ch)
+    if kind == "imu_scale":
+        return (f(row["profile"], 1, "{:.5f}"), f(row["estimate"], 1, "{:.5f}"),
+                f(row["std_error"], 1, "{:.5f}"), f(row["change"], 100, "{:+.3f} %"))
+    if kind == "imu_bias":
+        k = 180.0 / math.pi
+        return ("0", f(row["estimate"], k, "{:+.4f} deg/s"), f(row["std_error"], k,
+                "{:.4f} deg/s"), "")
+    if kind == "clock_rate":
+        return ("0", f(row["estimate"], 1e6, "{:+.0f} ppm"),
+                f(row["std_error"], 1e6, "{:.0f} ppm"), "")
+    return (f(row["profile"], 1e3, "{:.1f} ms"), f(row["estimate"], 1e3, "{:.1f} ms"),
+            f(row["std_error"], 1e3, "{:.1f} ms"), f(row["change"], 1e3, "{:+.1f} ms"))
+
+
+def format_table(table: pd.DataFrame) -> str:
+    """The fitted values as aligned text, display units."""
+    head = ("value", "profile", "fitted", "std err", "change", "pinned", "written")
+    lines = [head]
+    for _, r in table.iterrows():
+        p, e, s, c = _display(r)
+        lines.append((r["parameter"], p, e, s, c, r["identifiable"],
+                      "yes" if r["written"] else ""))
+    widths = [max(len(x[i]) for x in lines) for i in range(len(head))]
+    out = ["  ".join(x[i].ljust(widths[i]) for i in range(len(head))).rstrip() for x in lines]
+    return "\n".join(out)
+
+
+# ---------------------------------------------------------------------------- run
+def run(args) -> int:
+    """Collect the runs, fit, write the profile and the tables, print the values."""
+    specs = _collect(args)
+    robot_path = specs[0][2]
+    robot = load_robot(robot_path)
+    logs = [read_log(s[1], robot) for s in specs]
+    runs = [FitRun(log=lg.frame, **s[0]) for s, lg in zip(specs, logs, strict=True)]
+    fit = fit_profile(runs, robot, window_s=args.window, fit_clock=not args.no_clock)
+    tables = []
+    for s, r, lg in zip(specs, runs, logs, strict=True):
+        before = anchored_drift(r, odometry_tracks(lg, robot))
+        fixed_log = read_log(s[1], fit.corrected_robot)
+        after = anchored_drift(r, odometry_tracks(fixed_log, fit.corrected_robot))
+        tables.append(drift_comparison(before, after, r.name))
+    drift = pd.concat(tables, ignore_index=True) if tables else pd.DataFrame()
+    with staged_dir(args.out) as stage:
+        write_profile(fit, stage / "robot.toml")
+        fit.table.to_csv(stage / "fit.csv", index=False, float_format="%.9g")
+        drift.to_csv(stage / "drift.csv", index=False, float_format="%.6g")
+    for w in fit.warnings:
+        print(f"vidodo tune: warning: {w}", file=sys.stderr)
+    if not args.quiet:
+        n = sum(fit.n_windows.values())
+        print(f"{len(runs)} run(s), {n} windows of {args.window:g} s outside events")
+        print(format_table(fit.table))
+        if len(drift):
+            print("\nanchored drift (max error) before -> after:")
+            for _, r in drift.iterrows():
+                print(f"  {r['run']} {r['source']}: {r['max_err_m_before'] * 1e3:.1f} mm -> "
+                      f"{r['max_err_m_after'] * 1e3:.1f} mm ({r['max_err_ratio']:.1f}x)")
+        print(f"\ncorrected profile -> {args.out / 'robot.toml'}")
+    return 0
