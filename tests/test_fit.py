@@ -314,21 +314,19 @@ def test_corrected_profile_cuts_anchored_drift():
     at least 5x (issue 7 acceptance)."""
     from vidodo.fit import anchored_drift, drift_comparison
     from vidodo.logs import log_from_frame
-    from vidodo.odometry import odometry_tracks
 
     true = pod_robot()
     wrong = _wrong_pods(true)
     run = constructed_run(true, profile=wrong, noise_xy_m=0.0005, noise_heading_rad=0.002,
                           quantize=True, imu_bias_radps=0.0)
-    raw = pd.DataFrame({"t": run.log["t_s"]})
-    for w in wrong.wheels:
-        raw[w.column] = run.log[f"ticks_{w.name}"].astype(np.int64)
-    raw["yaw"] = np.degrees(run.log["imu_heading_rad"] / (wrong.imu.sign * wrong.imu.scale))
+    truth = run.truth.assign(sigma_xy_m=0.0005, sigma_heading_rad=0.002)
+    run = dataclasses.replace(run, truth=truth)
+    raw = _raw_log(run, wrong)
     log_wrong = log_from_frame(raw, wrong)
     fit = fit_profile([dataclasses.replace(run, log=log_wrong.frame)], wrong)
     log_fixed = log_from_frame(raw, fit.corrected_robot)
-    before = anchored_drift(run, odometry_tracks(log_wrong, wrong))
-    after = anchored_drift(run, odometry_tracks(log_fixed, fit.corrected_robot))
+    before = anchored_drift(run, log_wrong, wrong)
+    after = anchored_drift(run, log_fixed, fit.corrected_robot)
     table = drift_comparison(before, after, "run")
     assert set(table["source"]) == {"tracking", "tracking+imu"}
     assert (table["max_err_ratio"] >= 5).all(), table.to_string()

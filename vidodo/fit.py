@@ -793,52 +793,37 @@ def write_profile(fit: ProfileFit, path) -> None:
 
 
 # ------------------------------------------------------------------ before / after
-def anchored_drift(run: FitRun, tracks: dict) -> dict:
-    """Anchored drift figures per odometry source for one run.
+def anchored_drift(run: FitRun, log, robot: RobotProfile) -> dict:
+    """Anchored drift figures per odometry source, as ``vidodo grade`` computes them.
 
-    Each source track (log clock) is mapped onto the video clock with the run's clock,
-    sampled at the truth times, and moved rigidly so that it starts on the truth pose
-    at motion start (:func:`vidodo.metrics.anchor_poses`); the figures are those of
-    :func:`vidodo.metrics.source_metrics`.
+    The log is graded against the run's truth track with
+    :func:`vidodo.pipeline.grade_tracks` on the run's clock (offset and rate held, so
+    the profile is the only thing that changes between two calls).
 
     Parameters
     ----------
     run : FitRun
-    tracks : dict of str -> DataFrame
-        Odometry tracks (``t_s`` on the log clock, ``x_m, y_m, heading_rad``).
+        Truth track with ``sigma_xy_m`` and ``sigma_heading_rad`` columns.
+    log : LogData
+        The log read with ``robot`` (:func:`vidodo.logs.read_log`).
+    robot : RobotProfile
 
     Returns
     -------
     dict of str -> SourceMetrics
     """
-    from .metrics import anchor_poses, motion_start_index, path_length, source_metrics
+    from .odometry import odometry_result
+    from .pipeline import grade_tracks
 
-    tr = run.truth.sort_values("t_s")
-    t = tr["t_s"].to_numpy(float)
-    q = tr[["x_m", "y_m", "heading_rad"]].to_numpy(float).copy()
-    if "detected" in tr.columns:
-        q[~tr["detected"].fillna(False).to_numpy(bool)] = np.nan
-    sig = float(np.nanmedian(tr["sigma_xy_m"])) if "sigma_xy_m" in tr.columns else 0.002
-    sig_h = (float(np.nanmedian(tr["sigma_heading_rad"]))
-             if "sigma_heading_rad" in tr.columns else 0.0)
-    k0 = motion_start_index(q[:, :2], sig)
-    if k0 is None:
-        raise MeasurementError(f"run {run.name!r}: the truth track never moves; nothing to "
-                               "anchor")
-    cum = path_length(q[:, :2], gate_m=2.0 * sig)
-    out = {}
-    for name, df in tracks.items():
-        tl = df["t_s"].to_numpy(float)
-        tv = tl + run.offset_s + run.rate * (tl - run.ref_log_s)
-        p = np.column_stack([np.interp(t, tv, df[c].to_numpy(float), left=np.nan,
-                                       right=np.nan)
-                             for c in ("x_m", "y_m", "heading_rad")])
-        if not np.isfinite(p[k0]).all():
-            continue
-        anchored = anchor_poses(p, p[k0], q[k0])
-        anchored[:k0] = np.nan
-        out[name] = source_metrics(t, q, anchored, cum, sigma_heading_rad=sig_h, name=name)
-    return out
+    tracks = {}
+    for name, df in odometry_result(log, robot).tracks.items():
+        d = df.copy()
+        t = d["t_s"].to_numpy(float)
+        # fold the rate term into the log times so a plain offset maps them exactly
+        d["t_s"] = t + run.rate * (t - run.ref_log_s)
+        tracks[name] = d
+    res = grade_tracks(run.truth, log, robot, clock_offset_s=run.offset_s, odometry=tracks)
+    return dict(res.metrics)
 
 
 def drift_comparison(before: dict, after: dict, run_name: str = "") -> pd.DataFrame:

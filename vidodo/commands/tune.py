@@ -12,7 +12,6 @@ import pandas as pd
 from ..errors import InputError
 from ..fit import FitRun, anchored_drift, drift_comparison, fit_profile, write_profile
 from ..logs import read_log
-from ..odometry import odometry_tracks
 from ..outputs import staged_dir
 from ..profiles import load_robot
 
@@ -192,9 +191,9 @@ def run(args) -> int:
     fit = fit_profile(runs, robot, window_s=args.window, fit_clock=not args.no_clock)
     tables = []
     for s, r, lg in zip(specs, runs, logs, strict=True):
-        before = anchored_drift(r, odometry_tracks(lg, robot))
+        before = anchored_drift(r, lg, robot)
         fixed_log = read_log(s[1], fit.corrected_robot)
-        after = anchored_drift(r, odometry_tracks(fixed_log, fit.corrected_robot))
+        after = anchored_drift(r, fixed_log, fit.corrected_robot)
         tables.append(drift_comparison(before, after, r.name))
     drift = pd.concat(tables, ignore_index=True) if tables else pd.DataFrame()
     with staged_dir(args.out) as stage:
