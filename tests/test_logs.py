@@ -13,6 +13,7 @@ from numpy.testing import assert_allclose, assert_array_equal
 
 from vidodo.errors import InputError
 from vidodo.logs import read_log, unwrap_counter
+from vidodo.odometry import rim_travel
 from vidodo.profiles import Imu, PoseColumns, RobotProfile, Wheel, load_robot
 
 FIX = Path(__file__).resolve().parents[1] / "fixtures"
@@ -94,6 +95,16 @@ def test_time_units_convert():
                                        for i, v in enumerate(t))
         log = read_log(csv(text), robot(time_unit=unit))
         assert_allclose(log.frame["t_s"], np.arange(5) * 0.005, rtol=1e-12)
+
+
+def test_semicolon_separated_with_byte_order_mark():
+    log = read_log(io.StringIO("\ufefft;el;er\n0;1;2\n0.01;2;3\n"), robot())
+    assert log.frame["ticks_left"].tolist() == [1, 2]
+
+
+def test_ragged_row_names_its_line():
+    with pytest.raises(InputError, match="line 3"):
+        read_log(csv("t,el,er\n0,1,2\n0.01,2,3,4,5\n0.02,3,4"), robot())
 
 
 def test_identical_times_with_different_values_are_ambiguous():
@@ -201,3 +212,32 @@ def test_property_counts_conserved(steps, start, bits, signed, dts, shuffle_seed
     assert_array_equal(np.diff(log.frame["ticks_left"]), np.diff(true))
     assert_array_equal(np.diff(log.frame["ticks_right"]), -np.diff(true))
     assert np.all(np.diff(log.frame["t_s"]) > 0)
+    # the wheel sign is applied downstream: both wheels roll forward by the same travel
+    rim = rim_travel(log, r.wheels)
+    assert_allclose(rim[:, 0], rim[:, 1], rtol=0, atol=0)
+    assert_allclose(rim[:, 0], np.diff(true) * r.wheels[0].metres_per_tick, rtol=1e-12)
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    steps=st.lists(st.integers(-1, 1), min_size=3, max_size=200),
+    dt_us=st.integers(20, 200000),
+    shuffle_seed=st.integers(0, 2**31 - 1),
+    dark=st.integers(0, 400),
+    light=st.integers(600, 4095),
+)
+def test_property_raw_channels_shuffled_rows(steps, dt_us, shuffle_seed, dark, light):
+    """Raw optical channels (any two reflectance levels, any sample rate), rows shuffled:
+    after sorting, the decoded counts equal the true state changes."""
+    r = load_robot(FIX / "robot_raw.toml")
+    pos = 1 + np.concatenate([[0], np.cumsum(steps)])
+    seq = np.array([(0, 0), (0, 1), (1, 1), (1, 0)])[pos % 4]
+    if len(set(seq[:, 0].tolist())) < 2 or len(set(seq[:, 1].tolist())) < 2:
+        return  # a channel that never changes carries no count information
+    lv = np.where(seq == 1, light, dark)
+    df = pd.DataFrame({"t_us": np.arange(pos.size) * dt_us, "la": lv[:, 0], "lb": lv[:, 1],
+                       "ra": lv[:, 0], "rb": lv[:, 1]})
+    df = df.iloc[np.random.default_rng(shuffle_seed).permutation(len(df))]
+    log = read_log(io.StringIO(df.to_csv(index=False)), r)
+    assert_array_equal(log.frame["ticks_left"], pos - pos[0])
+    assert_array_equal(log.frame["ticks_right"], pos - pos[0])

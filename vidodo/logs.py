@@ -140,7 +140,8 @@ def check_time_unit(t_raw, unit: str, *, where="log", column="time") -> None:
 
     def ok(u):
         f = TIME_UNITS_S[u]
-        return STEP_RANGE_S[0] <= step_raw * f <= STEP_RANGE_S[1] and span_raw * f <= MAX_SPAN_S
+        lo, hi = STEP_RANGE_S[0] * (1 - 1e-9), STEP_RANGE_S[1] * (1 + 1e-9)  # rounding slack
+        return lo <= step_raw * f <= hi and span_raw * f <= MAX_SPAN_S
 
     if ok(unit):
         return
@@ -214,13 +215,28 @@ def _fill(t, v_valid, valid):
     return out
 
 
+def _read_csv(path, where, sep):
+    try:
+        return pd.read_csv(path, sep=sep, skip_blank_lines=False, skipinitialspace=True,
+                           low_memory=False, encoding_errors="strict")
+    except FileNotFoundError:
+        raise InputError(f"{where}: file not found; check the path") from None
+    except pd.errors.EmptyDataError:
+        raise InputError(f"{where}: the file is empty; give a CSV with a header row") from None
+    except (pd.errors.ParserError, UnicodeDecodeError) as exc:
+        msg = str(exc).strip().splitlines()[0]
+        raise InputError(f"{where}: not a readable CSV ({msg}); save it as plain CSV") from None
+
+
 def read_log(path, robot: RobotProfile) -> LogData:
     """Read a robot log CSV as the robot profile describes it.
 
     Parameters
     ----------
     path : str, Path or file-like
-        The CSV file: a header row, then one row per sample.
+        The CSV file: a header row, then one row per sample. Commas separate the
+        columns; a file whose header holds none but semicolons, tabs or bars is read
+        with that separator.
     robot : RobotProfile
         Names the columns and their units.
 
@@ -235,16 +251,15 @@ def read_log(path, robot: RobotProfile) -> LogData:
         duplicated timestamps, implausible time unit, counter out of range.
     """
     where = str(path) if isinstance(path, str | Path) else getattr(path, "name", "log")
-    try:
-        raw = pd.read_csv(path, skip_blank_lines=False, skipinitialspace=True,
-                          low_memory=False)
-    except FileNotFoundError:
-        raise InputError(f"{where}: file not found; check the path") from None
-    except pd.errors.EmptyDataError:
-        raise InputError(f"{where}: the file is empty; give a CSV with a header row") from None
-    except (pd.errors.ParserError, UnicodeDecodeError) as exc:
-        raise InputError(f"{where}: not a readable CSV ({str(exc).strip()})") from None
-    raw.columns = [str(c).strip() for c in raw.columns]
+    raw = _read_csv(path, where, ",")
+    if len(raw.columns) == 1:  # semicolon- or tab-separated logs
+        head = str(raw.columns[0])
+        sep = max(";\t|", key=head.count)
+        if head.count(sep):
+            if hasattr(path, "seek"):
+                path.seek(0)
+            raw = _read_csv(path, where, sep)
+    raw.columns = [str(c).strip().lstrip("\ufeff") for c in raw.columns]
     log = log_from_frame(raw, robot, where=where,
                          lines=np.arange(2, len(raw) + 2, dtype=np.int64))
     p = Path(path) if isinstance(path, str | Path) else None
