@@ -385,6 +385,11 @@ class VideoReader:
             )
 
     @property
+    def last_frame_repeated(self) -> bool:
+        """True if the frame just handed out is identical to the one before it."""
+        return bool(self._identical and self._identical[-1])
+
+    @property
     def frames_read(self) -> int:
         """Frames handed out so far."""
         return len(self._t)

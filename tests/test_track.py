@@ -1,0 +1,427 @@
+"""Tests of vidodo.track: detection, floor pose, time, gaps, uncertainty, bad input.
+
+Frames are synthesised here with OpenCV alone (independent of vidodo's renderer): a
+marker image from ``cv2.aruco.generateImageMarker`` is warped onto a grey floor through
+the exact homography of a known pinhole camera (``K [r1 r2 t + h r3]``, Zhang 2000;
+Hartley & Zisserman, *Multiple View Geometry*, 2nd ed., eq. 8.1), with 4x supersampling
+for anti-aliased edges. A stand-in registration intersects camera rays with the plane at
+the marker height, using ``cv2.undistortPoints`` and ``cv2.projectPoints``.
+"""
+
+from __future__ import annotations
+
+import math
+import shutil
+import subprocess
+from types import SimpleNamespace
+
+import cv2
+import numpy as np
+import pandas as pd
+import pytest
+
+from vidodo.errors import TrackingError
+from vidodo.profiles import FieldProfile, Marker, RobotProfile
+from vidodo.track import (
+    TRACK_COLUMNS,
+    Detection,
+    MarkerDetector,
+    fit_pose,
+    load_track_csv,
+    save_track_csv,
+    track_frames,
+    track_video,
+)
+from vidodo.track import _finish as finish_track
+from vidodo.video import VideoTruncatedError
+
+W, H = 640, 480
+K = np.array([[700.0, 0, 319.5], [0, 700.0, 239.5], [0, 0, 1]])
+FIELD = FieldProfile(tiles_x=3, tiles_y=3, tile_size_m=0.6)
+
+
+def _look_at(centre, target):
+    z = np.asarray(target, float) - centre
+    z /= np.linalg.norm(z)
+    x = np.cross(z, [0, 0, 1.0])
+    x /= np.linalg.norm(x)
+    y = np.cross(z, x)
+    R = np.vstack([x, y, z])  # rows: camera axes in floor frame
+    return R, -R @ centre
+
+
+CAM_C = np.array([0.9, -1.1, 1.9])
+CAM_R, CAM_T = _look_at(CAM_C, [0.9, 0.9, 0.0])
+CAM_RVEC = cv2.Rodrigues(CAM_R)[0].ravel()
+
+
+class StandInRegistration:
+    """Known-camera registration: rays from the camera meet the plane z = height."""
+
+    ok = True
+    rms_px = 0.1
+    rms_floor_m = 0.0003
+    camera_matrix = K
+    dist_coeffs = np.zeros(5)
+    rvec = CAM_RVEC
+    tvec = CAM_T
+
+    def image_to_floor(self, points_px, height_m=0.0):
+        pts = np.asarray(points_px, float).reshape(-1, 1, 2)
+        n = cv2.undistortPoints(pts, K, self.dist_coeffs).reshape(-1, 2)
+        d = np.column_stack([n, np.ones(len(n))]) @ CAM_R  # R^T applied to rows
+        s = (height_m - CAM_C[2]) / d[:, 2]
+        return (CAM_C + s[:, None] * d)[:, :2]
+
+    def floor_to_image(self, points_m):
+        p = np.column_stack([np.asarray(points_m, float), np.zeros(len(points_m))])
+        return cv2.projectPoints(p, CAM_RVEC, CAM_T, K, self.dist_coeffs)[0].reshape(-1, 2)
+
+
+class StandInRegistrar:
+    def __init__(self):
+        self.calls = 0
+
+    def register(self, frame, t_s, mask=None):
+        self.calls += 1
+        return StandInRegistration()
+
+
+def _project(points3):
+    return cv2.projectPoints(np.asarray(points3, float), CAM_RVEC, CAM_T, K, None)[0].reshape(
+        -1, 2)
+
+
+def _marker_world(marker, pose):
+    """Floor corners (OpenCV order) of a marker on a robot at pose (x, y, heading)."""
+    s = marker.size_m / 2
+    loc = np.array([[-s, s], [s, s], [s, -s], [-s, -s]])
+    cy, sy = math.cos(marker.yaw_rad), math.sin(marker.yaw_rad)
+    body = loc @ np.array([[cy, sy], [-sy, cy]]) + (marker.x_m, marker.y_m)
+    x, y, th = pose
+    c, s_ = math.cos(th), math.sin(th)
+    floor = body @ np.array([[c, s_], [-s_, c]]) + (x, y)
+    return np.column_stack([floor, np.full(4, marker.z_m)])
+
+
+_TEXTURES = {}
+
+
+def _texture(marker, bits_px=24):
+    key = (marker.family, marker.id)
+    if key not in _TEXTURES:
+        d = cv2.aruco.getPredefinedDictionary(getattr(cv2.aruco, marker.family))
+        cells = d.markerSize + 2
+        img = cv2.aruco.generateImageMarker(d, marker.id, cells * bits_px, borderBits=1)
+        pad = 2 * bits_px
+        _TEXTURES[key] = (cv2.copyMakeBorder(img, pad, pad, pad, pad, cv2.BORDER_CONSTANT,
+                                             value=255), pad, cells * bits_px)
+    return _TEXTURES[key]
+
+
+def render(markers, pose, *, noise=2.0, rng=None, hidden=(), ss=4):
+    """A grey frame with the robot's markers at ``pose``; returns (frame, true corners)."""
+    big = np.full((H * ss, W * ss), 110, np.uint8)
+    A = np.array([[ss, 0, (ss - 1) / 2], [0, ss, (ss - 1) / 2], [0, 0, 1.0]])
+    truth = []
+    for m in markers:
+        world = _marker_world(m, pose)
+        img_corners = _project(world)
+        truth.append(img_corners)
+        if m.id in hidden:
+            continue
+        tex, pad, side = _texture(m)
+        src = np.array([[pad - 0.5, pad - 0.5], [pad + side - 0.5, pad - 0.5],
+                        [pad + side - 0.5, pad + side - 0.5], [pad - 0.5, pad + side - 0.5]],
+                       np.float32)
+        Hm = cv2.getPerspectiveTransform(src, img_corners.astype(np.float32))
+        Hb = A @ Hm
+        warped = cv2.warpPerspective(tex, Hb, (W * ss, H * ss), flags=cv2.INTER_LINEAR,
+                                     borderValue=0)
+        mask = cv2.warpPerspective(np.full(tex.shape, 255, np.uint8), Hb, (W * ss, H * ss),
+                                   flags=cv2.INTER_NEAREST, borderValue=0)
+        big[mask > 0] = warped[mask > 0]
+    small = cv2.resize(big, (W, H), interpolation=cv2.INTER_AREA).astype(float)
+    if rng is not None and noise > 0:
+        small += rng.normal(0, noise, small.shape)
+    frame = cv2.cvtColor(np.clip(small, 0, 255).astype(np.uint8), cv2.COLOR_GRAY2BGR)
+    return frame, truth
+
+
+def _robot(markers):
+    return RobotProfile(name="test", length_m=0.4, width_m=0.4, height_m=0.3,
+                        markers=tuple(markers), wheels=(), time_column="t")
+
+
+TAG = Marker(id=3, family="DICT_APRILTAG_36h11", size_m=0.12, x_m=0.05, y_m=-0.02,
+             z_m=0.25, yaw_rad=0.3)
+
+
+def _path(t):
+    """A smooth test path (made up): an ellipse with heading along the motion."""
+    x = 0.9 + 0.5 * np.cos(0.8 * t)
+    y = 0.9 + 0.35 * np.sin(0.8 * t)
+    th = np.arctan2(0.35 * 0.8 * np.cos(0.8 * t), -0.5 * 0.8 * np.sin(0.8 * t))
+    return x, y, np.unwrap(th)
+
+
+# ----------------------------------------------------------------- pose fitting
+def test_fit_pose_exact_with_height_correction():
+    """Exact projected corners give back the pose; mapping at the floor would not.
+
+    Reference: cv2.projectPoints (OpenCV) projects the true 3-D corners.
+    """
+    pose = (1.1, 0.7, 2.0)
+    corners = _project(_marker_world(TAG, pose))
+    fix = fit_pose([Detection(0, corners)], (TAG,), StandInRegistration())
+    assert fix.x_m == pytest.approx(pose[0], abs=1e-9)
+    assert fix.y_m == pytest.approx(pose[1], abs=1e-9)
+    assert fix.heading_rad == pytest.approx(pose[2], abs=1e-9)
+    assert fix.scale == pytest.approx(1.0, abs=1e-9)
+    assert fix.chi2_unit == pytest.approx(0.0, abs=1e-12)
+    flat = Marker(**{**TAG.__dict__, "z_m": 0.0})
+    wrong = fit_pose([Detection(0, corners)], (flat,), StandInRegistration())
+    # Parallax of a raised marker, error = d h / (C_z - h) (similar triangles): centimetres.
+    assert math.hypot(wrong.x_m - pose[0], wrong.y_m - pose[1]) > 0.1
+
+
+def test_fit_pose_covariance_matches_monte_carlo():
+    """The linearised covariance agrees with Monte-Carlo corner noise (sigma 1 px)."""
+    rng = np.random.default_rng(11)  # seed fixed: the statistics depend on it
+    pose = (0.6, 1.2, -0.4)
+    corners = _project(_marker_world(TAG, pose))
+    reg = StandInRegistration()
+    fix0 = fit_pose([Detection(0, corners)], (TAG,), reg)
+    samples = np.array([
+        [(f := fit_pose([Detection(0, corners + rng.normal(0, 1, (4, 2)))], (TAG,), reg)).x_m,
+         f.y_m, f.heading_rad]
+        for _ in range(800)
+    ])
+    emp = np.cov(samples.T)
+    assert np.sqrt(np.diag(emp)) == pytest.approx(np.sqrt(np.diag(fix0.cov_unit)), rel=0.12)
+    # chi^2 / dof of the fits estimates the corner variance (1 px^2).
+    chi = [fit_pose([Detection(0, corners + rng.normal(0, 1, (4, 2)))], (TAG,), reg)
+           for _ in range(300)]
+    assert np.mean([c.chi2_unit for c in chi]) / chi[0].dof == pytest.approx(1.0, rel=0.15)
+
+
+# -------------------------------------------------------------------- detection
+def test_corners_agree_with_apriltag3():
+    """cv2.aruco corners (vidodo's default refinement) agree with AprilTag 3.
+
+    The independent detector is the AprilTag 3 C library through pupil_apriltags.
+    SUBPIX and CONTOUR are compared in benchmarks/track_accuracy.py: with cells of
+    about 4 px, as here, they are several times less accurate.
+
+    AprilTag puts pixel centres at (0.5, 0.5), OpenCV at (0, 0) (AprilRobotics/apriltag
+    issue 121), so 0.5 px is subtracted from AprilTag's corners before comparing.
+    """
+    apriltags = pytest.importorskip("pupil_apriltags")
+    at = apriltags.Detector(families="tag36h11", quad_decimate=1.0, refine_edges=True)
+    det = MarkerDetector((TAG,), refine="apriltag")
+    rng = np.random.default_rng(5)
+    diffs, truth_err = [], []
+    for pose in [(0.5, 0.6, 0.2), (1.3, 1.4, 2.5), (0.9, 0.3, -1.2), (1.5, 0.8, 4.0)]:
+        frame, truth = render((TAG,), pose, rng=rng)
+        gray = cv2.cvtColor(frame, cv2.COLOR_BGR2GRAY)
+        ours = det.detect(frame)
+        theirs = [d for d in at.detect(gray) if d.tag_id == TAG.id]
+        assert len(ours) == 1 and len(theirs) == 1
+        c_at = np.asarray(theirs[0].corners, float) - 0.5
+        c_cv = ours[0].corners_px
+        # Match corners by proximity (the two libraries list them in different orders).
+        d = np.linalg.norm(c_cv[:, None] - c_at[None], axis=2)
+        diffs.extend(d.min(axis=1))
+        truth_err.extend(np.linalg.norm(c_cv - truth[0], axis=1))
+    assert np.mean(diffs) < 0.5
+    assert np.mean(truth_err) < 0.5
+
+
+def test_wrong_ids_ignored_and_listed():
+    """Only the robot's (family, id) counts; a missing marker error lists seen IDs."""
+    other = Marker(id=7, family="DICT_APRILTAG_36h11", size_m=0.12, z_m=0.25)
+    frames = [(i, i / 30, render((other,), (0.9, 0.9, 0.1 * i))[0]) for i in range(3)]
+    acc = track_frames(frames, _robot([TAG]), FIELD, StandInRegistrar())
+    assert all(f is None for f in acc.fix)
+    with pytest.raises(TrackingError, match=r"DICT_APRILTAG_36h11:7"):
+        finish_track(acc, _robot([TAG]), None, None, readout_s=0.0, readout_source="none",
+                     max_gap_s=0.25, corner_sigma_px=None, field_profile=FIELD, warnings=[])
+
+
+# ---------------------------------------------------------------- whole tracking
+def _sequence(markers, n=45, fps=30.0, hidden=None, seed=1):
+    rng = np.random.default_rng(seed)
+    t = np.arange(n) / fps
+    x, y, th = _path(t)
+    frames = []
+    for i in range(n):
+        hid = hidden(i) if hidden else ()
+        frames.append((i, float(t[i]), render(markers, (x[i], y[i], th[i]), rng=rng,
+                                              hidden=hid)[0]))
+    return t, np.column_stack([x, y, th]), frames
+
+
+def _track(markers, frames, **kw):
+    robot = _robot(markers)
+    acc = track_frames(iter(frames), robot, FIELD, StandInRegistrar(), **kw)
+    return finish_track(acc, robot, None, None, readout_s=0.0, readout_source="given",
+                        max_gap_s=0.25, corner_sigma_px=None, field_profile=FIELD,
+                        warnings=[])
+
+
+@pytest.fixture(scope="module")
+def single_tag_run():
+    t, truth, frames = _sequence((TAG,), hidden=lambda i: (3,) if 20 <= i < 23 else ())
+    return truth, _track((TAG,), frames)
+
+
+def test_track_accuracy_and_short_gap(single_tag_run):
+    """Position within a few mm of the synthetic truth; 3 hidden frames bridged."""
+    truth, res = single_tag_run
+    tr = res.track
+    assert list(tr.columns) == TRACK_COLUMNS
+    err = np.hypot(tr.x_m - truth[:, 0], tr.y_m - truth[:, 1])
+    assert np.sqrt(np.mean(err**2)) < 0.002
+    assert np.degrees(np.sqrt(np.mean((tr.heading_rad - truth[:, 2]) ** 2))) < 0.5
+    assert tr.detected.sum() == 42 and tr.interpolated[20:23].all()
+    assert not tr.interpolated[tr.detected].any()
+    # Velocity against the analytic derivative of the path (interior samples).
+    tt = tr.t_s.to_numpy()
+    vx_true = -0.5 * 0.8 * np.sin(0.8 * tt)
+    assert np.sqrt(np.mean((tr.vx_mps[5:-5] - vx_true[5:-5]) ** 2)) < 0.03
+    q = res.quality
+    assert q["detected_frames"] == 42 and q["long_gaps"] == []
+    assert 2 < q["marker_cell_px_min"] <= q["marker_cell_px_median"] < 6
+    assert 0.02 < q["corner_sigma_px"] < 1.0
+
+
+def test_sigma_is_a_plausible_error_bound(single_tag_run):
+    """Most samples lie within 2 sigma (radial RMS sigma; Gaussian: about 95-98%)."""
+    truth, res = single_tag_run
+    tr = res.track
+    err = np.hypot(tr.x_m - truth[:, 0], tr.y_m - truth[:, 1])
+    assert np.mean(err <= 2 * tr.sigma_xy_m) > 0.8
+    assert np.all(tr.sigma_xy_m < 0.01)
+
+
+def test_long_gap_left_empty_and_reported():
+    """A 0.4 s occlusion (> max_gap_s) is NaN, not invented, and reported."""
+    t, truth, frames = _sequence((TAG,), n=40, hidden=lambda i: (3,) if 10 <= i < 22 else ())
+    res = _track((TAG,), frames)
+    tr = res.track
+    assert tr.x_m[10:22].isna().all() and not tr.interpolated[10:22].any()
+    assert tr.x_m[:10].notna().all() and tr.x_m[22:].notna().all()
+    assert res.quality["long_gaps"][0]["first_frame"] == 10
+    assert any("untracked gaps" in w for w in res.warnings)
+
+
+def test_rigid_marker_set_survives_occlusion():
+    """Two markers with known offsets: one hidden, the pose continues without a jump."""
+    a = Marker(id=1, family="DICT_4X4_50", size_m=0.09, x_m=0.1, y_m=0.0, z_m=0.2)
+    b = Marker(id=2, family="DICT_4X4_50", size_m=0.09, x_m=-0.1, y_m=0.0, z_m=0.2,
+               yaw_rad=math.pi / 2)
+    t, truth, frames = _sequence((a, b), n=30, hidden=lambda i: (2,) if i >= 15 else ())
+    res = _track((a, b), frames)
+    tr = res.track
+    err = np.hypot(tr.x_m - truth[:, 0], tr.y_m - truth[:, 1])
+    assert tr.detected.all()
+    assert err.max() < 0.004
+    assert np.degrees(np.abs(tr.heading_rad - truth[:, 2]).max()) < 1.0
+
+
+def test_window_search_equals_full_search():
+    """Searching a predicted window finds the same corners as the whole frame."""
+    t, truth, frames = _sequence((TAG,), n=12)
+    win = _track((TAG,), frames, window=True)
+    full = _track((TAG,), frames, window=False)
+    assert win.quality["window_searches"] >= 10
+    np.testing.assert_allclose(win.track.x_m, full.track.x_m, atol=1e-9)
+
+
+def test_rolling_shutter_correction():
+    """A marker in row v is seen at t + (v/H) readout; correcting removes the lag.
+
+    Model: Ringaby & Forssen, IJCV 96:335, 2012 (row-wise readout).
+    """
+    readout = 0.03
+    n = 36
+    rng = np.random.default_rng(2)
+    t = np.arange(n) / 30.0
+    frames, truth_frame = [], []
+    for i in range(n):
+        te = t[i]
+        for _ in range(3):  # fixed point: the row depends on the pose at the read time
+            x, y, th = (v[0] for v in _path(np.array([te])))
+            v_row = np.mean(_project(_marker_world(TAG, (x, y, th)))[:, 1])
+            te = t[i] + v_row / H * readout
+        frames.append((i, float(t[i]), render((TAG,), (x, y, th), rng=rng)[0]))
+        truth_frame.append([v[0] for v in _path(np.array([t[i]]))])
+    truth_frame = np.array(truth_frame)
+    robot = _robot([TAG])
+    results = {}
+    for ro in (0.0, readout):
+        acc = track_frames(iter(frames), robot, FIELD, StandInRegistrar())
+        results[ro] = finish_track(acc, robot, None, None, readout_s=ro,
+                                   readout_source="given", max_gap_s=0.25,
+                                   corner_sigma_px=None, field_profile=FIELD, warnings=[])
+    e = {ro: np.hypot(r.track.x_m - truth_frame[:, 0], r.track.y_m - truth_frame[:, 1])[3:-3]
+         for ro, r in results.items()}
+    assert np.sqrt(np.mean(e[readout] ** 2)) < 0.5 * np.sqrt(np.mean(e[0.0] ** 2))
+    assert np.sqrt(np.mean(e[readout] ** 2)) < 0.002
+
+
+def test_csv_round_trip(tmp_path, single_tag_run):
+    _truth, res = single_tag_run
+    path = tmp_path / "track.csv"
+    save_track_csv(res, path)
+    back = load_track_csv(path)
+    assert list(back.columns) == TRACK_COLUMNS
+    pd.testing.assert_series_equal(back.detected, res.track.detected)
+    np.testing.assert_allclose(back.x_m, res.track.x_m, rtol=1e-8)
+
+
+def test_small_marker_warning():
+    """Cells under 3 px give a warning naming a marker size that would fix it."""
+    tiny = Marker(id=3, family="DICT_APRILTAG_36h11", size_m=0.045, z_m=0.25)
+    t, truth, frames = _sequence((tiny,), n=6)
+    res = _track((tiny,), frames)
+    assert res.quality["marker_cell_px_field_min"] < 3
+    assert any("use a marker of at least" in w for w in res.warnings)
+
+
+# ------------------------------------------------------------ through a video file
+def _encode(frames, path, fps=30):
+    proc = subprocess.Popen(
+        ["ffmpeg", "-loglevel", "error", "-y", "-f", "rawvideo", "-pix_fmt", "bgr24",
+         "-s", f"{W}x{H}", "-r", str(fps), "-i", "-", "-c:v", "libx264", "-crf", "12",
+         "-pix_fmt", "yuv420p", "-movflags", "+faststart", str(path)],
+        stdin=subprocess.PIPE,
+    )
+    for _i, _t, f in frames:
+        proc.stdin.write(f.tobytes())
+    proc.stdin.close()
+    assert proc.wait() == 0
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(shutil.which("ffmpeg") is None, reason="needs ffmpeg")
+def test_track_video_and_truncated_file(tmp_path):
+    """Whole path through an H.264 file; a truncated copy keeps the track up to the cut."""
+    t, truth, frames = _sequence((TAG,), n=60)
+    video = tmp_path / "clip.mp4"
+    _encode(frames, video)
+    robot = _robot([TAG])
+    cam = SimpleNamespace(readout_s=0.0, width_px=W, height_px=H)
+    res = track_video(video, robot, FIELD, cam, registrar=StandInRegistrar())
+    err = np.hypot(res.track.x_m - truth[:, 0], res.track.y_m - truth[:, 1])
+    assert len(res.track) == 60 and res.track.detected.all()
+    assert np.sqrt(np.mean(err**2)) < 0.003
+    np.testing.assert_allclose(res.track.t_s, t, atol=1e-3)
+    data = video.read_bytes()
+    cut = tmp_path / "cut.mp4"
+    cut.write_bytes(data[: int(len(data) * 0.6)])
+    with pytest.raises(VideoTruncatedError, match="stopped at frame") as info:
+        track_video(cut, robot, FIELD, cam, registrar=StandInRegistrar())
+    part = info.value.partial
+    assert part is not None and 10 < len(part.track) < 60
+    assert part.track.detected.mean() > 0.9

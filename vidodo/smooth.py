@@ -1,0 +1,203 @@
+"""Rauch-Tung-Striebel smoothing of irregularly timed measurements.
+
+Each signal (x, y, heading) is modelled as a constant-acceleration process driven by
+white jerk of spectral density ``q`` (Bar-Shalom, Li & Kirubarajan, *Estimation with
+Applications to Tracking and Navigation*, 2001, section 6.2.3). A forward Kalman filter
+runs over the merged, sorted measurement and output times; the Rauch-Tung-Striebel
+backward pass (Rauch, Tung & Striebel, AIAA J. 3(8):1445, 1965) gives the smoothed
+value, rate and acceleration with their variances at every output time.
+
+The jerk density and a factor on the measurement variances are chosen per signal by
+maximum likelihood of the filter's innovations over a grid, so nothing is tuned to one
+robot or one camera.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["SmoothedSignal", "smooth_ca", "Q_GRID", "R_SCALE_GRID"]
+
+Q_GRID = np.logspace(-4, 4, 17)
+"""Default jerk spectral densities tried [unit^2/s^5]."""
+R_SCALE_GRID = np.array([1.0, 1.5, 2.25, 3.5, 5.0])
+"""Default factors on the given measurement variances tried (never below 1)."""
+
+
+@dataclass(frozen=True)
+class SmoothedSignal:
+    """Smoothed value, rate and acceleration of one signal at the output times."""
+
+    value: np.ndarray
+    """Smoothed value at each output time [unit]."""
+    rate: np.ndarray
+    """First derivative [unit/s]."""
+    accel: np.ndarray
+    """Second derivative [unit/s^2]."""
+    sigma_value: np.ndarray
+    """1-sigma of ``value`` [unit]."""
+    sigma_rate: np.ndarray
+    """1-sigma of ``rate`` [unit/s]."""
+    q: float
+    """Jerk spectral density used [unit^2/s^5]."""
+    r_scale: float
+    """Factor applied to the measurement variances."""
+
+
+def _transition(dt, q):
+    """F (B,3,3) and Q (B,3,3) of the constant-acceleration model for steps dt."""
+    dt = np.asarray(dt, dtype=float)
+    b = dt.shape[0]
+    F = np.zeros((b, 3, 3))
+    F[:, 0, 0] = F[:, 1, 1] = F[:, 2, 2] = 1.0
+    F[:, 0, 1] = F[:, 1, 2] = dt
+    F[:, 0, 2] = 0.5 * dt**2
+    d2, d3, d4, d5 = dt**2, dt**3, dt**4, dt**5
+    Q = np.empty((b, 3, 3))
+    Q[:, 0, 0] = d5 / 20
+    Q[:, 0, 1] = Q[:, 1, 0] = d4 / 8
+    Q[:, 0, 2] = Q[:, 2, 0] = d3 / 6
+    Q[:, 1, 1] = d3 / 3
+    Q[:, 1, 2] = Q[:, 2, 1] = d2 / 2
+    Q[:, 2, 2] = dt
+    return F, Q * np.asarray(q, dtype=float)[:, None, None]
+
+
+def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True):
+    """Filter (and smooth) B parallel models over one event sequence.
+
+    Parameters
+    ----------
+    t : ndarray (T,)
+        Event times, sorted.
+    z, var_z : ndarray (T,)
+        Measurement and its variance (ignored where ``is_meas`` is False).
+    is_meas : ndarray of bool (T,)
+    q, r_scale : ndarray (B,)
+        Model parameters of the B parallel filters.
+
+    Returns
+    -------
+    loglik : ndarray (B,)
+    xs, Ps : ndarray (T, B, 3), (T, B, 3, 3) when ``smooth``
+    """
+    T = t.size
+    B = q.size
+    first = int(np.flatnonzero(is_meas)[0])
+    x = np.zeros((B, 3))
+    x[:, 0] = z[first]
+    P = np.zeros((B, 3, 3))
+    P[:, 0, 0] = var_z[first] * r_scale * 1e4 + 1e-12
+    P[:, 1, 1] = prior_rate**2
+    P[:, 2, 2] = prior_accel**2
+    loglik = np.zeros(B)
+    if smooth:
+        xf = np.empty((T, B, 3))
+        Pf = np.empty((T, B, 3, 3))
+        xp_all = np.empty((T, B, 3))
+        Pp_all = np.empty((T, B, 3, 3))
+        Fs = np.empty((T, 3, 3))
+    prev_t = t[0]
+    for k in range(T):
+        dt = t[k] - prev_t
+        prev_t = t[k]
+        if dt > 0:
+            F, Q = _transition(np.full(B, dt), q)
+            x = np.einsum("bij,bj->bi", F, x)
+            P = F @ P @ F.transpose(0, 2, 1) + Q
+            F0 = F[0]
+        else:
+            F0 = np.eye(3)
+        if smooth:
+            xp_all[k] = x
+            Pp_all[k] = P
+            Fs[k] = F0
+        if is_meas[k]:
+            r = var_z[k] * r_scale
+            S = P[:, 0, 0] + r
+            y = z[k] - x[:, 0]
+            K = P[:, :, 0] / S[:, None]
+            x = x + K * y[:, None]
+            P = P - K[:, :, None] * P[:, 0, :][:, None, :]
+            P = 0.5 * (P + P.transpose(0, 2, 1))
+            loglik -= 0.5 * (np.log(2 * np.pi * S) + y * y / S)
+        if smooth:
+            xf[k] = x
+            Pf[k] = P
+    if not smooth:
+        return loglik, None, None
+    xs = np.empty_like(xf)
+    Ps = np.empty_like(Pf)
+    xs[-1] = xf[-1]
+    Ps[-1] = Pf[-1]
+    for k in range(T - 2, -1, -1):
+        Ppn = Pp_all[k + 1]
+        F = Fs[k + 1]
+        # C = Pf F^T Ppn^-1, computed by a solve: Ppn C^T = F Pf
+        C = np.linalg.solve(Ppn, np.einsum("ij,bjk->bik", F, Pf[k])).transpose(0, 2, 1)
+        xs[k] = xf[k] + np.einsum("bij,bj->bi", C, xs[k + 1] - xp_all[k + 1])
+        Ps[k] = Pf[k] + C @ (Ps[k + 1] - Ppn) @ C.transpose(0, 2, 1)
+    return loglik, xs, Ps
+
+
+def smooth_ca(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None, q_grid=Q_GRID,
+              r_scale_grid=R_SCALE_GRID, prior_rate=5.0, prior_accel=20.0):
+    """Smooth one signal measured at irregular times and evaluate it at other times.
+
+    Parameters
+    ----------
+    t_meas_s : array_like (M,)
+        Measurement times [s]; need not be sorted or on the output grid.
+    z : array_like (M,)
+        Measurements [unit].
+    sigma_z : array_like (M,)
+        1-sigma of each measurement [unit].
+    t_out_s : array_like (N,)
+        Times at which to report the smoothed signal [s].
+    q, r_scale : float, optional
+        Fix the jerk density [unit^2/s^5] or the measurement-variance factor instead of
+        choosing them by maximum likelihood over ``q_grid`` x ``r_scale_grid``.
+    prior_rate, prior_accel : float
+        1-sigma of the initial rate [unit/s] and acceleration [unit/s^2].
+
+    Returns
+    -------
+    SmoothedSignal
+    """
+    tm = np.asarray(t_meas_s, dtype=float)
+    zm = np.asarray(z, dtype=float)
+    vm = np.asarray(sigma_z, dtype=float) ** 2
+    to = np.asarray(t_out_s, dtype=float)
+    if tm.size == 0:
+        raise ValueError("smooth_ca: no measurements")
+    t = np.concatenate([tm, to])
+    zz = np.concatenate([zm, np.zeros(to.size)])
+    vv = np.concatenate([vm, np.ones(to.size)])
+    meas = np.concatenate([np.ones(tm.size, bool), np.zeros(to.size, bool)])
+    order = np.lexsort((~meas, t))  # measurements first when times tie
+    t, zz, vv, meas = t[order], zz[order], vv[order], meas[order]
+    qs = np.atleast_1d(q_grid if q is None else q).astype(float)
+    rs = np.atleast_1d(r_scale_grid if r_scale is None else r_scale).astype(float)
+    if qs.size * rs.size > 1:
+        gq, gr = np.meshgrid(qs, rs, indexing="ij")
+        ll, _, _ = _run(t[meas], zz[meas], vv[meas], np.ones(meas.sum(), bool),
+                        gq.ravel(), gr.ravel(), prior_rate, prior_accel, smooth=False)
+        best = int(np.argmax(ll))
+        q_best, r_best = float(gq.ravel()[best]), float(gr.ravel()[best])
+    else:
+        q_best, r_best = float(qs[0]), float(rs[0])
+    _, xs, Ps = _run(t, zz, vv, meas, np.array([q_best]), np.array([r_best]),
+                     prior_rate, prior_accel, smooth=True)
+    where = np.empty(order.size, dtype=int)
+    where[order] = np.arange(order.size)
+    out_pos = where[tm.size:]
+    x = xs[out_pos, 0]
+    P = Ps[out_pos, 0]
+    return SmoothedSignal(
+        value=x[:, 0], rate=x[:, 1], accel=x[:, 2],
+        sigma_value=np.sqrt(np.maximum(P[:, 0, 0], 0.0)),
+        sigma_rate=np.sqrt(np.maximum(P[:, 1, 1], 0.0)),
+        q=q_best, r_scale=r_best,
+    )

@@ -1,0 +1,857 @@
+"""Robot tracking: the fiducial(s) on the robot become a time-stamped floor pose track.
+
+Per frame: detect the robot's markers with OpenCV's ``ArucoDetector`` in a window
+around where they are predicted (falling back to the whole frame), refine the corners
+to sub-pixel accuracy, map them to the floor through the frame's registration on the
+plane at each marker's height (``FrameRegistration.image_to_floor(..., height_m)``),
+and fit the robot's planar pose to all visible corners at once (a rigid least-squares
+fit, Umeyama, IEEE TPAMI 13(4):376, 1991, without scale). Each detection is timed at
+its frame's presentation time plus the rolling-shutter delay of the rows it sits in.
+
+After the video: the corner noise is estimated from the fit residuals of the whole
+run, and a Rauch-Tung-Striebel smoother (:mod:`vidodo.smooth`) turns the detections
+into position, velocity and acceleration at every frame time, with a 1-sigma that
+adds the registration error. Short gaps are bridged and flagged, long gaps left NaN.
+
+Only a few frames are held at once (see :class:`vidodo.video.VideoReader`).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import cv2
+import numpy as np
+import pandas as pd
+
+from .errors import InputError, TrackingError
+from .profiles import marker_corners_local
+from .smooth import smooth_ca
+from .video import VideoReader, VideoTruncatedError, readout_fraction
+
+__all__ = [
+    "TRACK_COLUMNS",
+    "TrackResult",
+    "MarkerDetector",
+    "PoseFix",
+    "fit_pose",
+    "track_frames",
+    "track_video",
+    "save_track_csv",
+    "load_track_csv",
+    "REFINE_METHODS",
+]
+
+TRACK_COLUMNS = [
+    "t_s", "x_m", "y_m", "heading_rad", "sigma_xy_m", "sigma_heading_rad", "vx_mps",
+    "vy_mps", "speed_mps", "omega_radps", "ax_mps2", "ay_mps2", "detected", "interpolated",
+]
+REGISTRATION_COLUMNS = ["t_s", "ok", "rms_px", "rms_floor_m", "fresh"]
+
+REFINE_METHODS = {
+    "none": cv2.aruco.CORNER_REFINE_NONE,
+    "subpix": cv2.aruco.CORNER_REFINE_SUBPIX,
+    "contour": cv2.aruco.CORNER_REFINE_CONTOUR,
+    "apriltag": cv2.aruco.CORNER_REFINE_APRILTAG,
+}
+
+MIN_CELL_PX = 3.0
+"""Marker cell width (square root of the marker's image area / cells across) below
+which detection becomes unreliable [px] (common practice; with motion blur, markers of
+24 px or less were mostly missed in our measurements, domain notes section 1)."""
+
+
+# ----------------------------------------------------------------------- results
+@dataclass(frozen=True)
+class TrackResult:
+    """The truth track of one video and how far to trust it."""
+
+    track: pd.DataFrame
+    """One row per video frame, columns :data:`TRACK_COLUMNS` (SI units, floor frame;
+    ``sigma_xy_m`` is the RMS of the position error magnitude)."""
+    quality: dict
+    """Frames, detection fraction, marker cell size [px], gaps, dropped/duplicated
+    frames, registration statistics, readout time [s], corner noise [px]."""
+    warnings: list = field(default_factory=list)
+    """Plain-language warnings about anything that makes the track less certain."""
+    registrations: pd.DataFrame | None = None
+    """Per frame: t_s, ok, rms_px, rms_floor_m of the registration in effect, and
+    ``fresh`` (registered on this very frame)."""
+
+
+# --------------------------------------------------------------------- detection
+@dataclass(frozen=True)
+class Detection:
+    """One robot marker found in one frame."""
+
+    marker_index: int
+    """Index into ``robot.markers``."""
+    corners_px: np.ndarray
+    """Corners in OpenCV order (TL, TR, BR, BL), ndarray of shape (4, 2) [px]."""
+
+
+def _dictionary(family: str):
+    code = getattr(cv2.aruco, family, None) if family.startswith("DICT_") else None
+    if code is None:
+        raise InputError(
+            f"marker family {family!r} is not an OpenCV predefined dictionary; use a name "
+            "like 'DICT_4X4_50' or 'DICT_APRILTAG_36h11' in the robot profile"
+        )
+    return cv2.aruco.getPredefinedDictionary(code)
+
+
+class MarkerDetector:
+    """Finds a robot's markers in frames, ignoring every other ID.
+
+    Parameters
+    ----------
+    markers : sequence of profiles.Marker
+        The robot's markers (any mix of families).
+    refine : {'apriltag', 'subpix', 'contour', 'none'}
+        OpenCV corner refinement. ``useAruco3Detection`` is never enabled, because it
+        silently skips refinement. The AprilTag refinement returns corners in the
+        AprilTag convention (pixel centres at 0.5, AprilRobotics/apriltag issue 121);
+        they are shifted by -0.5 px to OpenCV's convention.
+    """
+
+    def __init__(self, markers, *, refine="apriltag"):
+        if not markers:
+            raise InputError("the robot profile lists no [[marker]]; add the robot's marker")
+        if refine not in REFINE_METHODS:
+            raise InputError(f"refine = {refine!r}; use one of {sorted(REFINE_METHODS)}")
+        self.markers = tuple(markers)
+        self.refine = refine
+        self._lookup = {}
+        self._detectors = {}
+        self._coarse = {}
+        self.cells = {}
+        self._shift = -0.5 if refine == "apriltag" else 0.0
+        for i, m in enumerate(self.markers):
+            key = (m.family, int(m.id))
+            if key in self._lookup:
+                raise InputError(
+                    f"marker {m.family} id {m.id} is listed twice in the robot profile")
+            self._lookup[key] = i
+            if m.family not in self._detectors:
+                d = _dictionary(m.family)
+                params = cv2.aruco.DetectorParameters()
+                params.cornerRefinementMethod = REFINE_METHODS[refine]
+                params.useAruco3Detection = False
+                params.minMarkerPerimeterRate = 0.01
+                self._detectors[m.family] = cv2.aruco.ArucoDetector(d, params)
+                coarse = cv2.aruco.DetectorParameters()
+                coarse.minMarkerPerimeterRate = 0.01
+                self._coarse[m.family] = cv2.aruco.ArucoDetector(d, coarse)
+                self.cells[m.family] = d.markerSize + 2 * params.markerBorderBits
+        self.ids_seen: dict[tuple[str, int], int] = {}
+        """Every (family, id) seen so far with its frame count, robot's or not."""
+
+    def cells_across(self, marker_index: int) -> int:
+        """Cells across the black square of a marker (bits + 2 border cells)."""
+        return self.cells[self.markers[marker_index].family]
+
+    def detect(self, frame, roi=None, *, coarse=False):
+        """Detect the robot's markers in ``frame`` (optionally only inside ``roi``).
+
+        Parameters
+        ----------
+        frame : ndarray
+            BGR or grey image.
+        roi : tuple of int, optional
+            ``(u0, v0, u1, v1)`` window to search [px].
+        coarse : bool
+            Skip corner refinement (a fast whole-frame search to find a window).
+
+        Returns
+        -------
+        list of Detection
+            At most one per robot marker (the largest if an ID appears twice).
+        """
+        u0 = v0 = 0
+        img = frame
+        if roi is not None:
+            u0, v0, u1, v1 = roi
+            img = frame[v0:v1, u0:u1]
+        if img.ndim == 3:
+            img = cv2.cvtColor(img, cv2.COLOR_BGR2GRAY)
+        found: dict[int, np.ndarray] = {}
+        shift = 0.0 if coarse else self._shift
+        for family, det in (self._coarse if coarse else self._detectors).items():
+            corners, ids, _rej = det.detectMarkers(img)
+            if ids is None:
+                continue
+            for c, mid in zip(corners, ids.ravel(), strict=True):
+                key = (family, int(mid))
+                self.ids_seen[key] = self.ids_seen.get(key, 0) + 1
+                idx = self._lookup.get(key)
+                if idx is None:
+                    continue
+                pts = c.reshape(4, 2).astype(np.float64) + (u0 + shift, v0 + shift)
+                if idx in found and _area(found[idx]) >= _area(pts):
+                    continue
+                found[idx] = pts
+        return [Detection(i, found[i]) for i in sorted(found)]
+
+
+def _area(pts):
+    a, b = pts[2] - pts[0], pts[3] - pts[1]
+    return 0.5 * abs(float(a[0] * b[1] - a[1] * b[0]))
+
+
+# ------------------------------------------------------------------- pose fitting
+@dataclass(frozen=True)
+class PoseFix:
+    """The robot pose fitted to one frame's marker corners."""
+
+    x_m: float
+    y_m: float
+    heading_rad: float
+    cov_unit: np.ndarray
+    """Covariance of (x, y, heading) for 1 px corner noise, shape (3, 3) [m, rad]."""
+    chi2_unit: float
+    """Sum of squared residuals whitened for 1 px corner noise [px^2]."""
+    dof: int
+    """Residual degrees of freedom (2 x corners - 3)."""
+    scale: float
+    """Size of the marker set seen / size in the profile (1 if sizes are right)."""
+
+
+def _body_corners(marker):
+    """Marker corners in the body frame, ndarray of shape (4, 2) [m]."""
+    loc = marker_corners_local(marker.size_m)
+    c, s = math.cos(marker.yaw_rad), math.sin(marker.yaw_rad)
+    return loc @ np.array([[c, s], [-s, c]]) + (marker.x_m, marker.y_m)
+
+
+def fit_pose(detections, markers, registration) -> PoseFix | None:
+    """Fit the robot's floor pose to the corners of its markers in one frame.
+
+    Each corner is mapped to the floor on the plane at its marker's height, then the
+    body-frame corner layout is fitted to them by rigid least squares (Umeyama 1991
+    without scale; the scale is kept only as a diagnostic). The covariance comes from
+    the local image-to-floor Jacobian of each corner (finite differences of 1 px).
+
+    Parameters
+    ----------
+    detections : list of Detection
+    markers : sequence of profiles.Marker
+    registration : FrameRegistration
+        Must provide ``image_to_floor(points_px, height_m)``.
+
+    Returns
+    -------
+    PoseFix or None
+        None if the corners could not be mapped to the floor.
+    """
+    body, floor, jac = [], [], []
+    for d in detections:
+        m = markers[d.marker_index]
+        pts = np.vstack([d.corners_px, d.corners_px + (1.0, 0.0), d.corners_px + (0.0, 1.0)])
+        f = np.asarray(registration.image_to_floor(pts, height_m=m.z_m), dtype=float)
+        if f.shape != (12, 2) or not np.all(np.isfinite(f)):
+            return None
+        body.append(_body_corners(m))
+        floor.append(f[:4])
+        jac.append(np.stack([f[4:8] - f[:4], f[8:12] - f[:4]], axis=2))  # d floor / d (u, v)
+    b = np.vstack(body)
+    p = np.vstack(floor)
+    J = np.concatenate(jac)  # (N, 2, 2)
+    mb, mp = b.mean(0), p.mean(0)
+    bc, pc = b - mb, p - mp
+    sxx = float(np.sum(bc[:, 0] * pc[:, 0] + bc[:, 1] * pc[:, 1]))
+    sxy = float(np.sum(bc[:, 0] * pc[:, 1] - bc[:, 1] * pc[:, 0]))
+    th = math.atan2(sxy, sxx)
+    c, s = math.cos(th), math.sin(th)
+    R = np.array([[c, -s], [s, c]])
+    t = mp - R @ mb
+    scale = math.hypot(sxx, sxy) / max(float(np.sum(bc * bc)), 1e-300)
+    rb = b @ R.T
+    resid = rb + t - p
+    # Whitened linearised least squares: corner noise 1 px -> floor covariance J J^T.
+    cov_pts = J @ J.transpose(0, 2, 1)
+    try:
+        W = np.linalg.inv(cov_pts)
+    except np.linalg.LinAlgError:
+        return None
+    A = np.zeros((len(b), 2, 3))
+    A[:, 0, 0] = A[:, 1, 1] = 1.0
+    A[:, 0, 2] = -rb[:, 1]
+    A[:, 1, 2] = rb[:, 0]
+    info = np.einsum("nji,njk,nkl->il", A, W, A)
+    try:
+        cov = np.linalg.inv(info)
+    except np.linalg.LinAlgError:
+        return None
+    chi2 = float(np.einsum("ni,nij,nj->", resid, W, resid))
+    return PoseFix(float(t[0]), float(t[1]), th, cov, chi2, 2 * len(b) - 3, scale)
+
+
+# ------------------------------------------------------------ registration policy
+class _RegistrationPolicy:
+    """Decides when to register the floor again and keeps the one in effect.
+
+    ``every`` = int registers every that many frames. ``'auto'`` registers every frame
+    until consecutive registrations agree within ``still_px`` (the camera is still),
+    then checks every ``still_stride`` frames and goes back to every frame as soon as
+    the view has moved.
+    """
+
+    def __init__(self, registrar, field_profile, every="auto", still_px=0.5, still_stride=15):
+        self.registrar = registrar
+        self.every = every
+        self.still_px = still_px
+        self.still_stride = still_stride
+        self.current = None
+        self.last_index = -(10**9)
+        self.still = False
+        self.moved_count = 0
+        self.registered = 0
+        self.failures: dict[str, int] = {}
+        fx, fy = field_profile.size_m
+        self._probe = np.array([[0, 0], [fx, 0], [fx, fy], [0, fy], [fx / 2, fy / 2]], float)
+
+    def due(self, index) -> bool:
+        if self.current is None:
+            return True
+        if self.every != "auto":
+            return index - self.last_index >= int(self.every)
+        stride = self.still_stride if self.still else 1
+        return index - self.last_index >= stride
+
+    def update(self, frame, index, t_s):
+        """Register ``frame`` if due; return (registration in effect, fresh?)."""
+        if not self.due(index):
+            return self.current, False
+        reg = self.registrar.register(frame, t_s)
+        self.registered += 1
+        self.last_index = index
+        if not getattr(reg, "ok", False):
+            reason = str(getattr(reg, "reason", "") or "registration failed")
+            self.failures[reason] = self.failures.get(reason, 0) + 1
+            return self.current, False
+        if self.current is not None and self.every == "auto":
+            try:
+                a = np.asarray(self.current.floor_to_image(self._probe), float)
+                b = np.asarray(reg.floor_to_image(self._probe), float)
+                shift = float(np.nanmax(np.hypot(*(a - b).T)))
+            except Exception:  # noqa: BLE001 - a registrar without projection: assume moving
+                shift = float("inf")
+            was_still = self.still
+            self.still = shift < self.still_px
+            if was_still and not self.still:
+                self.moved_count += 1
+        self.current = reg
+        return reg, True
+
+
+# ------------------------------------------------------------------ the tracking
+@dataclass
+class _Acc:
+    """Per-frame numbers gathered while streaming (no images)."""
+
+    t: list = field(default_factory=list)
+    fix: list = field(default_factory=list)  # PoseFix or None per frame
+    frac: list = field(default_factory=list)  # readout fraction of the detection
+    cell: list = field(default_factory=list)  # min cell width seen in the frame [px]
+    reg_ok: list = field(default_factory=list)
+    reg_rms_px: list = field(default_factory=list)
+    reg_rms_m: list = field(default_factory=list)
+    reg_fresh: list = field(default_factory=list)
+    n_markers: list = field(default_factory=list)
+    rejected: int = 0
+    full_searches: int = 0
+    window_searches: int = 0
+    repeated: int = 0
+    unrefined: int = 0
+    predicted_cells: list = field(default_factory=list)
+
+
+def _roi(last, prev, frame_shape, gap_frames):
+    """Search window around the corners predicted from the last two detections."""
+    if last is None:
+        return None
+    pred = last
+    if prev is not None and prev.shape != last.shape:
+        prev = None
+    if prev is not None and gap_frames <= 3:
+        pred = last + (last - prev) * gap_frames
+    side = float(np.max(np.ptp(last, axis=0)))
+    step = 0.0 if prev is None else float(np.max(np.abs(last - prev)))
+    margin = 0.75 * side + 24.0 + 2.0 * step * gap_frames
+    lo = np.floor(np.min(np.vstack([pred, last]), axis=0) - margin).astype(int)
+    hi = np.ceil(np.max(np.vstack([pred, last]), axis=0) + margin).astype(int)
+    h, w = frame_shape[:2]
+    u0, v0 = max(lo[0], 0), max(lo[1], 0)
+    u1, v1 = min(hi[0], w), min(hi[1], h)
+    if u1 - u0 < 16 or v1 - v0 < 16 or (u1 - u0) * (v1 - v0) > 0.5 * w * h:
+        return None
+    return (int(u0), int(v0), int(u1), int(v1))
+
+
+def _far_field_cells(reg, markers, field_profile, cells_across):
+    """Predicted cell width [px] of each marker at the field's corners and centre."""
+    K = getattr(reg, "camera_matrix", None)
+    rvec = getattr(reg, "rvec", None)
+    tvec = getattr(reg, "tvec", None)
+    if K is None or rvec is None or tvec is None:
+        return None
+    dist = getattr(reg, "dist_coeffs", None)
+    dist = np.zeros(5) if dist is None else np.asarray(dist, float)
+    fx, fy = field_profile.size_m
+    spots = np.array([[0, 0], [fx, 0], [fx, fy], [0, fy], [fx / 2, fy / 2]], float)
+    out = []
+    for i, m in enumerate(markers):
+        loc = marker_corners_local(m.size_m)
+        pts = np.concatenate([
+            np.column_stack([loc + s, np.full(4, m.z_m)]) for s in spots
+        ])
+        img, _ = cv2.projectPoints(pts, np.asarray(rvec, float), np.asarray(tvec, float),
+                                   np.asarray(K, float), dist)
+        img = img.reshape(-1, 4, 2)
+        d1, d2 = img[:, 2] - img[:, 0], img[:, 3] - img[:, 1]
+        area = 0.5 * np.abs(d1[:, 0] * d2[:, 1] - d1[:, 1] * d2[:, 0])
+        out.append(np.sqrt(area) / cells_across(i))
+    return np.array(out)  # (markers, spots)
+
+
+def _camera_distance(reg, point_m, z_m):
+    R, _ = cv2.Rodrigues(np.asarray(reg.rvec, float))
+    centre = -R.T @ np.asarray(reg.tvec, float).reshape(3)
+    return float(np.linalg.norm(centre - np.array([point_m[0], point_m[1], z_m]))), centre
+
+
+def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
+                 repeated=None, refine="apriltag", window=True, register_every="auto",
+                 max_speed_mps=5.0, max_omega_radps=25.0, progress=None, total=None,
+                 acc=None):
+    """Detect and fit the robot pose in a stream of frames (the streaming part).
+
+    Parameters
+    ----------
+    frames : iterable of (int, float, ndarray)
+        ``(index, t_s, frame_bgr)``.
+    robot : profiles.RobotProfile
+    field_profile : profiles.FieldProfile
+    registrar : object with ``register(frame_bgr, t_s)`` -> FrameRegistration
+    video_info : video.VideoInfo, optional
+        Used for the rolling-shutter scan axis (image height otherwise).
+    repeated : callable, optional
+        Returns True when the frame just received repeats the previous image.
+
+    Returns
+    -------
+    _Acc
+        Per-frame fixes and statistics (internal; see :func:`track_video`).
+    """
+    det = MarkerDetector(robot.markers, refine=refine)
+    policy = _RegistrationPolicy(registrar, field_profile, register_every)
+    acc = _Acc() if acc is None else acc
+    acc.detector = det
+    acc.policy = policy
+    last = prev = None
+    last_index = -1
+    last_fix = None
+    last_fix_t = -math.inf
+    for index, t_s, frame in frames:
+        acc.t.append(float(t_s))
+        reg, fresh = policy.update(frame, index, t_s)
+        if fresh and not acc.predicted_cells:
+            cells = _far_field_cells(reg, robot.markers, field_profile, det.cells_across)
+            if cells is not None:
+                acc.predicted_cells.append(cells)
+                acc.first_registration = reg
+        acc.reg_ok.append(bool(reg is not None))
+        acc.reg_rms_px.append(float(getattr(reg, "rms_px", np.nan)) if reg else np.nan)
+        acc.reg_rms_m.append(float(getattr(reg, "rms_floor_m", np.nan)) if reg else np.nan)
+        acc.reg_fresh.append(fresh)
+        fix = None
+        frac = np.nan
+        cell = np.nan
+        nm = 0
+        if repeated is not None and repeated():
+            acc.repeated += 1
+        elif reg is not None:
+            dets = []
+            roi = _roi(last, prev, frame.shape, index - last_index) if window else None
+            if roi is not None:
+                acc.window_searches += 1
+                dets = det.detect(frame, roi)
+            if not dets:
+                acc.full_searches += 1
+                found = det.detect(frame, coarse=True)
+                if found:
+                    around = np.vstack([d.corners_px for d in found])
+                    roi = _roi(around, None, frame.shape, 1)
+                    dets = det.detect(frame, roi) if roi is not None else det.detect(frame)
+                    if not dets:  # refinement failed (tiny or blurred marker): keep coarse
+                        dets = found
+                        acc.unrefined += 1
+            if dets:
+                fix = fit_pose(dets, robot.markers, reg)
+            if fix is not None and len(dets) > 2:
+                fix, dets = _drop_outlier_marker(fix, dets, robot.markers, reg)
+            if fix is not None and last_fix is not None:
+                dt = t_s - last_fix_t
+                jump = math.hypot(fix.x_m - last_fix.x_m, fix.y_m - last_fix.y_m)
+                turn = abs(math.remainder(fix.heading_rad - last_fix.heading_rad, math.tau))
+                if dt < 0.5 and (jump > max_speed_mps * dt + 0.05
+                                 or turn > max_omega_radps * dt + 0.3):
+                    acc.rejected += 1
+                    fix = None
+            if fix is not None:
+                allc = np.vstack([d.corners_px for d in dets])
+                h = frame.shape[0]
+                if video_info is not None:
+                    frac = float(np.mean(readout_fraction(allc[:, 0], allc[:, 1], video_info)))
+                else:
+                    frac = float(np.mean(allc[:, 1]) / h)
+                cell = min(math.sqrt(_area(d.corners_px)) / det.cells_across(d.marker_index)
+                           for d in dets)
+                nm = len(dets)
+                prev = last if index - last_index <= 3 else None
+                last = allc
+                last_index = index
+                last_fix, last_fix_t = fix, t_s
+        acc.fix.append(fix)
+        acc.frac.append(frac)
+        acc.cell.append(cell)
+        acc.n_markers.append(nm)
+        if progress is not None:
+            progress(index + 1, total)
+    return acc
+
+
+def _drop_outlier_marker(fix, dets, markers, reg):
+    """With three or more markers, drop one whose removal cuts the misfit sharply."""
+    best = (fix, dets)
+    for k in range(len(dets)):
+        sub = dets[:k] + dets[k + 1:]
+        f = fit_pose(sub, markers, reg)
+        if f is not None and f.dof > 0 and fix.dof > 0 and \
+                f.chi2_unit / f.dof < 0.1 * fix.chi2_unit / fix.dof and \
+                fix.chi2_unit / fix.dof > 25.0:
+            best = (f, sub)
+    return best
+
+
+def _segments(detected_idx, t, max_gap_s):
+    """Split detected frame indices into runs whose gaps are at most ``max_gap_s``."""
+    segs = []
+    start = detected_idx[0]
+    for a, b in zip(detected_idx[:-1], detected_idx[1:], strict=True):
+        if t[b] - t[a] > max_gap_s:
+            segs.append((start, a))
+            start = b
+    segs.append((start, detected_idx[-1]))
+    return segs
+
+
+def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_gap_s,
+            corner_sigma_px, field_profile, warnings):
+    """Smooth the per-frame fixes into the truth track and gather the quality."""
+    n = len(acc.t)
+    t = np.asarray(timing.t_s if timing is not None else acc.t, dtype=float)[:n]
+    ok = np.array([f is not None for f in acc.fix], dtype=bool)
+    det = acc.detector
+    seen = {f"{fam}:{i}": c for (fam, i), c in sorted(det.ids_seen.items())}
+    if not ok.any():
+        wanted = ", ".join(f"{m.family} id {m.id}" for m in robot.markers)
+        why = ""
+        if not any(acc.reg_ok):
+            why = (" and the floor could not be registered in any frame ("
+                   + "; ".join(acc.policy.failures) + ")")
+        raise TrackingError(
+            f"the robot's marker ({wanted}) was never found in {n} frames{why}; "
+            f"IDs seen: {', '.join(seen) if seen else 'none'} - check the marker id and "
+            "family in the robot profile"
+        )
+    idx = np.flatnonzero(ok)
+    fixes = [acc.fix[i] for i in idx]
+    # Corner noise from the fit residuals of the whole run (chi^2 / dof for 1 px noise).
+    dof = sum(f.dof for f in fixes)
+    if corner_sigma_px is None:
+        est = math.sqrt(sum(f.chi2_unit for f in fixes) / dof) if dof > 0 else 0.3
+        sigma_px = max(est, 0.05)
+        sigma_source = "fit residuals"
+    else:
+        sigma_px = float(corner_sigma_px)
+        sigma_source = "given"
+    x = np.array([f.x_m for f in fixes])
+    y = np.array([f.y_m for f in fixes])
+    th = np.unwrap(np.array([f.heading_rad for f in fixes]))
+    cov = np.array([f.cov_unit for f in fixes]) * sigma_px**2
+    frac = np.nan_to_num(np.asarray(acc.frac, float)[idx])
+    t_meas = t[idx] + frac * readout_s
+    reg_m = np.asarray(acc.reg_rms_m, float)
+    out = {c: np.full(n, np.nan) for c in TRACK_COLUMNS}
+    out["t_s"] = t
+    detected = ok.copy()
+    interpolated = np.zeros(n, bool)
+    gaps = []
+    fits = []
+    segs = _segments(idx, t, max_gap_s)
+    for a, b in segs:
+        m = (idx >= a) & (idx <= b)
+        rows = np.arange(a, b + 1)
+        sx = smooth_ca(t_meas[m], x[m], np.sqrt(cov[m, 0, 0]), t[rows])
+        sy = smooth_ca(t_meas[m], y[m], np.sqrt(cov[m, 1, 1]), t[rows])
+        sh = smooth_ca(t_meas[m], th[m], np.sqrt(cov[m, 2, 2]), t[rows])
+        fits.append((sx.q, sx.r_scale, sy.q, sy.r_scale, sh.q, sh.r_scale))
+        out["x_m"][rows] = sx.value
+        out["y_m"][rows] = sy.value
+        out["heading_rad"][rows] = sh.value
+        out["vx_mps"][rows] = sx.rate
+        out["vy_mps"][rows] = sy.rate
+        out["omega_radps"][rows] = sh.rate
+        out["ax_mps2"][rows] = sx.accel
+        out["ay_mps2"][rows] = sy.accel
+        reg_var = np.nan_to_num(reg_m[rows]) ** 2
+        out["sigma_xy_m"][rows] = np.sqrt(sx.sigma_value**2 + sy.sigma_value**2 + reg_var)
+        out["sigma_heading_rad"][rows] = sh.sigma_value
+        interpolated[rows] = ~ok[rows]
+    # Long gaps: between segments and at the ends.
+    bounds = [(-1, segs[0][0])] + [(segs[k][1], segs[k + 1][0]) for k in range(len(segs) - 1)]
+    bounds.append((segs[-1][1], n))
+    for a, b in bounds:
+        if b - a > 1:
+            t0 = t[a] if a >= 0 else t[0]
+            t1 = t[b] if b < n else t[-1]
+            gaps.append({"first_frame": a + 1, "last_frame": b - 1,
+                         "t_start_s": float(t0), "t_end_s": float(t1)})
+    # Heading continuous across long gaps: keep each segment's unwrapped value.
+    out["speed_mps"] = np.hypot(out["vx_mps"], out["vy_mps"])
+    track = pd.DataFrame(out, columns=TRACK_COLUMNS)
+    track["detected"] = detected
+    track["interpolated"] = interpolated
+
+    cells = np.asarray(acc.cell, float)[idx]
+    cells = cells[np.isfinite(cells)]
+    quality = {
+        "frames": n,
+        "detected_frames": int(ok.sum()),
+        "detected_fraction": float(ok.mean()),
+        "interpolated_frames": int(interpolated.sum()),
+        "long_gaps": gaps,
+        "short_gap_max_s": max_gap_s,
+        "marker_cell_px_min": float(cells.min()) if cells.size else float("nan"),
+        "marker_cell_px_median": float(np.median(cells)) if cells.size else float("nan"),
+        "marker_scale_median": float(np.median([f.scale for f in fixes])),
+        "corner_sigma_px": sigma_px,
+        "corner_sigma_source": sigma_source,
+        "readout_s": readout_s,
+        "readout_source": readout_source,
+        "rejected_jumps": acc.rejected,
+        "window_searches": acc.window_searches,
+        "full_frame_searches": acc.full_searches,
+        "unrefined_detections": acc.unrefined,
+        "ids_seen": seen,
+        "smoother": [dict(zip(("q_x", "r_x", "q_y", "r_y", "q_heading", "r_heading"), f,
+                              strict=True)) for f in fits],
+        "dropped_frames": [] if timing is None else [list(d) for d in timing.dropped],
+        "duplicated_frames": [] if timing is None else list(timing.duplicated),
+        "repeated_images_skipped": acc.repeated,
+        "frame_interval_s": None if timing is None else timing.interval_s,
+        "registration": {
+            "registered_frames": acc.policy.registered,
+            "frames_with_registration": int(np.sum(acc.reg_ok)),
+            "rms_px_median": _nanmedian(acc.reg_rms_px),
+            "rms_floor_m_median": _nanmedian(acc.reg_rms_m),
+            "camera_still": bool(acc.policy.still),
+            "failures": dict(acc.policy.failures),
+        },
+    }
+    if video_info is not None:
+        quality["orientation_deg"] = video_info.orientation_deg
+        quality["size_px"] = [video_info.width_px, video_info.height_px]
+    if timing is not None:
+        warnings.extend(timing.warnings)
+    _size_warnings(acc, robot, field_profile, quality, warnings)
+    if ok.mean() < 0.9 or gaps:
+        listed = ", ".join(f"{g['t_start_s']:.2f}-{g['t_end_s']:.2f} s" for g in gaps[:10])
+        more = f" (+{len(gaps) - 10} more)" if len(gaps) > 10 else ""
+        warnings.append(
+            f"marker found in {ok.sum()} of {n} frames ({100 * ok.mean():.1f}%); "
+            f"untracked gaps longer than {max_gap_s:.2f} s: {listed or 'none'}{more}"
+        )
+    if abs(quality["marker_scale_median"] - 1.0) > 0.01:
+        warnings.append(
+            f"the marker measures {100 * quality['marker_scale_median']:.1f}% of the size "
+            "in the robot profile (with the marker height as given); check size_m and z_m"
+        )
+    if readout_source == "none":
+        warnings.append(
+            "no rolling-shutter readout time known (camera profile readout_s = 0): detection "
+            "times are the frame times; a phone's readout of 10-30 ms shifts fast motion"
+        )
+    return TrackResult(
+        track=track,
+        quality=quality,
+        warnings=warnings,
+        registrations=pd.DataFrame({
+            "t_s": t, "ok": np.asarray(acc.reg_ok, bool),
+            "rms_px": np.asarray(acc.reg_rms_px, float),
+            "rms_floor_m": np.asarray(acc.reg_rms_m, float),
+            "fresh": np.asarray(acc.reg_fresh, bool),
+        }, columns=REGISTRATION_COLUMNS),
+    )
+
+
+def _nanmedian(values):
+    a = np.asarray(values, float)
+    return float(np.nanmedian(a)) if np.isfinite(a).any() else float("nan")
+
+
+def _size_warnings(acc, robot, field_profile, quality, warnings):
+    """Warn when marker cells get too small to detect, with what would fix it."""
+    measured = quality["marker_cell_px_min"]
+    pred = acc.predicted_cells[0] if acc.predicted_cells else None
+    worst = measured
+    where = "where the robot drove"
+    if pred is not None:
+        quality["marker_cell_px_field_min"] = float(np.min(pred))
+        quality["marker_cell_px_field"] = {
+            f"{m.family}:{m.id}": [float(v) for v in pred[i]]
+            for i, m in enumerate(robot.markers)
+        }
+        if float(np.min(pred)) < worst or not math.isfinite(worst):
+            worst = float(np.min(pred))
+            where = "at the far side of the field"
+    if not math.isfinite(worst) or worst >= MIN_CELL_PX:
+        return
+    ratio = MIN_CELL_PX / worst
+    m = min(robot.markers, key=lambda mk: mk.size_m)
+    advice = (f"use a marker of at least {m.size_m * ratio * 1000:.0f} mm "
+              f"(now {m.size_m * 1000:.0f} mm)")
+    reg = getattr(acc, "first_registration", None)
+    if reg is not None and pred is not None:
+        fx, fy = field_profile.size_m
+        spots = np.array([[0, 0], [fx, 0], [fx, fy], [0, fy], [fx / 2, fy / 2]], float)
+        k = int(np.argmin(pred.min(axis=0)))
+        dist, centre = _camera_distance(reg, spots[k], m.z_m)
+        advice += (f", or bring the camera within {dist / ratio:.2f} m of that spot (now "
+                   f"{dist:.2f} m; camera {centre[2]:.2f} m above the floor)")
+    warnings.append(
+        f"marker cells are only {worst:.1f} px wide {where} (measured minimum "
+        f"{measured:.1f} px over the run; detection needs about {MIN_CELL_PX:.0f} px): {advice}"
+    )
+
+
+def track_video(video_path, robot, field, camera=None, *, registrar=None, progress=None,
+                refine="apriltag", readout_s=None, max_gap_s=0.25, corner_sigma_px=None,
+                window=True, threaded=True, register_every="auto", max_speed_mps=5.0):
+    """Track the robot through a video: the truth track with its 1-sigma.
+
+    Parameters
+    ----------
+    video_path : str or Path
+        The footage.
+    robot : profiles.RobotProfile
+        Its ``markers`` give family, id, size, offset and height of each marker.
+    field : profiles.FieldProfile
+    camera : profiles.CameraProfile, optional
+        Lens and rolling-shutter readout time; without it the registrar must cope.
+    registrar : object, optional
+        Anything with ``register(frame_bgr, t_s)`` -> FrameRegistration; default
+        ``register.FloorRegistrar(field, camera)``.
+    progress : callable, optional
+        ``progress(frames_done, frames_total)``.
+    refine : {'apriltag', 'subpix', 'contour', 'none'}
+        Corner refinement (see ``benchmarks/track_accuracy.py`` for their accuracy).
+    readout_s : float, optional
+        Rolling-shutter readout time [s]; default the camera profile's (0 if none).
+    max_gap_s : float
+        Gaps up to this long are bridged by the smoother and flagged ``interpolated``;
+        longer ones are left NaN and reported [s].
+    corner_sigma_px : float, optional
+        Corner noise [px]; default estimated from the fit residuals of the run.
+    window : bool
+        Search a window around the predicted marker position first.
+    threaded : bool
+        Decode in a background thread.
+    register_every : 'auto' or int
+        Floor registration policy (see ``_RegistrationPolicy``).
+    max_speed_mps : float
+        Detections implying a faster jump than this are rejected [m/s].
+
+    Returns
+    -------
+    TrackResult
+
+    Raises
+    ------
+    TrackingError
+        The marker was never found (the message lists the IDs that were seen).
+    vidodo.video.VideoTruncatedError
+        The video stopped early; ``.partial`` holds the TrackResult up to there.
+    """
+    if registrar is None:
+        from .register import FloorRegistrar
+
+        registrar = FloorRegistrar(field, camera=camera)
+    if readout_s is None:
+        readout_s = float(camera.readout_s) if camera is not None else 0.0
+        source = "camera profile" if readout_s > 0 else "none"
+    else:
+        readout_s = float(readout_s)
+        source = "given"
+    warnings: list[str] = []
+    acc = _Acc()
+    truncated = None
+    with VideoReader(video_path, threaded=threaded) as reader:
+        info = reader.info
+        if camera is not None and (camera.width_px, camera.height_px) != (
+                info.width_px, info.height_px):
+            warnings.append(
+                f"camera profile is {camera.width_px}x{camera.height_px} px but the video "
+                f"is {info.width_px}x{info.height_px} px; use a profile made in this mode"
+            )
+        try:
+            track_frames(reader, robot, field, registrar, video_info=info,
+                         repeated=lambda: reader.last_frame_repeated, refine=refine,
+                         window=window, register_every=register_every,
+                         max_speed_mps=max_speed_mps, progress=progress,
+                         total=info.frame_count or None, acc=acc)
+        except VideoTruncatedError as exc:
+            truncated = exc
+        timing = reader.timing()
+    kw = dict(readout_s=readout_s, readout_source=source, max_gap_s=max_gap_s,
+              corner_sigma_px=corner_sigma_px, field_profile=field, warnings=warnings)
+    if truncated is not None:
+        partial = None
+        if acc.t:
+            warnings.append(f"video truncated: {truncated}")
+            try:
+                partial = _finish(acc, robot, info, timing, **kw)
+            except TrackingError:
+                partial = None
+        raise VideoTruncatedError(str(truncated), frames_read=truncated.frames_read,
+                                  t_last_s=truncated.t_last_s, partial=partial) from None
+    return _finish(acc, robot, info, timing, **kw)
+
+
+# ------------------------------------------------------------------------- files
+def save_track_csv(result, path):
+    """Write the truth track as CSV (columns :data:`TRACK_COLUMNS`, SI units)."""
+    track = result.track if isinstance(result, TrackResult) else result
+    track.to_csv(path, index=False, columns=TRACK_COLUMNS, float_format="%.9g")
+
+
+def load_track_csv(path) -> pd.DataFrame:
+    """Read a truth track written by :func:`save_track_csv`.
+
+    Raises
+    ------
+    InputError
+        If the file is missing or a column is absent.
+    """
+    try:
+        df = pd.read_csv(path)
+    except FileNotFoundError:
+        raise InputError(f"{path}: track file not found; run 'vidodo track' first") from None
+    missing = [c for c in TRACK_COLUMNS if c not in df.columns]
+    if missing:
+        raise InputError(f"{path}: column '{missing[0]}' missing; is this a vidodo track CSV?")
+    for c in ("detected", "interpolated"):
+        df[c] = df[c].astype(str).str.lower().isin(("true", "1"))
+    return df[TRACK_COLUMNS]
