@@ -1,0 +1,221 @@
+"""Annotated replay: rings drawn where the registration projects the marker.
+
+The expected pixel of the marker is always computed here with ``cv2.projectPoints``
+(OpenCV's pinhole + Brown-Conrady distortion model) from the camera's intrinsics and
+pose; the replay code itself only uses the frame registration.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import cv2
+import numpy as np
+import pandas as pd
+import pytest
+from numpy.testing import assert_allclose
+
+from vidodo.profiles import Marker
+from vidodo.register import FrameRegistration
+from vidodo.replay import (
+    TRUTH_BGR,
+    ReplayTracks,
+    annotate_frame,
+    frame_overlay,
+    marker_points_m,
+    write_replay,
+)
+
+# A camera 2.2 m up behind the field edge looking down at it, mild barrel distortion
+# (values of the kind a phone main camera has: from memory).
+K = np.array([[700.0, 0, 320.0], [0, 700.0, 240.0], [0, 0, 1]])
+DIST = np.array([0.05, -0.11, 0.0004, -0.0003, 0.03])
+MARKER = Marker(id=7, family="DICT_4X4_50", size_m=0.2, x_m=0.05, y_m=-0.02, z_m=0.26)
+
+
+def _camera_pose():
+    """rvec, tvec (floor -> camera) of a camera at (1.8, -0.9, 2.2) looking at (1.8, 1.8, 0)."""
+    c = np.array([1.8, -0.9, 2.2])
+    fwd = np.array([1.8, 1.8, 0.0]) - c
+    fwd /= np.linalg.norm(fwd)
+    right = np.cross(fwd, [0, 0, 1.0])
+    right /= np.linalg.norm(right)
+    down = np.cross(fwd, right)
+    r = np.vstack([right, down, fwd])  # rows: camera x, y, z in floor coordinates
+    rvec = cv2.Rodrigues(r)[0].ravel()
+    return rvec, -r @ c
+
+
+def _registration(t_s=0.0):
+    rvec, tvec = _camera_pose()
+    return FrameRegistration(t_s, True, K, DIST, rvec, tvec, 0.3, 0.001, 40, "points")
+
+
+def _truth_ring_centre(img, orig):
+    """Centroid of the pixels painted exactly in the truth colour (ring + crosshair)."""
+    painted = np.all(img == np.array(TRUTH_BGR, np.uint8), axis=2) & np.any(img != orig, axis=2)
+    v, u = np.nonzero(painted)
+    assert u.size > 20
+    return np.array([u.mean(), v.mean()])
+
+
+def _expected_px(pose):
+    """The marker centre projected by OpenCV (independent of the replay code)."""
+    x, y, h = pose
+    mx = x + math.cos(h) * MARKER.x_m - math.sin(h) * MARKER.y_m
+    my = y + math.sin(h) * MARKER.x_m + math.cos(h) * MARKER.y_m
+    rvec, tvec = _camera_pose()
+    px, _ = cv2.projectPoints(np.array([[mx, my, MARKER.z_m]]), rvec, tvec, K, DIST)
+    return px.reshape(2)
+
+
+def test_marker_points_compose_pose_and_offset():
+    """Body offset rotated by the heading (planar rigid motion, common practice)."""
+    pts = marker_points_m([[1.0, 2.0, math.pi / 2]], MARKER)
+    assert_allclose(pts, [[1.0 + 0.02, 2.0 + 0.05, 0.26]], atol=1e-12)
+    assert_allclose(marker_points_m([[1.0, 2.0, np.nan]]), [[1.0, 2.0, 0.0]])
+
+
+def _tracks(poses, t):
+    drift = pd.DataFrame({"t_s": t, "truth_x_m": poses[:, 0], "truth_y_m": poses[:, 1],
+                          "truth_heading_rad": poses[:, 2],
+                          "drive_x_m": poses[:, 0] + 0.1, "drive_y_m": poses[:, 1],
+                          "drive_heading_rad": poses[:, 2], "drive_err_m": np.full(len(t), 0.1)})
+    return drift
+
+
+@pytest.mark.parametrize("pose", [(1.2, 1.0, 0.3), (2.4, 2.6, -2.0), (0.7, 3.0, 1.4)])
+def test_drawn_truth_ring_centre_on_projected_marker(pose):
+    """In memory (no encoding): the ring's centroid is within 0.5 px of projectPoints."""
+    poses = np.array([pose, pose])
+    tracks = ReplayTracks.from_tables(_tracks(poses, np.array([0.0, 0.1])))
+    frame = np.full((480, 640, 3), 90, np.uint8)
+    ov = frame_overlay(tracks, 1, _registration(), marker=MARKER)
+    img = annotate_frame(frame, ov, lines=[("t = 0.10 s", (255, 255, 255))])
+    exp = _expected_px(pose)
+    assert_allclose(ov["truth_px"], exp, atol=1e-6)
+    assert np.linalg.norm(_truth_ring_centre(img, frame) - exp) < 0.5
+
+
+def test_unregistered_frame_draws_no_ring():
+    poses = np.array([(1.0, 1.0, 0.0)])
+    tracks = ReplayTracks.from_tables(_tracks(poses, np.array([0.0])))
+    bad = FrameRegistration(0.0, False, K, DIST, np.full(3, np.nan), np.full(3, np.nan),
+                            math.nan, math.nan, 0, "", "no floor")
+    ov = frame_overlay(tracks, 0, bad, marker=MARKER)
+    assert ov["truth_px"] is None
+    frame = np.zeros((480, 640, 3), np.uint8)
+    assert not np.any(np.all(annotate_frame(frame, ov) == TRUTH_BGR, axis=2))
+
+
+def test_row_at_nearest_within_gap():
+    t = np.array([0.0, 0.033, 0.067, 0.1])
+    tracks = ReplayTracks.from_tables(_tracks(np.zeros((4, 3)), t))
+    assert tracks.row_at(0.06) == 2
+    assert tracks.row_at(0.5, max_gap_s=0.05) is None
+
+
+def test_written_replay_keeps_times_and_lands_on_marker(tmp_path):
+    """Encode, decode: frame times kept; the ring stays within 3 px after H.264."""
+    pytest.importorskip("vidodo.encode")
+    from vidodo.encode import write_video
+
+    rng = np.random.default_rng(4)
+    t = np.cumsum(rng.uniform(0.028, 0.04, 24))
+    t -= t[0]
+    n = t.size
+    base = np.full((480, 640, 3), 100, np.uint8)
+    write_video(tmp_path / "in.mp4", (base for _ in range(n)), t, codec="h264")
+    poses = np.column_stack([1.0 + 0.5 * t, 1.5 + 0.2 * t, 0.4 + 0.3 * t])
+    drift = _tracks(poses, t)
+    events = pd.DataFrame([{"kind": "impact", "t_start_s": t[10], "t_end_s": t[12],
+                            "x_m": 1.5, "y_m": 2.0}])
+    out = write_replay(tmp_path / "in.mp4", drift, events, tmp_path / "replay.mp4",
+                       registration=_registration(), marker=MARKER)
+    cap = cv2.VideoCapture(str(out))
+    got_t, errs = [], []
+    i = 0
+    while True:
+        ok, img = cap.read()
+        if not ok:
+            break
+        got_t.append(cap.get(cv2.CAP_PROP_POS_MSEC) / 1000)
+        if i % 6 == 0:
+            near = np.all(np.abs(img.astype(int) - TRUTH_BGR) < 60, axis=2)
+            near[:120, :] = False  # leave out the readout panel
+            v, u = np.nonzero(near)
+            errs.append(np.hypot(u.mean() - _expected_px(poses[i])[0],
+                                 v.mean() - _expected_px(poses[i])[1]))
+        i += 1
+    cap.release()
+    assert i == n
+    assert_allclose(got_t, t, atol=2e-3)
+    assert max(errs) < 3.0, errs
+
+
+@pytest.mark.slow
+def test_replay_on_rendered_run(request, tmp_path):
+    """Acceptance (issue 8): on a rendered run, the drawn truth ring is within 3 px of the
+    marker's true position projected with the run's camera (truth/meta.json) in sampled
+    frames. The replay itself registers each frame with FloorRegistrar (no truth read).
+    """
+    try:
+        rendered_run = request.getfixturevalue("rendered_run")
+    except pytest.FixtureLookupError:
+        pytest.skip("rendered_run fixture not available yet (tests/conftest.py)")
+    from vidodo.profiles import load_camera, load_field, load_robot
+
+    # 1280x720: the automatic tile grid needs the seams resolved (at 640x360 it can lock
+    # on a grid shifted by a tile, which is the registration's business, not the replay's)
+    run = rendered_run("default", 3, video__width_px=1280, video__height_px=720,
+                       **{"video.max_duration_s": 4.0})
+    robot = load_robot(run / "robot.toml")
+    field = load_field(run / "field.toml")
+    camera = load_camera(run / "camera.toml")
+    truth = pd.read_csv(run / "truth" / "truth.csv")
+    meta = json.loads((run / "truth" / "meta.json").read_text())
+    # the drift table's truth here is the oracle itself, so the check isolates the
+    # replay's drawing and the registration's inverse mapping
+    drift = _tracks(truth[["x_m", "y_m", "heading_rad"]].to_numpy(), truth["t_s"].to_numpy())
+    out = write_replay(run / "video.mp4", drift, None, tmp_path / "replay.mp4",
+                       robot=robot, field=field, camera=camera)
+    cam_pose = _meta_camera_pose(meta)
+    marker = robot.markers[0]
+    cap_in = cv2.VideoCapture(str(run / "video.mp4"))
+    cap_out = cv2.VideoCapture(str(out))
+    errs = []
+    i = 0
+    while True:
+        ok1, orig = cap_in.read()
+        ok2, img = cap_out.read()
+        if not (ok1 and ok2):
+            break
+        if i % 10 == 5 and bool(truth["marker_visible"].iloc[i]):
+            x, y, h = truth[["x_m", "y_m", "heading_rad"]].iloc[i]
+            p = np.array([[x + math.cos(h) * marker.x_m - math.sin(h) * marker.y_m,
+                           y + math.sin(h) * marker.x_m + math.cos(h) * marker.y_m,
+                           marker.z_m]])
+            rvec, tvec = cam_pose(truth["t_s"].iloc[i])
+            exp = cv2.projectPoints(p, rvec, tvec, camera.matrix, camera.dist_coeffs)[0]
+            near = np.all(np.abs(img.astype(int) - TRUTH_BGR) < 60, axis=2) & \
+                ~np.all(np.abs(orig.astype(int) - TRUTH_BGR) < 60, axis=2)
+            box = np.zeros_like(near)
+            u0, v0 = np.round(exp.ravel()).astype(int)
+            box[max(v0 - 40, 0):v0 + 40, max(u0 - 40, 0):u0 + 40] = True
+            v, u = np.nonzero(near & box)
+            assert u.size > 10, f"no truth ring near the marker in frame {i}"
+            errs.append(np.hypot(u.mean() - exp.ravel()[0], v.mean() - exp.ravel()[1]))
+        i += 1
+    assert len(errs) >= 5
+    assert max(errs) < 3.0, errs
+
+
+def _meta_camera_pose(meta):
+    """Camera pose per frame time from truth/meta.json (test only)."""
+    cam = meta.get("camera") or {}
+    if "rvec" in cam and "tvec" in cam and not cam.get("sway_deg") and not cam.get("sway_m"):
+        rvec = np.asarray(cam["rvec"], float)
+        tvec = np.asarray(cam["tvec"], float)
+        return lambda t: (rvec, tvec)
+    pytest.skip("truth/meta.json has no fixed camera pose (a swaying camera)")
