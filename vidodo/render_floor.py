@@ -266,9 +266,11 @@ def sample_floor(tex: FloorTexture, floor_x_m, floor_y_m, level, valid):
         if rows.size == 0:
             continue
         r0, r1 = rows[0], rows[-1] + 1
+        # cv2.pyrDown centres output pixel i on input pixel 2i, so level-l pixel c
+        # sits on level-0 pixel c * 2**l
         scale = 0.5**lv
-        mx = (map_x0[r0:r1] + 0.5) * scale - 0.5
-        my = (map_y0[r0:r1] + 0.5) * scale - 0.5
+        mx = map_x0[r0:r1] * scale
+        my = map_y0[r0:r1] * scale
         img = cv2.remap(tex.levels[lv], mx, my, cv2.INTER_LINEAR,
                         borderMode=cv2.BORDER_CONSTANT, borderValue=SURROUND_BGR)
         acc[r0:r1] += weight[r0:r1, :, None] * img

@@ -1,0 +1,80 @@
+"""Encoder: per-frame presentation times as read back by independent tools.
+
+References: ffprobe (FFmpeg's own reader of the MP4 timing tables, ISO/IEC 14496-12)
+and OpenCV's ``CAP_PROP_POS_MSEC`` after ``read()`` (which follows the stream's PTS
+since OpenCV 4.2, counted from the first frame).
+"""
+
+import json
+import shutil
+import subprocess
+
+import cv2
+import numpy as np
+import pytest
+
+from vidodo.encode import write_video
+from vidodo.errors import InputError
+
+pytestmark = pytest.mark.skipif(shutil.which("ffprobe") is None, reason="needs ffmpeg")
+
+# uneven timing as a phone records it: jitter, a dropped frame, a slow section
+TIMES = np.array([0.0, 0.0334, 0.0667, 0.1002, 0.1665, 0.2001, 0.2337, 0.2836, 0.3337,
+                  0.3669, 0.4003, 0.4337])
+
+
+def _frames(n, w=160, h=96):
+    for i in range(n):
+        img = np.zeros((h, w, 3), np.uint8)
+        img[:, : 10 + 10 * i] = (40, 160, 220)
+        yield img
+
+
+def _ffprobe_times(path):
+    out = subprocess.run(
+        ["ffprobe", "-v", "error", "-select_streams", "v:0", "-show_entries",
+         "frame=pts_time", "-of", "json", str(path)],
+        capture_output=True, text=True, check=True).stdout
+    return np.array([float(f["pts_time"]) for f in json.loads(out)["frames"]])
+
+
+def _opencv_times(path):
+    cap = cv2.VideoCapture(str(path))
+    times, images = [], []
+    while True:
+        ok, img = cap.read()
+        if not ok:
+            break
+        times.append(cap.get(cv2.CAP_PROP_POS_MSEC) / 1000.0)
+        images.append(img)
+    cap.release()
+    return np.array(times), images
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("codec", ["h264", "hevc", "mpeg4"])
+@pytest.mark.parametrize("start_s", [0.0, 1.25])
+def test_variable_frame_times_read_back(tmp_path, codec, start_s):
+    """ffprobe sees exactly the requested PTS (< 1 ms); OpenCV decodes every frame and
+    reports the same times counted from the first frame."""
+    t = TIMES + start_s
+    path = tmp_path / f"clip_{codec}.mp4"
+    write_video(path, _frames(t.size), t, codec=codec, crf=20)
+    assert np.abs(_ffprobe_times(path) - t).max() < 1e-3
+    t_cv, images = _opencv_times(path)
+    assert len(images) == t.size
+    assert np.abs(t_cv - (t - t[0])).max() < 1e-3
+    # the picture survives compression (the bar grows 10 px per frame)
+    bar = [(img[:, :, 2] > 128).mean(axis=0).sum() for img in images]
+    assert np.allclose(bar, 10 + 10 * np.arange(t.size), atol=2)
+
+
+def test_bad_input_leaves_no_file(tmp_path):
+    path = tmp_path / "x.mp4"
+    with pytest.raises(InputError, match="frame 2 time"):
+        write_video(path, _frames(3), [0.0, 0.1, 0.1])
+    with pytest.raises(InputError, match="got 3 frames but 4"):
+        write_video(path, _frames(3), [0.0, 0.1, 0.2, 0.3])
+    with pytest.raises(InputError, match="must be even"):
+        write_video(path, _frames(2, w=161), [0.0, 0.1])
+    assert list(tmp_path.iterdir()) == []

@@ -1,0 +1,220 @@
+"""Renderer geometry against OpenCV's independent projection and marker detector.
+
+References used here:
+* ``cv2.projectPoints`` (OpenCV 5.0): the pinhole + radial/tangential distortion model
+  the renderer must agree with (< 0.5 px);
+* ``cv2.aruco.ArucoDetector`` with AprilTag edge refinement (OpenCV 5.0): finds the
+  rendered fiducials and reports their corners independently of the renderer;
+* rolling shutter closed form: a row read ``dt`` later sees a point moving at ``v``
+  displaced by ``v dt``; seen straight down from height ``Z`` that is ``f v dt / Z``
+  pixels (pinhole similar triangles, common practice).
+"""
+
+import math
+
+import cv2
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+
+from vidodo.profiles import (
+    CameraProfile,
+    FieldProfile,
+    FloorMarker,
+    Marker,
+    RobotProfile,
+    marker_corners_local,
+)
+from vidodo.render import camera_rays, floor_points, render_frames
+
+DIST = (-0.12, 0.05, 0.0008, -0.0006, -0.01)
+
+
+def _look_at(centre, target):
+    """Floor -> camera rvec, tvec for a camera at ``centre`` looking at ``target``."""
+    z = np.asarray(target, float) - centre
+    z /= np.linalg.norm(z)
+    x = np.cross(z, [0.0, 0.0, 1.0])
+    if np.linalg.norm(x) < 1e-9:
+        x = np.array([1.0, 0.0, 0.0])
+    x /= np.linalg.norm(x)
+    y = np.cross(z, x)
+    rot = np.stack([x, y, z])
+    return cv2.Rodrigues(rot)[0].ravel(), -rot @ np.asarray(centre, float)
+
+
+def _robot(z_m=0.32, yaw_rad=0.0, family="DICT_4X4_50", size_m=0.16):
+    return RobotProfile("test", 0.40, 0.36, 0.25,
+                        (Marker(7, family, size_m, 0.02, -0.01, z_m, yaw_rad),), (), "t")
+
+
+def _detect(img, family="DICT_4X4_50"):
+    """Marker corners by cv2.aruco with AprilTag edge refinement, in OpenCV pixels.
+
+    The AprilTag refinement puts pixel centres at (0.5, 0.5), OpenCV at (0, 0)
+    (AprilRobotics/apriltag issue #121), so 0.5 px is subtracted.
+    """
+    dictionary = cv2.aruco.getPredefinedDictionary(getattr(cv2.aruco, family))
+    params = cv2.aruco.DetectorParameters()
+    params.cornerRefinementMethod = cv2.aruco.CORNER_REFINE_APRILTAG
+    corners, ids, _ = cv2.aruco.ArucoDetector(dictionary, params).detectMarkers(img)
+    if ids is None:
+        return {}
+    return {int(i): c.reshape(4, 2) - 0.5 for i, c in zip(ids.ravel(), corners, strict=True)}
+
+
+def _marker_corners_floor(marker, pose):
+    """Marker corners in the floor frame (3D) for a robot floor pose (x, y, heading)."""
+    local = marker_corners_local(marker.size_m)
+    cy, sy = math.cos(marker.yaw_rad), math.sin(marker.yaw_rad)
+    body = local @ np.array([[cy, sy], [-sy, cy]]) + [marker.x_m, marker.y_m]
+    c, s = math.cos(pose[2]), math.sin(pose[2])
+    floor = body @ np.array([[c, s], [-s, c]]) + pose[:2]
+    return np.column_stack([floor, np.full(4, marker.z_m)])
+
+
+def test_pixel_rays_reproject_onto_pixel_centres():
+    """Every pixel's ray, projected by cv2.projectPoints, lands on that pixel (< 1e-3 px)."""
+    cam = CameraProfile(320, 240, 260.0, 255.0, 161.3, 118.7, DIST)
+    rays = camera_rays(cam)
+    pts = np.stack([rays.xn.ravel(), rays.yn.ravel(), np.ones(rays.xn.size)], axis=1)
+    uv = cv2.projectPoints(pts.astype(np.float64), np.zeros(3), np.zeros(3), cam.matrix,
+                           cam.dist_coeffs)[0][:, 0]
+    u, v = np.meshgrid(np.arange(320.0), np.arange(240.0))
+    assert np.abs(uv - np.column_stack([u.ravel(), v.ravel()])).max() < 1e-3
+
+
+def test_floor_points_project_back_to_their_pixels():
+    """Floor points of the ray map, projected by cv2.projectPoints, return to the pixel."""
+    cam = CameraProfile(320, 240, 260.0, 255.0, 161.3, 118.7, DIST)
+    rvec, tvec = _look_at(np.array([1.0, -1.2, 1.6]), [1.2, 1.0, 0.0])
+    xy = floor_points(cam, rvec, tvec)
+    ok = np.isfinite(xy[..., 0])
+    assert ok.mean() > 0.9
+    pts = np.column_stack([xy[ok], np.zeros(ok.sum())])
+    uv = cv2.projectPoints(pts, rvec, tvec, cam.matrix, cam.dist_coeffs)[0][:, 0]
+    v, u = np.nonzero(ok)
+    assert np.abs(uv - np.column_stack([u, v])).max() < 1e-3
+
+
+def _static_frame(cam, field, robot, pose, rvec, tvec, **kw):
+    kw = {"exposure_s": 0.0, "noise_sigma": 0.0, "seed": 0, **kw}
+    gen = render_frames(field, robot, cam, frame_times_s=[0.0],
+                        pose_at=lambda t: np.tile(pose, (np.size(t), 1)),
+                        camera_pose_at=lambda t: (rvec, tvec), **kw)
+    return next(iter(gen))
+
+
+@pytest.mark.parametrize("family", ["DICT_4X4_50", "DICT_APRILTAG_36h11"])
+def test_rendered_markers_found_at_projected_corners(family):
+    """Robot and floor markers found by cv2.aruco within 0.5 px of cv2.projectPoints.
+
+    Static robot, no noise, no blur, lens with radial and tangential distortion.
+    """
+    cam = CameraProfile(640, 360, 560.0, 560.0, 322.0, 178.0, DIST)
+    fm = FloorMarker(3, family, 0.18, 1.45, 1.05, 0.4)
+    field = FieldProfile(4, 4, 0.6096, floor_markers=(fm,))
+    robot = _robot(yaw_rad=0.3, family=family)
+    pose = np.array([0.75, 1.15, 0.5])
+    rvec, tvec = _look_at(np.array([1.0, -0.6, 1.5]), [1.1, 1.0, 0.0])
+    img = _static_frame(cam, field, robot, pose, rvec, tvec)
+    found = _detect(img, family)
+    assert set(found) == {3, 7}
+    want_robot = cv2.projectPoints(_marker_corners_floor(robot.markers[0], pose), rvec, tvec,
+                                   cam.matrix, cam.dist_coeffs)[0][:, 0]
+    floor3 = np.column_stack([fm.corners_floor_m(), np.zeros(4)])
+    want_floor = cv2.projectPoints(floor3, rvec, tvec, cam.matrix, cam.dist_coeffs)[0][:, 0]
+    assert np.abs(found[7] - want_robot).max() < 0.5
+    assert np.abs(found[3] - want_floor).max() < 0.5
+    # the marker is big enough in the image for the check to mean something
+    assert np.ptp(want_robot[:, 0]) > 40
+
+
+def test_rolling_shutter_shears_a_sideways_moving_marker():
+    """Lower rows see the robot later: corner shift = f v (v_row / H) t_readout / Z."""
+    readout = 0.030
+    cam = CameraProfile(640, 480, 600.0, 600.0, 320.0, 240.0, readout_s=readout)
+    field = FieldProfile(4, 4, 0.6096)
+    robot = _robot(z_m=0.30, size_m=0.20)
+    height = 1.8
+    # straight down; camera x along floor +x, camera y along floor -y
+    rvec = cv2.Rodrigues(np.diag([1.0, -1.0, -1.0]))[0].ravel()
+    centre = np.array([1.2, 1.2, height])
+    tvec = -np.diag([1.0, -1.0, -1.0]) @ centre
+    speed = 2.0  # [m/s] along floor +x = image +u
+    start = np.array([1.1, 1.2, 0.0])
+
+    def pose_at(t):
+        t = np.asarray(t, float)
+        return np.column_stack([start[0] + speed * t, np.full(t.size, start[1]),
+                                np.zeros(t.size)])
+
+    gen = render_frames(field, robot, cam, frame_times_s=[0.0], pose_at=pose_at,
+                        camera_pose_at=lambda t: (rvec, tvec), exposure_s=0.0,
+                        noise_sigma=0.0, seed=0)
+    img = next(iter(gen))
+    found = _detect(img)[7]
+    static = cv2.projectPoints(_marker_corners_floor(robot.markers[0], start), rvec, tvec,
+                               cam.matrix, cam.dist_coeffs)[0][:, 0]
+    depth = height - robot.markers[0].z_m
+    shift = cam.fx_px * speed * (static[:, 1] / cam.height_px) * readout / depth
+    assert shift.max() > 10  # clearly visible shear
+    assert np.abs(found[:, 0] - (static[:, 0] + shift)).max() < 0.5
+    assert np.abs(found[:, 1] - static[:, 1]).max() < 0.5
+
+
+def test_motion_blur_ramp_matches_travel_during_exposure():
+    """Exposure T blurs a sideways edge into a linear ramp f v T / Z px wide, centred on
+    the edge's mid-exposure position (box-filter blur of a step, common practice)."""
+    cam = CameraProfile(640, 480, 600.0, 600.0, 320.0, 240.0)
+    field = FieldProfile(4, 4, 0.6096)
+    robot = _robot(z_m=0.30, size_m=0.08)
+    height = 1.8
+    rot = np.diag([1.0, -1.0, -1.0])
+    rvec = cv2.Rodrigues(rot)[0].ravel()
+    tvec = -rot @ np.array([1.2, 1.2, height])
+    speed, exposure = 1.5, 0.02
+
+    def pose_at(t):
+        t = np.asarray(t, float)
+        return np.column_stack([1.2 + speed * t, np.full(t.size, 1.2), np.zeros(t.size)])
+
+    def profile(exp):
+        img = next(iter(render_frames(field, robot, cam, frame_times_s=[0.0], pose_at=pose_at,
+                                      camera_pose_at=lambda t: (rvec, tvec), exposure_s=exp,
+                                      noise_sigma=0.0, seed=0)))
+        return img[225:256, :, 0].astype(float).mean(axis=0)  # blue: chassis vs grey floor
+
+    sharp, blurred = profile(0.0), profile(exposure)
+    # chassis right edge at mid-exposure: u = cx + f (L/2) / (Z - H)
+    depth = height - robot.height_m
+    edge_u = cam.cx_px + cam.fx_px * 0.5 * robot.length_m / depth
+    assert abs(int(np.argmax(-np.diff(sharp[360:480]))) + 360.5 - edge_u) < 1.0
+    width_px = cam.fx_px * speed * exposure / depth
+    e = int(round(edge_u))
+    top, floor = blurred[e - 25:e - 14].mean(), blurred[e + 15:e + 26].mean()
+    frac = (blurred[e - 14:e + 15] - floor) / (top - floor)
+    inside = np.flatnonzero((frac > 0.1) & (frac < 0.9))
+    assert abs(inside.size / 0.8 - width_px) < 2.5
+    # the ramp's 50 % point sits at the mid-exposure edge (frame time = mid-exposure)
+    u = np.arange(e - 14, e + 15)
+    centre = np.interp(0.5, frac[::-1], u[::-1])
+    assert abs(centre - edge_u) < 1.0
+
+
+def test_same_seed_same_frames_and_noise_level():
+    """Deterministic for a seed; the added noise has the requested sigma (+-10 %)."""
+    cam = CameraProfile(320, 240, 260.0, 260.0, 160.0, 120.0)
+    field = FieldProfile(4, 4, 0.6096)
+    robot = _robot()
+    pose = np.array([1.2, 1.2, 0.0])
+    rvec, tvec = _look_at(np.array([1.2, -0.5, 1.5]), [1.2, 1.0, 0.0])
+    clean = _static_frame(cam, field, robot, pose, rvec, tvec)
+    a = _static_frame(cam, field, robot, pose, rvec, tvec, noise_sigma=3.0, seed=5)
+    b = _static_frame(cam, field, robot, pose, rvec, tvec, noise_sigma=3.0, seed=5)
+    c = _static_frame(cam, field, robot, pose, rvec, tvec, noise_sigma=3.0, seed=6)
+    assert np.array_equal(a, b)
+    assert not np.array_equal(a, c)
+    d = a.astype(float) - clean
+    mid = (clean > 20) & (clean < 235)
+    assert_allclose(d[mid].std(), math.sqrt(3.0**2 + 1 / 12), rtol=0.1)
