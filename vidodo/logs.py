@@ -369,8 +369,9 @@ def log_from_frame(raw: pd.DataFrame, robot: RobotProfile, *, where="log",
         lines, t_s, valid = lines[sl], t_s[sl], valid[sl]
     holes = ~valid.all(axis=1)
     if holes.any():
-        warnings.append(f"filled {int(holes.sum())} row(s) with empty cells by linear "
-                        f"interpolation in time, at line(s) {_lines_text(lines[holes])}")
+        warnings.append(f"filled {int(holes.sum())} row(s) with empty cells (counts and "
+                        "angles by linear interpolation in time, raw channels by holding the "
+                        f"last reading), at line(s) {_lines_text(lines[holes])}")
 
     frame = {"line": lines.astype(np.int64), "t_s": t_s}
     quad = {}
@@ -384,13 +385,18 @@ def log_from_frame(raw: pd.DataFrame, robot: RobotProfile, *, where="log",
             warnings += res.warnings
             frame[f"ticks_{w.name}"] = res.counts
             continue
-        col = num[w.column].to_numpy(dtype=float)
+        series = num[w.column]
+        col = series.to_numpy(dtype=float)
         ok = ~np.isnan(col)
-        v = col[ok]
-        if np.any(v != np.round(v)):
-            i = int(np.flatnonzero(ok)[np.flatnonzero(v != np.round(v))[0]])
-            raise InputError(f"{where}: line {lines[i]}, column '{w.column}': {col[i]!r} is not "
-                             "a whole count; the column must hold cumulative encoder ticks")
+        if pd.api.types.is_integer_dtype(series):
+            v = series.to_numpy(dtype=np.int64)  # exact beyond 2**53
+        else:
+            v = col[ok]
+            if np.any(v != np.round(v)):
+                i = int(np.flatnonzero(ok)[np.flatnonzero(v != np.round(v))[0]])
+                raise InputError(f"{where}: line {lines[i]}, column '{w.column}': {col[i]!r} is "
+                                 "not a whole count; the column must hold cumulative encoder "
+                                 "ticks")
         _counter_range_check(v, w.counter_bits, where, w.column)
         ticks = unwrap_counter(v, w.counter_bits)
         if w.counter_bits and v.size > 1:
