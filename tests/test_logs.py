@@ -151,6 +151,16 @@ def test_imu_units_wrapping_scale_and_sign():
     assert_allclose(f["imu_heading_rad"], h_true, atol=1e-12)
 
 
+def test_gaps_and_unexpected_heading_wraps_are_reported():
+    t = np.r_[np.arange(10) * 0.01, 1.0 + np.arange(10) * 0.01]
+    yaw = np.r_[np.linspace(170, 179, 10), np.linspace(-179, -170, 10)]
+    df = pd.DataFrame({"t": t, "el": 0, "er": 0, "yaw": yaw})
+    r = robot(imu=Imu("yaw", unit="deg", wrapped=False))
+    w = " | ".join(read_log(io.StringIO(df.to_csv(index=False)), r).warnings)
+    assert "1 gap(s) longer than 10 median steps" in w and "after line(s) 11" in w
+    assert "set wrapped = true" in w
+
+
 def test_logged_pose_units():
     r = robot(pose=PoseColumns("px", "py", "ph", length_unit="mm", angle_unit="deg"))
     text = "t,el,er,px,py,ph\n0,0,0,0,0,170\n0.1,1,1,100,50,-175\n0.2,2,2,200,100,-165"
