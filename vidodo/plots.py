@@ -229,7 +229,8 @@ def field_map_figure(drift: pd.DataFrame, events: pd.DataFrame | None = None, *,
         ax.plot(x * k, y * k, color=colors[name], lw=1.4, label=str(name), zorder=3)
     tx = drift["truth_x_m"].to_numpy(float)
     ty = drift["truth_y_m"].to_numpy(float)
-    ax.plot(tx * k, ty * k, color=TRUTH_COLOR, lw=2.4, label="truth (video)", zorder=4)
+    # truth under the sources (thick), so a source that follows it stays visible on top
+    ax.plot(tx * k, ty * k, color=TRUTH_COLOR, lw=3.2, label="truth (video)", zorder=2.5)
     ok = np.isfinite(tx) & np.isfinite(ty)
     if ok.any():
         i0, i1 = np.flatnonzero(ok)[[0, -1]]

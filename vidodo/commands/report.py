@@ -1,0 +1,46 @@
+"""``vidodo report GRADE_DIR``: rebuild the plots and the HTML report of a grade."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from ..units import LENGTH_UNITS
+
+NAME = "report"
+HELP = "rebuild the plots and the one-file HTML report from a grade folder"
+DESCRIPTION = (
+    "Read drift.csv, events.csv and summary.json from a folder written by `vidodo grade` "
+    "and write field_map.png, error_vs_time.png, speed.png and report.html (one file, "
+    "images inside, nothing loaded from elsewhere) beside them, or into --out. With "
+    "--replay, also the annotated replay video (needs the footage and profiles named in "
+    "summary.json). Exit 2 when a grade file is missing or unreadable."
+)
+
+
+def add_arguments(parser):
+    """Options of the verb."""
+    parser.add_argument("grade_dir", type=Path, help="folder written by `vidodo grade --out`")
+    parser.add_argument("--out", type=Path, default=None,
+                        help="where to write (default: the grade folder itself)")
+    parser.add_argument("--units", choices=sorted(LENGTH_UNITS), default="mm",
+                        help="length unit shown in the plots and the report")
+    parser.add_argument("--replay", action="store_true",
+                        help="also write replay.mp4 (the footage with tracks drawn in)")
+
+
+def run(args) -> int:
+    """Rebuild the pictures; print what was written."""
+    from ..outputs import staged_dir
+    from ..progress import progress_bar
+    from ..showcase import load_grade_dir, render_all
+
+    load_grade_dir(args.grade_dir)  # fail early, before anything is written
+    out = args.out or args.grade_dir
+    with staged_dir(out) as stage, progress_bar(None, "replay", quiet=args.quiet or not
+                                                args.replay) as bar:
+        written = render_all(args.grade_dir, stage, replay=args.replay, units=args.units,
+                             progress=bar)
+    if not args.quiet:
+        for p in written:
+            print(Path(out) / p.name)
+    return 0
