@@ -106,3 +106,21 @@ def test_mecanum_layout_is_the_published_x_configuration():
     assert [w.name for w in drive] == ["front_left", "front_right", "rear_left", "rear_right"]
     assert math.isclose(drive[0].metres_per_tick,
                         2 * math.pi * 0.048 / (28 * 13.7))
+
+
+def test_profile_error_entries_are_checked():
+    with pytest.raises(InputError, match="part must be 'imu' or a wheel"):
+        load_scenario("default", profile_error=[{"part": "nope", "key": "x_m", "value": 1.0}])
+    with pytest.raises(InputError, match="must be positive"):
+        load_scenario("default",
+                      profile_error=[{"part": "left", "key": "radius_m", "value": -1.0}])
+    sc = load_scenario("default", profile_error=[{"part": "imu", "key": "scale", "value": 1.02}])
+    assert sc.written_robot.imu.scale == 1.02 and sc.robot.imu.scale == 1.0
+
+
+def test_scenario_text_is_stable():
+    from vidodo.scenario import scenario_text
+
+    assert scenario_text(load_scenario("default")) == scenario_text(load_scenario("default"))
+    assert scenario_text(load_scenario("default", video__fps=60.0)) != scenario_text(
+        load_scenario("default"))

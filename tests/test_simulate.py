@@ -210,3 +210,18 @@ def test_rendered_marker_is_found_near_its_projection(rendered_run):
     # default detector settings have no sub-pixel refinement (about 0.7 px RMS corner
     # error on clean markers, measured on OpenCV 5.0), plus H.264 and sensor noise
     assert np.abs(found - uv.reshape(4, 2)).max() < 1.5
+
+
+def test_profile_errors_change_only_the_written_profile(tmp_path, run_default):
+    out = simulate_run("wrong-profile", 0, tmp_path / "wrong", video=False)
+    written = load_robot(out / "robot.toml")
+    true = load_scenario("default").robot
+    assert written.wheel("pod_left").radius_m == 0.02448
+    assert true.wheel("pod_left").radius_m == 0.024
+    assert written.wheel("right").y_m == -0.21
+    meta = json.loads((out / "truth/meta.json").read_text())
+    keys = {e["key"]: (e["true"], e["written"]) for e in meta["profile_errors"]}
+    assert keys["pod_perpendicular.x_m"] == (-0.12, -0.08)
+    # the sensors follow the true robot: same log and ideal odometry as the default run
+    for f in ("log.csv", "truth/odometry_ideal.csv", "truth/truth.csv"):
+        assert (out / f).read_bytes() == (run_default / f).read_bytes(), f

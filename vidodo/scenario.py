@@ -71,6 +71,10 @@ Layout (defaults in brackets)::
     kind = "strafe"  x_m, y_m         # mecanum: slide to the point, heading kept
     kind = "arc"     radius_m, angle_deg   # forward arc, + turns left
     kind = "wait"    duration_s
+    [[profile_error]]                 # optional: the written robot.toml is wrong here
+    part, key, value                  # part: a wheel name or "imu"; key: a wheel field
+                                      # (x_m, y_m, direction_deg, radius_m, ticks_per_rev,
+                                      # gear_ratio, sign) or the IMU's "scale"
     [[fault]]                         # when: segment (0-based) + at_s, or t_s (video)
     kind = "impact"   duration_s, decel_mps2 [15], recover_s [0.15]
         the body stalls against an obstacle while the drive wheels keep turning
@@ -80,6 +84,10 @@ Layout (defaults in brackets)::
         one tracking wheel stops reading while the body moves
     kind = "imu_jump" magnitude_deg
         the IMU heading steps by magnitude_deg and stays offset
+
+The sensors always follow the true robot; ``truth/odometry_ideal.csv`` integrates the
+log with the true geometry, while ``robot.toml`` carries the ``[profile_error]`` values
+(both written and true values go to ``truth/meta.json``).
 
 Truth events (``truth/events.csv``) carry a magnitude per kind: ``impact`` the drive
 wheel travel the body did not make [m]; ``shove`` the body displacement [m];
@@ -124,6 +132,7 @@ __all__ = [
     "Scenario",
     "load_scenario",
     "scenario_names",
+    "scenario_text",
     "apply_overrides",
     "FAULT_KINDS",
     "SEGMENT_KINDS",
@@ -133,7 +142,7 @@ SEGMENT_KINDS = ("drive", "turn", "strafe", "arc", "wait")
 FAULT_KINDS = ("impact", "shove", "pod_lift", "imu_jump")
 _TABLES = ("video", "camera", "field", "robot", "drivetrain", "tracking", "imu", "log",
            "path")
-_ARRAYS = ("marker", "floor_marker", "segment", "fault")
+_ARRAYS = ("marker", "floor_marker", "segment", "fault", "profile_error")
 
 
 @dataclass(frozen=True)
@@ -308,6 +317,10 @@ class Scenario:
     limits: PathLimits
     segments: tuple[Segment, ...]
     faults: tuple[Fault, ...]
+    written_robot: RobotProfile
+    """The robot profile written to the run (``robot`` with ``[profile_error]`` applied)."""
+    profile_errors: tuple[tuple[str, float, float], ...]
+    """``(part.key, true value, written value)`` for every ``[[profile_error]]``."""
     data: dict
     """The TOML content after overrides (written as the run's scenario.toml)."""
     where: str
@@ -328,6 +341,11 @@ class Scenario:
         from .profiles import dump_toml
 
         return dump_toml(self.data, header=f"vidodo scenario '{self.name}'")
+
+
+def scenario_text(sc: Scenario) -> str:
+    """Canonical TOML text of a scenario after overrides (stable for cache keys)."""
+    return sc.to_toml()
 
 
 # ----------------------------------------------------------------------- loading
@@ -500,12 +518,60 @@ def scenario_from_dict(data: dict, where: str = "scenario") -> Scenario:
     if not segments:
         raise InputError(f"{where}: the path needs at least one [[segment]]")
     faults = tuple(_fault(t, len(segments), robot, imu) for t in _tables(data, "fault", where))
+    written, errors = _profile_errors(_tables(data, "profile_error", where), robot)
     return Scenario(
         name=str(data.get("name", Path(where).stem)), video=video, camera=camera,
         field=field_profile, texture_seed=f.get("texture_seed", int, 0), robot=robot,
         start_pose=start, drivetrain=drivetrain, tracking=tracking, imu=imu, log=log,
-        limits=limits, segments=segments, faults=faults, data=data, where=where,
+        limits=limits, segments=segments, faults=faults, written_robot=written,
+        profile_errors=errors, data=data, where=where,
     )
+
+
+_WHEEL_ERROR_FIELDS = ("x_m", "y_m", "direction_deg", "radius_m", "ticks_per_rev",
+                       "gear_ratio", "sign")
+
+
+def _profile_errors(tables, robot: RobotProfile):
+    """Apply ``[[profile_error]]`` entries to a copy of the robot profile."""
+    from dataclasses import replace
+
+    wheels = {w.name: w for w in robot.wheels}
+    imu = robot.imu
+    errors = []
+    for t in tables:
+        part, key = t.get("part", str), t.get("key", str)
+        label = f"{part}.{key}"
+        if part == "imu":
+            if imu is None or key != "scale":
+                raise InputError(f"{t.where}: part 'imu' takes key 'scale' and needs an IMU")
+            value = t.get("value")
+            errors.append((label, imu.scale, value))
+            imu = replace(imu, scale=value)
+            continue
+        if part not in wheels or key not in _WHEEL_ERROR_FIELDS:
+            raise InputError(
+                f"{t.where}: part {part!r} key {key!r}: part must be 'imu' or a wheel in "
+                f"{sorted(wheels)}, key one of {list(_WHEEL_ERROR_FIELDS)}"
+            )
+        w = wheels[part]
+        if key == "sign":
+            value = t.get("value", int)
+            if value not in (1, -1):
+                raise InputError(f"{t.where}: a sign must be 1 or -1, got {value}")
+            errors.append((label, float(w.sign), float(value)))
+            wheels[part] = replace(w, sign=value)
+        elif key == "direction_deg":
+            value = t.angle("value")
+            errors.append((label, math.degrees(w.direction_rad), math.degrees(value)))
+            wheels[part] = replace(w, direction_rad=value)
+        else:
+            value = t.positive("value") if key in ("radius_m", "ticks_per_rev", "gear_ratio") \
+                else t.get("value")
+            errors.append((label, float(getattr(w, key)), value))
+            wheels[part] = replace(w, **{key: value})
+    written = replace(robot, wheels=tuple(wheels[w.name] for w in robot.wheels), imu=imu)
+    return written, tuple(errors)
 
 
 def _video(t: _Table) -> VideoSpec:

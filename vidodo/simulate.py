@@ -161,6 +161,7 @@ def _meta(sc: Scenario, seed, m: Motion, t_frames, log_meta, video_written) -> d
         "robot": {"start_pose": list(sc.start_pose), "path_start_s": m.path_start_s,
                   "path_end_s": m.path_end_s, "segment_start_s": list(m.segment_start_s)},
         "event_magnitude_units": EVENT_UNITS,
+        "profile_errors": [{"key": k, "true": a, "written": b} for k, a, b in sc.profile_errors],
     }
 
 
@@ -199,7 +200,8 @@ def simulate_run(scenario, seed: int, out_dir, *, progress=None, video: bool = T
         (stage / "truth").mkdir()
         (stage / "log.csv").write_text(format_log_csv(sc.robot, logs.log))
         (stage / "robot.toml").write_text(dump_toml(
-            robot_to_dict(sc.robot), header=f"robot profile for scenario '{sc.name}'"))
+            robot_to_dict(sc.written_robot),
+            header=f"robot profile for scenario '{sc.name}'"))
         (stage / "field.toml").write_text(dump_toml(field_to_dict(sc.field),
                                                     header="field profile"))
         (stage / "camera.toml").write_text(dump_toml(
