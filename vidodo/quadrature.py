@@ -4,7 +4,8 @@ Two sensors look at a disc of alternating dark and light stripes, offset by half
 stripe, so their two on/off states run through the four-state Gray sequence
 00 -> 01 -> 11 -> 10 -> 00 one way and the reverse the other way. Every state change
 is one count: a disc of S stripes gives 2 S counts per revolution (each sensor sees S
-edges) (common practice).
+edges) (common practice), so such a wheel's profile sets ``ticks_per_rev = 2 * S``.
+Which sensor leads sets the sign of the counts; the wheel's ``sign`` key fixes it.
 
 Steps:
 
@@ -173,9 +174,8 @@ def threshold_channel(values, threshold=None, *, band: float = 0.15,
     ev = np.full(v.size, -1, dtype=np.int8)
     ev[v >= thr + half] = 1
     ev[v <= thr - half] = 0
-    if ev[0] < 0:
-        ev[0] = 1 if (np.isfinite(v[0]) and v[0] >= thr) or (
-            not np.isfinite(v[0]) and fin[0] >= thr) else 0
+    if ev[0] < 0:  # start inside the band: take the side of the threshold
+        ev[0] = 1 if fin[0] >= thr else 0
     idx = np.where(ev >= 0, np.arange(v.size), 0)
     np.maximum.accumulate(idx, out=idx)
     return ev[idx] == 1, info
