@@ -16,7 +16,8 @@ from vidodo.scenario import load_scenario
 from vidodo.simulate import frame_times, simulate_run
 
 FILES = ["log.csv", "robot.toml", "field.toml", "camera.toml", "scenario.toml",
-         "truth/truth.csv", "truth/events.csv", "truth/odometry_ideal.csv", "truth/meta.json"]
+         "truth/truth.csv", "truth/events.csv", "truth/odometry_ideal.csv", "truth/meta.json",
+         "truth/camera_poses.csv"]
 
 
 @pytest.fixture(scope="module")
@@ -225,3 +226,21 @@ def test_profile_errors_change_only_the_written_profile(tmp_path, run_default):
     # the sensors follow the true robot: same log and ideal odometry as the default run
     for f in ("log.csv", "truth/odometry_ideal.csv", "truth/truth.csv"):
         assert (out / f).read_bytes() == (run_default / f).read_bytes(), f
+
+
+def test_camera_poses_per_frame(tmp_path, run_default):
+    cams = pd.read_csv(run_default / "truth/camera_poses.csv")
+    truth = pd.read_csv(run_default / "truth/truth.csv")
+    assert_allclose(cams.t_s, truth.t_s)
+    meta = json.loads((run_default / "truth/meta.json").read_text())
+    assert_allclose(cams[["rvec_0", "rvec_1", "rvec_2"]].to_numpy()
+                    - np.array(meta["camera"]["rvec"]), 0, atol=1e-8)  # tripod: fixed
+    out = simulate_run("mecanum-handheld", 0, tmp_path / "hh", video=False)
+    hh = pd.read_csv(out / "truth/camera_poses.csv")
+    # hand-held: the lens centre -R^T t moves by centimetres, not metres
+    centres = []
+    for row in hh.itertuples():
+        rot = cv2.Rodrigues(np.array([row.rvec_0, row.rvec_1, row.rvec_2]))[0]
+        centres.append(-rot.T @ np.array([row.tvec_0_m, row.tvec_1_m, row.tvec_2_m]))
+    spread = np.ptp(np.array(centres), axis=0)
+    assert 0.002 < spread.max() < 0.1

@@ -1,5 +1,9 @@
 """Scenario + seed -> a complete run folder (see DEVELOPERS.md, "Run folder").
 
+Beyond the files DEVELOPERS.md lists, ``truth/camera_poses.csv`` holds the camera pose
+at every frame (``t_s, rvec_0..2, tvec_0_m..tvec_2_m``, floor -> camera, OpenCV),
+which moves for a hand-held camera.
+
 The log, profiles and truth files are computed here from :mod:`vidodo.motion` and
 :mod:`vidodo.sensors`; the footage comes from :mod:`vidodo.render` and
 :mod:`vidodo.encode`. Everything is written through :func:`vidodo.outputs.staged_dir`,
@@ -114,6 +118,16 @@ def _truth_csv(sc, m: Motion, t_frames, camera_pose_at) -> str:
     )
 
 
+def _camera_csv(t_frames, camera_pose_at) -> str:
+    """Floor -> camera pose (OpenCV rvec, tvec) at each frame's top-row time."""
+    poses = [camera_pose_at(float(t)) for t in t_frames]
+    r = np.array([np.asarray(p[0], float).ravel() for p in poses])
+    tv = np.array([np.asarray(p[1], float).ravel() for p in poses])
+    return _csv(["t_s", "rvec_0", "rvec_1", "rvec_2", "tvec_0_m", "tvec_1_m", "tvec_2_m"],
+                [_f(t_frames, 6)] + [_f(r[:, j], 9) for j in range(3)]
+                + [_f(tv[:, j], 9) for j in range(3)])
+
+
 def _events_csv(m: Motion) -> str:
     ev = m.faults
     return _csv(
@@ -209,6 +223,7 @@ def simulate_run(scenario, seed: int, out_dir, *, progress=None, video: bool = T
         (stage / "scenario.toml").write_text(sc.to_toml())
         (stage / "truth" / "truth.csv").write_text(_truth_csv(sc, m, t_frames, cam_pose))
         (stage / "truth" / "events.csv").write_text(_events_csv(m))
+        (stage / "truth" / "camera_poses.csv").write_text(_camera_csv(t_frames, cam_pose))
         (stage / "truth" / "odometry_ideal.csv").write_text(_odometry_csv(logs.odometry_ideal))
         (stage / "truth" / "meta.json").write_text(json.dumps(
             _meta(sc, seed, m, t_frames, logs.meta, video), indent=2, sort_keys=True) + "\n")
