@@ -62,6 +62,9 @@ def test_overrides_dotted_and_double_underscore():
     ({"drivetrain.counter_bits": 12}, "counter_bits"),
     ({"bogus": 1}, "unknown key"),
     ({"fault.0.segment": 99}, "'segment' must be"),
+    ({"camera.z_m": 0.1}, "below 0.3 m"),
+    ({"camera.look_at_z_m": 3.0}, "must be below the camera"),
+    ({"log.jitter_s": 0.01}, "below half the sample period"),
 ])
 def test_bad_values_name_the_key(overrides, match):
     with pytest.raises(InputError, match=match):

@@ -607,6 +607,11 @@ def _camera(t: _Table, video: VideoSpec) -> CameraSpec:
     if not isinstance(dist, list) or len(dist) != 5 or not all(
             isinstance(v, int | float) and not isinstance(v, bool) for v in dist):
         raise InputError(f"{t.where}: 'distortion' must be 5 numbers k1, k2, p1, p2, k3")
+    if not 0.3 <= pos[2] <= 6.0:
+        raise InputError(f"{t.where}: z_m = {pos[2]} puts the lens below 0.3 m or above 6 m; "
+                         "a camera at a field edge is typically 1.2-2.5 m high")
+    if look[2] >= pos[2]:
+        raise InputError(f"{t.where}: the look-at point must be below the camera")
     if math.dist(pos, look) < 0.1:
         raise InputError(f"{t.where}: the look-at point must differ from the camera position")
     return CameraSpec(

@@ -240,6 +240,8 @@ def _write_video(sc, seed, m: Motion, t_frames, cam_pose, path, progress):
         camera_pose_at=cam_pose, exposure_s=sc.video.exposure_s,
         noise_sigma=sc.video.noise_sigma, seed=_render_seed(seed), floor_seed=sc.texture_seed)
     total = len(t_frames)
+    if progress is not None:
+        progress(0, total)
 
     def counted():
         for i, frame in enumerate(frames):
