@@ -20,9 +20,9 @@ import numpy as np
 
 __all__ = ["SmoothedSignal", "smooth_ca", "Q_GRID", "R_SCALE_GRID"]
 
-Q_GRID = np.logspace(-4, 4, 17)
+Q_GRID = np.logspace(-3, 4, 8)
 """Default jerk spectral densities tried [unit^2/s^5]."""
-R_SCALE_GRID = np.array([1.0, 1.5, 2.25, 3.5, 5.0])
+R_SCALE_GRID = np.array([1.0, 2.0, 4.0])
 """Default factors on the given measurement variances tried (never below 1)."""
 
 

@@ -69,7 +69,10 @@ class TrackResult:
 
     track: pd.DataFrame
     """One row per video frame, columns :data:`TRACK_COLUMNS` (SI units, floor frame;
-    ``sigma_xy_m`` is the RMS of the position error magnitude)."""
+    ``sigma_xy_m`` is the RMS of the position error magnitude: the smoother's
+    uncertainty from corner noise, plus a common shift of all corners (``corner_bias_px``
+    per axis) and the registration's pixel residual, both carried to the floor at the
+    marker's image scale)."""
     quality: dict
     """Frames, detection fraction, marker cell size [px], gaps, dropped/duplicated
     frames, registration statistics, readout time [s], corner noise [px]."""
@@ -215,6 +218,8 @@ class PoseFix:
     """Residual degrees of freedom (2 x corners - 3)."""
     scale: float
     """Size of the marker set seen / size in the profile (1 if sizes are right)."""
+    m_per_px: float
+    """Floor metres per image pixel at the marker (RMS over axes and corners) [m/px]."""
 
 
 def _body_corners(marker):
@@ -284,7 +289,8 @@ def fit_pose(detections, markers, registration) -> PoseFix | None:
     except np.linalg.LinAlgError:
         return None
     chi2 = float(np.einsum("ni,nij,nj->", resid, W, resid))
-    return PoseFix(float(t[0]), float(t[1]), th, cov, chi2, 2 * len(b) - 3, scale)
+    m_per_px = math.sqrt(float(np.mean(np.einsum("nii->n", cov_pts))) / 2.0)
+    return PoseFix(float(t[0]), float(t[1]), th, cov, chi2, 2 * len(b) - 3, scale, m_per_px)
 
 
 # ------------------------------------------------------------ registration policy
@@ -548,7 +554,7 @@ def _segments(detected_idx, t, max_gap_s):
 
 
 def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_gap_s,
-            corner_sigma_px, field_profile, warnings):
+            corner_sigma_px, field_profile, warnings, corner_bias_px=0.15):
     """Smooth the per-frame fixes into the truth track and gather the quality."""
     n = len(acc.t)
     t = np.asarray(timing.t_s if timing is not None else acc.t, dtype=float)[:n]
@@ -583,7 +589,11 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
     cov = np.array([f.cov_unit for f in fixes]) * sigma_px**2
     frac = np.nan_to_num(np.asarray(acc.frac, float)[idx])
     t_meas = t[idx] + frac * readout_s
-    reg_m = np.asarray(acc.reg_rms_m, float)
+    # Registration error at the robot: the registration's pixel residual carried to the
+    # floor through the image scale at the marker (floor metres per pixel there).
+    mpp = np.interp(np.arange(n), idx, [f.m_per_px for f in fixes])
+    reg_px = np.asarray(acc.reg_rms_px, float)
+    reg_err = np.where(np.isfinite(reg_px), reg_px * mpp, np.asarray(acc.reg_rms_m, float))
     out = {c: np.full(n, np.nan) for c in TRACK_COLUMNS}
     out["t_s"] = t
     detected = ok.copy()
@@ -606,7 +616,7 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
         out["omega_radps"][rows] = sh.rate
         out["ax_mps2"][rows] = sx.accel
         out["ay_mps2"][rows] = sy.accel
-        reg_var = np.nan_to_num(reg_m[rows]) ** 2
+        reg_var = np.nan_to_num(reg_err[rows]) ** 2 + 2.0 * (corner_bias_px * mpp[rows]) ** 2
         out["sigma_xy_m"][rows] = np.sqrt(sx.sigma_value**2 + sy.sigma_value**2 + reg_var)
         out["sigma_heading_rad"][rows] = sh.sigma_value
         interpolated[rows] = ~ok[rows]
@@ -639,6 +649,7 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
         "marker_scale_median": float(np.median([f.scale for f in fixes])),
         "corner_sigma_px": sigma_px,
         "corner_sigma_source": sigma_source,
+        "corner_bias_px": corner_bias_px,
         "readout_s": readout_s,
         "readout_source": readout_source,
         "rejected_jumps": acc.rejected,
@@ -739,7 +750,8 @@ def _size_warnings(acc, robot, field_profile, quality, warnings):
 
 def track_video(video_path, robot, field, camera=None, *, registrar=None, progress=None,
                 refine="apriltag", readout_s=None, max_gap_s=0.25, corner_sigma_px=None,
-                window=True, threaded=True, register_every="auto", max_speed_mps=5.0):
+                corner_bias_px=0.15, window=True, threaded=True, register_every="auto",
+                max_speed_mps=5.0):
     """Track the robot through a video: the truth track with its 1-sigma.
 
     Parameters
@@ -765,6 +777,11 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
         longer ones are left NaN and reported [s].
     corner_sigma_px : float, optional
         Corner noise [px]; default estimated from the fit residuals of the run.
+    corner_bias_px : float
+        1-sigma of a shift common to all corners of a marker (blur, sampling, print),
+        which fit residuals cannot reveal; it is not averaged down by the smoother [px].
+        Default 0.15 px: sub-pixel corner detectors are good to about 0.1-0.2 px in
+        absolute terms (domain notes section 1, measured).
     window : bool
         Search a window around the predicted marker position first.
     threaded : bool
@@ -816,7 +833,8 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
             truncated = exc
         timing = reader.timing()
     kw = dict(readout_s=readout_s, readout_source=source, max_gap_s=max_gap_s,
-              corner_sigma_px=corner_sigma_px, field_profile=field, warnings=warnings)
+              corner_sigma_px=corner_sigma_px, field_profile=field, warnings=warnings,
+              corner_bias_px=corner_bias_px)
     if truncated is not None:
         partial = None
         if acc.t:

@@ -1,0 +1,56 @@
+"""Tests of vidodo.smooth (Rauch-Tung-Striebel, constant-acceleration model).
+
+References: with vanishing process noise the constant-acceleration model is a quadratic
+in time, so the smoother must equal weighted least squares of a quadratic
+(``numpy.polyfit``); a Gaussian 1-sigma must cover about 95% of errors within 2 sigma
+(normal distribution, handbook value 95.45%).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from vidodo.smooth import smooth_ca
+
+
+def test_no_process_noise_equals_quadratic_least_squares():
+    """q -> 0 with a diffuse prior: the RTS smoother is the polyfit quadratic."""
+    rng = np.random.default_rng(3)  # seed fixed for reproducibility
+    t = np.sort(rng.uniform(0.0, 4.0, 120))
+    z = 0.4 * t**2 - 1.1 * t + 0.3 + rng.normal(0.0, 0.01, t.size)
+    t_out = np.linspace(0.2, 3.8, 25)
+    s = smooth_ca(t, z, np.full(t.size, 0.01), t_out, q=1e-14, r_scale=1.0,
+                  prior_rate=1e4, prior_accel=1e4)
+    c = np.polyfit(t, z, 2)
+    np.testing.assert_allclose(s.value, np.polyval(c, t_out), atol=1e-6)
+    np.testing.assert_allclose(s.rate, np.polyval(np.polyder(c), t_out), atol=1e-5)
+    np.testing.assert_allclose(s.accel, 2 * c[0], atol=1e-5)
+
+
+def test_sigma_covers_errors_on_a_smooth_signal():
+    """Irregular times, output grid off the measurement times; 2-sigma coverage ~95%."""
+    rng = np.random.default_rng(8)  # seed fixed for reproducibility
+    t_out = np.arange(900) / 30.0
+    t_meas = t_out + rng.uniform(0.0, 0.02, t_out.size)  # rolling-shutter-like offsets
+    truth = np.sin(1.3 * t_meas) + 0.2 * np.sin(4.0 * t_meas)
+    sigma = 0.002
+    s = smooth_ca(t_meas, truth + rng.normal(0, sigma, t_meas.size), np.full(t_meas.size, sigma),
+                  t_out)
+    ref = np.sin(1.3 * t_out) + 0.2 * np.sin(4.0 * t_out)
+    err = s.value - ref
+    assert np.sqrt(np.mean(err**2)) < sigma  # smoothing beats the raw noise
+    cover = np.mean(np.abs(err) <= 2 * s.sigma_value)
+    assert 0.88 < cover <= 1.0
+    rate_ref = 1.3 * np.cos(1.3 * t_out) + 0.8 * np.cos(4.0 * t_out)
+    assert np.sqrt(np.mean((s.rate - rate_ref)[10:-10] ** 2)) < 0.05
+
+
+def test_output_order_and_ties():
+    """Outputs come back in the order asked, also when they coincide with measurements."""
+    t = np.array([0.0, 0.1, 0.2, 0.3])
+    z = np.array([1.0, 1.1, 1.2, 1.3])
+    s = smooth_ca(t, z, np.full(4, 1e-4), np.array([0.3, 0.0, 0.15]), q=1.0, r_scale=1.0)
+    np.testing.assert_allclose(s.value, [1.3, 1.0, 1.15], atol=1e-3)
+    with pytest.raises(ValueError, match="no measurements"):
+        smooth_ca([], [], [], [0.0])

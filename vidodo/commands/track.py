@@ -1,0 +1,105 @@
+"""``vidodo track VIDEO --robot R.toml --field F.toml --out track.csv``: the truth track."""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import numpy as np
+
+from ..outputs import atomic_file
+from ..profiles import load_camera, load_field, load_robot
+from ..progress import Progress
+
+NAME = "track"
+HELP = "measure the robot's floor pose in every frame of a video (the truth track)"
+DESCRIPTION = (
+    "Find the robot's marker(s) in every frame, map them to the floor through the "
+    "floor registration (correcting the marker height and the rolling shutter), smooth "
+    "and write one CSV row per frame: t_s, x_m, y_m, heading_rad, sigma_xy_m, "
+    "sigma_heading_rad, vx_mps, vy_mps, speed_mps, omega_radps, ax_mps2, ay_mps2, "
+    "detected, interpolated. A JSON file with the quality figures is written beside it."
+)
+
+
+def add_arguments(parser):
+    """Options of the verb."""
+    parser.add_argument("video", type=Path, help="the footage (MP4, MOV, ...)")
+    parser.add_argument("--robot", type=Path, required=True, help="robot profile (TOML)")
+    parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
+    parser.add_argument("--camera", type=Path, help="camera profile (TOML): lens, readout")
+    parser.add_argument("--out", type=Path, required=True, help="track CSV to write")
+    parser.add_argument("--refine", choices=("apriltag", "subpix", "contour", "none"),
+                        default="apriltag", help="corner refinement (default: %(default)s)")
+    parser.add_argument("--readout-ms", type=float,
+                        help="rolling-shutter readout time [ms] (default: camera profile)")
+    parser.add_argument("--max-gap-s", type=float, default=0.25,
+                        help="bridge gaps up to this long, leave longer ones empty "
+                        "(default: %(default)s)")
+    parser.add_argument("--points", type=Path,
+                        help="CSV of u_px, v_px, x_m, y_m floor points for registration")
+
+
+def _quality_json(result) -> str:
+    def plain(v):
+        if isinstance(v, dict):
+            return {str(k): plain(x) for k, x in v.items()}
+        if isinstance(v, list | tuple):
+            return [plain(x) for x in v]
+        if isinstance(v, np.generic):
+            return v.item()
+        if isinstance(v, float) and not np.isfinite(v):
+            return None
+        return v
+
+    return json.dumps({"quality": plain(result.quality), "warnings": result.warnings},
+                      indent=2)
+
+
+def _write(result, out: Path):
+    from ..track import save_track_csv
+
+    with atomic_file(out) as tmp:
+        save_track_csv(result, tmp)
+    with atomic_file(out.with_suffix(".quality.json")) as tmp:
+        tmp.write_text(_quality_json(result))
+
+
+def run(args) -> int:
+    """Track, write the CSV (also the part before a truncation), report."""
+    from ..register import FloorRegistrar
+    from ..track import track_video
+    from ..video import VideoTruncatedError
+
+    robot = load_robot(args.robot)
+    field = load_field(args.field)
+    camera = load_camera(args.camera) if args.camera else None
+    registrar = FloorRegistrar(field, camera, points_csv=args.points)
+    readout = None if args.readout_ms is None else args.readout_ms / 1000.0
+    try:
+        with Progress(desc="tracking", quiet=args.quiet) as bar:
+            result = track_video(args.video, robot, field, camera, registrar=registrar,
+                                 progress=bar, refine=args.refine, readout_s=readout,
+                                 max_gap_s=args.max_gap_s)
+    except VideoTruncatedError as exc:
+        if exc.partial is None:
+            raise
+        _write(exc.partial, args.out)
+        print(f"vidodo track: warning: track written up to frame {exc.frames_read} "
+              f"({exc.t_last_s:.3f} s) -> {args.out}", file=sys.stderr)
+        raise
+    _write(result, args.out)
+    for w in result.warnings:
+        print(f"vidodo track: warning: {w}", file=sys.stderr)
+    if not args.quiet:
+        q = result.quality
+        tr = result.track
+        print(f"{q['frames']} frames, marker found in {q['detected_frames']} "
+              f"({100 * q['detected_fraction']:.1f}%), {q['interpolated_frames']} bridged, "
+              f"{len(q['long_gaps'])} long gaps -> {args.out}")
+        print(f"  marker cells {q['marker_cell_px_min']:.1f}-{q['marker_cell_px_median']:.1f} "
+              f"px (min-median), corner noise {q['corner_sigma_px']:.2f} px, median 1-sigma "
+              f"{1000 * np.nanmedian(tr['sigma_xy_m']):.1f} mm / "
+              f"{np.degrees(np.nanmedian(tr['sigma_heading_rad'])):.2f} deg")
+    return 0
