@@ -1,0 +1,230 @@
+"""Feature-based re-registration of a frame to a reference view of the floor.
+
+Two tools, used by :class:`vidodo.register.FloorRegistrar` for hand-held footage:
+
+* :func:`match_homography`: scale-invariant keypoints (SIFT, Lowe, IJCV 60(2), 2004;
+  or ORB) matched with Lowe's ratio test, a homography fitted with RANSAC (Fischler &
+  Bolles, CACM 24(6), 1981) and refined on its inliers. Slow but needs no prior.
+* :class:`FloorPatchTracker`: corners picked once on the reference floor (inside the
+  field, away from masked pixels) and found again in each new frame by pyramidal
+  Lucas-Kanade (Bouguet's implementation in OpenCV) after warping the new frame close
+  to the reference view with a predicted homography. Fast and sub-pixel.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+__all__ = ["HomographyMatch", "match_homography", "refine_homography", "FloorPatchTracker",
+           "to_grey"]
+
+
+def to_grey(frame):
+    """Greyscale uint8 view of a BGR or grey frame."""
+    if frame.ndim == 3:
+        return cv2.cvtColor(frame, cv2.COLOR_BGR2GRAY)
+    return frame
+
+
+@dataclass(frozen=True)
+class HomographyMatch:
+    """A homography fitted to feature matches between two images."""
+
+    H: np.ndarray | None
+    """3x3 map from the first image's pixels to the second's, or None on failure."""
+    n_matches: int
+    """Matches that passed the ratio test."""
+    n_inliers: int
+    """RANSAC inliers."""
+    rms_px: float
+    """RMS transfer error of the inliers in the second image [px]."""
+    reason: str = ""
+    """Why it failed (empty on success)."""
+
+
+def _mask_u8(mask, shape):
+    """OpenCV detection mask (255 = use) from a boolean 'ignore these pixels' mask."""
+    if mask is None:
+        return None
+    m = np.asarray(mask)
+    if m.shape[:2] != shape[:2]:
+        raise ValueError(f"mask shape {m.shape[:2]} differs from the frame's {shape[:2]}")
+    return np.where(m.astype(bool), 0, 255).astype(np.uint8)
+
+
+def match_homography(image_a, image_b, *, ignore_a=None, ignore_b=None, detector="sift",
+                     max_features=4000, ratio=0.75, ransac_px=3.0, min_inliers=15):
+    """Homography from image A to image B by feature matching and RANSAC.
+
+    Parameters
+    ----------
+    image_a, image_b : ndarray
+        BGR or grey images.
+    ignore_a, ignore_b : ndarray of bool, optional
+        Pixels to ignore (True), e.g. the robot or everything off the floor.
+    detector : {'sift', 'orb'}
+        Keypoint detector and descriptor.
+    ratio : float
+        Lowe's ratio-test threshold.
+    ransac_px : float
+        RANSAC inlier threshold [px].
+    min_inliers : int
+        Fewer inliers than this is a failure.
+
+    Returns
+    -------
+    HomographyMatch
+        Never raises for poor images; failure is ``H is None`` with a reason.
+    """
+    ga, gb = to_grey(image_a), to_grey(image_b)
+    if detector == "sift":
+        det = cv2.SIFT_create(nfeatures=max_features)
+        norm = cv2.NORM_L2
+    elif detector == "orb":
+        det = cv2.ORB_create(nfeatures=max_features)
+        norm = cv2.NORM_HAMMING
+    else:
+        raise ValueError(f"detector {detector!r}: use 'sift' or 'orb'")
+    ka, da = det.detectAndCompute(ga, _mask_u8(ignore_a, ga.shape))
+    kb, db = det.detectAndCompute(gb, _mask_u8(ignore_b, gb.shape))
+    if da is None or db is None or len(ka) < 4 or len(kb) < 4:
+        return HomographyMatch(None, 0, 0, float("nan"), "too few keypoints")
+    pairs = cv2.BFMatcher(norm).knnMatch(da, db, k=2)
+    good = [p[0] for p in pairs if len(p) == 2 and p[0].distance < ratio * p[1].distance]
+    if len(good) < min_inliers:
+        return HomographyMatch(None, len(good), 0, float("nan"),
+                               f"only {len(good)} feature matches")
+    pa = np.float64([ka[m.queryIdx].pt for m in good])
+    pb = np.float64([kb[m.trainIdx].pt for m in good])
+    H, inl = cv2.findHomography(pa, pb, cv2.RANSAC, ransac_px, maxIters=5000,
+                                confidence=0.999)
+    if H is None:
+        return HomographyMatch(None, len(good), 0, float("nan"), "RANSAC found no model")
+    inl = inl.ravel().astype(bool)
+    if inl.sum() < min_inliers:
+        return HomographyMatch(None, len(good), int(inl.sum()), float("nan"),
+                               f"only {int(inl.sum())} RANSAC inliers")
+    # Least-squares (Levenberg-Marquardt) refit on the inliers only.
+    H, _ = cv2.findHomography(pa[inl], pb[inl], 0)
+    proj = cv2.perspectiveTransform(pa[inl].reshape(-1, 1, 2), H).reshape(-1, 2)
+    rms = float(np.sqrt(np.mean(np.sum((proj - pb[inl]) ** 2, axis=1))))
+    return HomographyMatch(H / H[2, 2], len(good), int(inl.sum()), rms)
+
+
+class FloorPatchTracker:
+    """Find reference floor corners again in later frames.
+
+    Parameters
+    ----------
+    ref_grey : ndarray of shape (H, W), uint8
+        The reference frame.
+    usable : ndarray of bool, shape (H, W)
+        Pixels where floor corners may be picked (True): the field, minus the robot.
+    max_points : int
+        Corners to pick.
+    """
+
+    def __init__(self, ref_grey, usable, *, max_points=500, min_distance_px=None):
+        self.ref = ref_grey
+        h, w = ref_grey.shape
+        md = min_distance_px or max(8, int(0.01 * max(h, w)))
+        usable_u8 = usable.astype(np.uint8) * 255
+        # Keep corners away from the usable region's border (the robot, the field edge).
+        usable_u8 = cv2.erode(usable_u8, np.ones((15, 15), np.uint8))
+        pts = cv2.goodFeaturesToTrack(ref_grey, max_points, 0.01, md, mask=usable_u8,
+                                      blockSize=7)
+        self.ref_px = (np.zeros((0, 2)) if pts is None
+                       else pts.reshape(-1, 2).astype(np.float64))
+        self.win = (21, 21)
+
+    @property
+    def n_points(self) -> int:
+        """Corners held."""
+        return len(self.ref_px)
+
+    def locate(self, grey, H_guess=None, *, ignore=None, max_err=None):
+        """Where the reference corners are in ``grey``.
+
+        Parameters
+        ----------
+        grey : ndarray of shape (H, W), uint8
+            The new frame.
+        H_guess : ndarray of shape (3, 3), optional
+            Approximate map from reference pixels to new-frame pixels; None: identity.
+        ignore : ndarray of bool, optional
+            New-frame pixels to ignore (the robot).
+
+        Returns
+        -------
+        (ndarray of shape (N, 2), ndarray of bool (N,))
+            New-frame pixel of every reference corner [px], and which were found.
+        """
+        n = len(self.ref_px)
+        if n == 0:
+            return np.full((0, 2), np.nan), np.zeros(0, bool)
+        if H_guess is None:
+            H_guess = np.eye(3)
+        H_guess = np.asarray(H_guess, float)
+        h, w = self.ref.shape
+        if np.allclose(H_guess, np.eye(3), atol=1e-9):
+            warped = grey
+        else:
+            warped = cv2.warpPerspective(grey, H_guess, (w, h),
+                                         flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP)
+        p0 = self.ref_px.astype(np.float32).reshape(-1, 1, 2)
+        crit = (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 30, 0.005)
+        p1, st, _err = cv2.calcOpticalFlowPyrLK(self.ref, warped, p0, None,
+                                                winSize=self.win, maxLevel=3, criteria=crit)
+        # Forward-backward check (Kalal et al., ICPR 2010) rejects patches that drifted.
+        p0b, st_b, _ = cv2.calcOpticalFlowPyrLK(warped, self.ref, p1, None,
+                                                winSize=self.win, maxLevel=3, criteria=crit)
+        fb = np.linalg.norm(p0b.reshape(-1, 2) - self.ref_px, axis=1)
+        ok = (st.ravel() == 1) & (st_b.ravel() == 1) & (fb < 0.5)
+        found = cv2.perspectiveTransform(p1.reshape(-1, 1, 2).astype(np.float64),
+                                         H_guess).reshape(-1, 2)
+        inside = ((found[:, 0] >= 0) & (found[:, 0] <= grey.shape[1] - 1)
+                  & (found[:, 1] >= 0) & (found[:, 1] <= grey.shape[0] - 1))
+        ok &= inside
+        if ignore is not None:
+            ui = np.clip(np.round(found[:, 0]).astype(int), 0, grey.shape[1] - 1)
+            vi = np.clip(np.round(found[:, 1]).astype(int), 0, grey.shape[0] - 1)
+            ok &= ~np.asarray(ignore, bool)[vi, ui]
+        found[~ok] = np.nan
+        return found, ok
+
+
+def refine_homography(image_a, image_b, H, *, ignore_a=None, ignore_b=None, iterations=2,
+                      ransac_px=1.0, tracker=None):
+    """Sharpen a homography A -> B by sub-pixel patch tracking through it.
+
+    Corners of A are found in B with :class:`FloorPatchTracker` after warping B by the
+    current estimate, and the homography is refitted (RANSAC, then least squares on the
+    inliers). Returns a :class:`HomographyMatch`; ``H is None`` when too few corners
+    were found.
+    """
+    ga, gb = to_grey(image_a), to_grey(image_b)
+    if tracker is None:
+        usable = np.ones(ga.shape, bool) if ignore_a is None else ~np.asarray(ignore_a, bool)
+        tracker = FloorPatchTracker(ga, usable)
+    H = np.asarray(H, float)
+    result = HomographyMatch(None, tracker.n_points, 0, float("nan"), "no corners")
+    for _ in range(iterations):
+        found, ok = tracker.locate(gb, H, ignore=ignore_b)
+        if ok.sum() < 8:
+            return HomographyMatch(None, tracker.n_points, int(ok.sum()), float("nan"),
+                                   f"only {int(ok.sum())} corners found again")
+        pa, pb = tracker.ref_px[ok], found[ok]
+        Hn, inl = cv2.findHomography(pa, pb, cv2.RANSAC, ransac_px, maxIters=2000)
+        if Hn is None or inl.sum() < 8:
+            return HomographyMatch(None, tracker.n_points, 0, float("nan"),
+                                   "corners found again do not agree on one plane")
+        inl = inl.ravel().astype(bool)
+        Hn, _ = cv2.findHomography(pa[inl], pb[inl], 0)
+        proj = cv2.perspectiveTransform(pa[inl].reshape(-1, 1, 2), Hn).reshape(-1, 2)
+        rms = float(np.sqrt(np.mean(np.sum((proj - pb[inl]) ** 2, axis=1))))
+        H = Hn / Hn[2, 2]
+        result = HomographyMatch(H, tracker.n_points, int(inl.sum()), rms)
+    return result

@@ -1,0 +1,728 @@
+"""The automatic tile grid: find the floor's tile seams and fit the field's N x M grid.
+
+Steps (no markers, no clicks):
+
+1. Line segments (LSD, von Gioi et al., IEEE PAMI 32(4), 2010) are grouped by the two
+   vanishing points of the seam families, each found by RANSAC over segment pairs and
+   refined by least squares.
+2. The line through both vanishing points (the floor's horizon) is sent to infinity;
+   in that affinely rectified frame each family is a set of parallel, equally spaced
+   lines (an affine map keeps ratios along parallel lines; Hartley & Zisserman,
+   *Multiple View Geometry*, 2nd ed., section 2.7). The spacing and phase of each
+   family come from the strongest periodic component of the segment positions.
+3. The field is the window of ``tiles_x + 1`` by ``tiles_y + 1`` lattice lines with the
+   most seam evidence; its corner named by ``origin_hint`` (as seen from the camera) or
+   the one that puts a visible floor fiducial where the profile says becomes the
+   origin, with x and y right-handed (z up).
+4. The lattice corners give a first camera fit; :func:`refine_fit` then samples the
+   image across every seam, locates the seam to a fraction of a pixel, and fits pose,
+   focal length and radial distortion to all seam samples (a seam must be straight on
+   the floor, so its bending in the image measures the lens distortion).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+from .errors import CalibrationError
+from .profiles import CameraProfile, FieldProfile
+
+__all__ = ["GridResult", "find_grid", "refine_fit", "seam_samples", "find_seams",
+           "CORNER_NAMES"]
+
+CORNER_NAMES = ("near-left", "near-right", "far-right", "far-left")
+
+
+@dataclass(frozen=True)
+class GridResult:
+    """The fitted tile grid of one frame."""
+
+    fit: object
+    """:class:`vidodo.register.CameraFit` after seam refinement."""
+    origin: str
+    """Which field corner (as seen from the camera) is the floor origin."""
+    origin_from: str
+    """'hint' or 'floor marker'."""
+    n_segments: int
+    """Line segments on the two seam families."""
+    warnings: tuple[str, ...] = ()
+
+
+# ----------------------------------------------------------------- segments & VPs
+def _ridge_strength(grey, sigma_px=1.5):
+    """Thin-line strength: Hessian eigenvalue contrast at scale ``sigma_px``.
+
+    A line (dark or bright) curves the intensity strongly across and little along,
+    so ``|l_big| - 2 |l_small|`` is large on it and near zero on isotropic grain
+    (after the vesselness idea of Frangi et al., MICCAI 1998).
+    """
+    g = cv2.GaussianBlur(grey.astype(np.float32), (0, 0), sigma_px)
+    dxx = cv2.Sobel(g, cv2.CV_32F, 2, 0, ksize=3)
+    dyy = cv2.Sobel(g, cv2.CV_32F, 0, 2, ksize=3)
+    dxy = cv2.Sobel(g, cv2.CV_32F, 1, 1, ksize=3)
+    half_tr = (dxx + dyy) / 2
+    root = np.sqrt(((dxx - dyy) / 2) ** 2 + dxy ** 2)
+    l_big = np.abs(half_tr) + root
+    l_small = np.abs(np.abs(half_tr) - root)
+    return np.maximum(l_big - 2 * l_small, 0)
+
+
+def _segments(grey, ignore=None, min_len_px=None):
+    """Straight segments: thin seams (Hough on ridge strength) and strong edges (LSD)."""
+    h, w = grey.shape
+    min_len = min_len_px or max(12.0, 0.012 * math.hypot(w, h))
+    ridge = _ridge_strength(grey)
+    binary = (ridge > max(np.percentile(ridge, 96), 1e-3)).astype(np.uint8) * 255
+    if ignore is not None:
+        binary[np.asarray(ignore, bool)] = 0
+    g = cv2.GaussianBlur(grey, (0, 0), 1.0)
+    grad = cv2.magnitude(cv2.Sobel(g, cv2.CV_32F, 1, 0), cv2.Sobel(g, cv2.CV_32F, 0, 1))
+    evidence = (binary > 0) | (grad > np.percentile(grad, 96))
+    evidence = cv2.dilate(evidence.astype(np.uint8), np.ones((5, 5), np.uint8)) > 0
+    hp = cv2.HoughLinesP(binary, 1, np.pi / 360, 40, minLineLength=0.04 * max(h, w),
+                         maxLineGap=6)
+    parts = [np.zeros((0, 4))] if hp is None else [hp.reshape(-1, 4).astype(np.float64)]
+    lsd = cv2.createLineSegmentDetector(cv2.LSD_REFINE_STD)
+    lines = lsd.detect(grey)[0]
+    if lines is not None:
+        seg = lines.reshape(-1, 4).astype(np.float64)
+        length = np.hypot(seg[:, 2] - seg[:, 0], seg[:, 3] - seg[:, 1])
+        parts.append(seg[length >= 2 * min_len])
+    seg = np.vstack(parts)
+    if ignore is not None and len(seg):
+        mid = (seg[:, :2] + seg[:, 2:]) / 2
+        ui = np.clip(mid[:, 0].round().astype(int), 0, w - 1)
+        vi = np.clip(mid[:, 1].round().astype(int), 0, h - 1)
+        seg = seg[~np.asarray(ignore, bool)[vi, ui]]
+    return seg, evidence
+
+
+def _hom_lines(seg):
+    p = np.column_stack([seg[:, :2], np.ones(len(seg))])
+    q = np.column_stack([seg[:, 2:], np.ones(len(seg))])
+    ln = np.cross(p, q)
+    return ln / np.linalg.norm(ln[:, :2], axis=1, keepdims=True)
+
+
+def _vp_consistent(seg, vp, tol_rad):
+    """Angle between each segment and the direction from its midpoint to ``vp``."""
+    mid = (seg[:, :2] + seg[:, 2:]) / 2
+    d = seg[:, 2:] - seg[:, :2]
+    if abs(vp[2]) > 1e-12:
+        to = vp[:2] / vp[2] - mid
+    else:
+        to = np.broadcast_to(vp[:2], mid.shape)
+    cross = d[:, 0] * to[:, 1] - d[:, 1] * to[:, 0]
+    dot = d[:, 0] * to[:, 0] + d[:, 1] * to[:, 1]
+    ang = np.abs(np.arctan2(cross, dot))
+    ang = np.minimum(ang, math.pi - ang)
+    return ang < tol_rad
+
+
+def _fit_vp(lines, weights):
+    """Least-squares vanishing point of homogeneous lines (smallest eigenvector)."""
+    m = (lines * weights[:, None]).T @ lines
+    _w, v = np.linalg.eigh(m)
+    return v[:, 0]
+
+
+def _find_vp(seg, cond, rng, tol_rad, iters=600, exclude=None):
+    """RANSAC vanishing point over segments (conditioned coordinates)."""
+    n = len(seg)
+    if n < 4:
+        return None, np.zeros(n, bool)
+    length = np.hypot(seg[:, 2] - seg[:, 0], seg[:, 3] - seg[:, 1])
+    lines = _hom_lines(seg)
+    prob = length / length.sum()
+    best, best_score = None, -1.0
+    for _ in range(iters):
+        i, j = rng.choice(n, 2, replace=False, p=prob)
+        vp = np.cross(lines[i], lines[j])
+        if not np.all(np.isfinite(vp)) or np.linalg.norm(vp) == 0:
+            continue
+        if exclude is not None and _same_direction(vp, exclude, cond):
+            continue
+        inl = _vp_consistent(seg, vp, tol_rad)
+        score = length[inl].sum()
+        if score > best_score:
+            best, best_score = vp, score
+    if best is None:
+        return None, np.zeros(n, bool)
+    inl = _vp_consistent(seg, best, tol_rad)
+    for _ in range(3):
+        if inl.sum() < 2:
+            break
+        vp = _fit_vp(lines[inl], length[inl])
+        new = _vp_consistent(seg, vp, tol_rad)
+        best, inl = vp, new
+    return best, inl
+
+
+def _same_direction(vp, other, cond):
+    """True when two vanishing points are nearly the same (as seen from the image centre)."""
+    a = _vp_dir(vp, cond)
+    b = _vp_dir(other, cond)
+    return abs(a[0] * b[1] - a[1] * b[0]) < math.sin(math.radians(8))
+
+
+def _vp_dir(vp, cond):
+    c = cond
+    if abs(vp[2]) > 1e-12:
+        d = vp[:2] / vp[2] - c
+    else:
+        d = vp[:2].copy()
+    n = np.linalg.norm(d)
+    return d / n if n > 0 else d
+
+
+# ---------------------------------------------------------------------- lattice
+def _periodic(pos, weight, p_min, p_max, tol=0.1):
+    """Largest period in [p_min, p_max] at which the most line positions fall on a lattice.
+
+    For each trial period the phase is the weighted circular mean; a line is on the
+    lattice when it lies within ``tol`` periods of a lattice line. The true spacing
+    and its integer fractions all fit every line; the largest such period is taken.
+
+    Returns
+    -------
+    (period, phase, fraction of lines on the lattice)
+    """
+    periods = np.geomspace(p_min, p_max, 2000)
+    ph = 2 * np.pi * pos[None, :] / periods[:, None]
+    z = (weight[None, :] * np.exp(1j * ph)).sum(axis=1)
+    resid = np.angle(np.exp(1j * (ph - np.angle(z)[:, None]))) / (2 * np.pi)
+    on = (np.abs(resid) < tol) * weight[None, :]
+    count = on.sum(axis=1)
+    k = int(np.nonzero(count >= 0.9 * count.max())[0][-1])
+    period = float(periods[k])
+    phase = float(np.angle(z[k]) / (2 * np.pi) * period)
+    return period, phase, float(count[k] / weight.sum())
+
+
+def _cluster_positions(pos, weight, tol):
+    """Weighted centres of runs of sorted positions closer than ``tol``."""
+    order = np.argsort(pos)
+    p, w = pos[order], weight[order]
+    breaks = np.nonzero(np.diff(p) > tol)[0] + 1
+    return np.array([np.average(pp, weights=ww) for pp, ww in
+                     zip(np.split(p, breaks), np.split(w, breaks), strict=True)])
+
+
+def _refine_period(centres, period, phase, rounds=4):
+    """Least-squares line ``c = phase + k * period`` through the lines near the lattice."""
+    for _ in range(rounds):
+        k = np.round((centres - phase) / period)
+        near = np.abs(centres - phase - k * period) < 0.15 * period
+        if near.sum() < 3 or np.ptp(k[near]) < 2:
+            break
+        a = np.column_stack([np.ones(near.sum()), k[near]])
+        phase, period = np.linalg.lstsq(a, centres[near], rcond=None)[0]
+    return float(period), float(phase)
+
+
+def _window(support, n_lines):
+    """Start index of the n_lines consecutive lattice lines with the most support."""
+    if len(support) < n_lines:
+        return None, 0.0
+    sums = np.convolve(support, np.ones(n_lines), mode="valid")
+    s = int(np.argmax(sums))
+    return s, float(sums[s])
+
+
+def _rectifier(vp1, vp2):
+    """A homography sending the line through both vanishing points to infinity."""
+    horizon = np.cross(vp1, vp2)
+    horizon = horizon / np.linalg.norm(horizon)
+    u, _s, _vt = np.linalg.svd(np.eye(3) - np.outer(horizon, horizon))
+    basis = u[:, :2]
+    return np.vstack([basis.T, horizon])
+
+
+def _apply(hm, pts):
+    p = np.column_stack([pts, np.ones(len(pts))]) @ hm.T
+    return p[:, :2] / p[:, 2:3]
+
+
+def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng):
+    """Image positions of every lattice corner of the field window (first guess)."""
+    h, w = grey.shape
+    seg, evidence = _segments(grey, ignore)
+    if camera is not None and len(seg):
+        k, d = camera.matrix, camera.dist_coeffs
+        seg = cv2.undistortPoints(seg.reshape(-1, 1, 2), k, d, P=k).reshape(-1, 4)
+    if len(seg) < 8:
+        raise CalibrationError(f"grid: only {len(seg)} straight edges in the frame; tile "
+                               "seams not visible - use floor markers or a points file")
+    # Condition: centre and scale so that homogeneous maths is well behaved.
+    scale = 2.0 / math.hypot(w, h)
+    centre = np.array([w / 2.0, h / 2.0])
+    cseg = np.column_stack([(seg[:, :2] - centre) * scale, (seg[:, 2:] - centre) * scale])
+    tol = math.radians(1.5)
+    vp1, in1 = _find_vp(cseg, np.zeros(2), rng, tol)
+    if vp1 is None or in1.sum() < 3:
+        raise CalibrationError("grid: no family of parallel tile seams found")
+    rest = ~in1
+    vp2, in2r = _find_vp(cseg[rest], np.zeros(2), rng, tol, exclude=vp1)
+    if vp2 is None or in2r.sum() < 3:
+        raise CalibrationError("grid: only one direction of tile seams found; film the "
+                               "floor at an angle that shows both")
+    in2 = np.zeros(len(cseg), bool)
+    in2[np.nonzero(rest)[0][in2r]] = True
+    rect = _rectifier(vp1, vp2)
+    fam = []
+    # Floor side of the horizon: the side holding the segments.
+    for inl in (in1, in2):
+        s = cseg[inl]
+        a = _apply(rect, s[:, :2])
+        b = _apply(rect, s[:, 2:])
+        d = _apply(rect, np.array([[0.0, 0.0]]))  # reference point only
+        direc = b - a
+        ang = np.arctan2(direc[:, 1], direc[:, 0])
+        mean_dir = np.angle(np.sum(np.hypot(*direc.T) * np.exp(2j * ang))) / 2
+        nrm = np.array([-math.sin(mean_dir), math.cos(mean_dir)])
+        pos = ((a + b) / 2 - d) @ nrm
+        fam.append(dict(pos=pos, weight=np.hypot(*direc.T), normal=nrm, ref=d[0],
+                        dir=np.array([math.cos(mean_dir), math.sin(mean_dir)])))
+    n_max = max(field.tiles_x, field.tiles_y)
+    n_min = min(field.tiles_x, field.tiles_y)
+    lattices = []
+    for f in fam:
+        lo, hi = np.percentile(f["pos"], [1, 99])
+        extent = max(hi - lo, 1e-9)
+        # One vote per distinct line: strong edges (the field border) must not outvote
+        # the faint seams when finding the spacing.
+        centres = _cluster_positions(f["pos"], f["weight"], extent / (8 * (n_max + 2)))
+        period, phase, coh = _periodic(centres, np.ones(len(centres)),
+                                       extent / (3 * n_max + 2),
+                                       extent / max(n_min - 1, 1) * 1.2)
+        period, phase = _refine_period(centres, period, phase)
+        k_lo = int(math.floor((f["pos"].min() - phase) / period)) - 1
+        k_hi = int(math.ceil((f["pos"].max() - phase) / period)) + 1
+        ks = np.arange(k_lo, k_hi + 1)
+        lattices.append(dict(f, period=period, phase=phase, coh=coh, ks=ks))
+    rect_inv = np.linalg.inv(rect)
+
+    def to_image(pts_rect):
+        img = _apply(rect_inv, pts_rect) / scale + centre
+        if camera is not None:  # back to distorted pixels
+            k, d = camera.matrix, camera.dist_coeffs
+            norm = cv2.undistortPoints(img.reshape(-1, 1, 2), k, None).reshape(-1, 2)
+            obj = np.column_stack([norm, np.ones(len(norm))])
+            img = cv2.projectPoints(obj, np.zeros(3), np.zeros(3), k, d)[0].reshape(-1, 2)
+        return img
+
+    # Evidence of a seam or edge along each lattice line, measured in the image: the
+    # fraction of the line's visible length that lies on a thin line or strong edge.
+    mids = np.vstack([_apply(rect, (cseg[:, :2] + cseg[:, 2:]) / 2)])
+    for f in lattices:
+        t = (mids - f["ref"]) @ f["dir"]
+        ts = np.linspace(np.percentile(t, 1), np.percentile(t, 99), 240)
+        cover = []
+        for kk in f["ks"]:
+            rho = f["phase"] + kk * f["period"]
+            pts = f["ref"] + rho * f["normal"] + ts[:, None] * f["dir"]
+            img = to_image(pts)
+            inside = ((img[:, 0] >= 0) & (img[:, 0] <= w - 1) & (img[:, 1] >= 0)
+                      & (img[:, 1] <= h - 1) & np.all(np.isfinite(img), axis=1))
+            if inside.sum() < 20:
+                cover.append(0.0)
+                continue
+            ui = img[inside, 0].round().astype(int)
+            vi = img[inside, 1].round().astype(int)
+            cover.append(float(evidence[vi, ui].mean()))
+        f["support"] = np.array(cover)
+    # Which family is x: try both; the window sums decide (ties: family 0 is x).
+    best = None
+    for assign in ((0, 1), (1, 0)):
+        fx, fy = lattices[assign[0]], lattices[assign[1]]
+        sx, vx = _window(fx["support"], field.tiles_x + 1)
+        sy, vy = _window(fy["support"], field.tiles_y + 1)
+        if sx is None or sy is None:
+            continue
+        score = vx + vy
+        if best is None or score > best[0] + 1e-9:
+            best = (score, assign, sx, sy)
+    if best is None:
+        raise CalibrationError(
+            f"grid: fewer seam lines visible than the field's {field.tiles_x} x "
+            f"{field.tiles_y} tiles need; show the whole field or check tiles_x/tiles_y")
+    _score, assign, sx, sy = best
+    warnings = []
+    out = []
+    for f_i, start, n in ((assign[0], sx, field.tiles_x), (assign[1], sy, field.tiles_y)):
+        f = lattices[f_i]
+        sup = f["support"]
+        inside = sup[start:start + n + 1]
+        outside = np.concatenate([sup[:start], sup[start + n + 1:]])
+        if len(outside) and outside.max() > 0.7 * np.median(inside):
+            warnings.append("seam lines continue beyond the field's "
+                            f"{n} tiles in one direction; the field's position in the "
+                            "tiling may be wrong - add a floor marker or a points file")
+        ks = f["ks"][start:start + n + 1]
+        out.append([f["phase"] + k * f["period"] for k in ks])
+    # Lattice corners in rectified coordinates: intersect line families.
+    fx, fy = lattices[assign[0]], lattices[assign[1]]
+    corners = np.empty((field.tiles_x + 1, field.tiles_y + 1, 2))
+    a_mat = np.vstack([fx["normal"], fy["normal"]])
+    for i, px_ in enumerate(out[0]):
+        for j, py_ in enumerate(out[1]):
+            corners[i, j] = np.linalg.solve(a_mat, [px_, py_]) + fx["ref"]
+    img = to_image(corners.reshape(-1, 2))
+    return img.reshape(field.tiles_x + 1, field.tiles_y + 1, 2), int(in1.sum() + in2.sum()), \
+        warnings
+
+
+def _orient(lat_img, field: FieldProfile, origin: str):
+    """Floor coordinates of the lattice corners for a given origin corner.
+
+    ``lat_img[i, j]`` is the image position of the corner between x-family line i and
+    y-family line j of the window. The corner named ``origin`` (as seen from the
+    camera: the near edge is the lowest in the image) becomes (0, 0); x and y follow
+    the field edges so that the frame is right-handed with z up.
+    """
+    nx, ny = field.tiles_x, field.tiles_y
+    idx = {(0, 0): lat_img[0, 0], (nx, 0): lat_img[nx, 0], (nx, ny): lat_img[nx, ny],
+           (0, ny): lat_img[0, ny]}
+    order = [(0, 0), (nx, 0), (nx, ny), (0, ny)]  # around the field
+    edges = [(order[k], order[(k + 1) % 4]) for k in range(4)]
+    near = max(edges, key=lambda e: idx[e[0]][1] + idx[e[1]][1])
+    a, b = near
+    nl, nr = (a, b) if idx[a][0] <= idx[b][0] else (b, a)
+    # far-left: the neighbour of near-left that is not near-right; far-right likewise.
+    def other_neighbour(c, not_this):
+        for e in edges:
+            if c in e:
+                o = e[1] if e[0] == c else e[0]
+                if o != not_this:
+                    return o
+        raise AssertionError
+    fl = other_neighbour(nl, nr)
+    fr = other_neighbour(nr, nl)
+    named = {"near-left": nl, "near-right": nr, "far-right": fr, "far-left": fl}
+    # Right-handed, z up: x runs from the origin towards the next corner clockwise
+    # *in the image* seen from above... spelled out per corner:
+    x_to = {"near-left": "near-right", "near-right": "far-right",
+            "far-right": "far-left", "far-left": "near-left"}
+    y_to = {"near-left": "far-left", "near-right": "near-left",
+            "far-right": "near-right", "far-left": "far-right"}
+    o = np.array(named[origin], float)
+    xv = np.array(named[x_to[origin]], float) - o
+    yv = np.array(named[y_to[origin]], float) - o
+    # xv, yv are lattice-index steps; x must span nx tiles and y ny tiles.
+    if abs(np.abs(xv).sum() - nx) > 0.5 or abs(np.abs(yv).sum() - ny) > 0.5:
+        raise CalibrationError(
+            f"grid: with origin_hint '{origin}' the x edge has {int(np.abs(xv).sum())} "
+            f"tiles but tiles_x = {nx}; swap tiles_x and tiles_y or change origin_hint")
+    ii, jj = np.meshgrid(np.arange(nx + 1), np.arange(ny + 1), indexing="ij")
+    rel = np.stack([ii - o[0], jj - o[1]], axis=-1).astype(float)
+    fx_ = (rel @ xv) / (xv @ xv) * nx
+    fy_ = (rel @ yv) / (yv @ yv) * ny
+    floor = np.stack([fx_, fy_], axis=-1) * field.tile_size_m
+    return floor
+
+
+def _homography_from_lattice(lat_img, floor):
+    hmg, _ = cv2.findHomography(floor.reshape(-1, 2), lat_img.reshape(-1, 2), 0)
+    return hmg
+
+
+def find_grid(grey, field: FieldProfile, *, camera: CameraProfile | None = None, ignore=None,
+              detectors=None, seed=0) -> GridResult:
+    """Register a frame from the tile grid alone.
+
+    Parameters
+    ----------
+    grey : ndarray of shape (H, W), uint8
+    field : FieldProfile
+        ``tiles_x``, ``tiles_y``, ``tile_size_m``, ``origin_hint``; floor fiducials,
+        when listed and visible, decide the origin instead of the hint.
+    camera : CameraProfile, optional
+        Known lens; without it focal length and k1 are fitted to the seams.
+    ignore : ndarray of bool, optional
+        Pixels to ignore (the robot).
+    seed : int
+        RANSAC seed (vanishing points).
+
+    Returns
+    -------
+    GridResult
+
+    Raises
+    ------
+    CalibrationError
+        No seams, one family only, too few seam lines for the field, or a fit that
+        does not hold.
+    """
+    from .register import check_correspondences, detect_floor_markers, fit_camera
+
+    h, w = grey.shape
+    rng = np.random.default_rng(seed)
+    lat_img, n_seg, warnings = _initial_lattice(grey, field, camera, ignore, rng)
+    warnings = list(warnings)
+    candidates = [field.origin_hint]
+    origin_from = "hint"
+    marker_px = marker_fl = None
+    if field.floor_markers:
+        marker_px, marker_fl, seen = detect_floor_markers(grey, field, detectors=detectors,
+                                                          ignore=ignore)
+        if len(marker_px):
+            candidates = list(CORNER_NAMES)
+            origin_from = "floor marker"
+    best = None
+    for origin in candidates:
+        try:
+            floor = _orient(lat_img, field, origin)
+        except CalibrationError:
+            if len(candidates) == 1:
+                raise
+            continue
+        if marker_px is not None and len(marker_px):
+            hmg = _homography_from_lattice(lat_img, floor)
+            guess = cv2.perspectiveTransform(marker_px.reshape(-1, 1, 2),
+                                             np.linalg.inv(hmg)).reshape(-1, 2)
+            err = float(np.mean(np.linalg.norm(guess - marker_fl, axis=1)))
+        else:
+            err = 0.0
+        if best is None or err < best[0]:
+            best = (err, origin, floor)
+    if best is None:
+        raise CalibrationError("grid: no field corner fits the tile counts; check "
+                               "tiles_x and tiles_y")
+    err, origin, floor = best
+    if origin_from == "floor marker" and err > 0.3 * field.tile_size_m:
+        warnings.append(f"floor marker is {err:.2f} m from its profile position under every "
+                        "origin choice; check its x_m, y_m")
+    pts_img = lat_img.reshape(-1, 2)
+    pts_fl = floor.reshape(-1, 2)
+    inside = ((pts_img[:, 0] > -0.5 * w) & (pts_img[:, 0] < 1.5 * w)
+              & (pts_img[:, 1] > -0.5 * h) & (pts_img[:, 1] < 1.5 * h))
+    check_correspondences(pts_img[inside], pts_fl[inside], where="grid corners")
+    fit0 = fit_camera((w, h), points=(pts_img[inside], pts_fl[inside]), camera=camera,
+                      fit_k1=False, outlier_px=None)
+    fit = refine_fit(grey, field, fit0, camera=camera, ignore=ignore)
+    if fit is None:
+        raise CalibrationError("grid: too few tile seams could be located precisely; "
+                               "check focus, lighting and tile contrast")
+    return GridResult(fit, origin, origin_from, n_seg, tuple(warnings) + tuple(fit.warnings))
+
+
+# ------------------------------------------------------------------ seam refinement
+def _erf(x):
+    """Error function, vectorised (Abramowitz & Stegun 7.1.26, |error| < 1.5e-7)."""
+    sign = np.sign(x)
+    x = np.abs(x)
+    t = 1.0 / (1.0 + 0.3275911 * x)
+    y = 1.0 - (((((1.061405429 * t - 1.453152027) * t) + 1.421413741) * t - 0.284496736) * t
+               + 0.254829592) * t * np.exp(-x * x)
+    return sign * y
+
+
+def _seam_lines(field: FieldProfile, step_frac=1 / 10, gap_frac=0.12, border=False):
+    """Floor sample points on the seams, away from seam crossings.
+
+    The field's outer border is left out unless ``border``: where the tiles end the
+    edge is often a gap, a half seam or a different surround, so its image position is
+    a less faithful mark of the tile boundary than an interior seam.
+
+    Returns (points (N, 2) [m], axis (N,), value (N,) [m], normal (N, 2)).
+    """
+    s = field.tile_size_m
+    t = np.arange(gap_frac, 1 - gap_frac + 1e-9, step_frac)
+    pts, axis, val, nrm = [], [], [], []
+    lo = 0 if border else 1
+    for i in range(lo, field.tiles_x + 1 - lo):
+        for j in range(field.tiles_y):
+            y = (j + t) * s
+            pts.append(np.column_stack([np.full_like(y, i * s), y]))
+            axis.append(np.zeros(len(y), int))
+            val.append(np.full(len(y), i * s))
+            nrm.append(np.tile([1.0, 0.0], (len(y), 1)))
+    for j in range(lo, field.tiles_y + 1 - lo):
+        for i in range(field.tiles_x):
+            x = (i + t) * s
+            pts.append(np.column_stack([x, np.full_like(x, j * s)]))
+            axis.append(np.ones(len(x), int))
+            val.append(np.full(len(x), j * s))
+            nrm.append(np.tile([0.0, 1.0], (len(x), 1)))
+    if not pts:
+        return np.zeros((0, 2)), np.zeros(0, int), np.zeros(0), np.zeros((0, 2))
+    return np.vstack(pts), np.concatenate(axis), np.concatenate(val), np.vstack(nrm)
+
+
+def seam_samples(grey, field: FieldProfile, reg, *, half_width_px=8.0, ignore=None,
+                 step_frac=1 / 20, min_contrast=4.0, border=None):
+    """Locate the tile seams across their predicted positions.
+
+    For every sample point on a seam the image is read along the seam's normal
+    (through the current registration ``reg``, anything with ``floor_to_image``),
+    averaged over five parallel profiles 2 px apart along the seam. A thin line
+    (darker or lighter than both sides) is placed at the centroid of its dip; a step
+    between two shades (the field's border) at the peak of the gradient, refined by a
+    parabola. Samples with too little contrast, or touching ignored pixels, are left
+    out.
+
+    Parameters
+    ----------
+    half_width_px : float
+        How far from the predicted position the seam is looked for [px].
+    step_frac : float
+        Spacing of the samples along a seam, as a fraction of the tile side.
+    min_contrast : float
+        Least dip or step, in grey levels, for a sample to count.
+    border : bool, optional
+        Use the field's outer border too (default: only when the field has fewer than
+        3 tiles in a direction).
+
+    Returns
+    -------
+    (ndarray (N, 2), ndarray (N,) int, ndarray (N,))
+        Seam pixels [px], floor axis held constant by that seam, and its value [m].
+    """
+    h, w = grey.shape
+    if border is None:  # interior seams suffice once there are two per direction
+        border = min(field.tiles_x, field.tiles_y) < 3
+    fl, axis, val, nrm = _seam_lines(field, step_frac, border=border)
+    if len(fl) == 0:
+        return np.zeros((0, 2)), np.zeros(0, int), np.zeros(0)
+    delta = 0.01 * field.tile_size_m
+    p0 = reg.floor_to_image(fl)
+    along = nrm[:, ::-1]  # the seam's own direction on the floor
+    tang = reg.floor_to_image(fl + delta * along) - p0
+    across = reg.floor_to_image(fl + delta * nrm) - p0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tang = tang / np.linalg.norm(tang, axis=1, keepdims=True)
+        n = np.column_stack([-tang[:, 1], tang[:, 0]])  # image normal of the seam
+        # Pixels per metre across the seam, measured along the image normal.
+        px_per_m = np.abs(np.sum(across * n, axis=1)) / delta
+    bg_px = 5.0
+    reach = half_width_px + bg_px
+    ok = np.all(np.isfinite(p0), axis=1) & np.all(np.isfinite(n), axis=1)
+    margin = reach + 6
+    ok &= (p0[:, 0] > margin) & (p0[:, 0] < w - 1 - margin)
+    ok &= (p0[:, 1] > margin) & (p0[:, 1] < h - 1 - margin)
+    # The profile must stay well inside one tile on each side of the seam.
+    ok &= px_per_m * field.tile_size_m > 3 * reach
+    if not ok.any():
+        return np.zeros((0, 2)), np.zeros(0, int), np.zeros(0)
+    p0, n, tang, axis, val = p0[ok], n[ok], tang[ok], axis[ok], val[ok]
+    step = 0.5
+    ts = np.arange(-reach, reach + 1e-9, step)
+    img = grey.astype(np.float32)
+    prof = 0.0
+    ig = None if ignore is None else np.asarray(ignore, bool)
+    keep = np.ones(len(p0), bool)
+    offsets = (-4.0, -2.0, 0.0, 2.0, 4.0)
+    for o in offsets:
+        cx = p0[:, 0:1] + o * tang[:, 0:1]
+        cy = p0[:, 1:2] + o * tang[:, 1:2]
+        mx = (cx + ts[None, :] * n[:, 0:1]).astype(np.float32)
+        my = (cy + ts[None, :] * n[:, 1:2]).astype(np.float32)
+        prof = prof + cv2.remap(img, mx, my, cv2.INTER_LINEAR,
+                                borderMode=cv2.BORDER_REPLICATE)
+        if ig is not None:
+            ui = np.clip(np.round(mx).astype(int), 0, w - 1)
+            vi = np.clip(np.round(my).astype(int), 0, h - 1)
+            keep &= ~ig[vi, ui].any(axis=1)
+    prof = prof / len(offsets)
+    sig = 0.75 / step
+    kr = int(3 * sig)
+    kern = np.exp(-0.5 * (np.arange(-kr, kr + 1) / sig) ** 2)
+    prof = cv2.filter2D(prof, -1, (kern / kern.sum())[None, :],
+                        borderType=cv2.BORDER_REPLICATE)
+    nb = int(round(bg_px / step))
+    left = np.median(prof[:, :nb], axis=1)
+    right = np.median(prof[:, -nb:], axis=1)
+    noise = 1.4826 * np.median(np.abs(np.concatenate(
+        [prof[:, :nb] - left[:, None], prof[:, -nb:] - right[:, None]], axis=1)), axis=1)
+    search = prof[:, nb:-nb]
+    t_s = ts[nb:-nb]
+    rows = np.arange(len(prof))
+    edge_strength = np.abs(left - right)
+    # Thin line: a dip (or bump) on top of a possible step between two tile shades.
+    # The step is removed as a blurred step centred on the current estimate, so that the
+    # dip becomes symmetric and its centroid unbiased (two passes).
+    raw_dark = np.minimum(left, right)[:, None] - search
+    raw_bright = search - np.maximum(left, right)[:, None]
+    use_bright = raw_bright.max(axis=1) > raw_dark.max(axis=1)
+    t_line = t_s[np.argmax(np.where(use_bright[:, None], raw_bright, raw_dark), axis=1)]
+    blur_px = 1.0
+    win = int(round(3.0 / step))
+    for _pass in range(2):
+        z = (t_s[None, :] - t_line[:, None]) / (blur_px * math.sqrt(2))
+        step_model = left[:, None] + (right - left)[:, None] * 0.5 * (1 + _erf(z))
+        dip = step_model - search
+        dip = np.where(use_bright[:, None], -dip, dip)
+        line_strength = dip.max(axis=1)
+        k = np.argmax(dip, axis=1)
+        idx = k[:, None] + np.arange(-win, win + 1)[None, :]
+        valid_idx = (idx >= 0) & (idx < dip.shape[1])
+        idx_c = np.clip(idx, 0, dip.shape[1] - 1)
+        wgt = np.maximum(dip[rows[:, None], idx_c] - 0.5 * line_strength[:, None], 0)
+        wgt = wgt * valid_idx
+        with np.errstate(invalid="ignore", divide="ignore"):
+            t_new = (wgt * t_s[idx_c]).sum(axis=1) / wgt.sum(axis=1)
+        t_line = np.where(np.isfinite(t_new), t_new, t_line)
+    line_ok = ((k > 0) & (k < dip.shape[1] - 1) & (line_strength > min_contrast)
+               & (line_strength > 4 * noise) & (line_strength > 0.7 * edge_strength))
+    # Step edge: gradient peak with a parabola.
+    grad = np.abs(np.diff(search, axis=1))
+    kg = np.argmax(grad, axis=1)
+    kgc = np.clip(kg, 1, grad.shape[1] - 2)
+    a, b, c = grad[rows, kgc - 1], grad[rows, kgc], grad[rows, kgc + 1]
+    den = a - 2 * b + c
+    with np.errstate(invalid="ignore", divide="ignore"):
+        off = np.clip(np.where(den < 0, 0.5 * (a - c) / den, 0.0), -0.5, 0.5)
+    t_edge = t_s[0] + (kgc + 0.5 + off) * step
+    edge_ok = (~line_ok & (edge_strength > min_contrast) & (edge_strength > 4 * noise)
+               & (kg > 0) & (kg < grad.shape[1] - 1))
+    t_peak = np.where(line_ok, t_line, t_edge)
+    keep &= (line_ok | edge_ok) & np.isfinite(t_peak)
+    q = p0 + t_peak[:, None] * n
+    return q[keep], axis[keep], val[keep]
+
+
+def refine_fit(grey, field: FieldProfile, fit, *, camera: CameraProfile | None = None,
+               ignore=None, rounds=3, min_samples=40):
+    """Refit a camera model on the tile seams, starting from ``fit``.
+
+    Parameters
+    ----------
+    fit : CameraFit
+        The starting model (from markers, points or the lattice corners); it must
+        place every seam within a few pixels.
+    camera : CameraProfile, optional
+        Known lens (held fixed); without it focal length and k1 are fitted too.
+
+    Returns
+    -------
+    CameraFit or None
+        None when fewer than ``min_samples`` seam samples were found.
+    """
+    from .register import FrameRegistration, fit_camera
+
+    h, w = grey.shape
+    cur = fit
+    widths = (12.0, 6.0, 4.0)[-rounds:]
+    out = None
+    for hw in widths[:rounds]:
+        reg = FrameRegistration(0.0, True, cur.camera_matrix, cur.dist_coeffs, cur.rvec,
+                                cur.tvec, 0.0, 0.0, 0, "")
+        q, ax, val = seam_samples(grey, field, reg, half_width_px=hw, ignore=ignore)
+        if len(q) < min_samples:
+            return out
+        free = camera is None
+        cur = fit_camera((w, h), seams=(q, ax, val), camera=camera,
+                         init=(cur.camera_matrix, cur.dist_coeffs, cur.rvec, cur.tvec),
+                         fit_focal=free, fit_k1=free and len(q) >= 200, outlier_px=1.5,
+                         loss_px=0.5)
+        out = cur
+    return out
+
+
+def find_seams(grey, field, reg, **kw):
+    """Seam samples of a registered frame (for previews): see :func:`seam_samples`."""
+    return seam_samples(grey, field, reg, **kw)
