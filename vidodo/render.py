@@ -36,27 +36,11 @@ from scipy.special import ndtri
 
 from .errors import InputError
 from .profiles import CameraProfile, FieldProfile, RobotProfile
-from .render_floor import (
-    FloorTexture,
-    floor_texture,
-    footprint_level,
-    plate_lookup,
-    plate_modules,
-    sample_floor,
-)
+from .render_floor import FloorTexture, floor_texture, footprint_level, sample_floor
+from .render_robot import cast, face_brightness, part_corners, resolve, robot_parts
 
-__all__ = ["render_frames", "camera_rays", "floor_points", "robot_parts", "CHASSIS_BGR"]
+__all__ = ["render_frames", "camera_rays", "floor_points"]
 
-CHASSIS_BGR = (150.0, 96.0, 52.0)
-"""Albedo of the robot's chassis (a blue plastic), as seen lit from straight above."""
-MAST_BGR = (45.0, 45.0, 48.0)
-"""Albedo of a marker mast (dark metal)."""
-MAST_SIDE_M = 0.02
-"""Side of a square marker mast [m]."""
-LIGHT_DIR = np.array([0.35, 0.50, 0.79]) / np.linalg.norm([0.35, 0.50, 0.79])
-"""Direction towards the main light in the floor frame (above, from +x +y)."""
-AMBIENT = 0.45
-"""Share of light that reaches every face regardless of its direction."""
 MAX_FLOOR_DISTANCE_M = 80.0
 """Rays that meet the floor farther than this see the backdrop [m]."""
 
@@ -185,102 +169,7 @@ def floor_points(camera: CameraProfile, rvec, tvec):
     return out
 
 
-# ---------------------------------------------------------------- robot model
-@dataclass(frozen=True)
-class _Box:
-    lo: tuple
-    hi: tuple
-    albedo: tuple
-
-
-@dataclass(frozen=True)
-class _Plate:
-    x_m: float
-    y_m: float
-    z_m: float
-    yaw_rad: float
-    size_m: float
-    half_m: float
-    modules: np.ndarray
-
-
-@dataclass(frozen=True)
-class RobotParts:
-    """The robot as boxes and marker plates in its body frame."""
-
-    boxes: tuple
-    plates: tuple
-    bbox_lo: np.ndarray
-    """Corner of the body-frame bounding box, shape (3,) [m]."""
-    bbox_hi: np.ndarray
-
-
-def robot_parts(robot: RobotProfile, quiet_modules: int = 1) -> RobotParts:
-    """Chassis box, masts and marker plates of a robot, in its body frame.
-
-    The chassis spans ``[-L/2, L/2] x [-W/2, W/2] x [0, H]``. Every marker is a
-    horizontal plate facing up (the printed marker with a white quiet zone of
-    ``quiet_modules`` modules); a marker above the chassis top stands on a square mast.
-    """
-    hl, hw = 0.5 * robot.length_m, 0.5 * robot.width_m
-    boxes = [_Box((-hl, -hw, 0.0), (hl, hw, robot.height_m), CHASSIS_BGR)]
-    plates = []
-    for m in robot.markers:
-        try:
-            modules = plate_modules(m.family, m.id, quiet_modules)
-        except (AttributeError, cv2.error):
-            raise InputError(
-                f"robot profile: marker id {m.id} family {m.family!r} is not a cv2.aruco "
-                "dictionary or the id is out of range; use e.g. DICT_4X4_50"
-            ) from None
-        n = modules.shape[0]
-        half = 0.5 * m.size_m * n / (n - 2 * quiet_modules)
-        plates.append(_Plate(m.x_m, m.y_m, m.z_m, m.yaw_rad, m.size_m, half, modules))
-        if m.z_m > robot.height_m + 1e-4:
-            s = 0.5 * MAST_SIDE_M
-            boxes.append(_Box((m.x_m - s, m.y_m - s, robot.height_m),
-                              (m.x_m + s, m.y_m + s, m.z_m - 1e-4), MAST_BGR))
-    lo = np.min([b.lo for b in boxes], axis=0)
-    hi = np.max([b.hi for b in boxes], axis=0)
-    for p in plates:
-        r = p.half_m * math.sqrt(2.0)
-        lo = np.minimum(lo, [p.x_m - r, p.y_m - r, p.z_m])
-        hi = np.maximum(hi, [p.x_m + r, p.y_m + r, p.z_m])
-    return RobotParts(tuple(boxes), tuple(plates), lo, hi)
-
-
-def _face_brightness(heading):
-    """Relative brightness of faces -x, +x, -y, +y, -z, +z for body headings, (6, ...)."""
-    top = AMBIENT + (1 - AMBIENT) * LIGHT_DIR[2]
-    out = []
-    for phi in (math.pi, 0.0, -0.5 * math.pi, 0.5 * math.pi):
-        ndl = LIGHT_DIR[0] * np.cos(heading + phi) + LIGHT_DIR[1] * np.sin(heading + phi)
-        out.append((AMBIENT + (1 - AMBIENT) * np.maximum(ndl, 0.0)) / top)
-    out.append(np.full_like(heading, AMBIENT / top))
-    out.append(np.ones_like(heading))
-    return np.stack(out).astype(np.float32)
-
-
-def _ray_box(o, inv, d, box: _Box):
-    """Slab test: entry distance (inf on a miss) and entry face index (0..5)."""
-    tn = tf = None
-    nears = []
-    for a in range(3):
-        t1 = (box.lo[a] - o[a]) * inv[a]
-        t2 = (box.hi[a] - o[a]) * inv[a]
-        near = np.minimum(t1, t2)
-        far = np.maximum(t1, t2)
-        nears.append(near)
-        tn = near if tn is None else np.maximum(tn, near)
-        tf = far if tf is None else np.minimum(tf, far)
-    hit = (tn <= tf) & (tn > 0)
-    axis = np.where(tn == nears[0], 0, np.where(tn == nears[1], 1, 2))
-    dir_axis = np.choose(axis, d)
-    face = 2 * axis + (dir_axis < 0)
-    return np.where(hit, tn, np.inf), face
-
-
-# ---------------------------------------------------------------- samples
+# ---------------------------------------------------------------- robot per frame
 def _sample_pattern(k: int):
     """Sub-pixel offsets (k, 2) [px] and exposure fractions (k,) in [-0.5, 0.5]."""
     if k == 1:
@@ -298,134 +187,111 @@ def _sample_pattern(k: int):
     return offs, (order + 0.5) / k - 0.5
 
 
-def _project_bbox(parts: RobotParts, poses, cam_poses, camera):
-    """Image bounding box (u0, v0, u1, v1) of the robot over the given poses, or None."""
-    lo, hi = parts.bbox_lo, parts.bbox_hi
-    corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1])
-                        for z in (lo[2], hi[2])])
-    c, s = np.cos(poses[:, 2]), np.sin(poses[:, 2])
-    wx = poses[:, 0, None] + c[:, None] * corners[:, 0] - s[:, None] * corners[:, 1]
-    wy = poses[:, 1, None] + s[:, None] * corners[:, 0] + c[:, None] * corners[:, 1]
-    pts = np.stack([wx.ravel(), wy.ravel(), np.tile(corners[:, 2], len(poses))], axis=1)
-    us, vs = [], []
+def _to_floor(points_body, poses):
+    """Body-frame points (P, 3) at poses (N, 3) -> floor points (N * P, 3)."""
+    c, s = np.cos(poses[:, 2])[:, None], np.sin(poses[:, 2])[:, None]
+    bx, by = points_body[:, 0][None], points_body[:, 1][None]
+    wx = poses[:, 0, None] + c * bx - s * by
+    wy = poses[:, 1, None] + s * bx + c * by
+    return np.stack([wx.ravel(), wy.ravel(), np.tile(points_body[:, 2], len(poses))], axis=1)
+
+
+def _image_boxes(parts, poses, cam_poses, camera):
+    """Pixel bounding box (u0, v0, u1, v1) of every part over the poses, shape (P, 4).
+
+    A part with a corner behind (or almost at) the camera gets the whole image.
+    """
+    corners = [part_corners(p) for p in parts.boxes + parts.plates]
+    body = np.concatenate(corners)
+    pts = _to_floor(body, poses)
+    n_pose, n_pt = len(poses), len(body)
+    full = np.array([0.0, 0.0, camera.width_px, camera.height_px])
+    boxes = np.tile([np.inf, np.inf, -np.inf, -np.inf], (len(corners), 1))
+    owner = np.repeat(np.arange(len(corners)), 8)
     for rvec, tvec in cam_poses:
-        zc = (pts @ cv2.Rodrigues(rvec)[0].T + tvec)[:, 2]
-        if np.any(zc < 0.05):
-            return (0, 0, camera.width_px, camera.height_px)
-        uv = cv2.projectPoints(pts, rvec, tvec, camera.matrix, camera.dist_coeffs)[0]
-        us.append(uv[:, 0, 0])
-        vs.append(uv[:, 0, 1])
-    u, v = np.concatenate(us), np.concatenate(vs)
-    if not (np.all(np.isfinite(u)) and np.all(np.isfinite(v))):
-        return (0, 0, camera.width_px, camera.height_px)
-    return u.min(), v.min(), u.max(), v.max()
+        zc = (pts @ cv2.Rodrigues(rvec)[0].T + tvec)[:, 2].reshape(n_pose, n_pt)
+        uv = cv2.projectPoints(pts, rvec, tvec, camera.matrix,
+                               camera.dist_coeffs)[0][:, 0].reshape(n_pose, n_pt, 2)
+        for j in range(len(corners)):
+            sel = owner == j
+            if np.any(zc[:, sel] < 0.05) or not np.all(np.isfinite(uv[:, sel])):
+                boxes[j] = full
+                continue
+            u, v = uv[:, sel, 0], uv[:, sel, 1]
+            boxes[j] = [min(boxes[j, 0], u.min()), min(boxes[j, 1], v.min()),
+                        max(boxes[j, 2], u.max()), max(boxes[j, 3], v.max())]
+    return boxes
 
 
 def _draw_robot(frame, parts, rays, cam, camera, t_frame, pose_at, exposure_s, k_samples):
+    """Ray cast the robot over its region of interest and blend it into ``frame``."""
     h, w = camera.height_px, camera.width_px
     readout = camera.readout_s
     span = np.linspace(t_frame - 0.5 * exposure_s, t_frame + readout + 0.5 * exposure_s, 9)
-    poses = _checked_poses(pose_at, span)
     cam_poses = [(cam.rvec, cam.tvec)]
     if cam.rt.shape[0] > 1:
         rot = cam.rt[-1].T
         cam_poses.append((cv2.Rodrigues(rot)[0].ravel(), -rot @ cam.centre[-1]))
-    box = _project_bbox(parts, poses, cam_poses, camera)
-    pad = 3
-    c0 = max(int(math.floor(box[0])) - pad, 0)
-    r0 = max(int(math.floor(box[1])) - pad, 0)
-    c1 = min(int(math.ceil(box[2])) + pad + 1, w)
-    r1 = min(int(math.ceil(box[3])) + pad + 1, h)
+    boxes = _image_boxes(parts, _checked_poses(pose_at, span), cam_poses, camera)
+    pad = 2
+    boxes = np.column_stack([np.floor(boxes[:, :2]) - pad, np.ceil(boxes[:, 2:]) + pad + 1])
+    boxes = np.clip(boxes, 0, [w, h, w, h]).astype(int)
+    c0, r0 = boxes[:, 0].min(), boxes[:, 1].min()
+    c1, r1 = boxes[:, 2].max(), boxes[:, 3].max()
     if c1 <= c0 or r1 <= r0:
         return False
+    windows = [(slice(b[1] - r0, max(b[3], b[1]) - r0), slice(b[0] - c0, max(b[2], b[0]) - c0))
+               for b in boxes]
     if k_samples is None:
         blur_px = _blur_px(parts, pose_at, t_frame, exposure_s, cam_poses[0], camera)
         k_samples = int(np.clip(4 * math.ceil(blur_px / 3.0), 4, 32))
     offs, frac = _sample_pattern(k_samples)
     k = len(frac)
     # rays of every sample: first-order Taylor step from the pixel centre
-    xn = rays.xn[r0:r1, c0:c1][None]
-    yn = rays.yn[r0:r1, c0:c1][None]
     du = offs[:, 0, None, None].astype(np.float32)
     dv = offs[:, 1, None, None].astype(np.float32)
-    xs = xn + du * rays.dxn[0, r0:r1, c0:c1] + dv * rays.dxn[1, r0:r1, c0:c1]
-    ys = yn + du * rays.dyn[0, r0:r1, c0:c1] + dv * rays.dyn[1, r0:r1, c0:c1]
+    win = (slice(r0, r1), slice(c0, c1))
+    xs = rays.xn[win] + du * rays.dxn[0][win] + dv * rays.dxn[1][win]
+    ys = rays.yn[win] + du * rays.dyn[0][win] + dv * rays.dyn[1][win]
     rt, centre = cam.rows(r0, r1)
     dfx, dfy, dfz = _floor_dirs(rt, xs, ys)
-    # robot pose per (sample, row)
-    rows = np.arange(r0, r1)
-    t_rows = t_frame + rows / h * readout
+    # robot pose per (sample, row): rolling shutter plus exposure
+    t_rows = t_frame + np.arange(r0, r1) / h * readout
     t = (t_rows[None, :] + frac[:, None] * exposure_s).ravel()
     pose = _checked_poses(pose_at, t).reshape(k, r1 - r0, 3)
-    th = pose[..., 2]
-    cth, sth = np.cos(th), np.sin(th)
-    cen = np.broadcast_to(centre, (r1 - r0, 3)) if centre.ndim == 2 else centre[None]
+    cth, sth = np.cos(pose[..., 2]), np.sin(pose[..., 2])
+    cen = np.broadcast_to(centre, (r1 - r0, 3))
     rel_x = cen[None, :, 0] - pose[..., 0]
     rel_y = cen[None, :, 1] - pose[..., 1]
-    ox = (cth * rel_x + sth * rel_y).astype(np.float32)[..., None]
-    oy = (-sth * rel_x + cth * rel_y).astype(np.float32)[..., None]
-    oz = np.broadcast_to(cen[None, :, 2], (k, r1 - r0)).astype(np.float32)[..., None]
+    origin = ((cth * rel_x + sth * rel_y).astype(np.float32)[..., None],
+              (cth * rel_y - sth * rel_x).astype(np.float32)[..., None],
+              np.broadcast_to(cen[None, :, 2], (k, r1 - r0)).astype(np.float32)[..., None])
     cth = cth.astype(np.float32)[..., None]
     sth = sth.astype(np.float32)[..., None]
-    dx = cth * dfx + sth * dfy
-    dy = -sth * dfx + cth * dfy
-    dz = np.broadcast_to(dfz, dx.shape)
+    direction = (cth * dfx + sth * dfy, cth * dfy - sth * dfx,
+                 np.broadcast_to(dfz, (k,) + dfz.shape[-2:]))
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        inv = (1.0 / dx, 1.0 / dy, 1.0 / dz)
-        best = np.full(dx.shape, np.inf, np.float32)
-        colour = np.zeros(dx.shape + (3,), np.float32)
-        bright = _face_brightness(th)[..., None]  # (6, k, rows, 1)
-        for part in parts.boxes:
-            tn, face = _ray_box((ox, oy, oz), inv, (dx, dy, dz), part)
-            upd = tn < best
-            if not upd.any():
-                continue
-            best = np.where(upd, tn, best)
-            ki, ri, _ = np.nonzero(upd)
-            shade = bright[face[upd], ki, ri, 0]
-            colour[upd] = shade[:, None] * np.asarray(part.albedo, np.float32)
-        top = float(bright[5].ravel()[0])
-        for p in parts.plates:
-            tp = (p.z_m - oz) * inv[2]
-            px = ox + tp * dx - p.x_m
-            py = oy + tp * dy - p.y_m
-            cy, sy = math.cos(p.yaw_rad), math.sin(p.yaw_rad)
-            lx = cy * px + sy * py
-            ly = -sy * px + cy * py
-            near = (tp > 0) & (np.abs(lx) < p.half_m) & (np.abs(ly) < p.half_m) & (
-                tp <= best * (1 + 1e-5))
-            if not near.any():
-                continue
-            value = plate_lookup(p.modules, p.size_m, lx[near], ly[near])
-            best[near] = tp[near]
-            colour[near] = (top * value)[:, None]
-    hit = np.isfinite(best)
-    frac_hit = hit.mean(axis=0)[..., None]
-    if not frac_hit.any():
+        inverse = tuple(np.float32(1.0) / a for a in direction)
+        sides = face_brightness(pose[..., 2])[..., None]
+        material, shade = cast(parts, origin, direction, inverse, sides, windows)
+    floor_share, colour = resolve(parts, material, shade)
+    if floor_share.min() >= 1.0:
         return False
-    floor = frame[r0:r1, c0:c1].astype(np.float32)
-    out = floor * (1.0 - frac_hit) + colour.sum(axis=0) / k
-    frame[r0:r1, c0:c1] = np.clip(out + 0.5, 0, 255).astype(np.uint8)
+    out = frame[win].astype(np.float32) * floor_share + colour
+    frame[win] = np.minimum(out + 0.5, 255.0).astype(np.uint8)
     return True
 
 
 def _blur_px(parts, pose_at, t_frame, exposure_s, cam_pose, camera):
-    """Largest image motion of the robot's bounding-box corners during one exposure [px]."""
+    """Largest image motion of the robot's part corners during one exposure [px]."""
     if exposure_s <= 0:
         return 0.0
     ends = _checked_poses(pose_at, np.array([t_frame - 0.5 * exposure_s,
                                              t_frame + 0.5 * exposure_s]))
-    lo, hi = parts.bbox_lo, parts.bbox_hi
-    corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1])
-                        for z in (lo[2], hi[2])])
-    uv = []
-    for pose in ends:
-        c, s = math.cos(pose[2]), math.sin(pose[2])
-        pts = np.column_stack([pose[0] + c * corners[:, 0] - s * corners[:, 1],
-                               pose[1] + s * corners[:, 0] + c * corners[:, 1],
-                               corners[:, 2]])
-        uv.append(cv2.projectPoints(pts, cam_pose[0], cam_pose[1], camera.matrix,
-                                    camera.dist_coeffs)[0][:, 0])
+    body = np.concatenate([part_corners(p) for p in parts.boxes + parts.plates])
+    pts = _to_floor(body, ends)
+    uv = cv2.projectPoints(pts, cam_pose[0], cam_pose[1], camera.matrix,
+                           camera.dist_coeffs)[0][:, 0].reshape(2, len(body), 2)
     d = np.hypot(*(uv[1] - uv[0]).T)
     return float(np.nanmax(d)) if np.isfinite(d).any() else 0.0
 
@@ -442,11 +308,9 @@ def _checked_poses(pose_at, t):
 
 # ---------------------------------------------------------------- floor per pose
 def _choose_texel(camera, cam, rays, step=8):
-    fx, fy, valid = _floor_hits(cam, rays.xn[::step, ::step], rays.yn[::step, ::step],
-                                0, camera.height_px)
-    if cam.rt.shape[0] > 1:  # per-row poses: use the top row's for this estimate
+    if cam.rt.shape[0] > 1:  # per-row poses: the top row's pose is enough here
         cam = _CameraRows(cam.rt[:1], cam.centre[:1], cam.rvec, cam.tvec)
-        fx, fy, valid = _floor_hits(cam, rays.xn[::step, ::step], rays.yn[::step, ::step], 0, 1)
+    fx, fy, valid = _floor_hits(cam, rays.xn[::step, ::step], rays.yn[::step, ::step], 0, 1)
     level = footprint_level(np.where(valid, fx, np.nan), np.where(valid, fy, np.nan),
                             1.0, step)
     foot = 2.0 ** level[valid & (level != 0)]
@@ -456,18 +320,66 @@ def _choose_texel(camera, cam, rays, step=8):
     return float(np.clip(round(texel * 1e4) / 1e4, 0.0005, 0.004))
 
 
-def _render_floor(tex: FloorTexture, cam: _CameraRows, rays: CameraRays, camera, step=4):
+def _render_floor(tex: FloorTexture, cam: _CameraRows, rays: CameraRays, camera,
+                  exact: bool):
+    """The floor as the camera sees it in one pose (per-row poses for a moving camera).
+
+    ``exact``: floor point of every pixel from its own ray (a static camera, drawn
+    once). Otherwise the floor points and mip levels come from the rays of a grid every
+    ``COARSE_STEP_PX`` pixels, interpolated bilinearly (error below 0.1 px of floor
+    position for the lenses and poses in benchmarks/render_speed.py).
+    """
     h = camera.height_px
-    fx, fy, valid = _floor_hits(cam, rays.xn, rays.yn, 0, h)
+    step = COARSE_STEP_PX
+    grid = _coarse_grid(camera)
+    sub = cam
     if cam.rt.shape[0] > 1:
-        sub = _CameraRows(cam.rt[::step], cam.centre[::step], cam.rvec, cam.tvec)
-    else:
-        sub = cam
-    cx, cy, cvalid = _floor_hits(sub, rays.xn[::step, ::step], rays.yn[::step, ::step], 0, h)
+        rows = np.minimum(np.arange(grid.xn.shape[0]) * step, h - 1)
+        sub = _CameraRows(cam.rt[rows], cam.centre[rows], cam.rvec, cam.tvec)
+    cx, cy, cvalid = _floor_hits(sub, grid.xn, grid.yn, 0, grid.xn.shape[0])
     level = footprint_level(np.where(cvalid, cx, np.nan), np.where(cvalid, cy, np.nan),
                             tex.texel_m, step)
-    level = cv2.resize(level, (camera.width_px, h), interpolation=cv2.INTER_LINEAR)
+    if exact:
+        fx, fy, valid = _floor_hits(cam, rays.xn, rays.yn, 0, h)
+        level = cv2.remap(level, grid.map_u, grid.map_v, cv2.INTER_LINEAR)
+    else:
+        # a far-away stand-in keeps interpolated points of missed rays off the floor
+        far = 1e4
+        stack = np.dstack([np.where(cvalid, cx, far), np.where(cvalid, cy, far), level,
+                           cvalid.astype(np.float32)]).astype(np.float32)
+        fine = cv2.remap(stack, grid.map_u, grid.map_v, cv2.INTER_LINEAR)
+        fx, fy, level = fine[..., 0], fine[..., 1], fine[..., 2]
+        valid = fine[..., 3] > 0.999
     return sample_floor(tex, fx.astype(np.float32), fy.astype(np.float32), level, valid)
+
+
+COARSE_STEP_PX = 4
+"""Grid spacing of the floor map for a moving camera [px]."""
+
+
+@dataclass(frozen=True)
+class _CoarseGrid:
+    xn: np.ndarray
+    """Ray x/z on grid nodes every COARSE_STEP_PX pixels (covering the image)."""
+    yn: np.ndarray
+    map_u: np.ndarray
+    """Grid column of each pixel (u / step), shape (H, W), float32."""
+    map_v: np.ndarray
+
+
+@functools.lru_cache(maxsize=4)
+def _coarse_grid(camera: CameraProfile) -> _CoarseGrid:
+    step = COARSE_STEP_PX
+    nu = (camera.width_px - 1) // step + 2
+    nv = (camera.height_px - 1) // step + 2
+    u, v = np.meshgrid(np.arange(nu) * float(step), np.arange(nv) * float(step))
+    pts = np.stack([u.ravel(), v.ravel()], axis=1)[:, None, :]
+    crit = (cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 100, 1e-12)
+    und = cv2.undistortPoints(pts, camera.matrix, camera.dist_coeffs, None, np.eye(3),
+                              np.eye(3), crit)
+    mu, mv = np.meshgrid(np.arange(camera.width_px, dtype=np.float32) / step,
+                         np.arange(camera.height_px, dtype=np.float32) / step)
+    return _CoarseGrid(und[:, 0, 0].reshape(nv, nu), und[:, 0, 1].reshape(nv, nu), mu, mv)
 
 
 # ---------------------------------------------------------------- public API
@@ -542,16 +454,24 @@ def _frames(field, robot, camera, times, pose_at, camera_pose_at, exposure_s, no
     tex = None
     key = None
     floor_img = None
-    for i, t in enumerate(times):
+
+    def pose_key(t):
         top = camera_pose_at(float(t))
         bottom = camera_pose_at(float(t) + camera.readout_s) if camera.readout_s > 0 else top
-        new_key = tuple(np.asarray(a, float).tobytes() for a in (*top, *bottom))
+        return top, bottom, tuple(np.asarray(a, float).tobytes() for a in (*top, *bottom))
+
+    # a camera that is still at the first and last frame is taken as a tripod: floor
+    # drawn exactly; otherwise (hand-held) the fast interpolated floor every frame
+    exact = times.size == 0 or pose_key(times[0])[2] == pose_key(times[-1])[2]
+    for i, t in enumerate(times):
+        top, bottom, new_key = pose_key(t)
         if new_key != key:
             cam = _camera_rows(top, bottom, camera.height_px)
             if tex is None:
                 texel = floor_texel_m or _choose_texel(camera, cam, rays)
                 tex = floor_texture(field, floor_seed, float(texel))
-            floor_img = _render_floor(tex, cam, rays, camera)
+            exact = exact and key is None
+            floor_img = _render_floor(tex, cam, rays, camera, exact)
             key = new_key
         frame = floor_img.copy()
         _draw_robot(frame, parts, rays, cam, camera, float(t), pose_at, exposure_s,

@@ -42,8 +42,16 @@ MARGIN_M = 0.6
 class FloorTexture:
     """A floor texture pyramid in floor metres."""
 
-    levels: tuple
-    """BGR uint8 images; level l has texel ``texel_m * 2**l``."""
+    atlas: np.ndarray
+    """Every mip level side by side in one BGR uint8 image: level ``l`` (texel
+    ``texel_m * 2**l``, ``width / 2**l`` by ``height / 2**l`` texels) starts at column
+    ``width * (2 - 2**(1 - l))``, row 0; the unused rest holds the backdrop colour."""
+    width: int
+    """Level-0 width [texels]."""
+    height: int
+    """Level-0 height [texels]."""
+    n_levels: int
+    """Number of mip levels."""
     x0_m: float
     """Floor x of the texture's left edge [m]."""
     y0_m: float
@@ -204,10 +212,16 @@ def floor_texture(field: FieldProfile, floor_seed: int, texel_m: float) -> Floor
     for fm in field.floor_markers:
         _paint_floor_marker(img, x0, y0, texel_m, fm)
     base = np.clip(np.rint(img), 0, 255).astype(np.uint8)
-    levels = [base]
-    while len(levels) < n_levels and min(levels[-1].shape[:2]) >= 16:
-        levels.append(cv2.pyrDown(levels[-1]))
-    return FloorTexture(levels=tuple(levels), x0_m=x0, y0_m=y0, texel_m=texel_m)
+    atlas = np.empty((ny, 2 * nx, 3), np.uint8)
+    atlas[:] = np.array(BACKDROP_BGR, np.uint8)
+    level = base
+    for lv in range(n_levels):
+        if lv:
+            level = cv2.pyrDown(level)
+        off = nx * 2 - (nx >> (lv - 1) if lv else 2 * nx)
+        atlas[:level.shape[0], off:off + level.shape[1]] = level
+    return FloorTexture(atlas=atlas, width=nx, height=ny, n_levels=n_levels, x0_m=x0,
+                        y0_m=y0, texel_m=texel_m)
 
 
 def footprint_level(floor_x_m, floor_y_m, texel_m, step_px=1):
@@ -238,6 +252,10 @@ def footprint_level(floor_x_m, floor_y_m, texel_m, step_px=1):
 def sample_floor(tex: FloorTexture, floor_x_m, floor_y_m, level, valid):
     """Colour of the floor seen by each pixel (trilinear mip-map filtering).
 
+    Each pixel blends the two mip levels around its level (two ``cv2.remap`` calls on
+    the level atlas and one ``cv2.blendLinear``). Floor points beyond the texture take
+    its edge colour; pixels whose ray misses the floor take the backdrop colour.
+
     Parameters
     ----------
     tex : FloorTexture
@@ -252,27 +270,23 @@ def sample_floor(tex: FloorTexture, floor_x_m, floor_y_m, level, valid):
     -------
     ndarray of shape (H, W, 3), uint8
     """
-    h, w = floor_x_m.shape
-    top = len(tex.levels) - 1
-    lev = np.clip(level, 0.0, float(top))
-    acc = np.zeros((h, w, 3), np.float32)
-    map_x0 = (floor_x_m - tex.x0_m) / tex.texel_m - 0.5
-    map_y0 = (floor_y_m - tex.y0_m) / tex.texel_m - 0.5
-    map_x0 = np.where(valid, map_x0, -1e4).astype(np.float32)
-    map_y0 = np.where(valid, map_y0, -1e4).astype(np.float32)
-    for lv in range(int(np.floor(lev.min())), int(np.ceil(lev.max())) + 1):
-        weight = np.clip(1.0 - np.abs(lev - lv), 0.0, 1.0)
-        rows = np.flatnonzero(weight.max(axis=1) > 0)
-        if rows.size == 0:
-            continue
-        r0, r1 = rows[0], rows[-1] + 1
-        # cv2.pyrDown centres output pixel i on input pixel 2i, so level-l pixel c
-        # sits on level-0 pixel c * 2**l
-        scale = 0.5**lv
-        mx = map_x0[r0:r1] * scale
-        my = map_y0[r0:r1] * scale
-        img = cv2.remap(tex.levels[lv], mx, my, cv2.INTER_LINEAR,
-                        borderMode=cv2.BORDER_CONSTANT, borderValue=SURROUND_BGR)
-        acc[r0:r1] += weight[r0:r1, :, None] * img
-    acc[~valid] = BACKDROP_BGR
-    return np.clip(acc + 0.5, 0, 255).astype(np.uint8)
+    top = tex.n_levels - 1
+    lev = np.minimum(np.maximum(level, np.float32(0)), np.float32(top - 1e-3))
+    l0 = np.floor(lev)
+    frac = lev - l0
+    # cv2.pyrDown centres output pixel i on input pixel 2i, so level-l texel c sits on
+    # level-0 texel c * 2**l: coordinates scale by 2**-l
+    scale = np.exp2(-l0).astype(np.float32)
+    m0x = (floor_x_m - np.float32(tex.x0_m)) * np.float32(1.0 / tex.texel_m) - np.float32(0.5)
+    m0y = (floor_y_m - np.float32(tex.y0_m)) * np.float32(1.0 / tex.texel_m) - np.float32(0.5)
+    out = []
+    w0, h0 = np.float32(tex.width), np.float32(tex.height)
+    for sc in (scale, scale * np.float32(0.5)):
+        mx = np.minimum(np.maximum(m0x * sc, 0), w0 * sc - 1) + w0 * (2 - 2 * sc)
+        my = np.minimum(np.maximum(m0y * sc, 0), h0 * sc - 1)
+        np.copyto(mx, np.float32(2 * tex.width - 2), where=~valid)
+        np.copyto(my, np.float32(1.0), where=~valid)
+        out.append(cv2.remap(tex.atlas, mx, my, cv2.INTER_LINEAR,
+                             borderMode=cv2.BORDER_REPLICATE))
+    return cv2.blendLinear(out[0], out[1], (1.0 - frac).astype(np.float32),
+                           frac.astype(np.float32))
