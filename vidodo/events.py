@@ -69,7 +69,8 @@ Defaults and why
 * Minimum durations (0.1 s for slip, shove and pod lift) remove single-window
   blips; events of one kind closer than ``merge_gap_s`` (0.2 s) are merged.
 * Each event's start and end are refined by a hinge (change-point) fit of the
-  cumulative discrepancy, so they do not depend on the window length.
+  cumulative discrepancy, linear or quadratic after the change, so they do not
+  depend on the window length nor on how abruptly the fault begins.
 
 A source is listed as affected when its relative pose error over the event (Sturm et
 al., IROS 2012, RPE over the event's span) exceeds 3 sigma of the truth and at least
@@ -233,10 +234,12 @@ def _interp(tq, t, v):
 
 
 def _hinge(t, d, lo, hi, side):
-    """Change point of ``d`` in [lo, hi]: flat then sloped ('start') or sloped then flat.
+    """Change point of ``d`` in [lo, hi]: flat then rising ('start') or the reverse.
 
-    Least-squares fit of ``c + r * max(0, t - t0)`` (start) or
-    ``c + r * min(0, t - t0)`` (end) over the samples in [lo, hi]; returns t0.
+    Least-squares fit of ``c + r * max(0, t - t0)**p`` (start) or
+    ``c + r * max(0, t0 - t)**p`` (end) over the samples in [lo, hi], for ``p`` = 1 (a
+    change of rate: slip at constant speed) and ``p`` = 2 (a change of acceleration: a
+    push that builds up smoothly); the better fit gives t0.
     """
     m = (t >= lo) & (t <= hi) & np.isfinite(d)
     tt, dd = t[m], d[m]
@@ -244,12 +247,13 @@ def _hinge(t, d, lo, hi, side):
         return None
     best, arg = np.inf, None
     for t0 in tt[1:-1]:
-        x = np.maximum(0.0, tt - t0) if side == "start" else np.minimum(0.0, tt - t0)
-        a = np.column_stack([np.ones_like(x), x])
-        coef, *_ = np.linalg.lstsq(a, dd, rcond=None)
-        sse = float(((a @ coef - dd) ** 2).sum())
-        if sse < best:
-            best, arg = sse, float(t0)
+        base = np.maximum(0.0, tt - t0) if side == "start" else np.maximum(0.0, t0 - tt)
+        for power in (1, 2, 3):
+            a = np.column_stack([np.ones_like(base), base**power])
+            coef, *_ = np.linalg.lstsq(a, dd, rcond=None)
+            sse = float(((a @ coef - dd) ** 2).sum())
+            if sse < best:
+                best, arg = sse, float(t0)
     return arg
 
 
@@ -462,6 +466,10 @@ def detect_events(truth, wheel_travel, robot, *, imu_heading=None, source_poses=
         drive_bad = np.fmax(np.nan_to_num(s_slip, nan=0, neginf=0),
                             np.nan_to_num(s_shove, nan=0, neginf=0))
         cum = _cumulative(t, wheel_travel, drive, tr)
+        lat_cum = np.zeros(len(t))
+        if no_side:
+            step = se2_log(relative_pose(pose_t[:-1], pose_t[1:]))[:, 1]
+            lat_cum[1:] = np.nancumsum(step)
         off = st.k_off / st.k_on
         for a, b in hysteresis(t, s_slip, on=1.0, off=off, min_duration_s=st.min_duration_s,
                                merge_gap_s=st.merge_gap_s):
@@ -484,8 +492,13 @@ def detect_events(truth, wheel_travel, robot, *, imu_heading=None, source_poses=
         for a, b in hysteresis(t, s_shove, on=1.0, off=off, min_duration_s=st.min_duration_s,
                                merge_gap_s=st.merge_gap_s):
             # cumulative body displacement as the change-point signal
-            disp = np.hypot(pose_t[:, 0] - pose_t[a, 0], pose_t[:, 1] - pose_t[a, 1])
-            t0, t1 = _refine(t, disp, a, b, st.window_s)
+            # change-point signal: how far the body has moved unseen by the drive
+            # wheels (their cumulative discrepancy, and sideways travel if they
+            # cannot slide), from shortly before the event
+            r0 = int(np.searchsorted(t, t[a] - st.window_s - 0.3))
+            unseen = np.sqrt(np.mean((cum - cum[r0]) ** 2, axis=1)
+                             + (lat_cum - lat_cum[r0]) ** 2)
+            t0, t1 = _refine(t, unseen, a, b, st.window_s)
             pa, pb = tr.pose(np.array([t0, t1]))
             moved = math.hypot(pb[0] - pa[0], pb[1] - pa[1])
             if moved < st.min_lost_m and abs(wrap_angle(pb[2] - pa[2])) < math.radians(2):
@@ -579,8 +592,13 @@ def _impacts(tr, t, pose_t, st, noise, add):
             if den < 0:
                 frac = float(np.clip(0.5 * (decel[k - 1] - decel[k + 1]) / den, -0.5, 0.5))
                 tk = t[k] + frac * (t[k + 1] - t[k - 1]) / 2
-        add("impact", tk, max(t[b], tk), float(decel[k]), "m/s^2",
-            f"speed before {sp[max(a - 1, 0)]:.2f} m/s")
+        # the peak sits in the middle of the deceleration: the stop takes about
+        # v_before / decel, so the onset is half of that earlier (at most one step)
+        v0 = float(np.nanmax(sp[max(a - 3, 0):a + 1])) if np.isfinite(
+            sp[max(a - 3, 0):a + 1]).any() else 0.0
+        onset = tk - min(0.5 * v0 / float(decel[k]), w)
+        add("impact", onset, max(t[b], tk), float(decel[k]), "m/s^2",
+            f"speed before {v0:.2f} m/s")
 
 
 def _heading_jumps(tr, t, pose_t, imu, st, noise, add):

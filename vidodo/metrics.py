@@ -389,8 +389,8 @@ def source_metrics(t_s, truth_poses, anchored_poses, cum_length_m, *, sigma_head
     cum_length_m : ndarray of shape (N,)
         Truth path length (see :func:`path_length`) [m].
     sigma_heading_rad : float
-        Typical truth heading 1-sigma [rad]: heading turned below 5 sigma per sample is
-        not counted towards turns.
+        Typical truth heading 1-sigma [rad]: turning is accumulated only in steps of
+        at least 3 sigma, so heading noise of a still robot does not count as turns.
     min_path_m : float
         Below this path length drift in percent is not reported [m].
     min_turn_rad : float
@@ -437,8 +437,7 @@ def source_metrics(t_s, truth_poses, anchored_poses, cum_length_m, *, sigma_head
         drift = 100.0 * float(err[last]) / plen
     else:
         warn.append(f"{name}: drift % not measured (truth path {plen:.2f} m < {min_path_m} m)")
-    dh = np.abs(np.diff(np.unwrap(sub_q[:, 2])))
-    turned = float(dh[dh > 5.0 * sigma_heading_rad / math.sqrt(2.0)].sum()) if dh.size else 0.0
+    turned = _gated_turn(sub_q[:, 2], 3.0 * sigma_heading_rad)
     per_turn = None
     if turned >= min_turn_rad:
         per_turn = math.degrees(float(herr[last])) / (turned / (2.0 * math.pi))
@@ -462,6 +461,18 @@ def source_metrics(t_s, truth_poses, anchored_poses, cum_length_m, *, sigma_head
         best_fit_angle_rad=angle,
         warnings=tuple(warn),
     )
+
+
+def _gated_turn(heading_rad, gate_rad):
+    """Total absolute turning, counting a change only once it exceeds ``gate_rad``."""
+    h = np.unwrap(np.asarray(heading_rad, dtype=float))
+    total, last = 0.0, h[0]
+    for v in h[1:]:
+        d = abs(v - last)
+        if d >= gate_rad:
+            total += d
+            last = v
+    return total
 
 
 def column_prefix(name: str) -> str:

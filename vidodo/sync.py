@@ -9,14 +9,16 @@ Method
 1. *Coarse*: both the truth track and each odometry source are resampled to a uniform
    grid (10 ms). Two signals that do not depend on the unknown start alignment are
    formed from poses: speed and yaw rate (from central differences over 0.1 s, so both
-   sides are differentiated the same way). Each is made scale-free (mean removed,
-   divided by its standard deviation), and the normalised cross-correlation summed over
-   the two signals is maximised over the lag (``scipy.signal.correlate`` with
-   ``correlation_lags``), only among lags where the two overlap for at least half of
-   the shorter record. The peak is refined by a parabola through its neighbours.
-2. *Source*: the coarse lag is found for every source; sources whose lag disagrees
-   with the majority (a slipping drive, a lifted pod) are set aside and the preferred
-   one of the rest is used: IMU heading first, then tracking wheels, then others.
+   sides are differentiated the same way). Their Pearson correlation over the overlap
+   (scale-free: mean removed and divided by the spread, over the overlapping part
+   only), averaged over the two signals, is maximised over the lag
+   (``scipy.signal.correlate`` with ``correlation_lags``), only among lags where the
+   two overlap for at least 80 % of the shorter record (a log and a video of one run
+   cover nearly the same time). A parabola through the peak refines it.
+2. *Source*: the coarse lag is found for every source; sources are grouped by
+   agreeing lag (within 0.1 s) and the group with the largest summed correlation is
+   kept, so a source whose lag disagrees (a slipping drive, a lifted pod) is set
+   aside; of the rest the preferred one is used: IMU heading, tracking wheels, others.
 3. *Fine*: the offset (and rate) minimise the pose residual between truth and source:
    the run is cut into windows of ``window_s``; in each the source is moved onto truth
    (rotation by the mean heading difference, translation by the centroid difference,
@@ -49,6 +51,8 @@ __all__ = ["ClockSync", "estimate_clock", "manual_clock", "source_preference", "
 
 GRID_DT_S = 0.01
 """Resampling step of the coarse search [s]."""
+MIN_OVERLAP = 0.8
+"""Least overlap of log and video, as a fraction of the shorter of the two."""
 MIN_CORRELATION = 0.3
 """Below this normalised correlation the log is taken not to match the video."""
 
@@ -160,18 +164,30 @@ def _normalise(v):
 
 
 def _ncc(a_sigs, b_sigs, min_overlap):
-    """Summed masked normalised cross-correlation per lag (SciPy lag convention)."""
+    """Pearson correlation over the overlap at every lag, averaged over the signals.
+
+    Means and variances are those of the overlapping part only (sums of products
+    from FFT correlations), so a short log is not biased by the rest of the video.
+    Lags follow SciPy's convention (``correlation_lags``).
+    """
+    def xc(u, v):
+        return signal.correlate(u, v, mode="full", method="fft")
+
     total = None
     for a, b in zip(a_sigs, b_sigs, strict=True):
         an, am = _normalise(a)
         bn, bm = _normalise(b)
-        num = signal.correlate(an, bn, mode="full", method="fft")
-        cnt = signal.correlate(am.astype(float), bm.astype(float), mode="full", method="fft")
-        ea = signal.correlate(an**2, bm.astype(float), mode="full", method="fft")
-        eb = signal.correlate(am.astype(float), bn**2, mode="full", method="fft")
-        den = np.sqrt(np.clip(ea, 0, None) * np.clip(eb, 0, None))
+        am, bm = am.astype(float), bm.astype(float)
+        n = np.rint(xc(am, bm))
+        sa, sb = xc(an, bm), xc(am, bn)
+        sab = xc(an, bn)
+        saa, sbb = xc(an**2, bm), xc(am, bn**2)
         with np.errstate(invalid="ignore", divide="ignore"):
-            c = np.where((cnt >= min_overlap) & (den > 1e-9), num / den, np.nan)
+            cov = sab - sa * sb / n
+            va = saa - sa**2 / n
+            vb = sbb - sb**2 / n
+            c = np.where((n >= min_overlap) & (va > 1e-9 * n) & (vb > 1e-9 * n),
+                         cov / np.sqrt(np.clip(va * vb, 1e-300, None)), np.nan)
         total = c if total is None else total + c
     lags = signal.correlation_lags(len(a_sigs[0]), len(b_sigs[0]), mode="full")
     return total / len(a_sigs), lags
@@ -180,6 +196,26 @@ def _ncc(a_sigs, b_sigs, min_overlap):
 def _moving_time(speed, omega, dt, v_min, w_min):
     moving = (np.nan_to_num(speed) > v_min) | (np.abs(np.nan_to_num(omega)) > w_min)
     return float(moving.sum() * dt)
+
+
+def _truth_moving_time(tt, pt, sig_xy, sig_h, dt, span_s=0.5):
+    """Time the truth shows motion: displacement or turn over ``span_s`` beyond noise.
+
+    Motion over half a second must exceed 3 sigma of the difference of two truth poses
+    and 25 mm (0.05 m/s) or 0.1 rad, so a still robot with a noisy track never counts.
+    """
+    g = np.arange(tt[0], tt[-1], dt)
+    if g.size < 2:
+        return 0.0
+    x, y, h = (np.interp(g, tt, pt[:, i]) for i in range(3))
+    k = max(1, int(round(span_s / dt)))
+    if g.size <= k:
+        return 0.0
+    d = np.hypot(x[k:] - x[:-k], y[k:] - y[:-k])
+    dh = np.abs(h[k:] - h[:-k])
+    lim_d = max(3.0 * math.sqrt(2.0) * sig_xy, 0.05 * span_s)
+    lim_h = max(3.0 * math.sqrt(2.0) * sig_h, 0.1)
+    return float(((d > lim_d) | (dh > lim_h)).sum() * dt)
 
 
 def _coarse(tt, pt, ts, ps, dt, min_overlap_s, max_gap_s):
@@ -206,28 +242,33 @@ def _coarse(tt, pt, ts, ps, dt, min_overlap_s, max_gap_s):
 
 
 # ------------------------------------------------------------------ fine
-def _window_residual(tt, pt, wt, ts, ps, tau, rate, ref, window_s, sig_xy, sig_h):
-    """Sum of squared normalised residuals after per-window rigid alignment."""
+def _window_residual(tt, pt, wt, ts, ps, tau, rate, ref, window_s, sig_xy, sig_h, keep=None):
+    """Normalised squared residuals after per-window alignment.
+
+    Returns the total, the number of residual terms, and the cost per window (dict of
+    window index -> (cost, terms)). Windows are cut on the truth clock, so the same
+    window holds the same truth samples for every offset tried.
+    """
     # source time for each truth sample: invert t_v = t_l + tau + rate (t_l - ref)
     tl = (tt - tau + rate * ref) / (1.0 + rate)
     ok = (tl >= ts[0]) & (tl <= ts[-1])
+    bins_all = np.floor((tt - tt[0]) / window_s).astype(int)
     if ok.sum() < 10:
-        return np.inf, 0
-    tl, q, w = tl[ok], pt[ok], wt[ok]
+        return np.inf, 0, {}
+    tl, q, w, bins = tl[ok], pt[ok], wt[ok], bins_all[ok]
     px = np.interp(tl, ts, ps[:, 0])
     py = np.interp(tl, ts, ps[:, 1])
     ph = np.interp(tl, ts, ps[:, 2])
-    bins = np.floor((tt[ok] - tt[ok][0]) / window_s).astype(int)
-    total, count = 0.0, 0
+    total, count, per = 0.0, 0, {}
     for b in np.unique(bins):
+        if keep is not None and b not in keep:
+            continue
         m = bins == b
         if m.sum() < 5:
             continue
         src = np.column_stack([px[m], py[m]])
         dst = q[m, :2]
         dh = float(np.mean(q[m, 2] - ph[m]))
-        # rigid fit with the rotation from heading (better conditioned than points
-        # alone when the window is a straight line)
         c, s = math.cos(dh), math.sin(dh)
         rs = src @ np.array([[c, s], [-s, c]])
         rs = rs - rs.mean(axis=0)
@@ -236,23 +277,35 @@ def _window_residual(tt, pt, wt, ts, ps, tau, rate, ref, window_s, sig_xy, sig_h
         ss = float((rs**2).sum())
         k = float((rs * dc).sum()) / ss if ss > 1e-12 else 1.0
         r = dc - k * rs
-        total += float(np.sum(w[m] * (r**2).sum(axis=1)) / sig_xy**2)
+        cost = float(np.sum(w[m] * (r**2).sum(axis=1)) / sig_xy**2)
         hs = ph[m] - ph[m].mean()
         hq = q[m, 2] - q[m, 2].mean()
         sh = float((hs**2).sum())
         kh = float((hs * hq).sum()) / sh if sh > 1e-12 else 1.0
         hr = hq - kh * hs
-        total += float(np.sum(w[m] * hr**2) / sig_h**2)
+        cost += float(np.sum(w[m] * hr**2) / sig_h**2)
+        per[int(b)] = (cost, int(3 * m.sum()))
+        total += cost
         count += int(3 * m.sum())
-    return total, count
+    return total, count, per
 
 
 def _refine(tt, pt, wt, ts, ps, tau0, half_width_s, window_s, sig_xy, sig_h, fit_rate):
     ref = float(np.median(ts))
+    # windows where the source disagrees with the truth for reasons other than timing
+    # (a slip, a lifted pod, an IMU jump) are set aside: their residual would pull the
+    # offset towards whatever hides the fault best
+    _, _, per = _window_residual(tt, pt, wt, ts, ps, tau0, 0.0, ref, window_s, sig_xy, sig_h)
+    if not per:
+        return None
+    norm = {b: c / max(n, 1) for b, (c, n) in per.items()}
+    med = float(np.median(list(norm.values())))
+    keep = {b for b, v in norm.items() if v <= 4.0 * med}
+    dropped = len(per) - len(keep)
 
     def cost(tau, rate=0.0):
         return _window_residual(tt, pt, wt, ts, ps, tau, rate, ref, window_s, sig_xy,
-                                sig_h)[0]
+                                sig_h, keep)[0]
 
     # scan then bounded minimisation: the residual is smooth near the minimum
     taus = tau0 + np.linspace(-half_width_s, half_width_s, 41)
@@ -272,7 +325,8 @@ def _refine(tt, pt, wt, ts, ps, tau0, half_width_s, window_s, sig_xy, sig_h, fit
                                         [[tau, 0.0], [tau + 1e-3, 0.0], [tau, 100.0]]})
         if r2.fun < res.fun:
             tau, rate = float(r2.x[0]), float(r2.x[1]) * 1e-6
-    jmin, n = _window_residual(tt, pt, wt, ts, ps, tau, rate, ref, window_s, sig_xy, sig_h)
+    jmin, n, _ = _window_residual(tt, pt, wt, ts, ps, tau, rate, ref, window_s, sig_xy,
+                                  sig_h, keep)
     h = 5e-4
     jp = cost(tau + h, rate)
     jm = cost(tau - h, rate)
@@ -280,7 +334,7 @@ def _refine(tt, pt, wt, ts, ps, tau0, half_width_s, window_s, sig_xy, sig_h, fit
     red = max(1.0, jmin / max(n - 1, 1))
     sigma = math.sqrt(2.0 * red / curv) if curv > 0 else None
     edge = abs(tau - tau0) > 0.95 * half_width_s
-    return tau, rate, ref, sigma, edge
+    return tau, rate, ref, sigma, edge, dropped, len(per)
 
 
 # ------------------------------------------------------------------ public
@@ -312,7 +366,7 @@ def manual_clock(truth_track, odometry, offset_s, *, rate=0.0) -> ClockSync:
                      method="manual", rate=float(rate), warnings=tuple(warn))
 
 
-def estimate_clock(truth_track, odometry, *, source=None, window_s=2.0, fit_rate=None,
+def estimate_clock(truth_track, odometry, *, source=None, window_s=1.0, fit_rate=None,
                    min_motion_s=1.0, max_gap_s=0.3, grid_dt_s=GRID_DT_S) -> ClockSync:
     """Find the log -> video clock offset automatically.
 
@@ -352,11 +406,7 @@ def estimate_clock(truth_track, odometry, *, source=None, window_s=2.0, fit_rate
     sig_h = _typical(truth_track, "sigma_heading_rad", math.radians(0.5))
     # motion in the truth track
     dt = grid_dt_s
-    na = int((tt[-1] - tt[0]) / dt) + 1
-    sa, wa = _grid_signals(tt, pt, tt[0], na, dt, max_gap_s)
-    v_noise = math.sqrt(2) * sig_xy / 0.1
-    w_noise = math.sqrt(2) * sig_h / 0.1
-    moving = _moving_time(sa, wa, dt, max(5 * v_noise, 0.05), max(5 * w_noise, 0.2))
+    moving = _truth_moving_time(tt, pt, sig_xy, sig_h, dt)
     if moving < min_motion_s:
         raise SyncError(
             f"truth track shows the robot moving for only {moving:.1f} s (< {min_motion_s} s); "
@@ -382,7 +432,7 @@ def estimate_clock(truth_track, odometry, *, source=None, window_s=2.0, fit_rate
             warn.append(f"source {name!r} reports almost no motion; not used for sync")
             continue
         shorter = min(tt[-1] - tt[0], ts[-1] - ts[0])
-        res = _coarse(tt, pt, ts, ps, dt, max(0.5 * shorter, 2.0), max_gap_s)
+        res = _coarse(tt, pt, ts, ps, dt, max(MIN_OVERLAP * shorter, 2.0), max_gap_s)
         if res is None:
             warn.append(f"source {name!r}: no lag with enough overlap")
             continue
@@ -394,8 +444,13 @@ def estimate_clock(truth_track, odometry, *, source=None, window_s=2.0, fit_rate
             "no odometry source overlaps the truth track with enough motion to find the "
             "clock offset; check that the log belongs to this video or give --clock-offset"
         )
-    med = float(np.median(list(coarse.values())))
-    agree = [n for n, v in coarse.items() if abs(v - med) <= 0.1]
+    # group sources whose coarse offsets agree within 0.1 s; the group with the most
+    # correlation in total wins (a slipping drive or a lifted pod stands apart)
+    groups = {n: [m for m in coarse if abs(coarse[m] - coarse[n]) <= 0.1] for n in coarse}
+    best = max(groups, key=lambda n: (sum(max(scores[m][0], 0) for m in groups[n]),
+                                      -source_preference(n)))
+    agree = groups[best]
+    med = float(np.median([coarse[n] for n in agree]))
     for n in coarse:
         if n not in agree:
             warn.append(f"source {n!r}: coarse offset {coarse[n]:+.3f} s disagrees with the "
@@ -438,7 +493,11 @@ def estimate_clock(truth_track, odometry, *, source=None, window_s=2.0, fit_rate
                    sig_h, fit_rate)
     if fine is None:
         raise SyncError(f"source {use!r}: pose residual undefined near the coarse offset")
-    tau, rate, ref, sigma, edge = fine
+    tau, rate, ref, sigma, edge, dropped, n_windows = fine
+    if dropped:
+        warn.append(f"clock sync: {dropped} of {n_windows} windows of {use!r} disagree with "
+                    "the truth beyond timing (slip, lifted wheel or IMU jump) and were left "
+                    "out of the fine step")
     if edge:
         warn.append("clock sync: the fine offset sits at the edge of its search range; "
                     "the coarse peak may be wrong")
