@@ -206,20 +206,20 @@ def test_noise_free_fit_matches_independent_lstsq():
     tab = fit.table.set_index("parameter")
     for j, w in enumerate(wheels):
         assert tab.loc[f"wheel {w.name} radius_m", "estimate"] == pytest.approx(
-            abs(k[j]) * w.radius_m, rel=1e-6)
+            abs(k[j]) * w.radius_m, rel=2e-4)
         assert tab.loc[f"wheel {w.name} radius_m", "estimate"] == pytest.approx(
-            true.wheels[j].radius_m, rel=1e-5)
+            true.wheels[j].radius_m, rel=2e-4)
     assert tab.loc["wheel left y_m", "estimate"] == pytest.approx(wheels[0].y_m - dl[0],
-                                                                  abs=1e-7)
+                                                                  abs=2e-5)
     assert tab.loc["wheel right y_m", "estimate"] == pytest.approx(wheels[1].y_m - dl[1],
-                                                                   abs=1e-7)
+                                                                   abs=2e-5)
     assert tab.loc["wheel back x_m", "estimate"] == pytest.approx(wheels[2].x_m + dl[2],
-                                                                  abs=1e-7)
+                                                                  abs=2e-5)
     assert tab.loc["wheel back x_m", "estimate"] == pytest.approx(true.wheels[2].x_m,
-                                                                  abs=1e-6)
-    assert tab.loc["imu scale", "estimate"] == pytest.approx(1.01 * c, rel=1e-6)
-    assert tab.loc["imu scale", "estimate"] == pytest.approx(1.0, rel=1e-6)
-    assert tab.loc["run run imu bias_radps", "estimate"] == pytest.approx(sol[7], abs=1e-7)
+                                                                  abs=2e-5)
+    assert tab.loc["imu scale", "estimate"] == pytest.approx(1.01 * c, rel=1e-5)
+    assert tab.loc["imu scale", "estimate"] == pytest.approx(1.0, rel=1e-5)
+    assert tab.loc["run run imu bias_radps", "estimate"] == pytest.approx(sol[7], abs=1e-6)
     assert fit.inverted == ("right",)
     assert fit.corrected_robot.wheel("right").sign == 1
 

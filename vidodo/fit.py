@@ -346,6 +346,28 @@ class _Model:
         self.adjacent = np.concatenate(adjacent) if adjacent else np.zeros(0, int)
         self.n_windows = base
         self.n_groups = len(wheels) + (1 if use_imu else 0)
+        # noise floor per group: two count-quantisation errors per window for a wheel
+        # (uniform, variance 1/12 count^2 each; common practice), 1e-5 rad for the IMU
+        self.floor = np.array([abs(m) / math.sqrt(6.0) for m in self.mpt]
+                              + ([1e-5] if use_imu else []))
+        # how much each residual's sensor moved in its window, by the truth
+        act = []
+        for rd in runs:
+            for j in range(len(wheels)):
+                act.append(np.abs(rd.win.u @ self.a[j]))
+            if use_imu:
+                act.append(np.abs(rd.win.dtheta))
+        self.active = (np.concatenate(act) > 3.0 * self.floor[self.groups]) if act else (
+            np.zeros(0, bool))
+
+    def noise_scale(self, raw, g):
+        """Robust noise scale of group ``g``: MAD of the residuals of windows in which
+        the sensor moved (windows at rest fit exactly in noise-free data and would drive
+        the MAD to zero), never below the group's floor."""
+        sel = self.groups == g
+        moving = sel & self.active
+        s = _robust_scale(raw[moving] if moving.sum() >= 5 else raw[sel])
+        return max(s, self.floor[g]) if np.isfinite(s) else float(self.floor[g])
 
     def data_residuals(self, theta):
         out = []
@@ -385,8 +407,7 @@ def _solve(model: _Model, theta0, free, *, max_iter=12):
     sig = np.ones(n_groups)
     raw = model.data_residuals(theta)
     for g in range(n_groups):
-        s = _robust_scale(raw[model.groups == g])
-        sig[g] = s if np.isfinite(s) and s > 0 else 1.0
+        sig[g] = model.noise_scale(raw, g)
     w = np.ones_like(raw)
 
     def fun(x):
@@ -405,9 +426,7 @@ def _solve(model: _Model, theta0, free, *, max_iter=12):
         raw = model.data_residuals(new)
         new_sig = sig.copy()
         for g in range(n_groups):
-            s = _robust_scale(raw[model.groups == g])
-            # floor far below any real noise so a noise-free case stays well posed
-            new_sig[g] = max(s, 1e-12) if np.isfinite(s) else sig[g]
+            new_sig[g] = model.noise_scale(raw, g)
         w = _huber_weights(raw / new_sig[model.groups])
         step = np.abs(new - theta)
         theta = new
@@ -611,24 +630,15 @@ def fit_profile(runs, robot: RobotProfile, *, exclude_windows=None, window_s=0.4
 
     model = _Model(robot, fwheels, fmpt, rundata, use_imu, fit_clock)
     theta0 = model.centre.copy()
-    free = np.ones(len(theta0), bool)
-    theta, cov, sig, raw = _solve(model, theta0, free, max_iter=max_iter)
-    se = np.full(len(theta), np.nan)
-    se[free] = np.sqrt(np.clip(np.diag(cov), 0, None))
-    status = _status(se, model.kinds, tol)
-    # refit with the values the data cannot fix held at the profile
-    fixed = status == "no"
-    if fixed.any():
-        theta_r, cov_r, sig, raw = _solve(model, model.centre.copy(), ~fixed,
-                                          max_iter=max_iter)
-        theta = np.where(fixed, model.centre, theta_r)
-        se_free = np.sqrt(np.clip(np.diag(cov_r), 0, None))
-        se[~fixed] = se_free
-        full_cov = np.zeros((len(theta), len(theta)))
-        idx = np.flatnonzero(~fixed)
-        full_cov[np.ix_(idx, idx)] = cov_r
-        cov = full_cov
-        status = np.where(fixed, "no", _status(se, model.kinds, tol))
+    theta, cov, se, status, sig = _solve_holding(model, theta0, tol, max_iter)
+    # a value held while its partner stays free: say what it was fitted under
+    for j, w in enumerate(fwheels):
+        ik, il = model.i_k[j], model.i_l[j]
+        for held, free_i, what in ((ik, il, "radius_m"), (il, ik, "its offset")):
+            if status[held] == "no" and status[free_i] != "no":
+                other = "radius_m" if free_i == ik else "its offset"
+                warnings.append(f"wheel {w.name}: {other} fitted with {what} held at the "
+                                "profile value (these runs cannot separate the two)")
     noise = {w.name: float(sig[g]) for g, w in enumerate(fwheels)}
     if use_imu:
         noise["imu"] = float(sig[len(fwheels)])
@@ -643,6 +653,39 @@ def fit_profile(runs, robot: RobotProfile, *, exclude_windows=None, window_s=0.4
     return ProfileFit(table=table, robot=robot, corrected_robot=corrected,
                       inverted=tuple(inverted), n_windows=n_win, noise=noise,
                       covariance=cov, names=tuple(model.names), warnings=tuple(warnings))
+
+
+def _solve_holding(model: _Model, theta0, tol, max_iter):
+    """Solve, then hold unidentifiable values at the profile one at a time.
+
+    The value with the largest standard error relative to its wanted precision is held
+    first and the rest refitted, so a value that is unidentifiable only jointly with
+    another (a sideways wheel's radius and offset on a robot that never slides
+    sideways) is fitted once its partner is held.
+
+    Returns
+    -------
+    theta, cov (full size, zero for held values), se, status, noise scales
+    """
+    n = len(theta0)
+    tol_vec = np.array([tol[k] for k in model.kinds])
+    fixed = np.zeros(n, bool)
+    se = np.full(n, np.nan)
+    while True:
+        theta, cov_f, sig, _raw = _solve(model, np.where(fixed, model.centre, theta0),
+                                         ~fixed, max_iter=max_iter)
+        se[~fixed] = np.sqrt(np.clip(np.diag(cov_f), 0, None))
+        status = _status(se, model.kinds, tol)
+        status[fixed] = "no"
+        cand = np.flatnonzero((status == "no") & ~fixed)
+        if cand.size == 0:
+            break
+        fixed[cand[np.argmax(se[cand] / tol_vec[cand])]] = True
+    theta = np.where(fixed, model.centre, theta)
+    cov = np.zeros((n, n))
+    idx = np.flatnonzero(~fixed)
+    cov[np.ix_(idx, idx)] = cov_f
+    return theta, cov, se, status, sig
 
 
 def _status(se, kinds, tol):
