@@ -47,6 +47,9 @@ def atomic_file(path):
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.partial-", dir=path.parent,
                                suffix=path.suffix)
     os.close(fd)
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; give the usual file mode
     try:
         yield Path(tmp)
     except BaseException:

@@ -299,7 +299,7 @@ class CameraProfile:
 
 
 # ------------------------------------------------------------------------- loading
-class _Table:
+class TomlTable:
     """Reads typed values out of one TOML table and names the key on error."""
 
     def __init__(self, data: dict, where: str):
@@ -357,7 +357,7 @@ class _Table:
         return value
 
 
-def _read_toml(path) -> tuple[dict, Path]:
+def read_toml(path) -> tuple[dict, Path]:
     p = Path(path)
     try:
         with open(p, "rb") as fh:
@@ -374,10 +374,10 @@ def _list_of_tables(data, key, where):
     items = data.get(key, [])
     if not isinstance(items, list):
         raise InputError(f"{where}: '{key}' must be an array of tables ([[{key}]])")
-    return [_Table(it, f"{where} [[{key}]] #{i + 1}") for i, it in enumerate(items)]
+    return [TomlTable(it, f"{where} [[{key}]] #{i + 1}") for i, it in enumerate(items)]
 
 
-def _marker(t: _Table, cls):
+def _marker(t: TomlTable, cls):
     kw = dict(
         id=t.get("id", int),
         family=t.get("family", str, "DICT_4X4_50"),
@@ -399,10 +399,10 @@ def load_robot(path) -> RobotProfile:
     InputError
         Naming the file, the table and the key that is missing or wrong.
     """
-    data, p = _read_toml(path)
+    data, p = read_toml(path)
     where = str(p)
-    robot = _Table(data.get("robot", {}), f"{where} [robot]")
-    log = _Table(data.get("log", {}), f"{where} [log]")
+    robot = TomlTable(data.get("robot", {}), f"{where} [robot]")
+    log = TomlTable(data.get("log", {}), f"{where} [log]")
     markers = tuple(_marker(t, Marker) for t in _list_of_tables(data, "marker", where))
     wheels = []
     for t in _list_of_tables(data, "wheel", where):
@@ -444,7 +444,7 @@ def load_robot(path) -> RobotProfile:
         raise InputError(f"{where}: wheel names must be unique, got {names}")
     imu = None
     if "imu" in data:
-        t = _Table(data["imu"], f"{where} [imu]")
+        t = TomlTable(data["imu"], f"{where} [imu]")
         sign = t.get("sign", int, 1)
         if sign not in (1, -1):
             raise InputError(f"{t.where}: key 'sign' must be 1 or -1, got {sign}")
@@ -457,7 +457,7 @@ def load_robot(path) -> RobotProfile:
         )
     pose = None
     if "pose" in data:
-        t = _Table(data["pose"], f"{where} [pose]")
+        t = TomlTable(data["pose"], f"{where} [pose]")
         pose = PoseColumns(
             x_column=t.get("x_column", str),
             y_column=t.get("y_column", str),
@@ -507,9 +507,9 @@ def load_field(path) -> FieldProfile:
     InputError
         Naming the file, the table and the key that is missing or wrong.
     """
-    data, p = _read_toml(path)
+    data, p = read_toml(path)
     where = str(p)
-    floor = _Table(data.get("floor", {}), f"{where} [floor]")
+    floor = TomlTable(data.get("floor", {}), f"{where} [floor]")
     tiles_x = floor.get("tiles_x", int)
     tiles_y = floor.get("tiles_y", int)
     if tiles_x < 1 or tiles_y < 1:
@@ -537,8 +537,8 @@ def load_camera(path) -> CameraProfile:
     InputError
         Naming the file and the key that is missing or wrong.
     """
-    data, p = _read_toml(path)
-    t = _Table(data.get("camera", {}), f"{p} [camera]")
+    data, p = read_toml(path)
+    t = TomlTable(data.get("camera", {}), f"{p} [camera]")
     dist = t.data.get("distortion", [0.0, 0.0, 0.0, 0.0, 0.0])
     if not isinstance(dist, list) or not all(
         isinstance(v, int | float) and not isinstance(v, bool) for v in dist

@@ -114,9 +114,9 @@ from .profiles import (
     PoseColumns,
     RobotProfile,
     Source,
+    TomlTable,
     Wheel,
-    _read_toml,
-    _Table,
+    read_toml,
 )
 
 __all__ = [
@@ -433,12 +433,12 @@ def load_scenario(path_or_name, **overrides) -> Scenario:
         Naming the file, the table and the key that is missing or wrong.
     """
     p = _locate(path_or_name)
-    data, p = _read_toml(p)
+    data, p = read_toml(p)
     data = apply_overrides(data, overrides, str(p))
     return scenario_from_dict(data, str(p))
 
 
-def _signs(t: _Table, n: int) -> tuple[int, ...]:
+def _signs(t: TomlTable, n: int) -> tuple[int, ...]:
     signs = t.data.get("signs", [1] * n)
     if (not isinstance(signs, list) or len(signs) != n
             or any(s not in (1, -1) or isinstance(s, bool) for s in signs)):
@@ -446,7 +446,7 @@ def _signs(t: _Table, n: int) -> tuple[int, ...]:
     return tuple(int(s) for s in signs)
 
 
-def _bits(t: _Table) -> int:
+def _bits(t: TomlTable) -> int:
     bits = t.get("counter_bits", int, 32)
     if bits not in (16, 32):
         raise InputError(f"{t.where}: 'counter_bits' must be 16 or 32, got {bits}")
@@ -457,7 +457,7 @@ def _tables(data, key, where):
     items = data.get(key, [])
     if not isinstance(items, list):
         raise InputError(f"{where}: '{key}' must be an array of tables ([[{key}]])")
-    return [_Table(it, f"{where} [[{key}]] #{i + 1}") for i, it in enumerate(items)]
+    return [TomlTable(it, f"{where} [[{key}]] #{i + 1}") for i, it in enumerate(items)]
 
 
 def scenario_from_dict(data: dict, where: str = "scenario") -> Scenario:
@@ -469,7 +469,7 @@ def scenario_from_dict(data: dict, where: str = "scenario") -> Scenario:
             raise InputError(
                 f"{where}: unknown key or table '{k}'; known: {sorted(_TABLES + _ARRAYS)}"
             )
-    tab = {k: _Table(data.get(k, {}), f"{where} [{k}]") for k in _TABLES}
+    tab = {k: TomlTable(data.get(k, {}), f"{where} [{k}]") for k in _TABLES}
     video = _video(tab["video"])
     camera = _camera(tab["camera"], video)
     f = tab["field"]
@@ -574,7 +574,7 @@ def _profile_errors(tables, robot: RobotProfile):
     return written, tuple(errors)
 
 
-def _video(t: _Table) -> VideoSpec:
+def _video(t: TomlTable) -> VideoSpec:
     w, h = t.get("width_px", int, 1280), t.get("height_px", int, 720)
     if w < 16 or h < 16 or w % 2 or h % 2:
         raise InputError(f"{t.where}: width_px and height_px must be even and >= 16")
@@ -593,7 +593,7 @@ def _video(t: _Table) -> VideoSpec:
     )
 
 
-def _camera(t: _Table, video: VideoSpec) -> CameraSpec:
+def _camera(t: TomlTable, video: VideoSpec) -> CameraSpec:
     pos = (t.get("x_m"), t.get("y_m"), t.get("z_m"))
     look = (t.get("look_at_x_m"), t.get("look_at_y_m"), t.get("look_at_z_m", float, 0.0))
     if "focal_px" in t.data:
@@ -623,7 +623,7 @@ def _camera(t: _Table, video: VideoSpec) -> CameraSpec:
     )
 
 
-def _drivetrain(t: _Table) -> DrivetrainSpec:
+def _drivetrain(t: TomlTable) -> DrivetrainSpec:
     kind = t.choice("kind", {"tank", "mecanum"}, "tank")
     return DrivetrainSpec(
         kind=kind, track_m=t.positive("track_m", 0.38),
@@ -634,7 +634,7 @@ def _drivetrain(t: _Table) -> DrivetrainSpec:
     )
 
 
-def _tracking(t: _Table) -> TrackingSpec:
+def _tracking(t: TomlTable) -> TrackingSpec:
     layout = t.choice("layout", {"three", "two+imu", "none"}, "none")
     n = {"three": 3, "two+imu": 2, "none": 0}[layout]
     return TrackingSpec(
@@ -647,7 +647,7 @@ def _tracking(t: _Table) -> TrackingSpec:
     )
 
 
-def _imu(t: _Table) -> ImuSpec:
+def _imu(t: TomlTable) -> ImuSpec:
     return ImuSpec(
         enabled=t.get("enabled", bool, False),
         bias_radps=math.radians(t.get("bias_dps", float, 0.0)),
@@ -657,7 +657,7 @@ def _imu(t: _Table) -> ImuSpec:
     )
 
 
-def _log(t: _Table) -> LogSpec:
+def _log(t: TomlTable) -> LogSpec:
     from .profiles import ANGLE_UNITS_RAD, LENGTH_UNITS_M, TIME_UNITS_S
 
     rate_err = t.get("clock_rate_error", float, 0.0)
@@ -677,7 +677,7 @@ def _log(t: _Table) -> LogSpec:
     )
 
 
-def _segment(t: _Table, dt: DrivetrainSpec) -> Segment:
+def _segment(t: TomlTable, dt: DrivetrainSpec) -> Segment:
     kind = t.choice("kind", set(SEGMENT_KINDS))
     if kind in ("drive", "strafe"):
         if kind == "strafe" and dt.kind != "mecanum":
@@ -690,7 +690,7 @@ def _segment(t: _Table, dt: DrivetrainSpec) -> Segment:
     return Segment(kind, duration_s=t.positive("duration_s"))
 
 
-def _fault(t: _Table, n_segments, robot: RobotProfile, imu: ImuSpec) -> Fault:
+def _fault(t: TomlTable, n_segments, robot: RobotProfile, imu: ImuSpec) -> Fault:
     kind = t.choice("kind", set(FAULT_KINDS))
     seg = t.get("segment", int, None)
     if seg is None and "t_s" not in t.data:
@@ -721,7 +721,7 @@ def _fault(t: _Table, n_segments, robot: RobotProfile, imu: ImuSpec) -> Fault:
     return Fault(**kw)
 
 
-def _robot_profile(r: _Table, markers, dt: DrivetrainSpec, tr: TrackingSpec, imu: ImuSpec,
+def _robot_profile(r: TomlTable, markers, dt: DrivetrainSpec, tr: TrackingSpec, imu: ImuSpec,
                    log: LogSpec, where: str) -> RobotProfile:
     """The robot profile a team would write for this robot (exact geometry)."""
     wheels = []
