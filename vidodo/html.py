@@ -48,7 +48,7 @@ h1{font-size:1.5rem;margin:.2rem 0 .8rem}h2{font-size:1.15rem;margin-top:2rem;
 border-bottom:1px solid #ddd;padding-bottom:.2rem}
 table{border-collapse:collapse;margin:.4rem 0;font-size:.9rem;background:#fff}
 th,td{border:1px solid #d7d7d7;padding:.25rem .55rem;text-align:left;vertical-align:top}
-th{background:#f0f0f0}td.num{text-align:right;font-variant-numeric:tabular-nums}
+th{background:#f0f0f0}td.num{text-align:right;font-variant-numeric:tabular-nums;white-space:nowrap}
 .verdict{font-size:1.1rem;padding:.5rem .8rem;border-radius:4px;display:inline-block}
 .pass{background:#e3f4e1}.fail{background:#fbe3e1}.unknown{background:#eee}
 figure{margin:1rem 0}figure img{max-width:100%;height:auto;border:1px solid #ddd;
@@ -179,7 +179,8 @@ def _events_table(events: list, unit: str) -> str:
             + _cell(f"events/{i}/x_m", ev.get("x_m"), "length", unit)
             + _cell(f"events/{i}/y_m", ev.get("y_m"), "length", unit)
             + mag_cell
-            + f"<td>{_e(_text(ev.get('sources')))}</td><td>{_e(_text(ev.get('detail')))}</td>"
+            + f"<td>{_e(_text(ev.get('sources')).replace(';', '; '))}</td>"
+            + f"<td>{_e(_text(ev.get('detail')))}</td>"
             "</tr>")
     return f"<table id=\"events\">{head}{''.join(rows)}</table>"
 
@@ -190,6 +191,39 @@ def _text(v) -> str:
     if isinstance(v, list | tuple):
         return "; ".join(str(x) for x in v)
     return str(v)
+
+
+def _overview(summary: dict, unit: str) -> str:
+    """A few lines a person reads first: clock, truth coverage, sources, events."""
+    items = []
+    clock = summary.get("clock") or {}
+    off, sig = clock.get("offset_s"), clock.get("sigma_s")
+    if _is_number(off):
+        txt = f"log clock + {off:.3f} s"
+        if _is_number(sig):
+            txt += f" (\u00b1 {sig * 1000:.1f} ms)"
+        items.append(f"Clock: {_e(txt)}, found by {_e(clock.get('method', '?'))}")
+    truth = summary.get("truth") or {}
+    frac = truth.get("detected_fraction")
+    if _is_number(frac):
+        items.append(f"Truth track: marker seen in {frac * 100:.1f} % of "
+                     f"{_e(truth.get('frames', '?'))} frames")
+    sources = summary.get("sources") or {}
+    if sources:
+        worst = max(((m.get("final_err_m"), n) for n, m in sources.items()
+                     if _is_number((m or {}).get("final_err_m"))), default=None)
+        line = f"{len(sources)} odometry source(s) graded"
+        if worst is not None:
+            line += (f"; largest final error {_e(format_length(worst[0], unit))} "
+                     f"({_e(worst[1])})")
+        items.append(line)
+    events = summary.get("events") or []
+    kinds: dict = {}
+    for ev in events:
+        kinds[str(ev.get("kind", "?"))] = kinds.get(str(ev.get("kind", "?")), 0) + 1
+    items.append("Events: " + (", ".join(f"{_e(k)} \u00d7 {n}" for k, n in kinds.items())
+                               if kinds else "none"))
+    return '<ul id="overview">' + "".join(f"<li>{i}</li>" for i in items) + "</ul>"
 
 
 def _verdict_block(summary: dict) -> str:
@@ -203,7 +237,7 @@ def _verdict_block(summary: dict) -> str:
     else:
         cls = "unknown"
     text = verdict if verdict is not None else "no verdict recorded"
-    return f'<p class="verdict {cls}" id="verdict">{_e(text)}</p>'
+    return f'<p class="verdict {cls}" id="verdict">Verdict: {_e(text)}</p>'
 
 
 def build_html(summary: dict, images: dict | None = None, *, unit: str = "mm",
@@ -243,16 +277,11 @@ def build_html(summary: dict, images: dict | None = None, *, unit: str = "mm",
         f"<h1>{_e(title)}</h1>",
         _verdict_block(summary),
     ]
+    parts.append("<h2>Summary</h2>" + _overview(summary, unit))
     warnings = summary.get("warnings") or []
     if warnings:
-        parts.append("<ul class=\"warn\">" + "".join(f"<li>{_e(w)}</li>" for w in warnings)
-                     + "</ul>")
-    parts.append("<h2>Summary</h2>")
-    clock = summary.get("clock") or {}
-    parts.append("<h3>Inputs</h3>" + _kv_table(inputs, "inputs", unit))
-    parts.append("<h3>Clock (log onto video)</h3>" + _kv_table(clock, "clock", unit))
-    parts.append("<h3>Truth track quality</h3>" + _kv_table(summary.get("truth") or {},
-                                                             "truth", unit))
+        parts.append("<h3>Warnings</h3><ul class=\"warn\">"
+                     + "".join(f"<li>{_e(w)}</li>" for w in warnings) + "</ul>")
     parts.append(f"<h2>Metrics per odometry source</h2><p>Lengths in {_e(unit)}; "
                  "drift is anchored at the start of motion, ATE after a rigid fit.</p>")
     parts.append(_metrics_table(summary.get("sources") or {}, unit))
@@ -263,6 +292,12 @@ def build_html(summary: dict, images: dict | None = None, *, unit: str = "mm",
         for caption, png in images.items():
             parts.append(f'<figure><img src="{png_data_uri(png)}" alt="{_e(caption)}">'
                          f"<figcaption>{_e(caption)}</figcaption></figure>")
+    parts.append("<h2>Details</h2>")
+    parts.append("<h3>Inputs</h3>" + _kv_table(inputs, "inputs", unit))
+    parts.append("<h3>Clock (log onto video)</h3>" + _kv_table(summary.get("clock") or {},
+                                                               "clock", unit))
+    parts.append("<h3>Truth track quality</h3>" + _kv_table(summary.get("truth") or {},
+                                                             "truth", unit))
     files = [str(f) for f in extra_files]
     if files:
         parts.append("<h2>Other files</h2><ul>"

@@ -15,6 +15,7 @@ folder found or bad arguments.
 from __future__ import annotations
 
 import math
+import multiprocessing
 import os
 import sys
 import time
@@ -179,7 +180,7 @@ def grade_folders(run_dirs, root, out_root, options: dict, *, jobs: int = 1,
         Worker processes; 1 still uses one worker so a crash cannot take the batch down.
     grade_fn : callable
         ``grade_fn(run_dir, out_dir, options) -> dict`` (see :func:`grade_one`); must be
-        importable by name (it runs in another process).
+        importable by name (it runs in a freshly started process).
     on_done : callable, optional
         ``on_done(record)`` after each run (for progress and printing).
 
@@ -203,7 +204,11 @@ def grade_folders(run_dirs, root, out_root, options: dict, *, jobs: int = 1,
     def attempt(indices, workers):
         """Run ``indices``; return those lost to a crashed pool."""
         lost = []
-        with ProcessPoolExecutor(max_workers=workers, initializer=_init_worker) as pool:
+        # 'spawn': a forked child of a process whose OpenCV thread pool has run can
+        # deadlock in its first OpenCV call; fresh interpreters cannot
+        ctx = multiprocessing.get_context("spawn")
+        with ProcessPoolExecutor(max_workers=workers, initializer=_init_worker,
+                                 mp_context=ctx) as pool:
             futs = {pool.submit(grade_fn, run_dirs[i], Path(out_root) / names[i], options): i
                     for i in indices}
             for fut in as_completed(futs):
