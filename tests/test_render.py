@@ -105,16 +105,18 @@ def _static_frame(cam, field, robot, pose, rvec, tvec, **kw):
     return next(iter(gen))
 
 
-@pytest.mark.parametrize("family", ["DICT_4X4_50", "DICT_APRILTAG_36h11"])
-def test_rendered_markers_found_at_projected_corners(family):
+@pytest.mark.parametrize(("family", "z_m"), [("DICT_4X4_50", 0.32), ("DICT_APRILTAG_36h11", 0.32),
+                                           ("DICT_4X4_50", 0.25)])
+def test_rendered_markers_found_at_projected_corners(family, z_m):
     """Robot and floor markers found by cv2.aruco within 0.5 px of cv2.projectPoints.
 
-    Static robot, no noise, no blur, lens with radial and tangential distortion.
+    Static robot, no noise, no blur, lens with radial and tangential distortion; the
+    marker on a mast, or lying flush on the chassis top (z = height = 0.25 m).
     """
     cam = CameraProfile(640, 360, 560.0, 560.0, 322.0, 178.0, DIST)
     fm = FloorMarker(3, family, 0.18, 1.45, 1.05, 0.4)
     field = FieldProfile(4, 4, 0.6096, floor_markers=(fm,))
-    robot = _robot(yaw_rad=0.3, family=family)
+    robot = _robot(z_m=z_m, yaw_rad=0.3, family=family)
     pose = np.array([0.75, 1.15, 0.5])
     rvec, tvec = _look_at(np.array([1.0, -0.6, 1.5]), [1.1, 1.0, 0.0])
     img = _static_frame(cam, field, robot, pose, rvec, tvec)
@@ -218,3 +220,34 @@ def test_same_seed_same_frames_and_noise_level():
     d = a.astype(float) - clean
     mid = (clean > 20) & (clean < 235)
     assert_allclose(d[mid].std(), math.sqrt(3.0**2 + 1 / 12), rtol=0.1)
+
+
+@pytest.mark.parametrize("n_frames", [1, 2])  # 1: floor drawn exactly; 2: moving-camera path
+def test_panning_camera_rolling_shutter_on_floor_marker(n_frames):
+    """A panning camera reads row v at t + (v / H) t_readout: a floor marker's corners
+    sit where cv2.projectPoints puts them with the camera pose of their own row."""
+    readout = 0.03
+    cam = CameraProfile(640, 360, 500.0, 500.0, 321.0, 181.0, DIST, readout_s=readout)
+    fm = FloorMarker(4, "DICT_4X4_50", 0.2, 1.3, 1.0, -0.2)
+    field = FieldProfile(4, 4, 0.6096, floor_markers=(fm,))
+    centre = np.array([1.2, -0.6, 1.5])
+
+    def camera_pose_at(t):
+        return _look_at(centre, [1.0 + 2.0 * t, 1.0, 0.0])
+
+    gen = render_frames(field, _robot(), cam, frame_times_s=np.arange(n_frames) * 0.1,
+                        pose_at=lambda t: np.tile([3.0, 3.0, 0.0], (np.size(t), 1)),
+                        camera_pose_at=camera_pose_at, exposure_s=0.0, noise_sigma=0.0,
+                        seed=0)
+    found = _detect(next(iter(gen)))[4]
+    corners = np.column_stack([fm.corners_floor_m(), np.zeros(4)])
+    still = cv2.projectPoints(corners, *camera_pose_at(0.0), cam.matrix,
+                              cam.dist_coeffs)[0][:, 0]
+    want = still.copy()
+    for _ in range(3):  # each corner with the pose of the row it lands on
+        for i in range(4):
+            rv, tv = camera_pose_at(want[i, 1] / cam.height_px * readout)
+            want[i] = cv2.projectPoints(corners[i:i + 1], rv, tv, cam.matrix,
+                                        cam.dist_coeffs)[0][0, 0]
+    assert np.abs(want - still).max() > 5  # the readout visibly moves the corners
+    assert np.abs(found - want).max() < 0.5

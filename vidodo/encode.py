@@ -20,6 +20,7 @@ reports ``frame_times_s - frame_times_s[0]``.
 
 from __future__ import annotations
 
+import os
 import shutil
 import struct
 import subprocess
@@ -133,6 +134,14 @@ def write_video(path, frames: Iterable[np.ndarray], frame_times_s, *, codec="h26
                 f"{path}: got {n} frames but {t.size} frame times; give one time per frame"
             )
         retime_mp4(tmp, t)
+        _usual_mode(tmp)
+
+
+def _usual_mode(path: Path) -> None:
+    """Give the file the permissions a normal new file gets (temporary files are 0600)."""
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(path, 0o666 & ~umask)
 
 
 def _check_frame(frame, i, shape, path):

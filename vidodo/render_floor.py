@@ -34,7 +34,7 @@ PRINT_WHITE = 226.0
 """Grey level of a printed marker's white paper."""
 SEAM_WIDTH_M = 0.003
 """Width of a tile seam [m] (from memory: foam tile joints are a few millimetres)."""
-MARGIN_M = 0.6
+MARGIN_M = 0.8
 """Surround floor kept in the texture on each side of the field [m]."""
 
 
@@ -195,7 +195,9 @@ def floor_texture(field: FieldProfile, floor_seed: int, texel_m: float) -> Floor
     # the surround's texture fades out towards the texture edge (beyond it: flat colour)
     dx = np.minimum(xc - x0, x0 + nx * texel_m - xc)
     dy = np.minimum(yc - y0, y0 + ny * texel_m - yc)
-    fade = np.clip(np.minimum(dy[:, None], dx[None, :]) / (0.5 * MARGIN_M), 0, 1)
+    # (zero within 0.3 m of the edge, where the coarse mip levels would smear it out
+    # into streaks when far-away floor clamps to the edge texels)
+    fade = np.clip((np.minimum(dy[:, None], dx[None, :]) - 0.3) / (MARGIN_M - 0.4), 0, 1)
     fade = fade.astype(np.float32)
     img += ((amp_fine * fine + amp_mottle * mottle) * np.where(inside, 1.0, fade))[..., None]
     # seams: anti-aliased dark lines on every tile boundary (coverage of a texel)

@@ -183,7 +183,8 @@ def cast(parts: RobotParts, origin, direction, inverse, sides, windows):
             t, value = _hit_box(part, o, inv, sides[:, :, rs])
         else:
             t, value = _hit_plate(part, o, d, inv[2])
-        hit = t < best[win]
+        # a plate lying flush on a box top wins the tie (float rounding of two planes)
+        hit = t < best[win] if j < n_box else t <= best[win] * np.float32(1 + 1e-5)
         np.copyto(best[win], t, where=hit)
         np.copyto(shade[win], value, where=hit)
         np.copyto(material[win], part.material if j < n_box else len(parts.albedos),
