@@ -174,10 +174,10 @@ def test_motion_start_index():
 def test_source_metrics_hand_built():
     """Figures of a drifting source on a 2 m straight line, computed by hand.
 
-    Truth: x from 0 to 2 m in 2 s (1 m/s) sampled at 0.1 s, heading 0. Source: heading
-    error growing linearly to 0.02 rad with position following it exactly (rotated
-    about the start), so final error = 2 * sin(0.02)... ~0.04 m, drift 2 %, RPE over 1 s
-    equals the chord error of rotating 1 m by the heading change between ends.
+    Truth: x from 0 to 2 m in 2 s (1 m/s) sampled at 0.1 s, heading 0. Source: at time
+    t it is at distance t along a ray turned by h = 0.01 t rad, with heading h. By hand:
+    final error = |(2 cos 0.02 - 2, 2 sin 0.02)| = 2 * 2 sin(0.01) ~= 0.0400 m, drift
+    = that / 2 m * 100 %, final heading error 0.02 rad, largest error at the end.
     """
     t = np.round(np.arange(0, 2.0001, 0.1), 10)
     q = np.column_stack([t, 0 * t, 0 * t])

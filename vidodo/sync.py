@@ -12,9 +12,11 @@ Method
    sides are differentiated the same way). Their Pearson correlation over the overlap
    (scale-free: mean removed and divided by the spread, over the overlapping part
    only), averaged over the two signals, is maximised over the lag
-   (``scipy.signal.correlate`` with ``correlation_lags``), only among lags where the
-   two overlap for at least 80 % of the shorter record (a log and a video of one run
-   cover nearly the same time). A parabola through the peak refines it.
+   (``scipy.signal.correlate`` with ``correlation_lags``). Lags are compared by
+   Fisher's z of that correlation times the square root of the overlap, so a long
+   overlap that fits well beats a short one that fits by chance; lags where the two
+   overlap for less than 30 % of the shorter record are not considered. A parabola
+   through the peak refines it.
 2. *Source*: the coarse lag is found for every source; sources are grouped by
    agreeing lag (within 0.1 s) and the group with the largest summed correlation is
    kept, so a source whose lag disagrees (a slipping drive, a lifted pod) is set
@@ -51,7 +53,7 @@ __all__ = ["ClockSync", "estimate_clock", "manual_clock", "source_preference", "
 
 GRID_DT_S = 0.01
 """Resampling step of the coarse search [s]."""
-MIN_OVERLAP = 0.8
+MIN_OVERLAP = 0.3
 """Least overlap of log and video, as a fraction of the shorter of the two."""
 MIN_CORRELATION = 0.3
 """Below this normalised correlation the log is taken not to match the video."""
@@ -174,6 +176,7 @@ def _ncc(a_sigs, b_sigs, min_overlap):
         return signal.correlate(u, v, mode="full", method="fft")
 
     total = None
+    count = None
     for a, b in zip(a_sigs, b_sigs, strict=True):
         an, am = _normalise(a)
         bn, bm = _normalise(b)
@@ -189,8 +192,9 @@ def _ncc(a_sigs, b_sigs, min_overlap):
             c = np.where((n >= min_overlap) & (va > 1e-9 * n) & (vb > 1e-9 * n),
                          cov / np.sqrt(np.clip(va * vb, 1e-300, None)), np.nan)
         total = c if total is None else total + c
+        count = n if count is None else np.minimum(count, n)
     lags = signal.correlation_lags(len(a_sigs[0]), len(b_sigs[0]), mode="full")
-    return total / len(a_sigs), lags
+    return total / len(a_sigs), lags, count
 
 
 def _moving_time(speed, omega, dt, v_min, w_min):
@@ -225,18 +229,22 @@ def _coarse(tt, pt, ts, ps, dt, min_overlap_s, max_gap_s):
     sa, wa = _grid_signals(tt, pt, t0a, na, dt, max_gap_s)
     sb, wb = _grid_signals(ts, ps, t0b, nb, dt, max_gap_s)
     min_ov = max(int(min_overlap_s / dt), 10)
-    c, lags = _ncc([sa, wa], [sb, wb], min_ov)
-    if not np.isfinite(c).any():
+    r, lags, n = _ncc([sa, wa], [sb, wb], min_ov)
+    if not np.isfinite(r).any():
         return None
+    # evidence of a lag: Fisher's z of the correlation times the square root of the
+    # overlap (common practice for comparing correlations over different sample
+    # sizes), so a short chance overlap cannot beat a long good one
+    c = np.arctanh(np.clip(r, -0.999, 0.999)) * np.sqrt(np.clip(n, 0, None) * dt)
     k = int(np.nanargmax(c))
-    peak = float(c[k])
+    peak = float(r[k])
     frac = 0.0
     if 0 < k < len(c) - 1 and np.isfinite(c[k - 1]) and np.isfinite(c[k + 1]):
         den = c[k - 1] - 2 * c[k] + c[k + 1]
         if den < 0:
             frac = float(np.clip(0.5 * (c[k - 1] - c[k + 1]) / den, -0.5, 0.5))
     far = np.abs(lags - lags[k]) * dt > 0.5
-    second = float(np.nanmax(c[far])) if np.isfinite(c[far]).any() else -1.0
+    second = float(np.nanmax(c[far]) / c[k]) * peak if np.isfinite(c[far]).any() else -1.0
     offset = t0a - t0b + (lags[k] + frac) * dt
     return offset, peak, second
 
