@@ -155,3 +155,36 @@ def test_batch_rendered_runs_with_one_corrupt_video(rendered_run, tmp_path, caps
     assert (tmp_path / "out" / "drift_trend.png").is_file()
     for i in (0, 2):
         assert (tmp_path / "out" / f"run-{i:02d}" / "summary.json").is_file()
+
+
+# ------------------------------------------------------------ progress bars (progress.py)
+class _Tty:
+    def __init__(self, tty):
+        self.tty, self.text = tty, ""
+
+    def isatty(self):
+        return self.tty
+
+    def write(self, s):
+        self.text += s
+
+    def flush(self):
+        pass
+
+
+def test_progress_bar_only_on_a_terminal_and_not_quiet():
+    from vidodo.progress import progress_bar
+
+    pipe = _Tty(False)
+    with progress_bar(10, "x", stream=pipe) as bar:
+        bar(5, 10)
+        bar.update(1)
+    assert pipe.text == "" and not bar.active
+    tty = _Tty(True)
+    with progress_bar(10, "grading", stream=tty) as bar:
+        bar(5, 10)
+    assert "grading" in tty.text and "5/10" in tty.text
+    quiet = _Tty(True)
+    with progress_bar(10, "x", stream=quiet, quiet=True) as bar:
+        bar(3)
+    assert quiet.text == ""

@@ -173,3 +173,35 @@ def test_build_html_is_deterministic_and_has_no_external_reference():
     assert page == build_html(summary, {}, unit="m")
     for needle in ("http://", "https://", "<script", "@import", "url("):
         assert needle not in page
+
+
+# ------------------------------------------------------------ display units (units.py)
+def test_length_formatting_units():
+    """1 in = 25.4 mm exactly (international yard and pound agreement, 1959)."""
+    from vidodo.units import format_length, length_factor, to_display
+
+    assert format_length(0.0254, "in") == "1.00 in"
+    assert format_length(0.0254, "mm") == "25.4 mm"
+    assert format_length(0.0254, "m") == "0.025 m"
+    assert format_length(None) == "\u2013" and format_length(float("nan")) == "\u2013"
+    assert to_display(2.0, "mm") == 2000.0
+    assert length_factor("in") * 0.0254 == pytest.approx(1.0, abs=1e-15)
+    with pytest.raises(ValueError, match="use one of"):
+        length_factor("ft")
+
+
+def test_terminal_summary_lines():
+    from vidodo.units import summary_lines
+
+    _, _, summary = synthetic_grade()
+    lines = summary_lines(summary, "in")
+    assert lines[0].startswith("log clock offset 421.3 ms")
+    drive = next(ln for ln in lines if ln.startswith("drive"))
+    final_in = summary["sources"]["drive"]["final_err_m"] / 0.0254
+    assert f"{final_in:.2f} in" in drive
+    assert "events: impact x1, wheel_slip x1" in lines
+    assert lines[-1] == "verdict: 1 of 2 sources within tolerance"
+    # columns line up: the data rows are padded to the same width
+    rows = lines[2:4]
+    assert rows[0].startswith("drive") and rows[1].startswith("tracking+imu")
+    assert len(rows[0]) == len(rows[1])
