@@ -34,6 +34,15 @@ sys.path.insert(0, str(ROOT / "tests"))
 
 from vidodo.fit import FitRun, anchored_drift, drift_comparison, fit_profile  # noqa: E402
 
+SPIN = ([{"kind": "turn", "heading_deg": h}
+         for h in (120, -120, 0, 120, -120, 0, -120, 120, 0, -120, 120, 0)]
+        + [{"kind": "drive", "x_m": 2.7432, "y_m": 0.9144},
+           {"kind": "drive", "x_m": 2.7432, "y_m": 2.4384},
+           {"kind": "drive", "x_m": 0.9144, "y_m": 2.4384},
+           {"kind": "drive", "x_m": 0.9144, "y_m": 0.9144},
+           {"kind": "turn", "heading_deg": 0}])
+"""The motion the fit suggests for geometry: spins each way, then a square."""
+
 LIMITS = {"radius_rel": 0.002, "offset_m": 0.001, "imu_scale_rel": 0.001}
 """Issue 7 acceptance: 0.2 % radius, 1 mm offsets, 0.1 % IMU scale."""
 
@@ -147,8 +156,10 @@ def part_rendered(seed: int, quick: bool) -> None:
     from vidodo.profiles import load_robot
 
     size = {"video__width_px": 1280, "video__height_px": 720}
-    cases = [("turns, no faults", dict(fault=None, **size)),
-             ("turns, faults excluded", dict(**size))]
+    cases = [("spin 2 turns each way twice, then a square", dict(fault=None, segment=SPIN,
+                                                              **size)),
+             ("default drive, no faults", dict(fault=None, **size)),
+             ("default drive, faults excluded", dict(**size))]
     if not quick:
         cases.append(("straight only", dict(fault=None, segment=[
             {"kind": "drive", "x_m": 3.2, "y_m": 0.9144}], **size)))
@@ -179,14 +190,16 @@ def part_rendered(seed: int, quick: bool) -> None:
                                fit.corrected_robot)
         best = anchored_drift(run, read_log(folder / "log.csv", exact), exact)
         table = drift_comparison(before, fixed, run.name)
-        print(f"  anchored drift, max error [mm]: {'source':14s} {'wrong':>9s} "
-              f"{'corrected':>9s} {'exact':>9s} {'wrong/corr':>10s}")
+        print("  anchored drift [mm]      wrong profile -> corrected (exact profile), ratio")
         for _, r in table.iterrows():
             ex = best.get(r["source"])
-            print(f"  {'':32s}{r['source']:14s} {r['max_err_m_before'] * 1e3:9.1f} "
-                  f"{r['max_err_m_after'] * 1e3:9.1f} "
-                  f"{(ex.max_err_m * 1e3 if ex else float('nan')):9.1f} "
-                  f"{r['max_err_ratio']:10.1f}")
+            for key, label in (("final_err", "final"), ("max_err", "max"),
+                               ("ate_rmse", "ATE")):
+                e = getattr(ex, f"{key}_m") if ex else None
+                print(f"    {r['source']:14s} {label:5s} {r[f'{key}_m_before'] * 1e3:9.1f} -> "
+                      f"{r[f'{key}_m_after'] * 1e3:7.1f} "
+                      f"({e * 1e3 if e is not None else float('nan'):7.1f}), "
+                      f"{r[f'{key}_ratio']:6.1f}x")
 
 
 def main() -> None:

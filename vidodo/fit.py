@@ -882,8 +882,8 @@ def drift_comparison(before: dict, after: dict, run_name: str = "") -> pd.DataFr
     -------
     DataFrame
         Columns ``run, source``, then ``final_err_m``, ``max_err_m``, ``ate_rmse_m``
-        before and after (suffixes ``_before``, ``_after``) and ``max_err_ratio``
-        (before / after).
+        before and after (suffixes ``_before``, ``_after``) and their ratios
+        ``final_err_ratio``, ``max_err_ratio``, ``ate_rmse_ratio`` (before / after).
     """
     rows = []
     for name in before:
@@ -894,7 +894,10 @@ def drift_comparison(before: dict, after: dict, run_name: str = "") -> pd.DataFr
         for key in ("final_err_m", "max_err_m", "ate_rmse_m"):
             row[f"{key}_before"] = getattr(b, key)
             row[f"{key}_after"] = getattr(a, key)
-        row["max_err_ratio"] = (b.max_err_m / a.max_err_m if a.max_err_m > 0
-                                else float("inf"))
+        for key in ("final_err_m", "max_err_m", "ate_rmse_m"):
+            vb, va = row[f"{key}_before"], row[f"{key}_after"]
+            row[f"{key.removesuffix('_m')}_ratio"] = (
+                float("nan") if vb is None or va is None else
+                (vb / va if va > 0 else float("inf")))
         rows.append(row)
     return pd.DataFrame(rows)

@@ -207,9 +207,14 @@ def run(args) -> int:
         print(f"{len(runs)} run(s), {n} windows of {args.window:g} s outside events")
         print(format_table(fit.table))
         if len(drift):
-            print("\nanchored drift (max error) before -> after:")
+            print("\nanchored drift before -> after the correction:")
             for _, r in drift.iterrows():
-                print(f"  {r['run']} {r['source']}: {r['max_err_m_before'] * 1e3:.1f} mm -> "
-                      f"{r['max_err_m_after'] * 1e3:.1f} mm ({r['max_err_ratio']:.1f}x)")
+                parts = []
+                for key, label in (("final_err", "final"), ("max_err", "max"),
+                                   ("ate_rmse", "ATE")):
+                    b, a = r[f"{key}_m_before"], r[f"{key}_m_after"]
+                    if pd.notna(b) and pd.notna(a):
+                        parts.append(f"{label} {b * 1e3:.1f} -> {a * 1e3:.1f} mm")
+                print(f"  {r['run']} {r['source']}: " + ", ".join(parts))
         print(f"\ncorrected profile -> {args.out / 'robot.toml'}")
     return 0
