@@ -134,7 +134,8 @@ class FloorPatchTracker:
         usable_u8 = usable.astype(np.uint8) * 255
         # Keep corners away from the usable region's border (the robot, the field edge).
         usable_u8 = cv2.erode(usable_u8, np.ones((15, 15), np.uint8))
-        pts = cv2.goodFeaturesToTrack(ref_grey, max_points, 0.01, md, mask=usable_u8,
+        # A low quality level: floor grain is faint next to printed markers.
+        pts = cv2.goodFeaturesToTrack(ref_grey, max_points, 0.002, md, mask=usable_u8,
                                       blockSize=7)
         self.ref_px = (np.zeros((0, 2)) if pts is None
                        else pts.reshape(-1, 2).astype(np.float64))

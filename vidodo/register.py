@@ -678,6 +678,7 @@ class FloorRegistrar:
         self.reference_grey = None
         self._tracker = None
         self._floor_ref = None
+        self._last_found = None
         self._last: FrameRegistration | None = None
         self._detectors: dict = {}
         self.grid_result = None
@@ -750,6 +751,7 @@ class FloorRegistrar:
         usable = _floor_usable(reg, self.field, grey.shape, ignore, margin_m=0.0)
         self._tracker = floor_features.FloorPatchTracker(grey, usable)
         self._floor_ref = reg.image_to_floor(self._tracker.ref_px)
+        self._last_found = self._tracker.ref_px.copy()
 
     # -- per frame -----------------------------------------------------------
     def register(self, frame_bgr, t_s, mask=None) -> FrameRegistration:
@@ -799,18 +801,23 @@ class FloorRegistrar:
         found, ok = tr.locate(grey, h_guess, ignore=ignore)
         ok &= np.all(np.isfinite(self._floor_ref), axis=1)
         if ok.sum() >= self.min_tracked:
-            shift = np.linalg.norm(found[ok] - tr.ref_px[ok], axis=1)
-            if np.median(shift) < self.static_tolerance_px and (
-                    np.percentile(shift, 90) < 4 * self.static_tolerance_px):
-                reg = replace(ref, t_s=float(t_s), method="static")
-                self._last = reg
-                return reg
+            # The view has not moved (against the last registered frame): keep it.
+            prev_px = tr.ref_px if last is ref else self._last_found
+            both = ok & np.all(np.isfinite(prev_px), axis=1)
+            if both.sum() >= self.min_tracked:
+                shift = np.linalg.norm(found[both] - prev_px[both], axis=1)
+                if np.median(shift) < self.static_tolerance_px and (
+                        np.percentile(shift, 75) < 3 * self.static_tolerance_px):
+                    reg = replace(last, t_s=float(t_s), method="static")
+                    self._last = reg
+                    return reg
         source = "tracked"
         if ok.sum() < self.min_tracked:
             # Lost: try the floor fiducials, then feature matching.
             reg = self._reacquire(grey, t_s, ignore)
             if reg is not None:
                 self._last = reg
+                self._last_found = np.full_like(tr.ref_px, np.nan)
                 return reg
             return failed(t_s, f"only {int(ok.sum())} floor corners found again and no "
                           "floor marker or feature match; view moved too far",
@@ -835,6 +842,7 @@ class FloorRegistrar:
             return failed(t_s, f"{source}: residual {reg.rms_px:.2f} px RMS above the "
                           f"{self.max_rms_px} px limit", ref.camera_matrix, ref.dist_coeffs)
         self._last = reg
+        self._last_found = found
         return reg
 
     def _seams_each_frame(self):

@@ -1,0 +1,271 @@
+"""Floor registration: geometry checked against OpenCV, fits on synthetic views, refusals.
+
+Synthetic views come from ``test_grid`` (OpenCV's own lens model traced back to a
+textured floor), so every true pixel is known exactly.
+"""
+
+from __future__ import annotations
+
+import math
+
+import cv2
+import numpy as np
+import pytest
+from test_grid import (
+    CAM,
+    FIELD,
+    corner_error_mm,
+    look_at,
+    render_view,
+    tile_texture,
+    tripod_pose,
+)
+from test_lens import opencv_data
+
+from vidodo import floor_features, register
+from vidodo.errors import CalibrationError, InputError
+from vidodo.profiles import CameraProfile, FieldProfile, FloorMarker
+
+K = np.array([[1000.0, 0, 640], [0, 1000.0, 360], [0, 0, 1]])
+
+
+def _floor_pts(n=30, seed=4):
+    rng = np.random.default_rng(seed)  # seed fixed; any spread of points will do
+    return rng.uniform([0, 0], [3.6, 3.6], (n, 2))
+
+
+# ------------------------------------------------------------------ geometry
+def test_pose_from_homography_matches_opencv_solvepnp():
+    """Zhang's decomposition H ~ K[r1 r2 t] agrees with cv2.solvePnP (IPPE) on exact data."""
+    rvec, tvec = look_at([1.8, -1.8, 2.4], [1.8, 1.5, 0.0])
+    fl = _floor_pts()
+    px = cv2.projectPoints(np.column_stack([fl, np.zeros(len(fl))]), rvec, tvec, K,
+                           None)[0].reshape(-1, 2)
+    hmg, _ = cv2.findHomography(fl, px, 0)
+    rv, tv = register.pose_from_homography(hmg, K)
+    ok, rv_cv, tv_cv = cv2.solvePnP(np.column_stack([fl, np.zeros(len(fl))]), px, K, None,
+                                    flags=cv2.SOLVEPNP_IPPE)
+    assert ok
+    np.testing.assert_allclose(rv, rv_cv.ravel(), atol=1e-6)
+    np.testing.assert_allclose(tv, tv_cv.ravel(), atol=1e-6)
+    np.testing.assert_allclose(rv, rvec, atol=1e-6)
+
+
+@pytest.mark.parametrize("roll_deg", [0.0, 12.0])
+def test_focal_from_homography(roll_deg):
+    """Zhang (2000) eqs. 3-4 with square pixels and a known principal point give f back."""
+    rvec, tvec = look_at([0.5, -2.0, 1.8], [2.0, 1.5, 0.0])
+    r = cv2.Rodrigues(rvec)[0]
+    c = math.cos(math.radians(roll_deg))
+    s = math.sin(math.radians(roll_deg))
+    roll = np.array([[c, -s, 0], [s, c, 0], [0, 0, 1]])  # about the optical axis
+    r, t = roll @ r, roll @ tvec
+    hmg = K @ np.column_stack([r[:, 0], r[:, 1], t])
+    f = register.focal_from_homography(hmg, (640, 360))
+    assert f == pytest.approx(1000.0, rel=1e-6)
+
+
+def test_focal_not_observable_straight_down():
+    rvec, tvec = look_at([1.0, 1.0, 2.0], [1.0, 1.0001, 0.0])
+    r = cv2.Rodrigues(rvec)[0]
+    hmg = K @ np.column_stack([r[:, 0], r[:, 1], tvec])
+    assert register.focal_from_homography(hmg, (640, 360)) is None
+
+
+def _registration(rvec, tvec, k=K, dist=None):
+    dist = np.zeros(5) if dist is None else dist
+    return register.FrameRegistration(0.0, True, k, dist, np.asarray(rvec, float),
+                                      np.asarray(tvec, float), 0.0, 0.0, 0, "test")
+
+
+def test_image_to_floor_with_height_matches_projectpoints():
+    """A point at height h projected by cv2.projectPoints comes back at its (x, y)."""
+    dist = np.array([-0.1, 0.02, 0.001, -0.0005, 0.0])
+    rvec, tvec = look_at([1.8, -1.8, 2.4], [1.8, 1.5, 0.0])
+    reg = _registration(rvec, tvec, K, dist)
+    rng = np.random.default_rng(5)  # seed fixed; any points in view will do
+    pts = np.column_stack([rng.uniform(0.2, 3.4, (40, 2)), rng.uniform(0, 0.5, 40)])
+    px = cv2.projectPoints(pts, rvec, tvec, K, dist)[0].reshape(-1, 2)
+    back = reg.image_to_floor(px, height_m=pts[:, 2])
+    np.testing.assert_allclose(back, pts[:, :2], atol=1e-7)
+    np.testing.assert_allclose(reg.floor_to_image(pts), px, atol=1e-9)
+
+
+def test_parallax_of_raised_marker_matches_similar_triangles():
+    """Reading a raised point as if on the floor moves it away from the nadir by
+    d*h/(C_z - h) (similar triangles; the camera centre, the point and its floor
+    shadow along the ray are collinear)."""
+    rvec, tvec = look_at([1.8, -1.8, 2.4], [1.8, 1.5, 0.0])
+    reg = _registration(rvec, tvec)
+    c = reg.camera_centre_m
+    p = np.array([[2.5, 2.0, 0.3]])
+    naive = reg.image_to_floor(reg.floor_to_image(p), 0.0)[0]
+    d = np.linalg.norm(p[0, :2] - c[:2])
+    assert np.linalg.norm(naive - p[0, :2]) == pytest.approx(d * 0.3 / (c[2] - 0.3), rel=1e-9)
+
+
+def test_failed_registration_maps_to_nan():
+    reg = register.failed(1.0, "no floor")
+    assert not reg.ok and reg.reason == "no floor"
+    assert np.isnan(reg.image_to_floor([[1.0, 2.0]])).all()
+    assert np.isnan(reg.floor_to_image([[1.0, 2.0]])).all()
+
+
+# ------------------------------------------------------------- points input
+def _write_csv(path, text):
+    path.write_text(text)
+    return path
+
+
+def test_points_csv_errors_name_column_and_line(tmp_path):
+    p = _write_csv(tmp_path / "a.csv", "u_px,v_px,x_m\n1,2,3\n")
+    with pytest.raises(InputError, match="missing column.*y_m"):
+        register.read_points_csv(p)
+    p = _write_csv(tmp_path / "b.csv", "u_px,v_px,x_m,y_m\n1,2,3,4\n5,six,7,8\n")
+    with pytest.raises(InputError, match="line 3, column v_px"):
+        register.read_points_csv(p)
+    p = _write_csv(tmp_path / "c.csv", "")
+    with pytest.raises(InputError, match="empty"):
+        register.read_points_csv(p)
+    with pytest.raises(InputError, match="not found"):
+        register.read_points_csv(tmp_path / "missing.csv")
+
+
+def test_refusals_one_line_naming_the_cause():
+    fl = _floor_pts(8)
+    with pytest.raises(CalibrationError, match="3 point"):
+        register.check_correspondences(fl[:3] * 100, fl[:3])
+    line = np.column_stack([np.linspace(0, 3, 6), 0.5 * np.linspace(0, 3, 6) + 0.001 *
+                            np.array([0, 1, 0, 1, 0, 1])])
+    with pytest.raises(CalibrationError, match="collinear"):
+        register.check_correspondences(line * 100 + 7, line)
+    # Mirrored: x and y swapped in the floor coordinates.
+    rvec, tvec = look_at([1.8, -1.8, 2.4], [1.8, 1.5, 0.0])
+    px = cv2.projectPoints(np.column_stack([fl, np.zeros(len(fl))]), rvec, tvec, K,
+                           None)[0].reshape(-1, 2)
+    with pytest.raises(CalibrationError, match="mirrored") as info:
+        register.fit_camera((1280, 720), points=(px, fl[:, ::-1]))
+    assert "\n" not in str(info.value)
+
+
+def test_points_method_on_exact_correspondences(tmp_path):
+    """Tile corners 'clicked' at their exact pixels give the true camera back."""
+    rvec, tvec = tripod_pose()
+    corners = FIELD.tile_corners_m()
+    px = cv2.projectPoints(np.column_stack([corners, np.zeros(len(corners))]), rvec, tvec,
+                           CAM.matrix, CAM.dist_coeffs)[0].reshape(-1, 2)
+    rows = "\n".join(f"{u:.4f},{v:.4f},{x},{y}" for (u, v), (x, y) in zip(px, corners,
+                                                                          strict=True))
+    p = _write_csv(tmp_path / "pts.csv", "u_px,v_px,x_m,y_m\n" + rows + "\n")
+    registrar = register.FloorRegistrar(FIELD, CAM, method="points", points_csv=p,
+                                        refine_on_seams=False)
+    reg = registrar.register(np.zeros((720, 1280), np.uint8), 0.0)
+    assert reg.ok and reg.method == "points"
+    assert corner_error_mm(reg, CAM, rvec, tvec) < 0.1
+    assert reg.rms_px < 0.01
+
+
+def test_points_method_refuses_high_error(tmp_path):
+    fl = _floor_pts(12)
+    rvec, tvec = look_at([1.8, -1.8, 2.4], [1.8, 1.5, 0.0])
+    px = cv2.projectPoints(np.column_stack([fl, np.zeros(len(fl))]), rvec, tvec, K,
+                           None)[0].reshape(-1, 2)
+    px[3] += [40.0, -25.0]  # one badly picked corner
+    rows = "\n".join(f"{u},{v},{x},{y}" for (u, v), (x, y) in zip(px, fl, strict=True))
+    p = _write_csv(tmp_path / "pts.csv", "u_px,v_px,x_m,y_m\n" + rows + "\n")
+    cam = CameraProfile(1280, 720, 1000.0, 1000.0, 640.0, 360.0)
+    registrar = register.FloorRegistrar(FIELD, cam, method="points", points_csv=p,
+                                        refine_on_seams=False, max_rms_px=2.0)
+    with pytest.raises(CalibrationError, match="above the 2.0 px limit"):
+        registrar.register_reference(np.zeros((720, 1280), np.uint8), 0.0)
+    # Per frame it is a flagged frame, not an exception.
+    reg = registrar.register(np.zeros((720, 1280), np.uint8), 0.0)
+    assert not reg.ok and "limit" in reg.reason
+
+
+# ------------------------------------------------------------------- markers
+MARKERS = (FloorMarker(20, "DICT_4X4_50", 0.2, 0.3, 0.3), FloorMarker(21, "DICT_4X4_50", 0.2,
+                                                                       3.3, 0.3),
+           FloorMarker(22, "DICT_4X4_50", 0.2, 0.3, 3.3), FloorMarker(23, "DICT_4X4_50", 0.2,
+                                                                      3.3, 3.3))
+
+
+@pytest.fixture(scope="module")
+def marker_field_view():
+    field = FieldProfile(6, 6, 0.6, floor_markers=MARKERS)
+    tex, org = tile_texture(field, markers=MARKERS)
+    rvec, tvec = tripod_pose(field)
+    return field, tex, org, rvec, tvec, render_view(tex, org, CAM, rvec, tvec)
+
+
+def test_markers_method_then_seams(marker_field_view):
+    field, _tex, _org, rvec, tvec, img = marker_field_view
+    only = register.FloorRegistrar(field, CAM, method="markers", refine_on_seams=False)
+    reg0 = only.register_reference(img, 0.0)
+    assert reg0.method == "markers" and reg0.n_points == 16
+    err0 = corner_error_mm(reg0, CAM, rvec, tvec)
+    both = register.FloorRegistrar(field, CAM, method="markers")
+    reg = both.register_reference(img, 0.0)
+    assert reg.method == "markers+seams"
+    err = corner_error_mm(reg, CAM, rvec, tvec)
+    assert err < 2.0 and err < err0 + 0.5
+
+
+def test_auto_uses_grid_without_markers():
+    tex, org = tile_texture(FIELD)
+    rvec, tvec = tripod_pose()
+    img = render_view(tex, org, CAM, rvec, tvec, supersample=1)
+    reg = register.FloorRegistrar(FIELD, None).register(img, 0.0)
+    assert reg.ok and reg.method == "grid", reg.reason
+    assert corner_error_mm(reg, CAM, rvec, tvec) < 2.5
+
+
+# --------------------------------------------------------------- hand-held
+def test_handheld_sequence_reregistered_every_frame(marker_field_view):
+    """A swaying camera: every frame re-registered; a static repeat is recognised; a
+    blank frame is flagged, not raised; a masked robot-sized box is ignored."""
+    field, tex, org, rvec0, tvec0, img0 = marker_field_view
+    registrar = register.FloorRegistrar(field, CAM, method="auto")
+    reg = registrar.register(img0, 0.0)
+    assert reg.ok
+    sx, sy = field.size_m
+    errs = []
+    for i, (dx, dz, dyaw) in enumerate([(0.04, 0.02, 0.5), (-0.05, -0.03, -1.0),
+                                        (0.10, 0.05, 1.5)]):
+        c = np.array([sx / 2 + dx, -2.0, 2.4 + dz])
+        target = np.array([sx / 2 + math.tan(math.radians(dyaw)) * 3.0, sy * 0.45, 0])
+        rvec, tvec = look_at(c, target)
+        img = render_view(tex, org, CAM, rvec, tvec, supersample=1, seed=10 + i)
+        mask = np.zeros(img.shape, bool)
+        mask[300:420, 560:700] = True
+        img[mask] = 30  # the "robot"
+        reg = registrar.register(img, 0.1 * (i + 1), mask=mask)
+        assert reg.ok, reg.reason
+        assert reg.method != "static"
+        errs.append(corner_error_mm(reg, CAM, rvec, tvec, field))
+    assert max(errs) < 4.0, errs
+    again = registrar.register(img, 0.5, mask=mask)
+    assert again.ok and again.method == "static"
+    blank = registrar.register(np.full_like(img, 128), 0.6)
+    assert not blank.ok and blank.reason
+
+
+# --------------------------------------------------------- real image pair
+def test_feature_reregistration_recovers_graffiti_homography():
+    """graf1 -> graf3 of the Oxford affine-region set (Mikolajczyk et al., IJCV 2005),
+    ground truth H1to3p.xml (opencv-doc): mean transfer error < 2 px on a grid."""
+    data = opencv_data()
+    a = cv2.imread(str(data / "graf1.png"))
+    b = cv2.imread(str(data / "graf3.png"))
+    fs = cv2.FileStorage(str(data / "H1to3p.xml"), cv2.FILE_STORAGE_READ)
+    h_true = fs.getNode("H13").mat()
+    fs.release()
+    m = floor_features.match_homography(a, b, detector="sift")
+    assert m.H is not None, m.reason
+    r = floor_features.refine_homography(a, b, m.H)
+    assert r.H is not None, r.reason
+    gx, gy = np.meshgrid(np.linspace(0, a.shape[1] - 1, 20), np.linspace(0, a.shape[0] - 1, 16))
+    grid_pts = np.column_stack([gx.ravel(), gy.ravel()]).reshape(-1, 1, 2)
+    err = np.linalg.norm(cv2.perspectiveTransform(grid_pts, r.H)
+                         - cv2.perspectiveTransform(grid_pts, h_true), axis=2)
+    assert err.mean() < 2.0, err.mean()
