@@ -27,6 +27,7 @@ from .metrics import (
     SourceMetrics,
     anchor_poses,
     drift_table,
+    local_pose,
     motion_start_index,
     path_length,
     source_metrics,
@@ -263,14 +264,14 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
         if not np.isfinite(pa).all():
             first = int(np.flatnonzero(np.isfinite(p).all(axis=1) & np.isfinite(q).all(
                 axis=1))[0])
-            ta, pa, qa = float(t[first]), p[first], tuple(q[first])
+            ta, pa, qa = float(t[first]), p[first], local_pose(t, q, float(t[first]), sxy)
             warn.append(f"source {name!r}: the log starts after motion start; anchored at "
                         f"{ta:.2f} s instead")
         a = anchor_poses(p, pa, qa)
         anchored[name] = pd.DataFrame({"t_s": t, "x_m": a[:, 0], "y_m": a[:, 1],
                                        "heading_rad": a[:, 2]})
         try:
-            m = source_metrics(t, q, a, cum, sigma_heading_rad=sh, name=name)
+            m = source_metrics(t, q, a, cum, sigma_heading_rad=sh, sigma_m=sxy, name=name)
         except MeasurementError as exc:
             warn.append(str(exc))
             continue
