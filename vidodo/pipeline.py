@@ -37,8 +37,8 @@ from .metrics import (
 from .profiles import FieldProfile, RobotProfile, load_camera, load_field, load_robot
 from .sync import ClockSync, estimate_clock, manual_clock
 
-__all__ = ["Tolerances", "GradeResult", "grade_run", "grade_tracks", "read_track_csv",
-           "TRACK_COLUMNS"]
+__all__ = ["Tolerances", "GradeResult", "grade_run", "grade_tracks", "grade_run_folder",
+           "read_track_csv", "TRACK_COLUMNS"]
 
 TRACK_COLUMNS = ["t_s", "x_m", "y_m", "heading_rad", "sigma_xy_m", "sigma_heading_rad",
                  "vx_mps", "vy_mps", "speed_mps", "omega_radps", "ax_mps2", "ay_mps2",
@@ -193,7 +193,7 @@ def _anchor(truth, sxy):
 
 def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
                  truth_quality=None, truth_warnings=(), inputs=None,
-                 event_settings=None, odometry=None) -> GradeResult:
+                 event_settings=None, odometry=None, field_profile=None) -> GradeResult:
     """Grade a run from a truth track and a log already read.
 
     Parameters
@@ -208,6 +208,8 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
     tolerances : Tolerances, optional
     odometry : dict of str -> DataFrame, optional
         Odometry sources on the log clock; rebuilt from ``log`` when None.
+    field_profile : FieldProfile, optional
+        Recorded in the summary (``field``) for the plots.
 
     Returns
     -------
@@ -327,6 +329,9 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
                   "confidence": clock.confidence, "method": clock.method,
                   "source": clock.source, "rate": clock.rate, "ref_log_s": clock.ref_log_s},
         "truth": dict(truth_quality or {}),
+        "field": None if field_profile is None else {
+            "tiles_x": field_profile.tiles_x, "tiles_y": field_profile.tiles_y,
+            "tile_size_m": field_profile.tile_size_m},
         "sources": {n: {**{k: v for k, v in m.to_dict().items() if k != "warnings"},
                         "pass": passed[n]} for n, m in metrics.items()},
         "events": events_df.to_dict(orient="records"),
@@ -404,12 +409,11 @@ def grade_run(video, log, robot, field_profile, camera=None, *, clock_offset_s=N
     robot = _profile(robot, load_robot)
     field_profile = _profile(field_profile, load_field)
     camera = _profile(camera, load_camera)
-    inputs = {"video": str(video) if video is not None else None,
-              "log": str(getattr(log, "path", log)),
-              "robot": str(robot.path) if robot.path else robot.name,
-              "field": str(field_profile.path) if field_profile and field_profile.path
-              else None,
-              "camera": str(camera.path) if camera is not None and camera.path else None}
+    inputs = {"video": _abs(video),
+              "log": _abs(getattr(log, "path", log)),
+              "robot": _abs(robot.path) if robot.path else robot.name,
+              "field": _abs(field_profile.path) if field_profile else None,
+              "camera": _abs(camera.path) if camera is not None else None}
     quality, twarn = {}, []
     if track is None:
         from .track import track_video
@@ -423,8 +427,64 @@ def grade_run(video, log, robot, field_profile, camera=None, *, clock_offset_s=N
         inputs["track"] = "given"
     else:
         truth = read_track_csv(track)
-        inputs["track"] = str(track)
+        inputs["track"] = _abs(track)
     logdata = log if isinstance(log, LogData) else read_log(log, robot)
     return grade_tracks(truth, logdata, robot, clock_offset_s=clock_offset_s,
                         tolerances=tolerances, truth_quality=quality, truth_warnings=twarn,
-                        inputs=inputs, event_settings=event_settings)
+                        inputs=inputs, event_settings=event_settings,
+                        field_profile=field_profile)
+
+
+def _abs(path):
+    return None if path is None else str(Path(path).resolve())
+
+
+def grade_run_folder(run_dir, out_dir, *, progress=None, replay=True, units="mm", tune=False,
+                     tolerances=None) -> GradeResult:
+    """Grade a run folder (``video.mp4``, ``log.csv``, ``robot.toml``, ``field.toml``,
+    optional ``camera.toml``; see DEVELOPERS.md) and write every output into ``out_dir``.
+
+    Writes the grade outputs (:func:`vidodo.report.write_outputs`), optionally a
+    corrected robot profile from :func:`vidodo.fit.fit_profile` into ``out_dir/tune``,
+    then the plots and the HTML report (:func:`vidodo.showcase.render_all`). The run
+    folder's ``truth/`` is never read.
+
+    Returns
+    -------
+    GradeResult
+    """
+    from .report import write_outputs
+    from .showcase import render_all
+
+    run_dir, out_dir = Path(run_dir), Path(out_dir)
+    missing = [f for f in ("video.mp4", "log.csv", "robot.toml", "field.toml")
+               if not (run_dir / f).is_file()]
+    if missing:
+        raise InputError(f"{run_dir}: missing {', '.join(missing)}; not a run folder")
+    cam = run_dir / "camera.toml"
+    result = grade_run(run_dir / "video.mp4", run_dir / "log.csv", run_dir / "robot.toml",
+                       run_dir / "field.toml", cam if cam.is_file() else None,
+                       tolerances=tolerances, progress=progress)
+    write_outputs(result, out_dir)
+    if tune:
+        _tune(result, run_dir, out_dir / "tune")
+    render_all(out_dir, out_dir, replay=replay, units=units, progress=progress)
+    return result
+
+
+def _tune(result: GradeResult, run_dir: Path, out_dir: Path) -> None:
+    """Fit the robot profile to this run and write robot.toml and fit.csv."""
+    from .fit import FitRun, fit_profile, write_profile
+    from .logs import read_log
+    from .outputs import staged_dir
+
+    robot = load_robot(run_dir / "robot.toml")
+    log = read_log(run_dir / "log.csv", robot)
+    c = result.clock
+    run = FitRun(name=run_dir.name, truth=result.truth, log=log.frame, offset_s=c.offset_s,
+                 exclude_windows=tuple((e.t_start_s, e.t_end_s) for e in result.event_list),
+                 rate=c.rate, ref_log_s=c.ref_log_s)
+    fit = fit_profile([run], robot)
+    with staged_dir(out_dir) as stage:
+        write_profile(fit, stage / "robot.toml")
+        fit.table.to_csv(stage / "fit.csv", index=False, float_format="%.9g")

@@ -52,7 +52,8 @@ summary.json
 ``vidodo_version``; ``inputs`` (file paths); ``settings`` (event thresholds, anchor);
 ``clock`` (``offset_s`` [s] with ``t_video = t_log + offset_s``, ``sigma_s`` [s],
 ``confidence`` 0..1, ``method``, ``source``, ``rate`` and ``ref_log_s`` of the optional
-rate term); ``truth`` (tracker quality figures); ``sources``, per name:
+rate term); ``truth`` (tracker quality figures); ``field`` (``tiles_x``, ``tiles_y``,
+``tile_size_m`` [m]) when known; ``sources``, per name:
 ``ate_rmse_m``, ``rpe_0p5m_rmse_m``, ``rpe_1s_rmse_m`` [m], ``final_err_m`` [m],
 ``final_heading_err_rad`` [rad], ``drift_pct`` [% of path], ``heading_drift_deg_per_turn``
 [deg per full turn], ``max_err_m`` [m] and where (``max_err_t_s`` [s], ``max_err_x_m``,
