@@ -205,3 +205,51 @@ def test_terminal_summary_lines():
     rows = lines[2:4]
     assert rows[0].startswith("drive") and rows[1].startswith("tracking+imu")
     assert len(rows[0]) == len(rows[1])
+
+
+# ------------------------------------------------------------ the report verb
+def test_report_verb_rebuilds_pictures(tmp_path, capsys):
+    from vidodo.cli_main import main
+
+    folder = make_grade_dir(tmp_path / "run")
+    assert main(["report", str(folder), "--out", str(tmp_path / "pics"), "--units", "m",
+                 "--quiet"]) == 0
+    names = sorted(p.name for p in (tmp_path / "pics").iterdir())
+    assert names == ["error_vs_time.png", "field_map.png", "report.html", "speed.png"]
+    (folder / "summary.json").write_text("{not json")
+    assert main(["report", str(folder)]) == 2
+    assert "summary.json: not valid JSON" in capsys.readouterr().err
+
+
+@pytest.mark.slow
+def test_report_of_a_real_grade(browser, rendered_run, tmp_path):
+    """End to end: grade a rendered run, render_all from the GradeResult (plots, replay,
+    HTML), and check the page in the browser against the summary it was built from."""
+    from vidodo.pipeline import grade_run
+
+    run = rendered_run("default", 5, video__width_px=1280, video__height_px=720,
+                       **{"video.max_duration_s": 3.0})
+    result = grade_run(run / "video.mp4", run / "log.csv", run / "robot.toml",
+                       run / "field.toml", run / "camera.toml")
+    out = tmp_path / "grade"
+    written = render_all(result, out, replay=True, units="mm")
+    assert {p.name for p in written} == {"field_map.png", "error_vs_time.png", "speed.png",
+                                         "replay.mp4", "report.html"}
+    console, requests = _open(browser, out / "report.html")
+    assert [e for e in console if e["level"] in ("SEVERE", "ERROR")] == []
+    assert [u for u in requests if not u.startswith("data:")] == \
+        [(out / "report.html").resolve().as_uri()]
+    assert all(w > 0 for w in browser.execute_script(
+        "return [...document.images].map(i => i.naturalWidth);"))
+    summary = json.loads((out / "summary.json").read_text())
+    cells = {key: si for key, si, _, _ in _cells(browser)}
+    for name, metrics in summary["sources"].items():
+        for key, _, kind in METRIC_COLUMNS:
+            value = metrics.get(key)
+            si = cells[f"sources/{name}/{key}"]
+            if value is None:
+                assert si == "null"
+            elif kind == "bool":
+                assert si == ("true" if value else "false")
+            else:
+                assert float(si) == value
