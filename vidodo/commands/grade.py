@@ -53,12 +53,13 @@ def verdict_lines(result, *, units="mm"):
     dig = 0 if units == "mm" else (3 if units == "m" else 2)
     c = result.clock
     lines = []
+    sign = "+" if c.offset_s >= 0 else "-"
+    head = f"clock: video = log {sign} {abs(c.offset_s):.4f} s"
     if c.method == "manual":
-        lines.append(f"clock: log + {c.offset_s:+.4f} s (manual)")
+        lines.append(f"{head} (manual)")
     else:
         sig = "?" if c.sigma_s is None else f"{c.sigma_s * 1000:.1f}"
-        lines.append(f"clock: log + {c.offset_s:+.4f} s (+-{sig} ms, confidence "
-                     f"{c.confidence:.2f}, from {c.source})")
+        lines.append(f"{head} (+-{sig} ms, confidence {c.confidence:.2f}, from {c.source})")
     for name, m in result.metrics.items():
         p = result.passed.get(name)
         mark = "PASS" if p else ("FAIL" if p is False else "    ")
