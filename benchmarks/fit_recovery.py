@@ -19,7 +19,7 @@ wrote, and anchored drift is measured before and after the correction.
 from __future__ import annotations
 
 import argparse
-import dataclasses
+import functools
 import sys
 import time
 import tomllib
@@ -28,23 +28,18 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+print = functools.partial(print, flush=True)  # noqa: A001
+
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests"))
 
-from vidodo.fit import FitRun, anchored_drift, drift_comparison, fit_profile  # noqa: E402
-
-SPIN = ([{"kind": "turn", "heading_deg": h}
-         for h in (120, -120, 0, 120, -120, 0, -120, 120, 0, -120, 120, 0)]
-        + [{"kind": "drive", "x_m": 2.7432, "y_m": 0.9144},
-           {"kind": "drive", "x_m": 2.7432, "y_m": 2.4384},
-           {"kind": "drive", "x_m": 0.9144, "y_m": 2.4384},
-           {"kind": "drive", "x_m": 0.9144, "y_m": 0.9144},
-           {"kind": "turn", "heading_deg": 0}])
-"""The motion the fit suggests for geometry: spins each way, then a square."""
-
-LIMITS = {"radius_rel": 0.002, "offset_m": 0.001, "imu_scale_rel": 0.001}
-"""Issue 7 acceptance: 0.2 % radius, 1 mm offsets, 0.1 % IMU scale."""
+from vidodo.fit import (  # noqa: E402
+    anchored_drift,
+    drift_comparison,
+    fit_profile,
+    fit_profile_with_events,
+)
 
 
 # ----------------------------------------------------------------------- part 1
@@ -87,70 +82,9 @@ def part_constructed(n_seeds: int) -> None:
 
 
 # ----------------------------------------------------------------------- part 2
-def _wrong_profile(exact):
-    """Known errors: 2 % radius (drive left, pod_left), 5 mm offsets on every pod,
-    1 % IMU scale, pod_right's encoder sign inverted."""
-    ws = []
-    for w in exact.wheels:
-        ch = {}
-        if w.name in ("left", "pod_left"):
-            ch["radius_m"] = w.radius_m * 1.02
-        if w.name == "pod_left":
-            ch["y_m"] = w.y_m + 0.005
-        if w.name == "pod_right":
-            ch["y_m"] = w.y_m - 0.005
-            ch["sign"] = -w.sign
-        if w.name == "pod_perpendicular":
-            ch["x_m"] = w.x_m + 0.005
-        ws.append(dataclasses.replace(w, **ch))
-    return dataclasses.replace(exact, wheels=tuple(ws), path=None,
-                               imu=dataclasses.replace(exact.imu, scale=exact.imu.scale * 1.01))
-
-
-def _grade(folder: Path, robot):
-    from vidodo.logs import read_log
-    from vidodo.pipeline import grade_run
-
-    t0 = time.perf_counter()
-    res = grade_run(folder / "video.mp4", folder / "log.csv", robot, folder / "field.toml",
-                    folder / "camera.toml")
-    t_grade = time.perf_counter() - t0
-    log = read_log(folder / "log.csv", robot)
-    ev = res.events
-    windows = tuple(zip(ev["t_start_s"], ev["t_end_s"], strict=True)) if len(ev) else ()
-    run = FitRun(folder.name, res.truth, log.frame, res.clock.offset_s,
-                 exclude_windows=windows, rate=res.clock.rate, ref_log_s=res.clock.ref_log_s)
-    return run, log, res, t_grade
-
-
-def _check(fit, exact, wrong, scale_error):
-    """Rows: value, true, fitted, error, limit, within."""
-    tab = fit.table.set_index("parameter")
-    rows = []
-    for w in exact.wheels:
-        r = tab.loc[f"wheel {w.name} radius_m"]
-        err = r["estimate"] / w.radius_m - 1.0
-        rows.append((f"{w.name} radius", f"{w.radius_m * 1e3:.2f} mm", r["identifiable"],
-                     f"{err * 100:+.3f} %", abs(err) <= LIMITS["radius_rel"]))
-        key = "x_m" if abs(np.sin(w.direction_rad)) > 0.5 else "y_m"
-        r = tab.loc[f"wheel {w.name} {key}"]
-        err = r["estimate"] - getattr(w, key)
-        rows.append((f"{w.name} {key}", f"{getattr(w, key) * 1e3:.1f} mm", r["identifiable"],
-                     f"{err * 1e3:+.3f} mm", abs(err) <= LIMITS["offset_m"]))
-    true_scale = exact.imu.scale / (1.0 + scale_error)
-    r = tab.loc["imu scale"]
-    err = r["estimate"] / true_scale - 1.0
-    rows.append(("imu scale", f"{true_scale:.5f}", r["identifiable"], f"{err * 100:+.3f} %",
-                 abs(err) <= LIMITS["imu_scale_rel"]))
-    flipped = {w.name for w, v in zip(exact.wheels, wrong.wheels, strict=True)
-               if w.sign != v.sign}
-    rows.append(("inverted encoder flagged", ",".join(sorted(flipped)), "",
-                 ",".join(fit.inverted) or "none", set(fit.inverted) == flipped))
-    return rows
-
-
 def part_rendered(seed: int, quick: bool) -> None:
     from conftest import _render
+    from test_fit import SPIN, grade_for_fit, recovery_rows, wrong_rendered_profile
 
     from vidodo.logs import read_log
     from vidodo.profiles import load_robot
@@ -168,19 +102,26 @@ def part_rendered(seed: int, quick: bool) -> None:
         folder = Path(_render("default", seed, **ov))
         t_render = time.perf_counter() - t0
         exact = load_robot(folder / "robot.toml")
-        wrong = _wrong_profile(exact)
+        wrong = wrong_rendered_profile(exact)
         sc = tomllib.loads((folder / "scenario.toml").read_text())
         scale_error = float(sc.get("imu", {}).get("scale_error", 0.0))
-        run, log, res, t_grade = _grade(folder, wrong)
         t0 = time.perf_counter()
-        fit = fit_profile([run], wrong)
+        run, log, _res = grade_for_fit(folder, wrong)
+        t_grade = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        fit = fit_profile_with_events(
+            [run], wrong, lambda p, f=folder: [read_log(f / "log.csv", p)])
         t_fit = time.perf_counter() - t0
         print(f"\nrendered run: {label} (seed {seed}; render {t_render:.0f} s, grade "
               f"{t_grade:.0f} s, fit {t_fit * 1e3:.0f} ms; {fit.n_windows[run.name]} windows, "
-              f"{len(run.exclude_windows)} event windows excluded)")
-        print(f"  {'value':26s} {'true':>12s} {'pinned':>7s} {'error':>12s}  within")
-        for name, true, st, err, ok in _check(fit, exact, wrong, scale_error):
-            print(f"  {name:26s} {true:>12s} {st:>7s} {err:>12s}  {'yes' if ok else 'NO'}")
+              f"two passes, events left out in the second)")
+        for w in fit.warnings:
+            if w.startswith("event windows"):
+                print(f"  {w}")
+        print(f"  {'value':34s} {'true':>10s} {'pinned':>7s} {'error':>12s}  within")
+        for name, true, st, err, ok in recovery_rows(fit, exact, wrong, scale_error):
+            tv = f"{true:.5f}" if isinstance(true, float) else str(true)
+            print(f"  {name:34s} {tv:>10s} {st:>7s} {err:>12s}  {'yes' if ok else 'NO'}")
         tw = fit.table[fit.table["parameter"].str.contains("track_width")]
         for _, r in tw.iterrows():
             print(f"  {r['parameter']}: {r['identifiable']}, se {r['std_error'] * 1e3:.3f} mm"

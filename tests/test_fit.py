@@ -376,3 +376,125 @@ def test_tune_command_on_a_grade_folder(tmp_path, capsys):
     assert {"parameter", "estimate", "std_error", "identifiable"} <= set(table.columns)
     drift = pd.read_csv(out / "drift.csv")
     assert (drift["max_err_ratio"] >= 5).all()
+
+
+# ----------------------------------------------------------------- rendered runs
+LIMITS = {"radius_rel": 0.002, "offset_m": 0.001, "imu_scale_rel": 0.001}
+"""Issue 7 acceptance: 0.2 % radius, 1 mm offsets, 0.1 % IMU scale."""
+
+SPIN = ([{"kind": "drive", "x_m": 1.2192, "y_m": 0.9144}]
+        + [{"kind": "turn", "heading_deg": h}
+           for h in (120, -120, 0, 120, -120, 0, -120, 120, 0, -120, 120, 0)]
+        + [{"kind": "drive", "x_m": 2.7432, "y_m": 0.9144},
+           {"kind": "drive", "x_m": 2.7432, "y_m": 2.4384},
+           {"kind": "drive", "x_m": 0.9144, "y_m": 2.4384},
+           {"kind": "drive", "x_m": 0.9144, "y_m": 0.9144},
+           {"kind": "turn", "heading_deg": 0}])
+"""Segments for the renderer's default robot: 0.3 m forward, two turns each way twice,
+then a square (the motion the fit suggests for geometry). The short drive first puts
+motion start, where drift is anchored, before the spins."""
+
+
+def wrong_rendered_profile(exact):
+    """The renderer's exact profile with known errors: 2 % radius (drive 'left',
+    'pod_left'), 5 mm on every tracking-wheel offset, 1 % IMU scale, 'pod_right'
+    encoder sign inverted."""
+    ws = []
+    for w in exact.wheels:
+        ch = {}
+        if w.name in ("left", "pod_left"):
+            ch["radius_m"] = w.radius_m * 1.02
+        if w.name == "pod_left":
+            ch["y_m"] = w.y_m + 0.005
+        if w.name == "pod_right":
+            ch["y_m"] = w.y_m - 0.005
+            ch["sign"] = -w.sign
+        if w.name == "pod_perpendicular":
+            ch["x_m"] = w.x_m + 0.005
+        ws.append(dataclasses.replace(w, **ch))
+    return dataclasses.replace(exact, wheels=tuple(ws), path=None,
+                               imu=dataclasses.replace(exact.imu, scale=exact.imu.scale * 1.01))
+
+
+def grade_for_fit(folder, robot):
+    """Grade a run folder with ``robot`` (video, log, field, lens) -> FitRun, LogData,
+    GradeResult. The grade's events (found with a wrong profile) are not carried over:
+    :func:`fit_profile_with_events` finds them again with its corrected profile."""
+    from vidodo.logs import read_log
+    from vidodo.pipeline import grade_run
+
+    res = grade_run(folder / "video.mp4", folder / "log.csv", robot, folder / "field.toml",
+                    folder / "camera.toml")
+    log = read_log(folder / "log.csv", robot)
+    run = FitRun(folder.name, res.truth, log.frame, res.clock.offset_s,
+                 rate=res.clock.rate, ref_log_s=res.clock.ref_log_s)
+    return run, log, res
+
+
+def recovery_rows(fit, exact, wrong, scale_error):
+    """Per value: (name, true value text, identifiable, error text, within limits).
+
+    A value reported not identifiable counts as within when the corrected profile
+    leaves it at the exact value (the wrong profile did not touch it)."""
+    tab = fit.table.set_index("parameter")
+    fixed = fit.corrected_robot
+    rows = []
+    for w in exact.wheels:
+        key = "x_m" if abs(math.sin(w.direction_rad)) > 0.5 else "y_m"
+        for name, true, lim, rel in ((f"wheel {w.name} radius_m", w.radius_m,
+                                      LIMITS["radius_rel"], True),
+                                     (f"wheel {w.name} {key}", getattr(w, key),
+                                      LIMITS["offset_m"], False)):
+            r = tab.loc[name]
+            attr = name.split()[-1]
+            if r["identifiable"] == "no":
+                ok = getattr(fixed.wheel(w.name), attr) == true
+                rows.append((name, true, "no", "held" if ok else "held, WRONG", ok))
+                continue
+            err = r["estimate"] / true - 1.0 if rel else r["estimate"] - true
+            text = f"{err * 100:+.3f} %" if rel else f"{err * 1e3:+.3f} mm"
+            rows.append((name, true, r["identifiable"], text, abs(err) <= lim))
+    true_scale = exact.imu.scale / (1.0 + scale_error)
+    r = tab.loc["imu scale"]
+    err = r["estimate"] / true_scale - 1.0
+    rows.append(("imu scale", true_scale, r["identifiable"], f"{err * 100:+.3f} %",
+                 abs(err) <= LIMITS["imu_scale_rel"]))
+    flipped = {w.name for w, v in zip(exact.wheels, wrong.wheels, strict=True)
+               if w.sign != v.sign}
+    rows.append(("inverted encoder flagged", ",".join(sorted(flipped)), "",
+                 ",".join(fit.inverted) or "none", set(fit.inverted) == flipped))
+    return rows
+
+
+@pytest.mark.slow
+def test_rendered_spin_and_square_recovers_the_profile(rendered_run):
+    """Issue 7 acceptance on a rendered, tracked and graded run (renderer's default
+    robot: tank drive, three tracking wheels, IMU; spins then a square). The profile
+    handed to vidodo is wrong by 2 % radius, 5 mm offsets, 1 % IMU scale and one
+    inverted encoder; every value comes back within 0.2 % / 1 mm / 0.1 %, the encoder
+    is flagged, and anchored drift (final error and ATE) falls at least 5x. The
+    sideways tracking wheel's radius cannot be told from its offset on a robot that
+    never slides sideways: it must be reported not identifiable and left alone."""
+    import tomllib
+
+    from vidodo.fit import anchored_drift, drift_comparison, fit_profile_with_events
+    from vidodo.logs import read_log
+
+    folder = rendered_run("default", 0, fault=None, segment=SPIN, video__width_px=1280,
+                          video__height_px=720)
+    exact = load_robot(folder / "robot.toml")
+    wrong = wrong_rendered_profile(exact)
+    scale_error = tomllib.loads((folder / "scenario.toml").read_text())["imu"].get(
+        "scale_error", 0.0)
+    run, log, _res = grade_for_fit(folder, wrong)
+    fit = fit_profile_with_events([run], wrong, lambda p: [read_log(folder / "log.csv", p)])
+    rows = recovery_rows(fit, exact, wrong, scale_error)
+    assert all(r[4] for r in rows), rows
+    assert fit.table.set_index("parameter").loc[
+        "wheel pod_perpendicular radius_m", "identifiable"] == "no"
+    after = anchored_drift(run, read_log(folder / "log.csv", fit.corrected_robot),
+                           fit.corrected_robot)
+    table = drift_comparison(anchored_drift(run, log, wrong), after, run.name)
+    wheel_sources = table[table["source"] != "logged"]
+    assert (wheel_sources["final_err_ratio"] >= 5).all(), table.to_string()
+    assert (wheel_sources["ate_rmse_ratio"] >= 5).all(), table.to_string()

@@ -59,6 +59,8 @@ __all__ = [
     "log_map_increment",
     "write_profile",
     "anchored_drift",
+    "event_windows",
+    "fit_profile_with_events",
     "drift_comparison",
 ]
 
@@ -836,6 +838,21 @@ def write_profile(fit: ProfileFit, path) -> None:
 
 
 # ------------------------------------------------------------------ before / after
+def _grade_with(run: FitRun, log, robot: RobotProfile):
+    """Grade ``log`` read with ``robot`` against the run's truth on the run's clock."""
+    from .odometry import odometry_result
+    from .pipeline import grade_tracks
+
+    tracks = {}
+    for name, df in odometry_result(log, robot).tracks.items():
+        d = df.copy()
+        t = d["t_s"].to_numpy(float)
+        # fold the rate term into the log times so a plain offset maps them exactly
+        d["t_s"] = t + run.rate * (t - run.ref_log_s)
+        tracks[name] = d
+    return grade_tracks(run.truth, log, robot, clock_offset_s=run.offset_s, odometry=tracks)
+
+
 def anchored_drift(run: FitRun, log, robot: RobotProfile) -> dict:
     """Anchored drift figures per odometry source, as ``vidodo grade`` computes them.
 
@@ -855,18 +872,59 @@ def anchored_drift(run: FitRun, log, robot: RobotProfile) -> dict:
     -------
     dict of str -> SourceMetrics
     """
-    from .odometry import odometry_result
-    from .pipeline import grade_tracks
+    return dict(_grade_with(run, log, robot).metrics)
 
-    tracks = {}
-    for name, df in odometry_result(log, robot).tracks.items():
-        d = df.copy()
-        t = d["t_s"].to_numpy(float)
-        # fold the rate term into the log times so a plain offset maps them exactly
-        d["t_s"] = t + run.rate * (t - run.ref_log_s)
-        tracks[name] = d
-    res = grade_tracks(run.truth, log, robot, clock_offset_s=run.offset_s, odometry=tracks)
-    return dict(res.metrics)
+
+def event_windows(run: FitRun, log, robot: RobotProfile) -> tuple:
+    """Video-clock windows ``(t_start_s, t_end_s)`` of the events the grading pipeline
+    finds when the log is read with ``robot``."""
+    ev = _grade_with(run, log, robot).events
+    if ev is None or not len(ev):
+        return ()
+    return tuple(zip(ev["t_start_s"].astype(float), ev["t_end_s"].astype(float),
+                     strict=True))
+
+
+def fit_profile_with_events(runs, robot: RobotProfile, read_logs, **kwargs) -> ProfileFit:
+    """Fit twice: once without event windows, then leaving out the events found with
+    the first corrected profile.
+
+    Events found with a wrong profile are unreliable (an inverted encoder looks like a
+    tracking wheel lifted for the whole run), so the first pass relies on the robust
+    loss alone; the grading pipeline then looks for events with the corrected profile,
+    and the second pass leaves those windows out (plus any the runs already carry).
+
+    Parameters
+    ----------
+    runs : sequence of FitRun
+        Logs read with ``robot``.
+    robot : RobotProfile
+    read_logs : callable
+        ``read_logs(profile) -> list of LogData``, the runs' logs read with ``profile``
+        (same order as ``runs``).
+    **kwargs
+        Passed to :func:`fit_profile`.
+
+    Returns
+    -------
+    ProfileFit
+        The second pass, with a warning naming the windows left out.
+    """
+    runs = list(runs)
+    first = fit_profile(runs, robot, **kwargs)
+    logs = read_logs(first.corrected_robot)
+    runs2, notes = [], []
+    for run, log in zip(runs, logs, strict=True):
+        ev = event_windows(run, log, first.corrected_robot)
+        if ev:
+            notes.append(f"run {run.name}: " + ", ".join(f"{a:.2f}-{b:.2f} s" for a, b in ev))
+        runs2.append(dataclasses.replace(run, exclude_windows=tuple(run.exclude_windows) + ev))
+    second = fit_profile(runs2, robot, **kwargs)
+    if notes:
+        second = dataclasses.replace(second, warnings=second.warnings + (
+            "event windows left out (found with the first corrected profile): "
+            + "; ".join(notes),))
+    return second
 
 
 def drift_comparison(before: dict, after: dict, run_name: str = "") -> pd.DataFrame:

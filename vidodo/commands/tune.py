@@ -10,7 +10,13 @@ from pathlib import Path
 import pandas as pd
 
 from ..errors import InputError
-from ..fit import FitRun, anchored_drift, drift_comparison, fit_profile, write_profile
+from ..fit import (
+    FitRun,
+    anchored_drift,
+    drift_comparison,
+    fit_profile_with_events,
+    write_profile,
+)
 from ..logs import read_log
 from ..outputs import staged_dir
 from ..profiles import load_robot
@@ -20,9 +26,10 @@ HELP = "fit wheel radii, offsets and IMU scale to the video truth; write a corre
 DESCRIPTION = (
     "From one or more graded runs of the same robot (grade output folders, or VIDEO LOG "
     "pairs that are graded first) fit each wheel's radius and offset, the IMU scale and "
-    "bias, and the log clock's offset and rate to the truth track, leaving out event "
-    "windows. Writes DIR/robot.toml (the corrected profile), DIR/fit.csv (every value "
-    "with its standard error and whether the runs pin it down) and DIR/drift.csv "
+    "bias, and the log clock's offset and rate to the truth track, leaving out the event "
+    "windows found with the corrected profile. Writes DIR/robot.toml (the corrected "
+    "profile), DIR/fit.csv (every value with its standard error and whether the runs "
+    "pin it down) and DIR/drift.csv "
     "(anchored drift per source before and after the correction)."
 )
 
@@ -72,18 +79,13 @@ def _grade_dir_run(folder: Path, robot_arg):
     for c in ("sigma_xy_m", "sigma_heading_rad"):
         if f"truth_{c}" in drift.columns:
             truth[c] = drift[f"truth_{c}"]
-    events = []
-    ev_p = folder / "events.csv"
-    if ev_p.exists():
-        ev = pd.read_csv(ev_p)
-        if len(ev):
-            events = list(zip(ev["t_start_s"].astype(float), ev["t_end_s"].astype(float),
-                              strict=True))
     log_path = Path(log_path)
     if not log_path.is_absolute() and not log_path.exists():
         log_path = folder / log_path
+    # the grade's events were found with the profile being corrected, so they are not
+    # trusted: the fit finds them again with its corrected profile
     spec = dict(name=folder.name, truth=truth, offset_s=float(clock["offset_s"]),
-                exclude_windows=tuple(events), rate=float(clock.get("rate", 0.0) or 0.0),
+                rate=float(clock.get("rate", 0.0) or 0.0),
                 ref_log_s=float(clock.get("ref_log_s", 0.0) or 0.0))
     return spec, log_path, Path(robot_path)
 
@@ -99,14 +101,9 @@ def _graded_pair(video: Path, log: Path, args, robot_path):
     field = load_field(args.field)
     camera = load_camera(args.camera) if args.camera else None
     result = pipeline.grade_run(video, log, robot, field, camera)
-    ev = getattr(result, "events", None)
-    events = []
-    if ev is not None and len(ev):
-        events = list(zip(ev["t_start_s"].astype(float), ev["t_end_s"].astype(float),
-                          strict=True))
     clock = result.clock
     spec = dict(name=video.stem, truth=result.truth, offset_s=float(clock.offset_s),
-                exclude_windows=tuple(events), rate=float(getattr(clock, "rate", 0.0)),
+                rate=float(getattr(clock, "rate", 0.0)),
                 ref_log_s=float(getattr(clock, "ref_log_s", 0.0)))
     return spec, log, robot_path
 
@@ -188,7 +185,9 @@ def run(args) -> int:
     robot = load_robot(robot_path)
     logs = [read_log(s[1], robot) for s in specs]
     runs = [FitRun(log=lg.frame, **s[0]) for s, lg in zip(specs, logs, strict=True)]
-    fit = fit_profile(runs, robot, window_s=args.window, fit_clock=not args.no_clock)
+    fit = fit_profile_with_events(
+        runs, robot, lambda prof: [read_log(s[1], prof) for s in specs],
+        window_s=args.window, fit_clock=not args.no_clock)
     tables = []
     for s, r, lg in zip(specs, runs, logs, strict=True):
         before = anchored_drift(r, lg, robot)
