@@ -188,3 +188,20 @@ def test_progress_bar_only_on_a_terminal_and_not_quiet():
     with progress_bar(10, "x", stream=quiet, quiet=True) as bar:
         bar(3)
     assert quiet.text == ""
+
+
+def test_stage_progress_opens_a_bar_per_stage():
+    from vidodo.progress import progress_factory
+
+    tty = _Tty(True)
+    with progress_factory(desc="stage", stream=tty) as prog:
+        for i in range(5):
+            prog(i + 1, 5)
+        for i in range(3):  # a new stage counts from the start again
+            prog(i + 1, 3)
+    assert prog.stages == 2
+    assert "stage 1" in tty.text and "stage 2" in tty.text
+    pipe = _Tty(False)
+    prog = progress_factory(stream=pipe)
+    prog(1, 2)
+    assert pipe.text == "" and prog.stages == 0

@@ -12,7 +12,7 @@ import sys
 
 from tqdm import tqdm
 
-__all__ = ["Progress", "progress_bar", "enabled"]
+__all__ = ["Progress", "StageProgress", "progress_bar", "progress_factory", "enabled"]
 
 
 def enabled(*, quiet: bool = False, stream=None) -> bool:
@@ -81,3 +81,54 @@ def progress_bar(total=None, desc: str = "", *, unit: str = "frame", quiet: bool
                  stream=None) -> Progress:
     """A :class:`Progress` for a command: on stderr, off when quiet or not a terminal."""
     return Progress(total, desc, unit=unit, quiet=quiet, stream=stream)
+
+
+class StageProgress:
+    """One ``progress(done, total)`` callback for a chain of stages (render, track, replay).
+
+    Each stage reports from 0 again; when the count goes back or the total changes, the
+    finished bar is closed and a new one is opened for the next stage.
+    """
+
+    def __init__(self, desc: str = "step", *, unit: str = "frame", quiet: bool = False,
+                 stream=None):
+        self.desc = desc
+        self.unit = unit
+        self.quiet = quiet
+        self.stream = sys.stderr if stream is None else stream
+        self.active = enabled(quiet=quiet, stream=self.stream)
+        self._bar: Progress | None = None
+        self._last = None
+        self._total = None
+        self.stages = 0
+
+    def __call__(self, done, total=None):
+        """Report ``done`` of ``total`` for the current stage."""
+        if not self.active:
+            return
+        if self._bar is None or (self._last is not None and done < self._last) or (
+                total is not None and self._total is not None and total != self._total):
+            self.close()
+            self.stages += 1
+            self._bar = Progress(total, f"{self.desc} {self.stages}", unit=self.unit,
+                                 stream=self.stream)
+        self._last, self._total = done, total
+        self._bar(done, total)
+
+    def close(self):
+        """Close the current bar."""
+        if self._bar is not None:
+            self._bar.close()
+            self._bar = None
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+        return False
+
+
+def progress_factory(*, quiet: bool = False, desc: str = "step", stream=None) -> StageProgress:
+    """A :class:`StageProgress` for a command that runs several long stages in a row."""
+    return StageProgress(desc, quiet=quiet, stream=stream)
