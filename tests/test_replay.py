@@ -219,3 +219,18 @@ def _meta_camera_pose(meta):
         tvec = np.asarray(cam["tvec"], float)
         return lambda t: (rvec, tvec)
     pytest.skip("truth/meta.json has no fixed camera pose (a swaying camera)")
+
+
+def test_missing_footage_still_writes_the_report(tmp_path):
+    """render_all: no footage -> the plots and the page are written, then the error."""
+    from test_plots import make_grade_dir  # sibling test module
+
+    from vidodo.errors import InputError
+    from vidodo.showcase import render_all
+
+    folder = make_grade_dir(tmp_path / "grade")
+    with pytest.raises(InputError, match="inputs.video"):
+        render_all(folder, folder, replay=True)
+    page = (folder / "report.html").read_text()
+    assert "replay.mp4 not written" in page
+    assert (folder / "field_map.png").is_file()

@@ -347,16 +347,17 @@ def _robot_mask(shape, registration, pose, robot, margin_m=0.05):
 
 
 def _frame_times(path: Path) -> np.ndarray:
-    """Presentation time of every frame (as the frame reader reports it) [s]."""
-    cap = cv2.VideoCapture(str(path), cv2.CAP_FFMPEG)
-    if not cap.isOpened():
-        raise InputError(f"{path}: cannot open as video; re-copy the file")
+    """Presentation time of every frame the frame reader hands out [s] (a decoding pass,
+    so that a truncated file gives the same count as the annotating pass)."""
+    from .video import VideoReader, VideoTruncatedError
+
     t = []
-    try:
-        while cap.grab():
-            t.append(cap.get(cv2.CAP_PROP_POS_MSEC) / 1000.0)
-    finally:
-        cap.release()
+    with VideoReader(path, threaded=False, check_identical=False) as reader:
+        try:
+            for _, t_s, _ in reader:
+                t.append(t_s)
+        except VideoTruncatedError:
+            pass
     if not t:
         raise InputError(f"{path}: no frame could be decoded; re-copy the file")
     t = np.asarray(t, float)
@@ -411,7 +412,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
     Path
         ``out_path``.
     """
-    from .video import VideoReader
+    from .video import VideoReader, VideoTruncatedError
 
     video_path, out_path = Path(video_path), Path(out_path)
     sources = source_prefixes(drift) if sources is None else sources
@@ -441,23 +442,29 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
 
     def frames():
         with VideoReader(video_path) as reader:
-            for index, t_s, frame in reader:
-                if index >= times.size:
-                    break
-                mask = (_robot_mask(frame.shape, state["reg"], state["pose"], robot)
-                        if robot is not None else None)
-                reg = register(frame, t_s, mask) if mask is not None else register(frame, t_s)
-                row = tracks.row_at(t_s, max_gap_s=gap)
-                state["reg"] = reg if getattr(reg, "ok", False) else state["reg"]
-                state["pose"] = tracks.truth[row] if row is not None else state["pose"]
-                ov = frame_overlay(tracks, row, reg, marker=marker, trail_s=trail_s)
-                lines = readout_lines(tracks, row, t_s, colors, units)
-                if not getattr(reg, "ok", False):
-                    lines.append(("floor not registered in this frame", (0, 0, 255)))
-                img = annotate_frame(frame, ov, lines=lines, colors=colors)
-                if progress is not None:
-                    progress(index + 1, times.size)
-                yield img[: img.shape[0] // 2 * 2, : img.shape[1] // 2 * 2]
+            try:
+                yield from annotated(reader)
+            except VideoTruncatedError:
+                return  # every good frame was annotated; the encoder checks the count
+
+    def annotated(reader):
+        for index, t_s, frame in reader:
+            if index >= times.size:
+                break
+            mask = (_robot_mask(frame.shape, state["reg"], state["pose"], robot)
+                    if robot is not None else None)
+            reg = register(frame, t_s, mask) if mask is not None else register(frame, t_s)
+            row = tracks.row_at(t_s, max_gap_s=gap)
+            state["reg"] = reg if getattr(reg, "ok", False) else state["reg"]
+            state["pose"] = tracks.truth[row] if row is not None else state["pose"]
+            ov = frame_overlay(tracks, row, reg, marker=marker, trail_s=trail_s)
+            lines = readout_lines(tracks, row, t_s, colors, units)
+            if not getattr(reg, "ok", False):
+                lines.append(("floor not registered in this frame", (0, 0, 255)))
+            img = annotate_frame(frame, ov, lines=lines, colors=colors)
+            if progress is not None:
+                progress(index + 1, times.size)
+            yield img[: img.shape[0] // 2 * 2, : img.shape[1] // 2 * 2]
 
     out_path.parent.mkdir(parents=True, exist_ok=True)
     if shutil.which("ffmpeg"):

@@ -13,7 +13,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from .errors import InputError
+from .errors import InputError, VidodoError
 from .html import write_html
 from .plots import source_prefixes, write_plots
 
@@ -171,6 +171,13 @@ def render_all(grade_result_or_dir, out_dir, *, replay: bool = True, units: str 
     -------
     list of Path
         The files written: three PNGs, ``report.html`` and, if asked, ``replay.mp4``.
+
+    Raises
+    ------
+    InputError
+        When the grade files cannot be read, or the replay could not be written (the
+        plots and the report are written first; the report says why the replay is
+        missing).
     """
     out_dir = Path(out_dir)
     folder = _grade_folder_of(grade_result_or_dir, out_dir)
@@ -180,16 +187,26 @@ def render_all(grade_result_or_dir, out_dir, *, replay: bool = True, units: str 
                        sources=data.sources, unit=units, title=title)
     written = list(pngs.values())
     extra = []
+    failure = None
     if replay:
         from .replay import replay_from_grade
 
-        path = replay_from_grade(data, out_dir / "replay.mp4", units=units, progress=progress)
-        written.append(path)
-        extra.append(path.name)
+        try:
+            path = replay_from_grade(data, out_dir / "replay.mp4", units=units,
+                                     progress=progress)
+        except VidodoError as exc:  # the report is still written, then the error raised
+            failure = exc
+            extra.append(f"replay.mp4 not written: {exc}")
+        else:
+            written.append(path)
+            extra.append(f"{path.name}: the footage with the truth track and every source "
+                         "drawn in")
     images = {PLOT_CAPTIONS.get(k, k): p for k, p in pngs.items()}
     html_path = write_html(out_dir / "report.html", data.summary, images, unit=units,
                            title=f"vidodo report: {title}" if title else None,
                            extra_files=extra)
     written.append(html_path)
+    if failure is not None:
+        raise failure
     return written
 
