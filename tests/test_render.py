@@ -137,11 +137,11 @@ def test_rolling_shutter_shears_a_sideways_moving_marker():
     readout = 0.030
     cam = CameraProfile(640, 480, 600.0, 600.0, 320.0, 240.0, readout_s=readout)
     field = FieldProfile(4, 4, 0.6096)
-    robot = _robot(z_m=0.30, size_m=0.20)
+    robot = _robot(z_m=0.30, size_m=0.20, yaw_rad=0.15)
     height = 1.8
     # straight down; camera x along floor +x, camera y along floor -y
     rvec = cv2.Rodrigues(np.diag([1.0, -1.0, -1.0]))[0].ravel()
-    centre = np.array([1.2, 1.2, height])
+    centre = np.array([1.2, 1.23, height])
     tvec = -np.diag([1.0, -1.0, -1.0]) @ centre
     speed = 2.0  # [m/s] along floor +x = image +u
     start = np.array([1.1, 1.2, 0.0])
