@@ -251,3 +251,18 @@ def test_panning_camera_rolling_shutter_on_floor_marker(n_frames):
                                         cam.dist_coeffs)[0][0, 0]
     assert np.abs(want - still).max() > 5  # the readout visibly moves the corners
     assert np.abs(found - want).max() < 0.5
+
+
+def test_robot_right_under_the_camera_fills_the_view():
+    """Camera 5 cm above the chassis top, looking down: every ray meets the chassis top
+    or the mast/plate (chassis colour from render_robot.CHASSIS_BGR), none the floor."""
+    from vidodo.render_robot import CHASSIS_BGR
+
+    cam = CameraProfile(160, 120, 60.0, 60.0, 80.0, 60.0)
+    robot = RobotProfile("big", 2.0, 2.0, 0.25, (Marker(1, "DICT_4X4_50", 0.05, 0.5, 0.5,
+                                                       0.4),), (), "t")
+    rot = np.diag([1.0, -1.0, -1.0])
+    rvec, tvec = cv2.Rodrigues(rot)[0].ravel(), -rot @ np.array([0.0, 0.0, 0.30])
+    img = _static_frame(cam, FieldProfile(4, 4, 0.6096), robot, np.zeros(3), rvec, tvec)
+    chassis = np.all(np.abs(img.astype(float) - CHASSIS_BGR) < 2, axis=2)
+    assert chassis.mean() > 0.95

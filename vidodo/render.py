@@ -244,12 +244,27 @@ def _draw_robot(frame, parts, rays, cam, camera, t_frame, pose_at, exposure_s, k
     c1, r1 = boxes[:, 2].max(), boxes[:, 3].max()
     if c1 <= c0 or r1 <= r0:
         return False
-    windows = [(slice(b[1] - r0, max(b[3], b[1]) - r0), slice(b[0] - c0, max(b[2], b[0]) - c0))
-               for b in boxes]
     if k_samples is None:
         blur_px = _blur_px(parts, pose_at, t_frame, exposure_s, cam_poses[0], camera)
         k_samples = int(np.clip(4 * math.ceil(blur_px / 3.0), MIN_SAMPLES, 32))
     offs, frac = _sample_pattern(k_samples)
+    # bounded memory: blocks of rows with at most MAX_BLOCK_SAMPLES ray samples each
+    step = max(1, MAX_BLOCK_SAMPLES // (len(frac) * (c1 - c0)))
+    drawn = False
+    for a in range(r0, r1, step):
+        b = min(a + step, r1)
+        windows = [(slice(max(bx[1], a) - a, max(min(bx[3], b), bx[1], a) - a),
+                    slice(bx[0] - c0, max(bx[2], bx[0]) - c0)) for bx in boxes]
+        drawn |= _cast_rows(frame, parts, rays, cam, camera, t_frame, pose_at, exposure_s,
+                            offs, frac, (a, b, c0, c1), windows)
+    return drawn
+
+
+def _cast_rows(frame, parts, rays, cam, camera, t_frame, pose_at, exposure_s, offs, frac,
+               block, windows):
+    """Ray cast the robot in rows r0:r1, columns c0:c1 and blend it into ``frame``."""
+    r0, r1, c0, c1 = block
+    h = camera.height_px
     k = len(frac)
     # rays of every sample: first-order Taylor step from the pixel centre
     du = offs[:, 0, None, None].astype(np.float32)
@@ -260,7 +275,7 @@ def _draw_robot(frame, parts, rays, cam, camera, t_frame, pose_at, exposure_s, k
     rt, centre = cam.rows(r0, r1)
     dfx, dfy, dfz = _floor_dirs(rt, xs, ys)
     # robot pose per (sample, row): rolling shutter plus exposure
-    t_rows = t_frame + np.arange(r0, r1) / h * readout
+    t_rows = t_frame + np.arange(r0, r1) / h * camera.readout_s
     t = (t_rows[None, :] + frac[:, None] * exposure_s).ravel()
     pose = _checked_poses(pose_at, t).reshape(k, r1 - r0, 3)
     cth, sth = np.cos(pose[..., 2]), np.sin(pose[..., 2])
@@ -369,6 +384,8 @@ def _render_floor(tex: FloorTexture, cam: _CameraRows, rays: CameraRays, camera,
     return sample_floor(tex, fx.astype(np.float32), fy.astype(np.float32), level, valid)
 
 
+MAX_BLOCK_SAMPLES = 1_500_000
+"""Ray samples cast at once (bounds memory when the robot fills the picture)."""
 MIN_SAMPLES = 8
 """Least samples per pixel in the robot's region: with 8, a static marker's corners come
 out within 0.15 px of cv2.projectPoints (0.35 px with 4; measured with cv2.aruco's
