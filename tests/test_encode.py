@@ -78,3 +78,25 @@ def test_bad_input_leaves_no_file(tmp_path):
     with pytest.raises(InputError, match="must be even"):
         write_video(path, _frames(2, w=161), [0.0, 0.1])
     assert list(tmp_path.iterdir()) == []
+
+
+def test_missing_ffmpeg_names_the_package(tmp_path, monkeypatch):
+    from vidodo import encode
+    from vidodo.errors import VidodoError
+
+    monkeypatch.setattr(encode.shutil, "which", lambda name: None)
+    with pytest.raises(VidodoError, match="apt-get install ffmpeg"):
+        write_video(tmp_path / "x.mp4", _frames(2), [0.0, 0.1])
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_ffmpeg_failure_is_one_line(tmp_path, monkeypatch):
+    """An encoder ffmpeg lacks: ffmpeg's own last message, on one line."""
+    from vidodo import encode
+    from vidodo.errors import VidodoError
+
+    monkeypatch.setitem(encode.CODECS, "h264", ["-c:v", "no_such_encoder_xyz"])
+    with pytest.raises(VidodoError, match="ffmpeg failed") as info:
+        write_video(tmp_path / "x.mp4", _frames(3), [0.0, 0.1, 0.2])
+    assert "\n" not in str(info.value)
+    assert list(tmp_path.iterdir()) == []
