@@ -39,6 +39,7 @@ from vidodo.fit import (  # noqa: E402
     drift_comparison,
     fit_profile,
     fit_profile_with_events,
+    with_clock,
 )
 
 
@@ -126,6 +127,7 @@ def part_rendered(seed: int, quick: bool) -> None:
         for _, r in tw.iterrows():
             print(f"  {r['parameter']}: {r['identifiable']}, se {r['std_error'] * 1e3:.3f} mm"
                   + (f", suggestion: {r['suggestion']}" if r["suggestion"] else ""))
+        run = with_clock(run, fit.clocks.get(run.name))  # same clock before and after
         before = anchored_drift(run, log, wrong)
         fixed = anchored_drift(run, read_log(folder / "log.csv", fit.corrected_robot),
                                fit.corrected_robot)

@@ -477,7 +477,12 @@ def test_rendered_spin_and_square_recovers_the_profile(rendered_run):
     never slides sideways: it must be reported not identifiable and left alone."""
     import tomllib
 
-    from vidodo.fit import anchored_drift, drift_comparison, fit_profile_with_events
+    from vidodo.fit import (
+        anchored_drift,
+        drift_comparison,
+        fit_profile_with_events,
+        with_clock,
+    )
     from vidodo.logs import read_log
 
     folder = rendered_run("default", 0, fault=None, segment=SPIN, video__width_px=1280,
@@ -492,6 +497,7 @@ def test_rendered_spin_and_square_recovers_the_profile(rendered_run):
     assert all(r[4] for r in rows), rows
     assert fit.table.set_index("parameter").loc[
         "wheel pod_perpendicular radius_m", "identifiable"] == "no"
+    run = with_clock(run, fit.clocks.get(run.name))  # same clock before and after
     after = anchored_drift(run, read_log(folder / "log.csv", fit.corrected_robot),
                            fit.corrected_robot)
     table = drift_comparison(anchored_drift(run, log, wrong), after, run.name)

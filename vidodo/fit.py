@@ -61,6 +61,7 @@ __all__ = [
     "anchored_drift",
     "event_windows",
     "fit_profile_with_events",
+    "with_clock",
     "drift_comparison",
 ]
 
@@ -180,6 +181,9 @@ class ProfileFit:
     covariance: np.ndarray = field(repr=False)
     names: tuple = ()
     warnings: tuple = ()
+    clocks: dict = field(default_factory=dict)
+    """Per run: the clock with the fitted corrections, ``(offset_s, rate, ref_log_s)``
+    in :class:`FitRun`'s terms (corrections the runs cannot pin down are left out)."""
 
 
 # ----------------------------------------------------------------------- increments
@@ -652,9 +656,20 @@ def fit_profile(runs, robot: RobotProfile, *, exclude_windows=None, window_s=0.4
             if abs(r) > 5 * se[rd.i_rate]:
                 warnings.append(f"run {rd.name}: the log clock runs {r * 1e6:+.0f} ppm "
                                 "against the video clock")
+    clocks = {}
+    for run, rd in zip(runs, rundata, strict=True):
+        off, rate = run.offset_s, run.rate
+        if rd.i_delta >= 0 and status[rd.i_delta] != "no":
+            off += theta[rd.i_delta]
+        if rd.i_rate >= 0 and status[rd.i_rate] != "no":
+            # delta + rho (t - mid) = rho (t - ref) + rho (ref - mid)
+            rate += theta[rd.i_rate]
+            off += theta[rd.i_rate] * (run.ref_log_s - rd.t_mid)
+        clocks[run.name] = (float(off), float(rate), float(run.ref_log_s))
     return ProfileFit(table=table, robot=robot, corrected_robot=corrected,
                       inverted=tuple(inverted), n_windows=n_win, noise=noise,
-                      covariance=cov, names=tuple(model.names), warnings=tuple(warnings))
+                      covariance=cov, names=tuple(model.names), warnings=tuple(warnings),
+                      clocks=clocks)
 
 
 def _solve_holding(model: _Model, theta0, tol, max_iter):
@@ -773,9 +788,12 @@ def _tabulate(robot, model, theta, se, cov, status, inverted, imu_flip, tol, war
                 g = -sgn / ex / len(group)
                 grad[model.i_l[j]] += g
                 est += g * theta[model.i_l[j]]
-        s = float(math.sqrt(max(grad @ cov @ grad, 0.0)))
-        st = "no" if any(status[model.i_l[j]] == "no" for j in left + right) else (
-            _status([s], ["lever"], tol)[0])
+        held = any(status[model.i_l[j]] == "no" for j in left + right)
+        if held:  # from the offsets' own errors before they were held (no correlation)
+            s = float(math.sqrt(np.nansum((grad * se) ** 2)))
+        else:
+            s = float(math.sqrt(max(grad @ cov @ grad, 0.0)))
+        st = "no" if held else _status([s], ["lever"], tol)[0]
         written = all(new_wheels[model.wheels[j].name].y_m != model.wheels[j].y_m
                       for j in left + right)
         row(f"source {src.name} track_width_m", "lever", src.name, "m", prof, est, s, st,
@@ -885,6 +903,14 @@ def event_windows(run: FitRun, log, robot: RobotProfile) -> tuple:
                      strict=True))
 
 
+def with_clock(run: FitRun, clock) -> FitRun:
+    """``run`` with the clock ``(offset_s, rate, ref_log_s)`` (None: unchanged)."""
+    if clock is None:
+        return run
+    off, rate, ref = clock
+    return dataclasses.replace(run, offset_s=off, rate=rate, ref_log_s=ref)
+
+
 def fit_profile_with_events(runs, robot: RobotProfile, read_logs, **kwargs) -> ProfileFit:
     """Fit twice: once without event windows, then leaving out the events found with
     the first corrected profile.
@@ -908,11 +934,14 @@ def fit_profile_with_events(runs, robot: RobotProfile, read_logs, **kwargs) -> P
     Returns
     -------
     ProfileFit
-        The second pass, with a warning naming the windows left out.
+        The second pass, with a warning naming the windows left out. Its ``clocks``
+        include the first pass's clock corrections (the second pass starts from them).
     """
     runs = list(runs)
     first = fit_profile(runs, robot, **kwargs)
     logs = read_logs(first.corrected_robot)
+    # the first pass may have corrected the clock too: look for events on that clock
+    runs = [with_clock(r, first.clocks.get(r.name)) for r in runs]
     runs2, notes = [], []
     for run, log in zip(runs, logs, strict=True):
         ev = event_windows(run, log, first.corrected_robot)

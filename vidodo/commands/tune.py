@@ -15,6 +15,7 @@ from ..fit import (
     anchored_drift,
     drift_comparison,
     fit_profile_with_events,
+    with_clock,
     write_profile,
 )
 from ..logs import read_log
@@ -190,6 +191,8 @@ def run(args) -> int:
         window_s=args.window, fit_clock=not args.no_clock)
     tables = []
     for s, r, lg in zip(specs, runs, logs, strict=True):
+        # both on the fitted clock, so the profile is the only difference
+        r = with_clock(r, fit.clocks.get(r.name))
         before = anchored_drift(r, lg, robot)
         fixed_log = read_log(s[1], fit.corrected_robot)
         after = anchored_drift(r, fixed_log, fit.corrected_robot)
