@@ -39,6 +39,7 @@ __all__ = [
     "umeyama",
     "transform_poses",
     "anchor_poses",
+    "anchor_heading_from_travel",
     "local_pose",
     "path_length",
     "motion_start_index",
@@ -170,6 +171,63 @@ def anchor_poses(poses, source_pose, truth_pose):
     dh = qh - ph
     rx, ry = rotate(p[:, 0] - px, p[:, 1] - py, dh)
     return np.column_stack([qx + rx, qy + ry, p[:, 2] + dh])
+
+
+def anchor_heading_from_travel(t_s, truth_poses, anchored_poses, k0, *, length_m=1.0,
+                               max_s=2.0, sigma_m=None, corr_samples=5, t_stop_s=None):
+    """Heading correction at the anchor from the first stretch of travel.
+
+    A marker's heading is often less certain than its position. Over the first
+    ``length_m`` of truth path after sample ``k0`` (at most ``max_s``), the rotation about
+    the anchor point that best lays the anchored source's positions onto the truth's
+    (least squares, Umeyama 1991 with the translation fixed) is a second measurement of
+    the start heading; odometry over so short a stretch has hardly drifted.
+
+    Parameters
+    ----------
+    t_s : ndarray of shape (N,)
+    truth_poses, anchored_poses : ndarray of shape (N, 3)
+        Truth and the source anchored at sample ``k0``.
+    k0 : int
+        Anchor sample.
+    sigma_m : float, optional
+        Truth position 1-sigma [m]; 2 mm when not given.
+    corr_samples : int
+        Samples over which truth errors are taken as correlated (a smoothed track).
+    t_stop_s : float, optional
+        End the stretch here (e.g. before the first slip or lift event) [s].
+
+    Returns
+    -------
+    tuple
+        ``(dheading_rad, sigma_rad)``, or ``(None, None)`` when the stretch is too short
+        (under 0.2 m) or too few samples.
+    """
+    t = np.asarray(t_s, dtype=float)
+    q = np.asarray(truth_poses, dtype=float).reshape(-1, 3)
+    p = np.asarray(anchored_poses, dtype=float).reshape(-1, 3)
+    if not 0 <= k0 < len(t) or not (np.isfinite(q[k0]).all() and np.isfinite(p[k0]).all()):
+        return None, None
+    t_end = t[k0] + max_s if t_stop_s is None else min(t[k0] + max_s, t_stop_s)
+    sel = (t >= t[k0]) & (t <= t_end) & np.isfinite(q).all(axis=1) \
+        & np.isfinite(p).all(axis=1)
+    idx = np.flatnonzero(sel)
+    dq = q[idx, :2] - q[k0, :2]
+    dp = p[idx, :2] - p[k0, :2]
+    dist = np.hypot(dq[:, 0], dq[:, 1])
+    far = np.flatnonzero(dist >= length_m)
+    if far.size:
+        idx, dq, dp, dist = idx[: far[0] + 1], dq[: far[0] + 1], dp[: far[0] + 1], \
+            dist[: far[0] + 1]
+    if idx.size < 5 or dist.max() < 0.2:
+        return None, None
+    cross = float(np.sum(dp[:, 0] * dq[:, 1] - dp[:, 1] * dq[:, 0]))
+    dot = float(np.sum(dp[:, 0] * dq[:, 0] + dp[:, 1] * dq[:, 1]))
+    dh = math.atan2(cross, dot)
+    sig = 0.002 if sigma_m is None else float(sigma_m)
+    rms = float(np.sqrt(np.mean(np.sum(dp**2, axis=1))))
+    sigma = sig / rms * math.sqrt(corr_samples / idx.size)
+    return dh, sigma
 
 
 def local_pose(t_s, poses, t0_s, sigma_m, *, half_s=0.3):

@@ -25,6 +25,7 @@ from .errors import InputError, MeasurementError
 from .events import EventSettings, active_kinds, detect_events, events_frame
 from .metrics import (
     SourceMetrics,
+    anchor_heading_from_travel,
     anchor_poses,
     drift_table,
     local_pose,
@@ -248,10 +249,12 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
                     "turn are not measured")
 
     video_tracks = {}
+    anchor_heading = {}
     anchored = {}
     best = {}
     metrics = {}
     cum = path_length(q[:, :2], gate_m=3.0 * sxy)
+    covered = {}
     for name, df in odometry.items():
         vdf = df.copy()
         vdf["t_s"] = clock.to_video(df["t_s"].to_numpy(float))
@@ -260,6 +263,29 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
         if not np.isfinite(p).all(axis=1).any():
             warn.append(f"source {name!r}: the log does not cover the video; not graded")
             continue
+        covered[name] = p
+
+    # events first: they need no alignment, and the anchoring must not lean on them
+    wheel_travel = None
+    names = [w for w in robot.wheels if f"ticks_{w.name}" in log.frame.columns]
+    if names:
+        steps = rim_travel(log, names)
+        cumt = np.vstack([np.zeros((1, len(names))), np.cumsum(steps, axis=0)])
+        wheel_travel = pd.DataFrame(cumt, columns=[w.name for w in names])
+        wheel_travel.insert(0, "t_s", clock.to_video(log.frame["t_s"].to_numpy(float)))
+    imu = None
+    if "imu_heading_rad" in log.frame.columns:
+        imu = pd.DataFrame({"t_s": clock.to_video(log.frame["t_s"].to_numpy(float)),
+                            "heading_rad": log.frame["imu_heading_rad"].to_numpy(float)})
+    src_poses = {n: (v["t_s"].to_numpy(float),
+                     v[["x_m", "y_m", "heading_rad"]].to_numpy(float))
+                 for n, v in video_tracks.items() if n in covered}
+    ev = detect_events(truth, wheel_travel, robot, imu_heading=imu, source_poses=src_poses,
+                       settings=event_settings or EventSettings())
+    warn += list(ev.warnings)
+
+    for name, p in covered.items():
+        vdf = video_tracks[name]
         ta = t_anchor
         pa = _interp_poses(np.array([ta]), vdf)[0]
         qa = anchor_pose
@@ -270,6 +296,21 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
             warn.append(f"source {name!r}: the log starts after motion start; anchored at "
                         f"{ta:.2f} s instead")
         a = anchor_poses(p, pa, qa)
+        k0 = int(np.searchsorted(t, ta))
+        later = [e.t_start_s for e in ev.events if e.t_start_s > ta]
+        dh, sig_rot = anchor_heading_from_travel(
+            t, q, a, k0, sigma_m=sxy, t_stop_s=min(later) - 0.05 if later else None)
+        if dh is not None:
+            # the truth heading at the start and the heading implied by the first
+            # stretch of travel (up to the first event), combined by inverse variance
+            # (sigma of one truth sample: averaging still frames does not remove a bias)
+            sh_k = float(sh_all[k0]) if np.isfinite(sh_all[k0]) else sh
+            w = sh_k**2 / (sh_k**2 + sig_rot**2)
+            qa = (qa[0], qa[1], qa[2] + w * dh)
+            a = anchor_poses(p, pa, qa)
+            anchor_heading[name] = {"truth_heading_rad": float(qa[2] - w * dh),
+                                    "travel_correction_rad": float(dh),
+                                    "travel_sigma_rad": float(sig_rot), "weight": float(w)}
         anchored[name] = pd.DataFrame({"t_s": t, "x_m": a[:, 0], "y_m": a[:, 1],
                                        "heading_rad": a[:, 2]})
         try:
@@ -290,24 +331,6 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
     if not metrics:
         raise MeasurementError("no odometry source overlaps the truth track; nothing graded")
 
-    # events
-    wheel_travel = None
-    names = [w for w in robot.wheels if f"ticks_{w.name}" in log.frame.columns]
-    if names:
-        steps = rim_travel(log, names)
-        cumt = np.vstack([np.zeros((1, len(names))), np.cumsum(steps, axis=0)])
-        wheel_travel = pd.DataFrame(cumt, columns=[w.name for w in names])
-        wheel_travel.insert(0, "t_s", clock.to_video(log.frame["t_s"].to_numpy(float)))
-    imu = None
-    if "imu_heading_rad" in log.frame.columns:
-        imu = pd.DataFrame({"t_s": clock.to_video(log.frame["t_s"].to_numpy(float)),
-                            "heading_rad": log.frame["imu_heading_rad"].to_numpy(float)})
-    src_poses = {n: (v["t_s"].to_numpy(float),
-                     v[["x_m", "y_m", "heading_rad"]].to_numpy(float))
-                 for n, v in video_tracks.items() if n in metrics}
-    ev = detect_events(truth, wheel_travel, robot, imu_heading=imu, source_poses=src_poses,
-                       settings=event_settings or EventSettings())
-    warn += list(ev.warnings)
     flags = active_kinds(t, ev.events)
     direction = travel_direction(q[:, :2], q[:, 2], min_step_m=max(6.0 * sxy, 0.01))
     drift = drift_table(truth, {n: anchored[n][["x_m", "y_m", "heading_rad"]].to_numpy()
@@ -324,7 +347,8 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
     summary = {
         "vidodo_version": __version__,
         "inputs": dict(inputs or {}),
-        "settings": {"events": asdict(event_settings or EventSettings()), "anchor": anchor},
+        "settings": {"events": asdict(event_settings or EventSettings()), "anchor": anchor,
+                     "anchor_heading": anchor_heading},
         "clock": {"offset_s": clock.offset_s, "sigma_s": clock.sigma_s,
                   "confidence": clock.confidence, "method": clock.method,
                   "source": clock.source, "rate": clock.rate, "ref_log_s": clock.ref_log_s},
