@@ -10,10 +10,12 @@ from scipy.linalg import orthogonal_procrustes
 
 from vidodo.errors import MeasurementError
 from vidodo.metrics import (
+    anchor_heading_from_travel,
     anchor_poses,
     ate,
     column_prefix,
     drift_table,
+    local_pose,
     motion_start_index,
     pairs_by_distance,
     pairs_by_time,
@@ -211,3 +213,33 @@ def test_drift_table_columns_and_along_cross():
     assert_allclose(df["tracking_imu_cross_m"], 0.02, atol=1e-12)
     assert_allclose(df["tracking_imu_err_m"], math.hypot(0.01, 0.02), atol=1e-12)
     assert df.columns[-1] == "events"
+
+
+def test_anchor_heading_from_travel_recovers_a_known_rotation():
+    """A source anchored 1 deg off: the first metre of travel gives the rotation back.
+
+    Truth: a 1 m straight run then a gentle arc; the anchored source is the exact path
+    rotated by -1 deg about the start (a start heading 1 deg wrong). The least-squares
+    rotation about the start point (Umeyama 1991, translation fixed) is +1 deg.
+    """
+    t = np.arange(0, 3, 1 / 30)
+    s = np.clip(t - 0.5, 0, None)
+    q = np.column_stack([s, 0.05 * s**2, np.arctan(0.1 * s)])
+    a = anchor_poses(q, q[0], (0.0, 0.0, -math.radians(1)))
+    dh, sig = anchor_heading_from_travel(t, q, a, 0, sigma_m=0.001)
+    assert dh == pytest.approx(math.radians(1), abs=1e-9)
+    assert 0 < sig < math.radians(0.5)
+    # a stretch under 0.2 m says nothing
+    assert anchor_heading_from_travel(t, q, a, 0, t_stop_s=0.6) == (None, None)
+
+
+def test_local_pose_still_and_moving():
+    """Still: the mean of the samples; moving: a quadratic fit (exact on a parabola)."""
+    t = np.arange(0, 1, 0.05)
+    rng = np.random.default_rng(0)
+    still = np.column_stack([1 + rng.normal(0, 1e-3, t.size), 2 + rng.normal(0, 1e-3, t.size),
+                             np.zeros(t.size)])
+    assert_allclose(local_pose(t, still, 0.5, 1e-3), still[(t >= 0.2) & (t <= 0.8)].mean(0),
+                    atol=1e-12)
+    moving = np.column_stack([t**2, 3 * t, 0.1 * t])
+    assert_allclose(local_pose(t, moving, 0.5, 1e-3), [0.25, 1.5, 0.05], atol=1e-9)
