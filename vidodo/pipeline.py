@@ -6,6 +6,13 @@ video clock (:mod:`vidodo.sync`), anchors each source at the truth pose where mo
 starts, computes the per-source figures (:mod:`vidodo.metrics`), finds events
 (:mod:`vidodo.events`) and compares each source with the user's tolerances.
 
+Anchoring: the truth pose at motion start is the mean of the still samples before it
+(or, when the log starts later, a local fit at the log's first sample). A marker's
+heading is less certain than its position, so the start heading is combined, by
+inverse variance, with the rotation that lays the source's first metre of travel
+(up to the first event) onto the truth's (:func:`vidodo.metrics.anchor_heading_from_travel`);
+both figures are in ``summary.json`` under ``settings.anchor_heading``.
+
 Pass/fail compares a source's *final* anchored position and heading errors (where the
 robot believes it is at the end of the run, having started from the truth pose) with
 the tolerances. Without tolerances every source is graded but none passes or fails.
