@@ -83,6 +83,14 @@ def _segments(grey, ignore=None, min_len_px=None):
     grad = cv2.magnitude(cv2.Sobel(g, cv2.CV_32F, 1, 0), cv2.Sobel(g, cv2.CV_32F, 0, 1))
     evidence = (binary > 0) | (grad > np.percentile(grad, 96))
     evidence = cv2.dilate(evidence.astype(np.uint8), np.ones((5, 5), np.uint8)) > 0
+    # Local line direction from the structure tensor (Bigun & Granlund, 1987): the
+    # dominant gradient direction is across a line or an edge; the line runs across it.
+    gx = cv2.Sobel(g, cv2.CV_32F, 1, 0)
+    gy = cv2.Sobel(g, cv2.CV_32F, 0, 1)
+    jxx = cv2.GaussianBlur(gx * gx, (0, 0), 2.5)
+    jyy = cv2.GaussianBlur(gy * gy, (0, 0), 2.5)
+    jxy = cv2.GaussianBlur(gx * gy, (0, 0), 2.5)
+    line_angle = 0.5 * np.arctan2(2 * jxy, jxx - jyy) + np.pi / 2
     hp = cv2.HoughLinesP(binary, 1, np.pi / 360, 40, minLineLength=0.04 * max(h, w),
                          maxLineGap=6)
     parts = [np.zeros((0, 4))] if hp is None else [hp.reshape(-1, 4).astype(np.float64)]
@@ -98,7 +106,7 @@ def _segments(grey, ignore=None, min_len_px=None):
         ui = np.clip(mid[:, 0].round().astype(int), 0, w - 1)
         vi = np.clip(mid[:, 1].round().astype(int), 0, h - 1)
         seg = seg[~np.asarray(ignore, bool)[vi, ui]]
-    return seg, evidence
+    return seg, (evidence, line_angle)
 
 
 def _hom_lines(seg):
@@ -180,57 +188,63 @@ def _vp_dir(vp, cond):
 
 
 # ---------------------------------------------------------------------- lattice
-def _periodic(pos, weight, p_min, p_max, tol=0.1):
-    """Largest period in [p_min, p_max] at which the most line positions fall on a lattice.
+def _best_combs(rhos, cover, speed, n_teeth, p_min, p_max, min_gap_px=8.0, keep=6):
+    """Combs of ``n_teeth`` equally spaced lines with the most evidence under their teeth.
 
-    For each trial period the phase is the weighted circular mean; a line is on the
-    lattice when it lies within ``tol`` periods of a lattice line. The true spacing
-    and its integer fractions all fit every line; the largest such period is taken.
+    A tooth counts only where neighbouring teeth are at least ``min_gap_px`` apart in
+    the image (``speed``: image pixels per unit of rho), so that a comb cannot crowd
+    its teeth onto one strong line near the horizon.
 
     Returns
     -------
-    (period, phase, fraction of lines on the lattice)
+    list of (period, start, mean evidence under the teeth)
+        The ``keep`` best distinct combs, best first.
     """
-    periods = np.geomspace(p_min, p_max, 2000)
-    ph = 2 * np.pi * pos[None, :] / periods[:, None]
-    z = (weight[None, :] * np.exp(1j * ph)).sum(axis=1)
-    resid = np.angle(np.exp(1j * (ph - np.angle(z)[:, None]))) / (2 * np.pi)
-    on = (np.abs(resid) < tol) * weight[None, :]
-    count = on.sum(axis=1)
-    k = int(np.nonzero(count >= 0.9 * count.max())[0][-1])
-    period = float(periods[k])
-    phase = float(np.angle(z[k]) / (2 * np.pi) * period)
-    return period, phase, float(count[k] / weight.sum())
-
-
-def _cluster_positions(pos, weight, tol):
-    """Weighted centres of runs of sorted positions closer than ``tol``."""
-    order = np.argsort(pos)
-    p, w = pos[order], weight[order]
-    breaks = np.nonzero(np.diff(p) > tol)[0] + 1
-    return np.array([np.average(pp, weights=ww) for pp, ww in
-                     zip(np.split(p, breaks), np.split(w, breaks), strict=True)])
-
-
-def _refine_period(centres, period, phase, rounds=4):
-    """Least-squares line ``c = phase + k * period`` through the lines near the lattice."""
-    for _ in range(rounds):
-        k = np.round((centres - phase) / period)
-        near = np.abs(centres - phase - k * period) < 0.15 * period
-        if near.sum() < 3 or np.ptp(k[near]) < 2:
+    step = rhos[1] - rhos[0]
+    # Tolerate a tooth landing a bin or two off a line (curvature, rounding).
+    c = cv2.dilate(cover.astype(np.float32).reshape(1, -1), np.ones((1, 5), np.uint8)).ravel()
+    periods = np.arange(p_min, p_max, step / 2)
+    cands = []
+    for period in periods:
+        span = period * (n_teeth - 1)
+        starts = rhos[rhos + span <= rhos[-1]]
+        if len(starts) == 0:
+            continue
+        teeth = starts[:, None] + period * np.arange(n_teeth)[None, :]
+        gap_ok = np.interp(teeth, rhos, speed) * period >= min_gap_px
+        score = (np.interp(teeth, rhos, c) * gap_ok).mean(axis=1)
+        # Local maxima over the start position only.
+        top = np.argsort(score)[-3:]
+        cands += [(float(period), float(starts[k]), float(score[k])) for k in top]
+    cands.sort(key=lambda x: -x[2])
+    out = []
+    for period, start, sc in cands:
+        # Distinct: the teeth differ somewhere by more than a fifth of a period.
+        t_new = start + period * np.arange(n_teeth)
+        if any(np.max(np.abs(t_new - (s0 + p0 * np.arange(n_teeth)))) < 0.2 * period
+               for p0, s0, _ in out):
+            continue
+        out.append((period, start, sc))
+        if len(out) >= keep:
             break
-        a = np.column_stack([np.ones(near.sum()), k[near]])
-        phase, period = np.linalg.lstsq(a, centres[near], rcond=None)[0]
-    return float(period), float(phase)
+    return out
 
 
-def _window(support, n_lines):
-    """Start index of the n_lines consecutive lattice lines with the most support."""
-    if len(support) < n_lines:
-        return None, 0.0
-    sums = np.convolve(support, np.ones(n_lines), mode="valid")
-    s = int(np.argmax(sums))
-    return s, float(sums[s])
+def _refine_teeth(rhos, cover, teeth, period):
+    """Move each tooth to the evidence centroid near it, then fit equal spacing."""
+    found = []
+    for r in teeth:
+        near = np.abs(rhos - r) < 0.15 * period
+        wgt = cover[near]
+        found.append(float(np.average(rhos[near], weights=wgt)) if wgt.sum() > 0 else np.nan)
+    found = np.array(found)
+    good = np.isfinite(found)
+    k = np.arange(len(teeth))
+    if good.sum() >= 3:
+        a = np.column_stack([np.ones(good.sum()), k[good]])
+        phase, per = np.linalg.lstsq(a, found[good], rcond=None)[0]
+        return phase + per * k
+    return np.asarray(teeth, float)
 
 
 def _rectifier(vp1, vp2):
@@ -250,7 +264,7 @@ def _apply(hm, pts):
 def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng):
     """Image positions of every lattice corner of the field window (first guess)."""
     h, w = grey.shape
-    seg, evidence = _segments(grey, ignore)
+    seg, (evidence, line_angle) = _segments(grey, ignore)
     if camera is not None and len(seg):
         k, d = camera.matrix, camera.dist_coeffs
         seg = cv2.undistortPoints(seg.reshape(-1, 1, 2), k, d, P=k).reshape(-1, 4)
@@ -275,6 +289,7 @@ def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng):
     rect = _rectifier(vp1, vp2)
     fam = []
     # Floor side of the horizon: the side holding the segments.
+    fam = []
     for inl in (in1, in2):
         s = cseg[inl]
         a = _apply(rect, s[:, :2])
@@ -287,23 +302,6 @@ def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng):
         pos = ((a + b) / 2 - d) @ nrm
         fam.append(dict(pos=pos, weight=np.hypot(*direc.T), normal=nrm, ref=d[0],
                         dir=np.array([math.cos(mean_dir), math.sin(mean_dir)])))
-    n_max = max(field.tiles_x, field.tiles_y)
-    n_min = min(field.tiles_x, field.tiles_y)
-    lattices = []
-    for f in fam:
-        lo, hi = np.percentile(f["pos"], [1, 99])
-        extent = max(hi - lo, 1e-9)
-        # One vote per distinct line: strong edges (the field border) must not outvote
-        # the faint seams when finding the spacing.
-        centres = _cluster_positions(f["pos"], f["weight"], extent / (8 * (n_max + 2)))
-        period, phase, coh = _periodic(centres, np.ones(len(centres)),
-                                       extent / (3 * n_max + 2),
-                                       extent / max(n_min - 1, 1) * 1.2)
-        period, phase = _refine_period(centres, period, phase)
-        k_lo = int(math.floor((f["pos"].min() - phase) / period)) - 1
-        k_hi = int(math.ceil((f["pos"].max() - phase) / period)) + 1
-        ks = np.arange(k_lo, k_hi + 1)
-        lattices.append(dict(f, period=period, phase=phase, coh=coh, ks=ks))
     rect_inv = np.linalg.inv(rect)
 
     def to_image(pts_rect):
@@ -315,57 +313,116 @@ def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng):
             img = cv2.projectPoints(obj, np.zeros(3), np.zeros(3), k, d)[0].reshape(-1, 2)
         return img
 
-    # Evidence of a seam or edge along each lattice line, measured in the image: the
-    # fraction of the line's visible length that lies on a thin line or strong edge.
-    mids = np.vstack([_apply(rect, (cseg[:, :2] + cseg[:, 2:]) / 2)])
-    for f in lattices:
+    # Dense seam evidence across each family: for every line position rho (in the
+    # rectified frame) the fraction of its visible length lying on a thin line or a
+    # strong edge in the image.
+    mids = _apply(rect, (cseg[:, :2] + cseg[:, 2:]) / 2)
+    n_max = max(field.tiles_x, field.tiles_y)
+    n_min = min(field.tiles_x, field.tiles_y)
+    for f in fam:
         t = (mids - f["ref"]) @ f["dir"]
-        ts = np.linspace(np.percentile(t, 1), np.percentile(t, 99), 240)
-        cover = []
-        for kk in f["ks"]:
-            rho = f["phase"] + kk * f["period"]
-            pts = f["ref"] + rho * f["normal"] + ts[:, None] * f["dir"]
-            img = to_image(pts)
-            inside = ((img[:, 0] >= 0) & (img[:, 0] <= w - 1) & (img[:, 1] >= 0)
-                      & (img[:, 1] <= h - 1) & np.all(np.isfinite(img), axis=1))
-            if inside.sum() < 20:
-                cover.append(0.0)
+        ts = np.linspace(np.percentile(t, 1), np.percentile(t, 99), 200)
+        lo, hi = np.percentile(f["pos"], [0.5, 99.5])
+        pad = 0.15 * (hi - lo)
+        rhos = np.linspace(lo - pad, hi + pad, 900)
+        pts = (f["ref"][None, None, :] + rhos[:, None, None] * f["normal"][None, None, :]
+               + ts[None, :, None] * f["dir"][None, None, :])
+        img = to_image(pts.reshape(-1, 2)).reshape(len(rhos), len(ts), 2)
+        inside = ((img[..., 0] >= 0) & (img[..., 0] <= w - 1) & (img[..., 1] >= 0)
+                  & (img[..., 1] <= h - 1) & np.all(np.isfinite(img), axis=-1))
+        ui = np.clip(np.nan_to_num(img[..., 0]).round().astype(int), 0, w - 1)
+        vi = np.clip(np.nan_to_num(img[..., 1]).round().astype(int), 0, h - 1)
+        along = np.gradient(img, axis=1)
+        expected = np.arctan2(along[..., 1], along[..., 0])
+        diff = np.abs(np.angle(np.exp(2j * (line_angle[vi, ui] - expected)))) / 2
+        hit = evidence[vi, ui] & inside & (diff < math.radians(12))
+        n_in = inside.sum(axis=1)
+        cover = np.where(n_in >= 0.2 * len(ts), hit.sum(axis=1) / np.maximum(n_in, 1), 0.0)
+        # Image pixels per unit of rho (near the horizon many rho map to one image line).
+        across = np.linalg.norm(np.gradient(img, rhos, axis=0), axis=-1)
+        across = np.where(inside, across, np.nan)
+        across = np.where(np.isfinite(across), across, np.inf)
+        speed = np.where(inside.any(axis=1), np.sort(across, axis=1)[
+            np.arange(len(rhos)), np.maximum(inside.sum(axis=1) // 2, 0)], 0.0)
+        f["rhos"], f["cover"], f["speed"] = rhos, cover, np.nan_to_num(speed, posinf=0.0)
+        f["extent"] = hi - lo
+    # The field in each family: a comb of n+1 equally spaced lines (spacing and start
+    # free) with evidence under every tooth. Fewer or more teeth than the field has lines
+    # cannot match it everywhere, so sub-multiples and multiples of the spacing lose.
+    combs = {}
+    for fi, f in enumerate(fam):
+        for n in {field.tiles_x, field.tiles_y}:
+            combs[fi, n] = _best_combs(f["rhos"], f["cover"], f["speed"], n + 1,
+                                       f["extent"] / (2.5 * n_max + 2),
+                                       f["extent"] / max(n_min - 1, 1) * 1.3)
+
+    def span_cover(f_a, teeth_a, f_b, teeth_b):
+        """Evidence along the teeth of A, only between the first and last tooth of B."""
+        nb_na = f_b["normal"] @ f_a["normal"]
+        nb_da = f_b["normal"] @ f_a["dir"]
+        if abs(nb_da) < 1e-9:
+            return 0.0
+        vals = []
+        frac = np.linspace(0.02, 0.98, 80)
+        for ra in teeth_a:
+            t0 = (teeth_b[0] - ra * nb_na) / nb_da
+            t1 = (teeth_b[-1] - ra * nb_na) / nb_da
+            tt = t0 + (t1 - t0) * frac
+            pts = f_a["ref"] + ra * f_a["normal"] + tt[:, None] * f_a["dir"]
+            im = to_image(pts)
+            ok_ = ((im[:, 0] >= 0) & (im[:, 0] <= w - 1) & (im[:, 1] >= 0)
+                   & (im[:, 1] <= h - 1) & np.all(np.isfinite(im), axis=1))
+            if ok_.sum() < 10:
+                vals.append(0.0)
                 continue
-            ui = img[inside, 0].round().astype(int)
-            vi = img[inside, 1].round().astype(int)
-            cover.append(float(evidence[vi, ui].mean()))
-        f["support"] = np.array(cover)
-    # Which family is x: try both; the window sums decide (ties: family 0 is x).
+            along = np.gradient(im, axis=0)
+            expected = np.arctan2(along[:, 1], along[:, 0])
+            ui = np.clip(np.nan_to_num(im[:, 0]).round().astype(int), 0, w - 1)
+            vi = np.clip(np.nan_to_num(im[:, 1]).round().astype(int), 0, h - 1)
+            diff = np.abs(np.angle(np.exp(2j * (line_angle[vi, ui] - expected)))) / 2
+            hit = evidence[vi, ui] & (diff < math.radians(12))
+            vals.append(float(hit[ok_].mean()))
+        return float(np.mean(vals))
+
+    # Joint choice: the teeth of each family must carry evidence across the span of the
+    # other family's field window (the seams run from one field edge to the other).
     best = None
     for assign in ((0, 1), (1, 0)):
-        fx, fy = lattices[assign[0]], lattices[assign[1]]
-        sx, vx = _window(fx["support"], field.tiles_x + 1)
-        sy, vy = _window(fy["support"], field.tiles_y + 1)
-        if sx is None or sy is None:
-            continue
-        score = vx + vy
-        if best is None or score > best[0] + 1e-9:
-            best = (score, assign, sx, sy)
+        fa, fb = fam[assign[0]], fam[assign[1]]
+        for ca in combs[assign[0], field.tiles_x][:4]:
+            ta = ca[1] + ca[0] * np.arange(field.tiles_x + 1)
+            for cb in combs[assign[1], field.tiles_y][:4]:
+                tb = cb[1] + cb[0] * np.arange(field.tiles_y + 1)
+                score = span_cover(fa, ta, fb, tb) + span_cover(fb, tb, fa, ta)
+                if best is None or score > best[0] + 1e-9:
+                    best = (score, assign, ca, cb)
     if best is None:
         raise CalibrationError(
-            f"grid: fewer seam lines visible than the field's {field.tiles_x} x "
-            f"{field.tiles_y} tiles need; show the whole field or check tiles_x/tiles_y")
-    _score, assign, sx, sy = best
+            f"grid: no window of {field.tiles_x} x {field.tiles_y} tiles found in the seams; "
+            "show the whole field or check tiles_x/tiles_y")
+    _score, assign, comb_x, comb_y = best
     warnings = []
     out = []
-    for f_i, start, n in ((assign[0], sx, field.tiles_x), (assign[1], sy, field.tiles_y)):
-        f = lattices[f_i]
-        sup = f["support"]
-        inside = sup[start:start + n + 1]
-        outside = np.concatenate([sup[:start], sup[start + n + 1:]])
-        if len(outside) and outside.max() > 0.7 * np.median(inside):
+    for f_i, (period, start, sc), n in ((assign[0], comb_x, field.tiles_x),
+                                        (assign[1], comb_y, field.tiles_y)):
+        f = fam[f_i]
+        if sc < 0.25:
+            raise CalibrationError(
+                f"grid: the field's {n + 1} seam lines in one direction are not visible "
+                f"(best match {sc:.0%}); show the whole field or check tiles_x/tiles_y")
+        rho = _refine_teeth(f["rhos"], f["cover"], start + period * np.arange(n + 1),
+                            period)
+        # Evidence just outside the field on the same spacing: the tiling continues?
+        beyond = [float(np.interp(r, f["rhos"], f["cover"], left=0, right=0))
+                  for r in (rho[0] - period, rho[-1] + period)]
+        inside_cov = [float(np.interp(r, f["rhos"], f["cover"])) for r in rho]
+        if max(beyond) > 0.7 * float(np.median(inside_cov)):
             warnings.append("seam lines continue beyond the field's "
                             f"{n} tiles in one direction; the field's position in the "
                             "tiling may be wrong - add a floor marker or a points file")
-        ks = f["ks"][start:start + n + 1]
-        out.append([f["phase"] + k * f["period"] for k in ks])
+        out.append(list(rho))
     # Lattice corners in rectified coordinates: intersect line families.
-    fx, fy = lattices[assign[0]], lattices[assign[1]]
+    fx, fy = fam[assign[0]], fam[assign[1]]
     corners = np.empty((field.tiles_x + 1, field.tiles_y + 1, 2))
     a_mat = np.vstack([fx["normal"], fy["normal"]])
     for i, px_ in enumerate(out[0]):
@@ -717,7 +774,8 @@ def refine_fit(grey, field: FieldProfile, fit, *, camera: CameraProfile | None =
         free = camera is None
         cur = fit_camera((w, h), seams=(q, ax, val), camera=camera,
                          init=(cur.camera_matrix, cur.dist_coeffs, cur.rvec, cur.tvec),
-                         fit_focal=free, fit_k1=free and len(q) >= 200, outlier_px=1.5,
+                         fit_focal=free, fit_k1=free and len(q) >= 200,
+                         fit_k2=free and len(q) >= 600, outlier_px=1.5,
                          loss_px=0.5)
         out = cur
     return out

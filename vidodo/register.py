@@ -361,7 +361,8 @@ def _ray_floor(norm, r, t):
 
 
 def fit_camera(image_size, *, points=None, seams=None, camera: CameraProfile | None = None,
-               init=None, fit_focal=None, fit_k1=None, loss_px=1.0, outlier_px=None):
+               init=None, fit_focal=None, fit_k1=None, fit_k2=None, loss_px=1.0,
+               outlier_px=None):
     """Fit camera pose (and, without a profile, focal length and k1) to floor observations.
 
     Parameters
@@ -377,9 +378,9 @@ def fit_camera(image_size, *, points=None, seams=None, camera: CameraProfile | N
         Known intrinsics and distortion (held fixed).
     init : (K, dist, rvec, tvec), optional
         Starting model; default from the homography of ``points``.
-    fit_focal, fit_k1 : bool, optional
-        Free the focal length / first radial term (defaults: only without a camera
-        profile; k1 only with seam observations).
+    fit_focal, fit_k1, fit_k2 : bool, optional
+        Free the focal length / first / second radial term (defaults: only without a
+        camera profile; k1 with 200 or more seam samples, k2 with 600 or more).
     loss_px : float
         Scale of the robust (soft L1) loss [px].
     outlier_px : float, optional
@@ -417,10 +418,12 @@ def fit_camera(image_size, *, points=None, seams=None, camera: CameraProfile | N
                 f"{camera.height_px}, the video is {w}x{h}; calibrate in this mode")
         fit_focal = bool(fit_focal) if fit_focal is not None else False
         fit_k1 = bool(fit_k1) if fit_k1 is not None else False
+        fit_k2 = bool(fit_k2) if fit_k2 is not None else False
     else:
         k0, d0 = None, np.zeros(5)
         fit_focal = True if fit_focal is None else bool(fit_focal)
         fit_k1 = (n_seam >= 200) if fit_k1 is None else bool(fit_k1)
+        fit_k2 = (fit_k1 and n_seam >= 600) if fit_k2 is None else bool(fit_k2)
     if init is not None:
         k0, d0, rvec0, tvec0 = (np.array(v, float) for v in init)
     else:
@@ -445,7 +448,8 @@ def fit_camera(image_size, *, points=None, seams=None, camera: CameraProfile | N
     d0 = np.asarray(d0, float).ravel()
     if len(d0) < 5:
         d0 = np.concatenate([d0, np.zeros(5 - len(d0))])
-    n_free = 6 + int(fit_focal) + int(fit_k1)
+    fit_k2 = bool(fit_k2) and fit_k1
+    n_free = 6 + int(fit_focal) + int(fit_k1) + int(fit_k2)
     if 2 * n_pts + n_seam < n_free + 2:
         raise CalibrationError(f"{n_pts} points and {n_seam} seam samples are too few to "
                                "fit the camera; add points")
@@ -463,6 +467,9 @@ def fit_camera(image_size, *, points=None, seams=None, camera: CameraProfile | N
             i += 1
         if fit_k1:
             d[0] = x[i]
+            i += 1
+        if fit_k2:
+            d[1] = x[i]
         return k, d, x[:3], x[3:6]
 
     keep_pts = np.ones(n_pts, bool)
@@ -493,7 +500,8 @@ def fit_camera(image_size, *, points=None, seams=None, camera: CameraProfile | N
         return res
 
     x0 = np.concatenate([np.ravel(rvec0), np.ravel(tvec0)]
-                        + ([[0.0]] if fit_focal else []) + ([[d0[0]]] if fit_k1 else []))
+                        + ([[0.0]] if fit_focal else []) + ([[d0[0]]] if fit_k1 else [])
+                        + ([[d0[1]]] if fit_k2 else []))
     x = x0
     for _round in range(2 if outlier_px else 1):
         try:
@@ -706,10 +714,15 @@ class FloorRegistrar:
             px, fl, seen = detect_floor_markers(grey, self.field, detectors=self._detectors,
                                                 ignore=ignore)
             if len(px) >= 4:
-                check_correspondences(px, fl, where=f"floor markers {seen}")
-                init_fit = fit_camera(size, points=(px, fl), camera=self.camera,
-                                      outlier_px=5.0)
-                used = "markers"
+                try:
+                    check_correspondences(px, fl, where=f"floor markers {seen}")
+                    init_fit = fit_camera(size, points=(px, fl), camera=self.camera,
+                                          outlier_px=5.0)
+                    used = "markers"
+                except CalibrationError as exc:
+                    if method == "markers":
+                        raise
+                    extra.append(f"floor markers not used for the fit: {exc}")
             elif method == "markers":
                 raise CalibrationError("no floor marker of the field profile is visible in "
                                        "the reference frame; check ids and family")
@@ -928,6 +941,10 @@ def summarise(regs) -> RegistrationQuality:
     ok = [r for r in regs if r.ok]
     px = np.array([r.rms_px for r in ok]) if ok else np.array([math.nan])
     mm = np.array([r.rms_floor_m * 1e3 for r in ok]) if ok else np.array([math.nan])
+    if not ok:
+        return RegistrationQuality(len(regs), 0, math.nan, math.nan, math.nan, math.nan,
+                                   {"failed": len(regs)},
+                                   tuple((r.t_s, r.reason) for r in regs))
     methods: dict = {}
     for r in regs:
         methods[r.method or "failed"] = methods.get(r.method or "failed", 0) + 1

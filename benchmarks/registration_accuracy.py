@@ -1,0 +1,135 @@
+"""Registration accuracy and cost on rendered runs (tripod and hand-held).
+
+For every frame of a rendered run, the floor is registered from the video alone (no
+markers, no clicks unless the scenario has floor markers; no truth files read by the
+registrar). The score uses the renderer's true camera pose of that frame: every tile
+corner of the field is projected to its true pixel, mapped back to the floor with the
+frame's registration, and compared with its true floor position.
+
+Printed per run: floor error at tile corners (RMS over the field, per frame: median and
+worst frame), frames flagged, the methods used, and milliseconds per frame for
+registration next to plain decoding of the same frames (side by side, same process).
+Also printed: a "first frame only" baseline (keep the first frame's registration for
+the whole run), which is what a tracker without re-registration would get.
+
+Run: ``.venv/bin/python benchmarks/registration_accuracy.py [--seconds 4] [--full]``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+
+import cv2
+import numpy as np
+import pandas as pd
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from _runs import rendered  # noqa: E402
+
+from vidodo import register  # noqa: E402
+from vidodo.profiles import load_camera, load_field  # noqa: E402
+from vidodo.video import VideoReader  # noqa: E402
+
+
+def true_poses(run: Path):
+    """Per-frame true camera pose (benchmark scoring only)."""
+    p = run / "truth" / "camera_poses.csv"
+    if p.exists():
+        df = pd.read_csv(p)
+        return (df["t_s"].to_numpy(),
+                df[["rvec_0", "rvec_1", "rvec_2"]].to_numpy(),
+                df[["tvec_0_m", "tvec_1_m", "tvec_2_m"]].to_numpy())
+    import json
+
+    cam = json.loads((run / "truth" / "meta.json").read_text())["camera"]
+    return np.array([0.0]), np.array([cam["rvec"]]), np.array([cam["tvec"]])
+
+
+def corner_rms_mm(reg, field, cam_true, rvec, tvec):
+    corners = field.tile_corners_m()
+    px = cv2.projectPoints(np.column_stack([corners, np.zeros(len(corners))]),
+                           np.asarray(rvec, float), np.asarray(tvec, float),
+                           cam_true.matrix, cam_true.dist_coeffs)[0].reshape(-1, 2)
+    est = reg.image_to_floor(px)
+    return float(np.sqrt(np.nanmean(np.sum((est - corners) ** 2, axis=1)))) * 1e3
+
+
+def bench(run: Path, *, use_camera: bool, max_frames=None):
+    field = load_field(run / "field.toml")
+    cam_true = load_camera(run / "camera.toml")
+    t_true, rv_true, tv_true = true_poses(run)
+    registrar = register.FloorRegistrar(field, cam_true if use_camera else None)
+    errs, first_errs, regs, cost = [], [], [], []
+    decode = []
+    first = None
+    with VideoReader(run / "video.mp4", threaded=False) as reader:
+        t0 = time.perf_counter()
+        for i, t_s, frame in reader:
+            t1 = time.perf_counter()
+            decode.append(t1 - t0)
+            reg = registrar.register(frame, t_s)
+            t0 = time.perf_counter()
+            cost.append(t0 - t1)
+            regs.append(reg)
+            k = int(np.argmin(np.abs(t_true - t_s)))
+            if reg.ok:
+                errs.append(corner_rms_mm(reg, field, cam_true, rv_true[k], tv_true[k]))
+                if first is None:
+                    first = reg
+            else:
+                errs.append(np.nan)
+            if first is not None:
+                first_errs.append(corner_rms_mm(first, field, cam_true, rv_true[k],
+                                                tv_true[k]))
+            if max_frames and i + 1 >= max_frames:
+                break
+    q = register.summarise(regs)
+    errs = np.array(errs)
+    return dict(
+        frames=len(regs), ok=q.n_ok, methods=q.methods,
+        median_mm=float(np.nanmedian(errs)), worst_mm=float(np.nanmax(errs)),
+        first_frame_ms=1e3 * cost[0], ms_per_frame=1e3 * float(np.median(cost[1:])),
+        ms_per_frame_mean=1e3 * float(np.mean(cost[1:])),
+        decode_ms=1e3 * float(np.median(decode[1:])),
+        first_only_worst_mm=float(np.nanmax(first_errs)) if first_errs else float("nan"),
+        focal_px=float(regs[0].camera_matrix[0, 0]) if regs[0].ok else float("nan"),
+        true_focal_px=cam_true.fx_px, reference=regs[0].method,
+        warnings=list(regs[0].warnings), failed=q.failed[:3])
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--seconds", type=float, default=4.0, help="run length to render [s]")
+    ap.add_argument("--frames", type=int, default=None, help="stop after this many frames")
+    args = ap.parse_args(argv)
+    runs = {"default (tripod)": "default", "mecanum-handheld": "mecanum-handheld"}
+    for label, name in runs.items():
+        run = rendered(name, 0, **{"video.max_duration_s": args.seconds})
+        for use_camera in (True, False):
+            r = bench(run, use_camera=use_camera, max_frames=args.frames)
+            lens = "camera profile" if use_camera else "no camera profile"
+            print(f"\n{label}, {lens}: {r['frames']} frames, {r['ok']} registered, "
+                  f"reference by {r['reference']}")
+            print(f"  floor error at tile corners, RMS per frame: median {r['median_mm']:.2f} "
+                  f"mm, worst frame {r['worst_mm']:.2f} mm")
+            print(f"  keeping the first frame's registration instead: worst frame "
+                  f"{r['first_only_worst_mm']:.2f} mm")
+            print(f"  focal length {r['focal_px']:.1f} px (true {r['true_focal_px']:.1f})")
+            print(f"  cost: reference frame {r['first_frame_ms']:.0f} ms; later frames "
+                  f"median {r['ms_per_frame']:.1f} ms (mean {r['ms_per_frame_mean']:.1f}) "
+                  f"vs decoding {r['decode_ms']:.1f} ms/frame "
+                  f"(ratio {r['ms_per_frame'] / max(r['decode_ms'], 1e-9):.2f})")
+            print(f"  methods: {r['methods']}")
+            for w in r["warnings"]:
+                print(f"  warning: {w}")
+            for t, why in r["failed"]:
+                print(f"  flagged t={t:.2f}s: {why}")
+
+
+if __name__ == "__main__":
+    main()
