@@ -262,7 +262,11 @@ def batch_table(records) -> pd.DataFrame:
                 v = m.get(fig)
                 row[f"{_prefix(name)}_{fig}"] = np.nan if v is None else v
         rows.append(row)
-    return pd.DataFrame(rows)
+    table = pd.DataFrame(rows)
+    table.attrs["source_names"] = {
+        _prefix(n): n for r in records for n in ((r.get("summary") or {}).get("sources")
+                                                 or {})}
+    return table
 
 
 def trend_figure(table: pd.DataFrame, *, unit: str = "mm"):
@@ -275,6 +279,7 @@ def trend_figure(table: pd.DataFrame, *, unit: str = "mm"):
 
     k = length_factor(unit)
     srcs = [c[: -len("_final_err_m")] for c in table.columns if c.endswith("_final_err_m")]
+    names = table.attrs.get("source_names", {})
     colors = source_colors(srcs)
     n = len(table)
     fig = Figure(figsize=(max(7.0, 1.0 + 0.55 * n), 6.4), dpi=110)
@@ -288,7 +293,7 @@ def trend_figure(table: pd.DataFrame, *, unit: str = "mm"):
             col = f"{s}_{fig_key}"
             if col in table:
                 y = pd.to_numeric(table[col], errors="coerce").to_numpy(float) * k
-                ax.plot(x, y, "o-", color=colors[s], lw=1.4, ms=5, label=s)
+                ax.plot(x, y, "o-", color=colors[s], lw=1.4, ms=5, label=names.get(s, s))
         for xi in x[failed]:
             ax.axvspan(xi - 0.4, xi + 0.4, color="#d32f2f", alpha=0.12, lw=0)
         ax.set_ylabel(f"{label} [{unit}]")
