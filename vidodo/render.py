@@ -40,7 +40,13 @@ from scipy.special import ndtri
 
 from .errors import InputError
 from .profiles import CameraProfile, FieldProfile, RobotProfile
-from .render_floor import FloorTexture, floor_texture, footprint_level, sample_floor
+from .render_floor import (
+    FloorTexture,
+    floor_texture,
+    footprint_level,
+    sample_floor,
+    texel_coords,
+)
 from .render_robot import cast, face_brightness, part_corners, resolve, robot_parts
 
 __all__ = ["render_frames", "camera_rays", "floor_points"]
@@ -370,18 +376,14 @@ def _render_floor(tex: FloorTexture, cam: _CameraRows, rays: CameraRays, camera,
                 xs = rays.xn + np.float32(du) * rays.dxn[0] + np.float32(dv) * rays.dxn[1]
                 ys = rays.yn + np.float32(du) * rays.dyn[0] + np.float32(dv) * rays.dyn[1]
                 fx, fy, valid = _floor_hits(cam, xs, ys, 0, h)
-                acc += sample_floor(tex, fx.astype(np.float32), fy.astype(np.float32), level,
-                                    valid)
+                acc += sample_floor(tex, *texel_coords(tex, fx, fy, valid), level)
         return np.minimum(acc * np.float32(1.0 / n**2) + np.float32(0.5), 255).astype(np.uint8)
     else:
-        # a far-away stand-in keeps interpolated points of missed rays off the floor
-        far = 1e4
-        stack = np.dstack([np.where(cvalid, cx, far), np.where(cvalid, cy, far), level,
-                           cvalid.astype(np.float32)]).astype(np.float32)
-        fine = cv2.remap(stack, grid.map_u, grid.map_v, cv2.INTER_LINEAR)
-        fx, fy, level = fine[..., 0], fine[..., 1], fine[..., 2]
-        valid = fine[..., 3] > 0.999
-    return sample_floor(tex, fx.astype(np.float32), fy.astype(np.float32), level, valid)
+        # texel coordinates interpolated; missed rays stand far beyond the texture edge
+        mx, my = texel_coords(tex, cx, cy, cvalid)
+        fine = cv2.remap(np.dstack([mx, my, level]), grid.map_u, grid.map_v, cv2.INTER_LINEAR)
+        return sample_floor(tex, np.ascontiguousarray(fine[..., 0]),
+                            np.ascontiguousarray(fine[..., 1]), np.ascontiguousarray(fine[..., 2]))
 
 
 MAX_BLOCK_SAMPLES = 1_500_000

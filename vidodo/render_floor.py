@@ -19,13 +19,12 @@ import numpy as np
 
 from .profiles import FieldProfile, marker_corners_local
 
-__all__ = ["FloorTexture", "floor_texture", "plate_modules", "sample_floor",
-           "footprint_level", "BACKDROP_BGR", "SURROUND_BGR"]
+__all__ = ["FloorTexture", "floor_texture", "plate_modules", "sample_floor", "texel_coords",
+           "footprint_level", "SURROUND_BGR"]
 
-BACKDROP_BGR = (176.0, 182.0, 186.0)
-"""Colour of everything that is not floor (walls above the horizon)."""
 SURROUND_BGR = (128.0, 134.0, 138.0)
-"""Mean colour of the floor around the field."""
+"""Mean colour of the floor around the field; also what rays that miss the floor see
+(a plain backdrop, so the horizon draws no artificial edge)."""
 TILE_BGR = (96.0, 98.0, 102.0)
 """Mean colour of a foam tile (grey)."""
 PRINT_BLACK = 28.0
@@ -43,9 +42,10 @@ class FloorTexture:
     """A floor texture pyramid in floor metres."""
 
     atlas: np.ndarray
-    """Every mip level side by side in one BGR uint8 image: level ``l`` (texel
-    ``texel_m * 2**l``, ``width / 2**l`` by ``height / 2**l`` texels) starts at column
-    ``width * (2 - 2**(1 - l))``, row 0; the unused rest holds the backdrop colour."""
+    """Every mip level side by side in one BGR uint8 image: level ``l`` (texels
+    ``texel_m * 2**l`` wide, ``width / 2**l`` by ``height / 2**l`` of them) starts at
+    column ``width * (2 - 2**(1 - l))``, row 0. Level ``l`` texel ``c`` sits on level-0
+    texel ``c * 2**l`` (``cv2.pyrDown`` centres output pixel ``i`` on input ``2 i``)."""
     width: int
     """Level-0 width [texels]."""
     height: int
@@ -215,12 +215,12 @@ def floor_texture(field: FieldProfile, floor_seed: int, texel_m: float) -> Floor
         _paint_floor_marker(img, x0, y0, texel_m, fm)
     base = np.clip(np.rint(img), 0, 255).astype(np.uint8)
     atlas = np.empty((ny, 2 * nx, 3), np.uint8)
-    atlas[:] = np.array(BACKDROP_BGR, np.uint8)
+    atlas[:] = np.array(SURROUND_BGR, np.uint8)
     level = base
     for lv in range(n_levels):
         if lv:
             level = cv2.pyrDown(level)
-        off = nx * 2 - (nx >> (lv - 1) if lv else 2 * nx)
+        off = 2 * nx - (2 * nx >> lv)
         atlas[:level.shape[0], off:off + level.shape[1]] = level
     return FloorTexture(atlas=atlas, width=nx, height=ny, n_levels=n_levels, x0_m=x0,
                         y0_m=y0, texel_m=texel_m)
@@ -251,22 +251,41 @@ def footprint_level(floor_x_m, floor_y_m, texel_m, step_px=1):
     return np.nan_to_num(level, nan=0.0, posinf=0.0, neginf=0.0).astype(np.float32)
 
 
-def sample_floor(tex: FloorTexture, floor_x_m, floor_y_m, level, valid):
+def texel_coords(tex: FloorTexture, floor_x_m, floor_y_m, valid):
+    """Level-0 texel coordinates of floor points; far outside the texture where invalid.
+
+    Returns
+    -------
+    map_x, map_y : ndarray, float32
+        Column and row in ``tex.levels[0]`` [texels].
+    """
+    far = np.float32(FAR_TEXELS)
+    mx = (np.asarray(floor_x_m, np.float32) - np.float32(tex.x0_m)) / np.float32(tex.texel_m)
+    my = (np.asarray(floor_y_m, np.float32) - np.float32(tex.y0_m)) / np.float32(tex.texel_m)
+    mx = np.where(valid, mx - np.float32(0.5), far).astype(np.float32)
+    my = np.where(valid, my - np.float32(0.5), far).astype(np.float32)
+    return mx, my
+
+
+FAR_TEXELS = 1.0e6
+"""Texel coordinate standing in for rays that miss the floor (beyond the texture edge,
+where the floor has the flat surround colour) [texels]."""
+
+
+def sample_floor(tex: FloorTexture, map_x, map_y, level):
     """Colour of the floor seen by each pixel (trilinear mip-map filtering).
 
-    Each pixel blends the two mip levels around its level (two ``cv2.remap`` calls on
-    the level atlas and one ``cv2.blendLinear``). Floor points beyond the texture take
-    its edge colour; pixels whose ray misses the floor take the backdrop colour.
+    Each pixel blends the two mip levels around its level: two ``cv2.remap`` calls on
+    the level atlas and one ``cv2.blendLinear``. Coordinates are clamped into each
+    level, so points beyond the texture take its edge colour (the plain surround).
 
     Parameters
     ----------
     tex : FloorTexture
-    floor_x_m, floor_y_m : ndarray of shape (H, W), float32
-        Floor point of each pixel [m].
+    map_x, map_y : ndarray of shape (H, W), float32
+        Level-0 texel coordinates from :func:`texel_coords`.
     level : ndarray of shape (H, W), float32
         Mip level from :func:`footprint_level`.
-    valid : ndarray of shape (H, W), bool
-        False where the ray does not reach the floor (backdrop).
 
     Returns
     -------
@@ -276,19 +295,14 @@ def sample_floor(tex: FloorTexture, floor_x_m, floor_y_m, level, valid):
     lev = np.minimum(np.maximum(level, np.float32(0)), np.float32(top - 1e-3))
     l0 = np.floor(lev)
     frac = lev - l0
-    # cv2.pyrDown centres output pixel i on input pixel 2i, so level-l texel c sits on
-    # level-0 texel c * 2**l: coordinates scale by 2**-l
-    scale = np.exp2(-l0).astype(np.float32)
-    m0x = (floor_x_m - np.float32(tex.x0_m)) * np.float32(1.0 / tex.texel_m) - np.float32(0.5)
-    m0y = (floor_y_m - np.float32(tex.y0_m)) * np.float32(1.0 / tex.texel_m) - np.float32(0.5)
-    out = []
+    scale = np.exp2(-l0)
     w0, h0 = np.float32(tex.width), np.float32(tex.height)
+    out = []
     for sc in (scale, scale * np.float32(0.5)):
-        mx = np.minimum(np.maximum(m0x * sc, 0), w0 * sc - 1) + w0 * (2 - 2 * sc)
-        my = np.minimum(np.maximum(m0y * sc, 0), h0 * sc - 1)
-        np.copyto(mx, np.float32(2 * tex.width - 2), where=~valid)
-        np.copyto(my, np.float32(1.0), where=~valid)
+        ws = w0 * sc
+        mx = np.minimum(np.maximum(map_x * sc, np.float32(0)), ws - np.float32(1))
+        mx += np.float32(2) * (w0 - ws)
+        my = np.minimum(np.maximum(map_y * sc, np.float32(0)), h0 * sc - np.float32(1))
         out.append(cv2.remap(tex.atlas, mx, my, cv2.INTER_LINEAR,
                              borderMode=cv2.BORDER_REPLICATE))
-    return cv2.blendLinear(out[0], out[1], (1.0 - frac).astype(np.float32),
-                           frac.astype(np.float32))
+    return cv2.blendLinear(out[0], out[1], np.float32(1) - frac, frac)
