@@ -260,6 +260,9 @@ def field_map_figure(drift: pd.DataFrame, events: pd.DataFrame | None = None, *,
         ax.set_ylim(lim[2] * k, lim[3] * k)
     ax.set_xlabel(f"x [{unit}]")
     ax.set_ylabel(f"y [{unit}]")
+    if field is None:
+        ax.text(0.99, 0.01, "no field profile: tile grid not drawn", transform=ax.transAxes,
+                ha="right", va="bottom", fontsize=8, color="#616161")
     ax.set_title(title or "Field map (top view, to scale)")
     ax.legend(handles, labels, loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8,
               frameon=False)

@@ -22,7 +22,7 @@ def add_arguments(parser):
     parser.add_argument("grade_dir", type=Path, help="folder written by `vidodo grade --out`")
     parser.add_argument("--out", type=Path, default=None,
                         help="where to write (default: the grade folder itself)")
-    parser.add_argument("--units", choices=sorted(LENGTH_UNITS), default="mm",
+    parser.add_argument("--units", choices=tuple(LENGTH_UNITS), default="mm",
                         help="length unit shown in the plots and the report")
     parser.add_argument("--replay", action="store_true",
                         help="also write replay.mp4 (the footage with tracks drawn in)")
