@@ -87,6 +87,8 @@ class ReplayTracks:
             for i, ev in enumerate(events.itertuples(index=False), start=1):
                 t0 = float(getattr(ev, "t_start_s", np.nan))
                 t1 = float(getattr(ev, "t_end_s", np.nan))
+                if not math.isfinite(t0):
+                    continue  # an event with no time cannot be shown as it happens
                 evs.append((i, str(getattr(ev, "kind", "event")), t0,
                             t1 if math.isfinite(t1) else t0,
                             float(getattr(ev, "x_m", np.nan)), float(getattr(ev, "y_m", np.nan))))
