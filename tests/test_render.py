@@ -130,6 +130,17 @@ def test_rendered_markers_found_at_projected_corners(family, z_m):
     assert np.abs(found[3] - want_floor).max() < 0.5
     # the marker is big enough in the image for the check to mean something
     assert np.ptp(want_robot[:, 0]) > 40
+    if family == "DICT_APRILTAG_36h11":
+        # second, independent detector: the AprilTag 3 library (pupil-apriltags). Its
+        # corners wrap counter-clockwise on screen starting top-right of the image
+        # cv2.aruco draws (as observed here: TR, TL, BL, BR), and its pixel centres sit
+        # at (0.5, 0.5) (AprilRobotics/apriltag issue #121)
+        apriltags = pytest.importorskip("pupil_apriltags")
+        grey = cv2.cvtColor(img, cv2.COLOR_BGR2GRAY)
+        tags = {t.tag_id: t.corners[[1, 0, 3, 2]] - 0.5
+                for t in apriltags.Detector(families="tag36h11").detect(grey)}
+        assert np.abs(tags[7] - want_robot).max() < 0.5
+        assert np.abs(tags[3] - want_floor).max() < 0.5
 
 
 def test_rolling_shutter_shears_a_sideways_moving_marker():
