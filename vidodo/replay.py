@@ -272,8 +272,12 @@ def annotate_frame(frame_bgr, overlay: dict, *, lines=(), colors: dict | None = 
         r = radius * (1.6 if active else 0.7)
         cv2.circle(img, _pt(px), int(r * 16), c, -1 if not active else thick + 1,
                    cv2.LINE_AA, shift=4)
-        cv2.putText(img, str(num), (int(px[0] + r + 2), int(px[1] - r)),
-                    cv2.FONT_HERSHEY_SIMPLEX, 0.5 * max(s, 0.6), c, thick, cv2.LINE_AA)
+        org = (int(px[0] + r + 3), int(px[1] - r))
+        fs = 0.7 * max(s, 0.7)
+        cv2.putText(img, str(num), org, cv2.FONT_HERSHEY_SIMPLEX, fs, (0, 0, 0), thick + 3,
+                    cv2.LINE_AA)
+        cv2.putText(img, str(num), org, cv2.FONT_HERSHEY_SIMPLEX, fs, c, thick + 1,
+                    cv2.LINE_AA)
     # sources: trail, ring, heading tick
     for name, d in overlay.get("sources", {}).items():
         c = colors.get(name, (200, 200, 200))
