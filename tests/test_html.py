@@ -195,12 +195,16 @@ def test_terminal_summary_lines():
 
     _, _, summary = synthetic_grade()
     lines = summary_lines(summary, "in")
-    assert lines[0].startswith("log clock offset 421.3 ms")
+    assert lines[0].startswith("log clock offset +0.421 s \u00b1 2.1 ms")
     drive = next(ln for ln in lines if ln.startswith("drive"))
     final_in = summary["sources"]["drive"]["final_err_m"] / 0.0254
     assert f"{final_in:.2f} in" in drive
     assert "events: impact x1, wheel_slip x1" in lines
     assert lines[-1] == "verdict: 1 of 2 sources within tolerance"
+    assert not any(ln.startswith("warning:") for ln in lines)
+    assert "warning: truth lost for 3 frames near t = 4.1 s" in summary_lines(
+        summary, "mm", warnings=True)
+    assert "FAIL" in drive
     # columns line up: the data rows are padded to the same width
     rows = lines[2:4]
     assert rows[0].startswith("drive") and rows[1].startswith("tracking+imu")

@@ -99,7 +99,7 @@ def _pass_text(value) -> str:
     return "pass" if bool(value) else "FAIL"
 
 
-def summary_lines(summary: dict, unit: str = "mm") -> list[str]:
+def summary_lines(summary: dict, unit: str = "mm", *, warnings: bool = False) -> list[str]:
     """The compact end-of-run summary for the terminal, one string per line.
 
     Parameters
@@ -108,13 +108,16 @@ def summary_lines(summary: dict, unit: str = "mm") -> list[str]:
         The content of ``summary.json`` (DEVELOPERS.md, "Grade outputs").
     unit : {'mm', 'in', 'm'}
         Display unit for lengths.
+    warnings : bool
+        Also list the summary's warnings (commands usually print them to stderr).
 
     Returns
     -------
     list of str
         A header with the clock offset, a table with one row per odometry source
-        (ATE, final error, drift, heading drift per turn, pass/fail), the event count
-        by kind, and the verdict. Nothing is printed here.
+        (ATE, final error, drift, heading drift per turn, and pass/fail when a
+        tolerance was set), the event count by kind, and the verdict. Nothing is
+        printed here.
     """
     length_factor(unit)
     lines = []
@@ -122,11 +125,13 @@ def summary_lines(summary: dict, unit: str = "mm") -> list[str]:
     if clock:
         off = clock.get("offset_s")
         sig = clock.get("sigma_s")
-        off_txt = f"{off * 1000:.1f} ms" if _finite(off) else "\u2013"
+        off_txt = f"{off:+.3f} s" if _finite(off) else "\u2013"
         sig_txt = f" \u00b1 {sig * 1000:.1f} ms" if _finite(sig) else ""
         lines.append(f"log clock offset {off_txt}{sig_txt} ({clock.get('method', '?')})")
     sources = summary.get("sources") or {}
     if sources:
+        judged = any(isinstance(m, dict) and m.get("pass") is not None
+                     for m in sources.values())
         head = ["source", "ATE", "final err", "max err", "drift", "heading/turn", ""]
         rows = [head]
         for name, m in sources.items():
@@ -138,7 +143,7 @@ def summary_lines(summary: dict, unit: str = "mm") -> list[str]:
                 format_percent(m.get("drift_pct")),
                 format_angle(math.radians(m["heading_drift_deg_per_turn"]))
                 if _finite(m.get("heading_drift_deg_per_turn")) else "\u2013",
-                _pass_text(m.get("pass")),
+                _pass_text(m.get("pass")) if judged else "",
             ])
         widths = [max(len(r[i]) for r in rows) for i in range(len(head))]
         for r in rows:
@@ -153,7 +158,7 @@ def summary_lines(summary: dict, unit: str = "mm") -> list[str]:
         lines.append("events: " + ", ".join(f"{k} x{n}" for k, n in sorted(counts.items())))
     else:
         lines.append("events: none")
-    for w in summary.get("warnings") or []:
+    for w in (summary.get("warnings") or []) if warnings else ():
         lines.append(f"warning: {w}")
     if "verdict" in summary:
         lines.append(f"verdict: {summary['verdict']}")
