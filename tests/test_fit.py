@@ -472,7 +472,7 @@ def test_rendered_spin_and_square_recovers_the_profile(rendered_run):
     robot: tank drive, three tracking wheels, IMU; spins then a square). The profile
     handed to vidodo is wrong by 2 % radius, 5 mm offsets, 1 % IMU scale and one
     inverted encoder; every value comes back within 0.2 % / 1 mm / 0.1 %, the encoder
-    is flagged, and anchored drift (final error and ATE) falls at least 5x. The
+    is flagged, and anchored drift (largest anchored error; and ATE) falls at least 5x. The
     sideways tracking wheel's radius cannot be told from its offset on a robot that
     never slides sideways: it must be reported not identifiable and left alone."""
     import tomllib
@@ -502,5 +502,7 @@ def test_rendered_spin_and_square_recovers_the_profile(rendered_run):
                            fit.corrected_robot)
     table = drift_comparison(anchored_drift(run, log, wrong), after, run.name)
     wheel_sources = table[table["source"] != "logged"]
-    assert (wheel_sources["final_err_ratio"] >= 5).all(), table.to_string()
+    # anchored drift = the largest anchored error over the run (the final error of a
+    # closed path can be small by cancellation, e.g. IMU scale over spins both ways)
+    assert (wheel_sources["max_err_ratio"] >= 5).all(), table.to_string()
     assert (wheel_sources["ate_rmse_ratio"] >= 5).all(), table.to_string()
