@@ -49,7 +49,9 @@ def _camera_pose():
 
 def _registration(t_s=0.0):
     rvec, tvec = _camera_pose()
-    return FrameRegistration(t_s, True, K, DIST, rvec, tvec, 0.3, 0.001, 40, "points")
+    return FrameRegistration(t_s=t_s, ok=True, camera_matrix=K, dist_coeffs=DIST, rvec=rvec,
+                             tvec=tvec, rms_px=0.3, rms_floor_m=0.001, n_points=40,
+                             method="points")
 
 
 def _truth_ring_centre(img, orig):
@@ -101,8 +103,9 @@ def test_drawn_truth_ring_centre_on_projected_marker(pose):
 def test_unregistered_frame_draws_no_ring():
     poses = np.array([(1.0, 1.0, 0.0)])
     tracks = ReplayTracks.from_tables(_tracks(poses, np.array([0.0])))
-    bad = FrameRegistration(0.0, False, K, DIST, np.full(3, np.nan), np.full(3, np.nan),
-                            math.nan, math.nan, 0, "", "no floor")
+    bad = FrameRegistration(t_s=0.0, ok=False, camera_matrix=K, dist_coeffs=DIST,
+                            rvec=np.full(3, np.nan), tvec=np.full(3, np.nan), rms_px=math.nan,
+                            rms_floor_m=math.nan, n_points=0, method="", reason="no floor")
     ov = frame_overlay(tracks, 0, bad, marker=MARKER)
     assert ov["truth_px"] is None
     frame = np.zeros((480, 640, 3), np.uint8)
