@@ -535,7 +535,10 @@ def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,
 
     video = find("video")
     robot = load_robot(find("robot"))
-    field = data.field if data.field is not None else load_field(find("field"))
+    # the whole field profile (floor fiducials, origin hint) when its file is there;
+    # the summary's tile grid alone otherwise
+    field_path = find("field", required=data.field is None)
+    field = load_field(field_path) if field_path is not None else data.field
     cam_path = find("camera", required=False)
     camera = load_camera(cam_path) if cam_path is not None else None
     return write_replay(video, data.drift, data.events, out_path, robot=robot, field=field,
