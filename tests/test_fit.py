@@ -456,9 +456,13 @@ def recovery_rows(fit, exact, wrong, scale_error):
             rows.append((name, true, r["identifiable"], text, abs(err) <= lim))
     true_scale = exact.imu.scale / (1.0 + scale_error)
     r = tab.loc["imu scale"]
-    err = r["estimate"] / true_scale - 1.0
-    rows.append(("imu scale", true_scale, r["identifiable"], f"{err * 100:+.3f} %",
-                 abs(err) <= LIMITS["imu_scale_rel"]))
+    if r["identifiable"] == "no":
+        ok = fixed.imu.scale == true_scale
+        rows.append(("imu scale", true_scale, "no", "held" if ok else "held, WRONG", ok))
+    else:
+        err = r["estimate"] / true_scale - 1.0
+        rows.append(("imu scale", true_scale, r["identifiable"], f"{err * 100:+.3f} %",
+                     abs(err) <= LIMITS["imu_scale_rel"]))
     flipped = {w.name for w, v in zip(exact.wheels, wrong.wheels, strict=True)
                if w.sign != v.sign}
     rows.append(("inverted encoder flagged", ",".join(sorted(flipped)), "",

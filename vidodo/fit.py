@@ -767,6 +767,17 @@ def _tabulate(robot, model, theta, se, cov, status, inverted, imu_flip, tol, war
             changes["x_m"] = float(w.x_m + step[0] * theta[il])
             changes["y_m"] = float(w.y_m + step[1] * theta[il])
         new_wheels[w.name] = dataclasses.replace(w, **changes)
+    # wheels left out of the fit (no column, never moved, or not following the motion)
+    fitted = {w.name for w in model.wheels}
+    for w in robot.wheels:
+        if w.name in fitted:
+            continue
+        side = abs(wheel_rows([w])[0][0]) < 1e-9
+        key, prof, _dv, _step = _lever_display(w)
+        nan = float("nan")
+        row(f"wheel {w.name} radius_m", "radius", w.name, "m", w.radius_m, nan, nan, "no",
+            False, "radius_side" if side else None)
+        row(f"wheel {w.name} {key}", "lever", w.name, "m", prof, nan, nan, "no", False)
     # derived track width per source of forward-rolling wheels on both sides
     seen = set()
     for src in robot.resolved_sources():
@@ -810,8 +821,11 @@ def _tabulate(robot, model, theta, se, cov, status, inverted, imu_flip, tol, war
             imu_flip < 0)
         new_imu = dataclasses.replace(robot.imu, sign=sign,
                                       scale=float(scale) if iw else robot.imu.scale)
-    elif robot.imu is not None and imu_flip < 0:
-        new_imu = dataclasses.replace(robot.imu, sign=-robot.imu.sign)
+    elif robot.imu is not None:
+        nan = float("nan")
+        row("imu scale", "imu_scale", "imu", "", robot.imu.scale, nan, nan, "no", False)
+        if imu_flip < 0:
+            new_imu = dataclasses.replace(robot.imu, sign=-robot.imu.sign)
     for rd in model.runs:
         if rd.i_bias >= 0:
             i = rd.i_bias
