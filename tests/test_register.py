@@ -269,3 +269,57 @@ def test_feature_reregistration_recovers_graffiti_homography():
     err = np.linalg.norm(cv2.perspectiveTransform(grid_pts, r.H)
                          - cv2.perspectiveTransform(grid_pts, h_true), axis=2)
     assert err.mean() < 2.0, err.mean()
+
+
+# ------------------------------------------------------------------ command
+FIELD_TOML = "[floor]\ntiles_x = 6\ntiles_y = 6\ntile_size_m = 0.6\norigin_hint = \"near-left\"\n"
+
+
+@pytest.fixture(scope="module")
+def still(tmp_path_factory):
+    d = tmp_path_factory.mktemp("still")
+    tex, org = tile_texture(FIELD)
+    rvec, tvec = tripod_pose()
+    cv2.imwrite(str(d / "floor.png"), render_view(tex, org, CAM, rvec, tvec, supersample=1))
+    (d / "field.toml").write_text(FIELD_TOML)
+    return d
+
+
+def test_register_command_writes_preview_and_csv(still, tmp_path, capsys):
+    from vidodo.cli_main import main
+
+    out = tmp_path / "out"
+    code = main(["register", str(still / "floor.png"), "--field", str(still / "field.toml"),
+                 "-o", str(out), "--quiet"])
+    assert code == 0
+    assert (out / "preview.png").is_file()
+    import pandas as pd
+
+    df = pd.read_csv(out / "registration.csv")
+    assert list(df.columns[:3]) == ["t_s", "ok", "method"]
+    assert bool(df["ok"].iloc[0]) and df["method"].iloc[0] == "grid"
+    assert "registered by grid" in capsys.readouterr().out
+
+
+def test_register_command_bad_input_exit_codes_and_no_output(still, tmp_path):
+    from vidodo.cli_main import main
+
+    out = tmp_path / "out"
+    bad_pts = tmp_path / "pts.csv"
+    bad_pts.write_text("u_px,v_px,x\n1,2,3\n")
+    args = [str(still / "floor.png"), "--field", str(still / "field.toml"), "-o", str(out),
+            "--quiet"]
+    assert main(["register", *args, "--points", str(bad_pts)]) == 2
+    few = tmp_path / "few.csv"
+    few.write_text("u_px,v_px,x_m,y_m\n1,2,0,0\n5,6,1,0\n9,3,0,1\n")
+    assert main(["register", *args, "--points", str(few)]) == 3
+    broken = tmp_path / "clip.mp4"
+    broken.write_bytes(b"\x00" * 64)
+    assert main(["register", str(broken), "--field", str(still / "field.toml"), "-o",
+                 str(out), "--quiet"]) == 2
+    blank = tmp_path / "blank.png"
+    cv2.imwrite(str(blank), np.full((720, 1280), 128, np.uint8))
+    assert main(["register", str(blank), "--field", str(still / "field.toml"), "-o",
+                 str(out), "--quiet"]) == 3
+    assert not out.exists()
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".out")]

@@ -146,6 +146,32 @@ class FloorPatchTracker:
         """Corners held."""
         return len(self.ref_px)
 
+    def is_unmoved(self, grey, previous_px, *, tolerance_px=0.1, n_check=120):
+        """Cheap test that the view has not moved since ``previous_px`` were found.
+
+        A spread subset of the corners is tracked with one pyramid level and a small
+        window from the reference straight into ``grey``; the view counts as unmoved when
+        their median shift from ``previous_px`` is below ``tolerance_px`` and three
+        quarters are within three times that.
+        """
+        prev = np.asarray(previous_px, float)
+        idx = np.nonzero(np.all(np.isfinite(prev), axis=1))[0]
+        if len(idx) < 12:
+            return False
+        idx = idx[np.linspace(0, len(idx) - 1, min(n_check, len(idx))).round().astype(int)]
+        p0 = self.ref_px[idx].astype(np.float32).reshape(-1, 1, 2)
+        start = prev[idx].astype(np.float32).reshape(-1, 1, 2)
+        crit = (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 10, 0.01)
+        p1, st, _err = cv2.calcOpticalFlowPyrLK(self.ref, grey, p0, start.copy(),
+                                                winSize=(15, 15), maxLevel=0, criteria=crit,
+                                                flags=cv2.OPTFLOW_USE_INITIAL_FLOW)
+        ok = st.ravel() == 1
+        if ok.sum() < 0.6 * len(idx):
+            return False
+        shift = np.linalg.norm(p1.reshape(-1, 2)[ok] - prev[idx][ok], axis=1)
+        return bool(np.median(shift) < tolerance_px
+                    and np.percentile(shift, 75) < 3 * tolerance_px)
+
     def locate(self, grey, H_guess=None, *, ignore=None, max_err=None):
         """Where the reference corners are in ``grey``.
 

@@ -805,6 +805,13 @@ class FloorRegistrar:
                           ref.dist_coeffs)
         last = self._last if self._last is not None and self._last.ok else ref
         tr = self._tracker
+        # Cheap check first: the view has not moved since the last registered frame.
+        prev_px = tr.ref_px if last is ref else self._last_found
+        if prev_px is not None and tr.is_unmoved(grey, prev_px,
+                                                 tolerance_px=self.static_tolerance_px):
+            reg = replace(last, t_s=float(t_s), method="static")
+            self._last = reg
+            return reg
         # Predicted map reference pixels -> this frame, from the last registration.
         pred = last.floor_to_image(self._floor_ref)
         ok_pred = np.all(np.isfinite(pred), axis=1)
@@ -813,17 +820,6 @@ class FloorRegistrar:
             h_guess, _ = cv2.findHomography(tr.ref_px[ok_pred], pred[ok_pred], 0)
         found, ok = tr.locate(grey, h_guess, ignore=ignore)
         ok &= np.all(np.isfinite(self._floor_ref), axis=1)
-        if ok.sum() >= self.min_tracked:
-            # The view has not moved (against the last registered frame): keep it.
-            prev_px = tr.ref_px if last is ref else self._last_found
-            both = ok & np.all(np.isfinite(prev_px), axis=1)
-            if both.sum() >= self.min_tracked:
-                shift = np.linalg.norm(found[both] - prev_px[both], axis=1)
-                if np.median(shift) < self.static_tolerance_px and (
-                        np.percentile(shift, 75) < 3 * self.static_tolerance_px):
-                    reg = replace(last, t_s=float(t_s), method="static")
-                    self._last = reg
-                    return reg
         source = "tracked"
         if ok.sum() < self.min_tracked:
             # Lost: try the floor fiducials, then feature matching.

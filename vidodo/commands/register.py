@@ -1,0 +1,155 @@
+"""``vidodo register``: check one video's floor registration and write a preview."""
+
+from __future__ import annotations
+
+import csv
+import math
+import sys
+from pathlib import Path
+
+import cv2
+import numpy as np
+
+from .. import grid, register
+from ..errors import InputError
+from ..lens import IMAGE_SUFFIXES, read_image
+from ..outputs import staged_dir
+from ..profiles import load_camera, load_field
+
+NAME = "register"
+HELP = "check the floor registration of a video; write a grid preview and per-frame errors"
+DESCRIPTION = (
+    "Register the floor of every frame of VIDEO (or one still image) to the field profile "
+    "(floor markers, a points CSV, or the automatic tile grid), print the quality report, "
+    "and write OUT/preview.png (the fitted grid drawn over the reference frame) and "
+    "OUT/registration.csv (per frame: error in pixels and floor millimetres, method, "
+    "reason when a frame could not be registered). Exit 2 for unreadable input or a bad "
+    "points file, 3 when the reference frame cannot be registered."
+)
+
+CSV_COLUMNS = ("t_s", "ok", "method", "rms_px", "rms_floor_mm", "n_points", "focal_px",
+               "camera_x_m", "camera_y_m", "camera_z_m", "reason")
+
+
+def add_arguments(parser):
+    parser.add_argument("video", type=Path, help="the video (or one still image) to check")
+    parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
+    parser.add_argument("--camera", type=Path, default=None,
+                        help="camera profile from 'vidodo lens' (default: estimate)")
+    parser.add_argument("--method", choices=register.METHODS, default="auto",
+                        help="reference registration: floor markers, points CSV or the "
+                             "automatic tile grid (auto: markers if seen, else grid)")
+    parser.add_argument("--points", type=Path, default=None,
+                        help="CSV u_px,v_px,x_m,y_m of the first frame (implies --method "
+                             "points)")
+    parser.add_argument("--max-frames", type=int, default=0,
+                        help="register at most this many frames (0: all)")
+    parser.add_argument("--max-rms-px", type=float, default=3.0,
+                        help="refuse a fit whose residual is above this [px]")
+    parser.add_argument("-o", "--out", type=Path, default=None,
+                        help="output folder (default: <video name>-register beside it)")
+
+
+def _frames(path: Path, max_frames: int):
+    if path.suffix.lower() in IMAGE_SUFFIXES:
+        yield 0.0, read_image(path)
+        return
+    from ..video import VideoReader
+
+    with VideoReader(path, threaded=True) as reader:
+        for i, t_s, frame in reader:
+            yield t_s, frame
+            if max_frames and i + 1 >= max_frames:
+                return
+
+
+def run(args) -> int:
+    field = load_field(args.field)
+    camera = load_camera(args.camera) if args.camera else None
+    method = "points" if args.points is not None else args.method
+    registrar = register.FloorRegistrar(field, camera, method=method,
+                                        points_csv=args.points, max_rms_px=args.max_rms_px)
+    out = args.out or args.video.with_name(args.video.stem + "-register")
+    if not args.video.exists():
+        raise InputError(f"{args.video}: not found; check the path")
+    regs = []
+    ref_frame = None
+    progress = None
+    if not args.quiet:
+        from tqdm import tqdm
+        progress = tqdm(unit="frame", file=sys.stderr, leave=False, desc="register")
+    try:
+        for t_s, frame in _frames(args.video, args.max_frames):
+            if ref_frame is None:
+                # The reference: refuse clearly (CalibrationError, exit 3) if it fails.
+                reg = registrar.register_reference(frame, t_s)
+                ref_frame = frame
+            else:
+                reg = registrar.register(frame, t_s)
+            regs.append(reg)
+            if progress is not None:
+                progress.update(1)
+    finally:
+        if progress is not None:
+            progress.close()
+    if not regs:
+        raise InputError(f"{args.video}: no frame could be read")
+    ref = regs[0]
+    seams = None
+    try:
+        seams = grid.seam_samples(cv2.cvtColor(ref_frame, cv2.COLOR_BGR2GRAY)
+                                  if ref_frame.ndim == 3 else ref_frame, field, ref,
+                                  half_width_px=4.0)[0]
+    except (ValueError, cv2.error):
+        seams = None
+    preview = grid.draw_registration(ref_frame, ref, field, seams=seams)
+    quality = register.summarise(regs)
+    with staged_dir(out) as stage:
+        if not cv2.imwrite(str(stage / "preview.png"), preview):
+            raise InputError(f"{out}: cannot write preview.png there")
+        with open(stage / "registration.csv", "w", newline="") as fh:
+            w = csv.DictWriter(fh, fieldnames=CSV_COLUMNS)
+            w.writeheader()
+            for r in regs:
+                row = r.summary()
+                w.writerow({k: _fmt(row[k]) for k in CSV_COLUMNS})
+    for line in report_lines(ref, quality, camera):
+        print(line)
+    print(f"wrote {out / 'preview.png'} and {out / 'registration.csv'}")
+    return 0
+
+
+def _fmt(v):
+    if isinstance(v, float):
+        return "" if not math.isfinite(v) else f"{v:.6g}"
+    if isinstance(v, bool | np.bool_):
+        return "true" if v else "false"
+    return v
+
+
+def report_lines(ref, quality, camera) -> list[str]:
+    """The quality report as printed lines."""
+    k = ref.camera_matrix
+    c = ref.camera_centre_m
+    d = ref.dist_coeffs
+    lines = [
+        f"reference frame (t = {ref.t_s:.3f} s): registered by {ref.method}, "
+        f"{ref.n_points} observations",
+        f"  residual {ref.rms_px:.3f} px RMS, {ref.rms_floor_m * 1e3:.2f} mm RMS on the floor",
+        f"  camera at x {c[0]:.3f} m, y {c[1]:.3f} m, height {c[2]:.3f} m",
+        f"  focal length {k[0, 0]:.1f} px ({'camera profile' if camera else 'estimated'}),"
+        f" distortion k1 {d[0]:.4f}, k2 {d[1]:.4f}"
+        + ("" if camera or abs(d[0]) > 0 else " (none modelled)"),
+        f"frames: {quality.n_ok} of {quality.n_frames} registered; methods "
+        + ", ".join(f"{m} {n}" for m, n in sorted(quality.methods.items())),
+    ]
+    if quality.n_ok:
+        lines.append(f"  per-frame residual: median {quality.rms_px_median:.3f} px, worst "
+                     f"{quality.rms_px_max:.3f} px; median {quality.rms_floor_mm_median:.2f} "
+                     f"mm, worst {quality.rms_floor_mm_max:.2f} mm on the floor")
+    for t_s, why in quality.failed[:10]:
+        lines.append(f"  not registered at t = {t_s:.3f} s: {why}")
+    if len(quality.failed) > 10:
+        lines.append(f"  ... and {len(quality.failed) - 10} more frames not registered")
+    lines += [f"warning: {w}" for w in ref.warnings]
+    return lines
