@@ -34,11 +34,12 @@ def _robot():
     return RobotProfile("test", 0.4, 0.4, 0.3, (), wheels, "t", imu=Imu("h"))
 
 
-def _run(faults=(), seed=0, duration_s=10.0):
+def _run(faults=(), seed=0, duration_s=10.0, sigma_m=SIGMA_M):
     """Body and wheels at 1 kHz; truth at 30 fps with noise; log at 100 Hz.
 
     Faults, by construction: 'stall' (body stops, drive wheels keep turning, tracking
-    wheels stop with the body), 'push' (body slides sideways at 0.2 m/s on average,
+    wheels stop with the body), 'soft_stall' (the same, the body slowing at 3 m/s^2),
+    'push' (body slides sideways at 0.2 m/s on average,
     raised-cosine profile, while nothing is commanded: drive wheels still), 'lift'
     (pod_l reads nothing), 'jump' (IMU heading steps by 4 deg and stays).
     """
@@ -65,6 +66,13 @@ def _run(faults=(), seed=0, duration_s=10.0):
             body[m, 1] = 0.2 * (1 - np.cos(ph))
             rim[m, :2] = 0.0
             rim[m, 2:] = twist_to_rim(robot.wheels[2:], body[m])
+        elif kind == "soft_stall":
+            # body speed falls at 3 m/s^2 from its value at t0, then stays at 0
+            v0 = float(np.interp(t0, t, body[:, 0]))
+            slow = np.clip(v0 - 3.0 * (t[m] - t0), 0.0, None)
+            body[m, 0] = slow
+            body[m, 2] *= slow / max(v0, 1e-9)
+            rim[m, 2:] = twist_to_rim(robot.wheels[2:], body[m])
         elif kind == "lift":
             rim[m, 2] = 0.0
         elif kind == "jump":
@@ -74,10 +82,10 @@ def _run(faults=(), seed=0, duration_s=10.0):
     n = tv.size
     truth = pd.DataFrame({
         "t_s": tv,
-        "x_m": np.interp(tv, t, pose[:, 0]) + rng.normal(0, SIGMA_M, n),
-        "y_m": np.interp(tv, t, pose[:, 1]) + rng.normal(0, SIGMA_M, n),
+        "x_m": np.interp(tv, t, pose[:, 0]) + rng.normal(0, sigma_m, n),
+        "y_m": np.interp(tv, t, pose[:, 1]) + rng.normal(0, sigma_m, n),
         "heading_rad": np.interp(tv, t, pose[:, 2]) + rng.normal(0, SIGMA_RAD, n),
-        "sigma_xy_m": SIGMA_M, "sigma_heading_rad": SIGMA_RAD,
+        "sigma_xy_m": sigma_m, "sigma_heading_rad": SIGMA_RAD,
         "detected": True, "interpolated": False})
     tl = np.arange(0.0, duration_s, 0.01)
     cum = np.vstack([np.zeros((1, rim.shape[1])), np.cumsum(rim[:-1] * dt, axis=0)])
@@ -230,3 +238,21 @@ def test_missing_inputs_are_warned_not_invented():
     joined = " ".join(res.warnings)
     assert "wheel slip and shove not checked" in joined
     assert "heading jumps not checked" in joined
+
+
+def test_soft_stall_is_an_impact_when_the_wheels_slip():
+    """The body slows at 3 m/s^2 to a stop while the drive wheels keep turning.
+
+    3 m/s^2 is below the plain 4 m/s^2 impact floor (a robot may brake that hard by
+    itself), but the drive wheels slip from the same moment, so the stop was not
+    commanded: one impact and one wheel slip, both starting at 6.3 s. The truth noise
+    is 0.5 mm here: with 1.5 mm a 3 m/s^2 stop is within 5 sigma of the
+    deceleration's noise over two frames, and is rightly not claimed.
+    """
+    robot, truth, travel, imu = _run([("soft_stall", 6.3, 6.9)], seed=7, sigma_m=0.0005)
+    res = detect_events(truth, travel, robot, imu_heading=imu)
+    imp = _one(res, "impact")
+    assert imp.t_start_s == pytest.approx(6.3, abs=0.1)
+    assert imp.magnitude < 4.0
+    slip = _one(res, "wheel_slip")
+    assert slip.t_start_s == pytest.approx(6.3, abs=0.1)

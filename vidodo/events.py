@@ -19,7 +19,9 @@ Signals (all on the truth track's sample times, video clock)
   1.4826 * MAD estimate, common practice).
 * **Deceleration.** Second difference of truth position over ``impact_window_s``
   (default 0.067 s, two frames at 30 fps), projected on the direction of travel just
-  before; 1-sigma ``sqrt(6) * sigma_xy / W^2``.
+  before; 1-sigma ``sqrt(6) * sigma_xy / W^2``, checked against the data from the
+  spread of its sample-to-sample changes (so the robot's own braking is not taken
+  for noise).
 * **Heading error.** IMU heading minus truth heading, differenced over
   ``heading_window_s``.
 
@@ -41,8 +43,8 @@ Kinds
     A tracking (unpowered) wheel disagrees with the truth by the same two tests while
     every drive wheel agrees. Magnitude: rim travel the wheel missed [m].
 ``impact``
-    Deceleration above ``max(k_on sigma_a, impact_decel_min)``. Magnitude: peak
-    deceleration [m/s^2].
+    Deceleration above ``max(k_on sigma_a, impact_decel_min)``, outside shoves (a push
+    accelerates and stops the body by itself). Magnitude: peak deceleration [m/s^2].
 ``heading_jump``
     The IMU-minus-truth heading changes by more than ``max(k_on sigma, 1.5 deg)``
     within ``heading_window_s``. Magnitude: the change over the event [rad].
@@ -63,7 +65,9 @@ Defaults and why
   under that; a push is faster.
 * ``impact_decel_min = 4 m/s^2``: above the 1-2 m/s^2 that small robots use to
   accelerate and brake under control, below the 10+ m/s^2 of hitting a wall at
-  0.5 m/s (stopping in under 50 ms).
+  0.5 m/s (stopping in under 50 ms). A smoothed truth track spreads such a stop over
+  several frames and lowers its peak, so within 0.15 s of a wheel-slip onset (the
+  wheels went on turning: the stop was not commanded) 2.5 m/s^2 is enough.
 * ``1.5 deg`` heading jump: below that, the cross-track error it causes over a metre
   (26 mm) is within what tile-floor odometry drifts anyway.
 * Minimum durations (0.1 s for slip, shove and pod lift) remove single-window
@@ -118,6 +122,8 @@ class EventSettings:
     """Step of the second difference for deceleration [s]."""
     impact_decel_min_mps2: float = 4.0
     """Least deceleration reported as an impact [m/s^2]."""
+    impact_decel_with_slip_mps2: float = 2.5
+    """Least deceleration reported as an impact within 0.15 s of a wheel-slip onset."""
     heading_window_s: float = 0.2
     """Window of the heading-error change [s]."""
     heading_jump_min_rad: float = math.radians(1.5)
@@ -533,7 +539,9 @@ def detect_events(truth, wheel_travel, robot, *, imu_heading=None, source_poses=
     elif any(not w.powered for w in robot.wheels):
         warn.append("pod lift not checked: no tracking-wheel counts in the log")
 
-    _impacts(tr, t, pose_t, st, noise, add)
+    slip_onsets = [e.t_start_s for e in events if e.kind == "wheel_slip"]
+    shoves = [(e.t_start_s, e.t_end_s) for e in events if e.kind == "shove"]
+    _impacts(tr, t, pose_t, st, noise, add, slip_onsets, shoves)
 
     if imu_heading is not None and len(imu_heading) >= 10:
         _heading_jumps(tr, t, pose_t, imu_heading, st, noise, add)
@@ -563,7 +571,7 @@ def _parallel_plain(wheels):
     return plain and len(dirs) == 1
 
 
-def _impacts(tr, t, pose_t, st, noise, add):
+def _impacts(tr, t, pose_t, st, noise, add, slip_onsets=(), shoves=()):
     w = st.impact_window_s
     pm, p0, pp = tr.pose(t - w), pose_t, tr.pose(t + w)
     acc = (pp[:, :2] - 2 * p0[:, :2] + pm[:, :2]) / w**2
@@ -576,9 +584,16 @@ def _impacts(tr, t, pose_t, st, noise, add):
         dirv = vel / sp[:, None]
         decel = -(acc * dirv).sum(axis=1)
     decel[sp < 3 * sig_v] = np.nan
-    ks = _robust_scale(decel / sig_a)
+    # noise check on sample-to-sample changes: the robot's own (slow) accelerations
+    # must not count as noise, the jitter of a noisy track must
+    ks = _robust_scale(np.diff(decel / sig_a) / math.sqrt(2.0))
     noise["deceleration"] = ks
-    level = np.maximum(st.k_on * sig_a * ks, st.impact_decel_min_mps2)
+    floor = np.full(len(t), st.impact_decel_min_mps2)
+    for ts in slip_onsets:
+        # the drive wheels went on turning as the body stopped: the deceleration was
+        # not commanded, so a smaller one is enough
+        floor[np.abs(t - ts) <= 0.15] = st.impact_decel_with_slip_mps2
+    level = np.maximum(st.k_on * sig_a * ks, floor)
     score = decel / level
     for a, b in hysteresis(t, score, on=1.0, off=0.5, min_duration_s=0.0,
                            merge_gap_s=st.merge_gap_s):
@@ -597,6 +612,8 @@ def _impacts(tr, t, pose_t, st, noise, add):
         v0 = float(np.nanmax(sp[max(a - 3, 0):a + 1])) if np.isfinite(
             sp[max(a - 3, 0):a + 1]).any() else 0.0
         onset = tk - min(0.5 * v0 / float(decel[k]), w)
+        if any(a0 <= tk <= b0 for a0, b0 in shoves):
+            continue  # the body being pushed: its acceleration belongs to the shove
         add("impact", onset, max(t[b], tk), float(decel[k]), "m/s^2",
             f"speed before {v0:.2f} m/s")
 
