@@ -10,6 +10,7 @@ References used here:
   pixels (pinhole similar triangles, common practice).
 """
 
+import dataclasses
 import math
 
 import cv2
@@ -195,7 +196,7 @@ def test_motion_blur_ramp_matches_travel_during_exposure():
     def profile(exp):
         img = next(iter(render_frames(field, robot, cam, frame_times_s=[0.0], pose_at=pose_at,
                                       camera_pose_at=lambda t: (rvec, tvec), exposure_s=exp,
-                                      noise_sigma=0.0, seed=0)))
+                                      noise_sigma=0.0, seed=0, contact_shadow=0.0)))
         return img[225:256, :, 0].astype(float).mean(axis=0)  # blue: chassis vs grey floor
 
     sharp, blurred = profile(0.0), profile(exposure)
@@ -279,3 +280,33 @@ def test_robot_right_under_the_camera_fills_the_view():
     img = _static_frame(cam, FieldProfile(4, 4, 0.6096), robot, np.zeros(3), rvec, tvec)
     chassis = np.all(np.abs(img.astype(float) - CHASSIS_BGR) < 2, axis=2)
     assert chassis.mean() > 0.95
+
+
+def test_robot_changes_only_pixels_inside_its_projected_outline():
+    """Rendered with and without the robot, frames differ only inside the convex hull
+    of the chassis, mast and plate corners projected by cv2.projectPoints (+1 px)."""
+    cam = CameraProfile(320, 240, 280.0, 280.0, 160.0, 120.0, DIST)
+    field = FieldProfile(4, 4, 0.6096)
+    robot = _robot(z_m=0.45, yaw_rad=0.4)
+    rvec, tvec = _look_at(np.array([1.2, -0.4, 1.4]), [1.2, 1.0, 0.0])
+    pose = np.array([1.1, 1.0, 0.7])
+    kw = {"contact_shadow": 0.0}
+    with_robot = _static_frame(cam, field, robot, pose, rvec, tvec, **kw)
+    without = _static_frame(cam, field, robot, np.array([50.0, 50.0, 0.0]), rvec, tvec, **kw)
+    m = robot.markers[0]
+    # the plate: 4 x 4 data + black border = 6 modules, plus 1 white module each side
+    plate = _marker_corners_floor(dataclasses.replace(m, size_m=m.size_m * 8 / 6), pose)
+    hl, hw = robot.length_m / 2, robot.width_m / 2
+    # chassis box, and the same outline up to the plate (covers the mast)
+    box = np.array([[x, y, z] for x in (-hl, hl) for y in (-hw, hw)
+                    for z in (0.0, robot.height_m, m.z_m)])
+    c, s = math.cos(pose[2]), math.sin(pose[2])
+    box_floor = box[:, :2] @ np.array([[c, s], [-s, c]]) + pose[:2]
+    pts = np.vstack([plate, np.column_stack([box_floor, box[:, 2]])])
+    hull = cv2.convexHull(cv2.projectPoints(pts, rvec, tvec, cam.matrix,
+                                            cam.dist_coeffs)[0][:, 0].astype(np.float32))
+    changed = np.argwhere(np.any(with_robot != without, axis=2))
+    dist = np.array([cv2.pointPolygonTest(hull, (float(u), float(v)), True)
+                     for v, u in changed])
+    assert changed.shape[0] > 500
+    assert dist.min() > -1.5

@@ -47,7 +47,16 @@ from .render_floor import (
     sample_floor,
     texel_coords,
 )
-from .render_robot import cast, face_brightness, part_corners, resolve, robot_parts
+from .render_robot import (
+    SHADOW_DEPTH,
+    cast,
+    face_brightness,
+    floor_light,
+    part_corners,
+    resolve,
+    robot_parts,
+    shadow_corners,
+)
 
 __all__ = ["render_frames", "camera_rays", "floor_points"]
 
@@ -207,17 +216,19 @@ def _to_floor(points_body, poses):
 
 
 def _image_boxes(parts, poses, cam_poses, camera):
-    """Pixel bounding box (u0, v0, u1, v1) of every part over the poses, shape (P, 4).
+    """Pixel bounding box (u0, v0, u1, v1) of every part over the poses, shape (P + 1, 4).
+
+    Boxes, then plates, then the floor patch of the contact shadow.
 
     A part with a corner behind (or almost at) the camera gets the whole image.
     """
-    corners = [part_corners(p) for p in parts.boxes + parts.plates]
+    corners = [part_corners(p) for p in parts.boxes + parts.plates] + [shadow_corners(parts)]
     body = np.concatenate(corners)
     pts = _to_floor(body, poses)
     n_pose, n_pt = len(poses), len(body)
     full = np.array([0.0, 0.0, camera.width_px, camera.height_px])
     boxes = np.tile([np.inf, np.inf, -np.inf, -np.inf], (len(corners), 1))
-    owner = np.repeat(np.arange(len(corners)), 8)
+    owner = np.repeat(np.arange(len(corners)), [len(c) for c in corners])
     for rvec, tvec in cam_poses:
         zc = (pts @ cv2.Rodrigues(rvec)[0].T + tvec)[:, 2].reshape(n_pose, n_pt)
         uv = cv2.projectPoints(pts, rvec, tvec, camera.matrix,
@@ -246,6 +257,9 @@ def _draw_robot(frame, parts, rays, cam, camera, t_frame, pose_at, exposure_s, k
     pad = 2
     boxes = np.column_stack([np.floor(boxes[:, :2]) - pad, np.ceil(boxes[:, 2:]) + pad + 1])
     boxes = np.clip(boxes, 0, [w, h, w, h]).astype(int)
+    if parts.shadow_depth > 0:
+        _shade_floor(frame, parts, rays, cam, camera, t_frame, pose_at, boxes[-1])
+    boxes = boxes[:-1]
     c0, r0 = boxes[:, 0].min(), boxes[:, 1].min()
     c1, r1 = boxes[:, 2].max(), boxes[:, 3].max()
     if c1 <= c0 or r1 <= r0:
@@ -264,6 +278,35 @@ def _draw_robot(frame, parts, rays, cam, camera, t_frame, pose_at, exposure_s, k
         drawn |= _cast_rows(frame, parts, rays, cam, camera, t_frame, pose_at, exposure_s,
                             offs, frac, (a, b, c0, c1), windows)
     return drawn
+
+
+def _shade_floor(frame, parts, rays, cam, camera, t_frame, pose_at, box):
+    """Darken the floor around the chassis (contact shadow), one ray per pixel centre.
+
+    The shadow is soft (centimetres), so the robot pose at each row's mid-exposure
+    read time stands in for the exposure and the pixel area.
+    """
+    c0, r0, c1, r1 = (int(v) for v in box)
+    if c1 <= c0 or r1 <= r0:
+        return
+    win = (slice(r0, r1), slice(c0, c1))
+    rt, centre = cam.rows(r0, r1)
+    dfx, dfy, dfz = _floor_dirs(rt, rays.xn[win], rays.yn[win])
+    t_rows = t_frame + np.arange(r0, r1) / camera.height_px * camera.readout_s
+    pose = _checked_poses(pose_at, t_rows)
+    cth, sth = np.cos(pose[:, 2])[:, None], np.sin(pose[:, 2])[:, None]
+    cen = np.broadcast_to(centre, (r1 - r0, 3))
+    rel_x = cen[:, 0, None] - pose[:, 0, None]
+    rel_y = cen[:, 1, None] - pose[:, 1, None]
+    origin = ((cth * rel_x + sth * rel_y).astype(np.float32),
+              (cth * rel_y - sth * rel_x).astype(np.float32),
+              cen[:, 2, None].astype(np.float32))
+    cth, sth = cth.astype(np.float32), sth.astype(np.float32)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        light = floor_light(parts, origin, (cth * dfx + sth * dfy, cth * dfy - sth * dfx, dfz))
+    light = np.where(dfz < 0, light, np.float32(1))
+    frame[win] = np.minimum(frame[win] * light[..., None] + np.float32(0.5), 255).astype(
+        np.uint8)
 
 
 def _cast_rows(frame, parts, rays, cam, camera, t_frame, pose_at, exposure_s, offs, frac,
@@ -431,7 +474,8 @@ def render_frames(field: FieldProfile, robot: RobotProfile, camera: CameraProfil
                   frame_times_s, pose_at: Callable, camera_pose_at: Callable,
                   exposure_s: float, noise_sigma: float, seed: int, floor_seed: int = 0,
                   samples_per_px: int | None = None, floor_texel_m: float | None = None,
-                  quiet_modules: int = 1) -> Iterator[np.ndarray]:
+                  quiet_modules: int = 1,
+                  contact_shadow: float = SHADOW_DEPTH) -> Iterator[np.ndarray]:
     """Render the frames of a synthetic run, one at a time.
 
     Parameters
@@ -466,6 +510,9 @@ def render_frames(field: FieldProfile, robot: RobotProfile, camera: CameraProfil
         Floor texture resolution [m]; default from the finest floor footprint in view.
     quiet_modules : int
         White border around each printed marker [modules].
+    contact_shadow : float
+        Darkening of the floor at the chassis edge, fading over a few centimetres
+        (ambient occlusion under the robot); 0 for none.
 
     Yields
     ------
@@ -481,7 +528,7 @@ def render_frames(field: FieldProfile, robot: RobotProfile, camera: CameraProfil
         raise InputError("render: samples_per_px must be at least 1")
     return _frames(field, robot, camera, times, pose_at, camera_pose_at, float(exposure_s),
                    float(noise_sigma), int(seed), int(floor_seed), samples_per_px,
-                   floor_texel_m, quiet_modules)
+                   floor_texel_m, quiet_modules, contact_shadow)
 
 
 def _checked_camera_pose(camera_pose_at, t):
@@ -525,9 +572,9 @@ def _noise_table(sigma):
 
 
 def _frames(field, robot, camera, times, pose_at, camera_pose_at, exposure_s, noise_sigma,
-            seed, floor_seed, samples_per_px, floor_texel_m, quiet_modules):
+            seed, floor_seed, samples_per_px, floor_texel_m, quiet_modules, contact_shadow):
     rays = camera_rays(camera)
-    parts = robot_parts(robot, quiet_modules)
+    parts = robot_parts(robot, quiet_modules, contact_shadow)
     lut = _noise_table(noise_sigma) if noise_sigma > 0 else None
     shape = (camera.height_px, camera.width_px, 3)
     tex = None

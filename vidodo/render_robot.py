@@ -25,8 +25,8 @@ from .errors import InputError
 from .profiles import RobotProfile
 from .render_floor import plate_modules
 
-__all__ = ["RobotParts", "robot_parts", "part_corners", "face_brightness", "cast", "resolve",
-           "CHASSIS_BGR", "MAST_BGR", "MAST_SIDE_M"]
+__all__ = ["RobotParts", "robot_parts", "part_corners", "shadow_corners", "face_brightness",
+           "floor_light", "cast", "resolve", "CHASSIS_BGR", "MAST_BGR", "MAST_SIDE_M"]
 
 CHASSIS_BGR = (150.0, 96.0, 52.0)
 """Albedo of the robot's chassis (a blue plastic) as an upward face shows it."""
@@ -38,6 +38,10 @@ LIGHT_DIR = np.array([0.35, 0.50, 0.79]) / np.linalg.norm([0.35, 0.50, 0.79])
 """Direction towards the main light in the floor frame (above, from +x +y)."""
 AMBIENT = 0.45
 """Share of light that reaches every face whatever its direction."""
+SHADOW_DEPTH = 0.35
+"""Default contact-shadow darkening at the chassis edge (chosen for looks)."""
+SHADOW_RADIUS_M = 0.03
+"""Contact-shadow fall-off distance [m] (chosen for looks)."""
 
 
 @dataclass(frozen=True)
@@ -77,14 +81,25 @@ class RobotParts:
     plates: tuple
     albedos: tuple
     """BGR albedo per material 1, 2, ... (the plates use material ``len(albedos)``)."""
+    half_length_m: float = 0.0
+    """Half the chassis length (its footprint on the floor) [m]."""
+    half_width_m: float = 0.0
+    """Half the chassis width [m]."""
+    shadow_depth: float = 0.0
+    """Darkening of the floor right at the chassis edge (0: no contact shadow)."""
+    shadow_radius_m: float = SHADOW_RADIUS_M
+    """Distance over which the contact shadow fades by 1/e [m]."""
 
 
-def robot_parts(robot: RobotProfile, quiet_modules: int = 1) -> RobotParts:
+def robot_parts(robot: RobotProfile, quiet_modules: int = 1,
+                shadow_depth: float = SHADOW_DEPTH) -> RobotParts:
     """Chassis box, masts and marker plates of a robot, in its body frame.
 
     The chassis spans ``[-L/2, L/2] x [-W/2, W/2] x [0, H]``. Each marker is a plate
     at height ``z_m`` with a white quiet zone of ``quiet_modules`` modules; a marker
-    higher than the chassis stands on a square mast from the chassis top.
+    higher than the chassis stands on a square mast from the chassis top. The floor
+    around the chassis is darkened by ``shadow_depth * exp(-d / SHADOW_RADIUS_M)`` at
+    distance ``d`` from its footprint (ambient occlusion under a robot).
     """
     hl, hw = 0.5 * robot.length_m, 0.5 * robot.width_m
     boxes = [Box((-hl, -hw, 0.0), (hl, hw, robot.height_m), 1)]
@@ -105,7 +120,15 @@ def robot_parts(robot: RobotProfile, quiet_modules: int = 1) -> RobotParts:
             s = 0.5 * MAST_SIDE_M
             boxes.append(Box((m.x_m - s, m.y_m - s, robot.height_m),
                              (m.x_m + s, m.y_m + s, m.z_m - 1e-4), 2))
-    return RobotParts(tuple(boxes), tuple(plates), (CHASSIS_BGR, MAST_BGR, (1.0, 1.0, 1.0)))
+    return RobotParts(tuple(boxes), tuple(plates), (CHASSIS_BGR, MAST_BGR, (1.0, 1.0, 1.0)),
+                      hl, hw, float(shadow_depth))
+
+
+def shadow_corners(parts: RobotParts) -> np.ndarray:
+    """Body-frame corners of the floor patch the contact shadow darkens, shape (4, 3) [m]."""
+    reach = 4.0 * parts.shadow_radius_m if parts.shadow_depth > 0 else 0.0
+    hl, hw = parts.half_length_m + reach, parts.half_width_m + reach
+    return np.array([[-hl, -hw, 0.0], [-hl, hw, 0.0], [hl, -hw, 0.0], [hl, hw, 0.0]])
 
 
 def part_corners(part) -> np.ndarray:
@@ -184,12 +207,34 @@ def cast(parts: RobotParts, origin, direction, inverse, sides, windows):
         else:
             t, value = _hit_plate(part, o, d, inv[2])
         # a plate lying flush on a box top wins the tie (float rounding of two planes)
-        hit = t < best[win] if j < n_box else t <= best[win] * np.float32(1 + 1e-5)
+        if j < n_box:
+            hit = t < best[win]
+        else:
+            hit = (t <= best[win] * np.float32(1 + 1e-5)) & (t < np.inf)
         np.copyto(best[win], t, where=hit)
         np.copyto(shade[win], value, where=hit)
         np.copyto(material[win], part.material if j < n_box else len(parts.albedos),
                   where=hit)
     return material, shade
+
+
+def floor_light(parts: RobotParts, o, d):
+    """Brightness of the floor where each ray meets it: 1, less in the contact shadow.
+
+    Parameters
+    ----------
+    parts : RobotParts
+    o : tuple of 3 ndarray
+        Ray origin in the body frame [m].
+    d : tuple of 3 ndarray
+        Ray direction in the body frame (pointing down).
+    """
+    t = -o[2] / d[2]
+    ex = np.maximum(np.abs(o[0] + t * d[0]) - np.float32(parts.half_length_m), np.float32(0))
+    ey = np.maximum(np.abs(o[1] + t * d[1]) - np.float32(parts.half_width_m), np.float32(0))
+    dist = np.sqrt(ex * ex + ey * ey)
+    return np.float32(1) - np.float32(parts.shadow_depth) * np.exp(
+        dist * np.float32(-1.0 / parts.shadow_radius_m))
 
 
 def _hit_box(box: Box, o, inv, sides):
