@@ -310,3 +310,13 @@ def test_robot_changes_only_pixels_inside_its_projected_outline():
                      for v, u in changed])
     assert changed.shape[0] > 500
     assert dist.min() > -1.5
+
+
+def test_lens_that_cannot_be_inverted_is_refused():
+    """k1 = -2 folds the image edge back inwards (radial factor 1 - 2 r^2 turns at
+    r^2 = 1/6): no ray reprojects onto the corner pixels, so the camera is refused."""
+    from vidodo.errors import InputError
+
+    cam = CameraProfile(320, 240, 150.0, 150.0, 160.0, 120.0, (-2.0, 0.0, 0.0, 0.0, 0.0))
+    with pytest.raises(InputError, match="cannot be inverted"):
+        camera_rays(cam)

@@ -60,6 +60,8 @@ from .render_robot import (
 
 __all__ = ["render_frames", "camera_rays", "floor_points"]
 
+RAY_TOLERANCE_PX = 0.01
+"""Largest allowed reprojection error of an undistorted pixel ray [px]."""
 MAX_FLOOR_DISTANCE_M = 80.0
 """Rays that meet the floor farther than this see the backdrop [m]."""
 
@@ -92,6 +94,17 @@ def camera_rays(camera: CameraProfile) -> CameraRays:
     crit = (cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 100, 1e-12)
     und = cv2.undistortPoints(pts, camera.matrix, camera.dist_coeffs, None, np.eye(3),
                               np.eye(3), crit)
+    # the inverse must hold: rays projected by OpenCV land back on their pixels
+    back = cv2.projectPoints(np.column_stack([und[:, 0], np.ones(len(und))]), np.zeros(3),
+                             np.zeros(3), camera.matrix, camera.dist_coeffs)[0][:, 0]
+    err = np.hypot(*(back - pts[:, 0]).T)
+    if not np.all(err < RAY_TOLERANCE_PX):
+        i = int(np.nanargmax(np.where(np.isfinite(err), err, np.inf)))
+        raise InputError(
+            f"{camera.path or 'camera profile'}: the lens distortion cannot be inverted at "
+            f"pixel ({i % w}, {i // w}) (error {err[i]:.3g} px); check the distortion "
+            "coefficients"
+        )
     xn = und[:, 0, 0].reshape(h, w)
     yn = und[:, 0, 1].reshape(h, w)
     dxn = np.stack([np.gradient(xn, axis=1), np.gradient(xn, axis=0)]).astype(np.float32)
