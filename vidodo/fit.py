@@ -723,6 +723,7 @@ def _lever_display(w):
     ex, ey = e[0], e[1]
     n = ex * ex + ey * ey
     step = np.array([ey, -ex]) / n
+    step[np.abs(step) < 1e-12] = 0.0  # cos(90 deg) is 6e-17, not 0
     if abs(ey) < 1e-9:
         return "y_m", w.y_m, -1.0 / ex, step
     if abs(ex) < 1e-9:

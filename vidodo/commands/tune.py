@@ -69,17 +69,19 @@ def _grade_dir_run(folder: Path, robot_arg):
     clock = summary.get("clock", {})
     if "offset_s" not in clock:
         raise InputError(f"{summary_p}: no clock offset; re-grade the run")
-    drift = pd.read_csv(drift_p)
-    need = ["t_s", "truth_x_m", "truth_y_m", "truth_heading_rad"]
-    missing = [c for c in need if c not in drift.columns]
-    if missing:
-        raise InputError(f"{drift_p}: missing column(s) {missing}; re-grade the run")
-    truth = pd.DataFrame({
-        "t_s": drift["t_s"], "x_m": drift["truth_x_m"], "y_m": drift["truth_y_m"],
-        "heading_rad": drift["truth_heading_rad"]})
-    for c in ("sigma_xy_m", "sigma_heading_rad"):
-        if f"truth_{c}" in drift.columns:
-            truth[c] = drift[f"truth_{c}"]
+    if (folder / "track.csv").exists():  # the full truth track, with detection flags
+        from ..pipeline import read_track_csv
+
+        truth = read_track_csv(folder / "track.csv")
+    else:
+        drift = pd.read_csv(drift_p)
+        need = ["t_s", "truth_x_m", "truth_y_m", "truth_heading_rad", "truth_sigma_xy_m",
+                "truth_sigma_heading_rad"]
+        missing = [c for c in need if c not in drift.columns]
+        if missing:
+            raise InputError(f"{drift_p}: missing column(s) {missing}; re-grade the run")
+        truth = pd.DataFrame({c.removeprefix("truth_"): drift[c] for c in need[1:]})
+        truth.insert(0, "t_s", drift["t_s"])
     log_path = Path(log_path)
     if not log_path.is_absolute() and not log_path.exists():
         log_path = folder / log_path
