@@ -114,6 +114,11 @@ def robot_parts(robot: RobotProfile, quiet_modules: int = 1,
             ) from None
         n = modules.shape[0]
         module = m.size_m / (n - 2 * quiet_modules)
+        if m.z_m < robot.height_m - 1e-6 and abs(m.x_m) < hl and abs(m.y_m) < hw:
+            raise InputError(
+                f"robot profile: marker id {m.id} at z_m = {m.z_m} would be inside the "
+                f"chassis (height_m = {robot.height_m}); put it at or above the top"
+            )
         plates.append(Plate(m.x_m, m.y_m, m.z_m, m.yaw_rad, 0.5 * n * module, module,
                             modules))
         if m.z_m > robot.height_m + 1e-4:
