@@ -533,6 +533,9 @@ def fit_profile(runs, robot: RobotProfile, *, exclude_windows=None, window_s=0.4
     runs = list(runs)
     if not runs:
         raise InputError("fit_profile: no runs given; pass at least one graded run")
+    names = [r.name for r in runs]
+    if len(set(names)) != len(names):
+        raise InputError(f"fit_profile: run names must be unique, got {names}")
     extra = list(exclude_windows) if exclude_windows is not None else [()] * len(runs)
     if len(extra) != len(runs):
         raise InputError("fit_profile: exclude_windows needs one entry per run")

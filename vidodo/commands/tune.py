@@ -128,6 +128,11 @@ def _collect(args):
         else:
             raise InputError(f"{p}: not a grade folder, and not followed by a log file; "
                              "pass grade output folders or VIDEO LOG pairs")
+    seen: dict = {}
+    for spec, _log, _robot in specs:  # run names label table rows: keep them unique
+        n = seen[spec["name"]] = seen.get(spec["name"], 0) + 1
+        if n > 1:
+            spec["name"] = f"{spec['name']}-{n}"
     robots = {str(s[2].resolve()) for s in specs}
     if len(robots) > 1:
         raise InputError(f"tune: the runs were graded with different robot profiles "
