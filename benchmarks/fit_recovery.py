@@ -122,7 +122,8 @@ def part_rendered(seed: int, quick: bool) -> None:
         print(f"  {'value':34s} {'true':>10s} {'pinned':>7s} {'error':>12s}  within")
         for name, true, st, err, ok in recovery_rows(fit, exact, wrong, scale_error):
             tv = f"{true:.5f}" if isinstance(true, float) else str(true)
-            print(f"  {name:34s} {tv:>10s} {st:>7s} {err:>12s}  {'yes' if ok else 'NO'}")
+            verdict = "n/a" if ok is None else "yes" if ok else "NO"
+            print(f"  {name:34s} {tv:>10s} {st:>7s} {err:>12s}  {verdict}")
         tw = fit.table[fit.table["parameter"].str.contains("track_width")]
         for _, r in tw.iterrows():
             print(f"  {r['parameter']}: {r['identifiable']}, se {r['std_error'] * 1e3:.3f} mm"

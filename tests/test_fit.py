@@ -432,10 +432,11 @@ def grade_for_fit(folder, robot):
 
 
 def recovery_rows(fit, exact, wrong, scale_error):
-    """Per value: (name, true value text, identifiable, error text, within limits).
+    """Per value: (name, true value, identifiable, error text, within limits).
 
-    A value reported not identifiable counts as within when the corrected profile
-    leaves it at the exact value (the wrong profile did not touch it)."""
+    A value reported not identifiable is kept at the profile's value: within is True
+    when that is the exact value (the wrong profile did not touch it), None when the
+    run could not judge it (the profile's wrong value is kept, as it should be)."""
     tab = fit.table.set_index("parameter")
     fixed = fit.corrected_robot
     rows = []
@@ -449,7 +450,8 @@ def recovery_rows(fit, exact, wrong, scale_error):
             attr = name.split()[-1]
             if r["identifiable"] == "no":
                 ok = getattr(fixed.wheel(w.name), attr) == true
-                rows.append((name, true, "no", "held" if ok else "held, WRONG", ok))
+                rows.append((name, true, "no", "kept" if ok else "kept (was wrong)",
+                             ok or None))
                 continue
             err = r["estimate"] / true - 1.0 if rel else r["estimate"] - true
             text = f"{err * 100:+.3f} %" if rel else f"{err * 1e3:+.3f} mm"
@@ -458,7 +460,8 @@ def recovery_rows(fit, exact, wrong, scale_error):
     r = tab.loc["imu scale"]
     if r["identifiable"] == "no":
         ok = fixed.imu.scale == true_scale
-        rows.append(("imu scale", true_scale, "no", "held" if ok else "held, WRONG", ok))
+        rows.append(("imu scale", true_scale, "no", "kept" if ok else "kept (was wrong)",
+                     ok or None))
     else:
         err = r["estimate"] / true_scale - 1.0
         rows.append(("imu scale", true_scale, r["identifiable"], f"{err * 100:+.3f} %",
