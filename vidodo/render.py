@@ -63,7 +63,7 @@ __all__ = ["render_frames", "camera_rays", "floor_points"]
 RAY_TOLERANCE_PX = 0.01
 """Largest allowed reprojection error of an undistorted pixel ray [px]."""
 MAX_FLOOR_DISTANCE_M = 80.0
-"""Rays that meet the floor farther than this see the backdrop [m]."""
+"""Rays that meet the floor farther than this see the plain surround colour [m]."""
 
 
 # ---------------------------------------------------------------- camera rays
@@ -94,10 +94,14 @@ def camera_rays(camera: CameraProfile) -> CameraRays:
     crit = (cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 100, 1e-12)
     und = cv2.undistortPoints(pts, camera.matrix, camera.dist_coeffs, None, np.eye(3),
                               np.eye(3), crit)
-    # the inverse must hold: rays projected by OpenCV land back on their pixels
-    back = cv2.projectPoints(np.column_stack([und[:, 0], np.ones(len(und))]), np.zeros(3),
-                             np.zeros(3), camera.matrix, camera.dist_coeffs)[0][:, 0]
-    err = np.hypot(*(back - pts[:, 0]).T)
+    # the inverse must hold: rays projected by OpenCV land back on their pixels (in
+    # chunks: projectPoints also returns a Jacobian of 30 numbers per point)
+    err = np.empty(len(und))
+    for a in range(0, len(und), 65536):
+        chunk = und[a:a + 65536, 0]
+        back = cv2.projectPoints(np.column_stack([chunk, np.ones(len(chunk))]), np.zeros(3),
+                                 np.zeros(3), camera.matrix, camera.dist_coeffs)[0][:, 0]
+        err[a:a + len(chunk)] = np.hypot(*(back - pts[a:a + len(chunk), 0]).T)
     if not np.all(err < RAY_TOLERANCE_PX):
         i = int(np.nanargmax(np.where(np.isfinite(err), err, np.inf)))
         raise InputError(
