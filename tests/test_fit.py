@@ -299,6 +299,25 @@ def test_event_windows_are_left_out():
     assert fit_ok.n_windows["run"] < fit_bad.n_windows["run"]
 
 
+def test_inverted_imu_is_flagged_and_a_dead_wheel_left_out():
+    """An IMU read with the wrong sign is flagged and corrected; a wheel whose counts
+    never change while the truth moves it is left out with a warning, not fitted."""
+    true = pod_robot()
+    wrong = dataclasses.replace(true, imu=dataclasses.replace(true.imu, sign=-1))
+    run = constructed_run(true, profile=wrong, noise_xy_m=0.0005, noise_heading_rad=0.002,
+                          quantize=True)
+    log = run.log.copy()
+    log["ticks_back"] = np.where(np.arange(len(log)) % 2, 0.0, 1.0)  # chatter, no motion
+    fit = fit_profile([dataclasses.replace(run, log=log)], wrong)
+    assert "imu" in fit.inverted
+    assert fit.corrected_robot.imu.sign == 1
+    tab = fit.table.set_index("parameter")
+    assert abs(tab.loc["imu scale", "estimate"] - 1.0) < 1e-3
+    assert tab.loc["wheel back radius_m", "identifiable"] == "no"
+    assert any(w.startswith("wheel back:") and "not fitted" in w for w in fit.warnings)
+    assert fit.corrected_robot.wheel("back") == wrong.wheel("back")
+
+
 def test_too_little_data_is_a_measurement_error():
     from vidodo.errors import MeasurementError
 

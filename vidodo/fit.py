@@ -486,9 +486,39 @@ def _sandwich_cov(model: _Model, jd, jp, z, n_free):
 
 
 # --------------------------------------------------------------------- sign checks
-def _similarity(a, b):
-    den = math.sqrt(float(a @ a) * float(b @ b))
-    return float(a @ b) / den if den > 0 else float("nan")
+_SIGN_TROUBLE = {
+    "broken": "its readings are not finite in every window",
+    "still": "the runs barely move it",
+    "unrelated": "its readings do not follow the motion; check its column, position, "
+                 "direction and unit in the profile",
+}
+
+
+def _window_change(rd: _RunData, series):
+    """Change of a log series over each window, on the run's clock as given."""
+    la, lb = _log_times(rd, rd.win.ta, 0.0, 0.0), _log_times(rd, rd.win.tb, 0.0, 0.0)
+    return np.interp(lb, rd.log_t, series) - np.interp(la, rd.log_t, series)
+
+
+def _sign_check(meas, pred, min_pred_sq):
+    """Classify a sensor by the cosine similarity of its readings with the truth.
+
+    Returns
+    -------
+    tuple of (str, float)
+        ``ok``, ``inverted`` (similarity below -0.5), ``unrelated`` (between),
+        ``still`` (the truth barely moves it) or ``broken`` (non-finite readings), and
+        the similarity.
+    """
+    if not np.all(np.isfinite(meas)):
+        return "broken", float("nan")
+    den = math.sqrt(float(meas @ meas) * float(pred @ pred))
+    sim = float(meas @ pred) / den if den > 0 else float("nan")
+    if not np.isfinite(sim) or float(pred @ pred) < min_pred_sq:
+        return "still", sim
+    if sim < -0.5:
+        return "inverted", sim
+    return ("unrelated", sim) if sim < 0.5 else ("ok", sim)
 
 
 # ----------------------------------------------------------------------------- fit
@@ -580,51 +610,31 @@ def fit_profile(runs, robot: RobotProfile, *, exclude_windows=None, window_s=0.4
     flip = np.ones(len(wheels))
     usable = np.ones(len(wheels), bool)
     for j, w in enumerate(wheels):
-        meas, pred = [], []
-        for rd in rundata:
-            la, lb = _log_times(rd, rd.win.ta, 0, 0), _log_times(rd, rd.win.tb, 0, 0)
-            tk = rd.ticks[j]
-            meas.append(mpt[j] * (np.interp(lb, rd.log_t, tk) - np.interp(la, rd.log_t, tk)))
-            pred.append(rd.win.u @ a0[j])
-        meas, pred = np.concatenate(meas), np.concatenate(pred)
-        if not np.all(np.isfinite(meas)):
-            usable[j] = False
-            warnings.append(f"wheel {w.name}: ticks are not finite in every window; not fitted")
-            continue
-        sim = _similarity(meas, pred)
-        if not np.isfinite(sim) or float(pred @ pred) < (10 * w.metres_per_tick) ** 2:
-            usable[j] = False
-            warnings.append(f"wheel {w.name}: the run barely moves it; not fitted")
-        elif sim < -0.5:
+        meas = np.concatenate([mpt[j] * _window_change(rd, rd.ticks[j]) for rd in rundata])
+        pred = np.concatenate([rd.win.u @ a0[j] for rd in rundata])
+        verdict, sim = _sign_check(meas, pred, (10 * w.metres_per_tick) ** 2)
+        usable[j] = verdict in ("ok", "inverted")
+        if verdict == "inverted":
             flip[j] = -1.0
             inverted.append(w.name)
             warnings.append(
                 f"wheel {w.name}: counts run against its rolling direction (similarity "
                 f"{sim:+.2f}); the corrected profile sets sign = {-w.sign}")
-        elif sim < 0.5:
-            usable[j] = False
-            warnings.append(
-                f"wheel {w.name}: counts do not follow the motion (similarity {sim:+.2f}); "
-                "check its column, position and direction in the profile; not fitted")
+        elif verdict != "ok":
+            warnings.append(f"wheel {w.name}: {_SIGN_TROUBLE[verdict]}; not fitted")
     imu_flip = 1.0
     if use_imu:
-        meas = np.concatenate([np.interp(_log_times(rd, rd.win.tb, 0, 0), rd.log_t, rd.psi)
-                               - np.interp(_log_times(rd, rd.win.ta, 0, 0), rd.log_t, rd.psi)
-                               for rd in rundata])
+        meas = np.concatenate([_window_change(rd, rd.psi) for rd in rundata])
         pred = np.concatenate([rd.win.dtheta for rd in rundata])
-        sim = _similarity(meas, pred)
-        if not np.isfinite(sim) or float(pred @ pred) < 1e-4:
-            use_imu = False
-            warnings.append("imu: the run barely turns; IMU not fitted")
-        elif sim < -0.5:
+        verdict, sim = _sign_check(meas, pred, 1e-4)
+        use_imu = verdict in ("ok", "inverted")
+        if verdict == "inverted":
             imu_flip = -1.0
             inverted.append("imu")
             warnings.append(f"imu: heading runs clockwise-positive (similarity {sim:+.2f}); "
                             f"the corrected profile sets sign = {-robot.imu.sign}")
-        elif sim < 0.5:
-            use_imu = False
-            warnings.append(f"imu: heading does not follow the motion (similarity "
-                            f"{sim:+.2f}); check its column and unit; not fitted")
+        elif verdict != "ok":
+            warnings.append(f"imu: {_SIGN_TROUBLE[verdict]}; not fitted")
     if use_imu:
         for rd in rundata:
             rd.psi = imu_flip * rd.psi
