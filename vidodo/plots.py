@@ -240,6 +240,7 @@ def field_map_figure(drift: pd.DataFrame, events: pd.DataFrame | None = None, *,
     handles, labels = ax.get_legend_handles_labels()
     if events is not None and len(events):
         seen = set()
+        placed: list[tuple[float, float]] = []
         for i, ev in enumerate(events.itertuples(index=False), start=1):
             ex, ey = float(getattr(ev, "x_m", np.nan)), float(getattr(ev, "y_m", np.nan))
             if not (math.isfinite(ex) and math.isfinite(ey)):
@@ -247,8 +248,12 @@ def field_map_figure(drift: pd.DataFrame, events: pd.DataFrame | None = None, *,
             kind = str(getattr(ev, "kind", "event"))
             c, mk = _event_style(kind)
             ax.plot(ex * k, ey * k, mk, ms=11, color=c, mec="black", mew=0.8, zorder=6)
-            ax.annotate(str(i), (ex * k, ey * k), xytext=(7, 7), textcoords="offset points",
-                        fontsize=8, color=c, zorder=7, fontweight="bold")
+            # events at (nearly) the same spot get their numbers stacked, not overprinted
+            near = sum(1 for px, py in placed if math.hypot(px - ex, py - ey) < 0.08)
+            placed.append((ex, ey))
+            ax.annotate(str(i), (ex * k, ey * k), xytext=(7, 7 + 10 * near),
+                        textcoords="offset points", fontsize=8, color=c, zorder=7,
+                        fontweight="bold")
             if kind not in seen:
                 seen.add(kind)
                 handles.append(Line2D([], [], ls="", marker=mk, color=c, mec="black",
