@@ -29,9 +29,17 @@ and ``A_i`` the wheel's row of the wheel matrix; for the IMU (radians)::
 The solve is iteratively reweighted least squares (Huber weights, a per-sensor noise
 scale from the median absolute deviation; :func:`scipy.optimize.least_squares` for each
 step), with a weak prior that holds every value at the profile when the data say
-nothing. Standard errors come from the Jacobian, ``cov = s^2 (J^T J)^-1``, assuming
-independent windows; a value whose standard error exceeds the wanted precision is
-reported as not identifiable (with a motion that would fix it) and left as it was.
+nothing. Standard errors come from the Jacobian: ``cov = s^2 (J^T J)^-1`` for
+independent windows, widened to a sandwich form because adjacent windows share an end
+frame (see :func:`_sandwich_cov`). A value whose standard error exceeds the wanted
+precision (:data:`TOLERANCES`) is reported as not identifiable, with a motion that
+would fix it, and held at the profile value while the rest is refitted (one at a time,
+worst first, so a pair that only the two together cannot fix keeps one of them).
+
+Events found by grading with a wrong profile are not trusted (an inverted encoder
+looks like a tracking wheel lifted all run): :func:`fit_profile_with_events` fits once
+on the robust loss alone, looks for events with the corrected profile and the fitted
+clock, and fits again without those windows.
 """
 
 from __future__ import annotations
