@@ -60,6 +60,9 @@ from .render_robot import (
 
 __all__ = ["render_frames", "camera_rays", "floor_points"]
 
+MIN_TEXEL_M = 0.001
+"""Finest floor texture resolution chosen automatically [m]: the surface texture's
+grain is 1.5 mm, and 1 mm texels keep a 6 x 6 tile field's texture near 50 MB."""
 RAY_TOLERANCE_PX = 0.01
 """Largest allowed reprojection error of an undistorted pixel ray [px]."""
 MAX_FLOOR_DISTANCE_M = 80.0
@@ -402,7 +405,7 @@ def _choose_texel(camera, cam, rays, step=8):
     if foot.size == 0:
         return 0.004
     texel = 1.25 * float(np.percentile(foot, 1))
-    return float(np.clip(round(texel * 1e4) / 1e4, 0.0005, 0.004))
+    return float(np.clip(round(texel * 1e4) / 1e4, MIN_TEXEL_M, 0.004))
 
 
 def _render_floor(tex: FloorTexture, cam: _CameraRows, rays: CameraRays, camera,

@@ -175,45 +175,60 @@ def floor_texture(field: FieldProfile, floor_seed: int, texel_m: float) -> Floor
     xc = x0 + (np.arange(nx) + 0.5) * texel_m
     yc = y0 + (np.arange(ny) + 0.5) * texel_m
     ts = field.tile_size_m
-    in_x = (xc >= 0) & (xc < sx)
-    in_y = (yc >= 0) & (yc < sy)
-    inside = in_y[:, None] & in_x[None, :]
+    # texel column / row ranges of each tile (tiles are rectangles of texels)
+    edges_x = np.searchsorted(xc, np.arange(field.tiles_x + 1) * ts)
+    edges_y = np.searchsorted(yc, np.arange(field.tiles_y + 1) * ts)
+    field_rows = slice(edges_y[0], edges_y[-1])
+    field_cols = slice(edges_x[0], edges_x[-1])
     # per-tile colour: brightness +-4 %, slight hue shift per channel (+-1.5 %)
     tile_gain = 1.0 + 0.04 * rng.standard_normal((field.tiles_y, field.tiles_x, 1))
     tile_tint = 1.0 + 0.015 * rng.standard_normal((field.tiles_y, field.tiles_x, 3))
     tile_bgr = (np.array(TILE_BGR) * tile_gain * tile_tint).astype(np.float32)
-    ix = np.clip(np.floor(xc / ts).astype(int), 0, field.tiles_x - 1)
-    iy = np.clip(np.floor(yc / ts).astype(int), 0, field.tiles_y - 1)
     img = np.empty((ny, nx, 3), np.float32)
     img[:] = np.array(SURROUND_BGR, np.float32)
-    img[inside] = tile_bgr[iy[:, None], ix[None, :]][inside]
+    for iy in range(field.tiles_y):
+        for ix in range(field.tiles_x):
+            img[edges_y[iy]:edges_y[iy + 1], edges_x[ix]:edges_x[ix + 1]] = tile_bgr[iy, ix]
     # surface: fine pebbles (about 1.5 mm) and mottling (about 4 cm), stronger on foam
-    fine = _smooth_noise(rng, (ny, nx), 0.0015 / texel_m)
+    # (amplitudes 9 and 3 grey levels on the tiles, 4 and 5 on the surround); the
+    # surround's texture fades out from 0.7 m to 0.3 m before the texture edge, where
+    # the coarse mip levels would smear it into streaks when far-away floor clamps to
+    # the edge texels (beyond the edge: flat colour)
+    surface = _smooth_noise(rng, (ny, nx), 0.0015 / texel_m)
+    surface *= np.float32(4.0)
+    surface[field_rows, field_cols] *= np.float32(9.0 / 4.0)
     mottle = _smooth_noise(rng, (ny, nx), 0.04 / texel_m)
-    amp_fine = np.where(inside, 9.0, 4.0).astype(np.float32)
-    amp_mottle = np.where(inside, 3.0, 5.0).astype(np.float32)
-    # the surround's texture fades out towards the texture edge (beyond it: flat colour)
+    mottle *= np.float32(5.0)
+    mottle[field_rows, field_cols] *= np.float32(3.0 / 5.0)
+    surface += mottle
+    del mottle
     dx = np.minimum(xc - x0, x0 + nx * texel_m - xc)
     dy = np.minimum(yc - y0, y0 + ny * texel_m - yc)
-    # (zero within 0.3 m of the edge, where the coarse mip levels would smear it out
-    # into streaks when far-away floor clamps to the edge texels)
-    fade = np.clip((np.minimum(dy[:, None], dx[None, :]) - 0.3) / (MARGIN_M - 0.4), 0, 1)
-    fade = fade.astype(np.float32)
-    img += ((amp_fine * fine + amp_mottle * mottle) * np.where(inside, 1.0, fade))[..., None]
+    fx = np.clip((dx - 0.3) / (MARGIN_M - 0.4), 0, 1).astype(np.float32)
+    fy = np.clip((dy - 0.3) / (MARGIN_M - 0.4), 0, 1).astype(np.float32)
+    surface *= np.minimum(fy[:, None], fx[None, :])
+    img += surface[..., None]
+    del surface
     # seams: anti-aliased dark lines on every tile boundary (coverage of a texel)
     def seam_cover(c, n_tiles):
         d = np.abs(c - np.clip(np.round(c / ts), 0, n_tiles) * ts)
-        return np.clip((0.5 * SEAM_WIDTH_M - d) / texel_m + 0.5, 0.0, 1.0)
+        return np.clip((0.5 * SEAM_WIDTH_M - d) / texel_m + 0.5, 0.0, 1.0).astype(np.float32)
 
-    cx = seam_cover(xc, field.tiles_x) * ((yc >= -SEAM_WIDTH_M) & (yc <= sy + SEAM_WIDTH_M))[
-        :, None]
-    cy = (seam_cover(yc, field.tiles_y)[:, None]
-          * ((xc >= -SEAM_WIDTH_M) & (xc <= sx + SEAM_WIDTH_M))[None, :])
-    cover = 1.0 - (1.0 - cx) * (1.0 - cy)
-    img *= (1.0 - 0.45 * cover)[..., None].astype(np.float32)
+    # light kept = 1 - 0.45 * coverage of the seams along x and along y
+    keep_x = 1 - 0.45 * seam_cover(xc, field.tiles_x)[None, :] * (
+        (yc >= -SEAM_WIDTH_M) & (yc <= sy + SEAM_WIDTH_M))[:, None].astype(np.float32)
+    keep_y = 1 - 0.45 * seam_cover(yc, field.tiles_y)[:, None] * (
+        (xc >= -SEAM_WIDTH_M) & (xc <= sx + SEAM_WIDTH_M))[None, :].astype(np.float32)
+    img *= keep_x[..., None]
+    del keep_x
+    img *= keep_y[..., None]
+    del keep_y
     for fm in field.floor_markers:
         _paint_floor_marker(img, x0, y0, texel_m, fm)
-    base = np.clip(np.rint(img), 0, 255).astype(np.uint8)
+    np.rint(img, out=img)
+    np.clip(img, 0, 255, out=img)
+    base = img.astype(np.uint8)
+    del img
     atlas = np.empty((ny, 2 * nx, 3), np.uint8)
     atlas[:] = np.array(SURROUND_BGR, np.uint8)
     level = base
