@@ -60,9 +60,22 @@ from .render_robot import (
 
 __all__ = ["render_frames", "camera_rays", "floor_points"]
 
+MAX_BLOCK_SAMPLES = 1_500_000
+"""Ray samples cast at once (bounds memory when the robot fills the picture)."""
+MIN_SAMPLES = 8
+"""Least samples per pixel in the robot's region: with 8, a static marker's corners come
+out within 0.15 px of cv2.projectPoints (0.35 px with 4; measured with cv2.aruco's
+AprilTag refinement)."""
+COARSE_STEP_PX = 4
+"""Grid spacing of the floor map for a moving camera [px]."""
+FLOOR_SUPERSAMPLE = 3
+"""Samples per pixel side for the floor of a static camera (drawn once)."""
+CAMERA_BLUR_STEP_PX = 0.5
+"""A moving camera's floor is averaged over one exposure at sub-times this many pixels
+of image motion apart (none when it moves less during the exposure) [px]."""
 MIN_TEXEL_M = 0.001
 """Finest floor texture resolution chosen automatically [m]: the surface texture's
-grain is 1.5 mm, and 1 mm texels keep a 6 x 6 tile field's texture near 50 MB."""
+grain is 1.5 mm, and 1 mm texels keep a 6 x 6 tile field's mip atlas under 200 MB."""
 RAY_TOLERANCE_PX = 0.01
 """Largest allowed reprojection error of an undistorted pixel ray [px]."""
 MAX_FLOOR_DISTANCE_M = 80.0
@@ -447,21 +460,6 @@ def _render_floor(tex: FloorTexture, cam: _CameraRows, rays: CameraRays, camera,
         fine = cv2.remap(np.dstack([mx, my, level]), grid.map_u, grid.map_v, cv2.INTER_LINEAR)
         return sample_floor(tex, np.ascontiguousarray(fine[..., 0]),
                             np.ascontiguousarray(fine[..., 1]), np.ascontiguousarray(fine[..., 2]))
-
-
-MAX_BLOCK_SAMPLES = 1_500_000
-"""Ray samples cast at once (bounds memory when the robot fills the picture)."""
-MIN_SAMPLES = 8
-"""Least samples per pixel in the robot's region: with 8, a static marker's corners come
-out within 0.15 px of cv2.projectPoints (0.35 px with 4; measured with cv2.aruco's
-AprilTag refinement)."""
-COARSE_STEP_PX = 4
-"""Grid spacing of the floor map for a moving camera [px]."""
-FLOOR_SUPERSAMPLE = 3
-"""Samples per pixel side for the floor of a static camera (drawn once)."""
-CAMERA_BLUR_STEP_PX = 0.5
-"""A moving camera's floor is averaged over one exposure at sub-times this many pixels
-of image motion apart (none when it moves less during the exposure) [px]."""
 
 
 @dataclass(frozen=True)
