@@ -323,3 +323,25 @@ def test_register_command_bad_input_exit_codes_and_no_output(still, tmp_path):
                  str(out), "--quiet"]) == 3
     assert not out.exists()
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".out")]
+
+
+def test_rolling_shutter_rows_see_their_own_pose():
+    """Row v is read at dt = v/H * readout with pose rvec + dt*rvec_rate (the renderer's
+    and common practice's linear model); a pixel produced by cv2.projectPoints with that
+    row's pose maps back to its floor point, and floor_to_image finds the row again."""
+    rvec, tvec = look_at([1.8, -1.8, 2.4], [1.8, 1.5, 0.0])
+    k = np.array([[900.0, 0, 639.5], [0, 900.0, 359.5], [0, 0, 1]])
+    rate_r, rate_t = np.array([0.02, -0.03, 0.01]), np.array([0.05, 0.02, -0.01])
+    reg = register.FrameRegistration(0.0, True, k, np.zeros(5), rvec, tvec, 0, 0, 0, "t",
+                                     readout_s=0.03, rvec_rate=rate_r, tvec_rate=rate_t)
+    x = np.array([[1.0, 2.0, 0.0], [3.0, 0.5, 0.0]])
+    for pt in x:
+        dt = 0.0
+        for _ in range(20):  # the pixel's own row, by fixed-point iteration
+            px = cv2.projectPoints(pt[None], rvec + dt * rate_r, tvec + dt * rate_t, k,
+                                   None)[0].reshape(2)
+            dt = px[1] / 720 * 0.03
+        np.testing.assert_allclose(reg.image_to_floor(px[None])[0], pt[:2], atol=1e-6)
+        np.testing.assert_allclose(reg.floor_to_image(pt[None])[0], px, atol=1e-3)
+    still = register.FrameRegistration(0.0, True, k, np.zeros(5), rvec, tvec, 0, 0, 0, "t")
+    assert not still.rolling and reg.rolling

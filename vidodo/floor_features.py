@@ -139,7 +139,8 @@ class FloorPatchTracker:
                                       blockSize=7)
         self.ref_px = (np.zeros((0, 2)) if pts is None
                        else pts.reshape(-1, 2).astype(np.float64))
-        self.win = (21, 21)
+        self.win = (15, 15)
+        self.levels = 2
 
     @property
     def n_points(self) -> int:
@@ -204,10 +205,12 @@ class FloorPatchTracker:
         p0 = self.ref_px.astype(np.float32).reshape(-1, 1, 2)
         crit = (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 30, 0.005)
         p1, st, _err = cv2.calcOpticalFlowPyrLK(self.ref, warped, p0, None,
-                                                winSize=self.win, maxLevel=3, criteria=crit)
+                                                winSize=self.win, maxLevel=self.levels,
+                                                criteria=crit)
         # Forward-backward check (Kalal et al., ICPR 2010) rejects patches that drifted.
         p0b, st_b, _ = cv2.calcOpticalFlowPyrLK(warped, self.ref, p1, None,
-                                                winSize=self.win, maxLevel=3, criteria=crit)
+                                                winSize=self.win, maxLevel=self.levels,
+                                                criteria=crit)
         fb = np.linalg.norm(p0b.reshape(-1, 2) - self.ref_px, axis=1)
         ok = (st.ravel() == 1) & (st_b.ravel() == 1) & (fb < 0.5)
         found = cv2.perspectiveTransform(p1.reshape(-1, 1, 2).astype(np.float64),

@@ -37,6 +37,9 @@ __all__ = ["GridResult", "find_grid", "refine_fit", "seam_samples", "find_seams"
 
 CORNER_NAMES = ("near-left", "near-right", "far-right", "far-left")
 
+#: Seams seen coarser than this across (floor millimetres per pixel) are not used.
+MAX_MM_PER_PX = math.inf
+
 
 @dataclass(frozen=True)
 class GridResult:
@@ -612,7 +615,7 @@ def _seam_lines(field: FieldProfile, step_frac=1 / 10, gap_frac=0.12, border=Fal
 
 
 def seam_samples(grey, field: FieldProfile, reg, *, half_width_px=8.0, ignore=None,
-                 step_frac=1 / 20, min_contrast=4.0, border=None):
+                 step_frac=1 / 20, min_contrast=4.0, border=None, max_mm_per_px=None):
     """Locate the tile seams across their predicted positions.
 
     For every sample point on a seam the image is read along the seam's normal
@@ -634,6 +637,9 @@ def seam_samples(grey, field: FieldProfile, reg, *, half_width_px=8.0, ignore=No
     border : bool, optional
         Use the field's outer border too (default: only when the field has fewer than
         3 tiles in a direction).
+    max_mm_per_px : float, optional
+        Leave out seams coarser than this across (floor mm per image pixel); default
+        :data:`MAX_MM_PER_PX`.
 
     Returns
     -------
@@ -641,6 +647,8 @@ def seam_samples(grey, field: FieldProfile, reg, *, half_width_px=8.0, ignore=No
         Seam pixels [px], floor axis held constant by that seam, and its value [m].
     """
     h, w = grey.shape
+    if max_mm_per_px is None:
+        max_mm_per_px = MAX_MM_PER_PX
     if border is None:  # interior seams suffice once there are two per direction
         border = min(field.tiles_x, field.tiles_y) < 3
     fl, axis, val, nrm = _seam_lines(field, step_frac, border=border)
@@ -664,6 +672,9 @@ def seam_samples(grey, field: FieldProfile, reg, *, half_width_px=8.0, ignore=No
     ok &= (p0[:, 1] > margin) & (p0[:, 1] < h - 1 - margin)
     # The profile must stay well inside one tile on each side of the seam.
     ok &= px_per_m * field.tile_size_m > 3 * reach
+    # Seams seen at a grazing angle (coarser than max_mm_per_px across) are blurred
+    # below a pixel and mostly show the shade step between tiles: left out.
+    ok &= px_per_m * max_mm_per_px * 1e-3 >= 1.0
     if not ok.any():
         return np.zeros((0, 2)), np.zeros(0, int), np.zeros(0)
     p0, n, tang, axis, val = p0[ok], n[ok], tang[ok], axis[ok], val[ok]

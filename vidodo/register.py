@@ -55,6 +55,7 @@ __all__ = [
     "focal_from_homography",
     "pose_from_homography",
     "fit_camera",
+    "pose_fit_points",
     "CameraFit",
     "detect_floor_markers",
     "field_polygon_px",
@@ -62,6 +63,9 @@ __all__ = [
 ]
 
 METHODS = ("auto", "markers", "points", "grid")
+#: Floor markers are located precisely, so two markers far apart (a long thin spread)
+#: still fix the plane; hand-picked points must be spread more (0.05, the default).
+MARKER_MIN_SPREAD = 0.02
 NAN3 = np.full(3, np.nan)
 
 
@@ -95,6 +99,26 @@ class FrameRegistration:
     """Why the frame could not be registered (empty when ok)."""
     warnings: tuple[str, ...] = ()
     """Caveats (estimated focal length, no distortion model, ...)."""
+    readout_s: float = 0.0
+    """Rolling shutter: time from reading the top row to the bottom row [s]. With a
+    non-zero readout and pose rates, ``rvec, tvec`` are the pose when the top row was
+    read (at ``t_s``) and row ``v`` sees the pose ``rvec + dt * rvec_rate`` (and the same
+    for ``tvec``) with ``dt = v / height * readout_s``."""
+    rvec_rate: np.ndarray | None = None
+    """Rate of change of ``rvec`` while the frame is read, ndarray (3,) [rad/s]."""
+    tvec_rate: np.ndarray | None = None
+    """Rate of change of ``tvec`` while the frame is read, ndarray (3,) [m/s]."""
+
+    @property
+    def rolling(self) -> bool:
+        """True when the rows of this frame see different poses."""
+        return bool(self.readout_s > 0 and self.rvec_rate is not None
+                    and self.tvec_rate is not None
+                    and (np.any(self.rvec_rate != 0) or np.any(self.tvec_rate != 0)))
+
+    def _row_dt(self, v_px):
+        h = 2.0 * float(self.camera_matrix[1, 2]) + 1.0  # image height from cy
+        return np.clip(np.asarray(v_px, float) / h, 0.0, 1.0) * self.readout_s
 
     @property
     def rotation(self):
@@ -137,12 +161,22 @@ class FrameRegistration:
             return out
         norm = cv2.undistortPoints(pts[good].reshape(-1, 1, 2), self.camera_matrix,
                                    self.dist_coeffs).reshape(-1, 2)
-        rays = np.column_stack([norm, np.ones(len(norm))]) @ self.rotation  # R.T @ ray
-        c = self.camera_centre_m
+        rays_cam = np.column_stack([norm, np.ones(len(norm))])
         h = np.broadcast_to(np.asarray(height_m, float), (len(pts),))[good]
+        if self.rolling:
+            dt = self._row_dt(pts[good, 1])
+            rays = np.empty_like(rays_cam)
+            c = np.empty((len(dt), 3))
+            for i, d in enumerate(dt):  # each row its own pose
+                r = cv2.Rodrigues(np.asarray(self.rvec, float) + d * self.rvec_rate)[0]
+                rays[i] = rays_cam[i] @ r
+                c[i] = -r.T @ (np.asarray(self.tvec, float) + d * self.tvec_rate)
+        else:
+            rays = rays_cam @ self.rotation  # R.T @ ray
+            c = np.broadcast_to(self.camera_centre_m, (len(rays), 3))
         with np.errstate(divide="ignore", invalid="ignore"):
-            s = (h - c[2]) / rays[:, 2]
-        xy = c[:2] + s[:, None] * rays[:, :2]
+            s = (h - c[:, 2]) / rays[:, 2]
+        xy = c[:, :2] + s[:, None] * rays[:, :2]
         xy[~(s > 0)] = np.nan
         out[good] = xy
         return out
@@ -169,7 +203,17 @@ class FrameRegistration:
         img, _ = cv2.projectPoints(pts, np.asarray(self.rvec, float),
                                    np.asarray(self.tvec, float), self.camera_matrix,
                                    self.dist_coeffs)
-        return img.reshape(-1, 2)
+        img = img.reshape(-1, 2)
+        if self.rolling:  # find the row each point is read at (fixed point, converges fast)
+            for _ in range(3):
+                dt = self._row_dt(img[:, 1])
+                img = np.vstack([
+                    cv2.projectPoints(pts[i:i + 1], np.asarray(self.rvec, float)
+                                      + d * self.rvec_rate, np.asarray(self.tvec, float)
+                                      + d * self.tvec_rate, self.camera_matrix,
+                                      self.dist_coeffs)[0].reshape(1, 2)
+                    for i, d in enumerate(dt)])
+        return img
 
     def summary(self) -> dict:
         """Flat dict of the scalar fields (for a per-frame CSV)."""
@@ -545,6 +589,40 @@ def fit_camera(image_size, *, points=None, seams=None, camera: CameraProfile | N
                      np.concatenate([keep_pts, keep_seam]), tuple(warnings))
 
 
+def pose_fit_points(px, fl, camera_matrix, dist_coeffs, rvec0, tvec0, *, outlier_px=3.0):
+    """Camera pose only, from floor points, by OpenCV's Levenberg-Marquardt.
+
+    ``cv2.solvePnP`` (iterative, started from ``rvec0, tvec0``) on all points, then once
+    more without those off by more than ``outlier_px``. Fast enough for every frame.
+
+    Returns
+    -------
+    CameraFit
+    """
+    obj = np.column_stack([fl, np.zeros(len(fl))])
+    keep = np.ones(len(fl), bool)
+    rv = np.asarray(rvec0, float).reshape(3, 1).copy()
+    tv = np.asarray(tvec0, float).reshape(3, 1).copy()
+    for _round in range(2):
+        if keep.sum() < 4:
+            raise CalibrationError(f"only {int(keep.sum())} floor points fit the pose")
+        ok, rv, tv = cv2.solvePnP(obj[keep], px[keep], camera_matrix, dist_coeffs, rv, tv,
+                                  useExtrinsicGuess=True, flags=cv2.SOLVEPNP_ITERATIVE)
+        if not ok:
+            raise CalibrationError("pose fit did not converge")
+        proj = cv2.projectPoints(obj, rv, tv, camera_matrix, dist_coeffs)[0].reshape(-1, 2)
+        err = np.linalg.norm(proj - px, axis=1)
+        keep = err < outlier_px
+    rv, tv = rv.ravel(), tv.ravel()
+    r = cv2.Rodrigues(rv)[0]
+    if (-r.T @ tv)[2] <= 0:
+        raise CalibrationError("the pose fit puts the camera below the floor (mirrored)")
+    back = _ray_floor(_undistort(px[keep], camera_matrix, dist_coeffs), r, tv)
+    rms_fl = float(np.sqrt(np.mean(np.sum((back - fl[keep]) ** 2, axis=1))))
+    return CameraFit(np.asarray(camera_matrix, float), np.asarray(dist_coeffs, float), rv, tv,
+                     float(np.sqrt(np.mean(err[keep] ** 2))), rms_fl, int(keep.sum()), keep)
+
+
 def _fit_to_registration(t_s, fit: CameraFit, method, extra_warnings=()):
     return FrameRegistration(float(t_s), True, fit.camera_matrix, fit.dist_coeffs,
                              fit.rvec, fit.tvec, fit.rms_px, fit.rms_floor_m, fit.n_points,
@@ -645,9 +723,13 @@ class FloorRegistrar:
         A frame whose residual is above this is refused [px].
     static_tolerance_px : float
         Median patch shift below which the view counts as unchanged [px].
+    readout_s : float, optional
+        Rolling-shutter readout time [s] (default: the camera profile's, else 0). When
+        non-zero, a moving camera's pose is modelled as changing linearly while the
+        rows are read, at the rate seen between consecutive frames.
     seam_every_frame : bool
-        Re-fit on the tile seams in every moved frame (more accurate, slower); by
-        default only when the reference came from the grid or seams.
+        Re-fit on the tile seams in every moved frame as well (slower; on the
+        rendered hand-held run it was not more accurate than the tracked corners).
 
     Notes
     -----
@@ -658,7 +740,8 @@ class FloorRegistrar:
 
     def __init__(self, field: FieldProfile, camera: CameraProfile | None = None, *,
                  method="auto", points_csv=None, refine_on_seams=True, max_rms_px=3.0,
-                 static_tolerance_px=0.1, seam_every_frame=None, min_tracked=12):
+                 static_tolerance_px=0.1, seam_every_frame=False, min_tracked=12,
+                 readout_s=None):
         if method not in METHODS:
             raise InputError(f"registration method {method!r}: use one of {METHODS}")
         if method == "points" and points_csv is None:
@@ -682,6 +765,12 @@ class FloorRegistrar:
         self.static_tolerance_px = float(static_tolerance_px)
         self.seam_every_frame = seam_every_frame
         self.min_tracked = int(min_tracked)
+        if readout_s is None:
+            readout_s = camera.readout_s if camera is not None else 0.0
+        self.readout_s = float(readout_s)
+        self._rate = None  # (rvec_rate, tvec_rate) of the last moving frame
+        self._global_prev = None  # (t_s, rvec, tvec) one-pose fit of the last frame
+        self._rs_reference_done = False
         self.reference: FrameRegistration | None = None
         self.reference_grey = None
         self._tracker = None
@@ -715,7 +804,8 @@ class FloorRegistrar:
                                                 ignore=ignore)
             if len(px) >= 4:
                 try:
-                    check_correspondences(px, fl, where=f"floor markers {seen}")
+                    check_correspondences(px, fl, where=f"floor markers {seen}",
+                                          min_spread=MARKER_MIN_SPREAD)
                     init_fit = fit_camera(size, points=(px, fl), camera=self.camera,
                                           outlier_px=5.0)
                     used = "markers"
@@ -765,6 +855,7 @@ class FloorRegistrar:
         self._tracker = floor_features.FloorPatchTracker(grey, usable)
         self._floor_ref = reg.image_to_floor(self._tracker.ref_px)
         self._last_found = self._tracker.ref_px.copy()
+        self._global_prev = (reg.t_s, np.asarray(reg.rvec, float), np.asarray(reg.tvec, float))
 
     # -- per frame -----------------------------------------------------------
     def register(self, frame_bgr, t_s, mask=None) -> FrameRegistration:
@@ -809,8 +900,12 @@ class FloorRegistrar:
         prev_px = tr.ref_px if last is ref else self._last_found
         if prev_px is not None and tr.is_unmoved(grey, prev_px,
                                                  tolerance_px=self.static_tolerance_px):
-            reg = replace(last, t_s=float(t_s), method="static")
+            reg = replace(last, t_s=float(t_s), method="static", rvec_rate=None,
+                          tvec_rate=None)
             self._last = reg
+            self._rate = None
+            self._global_prev = (float(t_s), np.asarray(last.rvec, float),
+                                 np.asarray(last.tvec, float))
             return reg
         # Predicted map reference pixels -> this frame, from the last registration.
         pred = last.floor_to_image(self._floor_ref)
@@ -850,14 +945,55 @@ class FloorRegistrar:
         if reg.rms_px > self.max_rms_px:
             return failed(t_s, f"{source}: residual {reg.rms_px:.2f} px RMS above the "
                           f"{self.max_rms_px} px limit", ref.camera_matrix, ref.dist_coeffs)
+        reg = self._with_rates(reg, last)
         self._last = reg
         self._last_found = found
         return reg
 
+    def _with_rates(self, reg, last):
+        """Attach the pose rate seen since the last frame (rolling shutter).
+
+        The rate comes from the one-pose-per-frame fits of consecutive frames (they do
+        not depend on any assumed rate, so errors cannot feed back).
+        """
+        now = getattr(self, "_global_now", None)
+        prev = self._global_prev
+        if self.readout_s <= 0 or now is None:
+            return reg
+        self._global_prev = (reg.t_s, now[0], now[1])
+        if prev is None or not 0 < reg.t_s - prev[0] <= 0.25:
+            self._rate = None
+            return reg
+        dt = reg.t_s - prev[0]
+        rate = ((now[0] - prev[1]) / dt, (now[1] - prev[2]) / dt)
+        had_rate = self._rate is not None
+        self._rate = rate
+        if not self._rs_reference_done:
+            self._rs_reference_done = True
+            self._rolling_reference(rate)
+        if not had_rate:  # this frame was fitted without a rate: top pose from mid pose
+            half = 0.5 * self.readout_s
+            reg = replace(reg, rvec=np.asarray(reg.rvec) - half * rate[0],
+                          tvec=np.asarray(reg.tvec) - half * rate[1])
+        return replace(reg, readout_s=self.readout_s, rvec_rate=rate[0], tvec_rate=rate[1])
+
+    def _rolling_reference(self, rate):
+        """Re-read the reference frame as a rolling-shutter frame once a rate is known.
+
+        The reference was fitted as if every row saw one pose; that pose is close to the
+        one at mid-readout. It becomes the top-row pose minus half a readout of motion,
+        and the floor positions of the tracked corners are recomputed row by row.
+        """
+        ref = self.reference
+        half = 0.5 * self.readout_s
+        rolled = replace(ref, rvec=np.asarray(ref.rvec) - half * rate[0],
+                         tvec=np.asarray(ref.tvec) - half * rate[1],
+                         readout_s=self.readout_s, rvec_rate=rate[0], tvec_rate=rate[1])
+        self.reference = rolled
+        self._floor_ref = rolled.image_to_floor(self._tracker.ref_px)
+
     def _seams_each_frame(self):
-        if self.seam_every_frame is not None:
-            return bool(self.seam_every_frame)
-        return "grid" in self.reference.method or "seams" in self.reference.method
+        return bool(self.seam_every_frame)
 
     def _fixed_camera(self):
         """The reference intrinsics as a profile, held fixed in later frames."""
@@ -880,8 +1016,21 @@ class FloorRegistrar:
             raise CalibrationError(f"only {int(inl.sum())} tracked corners agree on the "
                                    "floor plane")
         rv, tv = (last.rvec, last.tvec) if last.ok else pose_from_homography(hmg, k)
-        fit = fit_camera((shape[1], shape[0]), points=(px[inl], fl[inl]),
-                         camera=self._fixed_camera(), init=(k, d, rv, tv), outlier_px=3.0)
+        px, fl = px[inl], fl[inl]
+        fit = pose_fit_points(px, fl, k, d, rv, tv)
+        self._global_now = (fit.rvec.copy(), fit.tvec.copy())
+        if self.readout_s > 0 and self._rate is not None:
+            # Rolling shutter: move each observation to where the top-row pose would have
+            # seen it, using the rate of the previous frames, and fit again (twice).
+            obj = np.column_stack([fl, np.zeros(len(fl))])
+            dt = np.clip(px[:, 1] / shape[0], 0, 1) * self.readout_s
+            for _ in range(2):
+                top = cv2.projectPoints(obj, fit.rvec, fit.tvec, k, d)[0].reshape(-1, 2)
+                rowed = np.vstack([
+                    cv2.projectPoints(obj[i:i + 1], fit.rvec + dt[i] * self._rate[0],
+                                      fit.tvec + dt[i] * self._rate[1], k, d)[0].reshape(1, 2)
+                    for i in range(len(obj))])
+                fit = pose_fit_points(px - (rowed - top), fl, k, d, fit.rvec, fit.tvec)
         return fit
 
     def _reacquire(self, grey, t_s, ignore):
@@ -891,7 +1040,8 @@ class FloorRegistrar:
                                                 ignore=ignore)
             if len(px) >= 4:
                 try:
-                    check_correspondences(px, fl, where="floor markers")
+                    check_correspondences(px, fl, where="floor markers",
+                                          min_spread=MARKER_MIN_SPREAD)
                     fit = fit_camera((grey.shape[1], grey.shape[0]), points=(px, fl),
                                      camera=self._fixed_camera(), outlier_px=5.0)
                     return _fit_to_registration(t_s, fit, "markers")
