@@ -145,3 +145,17 @@ def test_synthetic_board_views_recover_known_lens():
                                [900, 900, 650, 350], rtol=0.005)
     assert abs(cam.distortion[0] - d[0]) < 0.02
     assert rep.rms_px < 0.1
+
+
+def test_calibrate_from_clip(tmp_path):
+    """The same 13 photos as a clip (MJPEG in AVI, written by OpenCV): same intrinsics."""
+    clip = tmp_path / "board.avi"
+    writer = cv2.VideoWriter(str(clip), cv2.VideoWriter_fourcc(*"MJPG"), 2.0, (640, 480))
+    assert writer.isOpened()
+    for p in left_images():
+        writer.write(cv2.imread(str(p)))
+    writer.release()
+    cam, report = lens.calibrate_video(clip, (9, 6), 0.025, every_s=0.4)
+    k_ref, _ = stored_left_calibration()
+    assert report.n_used >= 12
+    np.testing.assert_allclose([cam.fx_px, cam.fy_px], [k_ref[0, 0], k_ref[1, 1]], rtol=0.01)
