@@ -31,8 +31,7 @@ import numpy as np
 from .errors import CalibrationError
 from .profiles import CameraProfile, FieldProfile
 
-__all__ = ["GridResult", "find_grid", "refine_fit", "seam_samples", "find_seams",
-           "draw_registration",
+__all__ = ["GridResult", "find_grid", "refine_fit", "seam_samples", "draw_registration",
            "CORNER_NAMES"]
 
 CORNER_NAMES = ("near-left", "near-right", "far-right", "far-left")
@@ -791,11 +790,6 @@ def refine_fit(grey, field: FieldProfile, fit, *, camera: CameraProfile | None =
                          loss_px=0.5)
         out = cur
     return out
-
-
-def find_seams(grey, field, reg, **kw):
-    """Seam samples of a registered frame (for previews): see :func:`seam_samples`."""
-    return seam_samples(grey, field, reg, **kw)
 
 
 def draw_registration(frame_bgr, reg, field: FieldProfile, *, seams=None, samples=40):

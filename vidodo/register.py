@@ -59,6 +59,9 @@ __all__ = [
     "CameraFit",
     "detect_floor_markers",
     "field_polygon_px",
+    "failed",
+    "summarise",
+    "RegistrationQuality",
     "METHODS",
 ]
 

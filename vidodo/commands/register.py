@@ -135,7 +135,8 @@ def report_lines(ref, quality, camera) -> list[str]:
     lines = [
         f"reference frame (t = {ref.t_s:.3f} s): registered by {ref.method}, "
         f"{ref.n_points} observations",
-        f"  residual {ref.rms_px:.3f} px RMS, {ref.rms_floor_m * 1e3:.2f} mm RMS on the floor",
+        f"  residual per observation {ref.rms_px:.3f} px RMS, {ref.rms_floor_m * 1e3:.2f} mm "
+        "RMS on the floor",
         f"  camera at x {c[0]:.3f} m, y {c[1]:.3f} m, height {c[2]:.3f} m",
         f"  focal length {k[0, 0]:.1f} px ({'camera profile' if camera else 'estimated'}),"
         f" distortion k1 {d[0]:.4f}, k2 {d[1]:.4f}"
