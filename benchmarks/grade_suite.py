@@ -132,6 +132,22 @@ def standin_truth(run, seed, sigma_m=0.0015, sigma_rad=0.0052):
     return out
 
 
+def _tracked(run, camera, reuse):
+    """The tracker's truth track of a run, kept beside it for re-analysis."""
+    from vidodo.pipeline import read_track_csv
+    from vidodo.profiles import load_camera, load_field
+    from vidodo.track import track_video
+
+    path = run / ("track_camera.csv" if camera else "track.csv")
+    if reuse and path.is_file():
+        return read_track_csv(path)
+    robot = load_robot(run / "robot.toml")
+    res = track_video(run / "video.mp4", robot, load_field(run / "field.toml"),
+                      load_camera(run / "camera.toml") if camera else None)
+    res.track.to_csv(path, index=False, float_format="%.9g")
+    return res.track
+
+
 def _true_video(meta, t_log):
     lc = meta["log_clock"]
     return np.asarray(t_log, dtype=float) / (1 + lc["rate_error"]) + lc["offset_s"]
@@ -207,6 +223,8 @@ def main(argv=None):
     ap.add_argument("--size", default="1280x720", help="video size WxH (tracker mode)")
     ap.add_argument("--camera", action="store_true",
                     help="give the run's camera profile (true lens) to the tracker")
+    ap.add_argument("--reuse-track", action="store_true",
+                    help="reuse a truth track saved beside the run by an earlier call")
     args = ap.parse_args(argv)
     configs = [c for c in args.configs.split(",") if c]
     small = tuple(int(v) for v in args.size.lower().split("x"))
@@ -224,9 +242,11 @@ def main(argv=None):
             t1 = time.perf_counter()
             try:
                 if video:
+                    track = _tracked(run, args.camera, args.reuse_track)
                     res = grade_run(run / "video.mp4", run / "log.csv", run / "robot.toml",
                                     run / "field.toml",
-                                    run / "camera.toml" if args.camera else None)
+                                    run / "camera.toml" if args.camera else None,
+                                    track=track)
                 else:
                     res = grade_run(None, run / "log.csv", run / "robot.toml",
                                     run / "field.toml", track=standin_truth(run, seed))

@@ -45,6 +45,7 @@ def _run(faults=(), seed=0, duration_s=10.0, sigma_m=SIGMA_M):
     """
     rng = np.random.default_rng(seed)
     robot = _robot()
+    # the same noise draws whatever sigma_m is (sigma_m = 0 gives the exact truth)
     dt = 1e-3
     t = np.arange(0.0, duration_s, dt)
     v = np.clip(0.6 * np.sin(2 * math.pi * t / 6) + 0.3, 0, None)
@@ -256,3 +257,24 @@ def test_soft_stall_is_an_impact_when_the_wheels_slip():
     assert imp.magnitude < 4.0
     slip = _one(res, "wheel_slip")
     assert slip.t_start_s == pytest.approx(6.3, abs=0.1)
+
+
+def test_truth_glitch_is_not_an_event():
+    """A 4 cm, 0.2 s excursion of the truth alone (a registration error).
+
+    Drive and tracking wheels both report the smooth motion, so the truth is the odd one
+    out: no event is claimed and a warning says where. The same excursion without the
+    two sources to cross-check would be claimed (it is larger than 5 sigma).
+    """
+    robot, truth, travel, imu = _run(seed=8)
+    t = truth["t_s"].to_numpy()
+    clean = _run(seed=8, sigma_m=0.0)[1][["x_m", "y_m", "heading_rad"]].to_numpy()
+    bump = (t >= 2.0) & (t < 2.2)
+    glitched = truth.copy()
+    glitched.loc[bump, "y_m"] += 0.04
+    sources = {"drive": (t, clean), "tracking": (t, clean)}
+    res = detect_events(glitched, travel, robot, imu_heading=imu, source_poses=sources)
+    assert res.events == ()
+    assert any("disagrees with two independent odometry sources" in w for w in res.warnings)
+    alone = detect_events(glitched, travel, robot, imu_heading=imu)
+    assert alone.events != ()
