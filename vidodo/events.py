@@ -454,7 +454,8 @@ def detect_events(truth, wheel_travel, robot, *, imu_heading=None, source_poses=
     imu_heading : DataFrame, optional
         ``t_s`` (video clock), ``heading_rad`` (continuous) from the IMU.
     source_poses : dict of str -> (ndarray (M,), ndarray (M, 3)), optional
-        Per odometry source, video times and poses, to list the sources affected.
+        Per odometry source, video times and poses (any frame): to list the sources
+        affected, and to cross-check the truth (see "Truth glitches").
     settings : EventSettings, optional
 
     Returns
