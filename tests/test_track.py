@@ -425,3 +425,29 @@ def test_track_video_and_truncated_file(tmp_path):
     part = info.value.partial
     assert part is not None and 10 < len(part.track) < 60
     assert part.track.detected.mean() > 0.9
+
+
+# ------------------------------------------------------------- on a rendered run
+@pytest.mark.slow
+def test_track_command_on_rendered_run(rendered_run, tmp_path):
+    """``vidodo track`` on a short rendered clip: CSV per frame, close to the truth.
+
+    The renderer's truth file is read here only to grade the result.
+    """
+    from vidodo.cli_main import main
+
+    run = rendered_run("default", 0, video__max_duration_s=4.0)
+    out = tmp_path / "track.csv"
+    code = main(["track", str(run / "video.mp4"), "--robot", str(run / "robot.toml"),
+                 "--field", str(run / "field.toml"), "--camera", str(run / "camera.toml"),
+                 "--out", str(out), "--quiet"])
+    assert code == 0
+    tr = load_track_csv(out)
+    truth = pd.read_csv(run / "truth" / "truth.csv")
+    assert len(tr) == len(truth)
+    np.testing.assert_allclose(tr.t_s, truth.t_s, atol=1e-3)
+    err = np.hypot(tr.x_m - truth.x_m, tr.y_m - truth.y_m)
+    # 640x360 test clip: a coarser image than the benchmark's 1280x720, so a looser bound.
+    assert np.sqrt(np.nanmean(err**2)) < 0.01
+    assert tr.detected.mean() > 0.95
+    assert (tmp_path / "track.quality.json").exists()

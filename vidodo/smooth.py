@@ -99,21 +99,17 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True)
         xp_all = np.empty((T, B, 3))
         Pp_all = np.empty((T, B, 3, 3))
         Fs = np.empty((T, 3, 3))
-    prev_t = t[0]
+    dts = np.diff(t, prepend=t[0])
+    F_all, Q_all = _transition(dts, np.ones(T))
     for k in range(T):
-        dt = t[k] - prev_t
-        prev_t = t[k]
-        if dt > 0:
-            F, Q = _transition(np.full(B, dt), q)
-            x = np.einsum("bij,bj->bi", F, x)
-            P = F @ P @ F.transpose(0, 2, 1) + Q
-            F0 = F[0]
-        else:
-            F0 = np.eye(3)
+        if dts[k] > 0:
+            F = F_all[k]
+            x = x @ F.T
+            P = F @ P @ F.T + q[:, None, None] * Q_all[k]
         if smooth:
             xp_all[k] = x
             Pp_all[k] = P
-            Fs[k] = F0
+            Fs[k] = F_all[k]
         if is_meas[k]:
             r = var_z[k] * r_scale
             S = P[:, 0, 0] + r

@@ -56,6 +56,9 @@ REFINE_METHODS = {
     "apriltag": cv2.aruco.CORNER_REFINE_APRILTAG,
 }
 
+REGISTRATION_PARAMS = 8
+"""Parameters a floor registration fits: camera pose (6) plus up to two lens terms."""
+
 MIN_CELL_PX = 3.0
 """Marker cell width (square root of the marker's image area / cells across) below
 which detection becomes unreliable [px] (common practice; with motion blur, markers of
@@ -71,8 +74,8 @@ class TrackResult:
     """One row per video frame, columns :data:`TRACK_COLUMNS` (SI units, floor frame;
     ``sigma_xy_m`` is the RMS of the position error magnitude: the smoother's
     uncertainty from corner noise, plus a common shift of all corners (``corner_bias_px``
-    per axis) and the registration's pixel residual, both carried to the floor at the
-    marker's image scale)."""
+    per axis) and the registration's prediction error, both carried to the floor at the
+    marker's image scale; ``sigma_heading_rad`` adds ``corner_bias_px`` per corner)."""
     quality: dict
     """Frames, detection fraction, marker cell size [px], gaps, dropped/duplicated
     frames, registration statistics, readout time [s], corner noise [px]."""
@@ -220,6 +223,14 @@ class PoseFix:
     """Size of the marker set seen / size in the profile (1 if sizes are right)."""
     m_per_px: float
     """Floor metres per image pixel at the marker (RMS over axes and corners) [m/px]."""
+    floor_m: np.ndarray = None
+    """Corners mapped to the floor, ndarray of shape (N, 2) [m]."""
+    resid_m: np.ndarray = None
+    """Observed minus fitted corner positions, ndarray of shape (N, 2) [m]."""
+    weight: np.ndarray = None
+    """Inverse floor covariance of each corner for 1 px noise, shape (N, 2, 2) [1/m^2]."""
+    jac: np.ndarray = None
+    """Jacobian of the fitted corners w.r.t. (x, y, heading), shape (N, 2, 3)."""
 
 
 def _body_corners(marker):
@@ -290,7 +301,8 @@ def fit_pose(detections, markers, registration) -> PoseFix | None:
         return None
     chi2 = float(np.einsum("ni,nij,nj->", resid, W, resid))
     m_per_px = math.sqrt(float(np.mean(np.einsum("nii->n", cov_pts))) / 2.0)
-    return PoseFix(float(t[0]), float(t[1]), th, cov, chi2, 2 * len(b) - 3, scale, m_per_px)
+    return PoseFix(float(t[0]), float(t[1]), th, cov, chi2, 2 * len(b) - 3, scale, m_per_px,
+                   p, -resid, W, A)
 
 
 # ------------------------------------------------------------ registration policy
@@ -298,18 +310,23 @@ class _RegistrationPolicy:
     """Decides when to register the floor again and keeps the one in effect.
 
     ``every`` = int registers every that many frames. ``'auto'`` registers every frame
-    until consecutive registrations agree within ``still_px`` (the camera is still),
-    then checks every ``still_stride`` frames and goes back to every frame as soon as
-    the view has moved.
+    until two registrations ``still_check_s`` apart agree within ``still_px`` (the camera
+    is still: a slow hand-held sway moves less than that between consecutive frames, so
+    the comparison spans a longer time), then registers only every ``still_check_s``
+    and goes back to every frame as soon as the view has moved by ``still_px`` (a bumped
+    tripod is noticed within that time).
     """
 
-    def __init__(self, registrar, field_profile, every="auto", still_px=0.5, still_stride=15):
+    def __init__(self, registrar, field_profile, every="auto", still_px=0.5, still_check_s=1.0):
         self.registrar = registrar
         self.every = every
         self.still_px = still_px
-        self.still_stride = still_stride
+        self.still_check_s = still_check_s
         self.current = None
+        self.anchor = None
+        self.anchor_t = -math.inf
         self.last_index = -(10**9)
+        self.last_t = -math.inf
         self.still = False
         self.moved_count = 0
         self.registered = 0
@@ -317,36 +334,51 @@ class _RegistrationPolicy:
         fx, fy = field_profile.size_m
         self._probe = np.array([[0, 0], [fx, 0], [fx, fy], [0, fy], [fx / 2, fy / 2]], float)
 
-    def due(self, index) -> bool:
+    def due(self, index, t_s) -> bool:
         if self.current is None:
             return True
         if self.every != "auto":
             return index - self.last_index >= int(self.every)
-        stride = self.still_stride if self.still else 1
-        return index - self.last_index >= stride
+        if self.still:
+            return t_s - self.last_t >= self.still_check_s
+        return True
 
-    def update(self, frame, index, t_s):
-        """Register ``frame`` if due; return (registration in effect, fresh?)."""
-        if not self.due(index):
+    def _shift_px(self, a, b) -> float:
+        try:
+            pa = np.asarray(a.floor_to_image(self._probe), float)
+            pb = np.asarray(b.floor_to_image(self._probe), float)
+            return float(np.nanmax(np.hypot(*(pa - pb).T)))
+        except Exception:  # noqa: BLE001 - a registrar without projection: assume moving
+            return float("inf")
+
+    def update(self, frame, index, t_s, mask_fn=None):
+        """Register ``frame`` if due; return (registration in effect, fresh?).
+
+        ``mask_fn()`` gives the pixels to ignore (the robot) when a registration is due.
+        """
+        if not self.due(index, t_s):
             return self.current, False
-        reg = self.registrar.register(frame, t_s)
+        mask = mask_fn() if mask_fn is not None else None
+        if mask is not None:
+            reg = self.registrar.register(frame, t_s, mask=mask)
+        else:
+            reg = self.registrar.register(frame, t_s)
         self.registered += 1
         self.last_index = index
+        self.last_t = t_s
         if not getattr(reg, "ok", False):
             reason = str(getattr(reg, "reason", "") or "registration failed")
             self.failures[reason] = self.failures.get(reason, 0) + 1
             return self.current, False
-        if self.current is not None and self.every == "auto":
-            try:
-                a = np.asarray(self.current.floor_to_image(self._probe), float)
-                b = np.asarray(reg.floor_to_image(self._probe), float)
-                shift = float(np.nanmax(np.hypot(*(a - b).T)))
-            except Exception:  # noqa: BLE001 - a registrar without projection: assume moving
-                shift = float("inf")
-            was_still = self.still
-            self.still = shift < self.still_px
-            if was_still and not self.still:
-                self.moved_count += 1
+        if self.every == "auto":
+            if self.anchor is None:
+                self.anchor, self.anchor_t = reg, t_s
+            elif self.still or t_s - self.anchor_t >= self.still_check_s:
+                was_still = self.still
+                self.still = self._shift_px(self.anchor, reg) < self.still_px
+                if was_still and not self.still:
+                    self.moved_count += 1
+                self.anchor, self.anchor_t = reg, t_s
         self.current = reg
         return reg, True
 
@@ -362,6 +394,7 @@ class _Acc:
     cell: list = field(default_factory=list)  # min cell width seen in the frame [px]
     reg_ok: list = field(default_factory=list)
     reg_rms_px: list = field(default_factory=list)
+    reg_n: list = field(default_factory=list)
     reg_rms_m: list = field(default_factory=list)
     reg_fresh: list = field(default_factory=list)
     n_markers: list = field(default_factory=list)
@@ -370,6 +403,7 @@ class _Acc:
     window_searches: int = 0
     repeated: int = 0
     unrefined: int = 0
+    corner_frac: dict = field(default_factory=dict)  # frame index -> (N,) fractions
     predicted_cells: list = field(default_factory=list)
 
 
@@ -384,7 +418,7 @@ def _roi(last, prev, frame_shape, gap_frames):
         pred = last + (last - prev) * gap_frames
     side = float(np.max(np.ptp(last, axis=0)))
     step = 0.0 if prev is None else float(np.max(np.abs(last - prev)))
-    margin = 0.75 * side + 24.0 + 2.0 * step * gap_frames
+    margin = 0.3 * side + 12.0 + 1.5 * step * gap_frames
     lo = np.floor(np.min(np.vstack([pred, last]), axis=0) - margin).astype(int)
     hi = np.ceil(np.max(np.vstack([pred, last]), axis=0) + margin).astype(int)
     h, w = frame_shape[:2]
@@ -461,7 +495,9 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
     last_fix_t = -math.inf
     for index, t_s, frame in frames:
         acc.t.append(float(t_s))
-        reg, fresh = policy.update(frame, index, t_s)
+        reg, fresh = policy.update(
+            frame, index, t_s,
+            lambda f=last_fix, shp=frame.shape: _robot_mask(robot, f, policy.current, shp))
         if fresh and not acc.predicted_cells:
             cells = _far_field_cells(reg, robot.markers, field_profile, det.cells_across)
             if cells is not None:
@@ -469,6 +505,7 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
                 acc.first_registration = reg
         acc.reg_ok.append(bool(reg is not None))
         acc.reg_rms_px.append(float(getattr(reg, "rms_px", np.nan)) if reg else np.nan)
+        acc.reg_n.append(int(getattr(reg, "n_points", 0) or 0) if reg else 0)
         acc.reg_rms_m.append(float(getattr(reg, "rms_floor_m", np.nan)) if reg else np.nan)
         acc.reg_fresh.append(fresh)
         fix = None
@@ -509,9 +546,11 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
                 allc = np.vstack([d.corners_px for d in dets])
                 h = frame.shape[0]
                 if video_info is not None:
-                    frac = float(np.mean(readout_fraction(allc[:, 0], allc[:, 1], video_info)))
+                    cfrac = readout_fraction(allc[:, 0], allc[:, 1], video_info)
                 else:
-                    frac = float(np.mean(allc[:, 1]) / h)
+                    cfrac = allc[:, 1] / h
+                frac = float(np.mean(cfrac))
+                acc.corner_frac[index] = np.asarray(cfrac, float)
                 cell = min(math.sqrt(_area(d.corners_px)) / det.cells_across(d.marker_index)
                            for d in dets)
                 nm = len(dets)
@@ -528,6 +567,37 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
     return acc
 
 
+def _robot_mask(robot, fix, reg, shape):
+    """Pixels the robot may cover (to keep it out of the floor registration), or None.
+
+    The robot's box (profile length, width, height, grown by the marker offsets and
+    20%) at its last pose is projected through the registration in effect.
+    """
+    if fix is None or reg is None or getattr(reg, "rvec", None) is None:
+        return None
+    reach = max(robot.length_m, robot.width_m) / 2.0 + max(
+        math.hypot(m.x_m, m.y_m) + m.size_m for m in robot.markers)
+    reach *= 1.2
+    top = max([robot.height_m] + [m.z_m for m in robot.markers]) + 0.05
+    sq = np.array([[-1, -1], [1, -1], [1, 1], [-1, 1]], float) * reach + (fix.x_m, fix.y_m)
+    pts = np.vstack([np.column_stack([sq, np.zeros(4)]), np.column_stack([sq, np.full(4, top)])])
+    try:
+        dist = getattr(reg, "dist_coeffs", None)
+        img, _ = cv2.projectPoints(pts, np.asarray(reg.rvec, float), np.asarray(reg.tvec, float),
+                                   np.asarray(reg.camera_matrix, float),
+                                   None if dist is None else np.asarray(dist, float))
+    except cv2.error:
+        return None
+    img = img.reshape(-1, 2)
+    if not np.all(np.isfinite(img)):
+        return None
+    h, w = shape[:2]
+    img = np.clip(img, -4 * w, 4 * w)
+    mask = np.zeros((h, w), np.uint8)
+    cv2.fillConvexPoly(mask, cv2.convexHull(np.round(img).astype(np.int32)), 1)
+    return mask.astype(bool)
+
+
 def _drop_outlier_marker(fix, dets, markers, reg):
     """With three or more markers, drop one whose removal cuts the misfit sharply."""
     best = (fix, dets)
@@ -539,6 +609,59 @@ def _drop_outlier_marker(fix, dets, markers, reg):
                 fix.chi2_unit / fix.dof > 25.0:
             best = (f, sub)
     return best
+
+
+def estimate_readout(fixes, corner_frac, vx, vy, omega, sigma_px, *, min_speed_mps=0.05):
+    """Rolling-shutter readout time from the shear of the markers in moving frames.
+
+    A corner read a fraction ``f`` of the readout later than the marker's mean row is
+    displaced by its velocity times ``(f - mean f) * readout``. That shear is what the
+    rigid fit leaves in its residuals; regressing the residuals on the predicted shear
+    (with the rigid part projected out) gives the readout time by weighted least
+    squares (model: Ringaby & Forssen, IJCV 96:335, 2012, row-wise exposure).
+
+    Parameters
+    ----------
+    fixes : list of PoseFix
+        Fits of the frames with detections.
+    corner_frac : list of ndarray
+        Readout fraction of each corner of each fix.
+    vx, vy, omega : ndarray
+        Floor velocity [m/s] and yaw rate [rad/s] at each fix (from a first smoothing).
+    sigma_px : float
+        Corner noise [px].
+
+    Returns
+    -------
+    tuple of float
+        ``(readout_s, sigma_s, frames_used)``; NaN when no frame moved enough.
+    """
+    num = den = 0.0
+    used = 0
+    for f, cf, u, v, w in zip(fixes, corner_frac, vx, vy, omega, strict=True):
+        if f.floor_m is None or not np.isfinite(u) or math.hypot(u, v) < min_speed_mps:
+            continue
+        rel = f.floor_m - (f.x_m, f.y_m)
+        vel = np.column_stack([u - w * rel[:, 1], v + w * rel[:, 0]])
+        g = vel * (cf - cf.mean())[:, None]
+        A, W = f.jac, f.weight
+        info = np.einsum("nji,njk,nkl->il", A, W, A)
+        try:
+            inv = np.linalg.inv(info)
+        except np.linalg.LinAlgError:
+            continue
+
+        def perp(vec, A=A, W=W, inv=inv):
+            coef = inv @ np.einsum("nji,njk,nk->i", A, W, vec)
+            return vec - np.einsum("nij,j->ni", A, coef)
+
+        gp, dp = perp(g), perp(f.resid_m)
+        num += float(np.einsum("ni,nij,nj->", gp, W, dp))
+        den += float(np.einsum("ni,nij,nj->", gp, W, gp))
+        used += 1
+    if den <= 0:
+        return float("nan"), float("nan"), used
+    return num / den, sigma_px / math.sqrt(den), used
 
 
 def _segments(detected_idx, t, max_gap_s):
@@ -553,8 +676,40 @@ def _segments(detected_idx, t, max_gap_s):
     return segs
 
 
+def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov, reg_err, mpp, sigma_px,
+            corner_bias_px):
+    """Smooth each segment of detections onto its frame times; NaN elsewhere."""
+    n = t.size
+    out = {c: np.full(n, np.nan) for c in TRACK_COLUMNS}
+    out["t_s"] = t
+    interpolated = np.zeros(n, bool)
+    fits = []
+    for a, b in segs:
+        m = (idx >= a) & (idx <= b)
+        rows = np.arange(a, b + 1)
+        sx = smooth_ca(t_meas[m], x[m], np.sqrt(cov[m, 0, 0]), t[rows])
+        sy = smooth_ca(t_meas[m], y[m], np.sqrt(cov[m, 1, 1]), t[rows])
+        sh = smooth_ca(t_meas[m], th[m], np.sqrt(cov[m, 2, 2]), t[rows])
+        fits.append((sx.q, sx.r_scale, sy.q, sy.r_scale, sh.q, sh.r_scale))
+        out["x_m"][rows] = sx.value
+        out["y_m"][rows] = sy.value
+        out["heading_rad"][rows] = sh.value
+        out["vx_mps"][rows] = sx.rate
+        out["vy_mps"][rows] = sy.rate
+        out["omega_radps"][rows] = sh.rate
+        out["ax_mps2"][rows] = sx.accel
+        out["ay_mps2"][rows] = sy.accel
+        reg_var = np.nan_to_num(reg_err[rows]) ** 2 + 2.0 * (corner_bias_px * mpp[rows]) ** 2
+        out["sigma_xy_m"][rows] = np.sqrt(sx.sigma_value**2 + sy.sigma_value**2 + reg_var)
+        # Systematic corner error (not averaged by the smoother), independent per corner.
+        hv = np.interp(rows, idx[m], cov[m, 2, 2] / sigma_px**2) * corner_bias_px**2
+        out["sigma_heading_rad"][rows] = np.sqrt(sh.sigma_value**2 + hv)
+        interpolated[rows] = ~ok[rows]
+    return out, interpolated, fits
+
+
 def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_gap_s,
-            corner_sigma_px, field_profile, warnings, corner_bias_px=0.15):
+            corner_sigma_px, field_profile, warnings, corner_bias_px=0.10):
     """Smooth the per-frame fixes into the truth track and gather the quality."""
     n = len(acc.t)
     t = np.asarray(timing.t_s if timing is not None else acc.t, dtype=float)[:n]
@@ -589,37 +744,33 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
     cov = np.array([f.cov_unit for f in fixes]) * sigma_px**2
     frac = np.nan_to_num(np.asarray(acc.frac, float)[idx])
     t_meas = t[idx] + frac * readout_s
-    # Registration error at the robot: the registration's pixel residual carried to the
-    # floor through the image scale at the marker (floor metres per pixel there).
+    # Registration error at the robot: a least-squares fit of p parameters to n
+    # observations with residual sigma predicts with mean variance sigma^2 p / n (the
+    # trace of the hat matrix; e.g. Draper & Smith, Applied Regression Analysis, 3rd
+    # ed., section 8.1). Carried to the floor through the image scale at the marker.
     mpp = np.interp(np.arange(n), idx, [f.m_per_px for f in fixes])
     reg_px = np.asarray(acc.reg_rms_px, float)
-    reg_err = np.where(np.isfinite(reg_px), reg_px * mpp, np.asarray(acc.reg_rms_m, float))
-    out = {c: np.full(n, np.nan) for c in TRACK_COLUMNS}
-    out["t_s"] = t
-    detected = ok.copy()
-    interpolated = np.zeros(n, bool)
-    gaps = []
-    fits = []
+    reg_n = np.maximum(np.asarray(acc.reg_n, float), REGISTRATION_PARAMS)
+    reg_err = reg_px * np.sqrt(REGISTRATION_PARAMS / reg_n) * mpp
+    reg_err = np.where(np.isfinite(reg_err), reg_err, np.asarray(acc.reg_rms_m, float))
     segs = _segments(idx, t, max_gap_s)
-    for a, b in segs:
-        m = (idx >= a) & (idx <= b)
-        rows = np.arange(a, b + 1)
-        sx = smooth_ca(t_meas[m], x[m], np.sqrt(cov[m, 0, 0]), t[rows])
-        sy = smooth_ca(t_meas[m], y[m], np.sqrt(cov[m, 1, 1]), t[rows])
-        sh = smooth_ca(t_meas[m], th[m], np.sqrt(cov[m, 2, 2]), t[rows])
-        fits.append((sx.q, sx.r_scale, sy.q, sy.r_scale, sh.q, sh.r_scale))
-        out["x_m"][rows] = sx.value
-        out["y_m"][rows] = sy.value
-        out["heading_rad"][rows] = sh.value
-        out["vx_mps"][rows] = sx.rate
-        out["vy_mps"][rows] = sy.rate
-        out["omega_radps"][rows] = sh.rate
-        out["ax_mps2"][rows] = sx.accel
-        out["ay_mps2"][rows] = sy.accel
-        reg_var = np.nan_to_num(reg_err[rows]) ** 2 + 2.0 * (corner_bias_px * mpp[rows]) ** 2
-        out["sigma_xy_m"][rows] = np.sqrt(sx.sigma_value**2 + sy.sigma_value**2 + reg_var)
-        out["sigma_heading_rad"][rows] = sh.sigma_value
-        interpolated[rows] = ~ok[rows]
+    first = _smooth(t, idx, ok, segs, t_meas, x, y, th, cov, reg_err, mpp, sigma_px,
+                    corner_bias_px)
+    est, est_sigma, est_frames = estimate_readout(
+        fixes, [acc.corner_frac.get(int(i), np.zeros(0)) for i in idx],
+        first[0]["vx_mps"][idx], first[0]["vy_mps"][idx], first[0]["omega_radps"][idx],
+        sigma_px)
+    usable = (math.isfinite(est) and est_sigma < 0.004 and est > 3 * est_sigma
+              and est < 0.1)
+    if readout_source == "none" and usable:
+        readout_s, readout_source = est, "estimated"
+        t_meas = t[idx] + frac * readout_s
+        first = _smooth(t, idx, ok, segs, t_meas, x, y, th, cov, reg_err, mpp, sigma_px,
+                        corner_bias_px)
+    out, interpolated, fits = first
+    detected = ok.copy()
+    gaps = []
+
     # Long gaps: between segments and at the ends.
     bounds = [(-1, segs[0][0])] + [(segs[k][1], segs[k + 1][0]) for k in range(len(segs) - 1)]
     bounds.append((segs[-1][1], n))
@@ -652,6 +803,9 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
         "corner_bias_px": corner_bias_px,
         "readout_s": readout_s,
         "readout_source": readout_source,
+        "readout_estimate_s": est,
+        "readout_estimate_sigma_s": est_sigma,
+        "readout_estimate_frames": est_frames,
         "rejected_jumps": acc.rejected,
         "window_searches": acc.window_searches,
         "full_frame_searches": acc.full_searches,
@@ -669,6 +823,7 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
             "rms_px_median": _nanmedian(acc.reg_rms_px),
             "rms_floor_m_median": _nanmedian(acc.reg_rms_m),
             "camera_still": bool(acc.policy.still),
+            "camera_moved_count": acc.policy.moved_count,
             "failures": dict(acc.policy.failures),
         },
     }
@@ -689,6 +844,17 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
         warnings.append(
             f"the marker measures {100 * quality['marker_scale_median']:.1f}% of the size "
             "in the robot profile (with the marker height as given); check size_m and z_m"
+        )
+    if readout_source == "estimated":
+        warnings.append(
+            f"rolling-shutter readout estimated from the marker shear: {1000 * est:.1f} "
+            f"+- {1000 * est_sigma:.1f} ms (none in the camera profile); put the right value "
+            "in the camera profile (readout_s) if known"
+        )
+    elif readout_source != "none" and usable and abs(est - readout_s) > 4 * est_sigma + 0.003:
+        warnings.append(
+            f"the marker shear suggests a readout of {1000 * est:.1f} +- {1000 * est_sigma:.1f}"
+            f" ms, not the {1000 * readout_s:.1f} ms used; check readout_s"
         )
     if readout_source == "none":
         warnings.append(
@@ -750,7 +916,7 @@ def _size_warnings(acc, robot, field_profile, quality, warnings):
 
 def track_video(video_path, robot, field, camera=None, *, registrar=None, progress=None,
                 refine="apriltag", readout_s=None, max_gap_s=0.25, corner_sigma_px=None,
-                corner_bias_px=0.15, window=True, threaded=True, register_every="auto",
+                corner_bias_px=0.10, window=True, threaded=True, register_every="auto",
                 max_speed_mps=5.0):
     """Track the robot through a video: the truth track with its 1-sigma.
 
@@ -780,8 +946,8 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
     corner_bias_px : float
         1-sigma of a shift common to all corners of a marker (blur, sampling, print),
         which fit residuals cannot reveal; it is not averaged down by the smoother [px].
-        Default 0.15 px: sub-pixel corner detectors are good to about 0.1-0.2 px in
-        absolute terms (domain notes section 1, measured).
+        Default 0.1 px: the residual bias of the AprilTag refinement after the convention
+        shift was 0.07 px on synthetic frames (tests/test_track.py set-up, measured).
     window : bool
         Search a window around the predicted marker position first.
     threaded : bool

@@ -353,7 +353,7 @@ class VideoReader:
             index = len(self._t)
             t = t_ms / 1000.0
             if self.check_identical:
-                small = frame[::16, ::16, 1].tobytes()
+                small = frame[::24, ::24, 1].tobytes()
                 same = small == prev_small
                 prev_small = small
             else:
