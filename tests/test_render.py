@@ -320,3 +320,34 @@ def test_lens_that_cannot_be_inverted_is_refused():
     cam = CameraProfile(320, 240, 150.0, 150.0, 160.0, 120.0, (-2.0, 0.0, 0.0, 0.0, 0.0))
     with pytest.raises(InputError, match="cannot be inverted"):
         camera_rays(cam)
+
+
+def test_moving_camera_blurs_the_floor_by_its_travel():
+    """A camera gliding sideways at v during exposure T smears a floor edge into a ramp
+    f v T / Z px wide centred on the mid-exposure position (box-filter blur, common
+    practice), like the robot's blur but from the camera's own motion."""
+    cam = CameraProfile(640, 480, 600.0, 600.0, 320.0, 240.0)
+    fm = FloorMarker(2, "DICT_4X4_50", 0.3, 1.2, 1.23, 0.0)
+    field = FieldProfile(4, 4, 0.6096, floor_markers=(fm,))
+    height, speed, exposure = 1.5, 1.0, 0.02
+    rot = np.diag([1.0, -1.0, -1.0])  # straight down: image u along floor +x
+
+    def camera_pose_at(t):
+        return cv2.Rodrigues(rot)[0].ravel(), -rot @ np.array([1.2 + speed * t, 1.23, height])
+
+    gen = render_frames(field, _robot(), cam, frame_times_s=[0.0, 0.1],
+                        pose_at=lambda t: np.tile([9.0, 9.0, 0.0], (np.size(t), 1)),
+                        camera_pose_at=camera_pose_at, exposure_s=exposure, noise_sigma=0.0,
+                        seed=0)
+    profile = next(iter(gen))[230:251, :, 1].astype(float).mean(axis=0)
+    # the camera moves +x, so the floor moves -u; the marker's black border meets its
+    # white quiet zone at floor x = 1.2 + 0.15, i.e. u = cx + f 0.15 / Z at mid-exposure
+    edge_u = cam.cx_px + cam.fx_px * 0.15 / height
+    width_px = cam.fx_px * speed * exposure / height
+    e = int(round(edge_u))
+    black, white = profile[e - 12:e - 8].mean(), profile[e + 8:e + 12].mean()
+    frac = (profile[e - 8:e + 9] - black) / (white - black)
+    inside = np.flatnonzero((frac > 0.1) & (frac < 0.9))
+    assert abs(inside.size / 0.8 - width_px) < 2.5
+    u = np.arange(e - 8, e + 9)
+    assert abs(np.interp(0.5, frac, u) - edge_u) < 1.0
