@@ -544,6 +544,8 @@ def render_frames(field: FieldProfile, robot: RobotProfile, camera: CameraProfil
         raise InputError("render: exposure_s and noise_sigma must not be negative")
     if samples_per_px is not None and samples_per_px < 1:
         raise InputError("render: samples_per_px must be at least 1")
+    if seed < 0 or floor_seed < 0:
+        raise InputError("render: seed and floor_seed must not be negative")
     return _frames(field, robot, camera, times, pose_at, camera_pose_at, float(exposure_s),
                    float(noise_sigma), int(seed), int(floor_seed), samples_per_px,
                    floor_texel_m, quiet_modules, contact_shadow)
