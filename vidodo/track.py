@@ -12,6 +12,9 @@ After the video: the corner noise is estimated from the fit residuals of the who
 run, and a Rauch-Tung-Striebel smoother (:mod:`vidodo.smooth`) turns the detections
 into position, velocity and acceleration at every frame time, with a 1-sigma that
 adds the registration error. Short gaps are bridged and flagged, long gaps left NaN.
+The rolling-shutter readout time is also estimated from the shear it leaves in the
+markers of moving frames (:func:`estimate_readout`); it is used when the camera
+profile gives none, and a disagreement with the profile is reported.
 
 Only a few frames are held at once (see :class:`vidodo.video.VideoReader`).
 """
@@ -41,6 +44,7 @@ __all__ = [
     "save_track_csv",
     "load_track_csv",
     "REFINE_METHODS",
+    "estimate_readout",
 ]
 
 TRACK_COLUMNS = [
