@@ -15,8 +15,6 @@ Tests that ask for video should be marked ``@pytest.mark.slow``.
 
 from __future__ import annotations
 
-import hashlib
-import json
 import os
 import shutil
 from pathlib import Path
@@ -26,32 +24,15 @@ import pytest
 ROOT = Path(__file__).resolve().parents[1]
 CACHE = Path(os.environ.get("VIDODO_RUN_CACHE", ROOT / ".cache" / "runs"))
 SMALL = {"video.width_px": 640, "video.height_px": 360}
-_RUN_MODULES = ("scenario", "motion", "sensors", "simulate", "render", "render_floor",
-                "encode", "profiles", "se2", "wheels", "outputs")
-
-
-def _code_hash() -> str:
-    h = hashlib.sha256()
-    pkg = ROOT / "vidodo"
-    for name in _RUN_MODULES:
-        p = pkg / f"{name}.py"
-        if p.exists():
-            h.update(name.encode() + p.read_bytes())
-    for p in sorted((pkg / "scenarios").glob("*.toml")):
-        h.update(p.name.encode() + p.read_bytes())
-    return h.hexdigest()
-
-
 def _render(name="default", seed=0, video=True, **overrides) -> Path:
     from vidodo.scenario import load_scenario
-    from vidodo.simulate import simulate_run
+    from vidodo.simulate import run_cache_key, simulate_run
 
     ov = dict(SMALL)
     ov.update({k.replace("__", "."): v for k, v in overrides.items()})
     sc = load_scenario(name, **ov)
-    key = json.dumps({"data": sc.data, "seed": seed, "video": bool(video),
-                      "code": _code_hash()}, sort_keys=True, default=str)
-    folder = CACHE / hashlib.sha256(key.encode()).hexdigest()[:20]
+    key = run_cache_key(sc, seed, video=video)
+    folder = CACHE / key
     done = folder / ".complete"
     if done.exists():
         return folder

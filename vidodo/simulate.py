@@ -251,3 +251,30 @@ def _write_video(sc, seed, m: Motion, t_frames, cam_pose, path, progress):
 
     encode.write_video(path, counted(), t_frames, codec=sc.video.codec, crf=sc.video.crf,
                        fps_nominal=sc.video.fps)
+
+
+# Modules whose source decides what a rendered run looks like; a change to any of them
+# invalidates cached runs (the demo's and the tests').
+RUN_MODULES = ("scenario", "motion", "sensors", "simulate", "render", "render_floor",
+               "render_robot", "encode", "profiles", "se2", "wheels", "outputs")
+
+
+def run_cache_key(sc: Scenario, seed: int, *, video: bool = True) -> str:
+    """A short hash of everything that decides a rendered run's bytes.
+
+    Covers the scenario after overrides, the seed, whether video is wanted, and the
+    source of every module in :data:`RUN_MODULES` plus the shipped scenarios.
+    """
+    import hashlib
+
+    h = hashlib.sha256()
+    pkg = Path(__file__).resolve().parent
+    for name in RUN_MODULES:
+        p = pkg / f"{name}.py"
+        if p.exists():
+            h.update(name.encode() + p.read_bytes())
+    for p in sorted((pkg / "scenarios").glob("*.toml")):
+        h.update(p.name.encode() + p.read_bytes())
+    key = json.dumps({"data": sc.data, "seed": seed, "video": bool(video),
+                      "code": h.hexdigest()}, sort_keys=True, default=str)
+    return hashlib.sha256(key.encode()).hexdigest()[:20]

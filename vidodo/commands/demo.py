@@ -7,7 +7,6 @@ seed and vidodo version are unchanged.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import time
 from pathlib import Path
@@ -25,19 +24,12 @@ def add_arguments(parser):
     parser.add_argument("--rerender", action="store_true", help="ignore the cached run")
 
 
-def _cache_key(scenario_text: str, seed: int) -> str:
-    from vidodo import __version__
-
-    h = hashlib.sha256(f"{__version__}\n{seed}\n{scenario_text}".encode())
-    return h.hexdigest()[:16]
-
-
 def _ensure_run(args, out: Path, progress) -> Path:
-    from vidodo.scenario import load_scenario, scenario_text
-    from vidodo.simulate import simulate_run
+    from vidodo.scenario import load_scenario
+    from vidodo.simulate import run_cache_key, simulate_run
 
     scenario = load_scenario(args.scenario)
-    key = _cache_key(scenario_text(scenario), args.seed)
+    key = run_cache_key(scenario, args.seed)
     run = out / "run"
     stamp = run / ".vidodo-cache"
     if not args.rerender and stamp.is_file() and stamp.read_text().strip() == key:
