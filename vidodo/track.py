@@ -60,6 +60,11 @@ REFINE_METHODS = {
     "apriltag": cv2.aruco.CORNER_REFINE_APRILTAG,
 }
 
+CORNER_SHAPE_PX = 0.14
+"""1-sigma of the systematic error of each corner on its own (not averaged by the
+smoother) [px]: the per-corner scatter of the AprilTag refinement on synthetic frames
+with exactly known corners was 0.14 px RMS (tests/test_track.py set-up, measured)."""
+
 REGISTRATION_PARAMS = 8
 """Parameters a floor registration fits: camera pose (6) plus up to two lens terms."""
 
@@ -79,7 +84,8 @@ class TrackResult:
     ``sigma_xy_m`` is the RMS of the position error magnitude: the smoother's
     uncertainty from corner noise, plus a common shift of all corners (``corner_bias_px``
     per axis) and the registration's prediction error, both carried to the floor at the
-    marker's image scale; ``sigma_heading_rad`` adds ``corner_bias_px`` per corner)."""
+    marker's image scale, and :data:`CORNER_SHAPE_PX` per corner, which also bounds
+    ``sigma_heading_rad``)."""
     quality: dict
     """Frames, detection fraction, marker cell size [px], gaps, dropped/duplicated
     frames, registration statistics, readout time [s], corner noise [px]."""
@@ -703,10 +709,14 @@ def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov, reg_err, mpp, sigma_px,
         out["omega_radps"][rows] = sh.rate
         out["ax_mps2"][rows] = sx.accel
         out["ay_mps2"][rows] = sy.accel
-        reg_var = np.nan_to_num(reg_err[rows]) ** 2 + 2.0 * (corner_bias_px * mpp[rows]) ** 2
+        shape_px = CORNER_SHAPE_PX
+        unit = cov[m] / sigma_px**2
+        reg_var = (np.nan_to_num(reg_err[rows]) ** 2 + 2.0 * (corner_bias_px * mpp[rows]) ** 2
+                   + shape_px**2 * (np.interp(rows, idx[m], unit[:, 0, 0])
+                                    + np.interp(rows, idx[m], unit[:, 1, 1])))
         out["sigma_xy_m"][rows] = np.sqrt(sx.sigma_value**2 + sy.sigma_value**2 + reg_var)
         # Systematic corner error (not averaged by the smoother), independent per corner.
-        hv = np.interp(rows, idx[m], cov[m, 2, 2] / sigma_px**2) * corner_bias_px**2
+        hv = np.interp(rows, idx[m], unit[:, 2, 2]) * shape_px**2
         out["sigma_heading_rad"][rows] = np.sqrt(sh.sigma_value**2 + hv)
         interpolated[rows] = ~ok[rows]
     return out, interpolated, fits
@@ -805,6 +815,7 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
         "corner_sigma_px": sigma_px,
         "corner_sigma_source": sigma_source,
         "corner_bias_px": corner_bias_px,
+        "corner_shape_px": CORNER_SHAPE_PX,
         "readout_s": readout_s,
         "readout_source": readout_source,
         "readout_estimate_s": est,
