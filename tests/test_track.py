@@ -489,3 +489,25 @@ def test_readout_estimated_from_marker_shear():
     assert q["readout_source"] == "estimated"
     assert abs(q["readout_estimate_s"] - readout) < max(3 * q["readout_estimate_sigma_s"], 0.01)
     assert any("readout estimated" in w for w in warnings)
+
+
+@pytest.mark.slow
+def test_track_command_keeps_track_of_truncated_video(rendered_run, tmp_path):
+    """A cut file: exit code 2 (bad input) naming the frame, and the CSV up to the cut."""
+    from vidodo.cli_main import main
+
+    run = rendered_run("default", 0, video__max_duration_s=4.0)
+    # Index first (as phones write it), so that a cut file still opens.
+    front = tmp_path / "front.mp4"
+    subprocess.run(["ffmpeg", "-loglevel", "error", "-y", "-i", str(run / "video.mp4"),
+                    "-c", "copy", "-movflags", "+faststart", str(front)], check=True)
+    data = front.read_bytes()
+    cut = tmp_path / "cut.mp4"
+    cut.write_bytes(data[: int(len(data) * 0.6)])
+    out = tmp_path / "track.csv"
+    code = main(["track", str(cut), "--robot", str(run / "robot.toml"), "--field",
+                 str(run / "field.toml"), "--camera", str(run / "camera.toml"),
+                 "--out", str(out), "--quiet"])
+    assert code == 2
+    tr = load_track_csv(out)
+    assert 10 < len(tr) < 120
