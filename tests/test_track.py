@@ -241,6 +241,21 @@ def test_corners_agree_with_apriltag3():
     assert np.mean(truth_err) < 0.5
 
 
+def test_upscaled_window_keeps_pixel_convention():
+    """Corners found in a 2x enlarged window map back onto the true corners.
+
+    Pixel centres at integers at both scales (OpenCV convention): x = (x2 + 0.5)/2 - 0.5.
+    """
+    det = MarkerDetector((TAG,), refine="apriltag")
+    frame, truth = render((TAG,), (0.9, 0.8, 0.7), rng=np.random.default_rng(9))
+    c = truth[0]
+    roi = (int(c[:, 0].min()) - 20, int(c[:, 1].min()) - 20,
+           int(c[:, 0].max()) + 20, int(c[:, 1].max()) + 20)
+    big = det.detect(frame, roi, upscale=2)
+    assert len(big) == 1
+    assert np.mean(np.linalg.norm(big[0].corners_px - c, axis=1)) < 0.3
+
+
 def test_wrong_ids_ignored_and_listed():
     """Only the robot's (family, id) counts; a missing marker error lists seen IDs."""
     other = Marker(id=7, family="DICT_APRILTAG_36h11", size_m=0.12, z_m=0.25)

@@ -167,7 +167,7 @@ class MarkerDetector:
         """Cells across the black square of a marker (bits + 2 border cells)."""
         return self.cells[self.markers[marker_index].family]
 
-    def detect(self, frame, roi=None, *, coarse=False):
+    def detect(self, frame, roi=None, *, coarse=False, upscale=1):
         """Detect the robot's markers in ``frame`` (optionally only inside ``roi``).
 
         Parameters
@@ -178,6 +178,9 @@ class MarkerDetector:
             ``(u0, v0, u1, v1)`` window to search [px].
         coarse : bool
             Skip corner refinement (a fast whole-frame search to find a window).
+        upscale : int
+            Enlarge the window this many times (bicubic) before detecting, which finds
+            markers whose cells are only 2-3 px wide.
 
         Returns
         -------
@@ -191,6 +194,9 @@ class MarkerDetector:
             img = frame[v0:v1, u0:u1]
         if img.ndim == 3:
             img = cv2.cvtColor(img, cv2.COLOR_BGR2GRAY)
+        k = max(int(upscale), 1)
+        if k > 1:
+            img = cv2.resize(img, None, fx=k, fy=k, interpolation=cv2.INTER_CUBIC)
         found: dict[int, np.ndarray] = {}
         shift = 0.0 if coarse else self._shift
         for family, det in (self._coarse if coarse else self._detectors).items():
@@ -203,7 +209,8 @@ class MarkerDetector:
                 idx = self._lookup.get(key)
                 if idx is None:
                     continue
-                pts = c.reshape(4, 2).astype(np.float64) + (u0 + shift, v0 + shift)
+                # Pixel centres at integers at both scales: x = (x_k + 0.5) / k - 0.5.
+                pts = (c.reshape(4, 2).astype(np.float64) + shift + 0.5) / k - 0.5 + (u0, v0)
                 if idx in found and _area(found[idx]) >= _area(pts):
                     continue
                 found[idx] = pts
@@ -413,6 +420,7 @@ class _Acc:
     window_searches: int = 0
     repeated: int = 0
     unrefined: int = 0
+    upscaled: int = 0
     corner_frac: dict = field(default_factory=dict)  # frame index -> (N,) fractions
     predicted_cells: list = field(default_factory=list)
 
@@ -503,6 +511,7 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
     last_index = -1
     last_fix = None
     last_fix_t = -math.inf
+    last_cell = math.inf
     for index, t_s, frame in frames:
         acc.t.append(float(t_s))
         reg, fresh = policy.update(
@@ -530,6 +539,9 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
             if roi is not None:
                 acc.window_searches += 1
                 dets = det.detect(frame, roi)
+                if not dets and last_cell < 4.0:  # small marker: try a 2x enlarged window
+                    dets = det.detect(frame, roi, upscale=2)
+                    acc.upscaled += bool(dets)
             if not dets:
                 acc.full_searches += 1
                 found = det.detect(frame, coarse=True)
@@ -564,6 +576,7 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
                 cell = min(math.sqrt(_area(d.corners_px)) / det.cells_across(d.marker_index)
                            for d in dets)
                 nm = len(dets)
+                last_cell = cell
                 prev = last if index - last_index <= 3 else None
                 last = allc
                 last_index = index
@@ -825,6 +838,7 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
         "window_searches": acc.window_searches,
         "full_frame_searches": acc.full_searches,
         "unrefined_detections": acc.unrefined,
+        "upscaled_window_detections": acc.upscaled,
         "ids_seen": seen,
         "smoother": [dict(zip(("q_x", "r_x", "q_y", "r_y", "q_heading", "r_heading"), f,
                               strict=True)) for f in fits],
