@@ -264,8 +264,14 @@ def _apply(hm, pts):
     return p[:, :2] / p[:, 2:3]
 
 
-def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng):
-    """Image positions of every lattice corner of the field window (first guess)."""
+def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidates=3):
+    """Candidate field windows: image positions of every lattice corner (first guesses).
+
+    Returns
+    -------
+    (list of (ndarray (tiles_x+1, tiles_y+1, 2), list of str), int)
+        Candidates best first with their warnings, and the number of seam segments.
+    """
     h, w = grey.shape
     seg, (evidence, line_angle) = _segments(grey, ignore)
     if camera is not None and len(seg):
@@ -389,7 +395,7 @@ def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng):
 
     # Joint choice: the teeth of each family must carry evidence across the span of the
     # other family's field window (the seams run from one field edge to the other).
-    best = None
+    scored = []
     for assign in ((0, 1), (1, 0)):
         fa, fb = fam[assign[0]], fam[assign[1]]
         for ca in combs[assign[0], field.tiles_x][:4]:
@@ -397,13 +403,27 @@ def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng):
             for cb in combs[assign[1], field.tiles_y][:4]:
                 tb = cb[1] + cb[0] * np.arange(field.tiles_y + 1)
                 score = span_cover(fa, ta, fb, tb) + span_cover(fb, tb, fa, ta)
-                if best is None or score > best[0] + 1e-9:
-                    best = (score, assign, ca, cb)
-    if best is None:
+                scored.append((score, assign, ca, cb))
+    if not scored:
         raise CalibrationError(
             f"grid: no window of {field.tiles_x} x {field.tiles_y} tiles found in the seams; "
             "show the whole field or check tiles_x/tiles_y")
-    _score, assign, comb_x, comb_y = best
+    scored.sort(key=lambda x: -x[0])
+    # Close runners-up are kept: the seam fit decides between them (find_grid).
+    keep = [c for c in scored if c[0] >= 0.85 * scored[0][0]][:n_candidates]
+    lattices, errors = [], []
+    for _score, assign, comb_x, comb_y in keep:
+        try:
+            lattices.append(_lattice_corners(fam, assign, comb_x, comb_y, field, to_image))
+        except CalibrationError as exc:
+            errors.append(exc)
+    if not lattices:
+        raise errors[0]
+    return lattices, int(in1.sum() + in2.sum())
+
+
+def _lattice_corners(fam, assign, comb_x, comb_y, field, to_image):
+    """Image positions of the lattice corners of one field window, and warnings."""
     warnings = []
     out = []
     for f_i, (period, start, sc), n in ((assign[0], comb_x, field.tiles_x),
@@ -432,8 +452,7 @@ def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng):
         for j, py_ in enumerate(out[1]):
             corners[i, j] = np.linalg.solve(a_mat, [px_, py_]) + fx["ref"]
     img = to_image(corners.reshape(-1, 2))
-    return img.reshape(field.tiles_x + 1, field.tiles_y + 1, 2), int(in1.sum() + in2.sum()), \
-        warnings
+    return img.reshape(field.tiles_x + 1, field.tiles_y + 1, 2), warnings
 
 
 def _orient(lat_img, field: FieldProfile, origin: str):
@@ -490,6 +509,54 @@ def _homography_from_lattice(lat_img, floor):
     return hmg
 
 
+def _fit_lattice(grey, field, lat_img, camera, ignore, marker_px, marker_fl, warnings):
+    """Orient one candidate lattice, fit the camera to its corners, refine on the seams."""
+    from .register import check_correspondences, fit_camera
+
+    h, w = grey.shape
+    candidates = [field.origin_hint]
+    origin_from = "hint"
+    if marker_px is not None and len(marker_px):
+        candidates = list(CORNER_NAMES)
+        origin_from = "floor marker"
+    best = None
+    for origin in candidates:
+        try:
+            floor = _orient(lat_img, field, origin)
+        except CalibrationError:
+            if len(candidates) == 1:
+                raise
+            continue
+        if origin_from == "floor marker":
+            hmg = _homography_from_lattice(lat_img, floor)
+            guess = cv2.perspectiveTransform(marker_px.reshape(-1, 1, 2),
+                                             np.linalg.inv(hmg)).reshape(-1, 2)
+            err = float(np.mean(np.linalg.norm(guess - marker_fl, axis=1)))
+        else:
+            err = 0.0
+        if best is None or err < best[0]:
+            best = (err, origin, floor)
+    if best is None:
+        raise CalibrationError("grid: no field corner fits the tile counts; check "
+                               "tiles_x and tiles_y")
+    err, origin, floor = best
+    if origin_from == "floor marker" and err > 0.3 * field.tile_size_m:
+        warnings.append(f"floor marker is {err:.2f} m from its profile position under every "
+                        "origin choice; check its x_m, y_m")
+    pts_img = lat_img.reshape(-1, 2)
+    pts_fl = floor.reshape(-1, 2)
+    inside = ((pts_img[:, 0] > -0.5 * w) & (pts_img[:, 0] < 1.5 * w)
+              & (pts_img[:, 1] > -0.5 * h) & (pts_img[:, 1] < 1.5 * h))
+    check_correspondences(pts_img[inside], pts_fl[inside], where="grid corners")
+    fit0 = fit_camera((w, h), points=(pts_img[inside], pts_fl[inside]), camera=camera,
+                      fit_k1=False, outlier_px=None)
+    fit = refine_fit(grey, field, fit0, camera=camera, ignore=ignore)
+    if fit is None:
+        raise CalibrationError("grid: too few tile seams could be located precisely; "
+                               "check focus, lighting and tile contrast")
+    return fit, origin, origin_from, warnings
+
+
 def find_grid(grey, field: FieldProfile, *, camera: CameraProfile | None = None, ignore=None,
               detectors=None, seed=0) -> GridResult:
     """Register a frame from the tile grid alone.
@@ -517,56 +584,27 @@ def find_grid(grey, field: FieldProfile, *, camera: CameraProfile | None = None,
         No seams, one family only, too few seam lines for the field, or a fit that
         does not hold.
     """
-    from .register import check_correspondences, detect_floor_markers, fit_camera
+    from .register import detect_floor_markers
 
-    h, w = grey.shape
     rng = np.random.default_rng(seed)
-    lat_img, n_seg, warnings = _initial_lattice(grey, field, camera, ignore, rng)
-    warnings = list(warnings)
-    candidates = [field.origin_hint]
-    origin_from = "hint"
+    candidates, n_seg = _initial_lattice(grey, field, camera, ignore, rng)
     marker_px = marker_fl = None
     if field.floor_markers:
-        marker_px, marker_fl, seen = detect_floor_markers(grey, field, detectors=detectors,
-                                                          ignore=ignore)
-        if len(marker_px):
-            candidates = list(CORNER_NAMES)
-            origin_from = "floor marker"
-    best = None
-    for origin in candidates:
+        marker_px, marker_fl, _seen = detect_floor_markers(grey, field, detectors=detectors,
+                                                           ignore=ignore)
+    results = []
+    errors = []
+    for lat_img, lat_warnings in candidates:
         try:
-            floor = _orient(lat_img, field, origin)
-        except CalibrationError:
-            if len(candidates) == 1:
-                raise
-            continue
-        if marker_px is not None and len(marker_px):
-            hmg = _homography_from_lattice(lat_img, floor)
-            guess = cv2.perspectiveTransform(marker_px.reshape(-1, 1, 2),
-                                             np.linalg.inv(hmg)).reshape(-1, 2)
-            err = float(np.mean(np.linalg.norm(guess - marker_fl, axis=1)))
-        else:
-            err = 0.0
-        if best is None or err < best[0]:
-            best = (err, origin, floor)
-    if best is None:
-        raise CalibrationError("grid: no field corner fits the tile counts; check "
-                               "tiles_x and tiles_y")
-    err, origin, floor = best
-    if origin_from == "floor marker" and err > 0.3 * field.tile_size_m:
-        warnings.append(f"floor marker is {err:.2f} m from its profile position under every "
-                        "origin choice; check its x_m, y_m")
-    pts_img = lat_img.reshape(-1, 2)
-    pts_fl = floor.reshape(-1, 2)
-    inside = ((pts_img[:, 0] > -0.5 * w) & (pts_img[:, 0] < 1.5 * w)
-              & (pts_img[:, 1] > -0.5 * h) & (pts_img[:, 1] < 1.5 * h))
-    check_correspondences(pts_img[inside], pts_fl[inside], where="grid corners")
-    fit0 = fit_camera((w, h), points=(pts_img[inside], pts_fl[inside]), camera=camera,
-                      fit_k1=False, outlier_px=None)
-    fit = refine_fit(grey, field, fit0, camera=camera, ignore=ignore)
-    if fit is None:
-        raise CalibrationError("grid: too few tile seams could be located precisely; "
-                               "check focus, lighting and tile contrast")
+            results.append(_fit_lattice(grey, field, lat_img, camera, ignore, marker_px,
+                                        marker_fl, list(lat_warnings)))
+        except CalibrationError as exc:
+            errors.append(exc)
+    if not results:
+        raise errors[0]
+    # The window whose seams were found most completely and fit best.
+    fit, origin, origin_from, warnings = max(
+        results, key=lambda r: r[0].n_points / (1.0 + r[0].rms_px))
     return GridResult(fit, origin, origin_from, n_seg, tuple(warnings) + tuple(fit.warnings))
 
 
@@ -663,7 +701,7 @@ def seam_samples(grey, field: FieldProfile, reg, *, half_width_px=8.0, ignore=No
         n = np.column_stack([-tang[:, 1], tang[:, 0]])  # image normal of the seam
         # Pixels per metre across the seam, measured along the image normal.
         px_per_m = np.abs(np.sum(across * n, axis=1)) / delta
-    bg_px = 5.0
+    bg_px = max(2.5, half_width_px * 0.6)
     reach = half_width_px + bg_px
     ok = np.all(np.isfinite(p0), axis=1) & np.all(np.isfinite(n), axis=1)
     margin = reach + 6
@@ -774,7 +812,9 @@ def refine_fit(grey, field: FieldProfile, fit, *, camera: CameraProfile | None =
 
     h, w = grey.shape
     cur = fit
-    widths = (12.0, 6.0, 4.0)[-rounds:]
+    # Search widths scale with the image (tuned at 1280 x 720, diagonal 1469 px).
+    scale = float(np.clip(math.hypot(w, h) / 1469.0, 0.5, 1.5))
+    widths = tuple(v * scale for v in (12.0, 6.0, 4.0))[-rounds:]
     out = None
     for hw in widths[:rounds]:
         reg = FrameRegistration(0.0, True, cur.camera_matrix, cur.dist_coeffs, cur.rvec,
