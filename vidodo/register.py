@@ -56,6 +56,7 @@ __all__ = [
     "pose_from_homography",
     "fit_camera",
     "pose_fit_points",
+    "project_rows",
     "CameraFit",
     "detect_floor_markers",
     "field_polygon_px",
@@ -70,6 +71,34 @@ METHODS = ("auto", "markers", "points", "grid")
 #: still fix the plane; hand-picked points must be spread more (0.05, the default).
 MARKER_MIN_SPREAD = 0.02
 NAN3 = np.full(3, np.nan)
+
+
+def project_rows(obj, rvec, tvec, rvec_rate, tvec_rate, dt, camera_matrix, dist_coeffs,
+                 bands=32):
+    """Project points each with its own pose ``(rvec + dt*rvec_rate, tvec + dt*tvec_rate)``.
+
+    Points are grouped into ``bands`` equal slices of ``dt`` (one ``cv2.projectPoints``
+    call each); the pose inside a slice is that of its mean ``dt``.
+
+    Returns
+    -------
+    ndarray of shape (N, 2)
+    """
+    obj = np.asarray(obj, float).reshape(-1, 3)
+    dt = np.asarray(dt, float).ravel()
+    out = np.empty((len(obj), 2))
+    if len(obj) == 0:
+        return out
+    lo, hi = float(dt.min()), float(dt.max())
+    edges = np.linspace(lo, hi + 1e-12, bands + 1)
+    idx = np.clip(np.searchsorted(edges, dt, side="right") - 1, 0, bands - 1)
+    for b in np.unique(idx):
+        sel = idx == b
+        d_b = float(dt[sel].mean())
+        out[sel] = cv2.projectPoints(obj[sel], np.asarray(rvec, float) + d_b * rvec_rate,
+                                     np.asarray(tvec, float) + d_b * tvec_rate,
+                                     camera_matrix, dist_coeffs)[0].reshape(-1, 2)
+    return out
 
 
 # --------------------------------------------------------------------------- result
@@ -209,13 +238,9 @@ class FrameRegistration:
         img = img.reshape(-1, 2)
         if self.rolling:  # find the row each point is read at (fixed point, converges fast)
             for _ in range(3):
-                dt = self._row_dt(img[:, 1])
-                img = np.vstack([
-                    cv2.projectPoints(pts[i:i + 1], np.asarray(self.rvec, float)
-                                      + d * self.rvec_rate, np.asarray(self.tvec, float)
-                                      + d * self.tvec_rate, self.camera_matrix,
-                                      self.dist_coeffs)[0].reshape(1, 2)
-                    for i, d in enumerate(dt)])
+                img = project_rows(pts, self.rvec, self.tvec, self.rvec_rate, self.tvec_rate,
+                                   self._row_dt(img[:, 1]), self.camera_matrix,
+                                   self.dist_coeffs, bands=64)
         return img
 
     def summary(self) -> dict:
@@ -1029,10 +1054,8 @@ class FloorRegistrar:
             dt = np.clip(px[:, 1] / shape[0], 0, 1) * self.readout_s
             for _ in range(2):
                 top = cv2.projectPoints(obj, fit.rvec, fit.tvec, k, d)[0].reshape(-1, 2)
-                rowed = np.vstack([
-                    cv2.projectPoints(obj[i:i + 1], fit.rvec + dt[i] * self._rate[0],
-                                      fit.tvec + dt[i] * self._rate[1], k, d)[0].reshape(1, 2)
-                    for i in range(len(obj))])
+                rowed = project_rows(obj, fit.rvec, fit.tvec, self._rate[0], self._rate[1],
+                                     dt, k, d)
                 fit = pose_fit_points(px - (rowed - top), fl, k, d, fit.rvec, fit.tvec)
         return fit
 
