@@ -3,7 +3,8 @@
 Prints, per run: position error RMS / 95th percentile [mm], heading RMS [deg], share of
 frames with the marker visible where it was found, share of samples within 2 sigma
 (position and heading), and the largest difference between track times and the true
-presentation times [ms]. Then the four OpenCV corner refinements on the default run.
+presentation times [ms]. Then the OpenCV corner refinements (and vidodo's 'hybrid') on
+the default run.
 
 Only this script reads the truth files; the tracker never does.
 
@@ -100,7 +101,7 @@ def main(argv=None):
     if args.methods:
         run = rendered("default")
         print("\n== corner refinement on the default run")
-        for method in ("none", "subpix", "contour", "apriltag"):
+        for method in ("none", "subpix", "contour", "apriltag", "hybrid"):
             r = evaluate(run, refine=method)
             print(f"  {method:9s} RMS {r['rms_mm']:.2f} mm, p95 {r['p95_mm']:.2f} mm, heading "
                   f"{r['heading_rms_deg']:.3f} deg, found {100 * r['detected_of_visible']:.1f}%,"

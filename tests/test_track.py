@@ -210,7 +210,8 @@ def test_fit_pose_covariance_matches_monte_carlo():
 
 
 # -------------------------------------------------------------------- detection
-def test_corners_agree_with_apriltag3():
+@pytest.mark.parametrize("refine", ["apriltag", "hybrid"])
+def test_corners_agree_with_apriltag3(refine):
     """cv2.aruco corners (vidodo's default refinement) agree with AprilTag 3.
 
     The independent detector is the AprilTag 3 C library through pupil_apriltags.
@@ -222,7 +223,7 @@ def test_corners_agree_with_apriltag3():
     """
     apriltags = pytest.importorskip("pupil_apriltags")
     at = apriltags.Detector(families="tag36h11", quad_decimate=1.0, refine_edges=True)
-    det = MarkerDetector((TAG,), refine="apriltag")
+    det = MarkerDetector((TAG,), refine=refine)
     rng = np.random.default_rng(5)
     diffs, truth_err = [], []
     for pose in [(0.5, 0.6, 0.2), (1.3, 1.4, 2.5), (0.9, 0.3, -1.2), (1.5, 0.8, 4.0)]:

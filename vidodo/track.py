@@ -58,6 +58,7 @@ REFINE_METHODS = {
     "subpix": cv2.aruco.CORNER_REFINE_SUBPIX,
     "contour": cv2.aruco.CORNER_REFINE_CONTOUR,
     "apriltag": cv2.aruco.CORNER_REFINE_APRILTAG,
+    "hybrid": cv2.aruco.CORNER_REFINE_APRILTAG,
 }
 
 CORNER_SHAPE_PX = 0.14
@@ -124,14 +125,17 @@ class MarkerDetector:
     ----------
     markers : sequence of profiles.Marker
         The robot's markers (any mix of families).
-    refine : {'apriltag', 'subpix', 'contour', 'none'}
+    refine : {'hybrid', 'apriltag', 'subpix', 'contour', 'none'}
         OpenCV corner refinement. ``useAruco3Detection`` is never enabled, because it
         silently skips refinement. The AprilTag refinement returns corners in the
         AprilTag convention (pixel centres at 0.5, AprilRobotics/apriltag issue 121);
-        they are shifted by -0.5 px to OpenCV's convention.
+        they are shifted by -0.5 px to OpenCV's convention. 'hybrid' (the default)
+        keeps the AprilTag-refined shape (the most precise heading) but places it at the
+        centre of the SUBPIX-refined corners, which carry less common offset on small,
+        oblique markers (measured in ``benchmarks/track_accuracy.py --methods``).
     """
 
-    def __init__(self, markers, *, refine="apriltag"):
+    def __init__(self, markers, *, refine="hybrid"):
         if not markers:
             raise InputError("the robot profile lists no [[marker]]; add the robot's marker")
         if refine not in REFINE_METHODS:
@@ -141,8 +145,9 @@ class MarkerDetector:
         self._lookup = {}
         self._detectors = {}
         self._coarse = {}
+        self._subpix = {}
         self.cells = {}
-        self._shift = -0.5 if refine == "apriltag" else 0.0
+        self._shift = -0.5 if refine in ("apriltag", "hybrid") else 0.0
         for i, m in enumerate(self.markers):
             key = (m.family, int(m.id))
             if key in self._lookup:
@@ -156,12 +161,28 @@ class MarkerDetector:
                 params.useAruco3Detection = False
                 params.minMarkerPerimeterRate = 0.01
                 self._detectors[m.family] = cv2.aruco.ArucoDetector(d, params)
+                sp = cv2.aruco.DetectorParameters()
+                sp.cornerRefinementMethod = cv2.aruco.CORNER_REFINE_SUBPIX
+                sp.minMarkerPerimeterRate = 0.01
+                self._subpix[m.family] = cv2.aruco.ArucoDetector(d, sp)
                 coarse = cv2.aruco.DetectorParameters()
                 coarse.minMarkerPerimeterRate = 0.01
                 self._coarse[m.family] = cv2.aruco.ArucoDetector(d, coarse)
                 self.cells[m.family] = d.markerSize + 2 * params.markerBorderBits
         self.ids_seen: dict[tuple[str, int], int] = {}
         """Every (family, id) seen so far with its frame count, robot's or not."""
+
+    def _centre_from_subpix(self, family, img, marker_id, corners):
+        """Keep the AprilTag-refined shape, move it to the SUBPIX-refined centre."""
+        sub, ids, _ = self._subpix[family].detectMarkers(img)
+        if ids is None:
+            return corners
+        for c, i in zip(sub, ids.ravel(), strict=True):
+            if int(i) == marker_id:
+                centre = c.reshape(4, 2).astype(np.float64).mean(axis=0)
+                if np.linalg.norm(centre - corners.mean(axis=0)) < 2.0:
+                    return corners - corners.mean(axis=0) + centre
+        return corners
 
     def cells_across(self, marker_index: int) -> int:
         """Cells across the black square of a marker (bits + 2 border cells)."""
@@ -209,8 +230,11 @@ class MarkerDetector:
                 idx = self._lookup.get(key)
                 if idx is None:
                     continue
+                c = c.reshape(4, 2).astype(np.float64) + shift
+                if self.refine == "hybrid" and not coarse:
+                    c = self._centre_from_subpix(family, img, int(mid), c)
                 # Pixel centres at integers at both scales: x = (x_k + 0.5) / k - 0.5.
-                pts = (c.reshape(4, 2).astype(np.float64) + shift + 0.5) / k - 0.5 + (u0, v0)
+                pts = (c + 0.5) / k - 0.5 + (u0, v0)
                 if idx in found and _area(found[idx]) >= _area(pts):
                     continue
                 found[idx] = pts
@@ -480,7 +504,7 @@ def _camera_distance(reg, point_m, z_m):
 
 
 def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
-                 repeated=None, refine="apriltag", window=True, register_every="auto",
+                 repeated=None, refine="hybrid", window=True, register_every="auto",
                  max_speed_mps=5.0, max_omega_radps=25.0, progress=None, total=None,
                  acc=None):
     """Detect and fit the robot pose in a stream of frames (the streaming part).
@@ -944,7 +968,7 @@ def _size_warnings(acc, robot, field_profile, quality, warnings):
 
 
 def track_video(video_path, robot, field, camera=None, *, registrar=None, progress=None,
-                refine="apriltag", readout_s=None, max_gap_s=0.25, corner_sigma_px=None,
+                refine="hybrid", readout_s=None, max_gap_s=0.25, corner_sigma_px=None,
                 corner_bias_px=0.10, window=True, threaded=True, register_every="auto",
                 max_speed_mps=5.0):
     """Track the robot through a video: the truth track with its 1-sigma.
@@ -963,8 +987,9 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
         ``register.FloorRegistrar(field, camera)``.
     progress : callable, optional
         ``progress(frames_done, frames_total)``.
-    refine : {'apriltag', 'subpix', 'contour', 'none'}
-        Corner refinement (see ``benchmarks/track_accuracy.py`` for their accuracy).
+    refine : {'hybrid', 'apriltag', 'subpix', 'contour', 'none'}
+        Corner refinement (see :class:`MarkerDetector`; ``benchmarks/track_accuracy.py``
+        measures their accuracy).
     readout_s : float, optional
         Rolling-shutter readout time [s]; default the camera profile's (0 if none).
     max_gap_s : float

@@ -30,8 +30,8 @@ def add_arguments(parser):
     parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
     parser.add_argument("--camera", type=Path, help="camera profile (TOML): lens, readout")
     parser.add_argument("--out", type=Path, required=True, help="track CSV to write")
-    parser.add_argument("--refine", choices=("apriltag", "subpix", "contour", "none"),
-                        default="apriltag", help="corner refinement (default: %(default)s)")
+    parser.add_argument("--refine", choices=("hybrid", "apriltag", "subpix", "contour", "none"),
+                        default="hybrid", help="corner refinement (default: %(default)s)")
     parser.add_argument("--readout-ms", type=float,
                         help="rolling-shutter readout time [ms] (default: camera profile)")
     parser.add_argument("--max-gap-s", type=float, default=0.25,
