@@ -159,3 +159,33 @@ def test_calibrate_from_clip(tmp_path):
     k_ref, _ = stored_left_calibration()
     assert report.n_used >= 12
     np.testing.assert_allclose([cam.fx_px, cam.fy_px], [k_ref[0, 0], k_ref[1, 1]], rtol=0.01)
+
+
+def test_charuco_views_recover_known_lens(tmp_path):
+    """A ChArUco board (OpenCV's generateImage) seen through a known pinhole camera
+    (each view a homography K [r1 r2 t], warped with cv2.warpPerspective)."""
+    dic = "DICT_5X5_100"
+    squares, square_m, marker_m = (7, 5), 0.04, 0.03
+    board = cv2.aruco.CharucoBoard(squares, square_m, marker_m,
+                                   cv2.aruco.getPredefinedDictionary(cv2.aruco.DICT_5X5_100))
+    px_per_m = 4000.0
+    art = board.generateImage((int(squares[0] * square_m * px_per_m),
+                               int(squares[1] * square_m * px_per_m)))
+    k = np.array([[800.0, 0, 479.5], [0, 800.0, 359.5], [0, 0, 1]])
+    to_m = np.diag([1 / px_per_m, 1 / px_per_m, 1.0])
+    rng = np.random.default_rng(3)  # seed fixed; any spread of views will do
+    paths = []
+    for i in range(8):
+        rvec = rng.normal(0, 0.3, 3)
+        r = cv2.Rodrigues(rvec)[0]
+        t = np.array([-0.14, -0.1, 0.55]) + rng.normal(0, 0.03, 3)
+        hmg = k @ np.column_stack([r[:, 0], r[:, 1], t]) @ to_m
+        img = cv2.warpPerspective(art, hmg, (960, 720), flags=cv2.INTER_AREA,
+                                  borderValue=255)
+        paths.append(tmp_path / f"v{i}.png")
+        cv2.imwrite(str(paths[-1]), img)
+    cam, report = lens.calibrate_images(paths, squares, square_m, dictionary=dic,
+                                        marker_m=marker_m, zero_tangent=True)
+    assert report.n_used >= 6
+    np.testing.assert_allclose([cam.fx_px, cam.fy_px], [800, 800], rtol=0.02)
+    np.testing.assert_allclose([cam.cx_px, cam.cy_px], [479.5, 359.5], atol=12)
