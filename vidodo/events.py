@@ -23,7 +23,9 @@ Signals (all on the truth track's sample times, video clock)
   (default 0.067 s, two frames at 30 fps), projected on the direction of travel just
   before; 1-sigma ``sqrt(6) * sigma_xy / W^2``, checked against the data from the
   spread of its sample-to-sample changes (so the robot's own braking is not taken
-  for noise).
+  for noise). A smoothed track's stated sigma includes slow errors that this
+  difference does not see, so here the measured jitter may also lower the level, to
+  a fifth of the stated one at most; the deceleration floors below still apply.
 * **Heading error.** IMU heading minus truth heading, differenced over
   ``heading_window_s``.
 
@@ -253,7 +255,7 @@ def _interp(tq, t, v):
     return np.interp(tq, t, v, left=np.nan, right=np.nan)
 
 
-def _hinge(t, d, lo, hi, side):
+def _hinge(t, d, lo, hi, side, t0_lo=-np.inf, t0_hi=np.inf):
     """Change point of ``d`` in [lo, hi]: flat then rising ('start') or the reverse.
 
     Least-squares fit of ``c + r * max(0, t - t0)**p`` (start) or
@@ -267,6 +269,8 @@ def _hinge(t, d, lo, hi, side):
         return None
     best, arg = np.inf, None
     for t0 in tt[1:-1]:
+        if not t0_lo <= t0 <= t0_hi:
+            continue
         base = np.maximum(0.0, tt - t0) if side == "start" else np.maximum(0.0, t0 - tt)
         for power in (1, 2, 3):
             a = np.column_stack([np.ones_like(base), base**power])
@@ -285,16 +289,18 @@ def _robust_scale(z):
     return max(1.0, mad)
 
 
-def _noise_scale(t, z, half_s=LOCAL_NOISE_HALF_S):
+def _noise_scale(t, z, half_s=LOCAL_NOISE_HALF_S, floor=1.0):
     """Per-sample factor by which the residuals ``z`` (in sigma) exceed their sigma.
 
     The larger of the run's robust spread and that within +-``half_s`` (1.4826 times
-    the median absolute value, common practice), never below 1. The local part catches
+    the median absolute value, common practice), never below ``floor``. The local part catches
     stretches where the truth track is worse than it says (a swaying hand-held camera);
     a fault of a few tenths of a second barely moves a median over three seconds.
     """
     z = np.asarray(z, dtype=float).reshape(len(t), -1)
-    base = _robust_scale(z.ravel())
+    zz = z[np.isfinite(z)]
+    base = max(floor, 1.4826 * float(np.median(np.abs(zz - np.median(zz))))) \
+        if zz.size >= 20 else 1.0
     out = np.full(len(t), base)
     az = np.abs(z)
     lo = np.searchsorted(t, t - half_s)
@@ -406,8 +412,11 @@ def _levels(st, scale_on=1.0):
 def _refine(t, d, a, b, w):
     """Onset and end from hinge fits of the cumulative discrepancy ``d``."""
     mid = 0.5 * (t[a] + t[b])
-    t0 = _hinge(t, d, t[a] - w - 0.3, mid, "start")
-    t1 = _hinge(t, d, mid, t[b] + w + 0.3, "end")
+    # the first window that clearly sees a fault is centred at most about w/4 after
+    # it starts for any fault big enough to be found; earlier samples are baseline
+    # (a smoothed truth track rings before a stop, which must not pull the onset)
+    t0 = _hinge(t, d, t[a] - w - 0.3, mid, "start", t0_lo=t[a] - 0.25 * w - 0.04)
+    t1 = _hinge(t, d, mid, t[b] + w + 0.3, "end", t0_hi=t[b] + 0.25 * w + 0.04)
     t0 = t[a] if t0 is None else t0
     t1 = t[b] if t1 is None else t1
     if t1 < t0:
@@ -697,8 +706,11 @@ def _impacts(tr, t, pose_t, st, noise, add, slip_onsets=(), shoves=(), glitch=No
     decel[sp < 3 * sig_v] = np.nan
     # noise check on sample-to-sample changes: the robot's own (slow) accelerations
     # must not count as noise, the jitter of a noisy track must
+    # a smoothed track's stated sigma includes slow errors that a two-frame second
+    # difference does not see, so the measured jitter may lower the level (to a fifth
+    # at most); the deceleration floors still hold
     dz = np.diff(decel / sig_a) / math.sqrt(2.0)
-    ks = _noise_scale(t, np.concatenate([dz, [np.nan]]))
+    ks = _noise_scale(t, np.concatenate([dz, [np.nan]]), floor=0.2)
     noise["deceleration"] = float(np.median(ks))
     floor = np.full(len(t), st.impact_decel_min_mps2)
     for ts in slip_onsets:
