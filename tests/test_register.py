@@ -345,3 +345,15 @@ def test_rolling_shutter_rows_see_their_own_pose():
         np.testing.assert_allclose(reg.floor_to_image(pt[None])[0], px, atol=1e-3)
     still = register.FrameRegistration(0.0, True, k, np.zeros(5), rvec, tvec, 0, 0, 0, "t")
     assert not still.rolling and reg.rolling
+
+
+def test_reference_retried_after_a_pause(still):
+    """A frame that cannot be the reference is flagged; the next full attempt waits."""
+    img = cv2.imread(str(still / "floor.png"))
+    registrar = register.FloorRegistrar(FIELD, CAM, reference_retry_s=0.5)
+    first = registrar.register(np.full_like(img, 128), 0.0)
+    assert not first.ok and "grid" in first.reason
+    soon = registrar.register(img, 0.2)
+    assert not soon.ok and soon.reason.startswith("no reference yet")
+    later = registrar.register(img, 0.6)
+    assert later.ok and later.method == "grid"

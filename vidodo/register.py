@@ -751,6 +751,9 @@ class FloorRegistrar:
         A frame whose residual is above this is refused [px].
     static_tolerance_px : float
         Median patch shift below which the view counts as unchanged [px].
+    reference_retry_s : float
+        After a frame fails to become the reference, frames in the next this many
+        seconds are flagged without a new (costly) attempt [s].
     readout_s : float, optional
         Rolling-shutter readout time [s] (default: the camera profile's, else 0). When
         non-zero, a moving camera's pose is modelled as changing linearly while the
@@ -769,7 +772,7 @@ class FloorRegistrar:
     def __init__(self, field: FieldProfile, camera: CameraProfile | None = None, *,
                  method="auto", points_csv=None, refine_on_seams=True, max_rms_px=3.0,
                  static_tolerance_px=0.1, seam_every_frame=False, min_tracked=12,
-                 readout_s=None):
+                 readout_s=None, reference_retry_s=0.5):
         if method not in METHODS:
             raise InputError(f"registration method {method!r}: use one of {METHODS}")
         if method == "points" and points_csv is None:
@@ -796,6 +799,8 @@ class FloorRegistrar:
         if readout_s is None:
             readout_s = camera.readout_s if camera is not None else 0.0
         self.readout_s = float(readout_s)
+        self.reference_retry_s = float(reference_retry_s)
+        self._retry = None  # (t_s, reason) of the next reference attempt after a failure
         self._rate = None  # (rvec_rate, tvec_rate) of the last moving frame
         self._global_prev = None  # (t_s, rvec, tvec) one-pose fit of the last frame
         self._rs_reference_done = False
@@ -904,13 +909,17 @@ class FloorRegistrar:
         """
         try:
             if self.reference is None:
+                if self._retry is not None and t_s < self._retry[0]:
+                    return failed(t_s, f"no reference yet: {self._retry[1]}")
                 return self.register_reference(frame_bgr, t_s, mask)
             return self._register_follow(frame_bgr, t_s, mask)
         except (CalibrationError, cv2.error, np.linalg.LinAlgError, ValueError) as exc:
             k = None if self.reference is None else self.reference.camera_matrix
             d = None if self.reference is None else self.reference.dist_coeffs
-            return failed(t_s, str(exc).splitlines()[0] if str(exc) else type(exc).__name__,
-                          k, d)
+            reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+            if self.reference is None:  # a full attempt is costly: wait a little
+                self._retry = (float(t_s) + self.reference_retry_s, reason)
+            return failed(t_s, reason, k, d)
 
     def _register_follow(self, frame_bgr, t_s, mask):
         from . import grid
