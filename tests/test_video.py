@@ -64,6 +64,7 @@ def test_vfr_timestamps_match_ffprobe(vfr_clip, threaded):
     assert idx.tolist() == list(range(len(truth)))
     assert np.max(np.abs(t - truth)) < 1e-3
     assert np.all(np.diff(timing.t_s) > 0)
+    assert timing.duplicated == ()  # every frame has fresh noise
     # The 50 ms stall after frame 19 is longer than 1.6 intervals: reported as a drop.
     assert any(d[0] == 20 for d in timing.dropped)
 
@@ -137,3 +138,16 @@ def test_analyse_timing_finds_drops_and_duplicates():
     assert timing.bad_timestamps == (len(t) - 1,)
     assert np.all(np.diff(timing.t_s) > 0)
     assert timing.interval_s == pytest.approx(1 / 30.0)
+
+
+def test_repeated_images_found(tmp_path):
+    """A still picture encoded as video decodes to identical frames: all but the first
+    are reported as repeats (duplicated)."""
+    path = tmp_path / "still.mp4"
+    _ffmpeg("-f", "lavfi", "-i", "color=gray:size=160x120:rate=30", "-frames:v", "6",
+            "-c:v", "libx264", "-pix_fmt", "yuv420p", str(path))
+    with VideoReader(path) as reader:
+        flags = [reader.last_frame_repeated for _i, _t, _f in reader]
+        timing = reader.timing()
+    assert flags == [False] + [True] * 5
+    assert timing.duplicated == (1, 2, 3, 4, 5)
