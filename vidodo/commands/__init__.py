@@ -1,3 +1,3 @@
 """One module per command-line verb (see :mod:`vidodo.cli_main`)."""
 
-ORDER = ("demo", "grade", "render", "register", "lens", "track", "odometry", "tune", "batch")
+ORDER = ("demo", "grade", "report", "render", "register", "lens", "track", "odometry", "tune", "batch")
