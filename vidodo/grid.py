@@ -414,9 +414,12 @@ def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidate
     lattices, errors = [], []
     for _score, assign, comb_x, comb_y in keep:
         try:
-            lattices.append(_lattice_corners(fam, assign, comb_x, comb_y, field, to_image))
+            lat = _lattice_corners(fam, assign, comb_x, comb_y, field, to_image)
         except CalibrationError as exc:
             errors.append(exc)
+            continue
+        if not any(np.nanmax(np.abs(lat[0] - other[0])) < 4.0 for other in lattices):
+            lattices.append(lat)
     if not lattices:
         raise errors[0]
     return lattices, int(in1.sum() + in2.sum())
@@ -602,9 +605,11 @@ def find_grid(grey, field: FieldProfile, *, camera: CameraProfile | None = None,
             errors.append(exc)
     if not results:
         raise errors[0]
-    # The window whose seams were found most completely and fit best.
-    fit, origin, origin_from, warnings = max(
-        results, key=lambda r: r[0].n_points / (1.0 + r[0].rms_px))
+    # The window whose seams were found most completely (seam samples kept by the fit);
+    # among those within 2 % of the most, the one that fits best.
+    most = max(r[0].n_points for r in results)
+    close = [r for r in results if r[0].n_points >= 0.98 * most]
+    fit, origin, origin_from, warnings = min(close, key=lambda r: r[0].rms_px)
     return GridResult(fit, origin, origin_from, n_seg, tuple(warnings) + tuple(fit.warnings))
 
 
