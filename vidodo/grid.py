@@ -418,7 +418,7 @@ def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidate
         except CalibrationError as exc:
             errors.append(exc)
             continue
-        if not any(np.nanmax(np.abs(lat[0] - other[0])) < 4.0 for other in lattices):
+        if not any(np.nanmedian(np.abs(lat[0] - other[0])) < 3.0 for other in lattices):
             lattices.append(lat)
     if not lattices:
         raise errors[0]
