@@ -418,11 +418,20 @@ def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidate
         except CalibrationError as exc:
             errors.append(exc)
             continue
-        if not any(np.nanmedian(np.abs(lat[0] - other[0])) < 3.0 for other in lattices):
+        if not any(_same_lattice(lat[0], other[0]) for other in lattices):
             lattices.append(lat)
     if not lattices:
         raise errors[0]
     return lattices, int(in1.sum() + in2.sum())
+
+
+def _same_lattice(a, b, tol_px=3.0):
+    """True when two lattices put the same corners in the same places (either family
+    order: a square field's two assignments give transposed arrays)."""
+    d = [np.nanmedian(np.abs(a - b))] if a.shape == b.shape else []
+    if a.shape == b.transpose(1, 0, 2).shape:
+        d.append(np.nanmedian(np.abs(a - b.transpose(1, 0, 2))))
+    return bool(d) and min(d) < tol_px
 
 
 def _lattice_corners(fam, assign, comb_x, comb_y, field, to_image):
