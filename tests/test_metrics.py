@@ -243,3 +243,14 @@ def test_local_pose_still_and_moving():
                     atol=1e-12)
     moving = np.column_stack([t**2, 3 * t, 0.1 * t])
     assert_allclose(local_pose(t, moving, 0.5, 1e-3), [0.25, 1.5, 0.05], atol=1e-9)
+
+
+def test_similarity_scale_diagnostic():
+    """A source reading 2 % long on a closed-free path: the Sim(2) scale is 1/1.02
+    (Umeyama 1991, eq. 42, scale from source to truth)."""
+    t = np.linspace(0, 4, 81)
+    q = np.column_stack([np.sin(t), 1 - np.cos(t) + 0.2 * t, t])
+    p = q.copy()
+    p[:, :2] = (q[:, :2] - q[0, :2]) * 1.02 + q[0, :2]
+    m = source_metrics(t, q, p, path_length(q[:, :2]), name="x")
+    assert m.best_fit_scale == pytest.approx(1 / 1.02, rel=1e-9)

@@ -451,6 +451,9 @@ class SourceMetrics:
     """Rotation of the best-fit alignment (source frame -> floor) [rad]."""
     warnings: tuple[str, ...] = ()
     """What could not be measured for this source, and why."""
+    best_fit_scale: float | None = None
+    """Scale of a similarity (Sim(2)) fit of the source onto truth: a diagnostic of
+    a length error (wheel radius), not used for ATE [-]."""
 
     def to_dict(self) -> dict:
         """Plain dict for JSON (None for figures that could not be measured)."""
@@ -511,8 +514,9 @@ def source_metrics(t_s, truth_poses, anchored_poses, cum_length_m, *, sigma_head
     try:
         ate_m, al = ate(q[idx, :2], p[idx, :2])
         angle = al.angle_rad
+        scale = umeyama(p[idx, :2], q[idx, :2], with_scale=True).scale
     except MeasurementError as exc:
-        ate_m, angle = None, None
+        ate_m, angle, scale = None, None, None
         warn.append(f"{name}: ATE not measured ({exc})")
     sub_t, sub_q, sub_p, sub_s = t[idx], q[idx], p[idx], s[idx]
     i, j = pairs_by_distance(sub_s, rpe_delta_m)
@@ -551,6 +555,7 @@ def source_metrics(t_s, truth_poses, anchored_poses, cum_length_m, *, sigma_head
         coverage_s=float(t[last] - t[idx[0]]),
         best_fit_angle_rad=angle,
         warnings=tuple(warn),
+        best_fit_scale=scale,
     )
 
 

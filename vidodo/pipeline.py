@@ -379,7 +379,7 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
 
 def _without_motion_figures(m: SourceMetrics) -> SourceMetrics:
     return replace(m, drift_pct=None, heading_drift_deg_per_turn=None, rpe_0p5m_rmse_m=None,
-                   ate_rmse_m=None)
+                   ate_rmse_m=None, best_fit_scale=None, best_fit_angle_rad=None)
 
 
 def _unwrap_nan(h):

@@ -58,8 +58,9 @@ rate term); ``truth`` (tracker quality figures); ``field`` (``tiles_x``, ``tiles
 ``final_heading_err_rad`` [rad], ``drift_pct`` [% of path], ``heading_drift_deg_per_turn``
 [deg per full turn], ``max_err_m`` [m] and where (``max_err_t_s`` [s], ``max_err_x_m``,
 ``max_err_y_m`` [m]), ``path_length_m`` [m], ``coverage_s`` [s], ``best_fit_angle_rad``
-[rad], ``pass`` (true, false, or null when no tolerance was set); ``events`` (the rows
-of events.csv); ``tolerances``; ``verdict`` ('pass', 'fail' or 'graded');
+[rad], ``best_fit_scale`` [-] (a Sim(2) fit's scale: a length-error diagnostic),
+``pass`` (true, false, or null when no tolerance was set); ``events`` (the rows of
+events.csv); ``tolerances``; ``verdict`` ('pass', 'fail' or 'graded');
 ``warnings`` (what could not be measured). A figure that could not be measured is
 ``null``, never a guess.
 
