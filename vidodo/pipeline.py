@@ -241,6 +241,10 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
     else:
         clock = manual_clock(truth, odometry, float(clock_offset_s))
     warn += list(clock.warnings)
+    if (truth_quality or {}).get("readout_source") == "none":
+        warn.append("clock: the camera's rolling-shutter readout time is unknown, so truth "
+                    "times are frame times; the offset may be off by up to half a readout "
+                    "(phones: 5-30 ms); give a camera profile with readout_s")
 
     t = truth["t_s"].to_numpy(float)
     sxy_all = truth["sigma_xy_m"].to_numpy(float)
