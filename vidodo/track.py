@@ -61,12 +61,6 @@ REFINE_METHODS = {
     "hybrid": cv2.aruco.CORNER_REFINE_APRILTAG,
 }
 
-HYBRID_BELOW_CELL_PX = 5.0
-"""'hybrid' refinement takes the SUBPIX centre only for markers whose cells are smaller
-than this [px]; above it the AprilTag refinement alone was as accurate (measured:
-default run, cells 4-7 px: AprilTag 1.15 mm RMS, SUBPIX 1.22 mm; vfr-phone run, cells
-3-4 px: AprilTag 2.6 mm, SUBPIX 1.0 mm)."""
-
 CORNER_SHAPE_PX = 0.14
 """1-sigma of the systematic error of each corner on its own (not averaged by the
 smoother) [px]: the per-corner scatter of the AprilTag refinement on synthetic frames
@@ -237,8 +231,7 @@ class MarkerDetector:
                 if idx is None:
                     continue
                 c = c.reshape(4, 2).astype(np.float64) + shift
-                if self.refine == "hybrid" and not coarse and \
-                        math.sqrt(_area(c)) / self.cells[family] < HYBRID_BELOW_CELL_PX:
+                if self.refine == "hybrid" and not coarse:
                     c = self._centre_from_subpix(family, img, int(mid), c)
                 # Pixel centres at integers at both scales: x = (x_k + 0.5) / k - 0.5.
                 pts = (c + 0.5) / k - 0.5 + (u0, v0)
