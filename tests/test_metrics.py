@@ -173,6 +173,18 @@ def test_motion_start_index():
     assert motion_start_index(np.zeros((10, 2)), 0.001) is None
 
 
+def test_motion_start_counts_a_spin_in_place():
+    """A run that starts by spinning in place starts moving when the heading changes.
+
+    Constructed case: still for 20 samples, then turning 0.05 rad per sample without
+    moving; the anchor must be the last still sample (index 19 or 20), not later.
+    """
+    xy = np.zeros((60, 2))
+    h = np.concatenate([np.zeros(20), 0.05 * np.arange(1, 41)])
+    assert motion_start_index(xy, 0.001) is None
+    assert motion_start_index(xy, 0.001, heading_rad=h, sigma_heading_rad=0.002) in (19, 20)
+
+
 def test_source_metrics_hand_built():
     """Figures of a drifting source on a 2 m straight line, computed by hand.
 

@@ -293,17 +293,23 @@ def path_length(xy, gate_m=0.0):
     return out
 
 
-def motion_start_index(xy, sigma_m, *, min_move_m=0.01):
-    """Index of the last sample at rest before the robot first moves.
+def motion_start_index(xy, sigma_m, *, min_move_m=0.01, heading_rad=None,
+                       sigma_heading_rad=0.0, min_turn_rad=0.017453292519943295):
+    """Index of the last sample at rest before the robot first moves or turns.
 
     The robot has moved once it is more than ``max(5 * sigma_m, min_move_m)`` from its
-    first position; the start is the last sample before that within
-    ``max(2 * sigma_m, min_move_m / 4)`` of the first position.
+    first position, or (when ``heading_rad`` is given) has turned more than
+    ``max(5 * sigma_heading_rad, min_turn_rad)`` (default 1 degree) from its first
+    heading, so a run that
+    starts by spinning in place is anchored before the spin. The start is the last
+    sample before that within ``max(2 * sigma_m, min_move_m / 4)`` of the first
+    position (and within ``max(2 * sigma_heading_rad, min_turn_rad / 4)`` of the first
+    heading).
 
     Returns
     -------
     int or None
-        None when the robot never moves that far.
+        None when the robot never moves or turns that far.
     """
     p = np.asarray(xy, dtype=float).reshape(-1, 2)
     good = np.flatnonzero(np.isfinite(p).all(axis=1))
@@ -311,11 +317,19 @@ def motion_start_index(xy, sigma_m, *, min_move_m=0.01):
         return None
     p0 = p[good[0]]
     d = np.hypot(p[:, 0] - p0[0], p[:, 1] - p0[1])
-    moved = np.flatnonzero(d > max(5.0 * sigma_m, min_move_m))
+    moved_mask = d > max(5.0 * sigma_m, min_move_m)
+    near_mask = d <= max(2.0 * sigma_m, min_move_m / 4)
+    if heading_rad is not None:
+        h = np.asarray(heading_rad, dtype=float).reshape(-1)
+        dh = np.abs(np.angle(np.exp(1j * (h - h[good[0]]))))
+        dh = np.where(np.isfinite(dh), dh, 0.0)
+        moved_mask |= dh > max(5.0 * sigma_heading_rad, min_turn_rad)
+        near_mask &= dh <= max(2.0 * sigma_heading_rad, min_turn_rad / 4)
+    moved = np.flatnonzero(moved_mask)
     if moved.size == 0:
         return None
     first = moved[0]
-    near = good[(good < first) & (d[good] <= max(2.0 * sigma_m, min_move_m / 4))]
+    near = good[(good < first) & near_mask[good]]
     return int(near[-1]) if near.size else int(good[0])
 
 

@@ -182,7 +182,11 @@ def _anchor(truth, sxy):
     q = truth[["x_m", "y_m", "heading_rad"]].to_numpy(float).copy()
     if "detected" in truth:
         q[~truth["detected"].to_numpy(bool)] = np.nan
-    k = motion_start_index(q[:, :2], sxy)
+    sh = 0.0
+    if "sigma_heading_rad" in truth:
+        sig = truth["sigma_heading_rad"].to_numpy(float)
+        sh = float(np.nanmedian(sig)) if np.isfinite(sig).any() else 0.0
+    k = motion_start_index(q[:, :2], sxy, heading_rad=q[:, 2], sigma_heading_rad=sh)
     moved = k is not None
     if k is None:
         good = np.flatnonzero(np.isfinite(q).all(axis=1))

@@ -39,6 +39,10 @@ def add_arguments(parser):
     parser.add_argument("--units", choices=sorted(_UNITS), default="mm",
                         help="length unit of the printed verdict (files stay in metres)")
     parser.add_argument("--out", type=Path, required=True, help="output folder")
+    parser.add_argument("--no-report", action="store_true",
+                        help="skip the plots, the HTML report and the replay")
+    parser.add_argument("--no-replay", action="store_true",
+                        help="skip the annotated replay video")
 
 
 def _fmt(v, scale, digits=0, unit=""):
@@ -102,6 +106,12 @@ def run(args) -> int:
                            clock_offset_s=args.clock_offset, tolerances=tol, progress=bar,
                            track=args.track)
     write_outputs(result, args.out)
+    if not args.no_report:
+        from ..showcase import render_all
+
+        with progress_bar(desc="report", quiet=args.quiet) as bar:
+            render_all(args.out, args.out, replay=not args.no_replay, units=args.units,
+                       progress=bar)
     for w in result.warnings:
         print(f"vidodo grade: warning: {w}", file=sys.stderr)
     if not args.quiet:
