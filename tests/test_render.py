@@ -16,6 +16,7 @@ import math
 import cv2
 import numpy as np
 import pytest
+from apriltag3 import apriltag3_corners
 from numpy.testing import assert_allclose
 
 from vidodo.profiles import (
@@ -62,27 +63,6 @@ def _detect(img, family="DICT_4X4_50"):
     if ids is None:
         return {}
     return {int(i): c.reshape(4, 2) - 0.5 for i, c in zip(ids.ravel(), corners, strict=True)}
-
-
-def _apriltag3_corners(img):
-    """tag36h11 corners by the AprilTag 3 library (pupil-apriltags), by tag id.
-
-    The wrapper's ``Detector.__del__`` frees the tag family before the detector, whose
-    destroy call still reads it (intermittent crashes: pupil-labs/apriltags issues #34,
-    #46), so the detector is taken down here in the safe order and ``__del__`` skipped.
-    """
-    apriltags = pytest.importorskip("pupil_apriltags")
-    det = apriltags.Detector(families="tag36h11")
-    try:
-        found = det.detect(cv2.cvtColor(img, cv2.COLOR_BGR2GRAY))
-        return {t.tag_id: t.corners.copy() for t in found}
-    finally:
-        det.libc.apriltag_detector_destroy.restype = None
-        det.libc.apriltag_detector_destroy(det.tag_detector_ptr)
-        det.libc.tag36h11_destroy.restype = None
-        for family in det.tag_families.values():
-            det.libc.tag36h11_destroy(family)
-        det.tag_detector_ptr = None
 
 
 def _marker_corners_floor(marker, pose):
@@ -157,7 +137,7 @@ def test_rendered_markers_found_at_projected_corners(family, z_m):
         # corners wrap counter-clockwise on screen starting top-right of the image
         # cv2.aruco draws (as observed here: TR, TL, BL, BR), and its pixel centres sit
         # at (0.5, 0.5) (AprilRobotics/apriltag issue #121)
-        tags = {i: c[[1, 0, 3, 2]] - 0.5 for i, c in _apriltag3_corners(img).items()}
+        tags = {i: c[[1, 0, 3, 2]] - 0.5 for i, c in apriltag3_corners(img).items()}
         assert np.abs(tags[7] - want_robot).max() < 0.5
         assert np.abs(tags[3] - want_floor).max() < 0.5
 
