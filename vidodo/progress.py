@@ -26,7 +26,26 @@ def enabled(*, quiet: bool = False, stream=None) -> bool:
         return False
 
 
-class Progress:
+class _Bar:
+    """Owns one tqdm bar (or none); closes it on :meth:`close` and on leaving ``with``."""
+
+    _bar = None
+
+    def close(self):
+        """Remove the bar from the terminal."""
+        if self._bar is not None:
+            self._bar.close()
+            self._bar = None
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+        return False
+
+
+class Progress(_Bar):
     """A progress bar that is also a ``progress(done, total=None)`` callback.
 
     Use it as a context manager. Call it with the number of items done so far (absolute,
@@ -63,18 +82,6 @@ class Progress:
         if self._bar is not None:
             self._bar.set_description(desc)
 
-    def close(self):
-        """Remove the bar from the terminal."""
-        if self._bar is not None:
-            self._bar.close()
-            self._bar = None
-
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *exc):
-        self.close()
-        return False
 
 
 def progress_bar(total=None, desc: str = "", *, unit: str = "frame", quiet: bool = False,
@@ -83,7 +90,7 @@ def progress_bar(total=None, desc: str = "", *, unit: str = "frame", quiet: bool
     return Progress(total, desc, unit=unit, quiet=quiet, stream=stream)
 
 
-class StageProgress:
+class StageProgress(_Bar):
     """One ``progress(done, total)`` callback for a chain of stages (render, track, replay).
 
     Each stage reports from 0 again; when the count goes back or the total changes, the
@@ -115,18 +122,6 @@ class StageProgress:
         self._last, self._total = done, total
         self._bar(done, total)
 
-    def close(self):
-        """Close the current bar."""
-        if self._bar is not None:
-            self._bar.close()
-            self._bar = None
-
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *exc):
-        self.close()
-        return False
 
 
 def progress_factory(*, quiet: bool = False, desc: str = "step", stream=None) -> StageProgress:
