@@ -39,6 +39,27 @@ def _ensure_run(args, out: Path, progress) -> Path:
     return run
 
 
+def _print_fit(folder: Path, most: int = 5) -> None:
+    """The profile values the fit moved by more than twice their standard error."""
+    import pandas as pd
+
+    table = folder / "fit.csv"
+    if not table.is_file():
+        return
+    fit = pd.read_csv(table)
+    moved = fit[fit["written"].astype(bool) & (fit["change"].abs() > 2 * fit["std_error"])]
+    moved = moved.reindex(moved["change"].abs().sort_values(ascending=False).index)
+    if moved.empty:
+        print(f"profile fit: no value needs changing ({folder / 'robot.toml'})")
+        return
+    parts = [f"{r.parameter} {r.profile:g} -> {r.estimate:.5g} (+-{r.std_error:.2g})"
+             for r in moved.head(most).itertuples()]
+    print(f"profile fit ({len(moved)} value(s) changed, corrected profile in "
+          f"{folder / 'robot.toml'}):")
+    for part in parts:
+        print(f"  {part}")
+
+
 def run(args) -> int:
     from vidodo.commands.grade import verdict_lines
     from vidodo.pipeline import grade_run_folder
@@ -65,6 +86,7 @@ def run(args) -> int:
             print(f"injected in the demo (known truth): {len(injected)} faults: "
                   + ", ".join(f"{k} at {t:.1f} s" for k, t in
                               zip(injected["kind"], injected["t_start_s"], strict=True)))
+        _print_fit(out / "grade" / "tune")
         print(f"run folder: {run_dir}  (rendered in {t_render:.1f} s)")
         print(f"outputs:    {out / 'grade'}  (open report.html)")
         print(f"total time: {t_total:.1f} s")
