@@ -1034,6 +1034,21 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
         source = "given"
     warnings: list[str] = []
     acc = _Acc()
+    # Detection runs on small windows: OpenCV's own thread pool costs more than it gives
+    # there and competes with the decoder's threads, so it is paused while tracking.
+    threads = cv2.getNumThreads()
+    cv2.setNumThreads(1)
+    try:
+        return _track_video(video_path, robot, field, camera, registrar, progress, refine,
+                            readout_s, source, max_gap_s, corner_sigma_px, corner_bias_px,
+                            window, threaded, register_every, max_speed_mps, warnings, acc)
+    finally:
+        cv2.setNumThreads(threads)
+
+
+def _track_video(video_path, robot, field, camera, registrar, progress, refine, readout_s,
+                 source, max_gap_s, corner_sigma_px, corner_bias_px, window, threaded,
+                 register_every, max_speed_mps, warnings, acc):
     truncated = None
     with VideoReader(video_path, threaded=threaded) as reader:
         info = reader.info
