@@ -109,9 +109,13 @@ def run(args) -> int:
     if not args.no_report:
         from ..showcase import render_all
 
+        replay = not args.no_replay
+        if replay and not args.video.is_file():
+            replay = False
+            print(f"vidodo grade: warning: {args.video}: not found, so no replay video "
+                  "(graded from --track)", file=sys.stderr)
         with progress_bar(desc="report", quiet=args.quiet) as bar:
-            render_all(args.out, args.out, replay=not args.no_replay, units=args.units,
-                       progress=bar)
+            render_all(args.out, args.out, replay=replay, units=args.units, progress=bar)
     for w in result.warnings:
         print(f"vidodo grade: warning: {w}", file=sys.stderr)
     if not args.quiet:
