@@ -100,3 +100,34 @@ def test_ffmpeg_failure_is_one_line(tmp_path, monkeypatch):
         write_video(tmp_path / "x.mp4", _frames(3), [0.0, 0.1, 0.2])
     assert "\n" not in str(info.value)
     assert list(tmp_path.iterdir()) == []
+
+
+def test_without_ffmpeg_opencv_writer_keeps_exact_times(tmp_path, monkeypatch):
+    """With no ffmpeg on the machine, MPEG-4 part 2 comes from the OpenCV wheel's writer
+    and the timing tables are still rewritten: OpenCV's own reader (an independent
+    decoder path) reports the requested uneven presentation times; h264 is refused with
+    a message that names ffmpeg."""
+    import shutil
+
+    import cv2
+    import numpy as np
+
+    from vidodo import encode
+    from vidodo.errors import VidodoError
+
+    real_which = shutil.which
+    monkeypatch.setattr(encode.shutil, "which",
+                        lambda name: None if name == "ffmpeg" else real_which(name))
+    t = np.array([0.0, 0.033, 0.07, 0.1, 0.15, 0.2, 0.3])
+    frames = [np.full((64, 96, 3), 30 * i, np.uint8) for i in range(t.size)]
+    out = tmp_path / "cv.mp4"
+    encode.write_video(out, iter(frames), t, codec="mpeg4")
+    cap = cv2.VideoCapture(str(out))
+    got = []
+    while cap.read()[0]:
+        got.append(cap.get(cv2.CAP_PROP_POS_MSEC) / 1000.0)
+    cap.release()
+    np.testing.assert_allclose(got, t, atol=1e-3)
+    with pytest.raises(VidodoError, match="ffmpeg"):
+        encode.write_video(tmp_path / "h.mp4", iter(frames), t, codec="h264")
+    assert not (tmp_path / "h.mp4").exists()

@@ -2,9 +2,10 @@
 
 Phones record with a variable frame rate: each frame's presentation time (PTS) is when
 it was captured, not ``index / fps``. :func:`write_video` streams raw BGR frames to
-Debian's ``ffmpeg`` (libx264, libx265 or its own MPEG-4 part 2 encoder) at a constant
-nominal rate, then rewrites the timing tables of the finished MP4 so that frame ``i``
-is presented at ``frame_times_s[i]``:
+Debian's ``ffmpeg`` (libx264, libx265 or its own MPEG-4 part 2 encoder; without ffmpeg,
+MPEG-4 part 2 through the OpenCV wheel's writer) at a constant nominal rate, then
+rewrites the timing tables of the finished MP4 so that frame ``i`` is presented at
+``frame_times_s[i]``:
 
 * the Decoding Time to Sample box (``stts``) gets one delta per frame
   (ISO/IEC 14496-12, sec. 8.6.1.2); encoding without B-frames keeps decoding order equal
@@ -62,13 +63,36 @@ def _check_times(frame_times_s) -> np.ndarray:
     return t
 
 
-def _ffmpeg_path() -> str:
+def _ffmpeg_path(codec: str) -> str | None:
+    """ffmpeg's path; None when it is missing and OpenCV's own MPEG-4 writer can serve."""
     exe = shutil.which("ffmpeg")
-    if exe is None:
+    if exe is None and codec != "mpeg4":
         raise VidodoError(
-            "ffmpeg not found; install it (Debian/Ubuntu: sudo apt-get install ffmpeg)"
+            f"ffmpeg not found, needed for {codec} video; install it (Debian/Ubuntu: "
+            "apt-get install ffmpeg) or ask for codec 'mpeg4'"
         )
     return exe
+
+
+def _opencv_frames(tmp: Path, first, it, shape, fps_nominal, path) -> int:
+    """Write MPEG-4 part 2 with the OpenCV wheel's own encoder (no ffmpeg needed)."""
+    import cv2
+
+    h, w = shape
+    writer = cv2.VideoWriter(str(tmp), cv2.VideoWriter_fourcc(*"mp4v"), fps_nominal, (w, h))
+    if not writer.isOpened():
+        raise VidodoError(f"{path}: OpenCV cannot write MPEG-4 here; install ffmpeg")
+    n = 0
+    try:
+        frame = first
+        while frame is not None:
+            _check_frame(frame, n, shape, path)
+            writer.write(frame)
+            n += 1
+            frame = next(it, None)
+    finally:
+        writer.release()
+    return n
 
 
 def write_video(path, frames: Iterable[np.ndarray], frame_times_s, *, codec="h264", crf=18,
@@ -110,7 +134,7 @@ def write_video(path, frames: Iterable[np.ndarray], frame_times_s, *, codec="h26
         raise InputError(f"write_video: codec {codec!r} unknown; use one of {sorted(CODECS)}")
     if not (fps_nominal > 0):
         raise InputError(f"write_video: fps_nominal must be positive, got {fps_nominal}")
-    exe = _ffmpeg_path()
+    exe = _ffmpeg_path(codec)
     path = Path(path)
     it = iter(frames)
     try:
@@ -123,6 +147,15 @@ def write_video(path, frames: Iterable[np.ndarray], frame_times_s, *, codec="h26
     quality = (["-q:v", str(max(2, round(crf / 6)))] if codec == "mpeg4"
                else ["-crf", str(crf), "-preset", preset])
     with atomic_file(path) as tmp:
+        if exe is None:
+            n = _opencv_frames(tmp, first, it, (h, w), fps_nominal, path)
+            if n != t.size:
+                raise InputError(
+                    f"{path}: got {n} frames but {t.size} frame times; give one time per frame"
+                )
+            retime_mp4(tmp, t)
+            _usual_mode(tmp)
+            return
         cmd = [exe, "-hide_banner", "-nostdin", "-loglevel", "error", "-y",
                "-f", "rawvideo", "-pix_fmt", "bgr24", "-s", f"{w}x{h}",
                "-framerate", f"{fps_nominal:.6f}", "-i", "pipe:0",

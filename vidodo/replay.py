@@ -472,34 +472,11 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
                 progress(index + 1, times.size)
             yield img[: img.shape[0] // 2 * 2, : img.shape[1] // 2 * 2]
 
+    from .encode import write_video
+
     out_path.parent.mkdir(parents=True, exist_ok=True)
-    if shutil.which("ffmpeg"):
-        from .encode import write_video
-
-        write_video(out_path, frames(), times, codec=codec)
-    else:
-        _write_with_opencv(out_path, frames(), times)
+    write_video(out_path, frames(), times, codec=codec if shutil.which("ffmpeg") else "mpeg4")
     return out_path
-
-
-def _write_with_opencv(path: Path, frames, times):
-    from .outputs import atomic_file
-
-    fps = 1.0 / float(np.median(np.diff(times))) if times.size > 1 else 30.0
-    with atomic_file(path) as tmp:
-        writer = None
-        try:
-            for img in frames:
-                if writer is None:
-                    h, w = img.shape[:2]
-                    writer = cv2.VideoWriter(str(tmp), cv2.VideoWriter_fourcc(*"mp4v"), fps,
-                                             (w, h))
-                    if not writer.isOpened():
-                        raise InputError(f"{path}: OpenCV cannot write mp4v video here")
-                writer.write(img)
-        finally:
-            if writer is not None:
-                writer.release()
 
 
 def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,

@@ -8,6 +8,7 @@ seed and vidodo version are unchanged.
 from __future__ import annotations
 
 import json
+import shutil
 import time
 from pathlib import Path
 
@@ -28,7 +29,10 @@ def _ensure_run(args, out: Path, progress) -> Path:
     from vidodo.scenario import load_scenario
     from vidodo.simulate import run_cache_key, simulate_run
 
-    scenario = load_scenario(args.scenario)
+    overrides = {}
+    if shutil.which("ffmpeg") is None:  # the OpenCV wheel alone writes MPEG-4 part 2
+        overrides["video.codec"] = "mpeg4"
+    scenario = load_scenario(args.scenario, **overrides)
     key = run_cache_key(scenario, args.seed)
     run = out / "run"
     stamp = run / ".vidodo-cache"
