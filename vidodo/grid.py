@@ -22,6 +22,7 @@ Steps (no markers, no clicks):
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
@@ -38,6 +39,11 @@ CORNER_NAMES = ("near-left", "near-right", "far-right", "far-left")
 
 #: Seams seen coarser than this across (floor millimetres per pixel) are not used.
 MAX_MM_PER_PX = math.inf
+
+#: The lattice search (segments, vanishing points, combs) runs on a copy of the frame
+#: shrunk to about this diagonal [px] (1280 x 720, where its thresholds were set); the
+#: seam refinement that follows always works on the full-resolution frame.
+LATTICE_DIAG_PX = 1469.0
 
 
 @dataclass(frozen=True)
@@ -141,28 +147,50 @@ def _fit_vp(lines, weights):
     return v[:, 0]
 
 
+def _vp_consistent_many(seg, vps, tol_rad):
+    """:func:`_vp_consistent` for many vanishing points at once: (M, N) bool."""
+    mid = (seg[:, :2] + seg[:, 2:]) / 2
+    d = seg[:, 2:] - seg[:, :2]
+    finite = np.abs(vps[:, 2]) > 1e-12
+    with np.errstate(invalid="ignore", divide="ignore"):
+        pt = vps[:, :2] / np.where(finite, vps[:, 2], 1.0)[:, None]
+    to_x = np.where(finite[:, None], pt[:, 0:1] - mid[None, :, 0], vps[:, 0:1])
+    to_y = np.where(finite[:, None], pt[:, 1:2] - mid[None, :, 1], vps[:, 1:2])
+    cross = d[None, :, 0] * to_y - d[None, :, 1] * to_x
+    dot = d[None, :, 0] * to_x + d[None, :, 1] * to_y
+    ang = np.abs(np.arctan2(cross, dot))
+    ang = np.minimum(ang, math.pi - ang)
+    return ang < tol_rad
+
+
 def _find_vp(seg, cond, rng, tol_rad, iters=600, exclude=None):
-    """RANSAC vanishing point over segments (conditioned coordinates)."""
+    """RANSAC vanishing point over segments (conditioned coordinates).
+
+    All ``iters`` hypotheses (two length-weighted segments each) are drawn and scored at
+    once; the one whose consistent segments are longest in total wins.
+    """
     n = len(seg)
     if n < 4:
         return None, np.zeros(n, bool)
     length = np.hypot(seg[:, 2] - seg[:, 0], seg[:, 3] - seg[:, 1])
     lines = _hom_lines(seg)
     prob = length / length.sum()
-    best, best_score = None, -1.0
-    for _ in range(iters):
-        i, j = rng.choice(n, 2, replace=False, p=prob)
-        vp = np.cross(lines[i], lines[j])
-        if not np.all(np.isfinite(vp)) or np.linalg.norm(vp) == 0:
-            continue
-        if exclude is not None and _same_direction(vp, exclude, cond):
-            continue
-        inl = _vp_consistent(seg, vp, tol_rad)
-        score = length[inl].sum()
-        if score > best_score:
-            best, best_score = vp, score
-    if best is None:
+    i = rng.choice(n, iters, p=prob)
+    j = rng.choice(n, iters, p=prob)
+    vps = np.cross(lines[i], lines[j])
+    good = (i != j) & np.all(np.isfinite(vps), axis=1) & (np.linalg.norm(vps, axis=1) > 0)
+    if exclude is not None:
+        b = _vp_dir(exclude, cond)
+        for k in np.nonzero(good)[0]:
+            a = _vp_dir(vps[k], cond)
+            if abs(a[0] * b[1] - a[1] * b[0]) < math.sin(math.radians(8)):
+                good[k] = False
+    vps = vps[good]
+    if len(vps) == 0:
         return None, np.zeros(n, bool)
+    score = np.concatenate([_vp_consistent_many(seg, vps[c:c + 100], tol_rad) @ length
+                            for c in range(0, len(vps), 100)])
+    best = vps[int(np.argmax(score))]
     inl = _vp_consistent(seg, best, tol_rad)
     for _ in range(3):
         if inl.sum() < 2:
@@ -371,26 +399,23 @@ def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidate
         nb_da = f_b["normal"] @ f_a["dir"]
         if abs(nb_da) < 1e-9:
             return 0.0
-        vals = []
         frac = np.linspace(0.02, 0.98, 80)
-        for ra in teeth_a:
-            t0 = (teeth_b[0] - ra * nb_na) / nb_da
-            t1 = (teeth_b[-1] - ra * nb_na) / nb_da
-            tt = t0 + (t1 - t0) * frac
-            pts = f_a["ref"] + ra * f_a["normal"] + tt[:, None] * f_a["dir"]
-            im = to_image(pts)
-            ok_ = ((im[:, 0] >= 0) & (im[:, 0] <= w - 1) & (im[:, 1] >= 0)
-                   & (im[:, 1] <= h - 1) & np.all(np.isfinite(im), axis=1))
-            if ok_.sum() < 10:
-                vals.append(0.0)
-                continue
-            along = np.gradient(im, axis=0)
-            expected = np.arctan2(along[:, 1], along[:, 0])
-            ui = np.clip(np.nan_to_num(im[:, 0]).round().astype(int), 0, w - 1)
-            vi = np.clip(np.nan_to_num(im[:, 1]).round().astype(int), 0, h - 1)
-            diff = np.abs(np.angle(np.exp(2j * (line_angle[vi, ui] - expected)))) / 2
-            hit = evidence[vi, ui] & (diff < math.radians(12))
-            vals.append(float(hit[ok_].mean()))
+        ra = np.asarray(teeth_a, float)[:, None, None]
+        t0 = (teeth_b[0] - ra * nb_na) / nb_da
+        t1 = (teeth_b[-1] - ra * nb_na) / nb_da
+        tt = t0 + (t1 - t0) * frac[None, :, None]
+        pts = f_a["ref"] + ra * f_a["normal"] + tt * f_a["dir"]
+        im = to_image(pts.reshape(-1, 2)).reshape(len(teeth_a), len(frac), 2)
+        ok_ = ((im[..., 0] >= 0) & (im[..., 0] <= w - 1) & (im[..., 1] >= 0)
+               & (im[..., 1] <= h - 1) & np.all(np.isfinite(im), axis=-1))
+        along = np.gradient(im, axis=1)
+        expected = np.arctan2(along[..., 1], along[..., 0])
+        ui = np.clip(np.nan_to_num(im[..., 0]).round().astype(int), 0, w - 1)
+        vi = np.clip(np.nan_to_num(im[..., 1]).round().astype(int), 0, h - 1)
+        diff = np.abs(np.angle(np.exp(2j * (line_angle[vi, ui] - expected)))) / 2
+        hit = evidence[vi, ui] & (diff < math.radians(12)) & ok_
+        n_ok = ok_.sum(axis=1)
+        vals = np.where(n_ok >= 10, hit.sum(axis=1) / np.maximum(n_ok, 1), 0.0)
         return float(np.mean(vals))
 
     # Joint choice: the teeth of each family must carry evidence across the span of the
@@ -569,6 +594,42 @@ def _fit_lattice(grey, field, lat_img, camera, ignore, marker_px, marker_fl, war
     return fit, origin, origin_from, warnings
 
 
+def _scaled_camera(camera: CameraProfile | None, sx, sy):
+    """The same lens for an image resized by ``sx``, ``sy`` (pixel centres kept)."""
+    if camera is None:
+        return None
+    return dataclasses.replace(
+        camera, width_px=max(int(round(camera.width_px * sx)), 1),
+        height_px=max(int(round(camera.height_px * sy)), 1),
+        fx_px=camera.fx_px * sx, fy_px=camera.fy_px * sy,
+        cx_px=(camera.cx_px + 0.5) * sx - 0.5, cy_px=(camera.cy_px + 0.5) * sy - 0.5)
+
+
+def _initial_lattice_scaled(grey, field, camera, ignore, rng):
+    """:func:`_initial_lattice` on a copy shrunk to :data:`LATTICE_DIAG_PX` when the
+    frame is larger (area averaging); the corners come back in full-size pixels.
+
+    The lattice is only a first guess (the seam refinement searches several pixels
+    around it at full resolution), so the coarser grid costs no accuracy; the segment
+    and vanishing-point search scales with the pixel count.
+    """
+    h, w = grey.shape
+    shrink = LATTICE_DIAG_PX / math.hypot(w, h)
+    if shrink > 0.9:
+        return _initial_lattice(grey, field, camera, ignore, rng)
+    ws, hs = max(int(round(w * shrink)), 1), max(int(round(h * shrink)), 1)
+    sx, sy = ws / w, hs / h
+    small = cv2.resize(grey, (ws, hs), interpolation=cv2.INTER_AREA)
+    ig_small = None
+    if ignore is not None:  # a shrunk pixel is ignored when any part of it was
+        ig_small = cv2.resize(np.asarray(ignore, np.uint8) * 255, (ws, hs),
+                              interpolation=cv2.INTER_AREA) > 0
+    cands, n_seg = _initial_lattice(small, field, _scaled_camera(camera, sx, sy), ig_small,
+                                    rng)
+    scale = np.array([sx, sy])
+    return [((lat + 0.5) / scale - 0.5, warn) for lat, warn in cands], n_seg
+
+
 def find_grid(grey, field: FieldProfile, *, camera: CameraProfile | None = None, ignore=None,
               detectors=None, seed=0) -> GridResult:
     """Register a frame from the tile grid alone.
@@ -599,7 +660,7 @@ def find_grid(grey, field: FieldProfile, *, camera: CameraProfile | None = None,
     from .register import detect_floor_markers
 
     rng = np.random.default_rng(seed)
-    candidates, n_seg = _initial_lattice(grey, field, camera, ignore, rng)
+    candidates, n_seg = _initial_lattice_scaled(grey, field, camera, ignore, rng)
     marker_px = marker_fl = None
     if field.floor_markers:
         marker_px, marker_fl, _seen = detect_floor_markers(grey, field, detectors=detectors,
