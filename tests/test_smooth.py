@@ -54,3 +54,26 @@ def test_output_order_and_ties():
     np.testing.assert_allclose(s.value, [1.3, 1.0, 1.15], atol=1e-3)
     with pytest.raises(ValueError, match="no measurements"):
         smooth_ca([], [], [], [0.0])
+
+
+def test_measurement_variance_scaled_by_innovation_consistency():
+    """Stated sigma half the true one: the smoother scales the variance by about 4.
+
+    Source: for a consistent Kalman filter the normalised innovations squared have mean
+    equal to the measurement dimension (here 1) and are white (Bar-Shalom, Li &
+    Kirubarajan 2001, section 5.4, chi-square consistency tests). With the true noise
+    four times the stated variance, maximum likelihood over the grid (steps of sqrt 2)
+    must pick 2.8-5.7, after which the mean NIS is about 1 (2400 samples: 1-sigma of
+    the mean about sqrt(2 / 2400) = 0.03, tolerance 0.15) and 2-sigma covers ~95%.
+    """
+    rng = np.random.default_rng(21)  # seed fixed for reproducibility
+    t = np.arange(2400) / 30.0
+    truth = np.sin(0.9 * t) + 0.3 * np.sin(2.1 * t)
+    sigma_true = 0.004
+    s = smooth_ca(t, truth + rng.normal(0, sigma_true, t.size),
+                  np.full(t.size, sigma_true / 2), t)
+    assert 2.8 <= s.r_scale <= 5.7
+    assert s.nis_mean == pytest.approx(1.0, abs=0.15)
+    assert abs(s.innovation_lag1) < 0.1
+    cover = np.mean(np.abs(s.value - truth) <= 2 * s.sigma_value)
+    assert 0.88 < cover <= 1.0

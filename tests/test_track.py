@@ -26,6 +26,7 @@ from vidodo.track import (
     TRACK_COLUMNS,
     Detection,
     MarkerDetector,
+    estimate_corner_noise,
     fit_pose,
     load_track_csv,
     save_track_csv,
@@ -526,3 +527,56 @@ def test_track_command_keeps_track_of_truncated_video(rendered_run, tmp_path):
     assert code == 2
     tr = load_track_csv(out)
     assert 10 < len(tr) < 120
+
+
+# ------------------------------------------------------------ corner noise per run
+def _noisy_fixes(fresh_px, persistent_px, phi, n=800, seed=5):
+    """Fits of n consecutive frames of a moving tag with corner noise of two kinds:
+    fresh (independent per frame) and persistent (AR(1) with coefficient phi per frame)."""
+    rng = np.random.default_rng(seed)  # seed fixed: the statistics depend on it
+    reg = StandInRegistration()
+    x, y, th = _path(np.arange(n) / 30.0)
+    pers = rng.normal(0.0, persistent_px, (4, 2))
+    fixes = []
+    for k in range(n):
+        pers = phi * pers + math.sqrt(1.0 - phi**2) * rng.normal(0.0, persistent_px, (4, 2))
+        corners = _project(_marker_world(TAG, (x[k], y[k], th[k])))
+        noisy = corners + pers + rng.normal(0.0, fresh_px, (4, 2))
+        fixes.append(fit_pose([Detection(0, noisy)], (TAG,), reg))
+    return fixes
+
+
+def test_corner_noise_recovers_known_gaussian_sigma():
+    """White Gaussian corner noise of 0.3 px is recovered from the rigid-fit residuals.
+
+    Source: for a least-squares fit of p parameters to n observations with noise s, the
+    whitened residual sum of squares is s^2 chi^2(n - p) (Draper & Smith, Applied
+    Regression Analysis, 3rd ed., section 2.6), here n - p = 8 - 3 = 5 per frame; over
+    4000 degrees of freedom the relative 1-sigma of s is 1 / sqrt(2 x 4000) = 1.1%, so 5%
+    is a > 4-sigma tolerance. White noise has no lag-1 correlation (1-sigma of the
+    estimate about 1 / sqrt(4000) = 0.016).
+    """
+    fixes = _noisy_fixes(0.3, 0.0, 0.0)
+    noise = estimate_corner_noise(fixes, range(len(fixes)))
+    assert noise.dof == 5 * len(fixes)
+    assert noise.sigma_px == pytest.approx(0.3, rel=0.05)
+    assert noise.lag1_corr < 0.06
+    assert noise.fresh_px == pytest.approx(0.3, rel=0.06)
+
+
+def test_corner_noise_splits_persistent_from_fresh():
+    """Noise kept from frame to frame is told apart from fresh noise by its correlation.
+
+    Source: an AR(1) process with coefficient phi has lag-1 autocorrelation phi (Box &
+    Jenkins, Time Series Analysis, section 3.2.4), so fresh noise f plus AR(1) noise p
+    has lag-1 correlation phi p^2 / (p^2 + f^2): here 0.95 x 0.5 = 0.475. Tolerance
+    0.1 (the AR(1) samples are far from independent: about 800 x (1 - phi) / (1 + phi)
+    = 20 independent draws of 8 numbers each). Frames not consecutive are not paired.
+    """
+    fixes = _noisy_fixes(0.2, 0.2, 0.95)
+    noise = estimate_corner_noise(fixes, range(len(fixes)))
+    assert noise.sigma_px == pytest.approx(math.sqrt(0.08), rel=0.1)
+    assert noise.lag1_corr == pytest.approx(0.475, abs=0.1)
+    assert noise.persistent_px**2 + noise.fresh_px**2 == pytest.approx(noise.sigma_px**2)
+    sparse = estimate_corner_noise(fixes[::2], range(0, len(fixes), 2))
+    assert sparse.pairs == 0 and sparse.lag1_corr == 1.0  # cautious: all persistent

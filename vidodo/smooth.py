@@ -20,10 +20,11 @@ import numpy as np
 
 __all__ = ["SmoothedSignal", "smooth_ca", "Q_GRID", "R_SCALE_GRID"]
 
-Q_GRID = np.logspace(-3, 4, 8)
+Q_GRID = np.logspace(-3, 4, 15)
 """Default jerk spectral densities tried [unit^2/s^5]."""
-R_SCALE_GRID = np.array([1.0, 2.0, 4.0])
-"""Default factors on the given measurement variances tried (never below 1)."""
+R_SCALE_GRID = 2.0 ** np.arange(0.0, 6.5, 0.5)
+"""Default factors on the given measurement variances tried, 1 to 64 in steps of
+sqrt(2) (never below 1: the given variances are taken as a lower bound)."""
 
 
 @dataclass(frozen=True)
@@ -44,6 +45,12 @@ class SmoothedSignal:
     """Jerk spectral density used [unit^2/s^5]."""
     r_scale: float
     """Factor applied to the measurement variances."""
+    nis_mean: float
+    """Mean normalised innovation squared y^2 / S of the forward filter with the chosen
+    parameters; about 1 (the measurement dimension) when the model is consistent."""
+    innovation_lag1: float
+    """Lag-1 autocorrelation of the normalised innovations; about 0 (white) when the
+    model is consistent, positive when the measurement errors persist between samples."""
 
 
 def _transition(dt, q):
@@ -81,6 +88,8 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True)
     Returns
     -------
     loglik : ndarray (B,)
+    nis : ndarray (B,)
+        Sum of the normalised innovations squared.
     xs, Ps : ndarray (T, B, 3), (T, B, 3, 3) when ``smooth``
     """
     T = t.size
@@ -93,6 +102,8 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True)
     P[:, 1, 1] = prior_rate**2
     P[:, 2, 2] = prior_accel**2
     loglik = np.zeros(B)
+    nis = np.zeros(B)
+    nu = np.full((T, B), np.nan)  # normalised innovations y / sqrt(S)
     if smooth:
         xf = np.empty((T, B, 3))
         Pf = np.empty((T, B, 3, 3))
@@ -119,11 +130,13 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True)
             P = P - K[:, :, None] * P[:, 0, :][:, None, :]
             P = 0.5 * (P + P.transpose(0, 2, 1))
             loglik -= 0.5 * (np.log(2 * np.pi * S) + y * y / S)
+            nis += y * y / S
+            nu[k] = y / np.sqrt(S)
         if smooth:
             xf[k] = x
             Pf[k] = P
     if not smooth:
-        return loglik, None, None
+        return loglik, nis, nu, None, None
     xs = np.empty_like(xf)
     Ps = np.empty_like(Pf)
     xs[-1] = xf[-1]
@@ -135,7 +148,7 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True)
         C = np.linalg.solve(Ppn, np.einsum("ij,bjk->bik", F, Pf[k])).transpose(0, 2, 1)
         xs[k] = xf[k] + np.einsum("bij,bj->bi", C, xs[k + 1] - xp_all[k + 1])
         Ps[k] = Pf[k] + C @ (Ps[k + 1] - Ppn) @ C.transpose(0, 2, 1)
-    return loglik, xs, Ps
+    return loglik, nis, nu, xs, Ps
 
 
 def smooth_ca(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None, q_grid=Q_GRID,
@@ -178,13 +191,13 @@ def smooth_ca(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None, q_grid=Q_G
     rs = np.atleast_1d(r_scale_grid if r_scale is None else r_scale).astype(float)
     if qs.size * rs.size > 1:
         gq, gr = np.meshgrid(qs, rs, indexing="ij")
-        ll, _, _ = _run(t[meas], zz[meas], vv[meas], np.ones(meas.sum(), bool),
+        ll, _, _, _, _ = _run(t[meas], zz[meas], vv[meas], np.ones(meas.sum(), bool),
                         gq.ravel(), gr.ravel(), prior_rate, prior_accel, smooth=False)
         best = int(np.argmax(ll))
         q_best, r_best = float(gq.ravel()[best]), float(gr.ravel()[best])
     else:
         q_best, r_best = float(qs[0]), float(rs[0])
-    _, xs, Ps = _run(t, zz, vv, meas, np.array([q_best]), np.array([r_best]),
+    _, nis, nu, xs, Ps = _run(t, zz, vv, meas, np.array([q_best]), np.array([r_best]),
                      prior_rate, prior_accel, smooth=True)
     where = np.empty(order.size, dtype=int)
     where[order] = np.arange(order.size)
@@ -195,5 +208,14 @@ def smooth_ca(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None, q_grid=Q_G
         value=x[:, 0], rate=x[:, 1], accel=x[:, 2],
         sigma_value=np.sqrt(np.maximum(P[:, 0, 0], 0.0)),
         sigma_rate=np.sqrt(np.maximum(P[:, 1, 1], 0.0)),
-        q=q_best, r_scale=r_best,
+        q=q_best, r_scale=r_best, nis_mean=float(nis[0]) / tm.size,
+        innovation_lag1=_lag1(nu[meas, 0]),
     )
+
+
+def _lag1(u):
+    """Lag-1 autocorrelation of a sequence (0 when too short) [-]."""
+    u = u[np.isfinite(u)]
+    if u.size < 3:
+        return 0.0
+    return float(np.sum(u[:-1] * u[1:]) / np.sum(u * u))

@@ -45,6 +45,8 @@ __all__ = [
     "load_track_csv",
     "REFINE_METHODS",
     "estimate_readout",
+    "CornerNoise",
+    "estimate_corner_noise",
 ]
 
 TRACK_COLUMNS = [
@@ -61,10 +63,10 @@ REFINE_METHODS = {
     "hybrid": cv2.aruco.CORNER_REFINE_APRILTAG,
 }
 
-CORNER_SHAPE_PX = 0.14
-"""1-sigma of the systematic error of each corner on its own (not averaged by the
-smoother) [px]: the per-corner scatter of the AprilTag refinement on synthetic frames
-with exactly known corners was 0.14 px RMS (tests/test_track.py set-up, measured)."""
+MIN_NOISE_PAIRS = 20
+"""Pairs of consecutive detections needed before the split of the corner noise into a
+frame-to-frame persistent and a fresh part is trusted; with fewer, all of it is taken as
+persistent (the cautious side: the smoother cannot average it away)."""
 
 REGISTRATION_PARAMS = 8
 """Parameters a floor registration fits: camera pose (6) plus up to two lens terms."""
@@ -83,10 +85,12 @@ class TrackResult:
     track: pd.DataFrame
     """One row per video frame, columns :data:`TRACK_COLUMNS` (SI units, floor frame;
     ``sigma_xy_m`` is the RMS of the position error magnitude: the smoother's
-    uncertainty from corner noise, plus a common shift of all corners (``corner_bias_px``
-    per axis) and the registration's prediction error, both carried to the floor at the
-    marker's image scale, and :data:`CORNER_SHAPE_PX` per corner, which also bounds
-    ``sigma_heading_rad``)."""
+    uncertainty from the fresh part of the run's corner noise, plus the persistent part
+    (both estimated from the rigid fits' residuals, :func:`estimate_corner_noise`, and
+    scaled per signal by the smoother's innovation likelihood), a common shift of all
+    corners (``corner_bias_px`` per axis) and the registration's prediction error, both
+    carried to the floor at the marker's image scale; ``sigma_heading_rad`` likewise
+    from the fresh and persistent corner noise)."""
     quality: dict
     """Frames, detection fraction, marker cell size [px], gaps, dropped/duplicated
     frames, registration statistics, readout time [s], corner noise [px]."""
@@ -340,7 +344,12 @@ def fit_pose(detections, markers, registration) -> PoseFix | None:
         cov = np.linalg.inv(info)
     except np.linalg.LinAlgError:
         return None
-    chi2 = float(np.einsum("ni,nij,nj->", resid, W, resid))
+    # chi^2 of the weighted fit: one Gauss-Newton step from the unweighted (Umeyama) fit
+    # lowers the whitened sum of squares by g^T info^-1 g, g = sum A^T W r (exact for the
+    # linearised model), so chi2 / dof estimates the corner variance without the excess
+    # of an unweighted fit.
+    g = np.einsum("nji,njk,nk->i", A, W, resid)
+    chi2 = max(float(np.einsum("ni,nij,nj->", resid, W, resid)) - float(g @ cov @ g), 0.0)
     m_per_px = math.sqrt(float(np.mean(np.einsum("nii->n", cov_pts))) / 2.0)
     return PoseFix(float(t[0]), float(t[1]), th, cov, chi2, 2 * len(b) - 3, scale, m_per_px,
                    p, -resid, W, A)
@@ -711,6 +720,79 @@ def estimate_readout(fixes, corner_frac, vx, vy, omega, sigma_px, *, min_speed_m
     return num / den, sigma_px / math.sqrt(den), used
 
 
+@dataclass(frozen=True)
+class CornerNoise:
+    """Corner noise of one run, estimated from the misfit of the rigid marker layout."""
+
+    sigma_px: float
+    """1-sigma per corner coordinate, all of it [px]: sqrt(chi^2 / dof) of the rigid fits."""
+    fresh_px: float
+    """Part that is new in every frame (the smoother averages it) [px]."""
+    persistent_px: float
+    """Part that stays from one frame to the next (blur, sampling, print; the smoother
+    cannot average it) [px]."""
+    lag1_corr: float
+    """Correlation of the whitened corner residuals of consecutive frames, in [0, 1]."""
+    dof: int
+    """Residual degrees of freedom summed over the run."""
+    pairs: int
+    """Pairs of consecutive frames behind ``lag1_corr``."""
+
+
+def _whitened(fix):
+    """Residuals of a fix whitened to 1 px units, ndarray of shape (N, 2)."""
+    L = np.linalg.cholesky(fix.weight)  # W = L L^T, so r^T W r = |L^T r|^2
+    return np.einsum("nji,nj->ni", L, fix.resid_m)
+
+
+def estimate_corner_noise(fixes, frame_index=None, *, floor_px=0.02) -> CornerNoise:
+    """Estimate the run's corner noise from the residuals of the rigid marker fits.
+
+    With Gaussian corner noise of 1-sigma s per coordinate, the whitened sum of squared
+    residuals of a least-squares fit of p parameters to n observations follows
+    s^2 chi^2(n - p), so sum(chi2) / sum(dof) is an unbiased estimate of s^2 (e.g. Draper
+    & Smith, *Applied Regression Analysis*, 3rd ed., section 2.6; here n = 2 x corners
+    and p = 3 for x, y, heading). The share that persists between consecutive frames is
+    the lag-1 correlation of the whitened residuals (residuals of frame k and k + 1 in
+    the same corner order): persistent^2 = rho s^2, fresh^2 = (1 - rho) s^2.
+
+    Parameters
+    ----------
+    fixes : sequence of PoseFix
+        Fits of the detected frames, in frame order.
+    frame_index : sequence of int, optional
+        Frame number of each fix; consecutive numbers form the pairs for the
+        correlation. Without it no split is made (all noise counted as persistent).
+    floor_px : float
+        Smallest ``sigma_px`` returned [px] (a fit of exact corners is not exact in
+        the image: quantisation alone is 1/sqrt(12) px per pixel edge, common practice).
+
+    Returns
+    -------
+    CornerNoise
+    """
+    dof = int(sum(f.dof for f in fixes))
+    if dof <= 0:
+        raise ValueError("estimate_corner_noise: no residual degrees of freedom")
+    s2 = sum(f.chi2_unit for f in fixes) / dof
+    num = den = 0.0
+    pairs = 0
+    if frame_index is not None:
+        frame_index = list(frame_index)
+        for k in range(len(fixes) - 1):
+            a, b = fixes[k], fixes[k + 1]
+            if frame_index[k + 1] != frame_index[k] + 1 or a.resid_m.shape != b.resid_m.shape:
+                continue
+            ra, rb = _whitened(a), _whitened(b)
+            num += float(np.sum(ra * rb))
+            den += 0.5 * float(np.sum(ra * ra) + np.sum(rb * rb))
+            pairs += 1
+    rho = float(np.clip(num / den, 0.0, 1.0)) if pairs >= MIN_NOISE_PAIRS and den > 0 else 1.0
+    sigma = max(math.sqrt(s2), floor_px)
+    return CornerNoise(sigma, sigma * math.sqrt(1.0 - rho), sigma * math.sqrt(rho), rho, dof,
+                       pairs)
+
+
 def _segments(detected_idx, t, max_gap_s):
     """Split detected frame indices into runs whose gaps are at most ``max_gap_s``."""
     segs = []
@@ -723,7 +805,7 @@ def _segments(detected_idx, t, max_gap_s):
     return segs
 
 
-def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov, reg_err, mpp, sigma_px,
+def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, noise,
             corner_bias_px):
     """Smooth each segment of detections onto its frame times; NaN elsewhere."""
     n = t.size
@@ -734,10 +816,14 @@ def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov, reg_err, mpp, sigma_px,
     for a, b in segs:
         m = (idx >= a) & (idx <= b)
         rows = np.arange(a, b + 1)
-        sx = smooth_ca(t_meas[m], x[m], np.sqrt(cov[m, 0, 0]), t[rows])
-        sy = smooth_ca(t_meas[m], y[m], np.sqrt(cov[m, 1, 1]), t[rows])
-        sh = smooth_ca(t_meas[m], th[m], np.sqrt(cov[m, 2, 2]), t[rows])
-        fits.append((sx.q, sx.r_scale, sy.q, sy.r_scale, sh.q, sh.r_scale))
+        # Fresh corner noise goes through the smoother (averaged over frames) ...
+        fresh = max(noise.fresh_px, 1e-3 * noise.sigma_px)
+        unit = cov_unit[m]
+        sx = smooth_ca(t_meas[m], x[m], fresh * np.sqrt(unit[:, 0, 0]), t[rows])
+        sy = smooth_ca(t_meas[m], y[m], fresh * np.sqrt(unit[:, 1, 1]), t[rows])
+        sh = smooth_ca(t_meas[m], th[m], fresh * np.sqrt(unit[:, 2, 2]), t[rows])
+        fits.append((sx.q, sx.r_scale, sy.q, sy.r_scale, sh.q, sh.r_scale,
+                     sx.innovation_lag1, sy.innovation_lag1, sh.innovation_lag1))
         out["x_m"][rows] = sx.value
         out["y_m"][rows] = sy.value
         out["heading_rad"][rows] = sh.value
@@ -746,14 +832,17 @@ def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov, reg_err, mpp, sigma_px,
         out["omega_radps"][rows] = sh.rate
         out["ax_mps2"][rows] = sx.accel
         out["ay_mps2"][rows] = sy.accel
-        shape_px = CORNER_SHAPE_PX
-        unit = cov[m] / sigma_px**2
-        reg_var = (np.nan_to_num(reg_err[rows]) ** 2 + 2.0 * (corner_bias_px * mpp[rows]) ** 2
-                   + shape_px**2 * (np.interp(rows, idx[m], unit[:, 0, 0])
-                                    + np.interp(rows, idx[m], unit[:, 1, 1])))
-        out["sigma_xy_m"][rows] = np.sqrt(sx.sigma_value**2 + sy.sigma_value**2 + reg_var)
-        # Systematic corner error (not averaged by the smoother), independent per corner.
-        hv = np.interp(rows, idx[m], unit[:, 2, 2]) * shape_px**2
+        # ... the persistent part is not averaged: added per sample, independent per corner.
+        # The innovations of each signal tell how much larger the noise in the pose
+        # direction is than the fit residuals show (r_scale, maximum likelihood); the
+        # persistent part is taken larger by the same factor.
+        p2 = noise.persistent_px**2
+        vx = p2 * sx.r_scale * np.interp(rows, idx[m], unit[:, 0, 0])
+        vy = p2 * sy.r_scale * np.interp(rows, idx[m], unit[:, 1, 1])
+        reg_var = np.nan_to_num(reg_err[rows]) ** 2 + 2.0 * (corner_bias_px * mpp[rows]) ** 2
+        out["sigma_xy_m"][rows] = np.sqrt(sx.sigma_value**2 + sy.sigma_value**2 + vx + vy
+                                          + reg_var)
+        hv = p2 * sh.r_scale * np.interp(rows, idx[m], unit[:, 2, 2])
         out["sigma_heading_rad"][rows] = np.sqrt(sh.sigma_value**2 + hv)
         interpolated[rows] = ~ok[rows]
     return out, interpolated, fits
@@ -780,19 +869,21 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
         )
     idx = np.flatnonzero(ok)
     fixes = [acc.fix[i] for i in idx]
-    # Corner noise from the fit residuals of the whole run (chi^2 / dof for 1 px noise).
-    dof = sum(f.dof for f in fixes)
-    if corner_sigma_px is None:
-        est = math.sqrt(sum(f.chi2_unit for f in fixes) / dof) if dof > 0 else 0.3
-        sigma_px = max(est, 0.05)
-        sigma_source = "fit residuals"
-    else:
-        sigma_px = float(corner_sigma_px)
+    # Corner noise of this run from the rigid fits' residuals (chi^2 / dof), split into
+    # a fresh and a persistent part by the residuals' frame-to-frame correlation.
+    noise = estimate_corner_noise(fixes, idx)
+    sigma_source = "fit residuals"
+    if corner_sigma_px is not None:
+        g = float(corner_sigma_px)
+        noise = CornerNoise(g, g * math.sqrt(1.0 - noise.lag1_corr),
+                            g * math.sqrt(noise.lag1_corr), noise.lag1_corr, noise.dof,
+                            noise.pairs)
         sigma_source = "given"
+    sigma_px = noise.sigma_px
     x = np.array([f.x_m for f in fixes])
     y = np.array([f.y_m for f in fixes])
     th = np.unwrap(np.array([f.heading_rad for f in fixes]))
-    cov = np.array([f.cov_unit for f in fixes]) * sigma_px**2
+    cov_unit = np.array([f.cov_unit for f in fixes])
     frac = np.nan_to_num(np.asarray(acc.frac, float)[idx])
     t_meas = t[idx] + frac * readout_s
     # Registration error at the robot: a least-squares fit of p parameters to n
@@ -805,7 +896,7 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
     reg_err = reg_px * np.sqrt(REGISTRATION_PARAMS / reg_n) * mpp
     reg_err = np.where(np.isfinite(reg_err), reg_err, np.asarray(acc.reg_rms_m, float))
     segs = _segments(idx, t, max_gap_s)
-    first = _smooth(t, idx, ok, segs, t_meas, x, y, th, cov, reg_err, mpp, sigma_px,
+    first = _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, noise,
                     corner_bias_px)
     est, est_sigma, est_frames = estimate_readout(
         fixes, [acc.corner_frac.get(int(i), np.zeros(0)) for i in idx],
@@ -816,7 +907,7 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
     if readout_source == "none" and usable:
         readout_s, readout_source = est, "estimated"
         t_meas = t[idx] + frac * readout_s
-        first = _smooth(t, idx, ok, segs, t_meas, x, y, th, cov, reg_err, mpp, sigma_px,
+        first = _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, noise,
                         corner_bias_px)
     out, interpolated, fits = first
     detected = ok.copy()
@@ -852,7 +943,10 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
         "corner_sigma_px": sigma_px,
         "corner_sigma_source": sigma_source,
         "corner_bias_px": corner_bias_px,
-        "corner_shape_px": CORNER_SHAPE_PX,
+        "corner_fresh_px": noise.fresh_px,
+        "corner_persistent_px": noise.persistent_px,
+        "corner_lag1_corr": noise.lag1_corr,
+        "corner_noise_pairs": noise.pairs,
         "readout_s": readout_s,
         "readout_source": readout_source,
         "readout_estimate_s": est,
@@ -864,7 +958,9 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
         "unrefined_detections": acc.unrefined,
         "upscaled_window_detections": acc.upscaled,
         "ids_seen": seen,
-        "smoother": [dict(zip(("q_x", "r_x", "q_y", "r_y", "q_heading", "r_heading"), f,
+        "smoother": [dict(zip(("q_x", "r_x", "q_y", "r_y", "q_heading", "r_heading",
+                                         "innovation_lag1_x", "innovation_lag1_y",
+                                         "innovation_lag1_heading"), f,
                               strict=True)) for f in fits],
         "dropped_frames": [] if timing is None else [list(d) for d in timing.dropped],
         "duplicated_frames": [] if timing is None else list(timing.duplicated),
@@ -996,7 +1092,9 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
         Gaps up to this long are bridged by the smoother and flagged ``interpolated``;
         longer ones are left NaN and reported [s].
     corner_sigma_px : float, optional
-        Corner noise [px]; default estimated from the fit residuals of the run.
+        Corner noise [px]; default estimated from the fit residuals of the run. Either
+        way it is split into a fresh and a persistent part by the residuals'
+        frame-to-frame correlation (:func:`estimate_corner_noise`).
     corner_bias_px : float
         1-sigma of a shift common to all corners of a marker (blur, sampling, print),
         which fit residuals cannot reveal; it is not averaged down by the smoother [px].
