@@ -288,8 +288,28 @@ def _rectifier(vp1, vp2):
 
 
 def _apply(hm, pts):
-    p = np.column_stack([pts, np.ones(len(pts))]) @ hm.T
+    pts = np.asarray(pts, float)
+    p = pts @ hm[:, :2].T + hm[:, 2]
     return p[:, :2] / p[:, 2:3]
+
+
+def _distort(norm, k, dist):
+    """Normalised image coordinates to distorted pixels (OpenCV's lens model: radial
+    k1..k6 and tangential p1, p2; OpenCV documentation, calib3d "Camera Calibration and
+    3D Reconstruction"); ``cv2.projectPoints`` for models with more terms."""
+    d = np.zeros(8)
+    dist = np.asarray(dist, float).ravel()
+    if len(dist) > 8:
+        obj = np.column_stack([norm, np.ones(len(norm))])
+        return cv2.projectPoints(obj, np.zeros(3), np.zeros(3), k, dist)[0].reshape(-1, 2)
+    d[:len(dist)] = dist
+    k1, k2, p1, p2, k3, k4, k5, k6 = d
+    x, y = norm[:, 0], norm[:, 1]
+    r2 = x * x + y * y
+    radial = (1 + r2 * (k1 + r2 * (k2 + r2 * k3))) / (1 + r2 * (k4 + r2 * (k5 + r2 * k6)))
+    xd = x * radial + 2 * p1 * x * y + p2 * (r2 + 2 * x * x)
+    yd = y * radial + p1 * (r2 + 2 * y * y) + 2 * p2 * x * y
+    return np.column_stack([k[0, 0] * xd + k[0, 1] * yd + k[0, 2], k[1, 1] * yd + k[1, 2]])
 
 
 def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidates=3):
@@ -340,14 +360,16 @@ def _initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidate
         fam.append(dict(pos=pos, weight=np.hypot(*direc.T), normal=nrm, ref=d[0],
                         dir=np.array([math.cos(mean_dir), math.sin(mean_dir)])))
     rect_inv = np.linalg.inv(rect)
+    # Rectified frame -> (undistorted) image pixels in one homography.
+    to_pix = np.array([[1 / scale, 0.0, centre[0]], [0.0, 1 / scale, centre[1]],
+                       [0.0, 0.0, 1.0]]) @ rect_inv
+    if camera is not None:
+        to_pix = np.linalg.inv(camera.matrix) @ to_pix  # to normalised coordinates
 
     def to_image(pts_rect):
-        img = _apply(rect_inv, pts_rect) / scale + centre
+        img = _apply(to_pix, pts_rect)
         if camera is not None:  # back to distorted pixels
-            k, d = camera.matrix, camera.dist_coeffs
-            norm = cv2.undistortPoints(img.reshape(-1, 1, 2), k, None).reshape(-1, 2)
-            obj = np.column_stack([norm, np.ones(len(norm))])
-            img = cv2.projectPoints(obj, np.zeros(3), np.zeros(3), k, d)[0].reshape(-1, 2)
+            img = _distort(img, camera.matrix, camera.dist_coeffs)
         return img
 
     # Dense seam evidence across each family: for every line position rho (in the
@@ -891,11 +913,15 @@ def refine_fit(grey, field: FieldProfile, fit, *, camera: CameraProfile | None =
     scale = float(np.clip(math.hypot(w, h) / 1469.0, 0.5, 1.5))
     widths = tuple(v * scale for v in (12.0, 6.0, 4.0))[-rounds:]
     out = None
-    for hw in widths[:rounds]:
+    for i_round, hw in enumerate(widths[:rounds]):
         reg = FrameRegistration(0.0, True, cur.camera_matrix, cur.dist_coeffs, cur.rvec,
                                 cur.tvec, 0.0, 0.0, 0, "")
-        q, ax, val = seam_samples(grey, field, reg, half_width_px=hw, ignore=ignore)
-        if len(q) < min_samples:
+        # The wide early rounds only bring the model close enough for the next, narrower
+        # search: half the samples along each seam do; the last round uses them all.
+        last = i_round == len(widths[:rounds]) - 1
+        q, ax, val = seam_samples(grey, field, reg, half_width_px=hw, ignore=ignore,
+                                  step_frac=1 / 20 if last else 1 / 10)
+        if len(q) < (min_samples if last else min_samples // 2):
             return out
         free = camera is None
         cur = fit_camera((w, h), seams=(q, ax, val), camera=camera,
