@@ -66,6 +66,9 @@ def evaluate(run: Path, **options):
         "readout_est_ms": 1000 * res.quality["readout_estimate_s"],
         "readout_sigma_ms": 1000 * res.quality["readout_estimate_sigma_s"],
         "readout_true_ms": 1000 * camera.readout_s,
+        "corner_noise": {k: res.quality[k] for k in (
+            "corner_sigma_px", "corner_fresh_px", "corner_persistent_px", "corner_lag1_corr")},
+        "r_scales": [(s["r_x"], s["r_y"], s["r_heading"]) for s in res.quality["smoother"]],
     }
 
 
@@ -96,6 +99,11 @@ def main(argv=None):
               "(target < 1 ms)")
         print(f"  readout estimated from marker shear: {r['readout_est_ms']:.1f} +- "
               f"{r['readout_sigma_ms']:.1f} ms (camera profile: {r['readout_true_ms']:.1f} ms)")
+        c = r["corner_noise"]
+        print(f"  corner noise from the fit residuals: {c['corner_sigma_px']:.3f} px (fresh "
+              f"{c['corner_fresh_px']:.3f}, persistent {c['corner_persistent_px']:.3f}, lag-1 "
+              f"correlation {c['corner_lag1_corr']:.2f}); smoother variance factors x, y, "
+              "heading: " + "; ".join(", ".join(f"{v:.2f}" for v in f) for f in r["r_scales"]))
         for w in r["warnings"]:
             print(f"  warning: {w}")
     if args.methods:
