@@ -913,15 +913,11 @@ def refine_fit(grey, field: FieldProfile, fit, *, camera: CameraProfile | None =
     scale = float(np.clip(math.hypot(w, h) / 1469.0, 0.5, 1.5))
     widths = tuple(v * scale for v in (12.0, 6.0, 4.0))[-rounds:]
     out = None
-    for i_round, hw in enumerate(widths[:rounds]):
+    for hw in widths[:rounds]:
         reg = FrameRegistration(0.0, True, cur.camera_matrix, cur.dist_coeffs, cur.rvec,
                                 cur.tvec, 0.0, 0.0, 0, "")
-        # The wide early rounds only bring the model close enough for the next, narrower
-        # search: half the samples along each seam do; the last round uses them all.
-        last = i_round == len(widths[:rounds]) - 1
-        q, ax, val = seam_samples(grey, field, reg, half_width_px=hw, ignore=ignore,
-                                  step_frac=1 / 20 if last else 1 / 10)
-        if len(q) < (min_samples if last else min_samples // 2):
+        q, ax, val = seam_samples(grey, field, reg, half_width_px=hw, ignore=ignore)
+        if len(q) < min_samples:
             return out
         free = camera is None
         cur = fit_camera((w, h), seams=(q, ax, val), camera=camera,
