@@ -199,7 +199,7 @@ def _overview(summary: dict, unit: str) -> str:
     clock = summary.get("clock") or {}
     off, sig = clock.get("offset_s"), clock.get("sigma_s")
     if _is_number(off):
-        txt = f"log clock + {off:.3f} s"
+        txt = f"video time = log time {'-' if off < 0 else '+'} {abs(off):.3f} s"
         if _is_number(sig):
             txt += f" (\u00b1 {sig * 1000:.1f} ms)"
         items.append(f"Clock: {_e(txt)}, found by {_e(clock.get('method', '?'))}")
