@@ -47,6 +47,7 @@ import pandas as pd
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "tests"))
 
 from vidodo.errors import VidodoError  # noqa: E402
 from vidodo.logs import read_log  # noqa: E402
@@ -116,20 +117,11 @@ def render(config, seed, *, video, small):
     return folder
 
 
-def standin_truth(run, seed, sigma_m=0.0015, sigma_rad=0.0052):
+def standin_truth(run, seed):
     """The renderer's truth plus Gaussian noise (1.5 mm, 0.3 deg), as a truth track."""
-    tr = pd.read_csv(run / "truth" / "truth.csv")
-    rng = np.random.default_rng(1000 + seed)
-    n = len(tr)
-    vis = tr["marker_visible"].astype(str).str.lower().eq("true").to_numpy()
-    out = pd.DataFrame({
-        "t_s": tr["t_s"], "x_m": tr["x_m"] + rng.normal(0, sigma_m, n),
-        "y_m": tr["y_m"] + rng.normal(0, sigma_m, n),
-        "heading_rad": tr["heading_rad"] + rng.normal(0, sigma_rad, n),
-        "sigma_xy_m": sigma_m, "sigma_heading_rad": sigma_rad,
-        "detected": vis, "interpolated": False})
-    out.loc[~vis, ["x_m", "y_m", "heading_rad"]] = np.nan
-    return out
+    from test_pipeline import standin_truth as noisy_truth
+
+    return noisy_truth(run, 1000 + seed, sigma_m=0.0015, sigma_rad=math.radians(0.3))
 
 
 def _tracked(run, camera, reuse):

@@ -26,17 +26,18 @@ KIND_OF_FAULT = {"impact": {"impact", "wheel_slip"}, "shove": {"shove"},
                  "pod_lift": {"pod_lift"}, "heading_jump": {"heading_jump"}}
 
 
-def standin_truth(run, seed=0):
-    """Truth track columns from the renderer's exact truth plus noise (tests only)."""
+def standin_truth(run, seed=0, sigma_m=SIGMA_M, sigma_rad=SIGMA_RAD):
+    """Truth track columns from the renderer's exact truth plus noise (tests and
+    benchmarks only; never the pipeline)."""
     tr = pd.read_csv(run / "truth" / "truth.csv")
     rng = np.random.default_rng(seed)
     n = len(tr)
     vis = tr["marker_visible"].astype(str).str.lower().eq("true").to_numpy()
     out = pd.DataFrame({
-        "t_s": tr["t_s"], "x_m": tr["x_m"] + rng.normal(0, SIGMA_M, n),
-        "y_m": tr["y_m"] + rng.normal(0, SIGMA_M, n),
-        "heading_rad": tr["heading_rad"] + rng.normal(0, SIGMA_RAD, n),
-        "sigma_xy_m": SIGMA_M, "sigma_heading_rad": SIGMA_RAD,
+        "t_s": tr["t_s"], "x_m": tr["x_m"] + rng.normal(0, sigma_m, n),
+        "y_m": tr["y_m"] + rng.normal(0, sigma_m, n),
+        "heading_rad": tr["heading_rad"] + rng.normal(0, sigma_rad, n),
+        "sigma_xy_m": sigma_m, "sigma_heading_rad": sigma_rad,
         "detected": vis, "interpolated": False})
     out.loc[~vis, ["x_m", "y_m", "heading_rad"]] = np.nan
     return out
