@@ -77,3 +77,22 @@ def test_measurement_variance_scaled_by_innovation_consistency():
     assert abs(s.innovation_lag1) < 0.1
     cover = np.mean(np.abs(s.value - truth) <= 2 * s.sigma_value)
     assert 0.88 < cover <= 1.0
+
+
+def test_batched_signals_equal_one_at_a_time():
+    """Several signals smoothed in one batch: each equals its own smooth_ca (whose
+    accuracy the polyfit and coverage checks above tie to references)."""
+    from vidodo.smooth import smooth_ca_signals
+
+    rng = np.random.default_rng(21)  # seed fixed for reproducibility
+    t = np.sort(rng.uniform(0.0, 3.0, 90))
+    t_out = np.linspace(0.0, 3.0, 40)
+    z = np.column_stack([np.sin(t), 0.01 * t**2, np.cos(3 * t)])
+    sig = np.column_stack([np.full(t.size, s) for s in (0.002, 0.0005, 0.01)])
+    z = z + rng.normal(0.0, 1.0, z.shape) * sig * 1.7
+    batch = smooth_ca_signals(t, z, sig, t_out)
+    for k in range(3):
+        one = smooth_ca(t, z[:, k], sig[:, k], t_out)
+        assert (batch[k].q, batch[k].r_scale) == (one.q, one.r_scale)
+        np.testing.assert_allclose(batch[k].value, one.value, rtol=0, atol=1e-12)
+        np.testing.assert_allclose(batch[k].sigma_value, one.sigma_value, rtol=1e-9)

@@ -257,6 +257,22 @@ def test_upscaled_window_keeps_pixel_convention():
     assert np.mean(np.linalg.norm(big[0].corners_px - c, axis=1)) < 0.3
 
 
+def test_smallest_outline_bound_keeps_corners():
+    """Skipping outlines shorter than half the marker's side changes nothing found;
+    a bound above the marker's size finds nothing (the bound is really applied)."""
+    det = MarkerDetector((TAG,))
+    frame, truth = render((TAG,), (0.9, 0.8, 0.7), rng=np.random.default_rng(9))
+    c = truth[0]
+    roi = (int(c[:, 0].min()) - 30, int(c[:, 1].min()) - 30,
+           int(c[:, 0].max()) + 30, int(c[:, 1].max()) + 30)
+    side = np.sqrt(0.5 * abs(np.cross(c[2] - c[0], c[3] - c[1])))
+    plain = det.detect(frame, roi)
+    bound = det.detect(frame, roi, min_side_px=0.5 * side)
+    assert len(plain) == len(bound) == 1
+    np.testing.assert_allclose(bound[0].corners_px, plain[0].corners_px, atol=1e-9)
+    assert det.detect(frame, roi, min_side_px=3.0 * side) == []
+
+
 def test_wrong_ids_ignored_and_listed():
     """Only the robot's (family, id) counts; a missing marker error lists seen IDs."""
     other = Marker(id=7, family="DICT_APRILTAG_36h11", size_m=0.12, z_m=0.25)

@@ -18,7 +18,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["SmoothedSignal", "smooth_ca", "Q_GRID", "R_SCALE_GRID"]
+__all__ = ["SmoothedSignal", "smooth_ca", "smooth_ca_signals", "Q_GRID", "R_SCALE_GRID"]
 
 Q_GRID = np.logspace(-3, 4, 15)
 """Default jerk spectral densities tried [unit^2/s^5]."""
@@ -79,8 +79,9 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True)
     ----------
     t : ndarray (T,)
         Event times, sorted.
-    z, var_z : ndarray (T,)
-        Measurement and its variance (ignored where ``is_meas`` is False).
+    z, var_z : ndarray (T,) or (T, B)
+        Measurement and its variance (ignored where ``is_meas`` is False); one column
+        per parallel model when 2-D.
     is_meas : ndarray of bool (T,)
     q, r_scale : ndarray (B,)
         Model parameters of the B parallel filters.
@@ -175,42 +176,83 @@ def smooth_ca(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None, q_grid=Q_G
     -------
     SmoothedSignal
     """
+    z = np.asarray(z, dtype=float)
+    return smooth_ca_signals(t_meas_s, z[:, None], np.asarray(sigma_z, float)[:, None],
+                             t_out_s, q=q, r_scale=r_scale, q_grid=q_grid,
+                             r_scale_grid=r_scale_grid, prior_rate=prior_rate,
+                             prior_accel=prior_accel)[0]
+
+
+def smooth_ca_signals(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None,
+                      q_grid=Q_GRID, r_scale_grid=R_SCALE_GRID, prior_rate=5.0,
+                      prior_accel=20.0):
+    """Smooth S independent signals measured at the same times, in one batched pass.
+
+    Each signal gets its own maximum-likelihood jerk density and variance factor, exactly
+    as :func:`smooth_ca` would give it; only the work is shared.
+
+    Parameters
+    ----------
+    t_meas_s : array_like (M,)
+        Measurement times [s].
+    z, sigma_z : array_like (M, S)
+        Measurements and their 1-sigma [unit of each signal].
+    t_out_s : array_like (N,)
+        Output times [s].
+    q, r_scale, q_grid, r_scale_grid, prior_rate, prior_accel
+        As in :func:`smooth_ca`, shared by all signals.
+
+    Returns
+    -------
+    list of SmoothedSignal
+        One per column of ``z``.
+    """
     tm = np.asarray(t_meas_s, dtype=float)
     zm = np.asarray(z, dtype=float)
     vm = np.asarray(sigma_z, dtype=float) ** 2
     to = np.asarray(t_out_s, dtype=float)
     if tm.size == 0:
         raise ValueError("smooth_ca: no measurements")
+    if zm.ndim != 2 or zm.shape != vm.shape or zm.shape[0] != tm.size:
+        raise ValueError("smooth_ca_signals: z and sigma_z must be (M, S) with M times")
+    n_sig = zm.shape[1]
     t = np.concatenate([tm, to])
-    zz = np.concatenate([zm, np.zeros(to.size)])
-    vv = np.concatenate([vm, np.ones(to.size)])
+    zz = np.vstack([zm, np.zeros((to.size, n_sig))])
+    vv = np.vstack([vm, np.ones((to.size, n_sig))])
     meas = np.concatenate([np.ones(tm.size, bool), np.zeros(to.size, bool)])
     order = np.lexsort((~meas, t))  # measurements first when times tie
     t, zz, vv, meas = t[order], zz[order], vv[order], meas[order]
     qs = np.atleast_1d(q_grid if q is None else q).astype(float)
     rs = np.atleast_1d(r_scale_grid if r_scale is None else r_scale).astype(float)
     if qs.size * rs.size > 1:
-        gq, gr = np.meshgrid(qs, rs, indexing="ij")
-        ll, _, _, _, _ = _run(t[meas], zz[meas], vv[meas], np.ones(meas.sum(), bool),
-                        gq.ravel(), gr.ravel(), prior_rate, prior_accel, smooth=False)
-        best = int(np.argmax(ll))
-        q_best, r_best = float(gq.ravel()[best]), float(gr.ravel()[best])
+        gq, gr = (g.ravel() for g in np.meshgrid(qs, rs, indexing="ij"))
+        g = gq.size
+        # Column s * g + j: signal s with grid point j.
+        ll, _, _, _, _ = _run(t[meas], np.repeat(zz[meas], g, axis=1),
+                              np.repeat(vv[meas], g, axis=1), np.ones(meas.sum(), bool),
+                              np.tile(gq, n_sig), np.tile(gr, n_sig), prior_rate,
+                              prior_accel, smooth=False)
+        best = np.argmax(ll.reshape(n_sig, g), axis=1)
+        q_best, r_best = gq[best], gr[best]
     else:
-        q_best, r_best = float(qs[0]), float(rs[0])
-    _, nis, nu, xs, Ps = _run(t, zz, vv, meas, np.array([q_best]), np.array([r_best]),
-                     prior_rate, prior_accel, smooth=True)
+        q_best, r_best = np.full(n_sig, qs[0]), np.full(n_sig, rs[0])
+    _, nis, nu, xs, Ps = _run(t, zz, vv, meas, q_best, r_best, prior_rate, prior_accel,
+                              smooth=True)
     where = np.empty(order.size, dtype=int)
     where[order] = np.arange(order.size)
     out_pos = where[tm.size:]
-    x = xs[out_pos, 0]
-    P = Ps[out_pos, 0]
-    return SmoothedSignal(
-        value=x[:, 0], rate=x[:, 1], accel=x[:, 2],
-        sigma_value=np.sqrt(np.maximum(P[:, 0, 0], 0.0)),
-        sigma_rate=np.sqrt(np.maximum(P[:, 1, 1], 0.0)),
-        q=q_best, r_scale=r_best, nis_mean=float(nis[0]) / tm.size,
-        innovation_lag1=_lag1(nu[meas, 0]),
-    )
+    out = []
+    for s in range(n_sig):
+        x = xs[out_pos, s]
+        P = Ps[out_pos, s]
+        out.append(SmoothedSignal(
+            value=x[:, 0], rate=x[:, 1], accel=x[:, 2],
+            sigma_value=np.sqrt(np.maximum(P[:, 0, 0], 0.0)),
+            sigma_rate=np.sqrt(np.maximum(P[:, 1, 1], 0.0)),
+            q=float(q_best[s]), r_scale=float(r_best[s]), nis_mean=float(nis[s]) / tm.size,
+            innovation_lag1=_lag1(nu[meas, s]),
+        ))
+    return out
 
 
 def _lag1(u):

@@ -30,7 +30,7 @@ import pandas as pd
 
 from .errors import InputError, TrackingError
 from .profiles import marker_corners_local
-from .smooth import smooth_ca
+from .smooth import smooth_ca_signals
 from .video import VideoReader, VideoTruncatedError, readout_fraction
 
 __all__ = [
@@ -62,6 +62,14 @@ REFINE_METHODS = {
     "apriltag": cv2.aruco.CORNER_REFINE_APRILTAG,
     "hybrid": cv2.aruco.CORNER_REFINE_APRILTAG,
 }
+
+MIN_PERIMETER_RATE = 0.01
+"""Smallest marker outline examined in a whole-frame search, as a fraction of the
+image's larger side (OpenCV's default 0.03 misses a 10 cm tag across a 1080p field)."""
+
+SHRINK_PER_FRAME = 0.5
+"""In a window search, outlines shorter than this share of the last detection's side are
+not examined: a marker does not halve its apparent size between nearby frames."""
 
 MIN_NOISE_PAIRS = 20
 """Pairs of consecutive detections needed before the split of the corner noise into a
@@ -163,22 +171,52 @@ class MarkerDetector:
                 params = cv2.aruco.DetectorParameters()
                 params.cornerRefinementMethod = REFINE_METHODS[refine]
                 params.useAruco3Detection = False
-                params.minMarkerPerimeterRate = 0.01
+                params.minMarkerPerimeterRate = MIN_PERIMETER_RATE
                 self._detectors[m.family] = cv2.aruco.ArucoDetector(d, params)
                 sp = cv2.aruco.DetectorParameters()
                 sp.cornerRefinementMethod = cv2.aruco.CORNER_REFINE_SUBPIX
-                sp.minMarkerPerimeterRate = 0.01
+                sp.minMarkerPerimeterRate = MIN_PERIMETER_RATE
                 self._subpix[m.family] = cv2.aruco.ArucoDetector(d, sp)
                 coarse = cv2.aruco.DetectorParameters()
-                coarse.minMarkerPerimeterRate = 0.01
+                coarse.minMarkerPerimeterRate = MIN_PERIMETER_RATE
                 self._coarse[m.family] = cv2.aruco.ArucoDetector(d, coarse)
                 self.cells[m.family] = d.markerSize + 2 * params.markerBorderBits
         self.ids_seen: dict[tuple[str, int], int] = {}
         """Every (family, id) seen so far with its frame count, robot's or not."""
+        self._sized: dict[tuple[str, str, int], object] = {}
 
-    def _centre_from_subpix(self, family, img, marker_id, corners):
+    def _sized_detector(self, kind, family, min_perimeter_px, image_px):
+        """A copy of a detector that skips outlines shorter than ``min_perimeter_px``.
+
+        OpenCV's contour candidates obey ``minMarkerPerimeterRate`` (a fraction of the
+        image's larger side ``image_px``); its AprilTag quad candidates ignore that and
+        obey ``aprilTagMinClusterPixels`` instead, edge pixels counted on both sides of
+        the outline (about twice the perimeter). Bounds are rounded down (rates to 1/50,
+        clusters to 8 px) so that a handful of cached detectors serve a whole run.
+        """
+        base = {"refined": self._detectors, "subpix": self._subpix,
+                "coarse": self._coarse}[kind][family]
+        quads = kind == "refined" and self.refine in ("apriltag", "hybrid")
+        if quads:
+            step = int(2.0 * min_perimeter_px // 8) * 8
+        else:
+            step = int(math.floor(min_perimeter_px / max(image_px, 1) * 50.0))
+        if step <= 0:
+            return base
+        key = (kind, family, step)
+        if key not in self._sized:
+            params = base.getDetectorParameters()
+            if quads:
+                params.aprilTagMinClusterPixels = max(step, params.aprilTagMinClusterPixels)
+            else:
+                params.minMarkerPerimeterRate = max(step / 50.0, MIN_PERIMETER_RATE)
+            self._sized[key] = cv2.aruco.ArucoDetector(base.getDictionary(), params)
+        return self._sized[key]
+
+    def _centre_from_subpix(self, family, img, marker_id, corners, min_perimeter_px=0.0):
         """Keep the AprilTag-refined shape, move it to the SUBPIX-refined centre."""
-        sub, ids, _ = self._subpix[family].detectMarkers(img)
+        det = self._sized_detector("subpix", family, min_perimeter_px, max(img.shape[:2]))
+        sub, ids, _ = det.detectMarkers(img)
         if ids is None:
             return corners
         for c, i in zip(sub, ids.ravel(), strict=True):
@@ -192,7 +230,7 @@ class MarkerDetector:
         """Cells across the black square of a marker (bits + 2 border cells)."""
         return self.cells[self.markers[marker_index].family]
 
-    def detect(self, frame, roi=None, *, coarse=False, upscale=1):
+    def detect(self, frame, roi=None, *, coarse=False, upscale=1, min_side_px=None):
         """Detect the robot's markers in ``frame`` (optionally only inside ``roi``).
 
         Parameters
@@ -206,6 +244,10 @@ class MarkerDetector:
         upscale : int
             Enlarge the window this many times (bicubic) before detecting, which finds
             markers whose cells are only 2-3 px wide.
+        min_side_px : float, optional
+            Smallest side a robot marker can have in this frame [px] (e.g. half the
+            last detection's). Outlines shorter than that are not examined, which is
+            most of the detector's work in a small window full of floor texture.
 
         Returns
         -------
@@ -224,7 +266,10 @@ class MarkerDetector:
             img = cv2.resize(img, None, fx=k, fy=k, interpolation=cv2.INTER_CUBIC)
         found: dict[int, np.ndarray] = {}
         shift = 0.0 if coarse else self._shift
-        for family, det in (self._coarse if coarse else self._detectors).items():
+        least = 4.0 * float(min_side_px) * k if min_side_px else 0.0
+        kind = "coarse" if coarse else "refined"
+        for family in self._detectors:
+            det = self._sized_detector(kind, family, least, max(img.shape[:2]))
             corners, ids, _rej = det.detectMarkers(img)
             if ids is None:
                 continue
@@ -236,7 +281,7 @@ class MarkerDetector:
                     continue
                 c = c.reshape(4, 2).astype(np.float64) + shift
                 if self.refine == "hybrid" and not coarse:
-                    c = self._centre_from_subpix(family, img, int(mid), c)
+                    c = self._centre_from_subpix(family, img, int(mid), c, least)
                 # Pixel centres at integers at both scales: x = (x_k + 0.5) / k - 0.5.
                 pts = (c + 0.5) / k - 0.5 + (u0, v0)
                 if idx in found and _area(found[idx]) >= _area(pts):
@@ -545,6 +590,7 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
     last_fix = None
     last_fix_t = -math.inf
     last_cell = math.inf
+    last_side = 0.0
     for index, t_s, frame in frames:
         acc.t.append(float(t_s))
         reg, fresh = policy.update(
@@ -571,9 +617,10 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
             roi = _roi(last, prev, frame.shape, index - last_index) if window else None
             if roi is not None:
                 acc.window_searches += 1
-                dets = det.detect(frame, roi)
+                least = SHRINK_PER_FRAME * last_side if index - last_index <= 3 else None
+                dets = det.detect(frame, roi, min_side_px=least)
                 if not dets and last_cell < 4.0:  # small marker: try a 2x enlarged window
-                    dets = det.detect(frame, roi, upscale=2)
+                    dets = det.detect(frame, roi, upscale=2, min_side_px=least)
                     acc.upscaled += bool(dets)
             if not dets:
                 acc.full_searches += 1
@@ -610,6 +657,7 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
                            for d in dets)
                 nm = len(dets)
                 last_cell = cell
+                last_side = min(math.sqrt(_area(d.corners_px)) for d in dets)
                 prev = last if index - last_index <= 3 else None
                 last = allc
                 last_index = index
@@ -819,9 +867,9 @@ def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, noise,
         # Fresh corner noise goes through the smoother (averaged over frames) ...
         fresh = max(noise.fresh_px, 1e-3 * noise.sigma_px)
         unit = cov_unit[m]
-        sx = smooth_ca(t_meas[m], x[m], fresh * np.sqrt(unit[:, 0, 0]), t[rows])
-        sy = smooth_ca(t_meas[m], y[m], fresh * np.sqrt(unit[:, 1, 1]), t[rows])
-        sh = smooth_ca(t_meas[m], th[m], fresh * np.sqrt(unit[:, 2, 2]), t[rows])
+        sx, sy, sh = smooth_ca_signals(
+            t_meas[m], np.column_stack([x[m], y[m], th[m]]),
+            fresh * np.sqrt(np.diagonal(unit, axis1=1, axis2=2)), t[rows])
         fits.append((sx.q, sx.r_scale, sy.q, sy.r_scale, sh.q, sh.r_scale,
                      sx.innovation_lag1, sy.innovation_lag1, sh.innovation_lag1))
         out["x_m"][rows] = sx.value
@@ -1206,3 +1254,4 @@ def load_track_csv(path) -> pd.DataFrame:
     for c in ("detected", "interpolated"):
         df[c] = df[c].astype(str).str.lower().isin(("true", "1"))
     return df[TRACK_COLUMNS]
+
