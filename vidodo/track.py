@@ -22,6 +22,7 @@ Only a few frames are held at once (see :class:`vidodo.video.VideoReader`).
 from __future__ import annotations
 
 import math
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import cv2
@@ -213,10 +214,13 @@ class MarkerDetector:
             self._sized[key] = cv2.aruco.ArucoDetector(base.getDictionary(), params)
         return self._sized[key]
 
-    def _centre_from_subpix(self, family, img, marker_id, corners, min_perimeter_px=0.0):
-        """Keep the AprilTag-refined shape, move it to the SUBPIX-refined centre."""
-        det = self._sized_detector("subpix", family, min_perimeter_px, max(img.shape[:2]))
-        sub, ids, _ = det.detectMarkers(img)
+    def _centre_from_subpix(self, subpix_result, marker_id, corners):
+        """Keep the AprilTag-refined shape, move it to the SUBPIX-refined centre.
+
+        ``subpix_result`` is the output of the SUBPIX detector's ``detectMarkers`` on the
+        same image (run beside the AprilTag pass, see :meth:`detect`).
+        """
+        sub, ids, _ = subpix_result
         if ids is None:
             return corners
         for c, i in zip(sub, ids.ravel(), strict=True):
@@ -268,6 +272,13 @@ class MarkerDetector:
         shift = 0.0 if coarse else self._shift
         least = 4.0 * float(min_side_px) * k if min_side_px else 0.0
         kind = "coarse" if coarse else "refined"
+        # The SUBPIX pass of 'hybrid' runs on a second thread beside the AprilTag pass
+        # (OpenCV releases the interpreter lock while it detects).
+        side_pass = {}
+        if self.refine == "hybrid" and not coarse:
+            for family in self._detectors:
+                sub = self._sized_detector("subpix", family, least, max(img.shape[:2]))
+                side_pass[family] = _side_pool().submit(sub.detectMarkers, img)
         for family in self._detectors:
             det = self._sized_detector(kind, family, least, max(img.shape[:2]))
             corners, ids, _rej = det.detectMarkers(img)
@@ -280,14 +291,24 @@ class MarkerDetector:
                 if idx is None:
                     continue
                 c = c.reshape(4, 2).astype(np.float64) + shift
-                if self.refine == "hybrid" and not coarse:
-                    c = self._centre_from_subpix(family, img, int(mid), c, least)
+                if family in side_pass:
+                    c = self._centre_from_subpix(side_pass[family].result(), int(mid), c)
                 # Pixel centres at integers at both scales: x = (x_k + 0.5) / k - 0.5.
                 pts = (c + 0.5) / k - 0.5 + (u0, v0)
                 if idx in found and _area(found[idx]) >= _area(pts):
                     continue
                 found[idx] = pts
         return [Detection(i, found[i]) for i in sorted(found)]
+
+
+_POOL: list = []
+
+
+def _side_pool() -> ThreadPoolExecutor:
+    """One worker thread shared by every detector of the process (made on first use)."""
+    if not _POOL:
+        _POOL.append(ThreadPoolExecutor(max_workers=1, thread_name_prefix="vidodo-subpix"))
+    return _POOL[0]
 
 
 def _area(pts):
