@@ -357,3 +357,31 @@ def test_reference_retried_after_a_pause(still):
     assert not soon.ok and soon.reason.startswith("no reference yet")
     later = registrar.register(img, 0.6)
     assert later.ok and later.method == "grid"
+
+
+def test_pose_fit_drops_points_a_few_tenths_of_a_pixel_off():
+    """Points on an object leaving the floor (0.8 px off) are dropped, not averaged in.
+
+    Reference: ``cv2.solvePnP`` (iterative) on the floor points alone. The outlier limit
+    follows the residuals: 0.1 % of 2-D Gaussian residual lengths (Rayleigh) exceed
+    3.72 sigma, ``exp(-3.72**2 / 2) = 0.001`` (Rayleigh tail, common practice); with
+    0.1 px noise that is about 0.37 px, so the 0.8 px points go.
+    """
+    rng = np.random.default_rng(7)  # seed fixed; any noise draw will do
+    rvec, tvec = tripod_pose()
+    fl = rng.uniform([0, 0], [3.6, 3.6], (300, 2))
+    obj = np.column_stack([fl, np.zeros(len(fl))])
+    px = cv2.projectPoints(obj, rvec, tvec, K, np.zeros(5))[0].reshape(-1, 2)
+    px += rng.normal(0, 0.1, px.shape)
+    moved = np.zeros(len(px), bool)
+    moved[:30] = True  # a robot starting to move: its corners shift together
+    px[moved] += [0.8, 0.0]
+    fit = register.pose_fit_points(px, fl, K, np.zeros(5), rvec + 0.01, tvec + 0.02)
+    assert not fit.inliers[moved].any()
+    assert fit.inliers[~moved].mean() > 0.98
+    ok, rv_ref, tv_ref = cv2.solvePnP(obj[~moved], px[~moved], K, np.zeros(5), rvec.copy(),
+                                      tvec.copy(), useExtrinsicGuess=True,
+                                      flags=cv2.SOLVEPNP_ITERATIVE)
+    assert ok
+    np.testing.assert_allclose(fit.rvec, rv_ref.ravel(), atol=2e-5)
+    np.testing.assert_allclose(fit.tvec, tv_ref.ravel(), atol=2e-4)

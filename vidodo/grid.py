@@ -880,8 +880,11 @@ def seam_samples(grey, field: FieldProfile, reg, *, half_width_px=8.0, ignore=No
     with np.errstate(invalid="ignore", divide="ignore"):
         off = np.clip(np.where(den < 0, 0.5 * (a - c) / den, 0.0), -0.5, 0.5)
     t_edge = t_s[0] + (kgc + 0.5 + off) * step
-    edge_ok = (~line_ok & (edge_strength > min_contrast) & (edge_strength > 4 * noise)
-               & (kg > 0) & (kg < grad.shape[1] - 1))
+    # A step is only located where no seam line shows: next to a dark (or light) line the
+    # gradient peak sits on the line's flank, off the boundary.
+    has_line = (line_strength > min_contrast) & (line_strength > 4 * noise)
+    edge_ok = (~line_ok & ~has_line & (edge_strength > min_contrast)
+               & (edge_strength > 4 * noise) & (kg > 0) & (kg < grad.shape[1] - 1))
     t_peak = np.where(line_ok, t_line, t_edge)
     keep &= (line_ok | edge_ok) & np.isfinite(t_peak)
     q = p0 + t_peak[:, None] * n

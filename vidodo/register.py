@@ -71,6 +71,9 @@ METHODS = ("auto", "markers", "points", "grid")
 #: still fix the plane; hand-picked points must be spread more (0.05, the default).
 MARKER_MIN_SPREAD = 0.02
 NAN3 = np.full(3, np.nan)
+#: Outlier limit over the median residual length for 2-D Gaussian noise: 0.1 % of
+#: Rayleigh residuals exceed 3.72 sigma, and the median is sqrt(2 ln 2) = 1.177 sigma.
+RAYLEIGH_LIMIT = 3.72 / math.sqrt(2.0 * math.log(2.0))
 
 
 def project_rows(obj, rvec, tvec, rvec_rate, tvec_rate, dt, camera_matrix, dist_coeffs,
@@ -617,11 +620,18 @@ def fit_camera(image_size, *, points=None, seams=None, camera: CameraProfile | N
                      np.concatenate([keep_pts, keep_seam]), tuple(warnings))
 
 
-def pose_fit_points(px, fl, camera_matrix, dist_coeffs, rvec0, tvec0, *, outlier_px=3.0):
+def pose_fit_points(px, fl, camera_matrix, dist_coeffs, rvec0, tvec0, *, outlier_px=3.0,
+                    min_outlier_px=0.3, rounds=3):
     """Camera pose only, from floor points, by OpenCV's Levenberg-Marquardt.
 
-    ``cv2.solvePnP`` (iterative, started from ``rvec0, tvec0``) on all points, then once
-    more without those off by more than ``outlier_px``. Fast enough for every frame.
+    ``cv2.solvePnP`` (iterative, started from ``rvec0, tvec0``) on all points, then again
+    without the outliers. The outlier limit follows the residuals themselves: for
+    isotropic Gaussian pixel noise of deviation sigma the residual length is Rayleigh
+    distributed, median ``1.177 sigma``, and fewer than 0.1 % exceed ``3.72 sigma``
+    (``exp(-3.72^2 / 2)``), so the limit is ``3.16 x`` the median residual, held between
+    ``min_outlier_px`` and ``outlier_px``. Points on something that is not the floor (a
+    robot starting to move, its shadow) go once they are off by a few tenths of a pixel,
+    not only past ``outlier_px``. Fast enough for every frame.
 
     Returns
     -------
@@ -631,7 +641,7 @@ def pose_fit_points(px, fl, camera_matrix, dist_coeffs, rvec0, tvec0, *, outlier
     keep = np.ones(len(fl), bool)
     rv = np.asarray(rvec0, float).reshape(3, 1).copy()
     tv = np.asarray(tvec0, float).reshape(3, 1).copy()
-    for _round in range(2):
+    for _round in range(rounds):
         if keep.sum() < 4:
             raise CalibrationError(f"only {int(keep.sum())} floor points fit the pose")
         ok, rv, tv = cv2.solvePnP(obj[keep], px[keep], camera_matrix, dist_coeffs, rv, tv,
@@ -640,7 +650,9 @@ def pose_fit_points(px, fl, camera_matrix, dist_coeffs, rvec0, tvec0, *, outlier
             raise CalibrationError("pose fit did not converge")
         proj = cv2.projectPoints(obj, rv, tv, camera_matrix, dist_coeffs)[0].reshape(-1, 2)
         err = np.linalg.norm(proj - px, axis=1)
-        keep = err < outlier_px
+        limit = float(np.clip(RAYLEIGH_LIMIT * np.median(err[keep]), min_outlier_px,
+                              outlier_px))
+        keep = err < limit
     rv, tv = rv.ravel(), tv.ravel()
     r = cv2.Rodrigues(rv)[0]
     if (-r.T @ tv)[2] <= 0:
@@ -803,6 +815,8 @@ class FloorRegistrar:
         self._retry = None  # (t_s, reason) of the next reference attempt after a failure
         self._rate = None  # (rvec_rate, tvec_rate) of the last moving frame
         self._global_prev = None  # (t_s, rvec, tvec) one-pose fit of the last frame
+        self._global_now = None  # (rvec, tvec) one-pose fit of this frame
+        self._rate_used = False  # whether this frame's fit used self._rate
         self._rs_reference_done = False
         self.reference: FrameRegistration | None = None
         self.reference_grey = None
@@ -966,7 +980,7 @@ class FloorRegistrar:
         fl = self._floor_ref[ok]
         px = found[ok]
         try:
-            fit = self._pose_fit(grey.shape, px, fl, last)
+            fit = self._pose_fit(grey.shape, px, fl, last, t_s=float(t_s))
         except CalibrationError as exc:
             return failed(t_s, f"{source}: {exc}", ref.camera_matrix, ref.dist_coeffs)
         if self._seams_each_frame():
@@ -988,31 +1002,41 @@ class FloorRegistrar:
         return reg
 
     def _with_rates(self, reg, last):
-        """Attach the pose rate seen since the last frame (rolling shutter).
+        """Attach the pose rate of this frame (rolling shutter).
 
-        The rate comes from the one-pose-per-frame fits of consecutive frames (they do
-        not depend on any assumed rate, so errors cannot feed back).
+        The rate is the one :meth:`_pose_fit` used: from the one-pose-per-frame fits of
+        this frame and the previous one (they do not depend on any assumed rate, so
+        errors cannot feed back).
         """
         now = getattr(self, "_global_now", None)
-        prev = self._global_prev
         if self.readout_s <= 0 or now is None:
             return reg
         self._global_prev = (reg.t_s, now[0], now[1])
-        if prev is None or not 0 < reg.t_s - prev[0] <= 0.25:
-            self._rate = None
+        rate = self._rate
+        if rate is None:
             return reg
-        dt = reg.t_s - prev[0]
-        rate = ((now[0] - prev[1]) / dt, (now[1] - prev[2]) / dt)
-        had_rate = self._rate is not None
-        self._rate = rate
         if not self._rs_reference_done:
             self._rs_reference_done = True
             self._rolling_reference(rate)
-        if not had_rate:  # this frame was fitted without a rate: top pose from mid pose
+        if not self._rate_used:  # fitted without a rate: top pose from mid pose
             half = 0.5 * self.readout_s
             reg = replace(reg, rvec=np.asarray(reg.rvec) - half * rate[0],
                           tvec=np.asarray(reg.tvec) - half * rate[1])
         return replace(reg, readout_s=self.readout_s, rvec_rate=rate[0], tvec_rate=rate[1])
+
+    def _rate_since_previous(self, t_s, rvec, tvec):
+        """Pose rate from the one-pose fits of the previous frame and this one, or None.
+
+        The difference of two consecutive one-pose fits is the mean rate between the
+        two frames' mid-readout instants, which lags this frame's readout by half a
+        frame interval only (the rate of the frame before would lag by one and a half).
+        """
+        prev = self._global_prev
+        if prev is None or t_s is None or not 0 < t_s - prev[0] <= 0.25:
+            return None
+        dt = t_s - prev[0]
+        return ((np.asarray(rvec, float) - prev[1]) / dt,
+                (np.asarray(tvec, float) - prev[2]) / dt)
 
     def _rolling_reference(self, rate):
         """Re-read the reference frame as a rolling-shutter frame once a rate is known.
@@ -1040,7 +1064,7 @@ class FloorRegistrar:
         return CameraProfile(w, h, float(k[0, 0]), float(k[1, 1]), float(k[0, 2]),
                              float(k[1, 2]), tuple(float(v) for v in ref.dist_coeffs))
 
-    def _pose_fit(self, shape, px, fl, last):
+    def _pose_fit(self, shape, px, fl, last, t_s=None):
         """Pose with the reference intrinsics, RANSAC on the floor plane, then LM."""
         ref = self.reference
         k, d = ref.camera_matrix, ref.dist_coeffs
@@ -1056,7 +1080,11 @@ class FloorRegistrar:
         px, fl = px[inl], fl[inl]
         fit = pose_fit_points(px, fl, k, d, rv, tv)
         self._global_now = (fit.rvec.copy(), fit.tvec.copy())
+        self._rate_used = False
+        if self.readout_s > 0:
+            self._rate = self._rate_since_previous(t_s, fit.rvec, fit.tvec)
         if self.readout_s > 0 and self._rate is not None:
+            self._rate_used = True
             # Rolling shutter: move each observation to where the top-row pose would have
             # seen it, using the rate of the previous frames, and fit again (twice).
             obj = np.column_stack([fl, np.zeros(len(fl))])
