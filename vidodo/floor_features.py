@@ -125,20 +125,23 @@ class FloorPatchTracker:
         Pixels where floor corners may be picked (True): the field, minus the robot.
     max_points : int
         Corners to pick.
+    cells : (int, int)
+        The usable region's bounding box is cut into this many columns and rows, and
+        each cell gets its share of the corners (feature bucketing, common practice in
+        visual odometry): the strong texture and printed markers near the camera do
+        not take every corner, so the far floor, which fixes the camera's tilt, is
+        tracked too.
     """
 
-    def __init__(self, ref_grey, usable, *, max_points=500, min_distance_px=None):
+    def __init__(self, ref_grey, usable, *, max_points=500, min_distance_px=None,
+                 cells=(8, 6)):
         self.ref = ref_grey
         h, w = ref_grey.shape
         md = min_distance_px or max(8, int(0.01 * max(h, w)))
         usable_u8 = usable.astype(np.uint8) * 255
         # Keep corners away from the usable region's border (the robot, the field edge).
         usable_u8 = cv2.erode(usable_u8, np.ones((15, 15), np.uint8))
-        # A low quality level: floor grain is faint next to printed markers.
-        pts = cv2.goodFeaturesToTrack(ref_grey, max_points, 0.002, md, mask=usable_u8,
-                                      blockSize=7)
-        self.ref_px = (np.zeros((0, 2)) if pts is None
-                       else pts.reshape(-1, 2).astype(np.float64))
+        self.ref_px = _bucketed_corners(ref_grey, usable_u8, max_points, md, cells)
         self.win = (15, 15)
         self.levels = 2
 
@@ -224,6 +227,38 @@ class FloorPatchTracker:
             ok &= ~np.asarray(ignore, bool)[vi, ui]
         found[~ok] = np.nan
         return found, ok
+
+
+def _bucketed_corners(grey, usable_u8, max_points, min_distance_px, cells):
+    """Shi-Tomasi corners spread over a grid of cells, (N, 2) float64 [px].
+
+    Each cell with usable pixels gets an equal share of ``max_points``; the quality level
+    is relative to the strongest corner of that cell. A low level: floor grain is faint
+    next to printed markers.
+    """
+    ys, xs = np.nonzero(usable_u8)
+    if len(xs) == 0:
+        return np.zeros((0, 2))
+    x0, x1, y0, y1 = xs.min(), xs.max() + 1, ys.min(), ys.max() + 1
+    nx, ny = (max(1, int(c)) for c in cells)
+    ex = np.linspace(x0, x1, nx + 1).round().astype(int)
+    ey = np.linspace(y0, y1, ny + 1).round().astype(int)
+    boxes = [(ex[i], ex[i + 1], ey[j], ey[j + 1]) for j in range(ny) for i in range(nx)
+             if usable_u8[ey[j]:ey[j + 1], ex[i]:ex[i + 1]].any()]
+    if not boxes:
+        return np.zeros((0, 2))
+    share = max(1, max_points // len(boxes))
+    out = []
+    for a, b, c, d in boxes:
+        cell_mask = np.zeros_like(usable_u8)
+        cell_mask[c:d, a:b] = usable_u8[c:d, a:b]
+        pts = cv2.goodFeaturesToTrack(grey, share, 0.01, min_distance_px, mask=cell_mask,
+                                      blockSize=7)
+        if pts is not None:
+            out.append(pts.reshape(-1, 2))
+    if not out:
+        return np.zeros((0, 2))
+    return np.vstack(out).astype(np.float64)
 
 
 def refine_homography(image_a, image_b, H, *, ignore_a=None, ignore_b=None, iterations=2,

@@ -71,6 +71,16 @@ METHODS = ("auto", "markers", "points", "grid")
 #: still fix the plane; hand-picked points must be spread more (0.05, the default).
 MARKER_MIN_SPREAD = 0.02
 NAN3 = np.full(3, np.nan)
+#: Fewest seam samples for a moving frame's seam fit to count (see ``anchor_every_s``).
+ANCHOR_MIN_SAMPLES = 40
+#: Moving frames right after the reference that are all used for seam fits (the mean of
+#: the floor positions is least certain then); later ones every ``anchor_every_s``.
+ANCHOR_EAGER = 6
+#: Frames whose one-pose fits give the rolling-shutter rate, and their time span [s].
+#: Two (this frame and the last): a line through more frames is less noisy but lags,
+#: and on the rendered hand-held runs the lag cost more than the noise.
+RATE_FRAMES = 2
+RATE_WINDOW_S = 0.2
 #: Outlier limit over the median residual length for 2-D Gaussian noise: 0.1 % of
 #: Rayleigh residuals exceed 3.72 sigma, and the median is sqrt(2 ln 2) = 1.177 sigma.
 RAYLEIGH_LIMIT = 3.72 / math.sqrt(2.0 * math.log(2.0))
@@ -773,6 +783,11 @@ class FloorRegistrar:
     seam_every_frame : bool
         Re-fit on the tile seams in every moved frame as well (slower; on the
         rendered hand-held run it was not more accurate than the tracked corners).
+    anchor_every_s : float or None
+        A moving camera: every this many seconds (and in the first few moving frames)
+        the tile seams of the frame are fitted too, and the floor positions of the
+        tracked corners become the mean over these fits and the reference's, so the
+        reference frame's own error is averaged down [s]. None: never.
 
     Notes
     -----
@@ -784,7 +799,7 @@ class FloorRegistrar:
     def __init__(self, field: FieldProfile, camera: CameraProfile | None = None, *,
                  method="auto", points_csv=None, refine_on_seams=True, max_rms_px=3.0,
                  static_tolerance_px=0.1, seam_every_frame=False, min_tracked=12,
-                 readout_s=None, reference_retry_s=0.5):
+                 readout_s=None, reference_retry_s=0.5, anchor_every_s=0.25):
         if method not in METHODS:
             raise InputError(f"registration method {method!r}: use one of {METHODS}")
         if method == "points" and points_csv is None:
@@ -812,9 +827,14 @@ class FloorRegistrar:
             readout_s = camera.readout_s if camera is not None else 0.0
         self.readout_s = float(readout_s)
         self.reference_retry_s = float(reference_retry_s)
+        self.anchor_every_s = None if anchor_every_s is None else float(anchor_every_s)
+        self._anchor_sum = self._anchor_n = None
+        self._anchor_t = -math.inf
+        self._anchor_tries = 0
         self._retry = None  # (t_s, reason) of the next reference attempt after a failure
         self._rate = None  # (rvec_rate, tvec_rate) of the last moving frame
         self._global_prev = None  # (t_s, rvec, tvec) one-pose fit of the last frame
+        self._global_hist = []  # the same for the last few moving frames
         self._global_now = None  # (rvec, tvec) one-pose fit of this frame
         self._rate_used = False  # whether this frame's fit used self._rate
         self._rs_reference_done = False
@@ -901,8 +921,10 @@ class FloorRegistrar:
         usable = _floor_usable(reg, self.field, grey.shape, ignore, margin_m=0.0)
         self._tracker = floor_features.FloorPatchTracker(grey, usable)
         self._floor_ref = reg.image_to_floor(self._tracker.ref_px)
+        self._anchor_start(reg.t_s)
         self._last_found = self._tracker.ref_px.copy()
         self._global_prev = (reg.t_s, np.asarray(reg.rvec, float), np.asarray(reg.tvec, float))
+        self._global_hist = [self._global_prev]
 
     # -- per frame -----------------------------------------------------------
     def register(self, frame_bgr, t_s, mask=None) -> FrameRegistration:
@@ -957,6 +979,7 @@ class FloorRegistrar:
             self._rate = None
             self._global_prev = (float(t_s), np.asarray(last.rvec, float),
                                  np.asarray(last.tvec, float))
+            self._global_hist = [self._global_prev]
             return reg
         # Predicted map reference pixels -> this frame, from the last registration.
         pred = last.floor_to_image(self._floor_ref)
@@ -999,7 +1022,73 @@ class FloorRegistrar:
         reg = self._with_rates(reg, last)
         self._last = reg
         self._last_found = found
+        if self.anchor_every_s is not None and (
+                float(t_s) - self._anchor_t >= self.anchor_every_s
+                or self._anchor_tries < ANCHOR_EAGER):
+            self._anchor_tries += 1
+            self._anchor_t = float(t_s)
+            self._anchor_on_seams(grey, reg, ignore)
         return reg
+
+    def _anchor_start(self, t_s):
+        """Start the running mean of the tracked corners' floor positions."""
+        ok = np.all(np.isfinite(self._floor_ref), axis=1)
+        self._anchor_sum = np.where(ok[:, None], self._floor_ref, 0.0)
+        self._anchor_n = ok.astype(float)
+        self._anchor_t = float(t_s)
+        self._anchor_tries = 0
+
+    def _anchor_on_seams(self, grey, reg, ignore):
+        """Average the tracked corners' floor positions over seam fits of later frames.
+
+        The floor positions of the tracked corners come from the reference frame's
+        registration, so its error is carried into every tracked frame. Each later
+        frame's tile seams give an independent registration: a pose fitted on the seams
+        (started from the tracked pose, one narrow search) maps the pixels where the
+        tracked pose puts the corners back to the floor, and these positions are averaged
+        with the reference's. With a rolling shutter the seam samples are moved to where
+        the top-row pose would see them, at the tracked frame's rate (the same rate for
+        both poses, so an error in it largely cancels). A seam fit that fails, or that
+        disagrees with the tracked pose by more than ``max_rms_px``, is not used.
+        """
+        from . import grid
+
+        h, w = grey.shape
+        k, d = reg.camera_matrix, reg.dist_coeffs
+        half_width_px = 4.0 * float(np.clip(math.hypot(w, h) / 1469.0, 0.5, 1.5))
+        q, ax, val = grid.seam_samples(grey, self.field, reg, half_width_px=half_width_px,
+                                       ignore=ignore)
+        if len(q) < ANCHOR_MIN_SAMPLES:
+            return
+        if reg.rolling:
+            fl = reg.image_to_floor(q)
+            good = np.all(np.isfinite(fl), axis=1)
+            q, ax, val, fl = q[good], ax[good], val[good], fl[good]
+            fl[np.arange(len(fl)), ax] = val
+            obj = np.column_stack([fl, np.zeros(len(fl))])
+            top = cv2.projectPoints(obj, reg.rvec, reg.tvec, k, d)[0].reshape(-1, 2)
+            rowed = project_rows(obj, reg.rvec, reg.tvec, reg.rvec_rate, reg.tvec_rate,
+                                 reg._row_dt(q[:, 1]), k, d)
+            q = q - (rowed - top)
+        try:
+            fit = fit_camera((w, h), seams=(q, ax, val), camera=self._fixed_camera(),
+                             init=(k, d, reg.rvec, reg.tvec), outlier_px=1.5, loss_px=0.5)
+        except (CalibrationError, cv2.error, np.linalg.LinAlgError, ValueError):
+            return
+        if not fit.rms_px <= self.max_rms_px:
+            return
+        seam_reg = replace(reg, rvec=fit.rvec, tvec=fit.tvec)
+        px = reg.floor_to_image(self._floor_ref)
+        shift = seam_reg.floor_to_image(self._floor_ref) - px
+        if not np.sqrt(np.nanmean(np.sum(shift ** 2, axis=1))) <= self.max_rms_px:
+            return
+        moved = seam_reg.image_to_floor(px)
+        ok = np.all(np.isfinite(moved), axis=1)
+        self._anchor_sum[ok] += moved[ok]
+        self._anchor_n += ok
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = self._anchor_sum / self._anchor_n[:, None]
+        self._floor_ref = np.where((self._anchor_n > 0)[:, None], mean, np.nan)
 
     def _with_rates(self, reg, last):
         """Attach the pose rate of this frame (rolling shutter).
@@ -1012,6 +1101,7 @@ class FloorRegistrar:
         if self.readout_s <= 0 or now is None:
             return reg
         self._global_prev = (reg.t_s, now[0], now[1])
+        self._global_hist = (self._global_hist + [self._global_prev])[-RATE_FRAMES:]
         rate = self._rate
         if rate is None:
             return reg
@@ -1025,18 +1115,24 @@ class FloorRegistrar:
         return replace(reg, readout_s=self.readout_s, rvec_rate=rate[0], tvec_rate=rate[1])
 
     def _rate_since_previous(self, t_s, rvec, tvec):
-        """Pose rate from the one-pose fits of the previous frame and this one, or None.
+        """Pose rate from the one-pose fits of the last few frames and this one, or None.
 
-        The difference of two consecutive one-pose fits is the mean rate between the
-        two frames' mid-readout instants, which lags this frame's readout by half a
-        frame interval only (the rate of the frame before would lag by one and a half).
+        The slope of a least-squares line through the one-pose fits of up to
+        ``RATE_FRAMES`` frames (this one included) within ``RATE_WINDOW_S``: two frames
+        give the plain difference; more average out the fits' noise, which a difference
+        divided by one frame interval would otherwise carry into every row's pose.
         """
-        prev = self._global_prev
-        if prev is None or t_s is None or not 0 < t_s - prev[0] <= 0.25:
+        if t_s is None:
             return None
-        dt = t_s - prev[0]
-        return ((np.asarray(rvec, float) - prev[1]) / dt,
-                (np.asarray(tvec, float) - prev[2]) / dt)
+        hist = [h for h in self._global_hist if 0 < t_s - h[0] <= RATE_WINDOW_S]
+        if not hist:
+            return None
+        t = np.array([h[0] for h in hist] + [t_s])
+        rv = np.vstack([h[1] for h in hist] + [np.asarray(rvec, float)])
+        tv = np.vstack([h[2] for h in hist] + [np.asarray(tvec, float)])
+        dt = t - t.mean()
+        den = float(dt @ dt)
+        return (dt @ (rv - rv.mean(axis=0))) / den, (dt @ (tv - tv.mean(axis=0))) / den
 
     def _rolling_reference(self, rate):
         """Re-read the reference frame as a rolling-shutter frame once a rate is known.
@@ -1052,6 +1148,7 @@ class FloorRegistrar:
                          readout_s=self.readout_s, rvec_rate=rate[0], tvec_rate=rate[1])
         self.reference = rolled
         self._floor_ref = rolled.image_to_floor(self._tracker.ref_px)
+        self._anchor_start(ref.t_s)
 
     def _seams_each_frame(self):
         return bool(self.seam_every_frame)
