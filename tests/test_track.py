@@ -596,3 +596,24 @@ def test_corner_noise_splits_persistent_from_fresh():
     assert noise.persistent_px**2 + noise.fresh_px**2 == pytest.approx(noise.sigma_px**2)
     sparse = estimate_corner_noise(fixes[::2], range(0, len(fixes), 2))
     assert sparse.pairs == 0 and sparse.lag1_corr == 1.0  # cautious: all persistent
+
+
+def test_local_noise_follows_a_change_of_corner_noise():
+    """Corner noise that triples half-way through a run is seen locally.
+
+    Source: the same chi^2 / dof estimator as above (Draper & Smith, 3rd ed., section
+    2.6), pooled over 31 fits = 155 degrees of freedom: relative 1-sigma of the variance
+    sqrt(2 / 155) = 11%, so a tolerance of 40% on the variance ratio is > 3 sigma.
+    Away from the change, the local variance over the run's is 0.1^2 / s^2 and
+    0.3^2 / s^2 with s^2 = (0.1^2 + 0.3^2) / 2 the run's (equal halves).
+    """
+    from vidodo.track import local_noise_scale
+
+    fixes = _noisy_fixes(0.1, 0.0, 0.0, n=200, seed=11)[:100]
+    fixes += _noisy_fixes(0.3, 0.0, 0.0, n=200, seed=12)[100:]
+    s2 = (0.1**2 + 0.3**2) / 2
+    scale = local_noise_scale(fixes, math.sqrt(s2))
+    assert scale.shape == (200,)
+    assert np.median(scale[:80]) == pytest.approx(0.1**2 / s2, rel=0.4)
+    assert np.median(scale[120:]) == pytest.approx(0.3**2 / s2, rel=0.4)
+    assert np.all(local_noise_scale(fixes[:1], 0.2) == 1.0)

@@ -72,6 +72,10 @@ SHRINK_PER_FRAME = 0.5
 """In a window search, outlines shorter than this share of the last detection's side are
 not examined: a marker does not halve its apparent size between nearby frames."""
 
+LOCAL_NOISE_HALF_WINDOW = 15
+"""Fits on each side pooled for the local corner noise: with one marker (5 degrees of
+freedom a fit) 31 fits give 155, a 1-sigma of about 6% on the local noise estimate."""
+
 MIN_NOISE_PAIRS = 20
 """Pairs of consecutive detections needed before the split of the corner noise into a
 frame-to-frame persistent and a fresh part is trusted; with fewer, all of it is taken as
@@ -94,12 +98,13 @@ class TrackResult:
     track: pd.DataFrame
     """One row per video frame, columns :data:`TRACK_COLUMNS` (SI units, floor frame;
     ``sigma_xy_m`` is the RMS of the position error magnitude: the smoother's
-    uncertainty from the fresh part of the run's corner noise, plus the persistent part
-    (both estimated from the rigid fits' residuals, :func:`estimate_corner_noise`, and
-    scaled per signal by the smoother's innovation likelihood), a common shift of all
-    corners (``corner_bias_px`` per axis) and the registration's prediction error, both
-    carried to the floor at the marker's image scale; ``sigma_heading_rad`` likewise
-    from the fresh and persistent corner noise)."""
+    uncertainty from the fresh part of the corner noise, plus the persistent part (both
+    estimated from the rigid fits' residuals, over the run by
+    :func:`estimate_corner_noise` and around each frame by :func:`local_noise_scale`,
+    and scaled per signal by the smoother's innovation likelihood), an optional common
+    shift of all corners (``corner_bias_px`` per axis) and the registration's
+    prediction error, carried to the floor at the marker's image scale;
+    ``sigma_heading_rad`` likewise from the fresh and persistent corner noise)."""
     quality: dict
     """Frames, detection fraction, marker cell size [px], gaps, dropped/duplicated
     frames, registration statistics, readout time [s], corner noise [px]."""
@@ -862,6 +867,25 @@ def estimate_corner_noise(fixes, frame_index=None, *, floor_px=0.02) -> CornerNo
                        pairs)
 
 
+def local_noise_scale(fixes, sigma_px, *, half_window=LOCAL_NOISE_HALF_WINDOW):
+    """Corner noise variance around each fix relative to the run's, ndarray (M,) [-].
+
+    chi^2 / dof pooled over the ``half_window`` fits before and after each fix (the same
+    unbiased estimate as :func:`estimate_corner_noise`, locally), divided by
+    ``sigma_px^2``. A given ``sigma_px`` of 0 or fewer than two fits give ones.
+    """
+    m = len(fixes)
+    if m < 2 or not sigma_px > 0:
+        return np.ones(m)
+    chi2 = np.array([f.chi2_unit for f in fixes], float)
+    dof = np.array([f.dof for f in fixes], float)
+    k = np.arange(m)
+    lo, hi = np.maximum(k - int(half_window), 0), np.minimum(k + int(half_window) + 1, m)
+    c = np.concatenate([[0.0], np.cumsum(chi2)])
+    d = np.concatenate([[0.0], np.cumsum(dof)])
+    return (c[hi] - c[lo]) / np.maximum(d[hi] - d[lo], 1.0) / sigma_px**2
+
+
 def _segments(detected_idx, t, max_gap_s):
     """Split detected frame indices into runs whose gaps are at most ``max_gap_s``."""
     segs = []
@@ -903,22 +927,25 @@ def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, noise,
         out["ay_mps2"][rows] = sy.accel
         # ... the persistent part is not averaged: added per sample, independent per corner.
         # The innovations of each signal tell how much larger the noise in the pose
-        # direction is than the fit residuals show (r_scale, maximum likelihood); the
-        # persistent part is taken larger by the same factor.
+        # direction is than the fit residuals show (r_scale, maximum likelihood). Fed
+        # only the fresh part, the innovations also carry the persistent part, which
+        # alone makes r_scale = 1 / (1 - lag-1 correlation); only the excess beyond that
+        # enlarges the persistent part.
         p2 = noise.persistent_px**2
-        vx = p2 * sx.r_scale * np.interp(rows, idx[m], unit[:, 0, 0])
-        vy = p2 * sy.r_scale * np.interp(rows, idx[m], unit[:, 1, 1])
+        keep = 1.0 - noise.lag1_corr
+        vx = p2 * max(1.0, sx.r_scale * keep) * np.interp(rows, idx[m], unit[:, 0, 0])
+        vy = p2 * max(1.0, sy.r_scale * keep) * np.interp(rows, idx[m], unit[:, 1, 1])
         reg_var = np.nan_to_num(reg_err[rows]) ** 2 + 2.0 * (corner_bias_px * mpp[rows]) ** 2
         out["sigma_xy_m"][rows] = np.sqrt(sx.sigma_value**2 + sy.sigma_value**2 + vx + vy
                                           + reg_var)
-        hv = p2 * sh.r_scale * np.interp(rows, idx[m], unit[:, 2, 2])
+        hv = p2 * max(1.0, sh.r_scale * keep) * np.interp(rows, idx[m], unit[:, 2, 2])
         out["sigma_heading_rad"][rows] = np.sqrt(sh.sigma_value**2 + hv)
         interpolated[rows] = ~ok[rows]
     return out, interpolated, fits
 
 
 def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_gap_s,
-            corner_sigma_px, field_profile, warnings, corner_bias_px=0.10):
+            corner_sigma_px, field_profile, warnings, corner_bias_px=0.0):
     """Smooth the per-frame fixes into the truth track and gather the quality."""
     n = len(acc.t)
     t = np.asarray(timing.t_s if timing is not None else acc.t, dtype=float)[:n]
@@ -952,7 +979,10 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
     x = np.array([f.x_m for f in fixes])
     y = np.array([f.y_m for f in fixes])
     th = np.unwrap(np.array([f.heading_rad for f in fixes]))
-    cov_unit = np.array([f.cov_unit for f in fixes])
+    # The corner noise changes along a run (distance, blur, viewing angle): each fix's
+    # covariance is scaled by the noise of the fits around it relative to the run's.
+    cov_unit = np.array([f.cov_unit for f in fixes]) * local_noise_scale(
+        fixes, noise.sigma_px)[:, None, None]
     frac = np.nan_to_num(np.asarray(acc.frac, float)[idx])
     t_meas = t[idx] + frac * readout_s
     # Registration error at the robot: a least-squares fit of p parameters to n
@@ -1134,7 +1164,7 @@ def _size_warnings(acc, robot, field_profile, quality, warnings):
 
 def track_video(video_path, robot, field, camera=None, *, registrar=None, progress=None,
                 refine="hybrid", readout_s=None, max_gap_s=0.25, corner_sigma_px=None,
-                corner_bias_px=0.10, window=True, threaded=True, register_every="auto",
+                corner_bias_px=0.0, window=True, threaded=True, register_every="auto",
                 max_speed_mps=5.0):
     """Track the robot through a video: the truth track with its 1-sigma.
 
@@ -1167,8 +1197,8 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
     corner_bias_px : float
         1-sigma of a shift common to all corners of a marker (blur, sampling, print),
         which fit residuals cannot reveal; it is not averaged down by the smoother [px].
-        Default 0.1 px: the residual bias of the AprilTag refinement after the convention
-        shift was 0.07 px on synthetic frames (tests/test_track.py set-up, measured).
+        Default 0: nothing is added that the footage itself does not show (a value
+        such as 0.1 px suits markers printed or mounted with visible defects).
     window : bool
         Search a window around the predicted marker position first.
     threaded : bool
