@@ -617,3 +617,51 @@ def test_local_noise_follows_a_change_of_corner_noise():
     assert np.median(scale[:80]) == pytest.approx(0.1**2 / s2, rel=0.4)
     assert np.median(scale[120:]) == pytest.approx(0.3**2 / s2, rel=0.4)
     assert np.all(local_noise_scale(fixes[:1], 0.2) == 1.0)
+
+
+class _ShiftedRegistration(StandInRegistration):
+    """The stand-in camera with its image moved by ``shift_px`` (a camera that moves)."""
+
+    def __init__(self, shift_px):
+        self.shift_px = np.asarray(shift_px, float)
+
+    def floor_to_image(self, points_m):
+        return super().floor_to_image(points_m) + self.shift_px
+
+
+def test_registration_policy_still_moving_and_bumped():
+    """A still camera is registered once a second after a quarter second; a swaying one
+    every frame; a tripod bumped at 3 s goes back to every frame at its next check.
+    The sway (0.3 Hz, 20 px) is a slow hand-held sway (common practice: a phone held
+    by hand drifts by pixels per second); the policy never sees the truth, only
+    registrations."""
+    from vidodo.profiles import FieldProfile
+    from vidodo.track import _RegistrationPolicy
+
+    field = FieldProfile(6, 6, 0.6096)
+    fps = 30.0
+    t = np.arange(150) / fps
+
+    def run(shift):
+        class Registrar:
+            calls = []
+
+            def register(self, frame, t_s, mask=None):
+                self.calls.append(t_s)
+                return _ShiftedRegistration(shift(t_s))
+
+        reg = Registrar()
+        policy = _RegistrationPolicy(reg, field)
+        for i, ts in enumerate(t):
+            policy.update(None, i, ts)
+        return np.array(reg.calls), policy
+
+    still, p = run(lambda ts: (0.0, 0.0))
+    assert p.still and len(still) <= 1 + int(0.25 * fps) + 1 + 5
+    assert np.all(np.diff(still[still > 0.5]) >= 1.0 - 1e-9)
+    sway, p = run(lambda ts: (20.0 * math.sin(2 * math.pi * 0.3 * ts), 0.0))
+    assert not p.still and len(sway) == len(t)
+    bumped, p = run(lambda ts: (0.0, 0.0) if ts < 3.0 else (3.0, 0.0))
+    assert p.moved_count == 1
+    after = bumped[bumped > 3.0]
+    assert after[0] < 3.0 + 1.0 + 1e-9 and np.all(np.diff(after[1:3]) < 0.04)

@@ -431,18 +431,21 @@ class _RegistrationPolicy:
     """Decides when to register the floor again and keeps the one in effect.
 
     ``every`` = int registers every that many frames. ``'auto'`` registers every frame
-    until two registrations ``still_check_s`` apart agree within ``still_px`` (the camera
-    is still: a slow hand-held sway moves less than that between consecutive frames, so
-    the comparison spans a longer time), then registers only every ``still_check_s``
-    and goes back to every frame as soon as the view has moved by ``still_px`` (a bumped
-    tripod is noticed within that time).
+    until two registrations ``moving_check_s`` apart agree within ``still_px`` (the
+    camera is still: a slow hand-held sway moves less than that between consecutive
+    frames, so the comparison spans a longer time; a hand holding a phone drifts by
+    pixels in a quarter second even at the turn of a sway), then registers only every
+    ``still_check_s`` and goes back to every frame as soon as the view has moved by
+    ``still_px`` since the last check (a bumped tripod is noticed within that time).
     """
 
-    def __init__(self, registrar, field_profile, every="auto", still_px=0.5, still_check_s=1.0):
+    def __init__(self, registrar, field_profile, every="auto", still_px=0.5, still_check_s=1.0,
+                 moving_check_s=0.25):
         self.registrar = registrar
         self.every = every
         self.still_px = still_px
         self.still_check_s = still_check_s
+        self.moving_check_s = moving_check_s
         self.current = None
         self.anchor = None
         self.anchor_t = -math.inf
@@ -494,7 +497,7 @@ class _RegistrationPolicy:
         if self.every == "auto":
             if self.anchor is None:
                 self.anchor, self.anchor_t = reg, t_s
-            elif self.still or t_s - self.anchor_t >= self.still_check_s:
+            elif self.still or t_s - self.anchor_t >= self.moving_check_s:
                 was_still = self.still
                 self.still = self._shift_px(self.anchor, reg) < self.still_px
                 if was_still and not self.still:
