@@ -30,7 +30,9 @@ patch check first (a tripod that has not moved keeps the reference registration)
 floor corners tracked from the reference (:mod:`vidodo.floor_features`), floor
 fiducials where visible, and feature matching with RANSAC as the last resort. A frame
 that cannot be registered comes back with ``ok=False`` and a reason; no exception is
-raised per frame.
+raised per frame. While the camera moves, the tile seams of some later frames are fitted
+as well and the tracked corners' floor positions averaged over them, so the reference
+frame's own error does not stay in every later frame.
 """
 
 from __future__ import annotations
