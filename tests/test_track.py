@@ -599,24 +599,33 @@ def test_corner_noise_splits_persistent_from_fresh():
 
 
 def test_local_noise_follows_a_change_of_corner_noise():
-    """Corner noise that triples half-way through a run is seen locally.
+    """Corner noise that triples half-way through a run, and turns persistent, is seen
+    locally.
 
     Source: the same chi^2 / dof estimator as above (Draper & Smith, 3rd ed., section
     2.6), pooled over 31 fits = 155 degrees of freedom: relative 1-sigma of the variance
     sqrt(2 / 155) = 11%, so a tolerance of 40% on the variance ratio is > 3 sigma.
     Away from the change, the local variance over the run's is 0.1^2 / s^2 and
-    0.3^2 / s^2 with s^2 = (0.1^2 + 0.3^2) / 2 the run's (equal halves).
+    0.3^2 / s^2 with s^2 = (0.1^2 + 0.3^2) / 2 the run's (equal halves). The second half
+    is AR(1) noise with phi = 0.7, whose lag-1 correlation is 0.7 (Box & Jenkins,
+    section 3.2.4); it has about 31 x 0.3 / 1.7 = 5.5 independent draws of 8 numbers a
+    window (effective sample size of AR(1), same source), so the variance tolerance
+    there is 50% (> 2 sigma) and the correlation is only checked to exceed 0.45. The
+    first half is white, where the run's 0.2 is kept as the floor.
     """
-    from vidodo.track import local_noise_scale
+    from vidodo.track import CornerNoise, local_corner_noise
 
     fixes = _noisy_fixes(0.1, 0.0, 0.0, n=200, seed=11)[:100]
-    fixes += _noisy_fixes(0.3, 0.0, 0.0, n=200, seed=12)[100:]
+    fixes += _noisy_fixes(0.0, 0.3, 0.7, n=200, seed=12)[100:]
     s2 = (0.1**2 + 0.3**2) / 2
-    scale = local_noise_scale(fixes, math.sqrt(s2))
-    assert scale.shape == (200,)
+    run = CornerNoise(math.sqrt(s2), 0.0, 0.0, 0.2, 1000, 199)
+    scale, rho = local_corner_noise(fixes, range(200), run)
+    assert scale.shape == rho.shape == (200,)
     assert np.median(scale[:80]) == pytest.approx(0.1**2 / s2, rel=0.4)
-    assert np.median(scale[120:]) == pytest.approx(0.3**2 / s2, rel=0.4)
-    assert np.all(local_noise_scale(fixes[:1], 0.2) == 1.0)
+    assert np.median(scale[120:]) == pytest.approx(0.3**2 / s2, rel=0.5)
+    assert np.median(rho[:80]) == 0.2 and rho.min() >= 0.2 and np.median(rho[120:]) > 0.45
+    _, sparse_rho = local_corner_noise(fixes[::2], range(0, 200, 2), run)
+    assert np.all(sparse_rho == 0.2)  # no consecutive pairs: the run's correlation
 
 
 class _ShiftedRegistration(StandInRegistration):

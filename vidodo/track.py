@@ -76,6 +76,10 @@ LOCAL_NOISE_HALF_WINDOW = 15
 """Fits on each side pooled for the local corner noise: with one marker (5 degrees of
 freedom a fit) 31 fits give 155, a 1-sigma of about 6% on the local noise estimate."""
 
+MIN_LOCAL_PAIRS = 5
+"""Pairs of consecutive fits a window needs for its own lag-1 correlation; with fewer,
+the run's is used."""
+
 MIN_NOISE_PAIRS = 20
 """Pairs of consecutive detections needed before the split of the corner noise into a
 frame-to-frame persistent and a fresh part is trusted; with fewer, all of it is taken as
@@ -100,7 +104,7 @@ class TrackResult:
     ``sigma_xy_m`` is the RMS of the position error magnitude: the smoother's
     uncertainty from the fresh part of the corner noise, plus the persistent part (both
     estimated from the rigid fits' residuals, over the run by
-    :func:`estimate_corner_noise` and around each frame by :func:`local_noise_scale`,
+    :func:`estimate_corner_noise` and around each frame by :func:`local_corner_noise`,
     and scaled per signal by the smoother's innovation likelihood), an optional common
     shift of all corners (``corner_bias_px`` per axis) and the registration's
     prediction error, carried to the floor at the marker's image scale;
@@ -870,23 +874,65 @@ def estimate_corner_noise(fixes, frame_index=None, *, floor_px=0.02) -> CornerNo
                        pairs)
 
 
-def local_noise_scale(fixes, sigma_px, *, half_window=LOCAL_NOISE_HALF_WINDOW):
-    """Corner noise variance around each fix relative to the run's, ndarray (M,) [-].
-
-    chi^2 / dof pooled over the ``half_window`` fits before and after each fix (the same
-    unbiased estimate as :func:`estimate_corner_noise`, locally), divided by
-    ``sigma_px^2``. A given ``sigma_px`` of 0 or fewer than two fits give ones.
-    """
-    m = len(fixes)
-    if m < 2 or not sigma_px > 0:
-        return np.ones(m)
-    chi2 = np.array([f.chi2_unit for f in fixes], float)
-    dof = np.array([f.dof for f in fixes], float)
+def _window_sums(values, half_window):
+    """Sum of ``values`` over the ``half_window`` entries on each side of each entry."""
+    m = len(values)
     k = np.arange(m)
     lo, hi = np.maximum(k - int(half_window), 0), np.minimum(k + int(half_window) + 1, m)
-    c = np.concatenate([[0.0], np.cumsum(chi2)])
-    d = np.concatenate([[0.0], np.cumsum(dof)])
-    return (c[hi] - c[lo]) / np.maximum(d[hi] - d[lo], 1.0) / sigma_px**2
+    c = np.concatenate([[0.0], np.cumsum(values)])
+    return c[hi] - c[lo]
+
+
+def local_corner_noise(fixes, frame_index, noise, *, half_window=LOCAL_NOISE_HALF_WINDOW):
+    """Corner noise around each fix: variance relative to the run's, and persistent share.
+
+    The noise changes along a run (distance, blur, viewing angle), and so does the share
+    that persists from frame to frame (all of it while the robot stands still). Both are
+    estimated as in :func:`estimate_corner_noise`, pooled over the ``half_window`` fits
+    (and pairs of consecutive fits) on each side of each fix. The persistent share is
+    never taken below the run's (the cautious side: a lower local correlation while
+    moving would let the smoother average more).
+
+    Parameters
+    ----------
+    fixes : sequence of PoseFix
+    frame_index : sequence of int
+        Frame number of each fix (consecutive numbers form the pairs).
+    noise : CornerNoise
+        The run's estimate (``sigma_px`` and ``lag1_corr``).
+
+    Returns
+    -------
+    var_scale : ndarray (M,)
+        Local chi^2 / dof over ``noise.sigma_px^2`` [-] (ones if that is 0).
+    lag1_corr : ndarray (M,)
+        Persistent share of the variance, in [``noise.lag1_corr``, 1].
+    """
+    m = len(fixes)
+    scale = np.ones(m)
+    rho = np.full(m, float(noise.lag1_corr))
+    if m < 2:
+        return scale, rho
+    if noise.sigma_px > 0:
+        chi2 = np.array([f.chi2_unit for f in fixes], float)
+        dof = np.array([f.dof for f in fixes], float)
+        scale = (_window_sums(chi2, half_window)
+                 / np.maximum(_window_sums(dof, half_window), 1.0) / noise.sigma_px**2)
+    num, den, pair = np.zeros(m), np.zeros(m), np.zeros(m)
+    fi = list(frame_index)
+    for k in range(m - 1):
+        a, b = fixes[k], fixes[k + 1]
+        if fi[k + 1] != fi[k] + 1 or a.resid_m.shape != b.resid_m.shape:
+            continue
+        ra, rb = _whitened(a), _whitened(b)
+        num[k] = float(np.sum(ra * rb))
+        den[k] = 0.5 * float(np.sum(ra * ra) + np.sum(rb * rb))
+        pair[k] = 1.0
+    pn, pd_, pc = (_window_sums(v, half_window) for v in (num, den, pair))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        local = np.clip(pn / pd_, 0.0, 1.0)
+    rho = np.where((pc >= MIN_LOCAL_PAIRS) & (pd_ > 0), np.maximum(local, rho), rho)
+    return scale, rho
 
 
 def _segments(detected_idx, t, max_gap_s):
@@ -901,9 +947,13 @@ def _segments(detected_idx, t, max_gap_s):
     return segs
 
 
-def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, noise,
-            corner_bias_px):
-    """Smooth each segment of detections onto its frame times; NaN elsewhere."""
+def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, fresh_px,
+            persistent_px, keep, corner_bias_px):
+    """Smooth each segment of detections onto its frame times; NaN elsewhere.
+
+    ``fresh_px`` and ``persistent_px`` are the corner noise parts of each fix [px];
+    ``keep`` is the run's 1 - lag-1 correlation.
+    """
     n = t.size
     out = {c: np.full(n, np.nan) for c in TRACK_COLUMNS}
     out["t_s"] = t
@@ -913,11 +963,10 @@ def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, noise,
         m = (idx >= a) & (idx <= b)
         rows = np.arange(a, b + 1)
         # Fresh corner noise goes through the smoother (averaged over frames) ...
-        fresh = max(noise.fresh_px, 1e-3 * noise.sigma_px)
         unit = cov_unit[m]
         sx, sy, sh = smooth_ca_signals(
             t_meas[m], np.column_stack([x[m], y[m], th[m]]),
-            fresh * np.sqrt(np.diagonal(unit, axis1=1, axis2=2)), t[rows])
+            fresh_px[m, None] * np.sqrt(np.diagonal(unit, axis1=1, axis2=2)), t[rows])
         fits.append((sx.q, sx.r_scale, sy.q, sy.r_scale, sh.q, sh.r_scale,
                      sx.innovation_lag1, sy.innovation_lag1, sh.innovation_lag1))
         out["x_m"][rows] = sx.value
@@ -934,14 +983,13 @@ def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, noise,
         # only the fresh part, the innovations also carry the persistent part, which
         # alone makes r_scale = 1 / (1 - lag-1 correlation); only the excess beyond that
         # enlarges the persistent part.
-        p2 = noise.persistent_px**2
-        keep = 1.0 - noise.lag1_corr
-        vx = p2 * max(1.0, sx.r_scale * keep) * np.interp(rows, idx[m], unit[:, 0, 0])
-        vy = p2 * max(1.0, sy.r_scale * keep) * np.interp(rows, idx[m], unit[:, 1, 1])
+        pv = persistent_px[m] ** 2 * np.diagonal(unit, axis1=1, axis2=2).T  # (3, M)
+        vx = max(1.0, sx.r_scale * keep) * np.interp(rows, idx[m], pv[0])
+        vy = max(1.0, sy.r_scale * keep) * np.interp(rows, idx[m], pv[1])
         reg_var = np.nan_to_num(reg_err[rows]) ** 2 + 2.0 * (corner_bias_px * mpp[rows]) ** 2
         out["sigma_xy_m"][rows] = np.sqrt(sx.sigma_value**2 + sy.sigma_value**2 + vx + vy
                                           + reg_var)
-        hv = p2 * max(1.0, sh.r_scale * keep) * np.interp(rows, idx[m], unit[:, 2, 2])
+        hv = max(1.0, sh.r_scale * keep) * np.interp(rows, idx[m], pv[2])
         out["sigma_heading_rad"][rows] = np.sqrt(sh.sigma_value**2 + hv)
         interpolated[rows] = ~ok[rows]
     return out, interpolated, fits
@@ -982,10 +1030,15 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
     x = np.array([f.x_m for f in fixes])
     y = np.array([f.y_m for f in fixes])
     th = np.unwrap(np.array([f.heading_rad for f in fixes]))
-    # The corner noise changes along a run (distance, blur, viewing angle): each fix's
-    # covariance is scaled by the noise of the fits around it relative to the run's.
-    cov_unit = np.array([f.cov_unit for f in fixes]) * local_noise_scale(
-        fixes, noise.sigma_px)[:, None, None]
+    cov_unit = np.array([f.cov_unit for f in fixes])
+    # The corner noise and its persistent share change along a run: per fix, from the
+    # fits around it (a given sigma is kept as given).
+    scale, rho = local_corner_noise(fixes, idx, noise)
+    if sigma_source == "given":
+        scale = np.ones_like(scale)
+    fresh_px = np.maximum(sigma_px * np.sqrt(scale * (1.0 - rho)), 1e-3 * sigma_px)
+    persistent_px = sigma_px * np.sqrt(scale * rho)
+    keep = 1.0 - noise.lag1_corr
     frac = np.nan_to_num(np.asarray(acc.frac, float)[idx])
     t_meas = t[idx] + frac * readout_s
     # Registration error at the robot: a least-squares fit of p parameters to n
@@ -998,8 +1051,8 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
     reg_err = reg_px * np.sqrt(REGISTRATION_PARAMS / reg_n) * mpp
     reg_err = np.where(np.isfinite(reg_err), reg_err, np.asarray(acc.reg_rms_m, float))
     segs = _segments(idx, t, max_gap_s)
-    first = _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, noise,
-                    corner_bias_px)
+    first = _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, fresh_px,
+                    persistent_px, keep, corner_bias_px)
     est, est_sigma, est_frames = estimate_readout(
         fixes, [acc.corner_frac.get(int(i), np.zeros(0)) for i in idx],
         first[0]["vx_mps"][idx], first[0]["vy_mps"][idx], first[0]["omega_radps"][idx],
@@ -1009,8 +1062,8 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
     if readout_source == "none" and usable:
         readout_s, readout_source = est, "estimated"
         t_meas = t[idx] + frac * readout_s
-        first = _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, noise,
-                        corner_bias_px)
+        first = _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp,
+                        fresh_px, persistent_px, keep, corner_bias_px)
     out, interpolated, fits = first
     detected = ok.copy()
     gaps = []
