@@ -366,12 +366,20 @@ def test_rigid_marker_set_survives_occlusion():
 
 
 def test_window_search_equals_full_search():
-    """Searching a predicted window finds the same corners as the whole frame."""
+    """Searching a predicted window finds the marker as well as the whole frame does.
+
+    The AprilTag quad search thresholds the image in tiles counted from the window's
+    corner, so a window moves corners by a few hundredths of a pixel; the poses agree
+    within 1 mm and are as close to the truth."""
     t, truth, frames = _sequence((TAG,), n=12)
     win = _track((TAG,), frames, window=True)
     full = _track((TAG,), frames, window=False)
     assert win.quality["window_searches"] >= 10
-    np.testing.assert_allclose(win.track.x_m, full.track.x_m, atol=1e-9)
+    np.testing.assert_allclose(win.track.x_m, full.track.x_m, atol=1e-3)
+    np.testing.assert_allclose(win.track.y_m, full.track.y_m, atol=1e-3)
+    err_win = np.hypot(win.track.x_m - truth[:, 0], win.track.y_m - truth[:, 1])
+    err_full = np.hypot(full.track.x_m - truth[:, 0], full.track.y_m - truth[:, 1])
+    assert np.sqrt(np.mean(err_win**2)) < np.sqrt(np.mean(err_full**2)) + 5e-4
 
 
 def test_rolling_shutter_correction():

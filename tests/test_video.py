@@ -151,3 +151,42 @@ def test_repeated_images_found(tmp_path):
         timing = reader.timing()
     assert flags == [False] + [True] * 5
     assert timing.duplicated == (1, 2, 3, 4, 5)
+
+
+def test_luma_frames_match_colour_grey(vfr_clip):
+    """Frames read as the stream's luma plane equal OpenCV's BGR-to-grey image of the
+    same frames (the BT.601 luma weights, common practice) within 2 grey levels RMS on
+    this saturated, noisy colour pattern (chroma rounding and clipping differ), and keep
+    the container times ffprobe reports."""
+    import cv2
+
+    with VideoReader(vfr_clip, grey=True) as reader:
+        assert reader.grey
+        luma = [(t, f) for _i, t, f in reader]
+    with VideoReader(vfr_clip) as reader:
+        colour = [(t, f) for _i, t, f in reader]
+    assert len(luma) == len(colour) == len(_ffprobe_pts(vfr_clip))
+    for (tl, fl), (tc, fc) in zip(luma, colour, strict=True):
+        assert fl.ndim == 2 and fl.shape == fc.shape[:2] and tl == tc
+        diff = fl.astype(float) - cv2.cvtColor(fc, cv2.COLOR_BGR2GRAY)
+        assert np.sqrt(np.mean(diff**2)) < 2.0 and abs(np.mean(diff)) < 0.5
+
+
+@pytest.mark.parametrize("codec,pix_fmt,ext,usable", [
+    ("libx264", "yuvj420p", "mp4", True),     # full-range luma: near-identity table
+    ("libx264", "yuv420p10le", "mp4", False),  # 10-bit: not an 8-bit plane
+    ("ffv1", "bgr0", "mkv", False),           # packed colour: no luma plane at all
+])
+def test_luma_used_only_where_the_stream_allows(tmp_path, codec, pix_fmt, ext, usable):
+    """The luma path is taken only when the first frame proves it right; otherwise the
+    reader hands out colour frames as before (pixel formats made with ffmpeg)."""
+    from vidodo.video import luma_lut
+
+    path = tmp_path / f"clip.{ext}"
+    _ffmpeg("-f", "lavfi", "-i", "testsrc=size=160x120:rate=30", "-frames:v", "5",
+            "-c:v", codec, "-pix_fmt", pix_fmt, str(path))
+    assert (luma_lut(path) is not None) == usable
+    with VideoReader(path, grey=True) as reader:
+        frames = [f for _i, _t, f in reader]
+        assert reader.grey == usable
+    assert len(frames) == 5 and all(f.ndim == (2 if usable else 3) for f in frames)

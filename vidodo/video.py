@@ -110,17 +110,86 @@ def probe_video(path) -> VideoInfo:
         cap.release()
 
 
-def _open(path):
+def _open(path, raw=False):
     p = Path(path)
     if not p.is_file():
         raise InputError(f"{p}: video file not found; check the path")
-    cap = cv2.VideoCapture(str(p), cv2.CAP_FFMPEG)
+    params = [cv2.CAP_PROP_CONVERT_RGB, 0] if raw else []
+    cap = cv2.VideoCapture(str(p), cv2.CAP_FFMPEG, params)
     if not cap.isOpened():
         raise InputError(
             f"{p}: cannot open as video (unknown format, or truncated before its index "
             "was written); re-export or re-copy the file"
         )
     return cap
+
+
+_RAW_READERS = [0, None]  # raw readers open, log level before the first one
+
+
+def _quiet_raw_decoding(opening: bool):
+    """OpenCV warns on every raw frame it does not convert; silence that while a raw
+    reader is open and restore the caller's log level after the last one closes."""
+    log = cv2.utils.logging
+    if opening:
+        if _RAW_READERS[0] == 0:
+            _RAW_READERS[1] = log.getLogLevel()
+            log.setLogLevel(min(_RAW_READERS[1], log.LOG_LEVEL_ERROR))
+        _RAW_READERS[0] += 1
+    else:
+        _RAW_READERS[0] = max(_RAW_READERS[0] - 1, 0)
+        if _RAW_READERS[0] == 0 and _RAW_READERS[1] is not None:
+            log.setLogLevel(_RAW_READERS[1])
+
+
+def luma_lut(path, *, max_rms_levels=2.0):
+    """Grey levels from the decoder's own luma plane, if this stream allows it.
+
+    Decoding straight to the luma (Y) plane skips the conversion to colour, about a
+    third of the decoding work for H.264. OpenCV hands out such raw frames only for
+    some pixel formats, so the first frame is decoded both ways and the luma plane is
+    used only if it is a (height, width) 8-bit image that one straight line maps onto
+    OpenCV's BGR-to-grey image (limited-range luma spans 16-235, so the line is not the
+    identity) within ``max_rms_levels``; otherwise colour decoding is kept.
+
+    Parameters
+    ----------
+    path : str or Path
+    max_rms_levels : float
+        Largest RMS difference accepted between the mapped luma and the grey image.
+
+    Returns
+    -------
+    ndarray of uint8, shape (256,), or None
+        Look-up table from luma to grey level, or None when luma frames are unusable.
+    """
+    colour = _open(path)
+    _quiet_raw_decoding(True)
+    raw = None
+    try:
+        raw = _open(path, raw=True)
+        ok_c, bgr = colour.read()
+        ok_r, luma = raw.read()
+    except InputError:
+        return None
+    finally:
+        if raw is not None:
+            raw.release()
+        _quiet_raw_decoding(False)
+        colour.release()
+    if not (ok_c and ok_r) or bgr is None or luma is None or bgr.ndim != 3:
+        return None
+    if luma.dtype != np.uint8 or luma.shape != bgr.shape[:2]:
+        return None
+    grey = cv2.cvtColor(bgr, cv2.COLOR_BGR2GRAY).astype(float).ravel()[::7]
+    y = luma.astype(float).ravel()[::7]
+    if np.std(y) < 5.0:  # a blank first frame cannot tell the mapping
+        return None
+    a, b = np.polyfit(y, grey, 1)
+    rms = float(np.sqrt(np.mean((a * y + b - grey) ** 2)))
+    if not (0.9 < a < 1.3) or rms > max_rms_levels:
+        return None
+    return np.clip(np.rint(a * np.arange(256.0) + b), 0, 255).astype(np.uint8)
 
 
 def _info(cap, p: Path) -> VideoInfo:
@@ -278,10 +347,19 @@ class VideoReader:
     ...         pass
     """
 
-    def __init__(self, path, *, threaded=True, queue_frames=4, check_identical=True):
+    def __init__(self, path, *, threaded=True, queue_frames=4, check_identical=True,
+                 grey=False):
         self.path = Path(path)
         self._cap = _open(self.path)
         self.info = _info(self._cap, self.path)
+        self._lut = luma_lut(self.path) if grey else None
+        if self._lut is not None:
+            self._cap.release()
+            _quiet_raw_decoding(True)
+            self._cap = _open(self.path, raw=True)
+        self.grey = self._lut is not None
+        """True when frames come as 2-D grey images made from the stream's own luma plane
+        (see :func:`luma_lut`); otherwise they are BGR."""
         self.threaded = bool(threaded)
         self.queue_frames = max(1, int(queue_frames))
         self.check_identical = check_identical
@@ -306,6 +384,8 @@ class VideoReader:
         if self._cap is not None:
             self._cap.release()
             self._cap = None
+            if self._lut is not None:
+                _quiet_raw_decoding(False)
 
     # -- reading ---------------------------------------------------------------
     def _decode(self):
@@ -315,6 +395,12 @@ class VideoReader:
             ok, frame = cap.read()
             if not ok or frame is None:
                 return
+            if self._lut is not None:
+                if frame.shape != (self.info.height_px, self.info.width_px):
+                    raise InputError(
+                        f"{self.path}: frame {len(self._t)} changed its pixel format "
+                        "mid-stream; re-encode the video (e.g. to H.264 yuv420p)")
+                frame = cv2.LUT(frame, self._lut)
             yield cap.get(cv2.CAP_PROP_POS_MSEC), frame
 
     def _threaded(self):
@@ -356,7 +442,7 @@ class VideoReader:
             if self.check_identical:
                 # A sparse sample rules out most frames cheaply; only when it matches is
                 # the whole image compared (static areas of H.264 can repeat exactly).
-                small = frame[::40, ::40, 1].tobytes()
+                small = (frame[::40, ::40, 1] if frame.ndim == 3 else frame[::40, ::40]).tobytes()
                 if small == prev_small and prev is not None and prev.shape == frame.shape:
                     same = bool(np.array_equal(frame, prev))
                 prev_small, prev = small, frame
