@@ -1338,7 +1338,8 @@ def _track_video(video_path, robot, field, camera, registrar, progress, refine, 
                  source, max_gap_s, corner_sigma_px, corner_bias_px, window, threaded,
                  register_every, max_speed_mps, warnings, acc):
     truncated = None
-    with VideoReader(video_path, threaded=threaded, grey=True) as reader:
+    with VideoReader(video_path, threaded=threaded, grey=True,
+                     decoder_threads=1 if threaded else None) as reader:
         info = reader.info
         if camera is not None and (camera.width_px, camera.height_px) != (
                 info.width_px, info.height_px):
