@@ -1369,6 +1369,11 @@ def _track_video(video_path, robot, field, camera, registrar, progress, refine, 
                 partial = None
         raise VideoTruncatedError(str(truncated), frames_read=truncated.frames_read,
                                   t_last_s=truncated.t_last_s, partial=partial) from None
+    if camera is None and acc.policy.registered > 1 and not acc.policy.still:
+        warnings.append(
+            "the camera moved and there is no camera profile: the lens is estimated from "
+            "the tile seams of each view, good to about a centimetre on the floor; "
+            "calibrate it once with 'vidodo lens' for millimetres")
     return _finish(acc, robot, info, timing, **kw)
 
 
