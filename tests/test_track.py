@@ -273,6 +273,26 @@ def test_smallest_outline_bound_keeps_corners():
     assert det.detect(frame, roi, min_side_px=3.0 * side) == []
 
 
+def test_prefetched_subpix_pass_changes_nothing():
+    """The SUBPIX pass started ahead (prefetch) gives the corners of a plain call; one
+    started for another frame is not used."""
+    det = MarkerDetector((TAG,))
+    frame, truth = render((TAG,), (0.9, 0.8, 0.7), rng=np.random.default_rng(9))
+    other, _ = render((TAG,), (1.0, 0.8, 0.7), rng=np.random.default_rng(10))
+    c = truth[0]
+    roi = (int(c[:, 0].min()) - 10, int(c[:, 1].min()) - 10,
+           int(c[:, 0].max()) + 10, int(c[:, 1].max()) + 10)
+    wide = (roi[0] - 15, roi[1] - 15, roi[2] + 15, roi[3] + 15)
+    plain = det.detect(frame, roi, context_roi=wide)
+    det.prefetch(frame, wide)
+    ahead = det.detect(frame, roi, context_roi=wide)
+    det.prefetch(other, wide)
+    stale = det.detect(frame, roi, context_roi=wide)
+    assert len(plain) == len(ahead) == len(stale) == 1
+    np.testing.assert_array_equal(ahead[0].corners_px, plain[0].corners_px)
+    np.testing.assert_array_equal(stale[0].corners_px, plain[0].corners_px)
+
+
 def test_wrong_ids_ignored_and_listed():
     """Only the robot's (family, id) counts; a missing marker error lists seen IDs."""
     other = Marker(id=7, family="DICT_APRILTAG_36h11", size_m=0.12, z_m=0.25)

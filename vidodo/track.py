@@ -252,6 +252,32 @@ class MarkerDetector:
                     return corners - corners.mean(axis=0) + centre
         return corners
 
+    def _submit_subpix(self, frame, roi, least, k):
+        """Start the SUBPIX pass of every family on the side thread."""
+        img, origin = _window(frame, roi, k)
+        futures = {}
+        for family in self._detectors:
+            sub = self._sized_detector("subpix", family, least, max(img.shape[:2]))
+            futures[family] = _side_pool().submit(sub.detectMarkers, img)
+        return futures, origin
+
+    def prefetch(self, frame, context_roi, min_side_px=None):
+        """Start the SUBPIX pass of a coming :meth:`detect` call now (same ``frame``
+        object, same ``context_roi`` and ``min_side_px``, no upscale), so that it runs
+        while the caller finishes the previous frame. A mismatched call ignores it."""
+        if self.refine != "hybrid" or context_roi is None:
+            return
+        least = 4.0 * float(min_side_px) if min_side_px else 0.0
+        futures, origin = self._submit_subpix(frame, context_roi, least, 1)
+        self._prefetched = (frame, context_roi, least, futures, origin)
+
+    def _take_prefetch(self, frame, roi, least, k):
+        pre, self._prefetched = getattr(self, "_prefetched", None), None
+        if pre is not None and pre[0] is frame and pre[1] == roi and pre[2] == least \
+                and k == 1:
+            return pre[3], pre[4]
+        return None, (0, 0)
+
     def cells_across(self, marker_index: int) -> int:
         """Cells across the black square of a marker (bits + 2 border cells)."""
         return self.cells[self.markers[marker_index].family]
@@ -295,13 +321,11 @@ class MarkerDetector:
         side_pass = {}
         offset = np.zeros(2)
         if self.refine == "hybrid" and not coarse:
-            simg = img
-            if context_roi is not None and context_roi != roi:
-                simg, origin = _window(frame, context_roi, k)
-                offset = (np.asarray(origin, float) - (u0, v0)) * k
-            for family in self._detectors:
-                sub = self._sized_detector("subpix", family, least, max(simg.shape[:2]))
-                side_pass[family] = _side_pool().submit(sub.detectMarkers, simg)
+            wide = context_roi if context_roi is not None else roi
+            side_pass, origin = self._take_prefetch(frame, wide, least, k)
+            if side_pass is None:
+                side_pass, origin = self._submit_subpix(frame, wide, least, k)
+            offset = (np.asarray(origin, float) - (u0, v0)) * k
         for family in self._detectors:
             det = self._sized_detector(kind, family, least, max(img.shape[:2]))
             corners, ids, _rej = det.detectMarkers(img)
@@ -656,7 +680,11 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
     last_fix_t = -math.inf
     last_cell = math.inf
     last_side = 0.0
-    for index, t_s, frame in frames:
+    stream = iter(frames)
+    coming = next(stream, None)
+    while coming is not None:
+        index, t_s, frame = coming
+        coming = next(stream, None)
         acc.t.append(float(t_s))
         reg, fresh = policy.update(
             frame, index, t_s,
@@ -683,8 +711,7 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
             if roi is not None:
                 acc.window_searches += 1
                 least = SHRINK_PER_FRAME * last_side if index - last_index <= 3 else None
-                wide = _roi(last, prev, frame.shape, index - last_index, CONTEXT_SIDE_FRAC,
-                            CONTEXT_PAD_PX)
+                wide = _context_roi(last, prev, frame.shape, index - last_index)
                 dets = det.detect(frame, roi, min_side_px=least, context_roi=wide)
                 if not dets and last_cell < 4.0:  # small marker: try a 2x enlarged window
                     dets = det.detect(frame, roi, upscale=2, min_side_px=least,
@@ -736,7 +763,17 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
         acc.n_markers.append(nm)
         if progress is not None:
             progress(index + 1, total)
+        if window and coming is not None and last is not None:
+            # Start the next frame's SUBPIX pass while this thread moves on.
+            gap = coming[0] - last_index
+            det.prefetch(coming[2], _context_roi(last, prev, coming[2].shape, gap),
+                         SHRINK_PER_FRAME * last_side if gap <= 3 else None)
     return acc
+
+
+def _context_roi(last, prev, frame_shape, gap_frames):
+    """The wider window of the SUBPIX pass (see :data:`CONTEXT_SIDE_FRAC`)."""
+    return _roi(last, prev, frame_shape, gap_frames, CONTEXT_SIDE_FRAC, CONTEXT_PAD_PX)
 
 
 def _robot_mask(robot, fix, reg, shape):
