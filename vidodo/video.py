@@ -166,25 +166,49 @@ def luma_lut(path, *, max_rms_levels=2.0):
         Look-up table from luma to grey level, or None when luma frames are unusable.
     """
     colour = _open(path)
+    try:
+        lut, raw, _first = _probe_luma(path, colour, max_rms_levels=max_rms_levels)
+    finally:
+        colour.release()
+    if raw is not None:
+        raw.release()
+    return lut
+
+
+def _probe_luma(path, colour, *, max_rms_levels=2.0, threads=None):
+    """:func:`luma_lut` reading the first frame from ``colour`` (left one frame on).
+
+    Returns ``(lut, raw_capture, (t_ms, first_raw_frame))``: the raw capture stays open,
+    one frame on, only when the table is usable; otherwise ``(None, None, None)``.
+    """
     _quiet_raw_decoding(True)
     raw = None
     try:
-        raw = _open(path, raw=True)
+        raw = _open(path, raw=True, threads=threads)
         ok_c, bgr = colour.read()
         ok_r, luma = raw.read()
+        t_ms = raw.get(cv2.CAP_PROP_POS_MSEC)
     except InputError:
-        return None
+        ok_c = ok_r = False
     finally:
+        _quiet_raw_decoding(False)
+    lut = None
+    if ok_c and ok_r and bgr is not None and luma is not None and bgr.ndim == 3 \
+            and luma.dtype == np.uint8 and luma.shape == bgr.shape[:2]:
+        lut = _luma_line(luma, bgr, max_rms_levels)
+    if lut is None:
         if raw is not None:
             raw.release()
-        _quiet_raw_decoding(False)
-        colour.release()
-    if not (ok_c and ok_r) or bgr is None or luma is None or bgr.ndim != 3:
-        return None
-    if luma.dtype != np.uint8 or luma.shape != bgr.shape[:2]:
-        return None
-    grey = cv2.cvtColor(bgr, cv2.COLOR_BGR2GRAY).astype(float).ravel()[::7]
-    y = luma.astype(float).ravel()[::7]
+        return None, None, None
+    return lut, raw, (t_ms, luma)
+
+
+def _luma_line(luma, bgr, max_rms_levels):
+    """The look-up table of the straight line from luma to grey, or None."""
+    # Every 97th pixel (a prime: no lock-step with rows or 8x8 blocks) is plenty for a
+    # straight line and keeps the probe to a few milliseconds.
+    grey = cv2.cvtColor(bgr, cv2.COLOR_BGR2GRAY).ravel()[::97].astype(float)
+    y = luma.ravel()[::97].astype(float)
     if np.std(y) < 5.0:  # a blank first frame cannot tell the mapping
         return None
     a, b = np.polyfit(y, grey, 1)
@@ -360,11 +384,17 @@ class VideoReader:
         self.path = Path(path)
         self._cap = _open(self.path, threads=decoder_threads)
         self.info = _info(self._cap, self.path)
-        self._lut = luma_lut(self.path) if grey else None
-        if self._lut is not None:
+        self._lut = None
+        self._held = None  # first raw frame, read by the probe: (t_ms, frame)
+        if grey:  # the probe reads the colour capture's first frame: replaced either way
+            self._lut, raw, self._held = _probe_luma(self.path, self._cap,
+                                                     threads=decoder_threads)
             self._cap.release()
-            _quiet_raw_decoding(True)
-            self._cap = _open(self.path, raw=True, threads=decoder_threads)
+            if self._lut is not None:
+                _quiet_raw_decoding(True)
+                self._cap = raw
+            else:
+                self._cap = _open(self.path, threads=decoder_threads)
         self.grey = self._lut is not None
         """True when frames come as 2-D grey images made from the stream's own luma plane
         (see :func:`luma_lut`); otherwise they are BGR."""
@@ -400,6 +430,10 @@ class VideoReader:
         """Yield ``(t_ms, frame)`` until the stream ends."""
         cap = self._cap
         while not self._stop.is_set():
+            if self._held is not None:
+                (t_ms, frame), self._held = self._held, None
+                yield t_ms, cv2.LUT(frame, self._lut)
+                continue
             ok, frame = cap.read()
             if not ok or frame is None:
                 return
