@@ -265,7 +265,8 @@ def test_smallest_outline_bound_keeps_corners():
     c = truth[0]
     roi = (int(c[:, 0].min()) - 30, int(c[:, 1].min()) - 30,
            int(c[:, 0].max()) + 30, int(c[:, 1].max()) + 30)
-    side = np.sqrt(0.5 * abs(np.cross(c[2] - c[0], c[3] - c[1])))
+    a, b = c[2] - c[0], c[3] - c[1]
+    side = np.sqrt(0.5 * abs(a[0] * b[1] - a[1] * b[0]))  # quadrilateral area from diagonals
     plain = det.detect(frame, roi)
     bound = det.detect(frame, roi, min_side_px=0.5 * side)
     assert len(plain) == len(bound) == 1
