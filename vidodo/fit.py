@@ -55,7 +55,7 @@ from scipy.optimize import least_squares
 from .errors import InputError, MeasurementError
 from .outputs import atomic_file
 from .profiles import RobotProfile, dump_toml, robot_to_dict
-from .se2 import relative_pose
+from .se2 import log_increment, relative_pose
 from .wheels import wheel_rows
 
 __all__ = [
@@ -64,7 +64,6 @@ __all__ = [
     "TOLERANCES",
     "fit_profile",
     "truth_increments",
-    "log_map_increment",
     "write_profile",
     "anchored_drift",
     "event_windows",
@@ -195,32 +194,6 @@ class ProfileFit:
 
 
 # ----------------------------------------------------------------------- increments
-def log_map_increment(dx_m, dy_m, dtheta_rad):
-    """Exponential coordinates ``(ux, uy, dtheta)`` of a relative pose.
-
-    Inverse of :func:`vidodo.se2.exp_increment`: the constant twist times duration
-    that carries the body from the start pose to the relative pose ``(dx, dy,
-    dtheta)`` on one constant-curvature arc (Lynch & Park, *Modern Robotics*, 2017,
-    section 13.4).
-
-    Returns
-    -------
-    ndarray of shape (N, 3)
-        ``(ux_m, uy_m, dtheta_rad)``.
-    """
-    dx = np.asarray(dx_m, dtype=float)
-    dy = np.asarray(dy_m, dtype=float)
-    th = np.asarray(dtheta_rad, dtype=float)
-    small = np.abs(th) < 1e-6
-    th_safe = np.where(small, 1.0, th)
-    a = np.where(small, 1.0 - th**2 / 6.0, np.sin(th_safe) / th_safe)
-    b = np.where(small, th / 2.0 - th**3 / 24.0, (1.0 - np.cos(th_safe)) / th_safe)
-    det = a * a + b * b
-    ux = (a * dx + b * dy) / det
-    uy = (-b * dx + a * dy) / det
-    return np.column_stack([np.atleast_1d(ux), np.atleast_1d(uy), np.atleast_1d(th)])
-
-
 def truth_increments(truth: pd.DataFrame) -> np.ndarray:
     """Cumulative body increments of a truth track, frame by frame.
 
@@ -237,7 +210,7 @@ def truth_increments(truth: pd.DataFrame) -> np.ndarray:
     """
     pose = truth[["x_m", "y_m", "heading_rad"]].to_numpy(float)
     rel = relative_pose(pose[:-1], pose[1:])
-    u = log_map_increment(rel[:, 0], rel[:, 1], rel[:, 2])
+    u = log_increment(rel[:, 0], rel[:, 1], rel[:, 2])
     u = np.nan_to_num(u, nan=0.0)
     return np.vstack([np.zeros((1, 3)), np.cumsum(u, axis=0)])
 

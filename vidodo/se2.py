@@ -13,6 +13,7 @@ __all__ = [
     "wrap_angle",
     "rotate",
     "exp_increment",
+    "log_increment",
     "integrate_increments",
     "integrate_twist",
     "relative_pose",
@@ -77,13 +78,40 @@ def exp_increment(ux, uy, dtheta):
     """
     ux = np.asarray(ux, dtype=float)
     uy = np.asarray(uy, dtype=float)
+    a, b = _arc_coefficients(dtheta)
+    return a * ux - b * uy, b * ux + a * uy
+
+
+def log_increment(dx_m, dy_m, dtheta_rad):
+    """Exponential coordinates ``(ux, uy, dtheta)`` of a relative pose.
+
+    Inverse of :func:`exp_increment`: the constant twist times duration that carries
+    the body from the start pose to the relative pose ``(dx, dy, dtheta)`` on one
+    constant-curvature arc (Lynch & Park, *Modern Robotics*, 2017, section 13.4).
+
+    Returns
+    -------
+    ndarray of shape (N, 3)
+        ``(ux_m, uy_m, dtheta_rad)``.
+    """
+    dx = np.asarray(dx_m, dtype=float)
+    dy = np.asarray(dy_m, dtype=float)
+    th = np.asarray(dtheta_rad, dtype=float)
+    a, b = _arc_coefficients(th)
+    det = a * a + b * b
+    ux = (a * dx + b * dy) / det
+    uy = (-b * dx + a * dy) / det
+    return np.column_stack([np.atleast_1d(ux), np.atleast_1d(uy), np.atleast_1d(th)])
+
+
+def _arc_coefficients(dtheta):
+    """sin(th)/th and (1 - cos th)/th, with their series for small angles."""
     th = np.asarray(dtheta, dtype=float)
     small = np.abs(th) < 1e-6
     th_safe = np.where(small, 1.0, th)
-    # sin(th)/th and (1-cos th)/th with series for small angles.
     a = np.where(small, 1.0 - th**2 / 6.0, np.sin(th_safe) / th_safe)
     b = np.where(small, th / 2.0 - th**3 / 24.0, (1.0 - np.cos(th_safe)) / th_safe)
-    return a * ux - b * uy, b * ux + a * uy
+    return a, b
 
 
 def integrate_increments(increments, start_pose=(0.0, 0.0, 0.0)):
