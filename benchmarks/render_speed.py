@@ -26,6 +26,7 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from vidodo.encode import write_video  # noqa: E402
+from vidodo.motion import look_at_pose  # noqa: E402
 from vidodo.profiles import CameraProfile, FieldProfile, Marker, RobotProfile  # noqa: E402
 from vidodo.render import render_frames  # noqa: E402
 
@@ -35,13 +36,8 @@ ROBOT = RobotProfile("bench", 0.45, 0.45, 0.30,
 
 
 def look_at(centre, target):
-    z = np.asarray(target, float) - centre
-    z /= np.linalg.norm(z)
-    x = np.cross(z, [0.0, 0.0, 1.0])
-    x /= np.linalg.norm(x)
-    y = np.cross(z, x)
-    rot = np.stack([x, y, z])
-    return cv2.Rodrigues(rot)[0].ravel(), -rot @ centre
+    rot, t = look_at_pose(centre, target)
+    return cv2.Rodrigues(rot)[0].ravel(), t
 
 
 def pose_at(t):

@@ -16,6 +16,7 @@ import pytest
 
 from vidodo import grid
 from vidodo.errors import CalibrationError
+from vidodo.motion import look_at_pose
 from vidodo.profiles import CameraProfile, FieldProfile, FloorMarker
 
 MM_PER_TEXEL = 2.0
@@ -23,14 +24,8 @@ MM_PER_TEXEL = 2.0
 
 def look_at(camera_m, target_m):
     """OpenCV rvec, tvec (floor -> camera) of a camera at ``camera_m`` looking at target."""
-    c = np.asarray(camera_m, float)
-    z = np.asarray(target_m, float) - c
-    z /= np.linalg.norm(z)
-    x = np.cross(z, [0.0, 0.0, 1.0])
-    x /= np.linalg.norm(x)
-    y = np.cross(z, x)
-    r = np.vstack([x, y, z])
-    return cv2.Rodrigues(r)[0].ravel(), -r @ c
+    r, t = look_at_pose(camera_m, target_m)
+    return cv2.Rodrigues(r)[0].ravel(), t
 
 
 def tile_texture(field, *, margin_m=0.45, seam_mm=4.0, seed=1, markers=()):

@@ -19,6 +19,7 @@ import pytest
 from apriltag3 import apriltag3_corners
 from numpy.testing import assert_allclose
 
+from vidodo.motion import look_at_pose
 from vidodo.profiles import (
     CameraProfile,
     FieldProfile,
@@ -34,15 +35,8 @@ DIST = (-0.12, 0.05, 0.0008, -0.0006, -0.01)
 
 def _look_at(centre, target):
     """Floor -> camera rvec, tvec for a camera at ``centre`` looking at ``target``."""
-    z = np.asarray(target, float) - centre
-    z /= np.linalg.norm(z)
-    x = np.cross(z, [0.0, 0.0, 1.0])
-    if np.linalg.norm(x) < 1e-9:
-        x = np.array([1.0, 0.0, 0.0])
-    x /= np.linalg.norm(x)
-    y = np.cross(z, x)
-    rot = np.stack([x, y, z])
-    return cv2.Rodrigues(rot)[0].ravel(), -rot @ np.asarray(centre, float)
+    rot, t = look_at_pose(centre, target)
+    return cv2.Rodrigues(rot)[0].ravel(), t
 
 
 def _robot(z_m=0.32, yaw_rad=0.0, family="DICT_4X4_50", size_m=0.16):

@@ -21,6 +21,7 @@ import pandas as pd
 import pytest
 
 from vidodo.errors import TrackingError
+from vidodo.motion import look_at_pose
 from vidodo.profiles import FieldProfile, Marker, RobotProfile
 from vidodo.track import (
     TRACK_COLUMNS,
@@ -41,18 +42,8 @@ K = np.array([[700.0, 0, 319.5], [0, 700.0, 239.5], [0, 0, 1]])
 FIELD = FieldProfile(tiles_x=3, tiles_y=3, tile_size_m=0.6)
 
 
-def _look_at(centre, target):
-    z = np.asarray(target, float) - centre
-    z /= np.linalg.norm(z)
-    x = np.cross(z, [0, 0, 1.0])
-    x /= np.linalg.norm(x)
-    y = np.cross(z, x)
-    R = np.vstack([x, y, z])  # rows: camera axes in floor frame
-    return R, -R @ centre
-
-
 CAM_C = np.array([0.9, -1.1, 1.9])
-CAM_R, CAM_T = _look_at(CAM_C, [0.9, 0.9, 0.0])
+CAM_R, CAM_T = look_at_pose(CAM_C, [0.9, 0.9, 0.0])  # rows: camera axes in floor frame
 CAM_RVEC = cv2.Rodrigues(CAM_R)[0].ravel()
 
 

@@ -384,8 +384,17 @@ def camera_base_pose(cam) -> tuple[np.ndarray, np.ndarray]:
     t : ndarray of shape (3,)
         ``X_cam = R @ X_floor + t`` [m].
     """
-    c = np.asarray(cam.position_m, float)
-    f = np.asarray(cam.look_at_m, float) - c
+    return look_at_pose(cam.position_m, cam.look_at_m)
+
+
+def look_at_pose(position_m, target_m) -> tuple[np.ndarray, np.ndarray]:
+    """Floor -> camera ``(R, t)`` of a level camera at ``position_m`` aimed at ``target_m``.
+
+    Image x is horizontal and image y points down the floor's vertical, so
+    ``X_cam = R @ X_floor + t`` [m]; see :func:`camera_base_pose`.
+    """
+    c = np.asarray(position_m, float)
+    f = np.asarray(target_m, float) - c
     f /= np.linalg.norm(f)
     right = np.cross(f, [0.0, 0.0, 1.0])
     if np.linalg.norm(right) < 1e-6:
