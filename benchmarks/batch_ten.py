@@ -11,8 +11,6 @@ the wall time of each, their ratio, the exit codes and the table's statuses.
 from __future__ import annotations
 
 import argparse
-import hashlib
-import json
 import shutil
 import sys
 import tempfile
@@ -28,18 +26,11 @@ CACHE = ROOT / ".cache" / "bench_batch"
 
 def render(seed: int, seconds: float) -> Path:
     from vidodo.scenario import load_scenario
-    from vidodo.simulate import simulate_run
+    from vidodo.simulate import run_cache_key, simulate_run
 
     sc = load_scenario("default", **{"video.max_duration_s": seconds})
-    code = hashlib.sha256()
-    for mod in ("scenario", "motion", "sensors", "simulate", "render", "render_floor",
-                "encode"):
-        p = ROOT / "vidodo" / f"{mod}.py"
-        if p.exists():
-            code.update(p.read_bytes())
-    key = json.dumps({"data": sc.data, "seed": seed, "code": code.hexdigest()},
-                     sort_keys=True, default=str)
-    folder = CACHE / f"seed{seed}-{hashlib.sha256(key.encode()).hexdigest()[:12]}"
+    key = run_cache_key(sc, seed)
+    folder = CACHE / f"seed{seed}-{key}"
     if not (folder / ".complete").exists():
         shutil.rmtree(folder, ignore_errors=True)
         simulate_run(sc, seed, folder)

@@ -32,7 +32,6 @@ from __future__ import annotations
 
 import argparse
 import copy
-import hashlib
 import json
 import math
 import os
@@ -55,7 +54,7 @@ from vidodo.metrics import anchor_poses, column_prefix  # noqa: E402
 from vidodo.pipeline import grade_run  # noqa: E402
 from vidodo.profiles import dump_toml, load_robot  # noqa: E402
 from vidodo.scenario import scenario_from_dict  # noqa: E402
-from vidodo.simulate import simulate_run  # noqa: E402
+from vidodo.simulate import run_cache_key, simulate_run  # noqa: E402
 
 CACHE = Path(os.environ.get("VIDODO_RUN_CACHE", ROOT / ".cache" / "runs")) / "grade_suite"
 EXPECTED = {"impact": ("impact", "wheel_slip"), "shove": ("shove",),
@@ -94,19 +93,13 @@ def _scenario_data(config, seed, small):
 def render(config, seed, *, video, small):
     """Render (or reuse) one run folder; returns its path."""
     data = _scenario_data(config, seed, small)
-    key = json.dumps({"data": data, "seed": seed, "video": video}, sort_keys=True)
-    code = hashlib.sha256()
-    for name in ("scenario", "motion", "sensors", "simulate", "render", "render_floor",
-                 "encode"):
-        p = ROOT / "vidodo" / f"{name}.py"
-        if p.exists():
-            code.update(p.read_bytes())
-    folder = CACHE / hashlib.sha256((key + code.hexdigest()).encode()).hexdigest()[:16]
+    sc = scenario_from_dict(data, f"{config} (benchmark)")
+    key = run_cache_key(sc, seed, video=video)
+    folder = CACHE / key
     if (folder / ".complete").exists():
         return folder
     if folder.exists():
         shutil.rmtree(folder)
-    sc = scenario_from_dict(data, f"{config} (benchmark)")
     tmp = folder.with_name(folder.name + ".tmp")
     if tmp.exists():
         shutil.rmtree(tmp)
