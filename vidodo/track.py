@@ -206,6 +206,7 @@ class MarkerDetector:
         self.ids_seen: dict[tuple[str, int], int] = {}
         """Every (family, id) seen so far with its frame count, robot's or not."""
         self._sized: dict[tuple[str, str, int], object] = {}
+        self._prefetched = None  # (frame, roi, least, futures, origin), see prefetch
 
     def _sized_detector(self, kind, family, min_perimeter_px, image_px):
         """A copy of a detector that skips outlines shorter than ``min_perimeter_px``.
@@ -272,7 +273,7 @@ class MarkerDetector:
         self._prefetched = (frame, context_roi, least, futures, origin)
 
     def _take_prefetch(self, frame, roi, least, k):
-        pre, self._prefetched = getattr(self, "_prefetched", None), None
+        pre, self._prefetched = self._prefetched, None
         if pre is not None and pre[0] is frame and pre[1] == roi and pre[2] == least \
                 and k == 1:
             return pre[3], pre[4]
