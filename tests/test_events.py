@@ -5,6 +5,7 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
+from standin_track import noisy_track
 
 from vidodo.events import (
     EventSettings,
@@ -80,14 +81,8 @@ def _run(faults=(), seed=0, duration_s=10.0, sigma_m=SIGMA_M):
             imu_off[t >= t0] += math.radians(4.0)
     pose = integrate_twist(t, body, (1.0, 1.0, 0.2))
     tv = np.arange(0.0, duration_s, 1 / 30)
-    n = tv.size
-    truth = pd.DataFrame({
-        "t_s": tv,
-        "x_m": np.interp(tv, t, pose[:, 0]) + rng.normal(0, sigma_m, n),
-        "y_m": np.interp(tv, t, pose[:, 1]) + rng.normal(0, sigma_m, n),
-        "heading_rad": np.interp(tv, t, pose[:, 2]) + rng.normal(0, SIGMA_RAD, n),
-        "sigma_xy_m": sigma_m, "sigma_heading_rad": SIGMA_RAD,
-        "detected": True, "interpolated": False})
+    truth = noisy_track(tv, *(np.interp(tv, t, pose[:, k]) for k in range(3)), sigma_m,
+                        SIGMA_RAD, rng)
     tl = np.arange(0.0, duration_s, 0.01)
     cum = np.vstack([np.zeros((1, rim.shape[1])), np.cumsum(rim[:-1] * dt, axis=0)])
     travel = pd.DataFrame({"t_s": tl})

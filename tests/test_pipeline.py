@@ -11,6 +11,7 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
+from standin_track import noisy_track
 
 from vidodo.cli_main import main
 from vidodo.errors import EXIT_MEASURE, EXIT_OK, EXIT_TOLERANCE, SyncError
@@ -30,15 +31,9 @@ def standin_truth(run, seed=0, sigma_m=SIGMA_M, sigma_rad=SIGMA_RAD):
     """Truth track columns from the renderer's exact truth plus noise (tests and
     benchmarks only; never the pipeline)."""
     tr = pd.read_csv(run / "truth" / "truth.csv")
-    rng = np.random.default_rng(seed)
-    n = len(tr)
     vis = tr["marker_visible"].astype(str).str.lower().eq("true").to_numpy()
-    out = pd.DataFrame({
-        "t_s": tr["t_s"], "x_m": tr["x_m"] + rng.normal(0, sigma_m, n),
-        "y_m": tr["y_m"] + rng.normal(0, sigma_m, n),
-        "heading_rad": tr["heading_rad"] + rng.normal(0, sigma_rad, n),
-        "sigma_xy_m": sigma_m, "sigma_heading_rad": sigma_rad,
-        "detected": vis, "interpolated": False})
+    out = noisy_track(tr["t_s"], tr["x_m"], tr["y_m"], tr["heading_rad"], sigma_m, sigma_rad,
+                      np.random.default_rng(seed), detected=vis)
     out.loc[~vis, ["x_m", "y_m", "heading_rad"]] = np.nan
     return out
 

@@ -6,6 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from scipy import signal
+from standin_track import noisy_track
 
 from vidodo.errors import SyncError
 from vidodo.se2 import integrate_twist, relative_pose
@@ -38,14 +39,8 @@ def _run(offset_s, *, seed=0, duration_s=16.0, scale=1.0, still=False, log_span=
         w[:] = 0.0
     pose = integrate_twist(t, np.column_stack([v, 0 * v, w]), (1.0, 0.5, 0.3))
     tv = np.arange(0.0, duration_s - 1.0, 1.0 / FPS)
-    n = tv.size
-    truth = pd.DataFrame({
-        "t_s": tv,
-        "x_m": np.interp(tv, t, pose[:, 0]) + rng.normal(0, sigma_m, n),
-        "y_m": np.interp(tv, t, pose[:, 1]) + rng.normal(0, sigma_m, n),
-        "heading_rad": np.interp(tv, t, pose[:, 2]) + rng.normal(0, sigma_rad, n),
-        "sigma_xy_m": sigma_m, "sigma_heading_rad": sigma_rad,
-        "detected": True, "interpolated": False})
+    truth = noisy_track(tv, *(np.interp(tv, t, pose[:, k]) for k in range(3)), sigma_m,
+                        sigma_rad, rng)
     span = log_span or duration_s
     tl = np.arange(0.0, span, 1.0 / LOG_HZ) + 5.0
     tvid = tl + offset_s
