@@ -18,8 +18,8 @@ CACHE = ROOT / ".cache" / "bench"
 
 def rendered(name: str, seed: int = 0, **overrides) -> Path:
     """Render (or reuse) scenario ``name`` with ``overrides`` (dotted keys)."""
-    from vidodo.scenario import load_scenario
-    from vidodo.simulate import simulate_run
+    from vidodo.synth.scenario import load_scenario
+    from vidodo.synth.simulate import simulate_run
 
     key = json.dumps({"name": name, "seed": seed, "overrides": overrides}, sort_keys=True,
                      default=str)

@@ -25,8 +25,8 @@ CACHE = ROOT / ".cache" / "bench_batch"
 
 
 def render(seed: int, seconds: float) -> Path:
-    from vidodo.scenario import load_scenario
-    from vidodo.simulate import run_cache_key, simulate_run
+    from vidodo.synth.scenario import load_scenario
+    from vidodo.synth.simulate import run_cache_key, simulate_run
 
     sc = load_scenario("default", **{"video.max_duration_s": seconds})
     key = run_cache_key(sc, seed)

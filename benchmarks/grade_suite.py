@@ -53,8 +53,8 @@ from vidodo.logs import read_log  # noqa: E402
 from vidodo.metrics import anchor_poses, column_prefix  # noqa: E402
 from vidodo.pipeline import grade_run  # noqa: E402
 from vidodo.profiles import dump_toml, load_robot  # noqa: E402
-from vidodo.scenario import scenario_from_dict  # noqa: E402
-from vidodo.simulate import run_cache_key, simulate_run  # noqa: E402
+from vidodo.synth.scenario import scenario_from_dict  # noqa: E402
+from vidodo.synth.simulate import run_cache_key, simulate_run  # noqa: E402
 
 CACHE = Path(os.environ.get("VIDODO_RUN_CACHE", ROOT / ".cache" / "runs")) / "grade_suite"
 EXPECTED = {"impact": ("impact", "wheel_slip"), "shove": ("shove",),
@@ -74,7 +74,7 @@ CONFIGS = {
 
 def _scenario_data(config, seed, small):
     base, overrides, extra = CONFIGS[config]
-    path = ROOT / "vidodo" / "scenarios" / f"{base}.toml"
+    path = ROOT / "vidodo" / "synth" / "scenarios" / f"{base}.toml"
     data = tomllib.loads(path.read_text())
     for k, v in overrides.items():
         table, key = k.split(".")

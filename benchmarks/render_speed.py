@@ -26,9 +26,9 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from vidodo.encode import write_video  # noqa: E402
-from vidodo.motion import look_at_pose  # noqa: E402
 from vidodo.profiles import CameraProfile, FieldProfile, Marker, RobotProfile  # noqa: E402
-from vidodo.render import render_frames  # noqa: E402
+from vidodo.synth.motion import look_at_pose  # noqa: E402
+from vidodo.synth.render import render_frames  # noqa: E402
 
 FIELD = FieldProfile(6, 6, 0.6096)
 ROBOT = RobotProfile("bench", 0.45, 0.45, 0.30,

@@ -1,7 +1,7 @@
 """Shared fixtures: rendered runs, cached on disk between test sessions.
 
 ``rendered_run(name="default", seed=0, **overrides) -> Path`` renders a run folder
-(video, log, profiles, truth) with :func:`vidodo.simulate.simulate_run` and caches it
+(video, log, profiles, truth) with :func:`vidodo.synth.simulate.simulate_run` and caches it
 under ``.cache/runs/<hash>/`` at the repository root. The hash covers the scenario
 content after overrides, the seed, whether video is wanted, and the source of every
 module that makes a run, so editing the renderer invalidates the cache.
@@ -25,8 +25,8 @@ ROOT = Path(__file__).resolve().parents[1]
 CACHE = Path(os.environ.get("VIDODO_RUN_CACHE", ROOT / ".cache" / "runs"))
 SMALL = {"video.width_px": 640, "video.height_px": 360}
 def _render(name="default", seed=0, video=True, **overrides) -> Path:
-    from vidodo.scenario import load_scenario
-    from vidodo.simulate import run_cache_key, simulate_run
+    from vidodo.synth.scenario import load_scenario
+    from vidodo.synth.simulate import run_cache_key, simulate_run
 
     ov = dict(SMALL)
     ov.update({k.replace("__", "."): v for k, v in overrides.items()})

@@ -16,8 +16,8 @@ import pytest
 
 from vidodo import grid
 from vidodo.errors import CalibrationError
-from vidodo.motion import look_at_pose
 from vidodo.profiles import CameraProfile, FieldProfile, FloorMarker
+from vidodo.synth.motion import look_at_pose
 
 MM_PER_TEXEL = 2.0
 

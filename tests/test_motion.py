@@ -10,8 +10,8 @@ from scipy.integrate import cumulative_simpson
 from scipy.linalg import expm
 
 from vidodo.errors import InputError
-from vidodo.motion import GRID_DT_S, camera_pose_fn, simulate_motion, trapezoid
-from vidodo.scenario import load_scenario
+from vidodo.synth.motion import GRID_DT_S, camera_pose_fn, simulate_motion, trapezoid
+from vidodo.synth.scenario import load_scenario
 
 
 @pytest.fixture(scope="module")

@@ -19,7 +19,6 @@ import pytest
 from apriltag3 import apriltag3_corners
 from numpy.testing import assert_allclose
 
-from vidodo.motion import look_at_pose
 from vidodo.profiles import (
     CameraProfile,
     FieldProfile,
@@ -28,7 +27,8 @@ from vidodo.profiles import (
     RobotProfile,
     marker_corners_local,
 )
-from vidodo.render import camera_rays, floor_points, render_frames
+from vidodo.synth.motion import look_at_pose
+from vidodo.synth.render import camera_rays, floor_points, render_frames
 
 DIST = (-0.12, 0.05, 0.0008, -0.0006, -0.01)
 
@@ -262,7 +262,7 @@ def test_panning_camera_rolling_shutter_on_floor_marker(n_frames):
 def test_robot_right_under_the_camera_fills_the_view():
     """Camera 5 cm above the chassis top, looking down: every ray meets the chassis top
     or the mast/plate (chassis colour from render_robot.CHASSIS_BGR), none the floor."""
-    from vidodo.render_robot import CHASSIS_BGR
+    from vidodo.synth.render_robot import CHASSIS_BGR
 
     cam = CameraProfile(160, 120, 60.0, 60.0, 80.0, 60.0)
     robot = RobotProfile("big", 2.0, 2.0, 0.25, (Marker(1, "DICT_4X4_50", 0.05, 0.5, 0.5,

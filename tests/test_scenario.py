@@ -9,7 +9,7 @@ from numpy.testing import assert_allclose
 
 from vidodo.errors import InputError
 from vidodo.profiles import load_robot
-from vidodo.scenario import load_scenario, scenario_names
+from vidodo.synth.scenario import load_scenario, scenario_names
 from vidodo.wheels import check_observable
 
 
@@ -122,7 +122,7 @@ def test_profile_error_entries_are_checked():
 
 
 def test_scenario_text_is_stable():
-    from vidodo.scenario import scenario_text
+    from vidodo.synth.scenario import scenario_text
 
     assert scenario_text(load_scenario("default")) == scenario_text(load_scenario("default"))
     assert scenario_text(load_scenario("default", video__fps=60.0)) != scenario_text(

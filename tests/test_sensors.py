@@ -8,10 +8,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
-from vidodo.motion import simulate_motion
-from vidodo.scenario import load_scenario
 from vidodo.se2 import relative_pose
-from vidodo.sensors import (
+from vidodo.synth.motion import simulate_motion
+from vidodo.synth.scenario import load_scenario
+from vidodo.synth.sensors import (
     source_column_prefix,
     source_increments,
     synthesize_log,

@@ -12,8 +12,8 @@ from numpy.testing import assert_allclose
 
 from vidodo.cli_main import main
 from vidodo.profiles import load_camera, load_field, load_robot, marker_corners_local
-from vidodo.scenario import load_scenario
-from vidodo.simulate import frame_times, simulate_run
+from vidodo.synth.scenario import load_scenario
+from vidodo.synth.simulate import frame_times, simulate_run
 
 FILES = ["log.csv", "robot.toml", "field.toml", "camera.toml", "scenario.toml",
          "truth/truth.csv", "truth/events.csv", "truth/odometry_ideal.csv", "truth/meta.json",
@@ -122,7 +122,7 @@ def test_marker_visibility_agrees_with_projection(run_default):
 
 
 def test_failure_leaves_nothing_behind(tmp_path, monkeypatch):
-    import vidodo.simulate as sim
+    import vidodo.synth.simulate as sim
 
     def boom(*a, **k):
         raise RuntimeError("renderer failed")

@@ -21,8 +21,8 @@ import pandas as pd
 import pytest
 
 from vidodo.errors import TrackingError
-from vidodo.motion import look_at_pose
 from vidodo.profiles import FieldProfile, Marker, RobotProfile
+from vidodo.synth.motion import look_at_pose
 from vidodo.track import (
     TRACK_COLUMNS,
     Detection,

@@ -26,8 +26,8 @@ def add_arguments(parser):
 
 
 def _ensure_run(args, out: Path, progress) -> Path:
-    from vidodo.scenario import load_scenario
-    from vidodo.simulate import run_cache_key, simulate_run
+    from vidodo.synth.scenario import load_scenario
+    from vidodo.synth.simulate import run_cache_key, simulate_run
 
     overrides = {}
     if shutil.which("ffmpeg") is None:  # the OpenCV wheel alone writes MPEG-4 part 2

@@ -7,7 +7,7 @@ from pathlib import Path
 
 from ..errors import InputError
 from ..progress import progress_bar
-from ..scenario import load_scenario, scenario_names
+from ..synth.scenario import load_scenario, scenario_names
 
 NAME = "render"
 HELP = "render a synthetic run (video, log, profiles, truth) from a scenario"
@@ -55,7 +55,7 @@ def _overrides(args, base) -> dict:
 
 
 def run(args) -> int:
-    from ..simulate import simulate_run
+    from ..synth.simulate import simulate_run
 
     base = load_scenario(args.scenario)
     sc = load_scenario(args.scenario, **_overrides(args, base)) if (

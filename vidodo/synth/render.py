@@ -38,8 +38,8 @@ import cv2
 import numpy as np
 from scipy.special import ndtri
 
-from .errors import InputError
-from .profiles import CameraProfile, FieldProfile, RobotProfile
+from ..errors import InputError
+from ..profiles import CameraProfile, FieldProfile, RobotProfile
 from .render_floor import (
     FloorTexture,
     floor_texture,

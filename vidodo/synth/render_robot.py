@@ -21,8 +21,8 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-from .errors import InputError
-from .profiles import RobotProfile
+from ..errors import InputError
+from ..profiles import RobotProfile
 from .render_floor import plate_modules
 
 __all__ = ["RobotParts", "robot_parts", "part_corners", "shadow_corners", "face_brightness",

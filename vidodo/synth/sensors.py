@@ -38,11 +38,11 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from ..profiles import ANGLE_UNITS_RAD, LENGTH_UNITS_M, TIME_UNITS_S, RobotProfile
+from ..se2 import integrate_increments
+from ..wheels import rim_to_ticks, twist_to_rim
 from .motion import GRID_DT_S, Motion
-from .profiles import ANGLE_UNITS_RAD, LENGTH_UNITS_M, TIME_UNITS_S, RobotProfile
 from .scenario import Scenario
-from .se2 import integrate_increments
-from .wheels import rim_to_ticks, twist_to_rim
 
 __all__ = ["LogSynthesis", "synthesize_log", "wrap_counter", "unwrap_counter",
            "wrap_deg", "ideal_odometry", "log_times", "source_column_prefix"]
@@ -123,7 +123,7 @@ def log_times(sc: Scenario, duration_s: float, rng) -> tuple[np.ndarray, np.ndar
     t_end_log = (duration_s - 0.3 - lg.clock_offset_s) * k
     n = int(math.floor(t_end_log * lg.rate_hz)) + 1
     if n < 2:
-        from .errors import InputError
+        from ..errors import InputError
 
         raise InputError(f"{sc.where} [log]: clock_offset_s = {lg.clock_offset_s} leaves no "
                          "log inside the video; make it smaller than the video length")
@@ -273,7 +273,7 @@ def synthesize_log(sc: Scenario, m: Motion, seed: int = 0) -> LogSynthesis:
     ----------
     sc : Scenario
     m : Motion
-        From :func:`vidodo.motion.simulate_motion`.
+        From :func:`vidodo.synth.motion.simulate_motion`.
     seed : int
         Seeds the log jitter and the IMU errors.
 

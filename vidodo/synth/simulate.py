@@ -4,8 +4,8 @@ Beyond the files DEVELOPERS.md lists, ``truth/camera_poses.csv`` holds the camer
 at every frame (``t_s, rvec_0..2, tvec_0_m..tvec_2_m``, floor -> camera, OpenCV),
 which moves for a hand-held camera.
 
-The log, profiles and truth files are computed here from :mod:`vidodo.motion` and
-:mod:`vidodo.sensors`; the footage comes from :mod:`vidodo.render` and
+The log, profiles and truth files are computed here from :mod:`vidodo.synth.motion` and
+:mod:`vidodo.synth.sensors`; the footage comes from :mod:`vidodo.synth.render` and
 :mod:`vidodo.encode`. Everything is written through :func:`vidodo.outputs.staged_dir`,
 so a failure leaves the target folder as it was. The same scenario and seed give
 byte-identical log and truth files.
@@ -20,10 +20,10 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from . import __version__
+from .. import __version__
+from ..outputs import staged_dir
+from ..profiles import camera_to_dict, dump_toml, field_to_dict, robot_to_dict
 from .motion import EVENT_UNITS, Motion, camera_base_pose, camera_pose_fn, simulate_motion
-from .outputs import staged_dir
-from .profiles import camera_to_dict, dump_toml, field_to_dict, robot_to_dict
 from .scenario import Scenario, load_scenario
 from .sensors import format_log_csv, synthesize_log
 
@@ -65,7 +65,7 @@ def marker_visible(sc: Scenario, poses, t_s, camera_pose_at) -> np.ndarray:
     Projection through the true lens with ``cv2.projectPoints``; a corner behind the
     camera counts as outside.
     """
-    from .profiles import marker_corners_local
+    from ..profiles import marker_corners_local
 
     cam = sc.camera_profile()
     poses = np.asarray(poses, float)
@@ -233,7 +233,8 @@ def simulate_run(scenario, seed: int, out_dir, *, progress=None, video: bool = T
 
 
 def _write_video(sc, seed, m: Motion, t_frames, cam_pose, path, progress):
-    from . import encode, render
+    from .. import encode
+    from . import render
 
     frames = render.render_frames(
         sc.field, sc.robot, sc.camera_profile(), frame_times_s=t_frames, pose_at=m.pose_at,
@@ -270,9 +271,9 @@ def run_cache_key(sc: Scenario, seed: int, *, video: bool = True) -> str:
     h = hashlib.sha256()
     pkg = Path(__file__).resolve().parent
     for name in RUN_MODULES:
-        p = pkg / f"{name}.py"
-        if p.exists():
-            h.update(name.encode() + p.read_bytes())
+        for p in (pkg / f"{name}.py", pkg.parent / f"{name}.py"):
+            if p.exists():
+                h.update(name.encode() + p.read_bytes())
     for p in sorted((pkg / "scenarios").glob("*.toml")):
         h.update(p.name.encode() + p.read_bytes())
     key = json.dumps({"data": sc.data, "seed": seed, "video": bool(video),

@@ -3,7 +3,7 @@
 The floor is a texture in floor metres: square tiles with slight per-tile colour
 variation, a fine pebbled surface, darker seams, a plain surround outside the field,
 and fiducials lying flat where the field profile puts them. A camera sees it through
-per-pixel viewing rays (see :mod:`vidodo.render`); each pixel's floor point is looked
+per-pixel viewing rays (see :mod:`vidodo.synth.render`); each pixel's floor point is looked
 up in a mip-map pyramid at the level that matches the pixel's footprint on the floor
 (trilinear filtering), so distant tiles are area-averaged instead of aliased.
 """
@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-from .profiles import FieldProfile, marker_corners_local
+from ..profiles import FieldProfile, marker_corners_local
 
 __all__ = ["FloorTexture", "floor_texture", "plate_modules", "sample_floor", "texel_coords",
            "footprint_level", "SURROUND_BGR"]

@@ -17,7 +17,7 @@ Two motions come out: the *commanded* one (what the drive wheels turn with) and 
 * ``shove``: the body is pushed by ``(dx_m, dy_m, dheading)`` (body frame, a
   raised-cosine profile) while the commanded motion is still.
 * ``pod_lift`` and ``imu_jump`` leave the body alone; they are sensor faults
-  (:mod:`vidodo.sensors`) and only their windows are recorded here.
+  (:mod:`vidodo.synth.sensors`) and only their windows are recorded here.
 """
 
 from __future__ import annotations
@@ -28,10 +28,10 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-from .errors import InputError
+from ..errors import InputError
+from ..se2 import exp_increment, integrate_increments, rotate, wrap_angle
+from ..wheels import twist_to_rim
 from .scenario import Fault, Scenario
-from .se2 import exp_increment, integrate_increments, rotate, wrap_angle
-from .wheels import twist_to_rim
 
 __all__ = ["GRID_DT_S", "Motion", "FaultWindow", "simulate_motion", "trapezoid",
            "camera_base_pose", "camera_pose_fn", "EVENT_UNITS"]

@@ -3,7 +3,7 @@
 A scenario is a TOML file of our own with one level of tables (so it can be written
 back with :func:`vidodo.profiles.dump_toml`). Every key carries its unit; angles are
 given in degrees and held in radians inside. Built-in scenarios live in
-``vidodo/scenarios/`` and are loaded by name (``load_scenario("default")``).
+``vidodo/synth/scenarios/`` and are loaded by name (``load_scenario("default")``).
 
 Layout (defaults in brackets)::
 
@@ -104,8 +104,8 @@ from dataclasses import dataclass
 from importlib import resources
 from pathlib import Path
 
-from .errors import InputError
-from .profiles import (
+from ..errors import InputError
+from ..profiles import (
     CameraProfile,
     FieldProfile,
     FloorMarker,
@@ -338,7 +338,7 @@ class Scenario:
 
     def to_toml(self) -> str:
         """The scenario as TOML text (after overrides)."""
-        from .profiles import dump_toml
+        from ..profiles import dump_toml
 
         return dump_toml(self.data, header=f"vidodo scenario '{self.name}'")
 
@@ -351,7 +351,7 @@ def scenario_text(sc: Scenario) -> str:
 # ----------------------------------------------------------------------- loading
 def scenario_names() -> list[str]:
     """Names of the built-in scenarios."""
-    root = resources.files("vidodo") / "scenarios"
+    root = resources.files("vidodo.synth") / "scenarios"
     return sorted(p.name[:-5] for p in root.iterdir() if p.name.endswith(".toml"))
 
 
@@ -359,7 +359,7 @@ def _locate(path_or_name) -> Path:
     p = Path(path_or_name)
     if p.suffix == ".toml" or p.exists() or len(p.parts) > 1:
         return p
-    res = resources.files("vidodo") / "scenarios" / f"{p.name}.toml"
+    res = resources.files("vidodo.synth") / "scenarios" / f"{p.name}.toml"
     if not res.is_file():
         raise InputError(
             f"scenario {str(path_or_name)!r}: no such file or built-in scenario; "
@@ -658,7 +658,7 @@ def _imu(t: TomlTable) -> ImuSpec:
 
 
 def _log(t: TomlTable) -> LogSpec:
-    from .profiles import ANGLE_UNITS_RAD, LENGTH_UNITS_M, TIME_UNITS_S
+    from ..profiles import ANGLE_UNITS_RAD, LENGTH_UNITS_M, TIME_UNITS_S
 
     rate_err = t.get("clock_rate_error", float, 0.0)
     if abs(rate_err) > 0.01:
