@@ -34,7 +34,7 @@ def main() -> int:
 
     from vidodo.encode import write_video
     from vidodo.pipeline import grade_run_folder
-    from vidodo.showcase import load_grade_dir
+    from vidodo.report.build import load_grade_dir
     from vidodo.video import VideoReader
 
     batch_ten.CACHE = ROOT / ".cache" / "bench_replay"
@@ -62,7 +62,7 @@ def main() -> int:
         write_video(Path(tmp) / "plain.mp4", frames(), [x - times[0] for x in times])
         reencode_s = time.perf_counter() - t
 
-        from vidodo.replay import replay_from_grade
+        from vidodo.report.replay import replay_from_grade
 
         t = time.perf_counter()
         replay_from_grade(data, Path(tmp) / "replay.mp4")

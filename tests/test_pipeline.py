@@ -19,7 +19,7 @@ from vidodo.logs import read_log
 from vidodo.metrics import anchor_poses, column_prefix
 from vidodo.pipeline import Tolerances, grade_run, read_track_csv
 from vidodo.profiles import load_robot
-from vidodo.report import write_outputs
+from vidodo.report.grade_files import write_outputs
 
 SIGMA_M = 0.0015
 SIGMA_RAD = math.radians(0.3)

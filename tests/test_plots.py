@@ -16,10 +16,11 @@ import pytest
 from matplotlib.patches import Rectangle
 from numpy.testing import assert_allclose
 
-from vidodo import __version__, plots
+from vidodo import __version__
 from vidodo.profiles import FieldProfile
+from vidodo.report import plots
+from vidodo.report.build import load_grade_dir, render_all
 from vidodo.se2 import integrate_twist, to_body_frame
-from vidodo.showcase import load_grade_dir, render_all
 
 FIELD = FieldProfile(tiles_x=6, tiles_y=4, tile_size_m=0.6)
 

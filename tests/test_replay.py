@@ -18,7 +18,7 @@ from numpy.testing import assert_allclose
 
 from vidodo.profiles import Marker
 from vidodo.register import FrameRegistration
-from vidodo.replay import (
+from vidodo.report.replay import (
     TRUTH_BGR,
     ReplayTracks,
     annotate_frame,
@@ -229,7 +229,7 @@ def test_missing_footage_still_writes_the_report(tmp_path):
     from test_plots import make_grade_dir  # sibling test module
 
     from vidodo.errors import InputError
-    from vidodo.showcase import render_all
+    from vidodo.report.build import render_all
 
     folder = make_grade_dir(tmp_path / "grade")
     with pytest.raises(InputError, match="inputs.video"):

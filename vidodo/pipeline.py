@@ -483,17 +483,17 @@ def grade_run_folder(run_dir, out_dir, *, progress=None, replay=True, units="mm"
     """Grade a run folder (``video.mp4``, ``log.csv``, ``robot.toml``, ``field.toml``,
     optional ``camera.toml``; see DEVELOPERS.md) and write every output into ``out_dir``.
 
-    Writes the grade outputs (:func:`vidodo.report.write_outputs`), optionally a
+    Writes the grade outputs (:func:`vidodo.report.grade_files.write_outputs`), optionally a
     corrected robot profile from :func:`vidodo.fit.fit_profile` into ``out_dir/tune``,
-    then the plots and the HTML report (:func:`vidodo.showcase.render_all`). The run
+    then the plots and the HTML report (:func:`vidodo.report.build.render_all`). The run
     folder's ``truth/`` is never read.
 
     Returns
     -------
     GradeResult
     """
-    from .report import write_outputs
-    from .showcase import render_all
+    from .report.build import render_all
+    from .report.grade_files import write_outputs
 
     run_dir, out_dir = Path(run_dir), Path(out_dir)
     missing = [f for f in ("video.mp4", "log.csv", "robot.toml", "field.toml")

@@ -124,7 +124,7 @@ def grade_one(run_dir, out_dir, options: dict) -> dict:
             raise InputError(f"{run_dir}: missing {', '.join(missing)}; a run folder needs "
                              f"{', '.join(RUN_FILES)}")
         from ..pipeline import Tolerances, grade_run
-        from ..report import write_outputs
+        from ..report.grade_files import write_outputs
 
         cam = run_dir / "camera.toml"
         tol = Tolerances(position_m=options.get("tol_pos_m"),
@@ -136,7 +136,7 @@ def grade_one(run_dir, out_dir, options: dict) -> dict:
         summary = result.summary
         warnings = []
         if options.get("report", True) or options.get("replay", False):
-            from ..showcase import render_all
+            from ..report.build import render_all
 
             try:
                 render_all(out_dir, out_dir, replay=bool(options.get("replay")),
@@ -236,7 +236,7 @@ def grade_folders(run_dirs, root, out_root, options: dict, *, jobs: int = 1,
 
 
 def _prefix(name: str) -> str:
-    from ..plots import column_prefix
+    from ..report.plots import column_prefix
 
     return column_prefix(name)
 
@@ -274,7 +274,7 @@ def trend_figure(table: pd.DataFrame, *, unit: str = "mm"):
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    from ..plots import source_colors
+    from ..report.plots import source_colors
     from ..units import length_factor
 
     k = length_factor(unit)

@@ -90,7 +90,7 @@ def run(args) -> int:
     """Grade, write, print the verdict; exit 0 pass, 4 outside tolerance."""
     from ..pipeline import Tolerances, grade_run
     from ..progress import progress_bar
-    from ..report import write_outputs
+    from ..report.grade_files import write_outputs
 
     if args.tol_pos_m is not None and args.tol_pos_m <= 0:
         raise InputError("--tol-pos-m must be positive")
@@ -107,7 +107,7 @@ def run(args) -> int:
                            track=args.track)
     write_outputs(result, args.out)
     if not args.no_report:
-        from ..showcase import render_all
+        from ..report.build import render_all
 
         replay = not args.no_replay
         if replay and not args.video.is_file():

@@ -32,7 +32,7 @@ def run(args) -> int:
     """Rebuild the pictures; print what was written."""
     from ..outputs import staged_dir
     from ..progress import progress_bar
-    from ..showcase import load_grade_dir, render_all
+    from ..report.build import load_grade_dir, render_all
 
     load_grade_dir(args.grade_dir)  # fail early, before anything is written
     out = args.out or args.grade_dir

@@ -19,8 +19,8 @@ import math
 from html import escape
 from pathlib import Path
 
-from . import __version__
-from .units import format_angle, format_length, format_percent, length_factor
+from .. import __version__
+from ..units import format_angle, format_length, format_percent, length_factor
 
 __all__ = ["METRIC_COLUMNS", "build_html", "write_html", "png_data_uri"]
 

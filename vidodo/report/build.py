@@ -13,8 +13,8 @@ from pathlib import Path
 
 import pandas as pd
 
-from .errors import InputError, VidodoError
-from .html import write_html
+from ..errors import InputError, VidodoError
+from .page import write_html
 from .plots import source_prefixes, write_plots
 
 __all__ = ["GradeData", "load_grade_dir", "field_from_summary", "render_all",
@@ -67,7 +67,7 @@ def field_from_summary(summary: dict, folder: Path | None = None):
     tile_size_m``), ``inputs.field`` as a path to field.toml (relative to the grade
     folder or absolute), ``field.toml`` in the grade folder.
     """
-    from .profiles import FieldProfile, load_field
+    from ..profiles import FieldProfile, load_field
 
     f = summary.get("field")
     if isinstance(f, dict) and {"tiles_x", "tiles_y", "tile_size_m"} <= set(f):
@@ -132,9 +132,9 @@ def _grade_folder_of(grade_result_or_dir, out_dir: Path) -> Path:
         return Path(grade_result_or_dir)
     if (out_dir / "summary.json").is_file() and (out_dir / "drift.csv").is_file():
         return out_dir
-    from . import report  # written by the grading stage
+    from . import grade_files  # written by the grading stage
 
-    report.write_outputs(grade_result_or_dir, out_dir)
+    grade_files.write_outputs(grade_result_or_dir, out_dir)
     return out_dir
 
 

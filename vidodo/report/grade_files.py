@@ -74,7 +74,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-from .outputs import staged_dir
+from ..outputs import staged_dir
 
 __all__ = ["write_outputs", "OUTPUT_FILES"]
 

@@ -21,7 +21,7 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from .units import length_factor
+from ..units import length_factor
 
 __all__ = [
     "column_prefix",

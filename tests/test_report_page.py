@@ -16,8 +16,8 @@ from pathlib import Path
 import pytest
 from test_plots import make_grade_dir, synthetic_grade  # sibling test module
 
-from vidodo.html import METRIC_COLUMNS, build_html
-from vidodo.showcase import render_all
+from vidodo.report.build import render_all
+from vidodo.report.page import METRIC_COLUMNS, build_html
 
 CHROMIUM = Path("/usr/bin/chromium")
 CHROMEDRIVER = Path("/usr/bin/chromedriver")

@@ -26,9 +26,9 @@ import cv2
 import numpy as np
 import pandas as pd
 
-from .errors import InputError
+from ..errors import InputError
+from ..units import format_length
 from .plots import EVENT_STYLE, source_colors, source_prefixes
-from .units import format_length
 
 __all__ = [
     "TRUTH_BGR",
@@ -355,7 +355,7 @@ def _robot_mask(shape, registration, pose, robot, margin_m=0.05):
 def _frame_times(path: Path) -> np.ndarray:
     """Presentation time of every frame the frame reader hands out [s] (a decoding pass,
     so that a truncated file gives the same count as the annotating pass)."""
-    from .video import VideoReader, VideoTruncatedError
+    from ..video import VideoReader, VideoTruncatedError
 
     t = []
     with VideoReader(path, threaded=False, check_identical=False) as reader:
@@ -418,7 +418,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
     Path
         ``out_path``.
     """
-    from .video import VideoReader, VideoTruncatedError
+    from ..video import VideoReader, VideoTruncatedError
 
     video_path, out_path = Path(video_path), Path(out_path)
     sources = source_prefixes(drift) if sources is None else sources
@@ -430,7 +430,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
         if field is None:
             raise InputError("replay: needs the field profile (or a registration) to map "
                              "floor positions into the frames")
-        from .register import FloorRegistrar
+        from ..register import FloorRegistrar
 
         registrar = FloorRegistrar(field, camera)
         register = registrar.register
@@ -472,7 +472,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
                 progress(index + 1, times.size)
             yield img[: img.shape[0] // 2 * 2, : img.shape[1] // 2 * 2]
 
-    from .encode import write_video
+    from ..encode import write_video
 
     out_path.parent.mkdir(parents=True, exist_ok=True)
     write_video(out_path, frames(), times, codec=codec if shutil.which("ffmpeg") else "mpeg4")
@@ -481,7 +481,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
 
 def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,
                       registration=None) -> Path:
-    """Write the replay for a :class:`vidodo.showcase.GradeData`.
+    """Write the replay for a :class:`vidodo.report.build.GradeData`.
 
     The footage and profiles are the ones named in ``summary['inputs']`` (``video``,
     ``robot``, ``field``, optional ``camera``), relative to the grade folder or absolute.
@@ -491,7 +491,7 @@ def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,
     InputError
         When the footage or a profile cannot be found.
     """
-    from .profiles import load_camera, load_field, load_robot
+    from ..profiles import load_camera, load_field, load_robot
 
     inputs = data.summary.get("inputs") or {}
 
