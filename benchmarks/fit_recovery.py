@@ -34,7 +34,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests"))
 
-from vidodo.fit import (  # noqa: E402
+from vidodo.profile_fit import (  # noqa: E402
     anchored_drift,
     drift_comparison,
     fit_profile,
@@ -45,7 +45,7 @@ from vidodo.fit import (  # noqa: E402
 
 # ----------------------------------------------------------------------- part 1
 def part_constructed(n_seeds: int) -> None:
-    from test_fit import _wrong_pods, constructed_run, pod_robot
+    from test_profile_fit import _wrong_pods, constructed_run, pod_robot
 
     true = pod_robot()
     wrong = _wrong_pods(true)
@@ -85,7 +85,7 @@ def part_constructed(n_seeds: int) -> None:
 # ----------------------------------------------------------------------- part 2
 def part_rendered(seed: int, quick: bool) -> None:
     from conftest import _render
-    from test_fit import SPIN, grade_for_fit, recovery_rows, wrong_rendered_profile
+    from test_profile_fit import SPIN, grade_for_fit, recovery_rows, wrong_rendered_profile
 
     from vidodo.logs import read_log
     from vidodo.profiles import load_robot

@@ -484,7 +484,7 @@ def grade_run_folder(run_dir, out_dir, *, progress=None, replay=True, units="mm"
     optional ``camera.toml``; see DEVELOPERS.md) and write every output into ``out_dir``.
 
     Writes the grade outputs (:func:`vidodo.report.grade_files.write_outputs`), optionally a
-    corrected robot profile from :func:`vidodo.fit.fit_profile` into ``out_dir/tune``,
+    corrected robot profile from :func:`vidodo.profile_fit.fit_profile` into ``out_dir/tune``,
     then the plots and the HTML report (:func:`vidodo.report.build.render_all`). The run
     folder's ``truth/`` is never read.
 
@@ -513,9 +513,9 @@ def grade_run_folder(run_dir, out_dir, *, progress=None, replay=True, units="mm"
 
 def _tune(result: GradeResult, run_dir: Path, out_dir: Path) -> None:
     """Fit the robot profile to this run and write robot.toml and fit.csv."""
-    from .fit import FitRun, fit_profile, write_profile
     from .logs import read_log
     from .outputs import staged_dir
+    from .profile_fit import FitRun, fit_profile, write_profile
 
     robot = load_robot(run_dir / "robot.toml")
     log = read_log(run_dir / "log.csv", robot)

@@ -10,7 +10,9 @@ from pathlib import Path
 import pandas as pd
 
 from ..errors import InputError
-from ..fit import (
+from ..logs import read_log
+from ..outputs import staged_dir
+from ..profile_fit import (
     FitRun,
     anchored_drift,
     drift_comparison,
@@ -18,8 +20,6 @@ from ..fit import (
     with_clock,
     write_profile,
 )
-from ..logs import read_log
-from ..outputs import staged_dir
 from ..profiles import load_robot
 
 NAME = "tune"

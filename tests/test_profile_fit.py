@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from vidodo.fit import FitRun, fit_profile, truth_increments, write_profile
+from vidodo.profile_fit import FitRun, fit_profile, truth_increments, write_profile
 from vidodo.profiles import Imu, RobotProfile, Source, Wheel, load_robot
 from vidodo.se2 import exp_increment, integrate_twist, log_increment
 from vidodo.wheels import wheel_rows
@@ -331,8 +331,8 @@ def test_corrected_profile_cuts_anchored_drift():
     """End to end on a constructed run: raw log -> log reader with the wrong profile ->
     fit -> odometry with the corrected profile; anchored drift of every source falls
     at least 5x (issue 7 acceptance)."""
-    from vidodo.fit import anchored_drift, drift_comparison
     from vidodo.logs import log_from_frame
+    from vidodo.profile_fit import anchored_drift, drift_comparison
 
     true = pod_robot()
     wrong = _wrong_pods(true)
@@ -503,13 +503,13 @@ def test_rendered_spin_and_square_recovers_the_profile(rendered_run):
     never slides sideways: it must be reported not identifiable and left alone."""
     import tomllib
 
-    from vidodo.fit import (
+    from vidodo.logs import read_log
+    from vidodo.profile_fit import (
         anchored_drift,
         drift_comparison,
         fit_profile_with_events,
         with_clock,
     )
-    from vidodo.logs import read_log
 
     folder = rendered_run("default", 0, fault=None, segment=SPIN, video__width_px=1280,
                           video__height_px=720)
