@@ -34,12 +34,11 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests"))
 
-from vidodo.profile_fit import (  # noqa: E402
+from vidodo.profile_fit import fit_profile, with_clock  # noqa: E402
+from vidodo.tuning import (  # noqa: E402
     anchored_drift,
     drift_comparison,
-    fit_profile,
     fit_profile_with_events,
-    with_clock,
 )
 
 

@@ -32,8 +32,8 @@ def main() -> int:
 
     import batch_ten  # the same cached rendering helper
 
+    from vidodo.batch import grade_run_folder
     from vidodo.encode import write_video
-    from vidodo.pipeline import grade_run_folder
     from vidodo.report.build import load_grade_dir
     from vidodo.video import VideoReader
 

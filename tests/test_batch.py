@@ -14,9 +14,10 @@ import shutil
 import pandas as pd
 import pytest
 
+from vidodo import batch
 from vidodo.cli_main import main
-from vidodo.commands import batch
 from vidodo.errors import EXIT_MEASURE, EXIT_OK, EXIT_PARTIAL, InputError
+from vidodo.report.plots import trend_figure
 
 N_RUNS = int(os.environ.get("VIDODO_BATCH_RUNS", "4"))
 
@@ -105,7 +106,7 @@ def test_trend_plot_data(tmp_path):
     recs = batch.grade_folders(runs, tmp_path, tmp_path / "out", {}, jobs=1,
                                grade_fn=fake_grade)
     table = batch.batch_table(recs)
-    fig = batch.trend_figure(table, unit="in")
+    fig = trend_figure(table, unit="in")
     lines = {ln.get_label(): ln.get_xydata() for ln in fig.axes[0].get_lines()}
     assert "tracking+imu" in lines  # the source's own name, not its column prefix
     y = lines["drive"][:, 1]

@@ -62,3 +62,80 @@ def test_boundary_check_sees_a_function_level_import(tmp_path):
     """The scanner finds an import hidden inside a function (how cycles used to hide)."""
     probe = PKG / "commands" / "render.py"
     assert "vidodo.synth.scenario" in imported_modules(probe)
+
+
+def import_graph() -> dict[str, set[str]]:
+    """Module -> the vidodo modules it imports (module level and inside functions).
+
+    A package's ``__init__`` counts as imported with any of its submodules only when
+    named itself; importing ``vidodo.x`` does not make every module depend on
+    ``vidodo/__init__.py``."""
+    names = {_module_name(p) for p in PKG.rglob("*.py")}
+    graph = {}
+    for path in sorted(PKG.rglob("*.py")):
+        name = _module_name(path)
+        graph[name] = {m for m in imported_modules(path) if m in names and m != name}
+    return graph
+
+
+def import_cycles(graph: dict[str, set[str]]) -> list[list[str]]:
+    """Strongly connected components with more than one module (Tarjan's algorithm,
+    iterative)."""
+    index, low, on_stack, stack, out = {}, {}, set(), [], []
+    counter = 0
+    for root in sorted(graph):
+        if root in index:
+            continue
+        work = [(root, iter(sorted(graph[root])))]
+        index[root] = low[root] = counter
+        counter += 1
+        stack.append(root)
+        on_stack.add(root)
+        while work:
+            node, children = work[-1]
+            child = next(children, None)
+            if child is not None:
+                if child not in index:
+                    index[child] = low[child] = counter
+                    counter += 1
+                    stack.append(child)
+                    on_stack.add(child)
+                    work.append((child, iter(sorted(graph.get(child, ())))))
+                elif child in on_stack:
+                    low[node] = min(low[node], index[child])
+                continue
+            work.pop()
+            if work:
+                low[work[-1][0]] = min(low[work[-1][0]], low[node])
+            if low[node] == index[node]:
+                comp = []
+                while True:
+                    m = stack.pop()
+                    on_stack.discard(m)
+                    comp.append(m)
+                    if m == node:
+                        break
+                if len(comp) > 1:
+                    out.append(sorted(comp))
+    return out
+
+
+# TEMPORARY: the floor-registration cycle (grid <-> register) is being broken in
+# another change. Cycles running through these two modules are exempt until that
+# lands; REMOVE THIS EXEMPTION (and the filter below) when it does.
+_CYCLE_EXEMPT = {"vidodo.grid", "vidodo.register"}
+
+
+def test_import_graph_is_acyclic():
+    """No module reaches itself through imports, counting imports inside functions."""
+    graph = import_graph()
+    pruned = {m: {d for d in deps if d not in _CYCLE_EXEMPT}
+              for m, deps in graph.items() if m not in _CYCLE_EXEMPT}
+    cycles = import_cycles(pruned)
+    assert not cycles, "import cycles: " + "; ".join(" <-> ".join(c) for c in cycles)
+
+
+def test_cycle_finder_sees_a_cycle_through_a_function_level_import():
+    """The cycle finder reports a loop of three and leaves a chain alone (worked by hand)."""
+    assert import_cycles({"a": {"b"}, "b": {"c"}, "c": {"a"}, "d": {"a"}}) == [["a", "b", "c"]]
+    assert import_cycles({"a": {"b"}, "b": {"c"}, "c": set()}) == []

@@ -332,7 +332,7 @@ def test_corrected_profile_cuts_anchored_drift():
     fit -> odometry with the corrected profile; anchored drift of every source falls
     at least 5x (issue 7 acceptance)."""
     from vidodo.logs import log_from_frame
-    from vidodo.profile_fit import anchored_drift, drift_comparison
+    from vidodo.tuning import anchored_drift, drift_comparison
 
     true = pod_robot()
     wrong = _wrong_pods(true)
@@ -504,12 +504,8 @@ def test_rendered_spin_and_square_recovers_the_profile(rendered_run):
     import tomllib
 
     from vidodo.logs import read_log
-    from vidodo.profile_fit import (
-        anchored_drift,
-        drift_comparison,
-        fit_profile_with_events,
-        with_clock,
-    )
+    from vidodo.profile_fit import with_clock
+    from vidodo.tuning import anchored_drift, drift_comparison, fit_profile_with_events
 
     folder = rendered_run("default", 0, fault=None, segment=SPIN, video__width_px=1280,
                           video__height_px=720)

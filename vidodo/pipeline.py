@@ -45,8 +45,8 @@ from .metrics import (
 from .profiles import FieldProfile, RobotProfile, load_camera, load_field, load_robot
 from .sync import ClockSync, estimate_clock, manual_clock
 
-__all__ = ["Tolerances", "GradeResult", "grade_run", "grade_tracks", "grade_run_folder",
-           "read_track_csv", "TRACK_COLUMNS"]
+__all__ = ["Tolerances", "GradeResult", "grade_run", "grade_tracks", "read_track_csv",
+           "TRACK_COLUMNS"]
 
 TRACK_COLUMNS = ["t_s", "x_m", "y_m", "heading_rad", "sigma_xy_m", "sigma_heading_rad",
                  "vx_mps", "vy_mps", "speed_mps", "omega_radps", "ax_mps2", "ay_mps2",
@@ -476,54 +476,3 @@ def grade_run(video, log, robot, field_profile, camera=None, *, clock_offset_s=N
 
 def _abs(path):
     return None if path is None else str(Path(path).resolve())
-
-
-def grade_run_folder(run_dir, out_dir, *, progress=None, replay=True, units="mm", tune=False,
-                     tolerances=None) -> GradeResult:
-    """Grade a run folder (``video.mp4``, ``log.csv``, ``robot.toml``, ``field.toml``,
-    optional ``camera.toml``; see DEVELOPERS.md) and write every output into ``out_dir``.
-
-    Writes the grade outputs (:func:`vidodo.report.grade_files.write_outputs`), optionally a
-    corrected robot profile from :func:`vidodo.profile_fit.fit_profile` into ``out_dir/tune``,
-    then the plots and the HTML report (:func:`vidodo.report.build.render_all`). The run
-    folder's ``truth/`` is never read.
-
-    Returns
-    -------
-    GradeResult
-    """
-    from .report.build import render_all
-    from .report.grade_files import write_outputs
-
-    run_dir, out_dir = Path(run_dir), Path(out_dir)
-    missing = [f for f in ("video.mp4", "log.csv", "robot.toml", "field.toml")
-               if not (run_dir / f).is_file()]
-    if missing:
-        raise InputError(f"{run_dir}: missing {', '.join(missing)}; not a run folder")
-    cam = run_dir / "camera.toml"
-    result = grade_run(run_dir / "video.mp4", run_dir / "log.csv", run_dir / "robot.toml",
-                       run_dir / "field.toml", cam if cam.is_file() else None,
-                       tolerances=tolerances, progress=progress)
-    write_outputs(result, out_dir)
-    if tune:
-        _tune(result, run_dir, out_dir / "tune")
-    render_all(out_dir, out_dir, replay=replay, units=units, progress=progress)
-    return result
-
-
-def _tune(result: GradeResult, run_dir: Path, out_dir: Path) -> None:
-    """Fit the robot profile to this run and write robot.toml and fit.csv."""
-    from .logs import read_log
-    from .outputs import staged_dir
-    from .profile_fit import FitRun, fit_profile, write_profile
-
-    robot = load_robot(run_dir / "robot.toml")
-    log = read_log(run_dir / "log.csv", robot)
-    c = result.clock
-    run = FitRun(name=run_dir.name, truth=result.truth, log=log.frame, offset_s=c.offset_s,
-                 exclude_windows=tuple((e.t_start_s, e.t_end_s) for e in result.event_list),
-                 rate=c.rate, ref_log_s=c.ref_log_s)
-    fit = fit_profile([run], robot)
-    with staged_dir(out_dir) as stage:
-        write_profile(fit, stage / "robot.toml")
-        fit.table.to_csv(stage / "fit.csv", index=False, float_format="%.9g")

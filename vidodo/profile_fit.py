@@ -36,10 +36,9 @@ precision (:data:`TOLERANCES`) is reported as not identifiable, with a motion th
 would fix it, and held at the profile value while the rest is refitted (one at a time,
 worst first, so a pair that only the two together cannot fix keeps one of them).
 
-Events found by grading with a wrong profile are not trusted (an inverted encoder
-looks like a tracking wheel lifted all run): :func:`fit_profile_with_events` fits once
-on the robust loss alone, looks for events with the corrected profile and the fitted
-clock, and fits again without those windows.
+This module only estimates; grading a run before and after a correction and the
+two-pass fit that leaves out events found with the corrected profile are wiring, in
+:mod:`vidodo.tuning`.
 """
 
 from __future__ import annotations
@@ -65,11 +64,7 @@ __all__ = [
     "fit_profile",
     "truth_increments",
     "write_profile",
-    "anchored_drift",
-    "event_windows",
-    "fit_profile_with_events",
     "with_clock",
-    "drift_comparison",
 ]
 
 TOLERANCES = {
@@ -864,136 +859,10 @@ def write_profile(fit: ProfileFit, path) -> None:
         tmp.write_text(text, encoding="utf-8")
 
 
-# ------------------------------------------------------------------ before / after
-def _grade_with(run: FitRun, log, robot: RobotProfile):
-    """Grade ``log`` read with ``robot`` against the run's truth on the run's clock."""
-    from .odometry import odometry_result
-    from .pipeline import grade_tracks
-
-    tracks = {}
-    for name, df in odometry_result(log, robot).tracks.items():
-        d = df.copy()
-        t = d["t_s"].to_numpy(float)
-        # fold the rate term into the log times so a plain offset maps them exactly
-        d["t_s"] = t + run.rate * (t - run.ref_log_s)
-        tracks[name] = d
-    return grade_tracks(run.truth, log, robot, clock_offset_s=run.offset_s, odometry=tracks)
-
-
-def anchored_drift(run: FitRun, log, robot: RobotProfile) -> dict:
-    """Anchored drift figures per odometry source, as ``vidodo grade`` computes them.
-
-    The log is graded against the run's truth track with
-    :func:`vidodo.pipeline.grade_tracks` on the run's clock (offset and rate held, so
-    the profile is the only thing that changes between two calls).
-
-    Parameters
-    ----------
-    run : FitRun
-        Truth track with ``sigma_xy_m`` and ``sigma_heading_rad`` columns.
-    log : LogData
-        The log read with ``robot`` (:func:`vidodo.logs.read_log`).
-    robot : RobotProfile
-
-    Returns
-    -------
-    dict of str -> SourceMetrics
-    """
-    return dict(_grade_with(run, log, robot).metrics)
-
-
-def event_windows(run: FitRun, log, robot: RobotProfile) -> tuple:
-    """Video-clock windows ``(t_start_s, t_end_s)`` of the events the grading pipeline
-    finds when the log is read with ``robot``."""
-    ev = _grade_with(run, log, robot).events
-    if ev is None or not len(ev):
-        return ()
-    return tuple(zip(ev["t_start_s"].astype(float), ev["t_end_s"].astype(float),
-                     strict=True))
-
-
+# ------------------------------------------------------------------------ clock
 def with_clock(run: FitRun, clock) -> FitRun:
     """``run`` with the clock ``(offset_s, rate, ref_log_s)`` (None: unchanged)."""
     if clock is None:
         return run
     off, rate, ref = clock
     return dataclasses.replace(run, offset_s=off, rate=rate, ref_log_s=ref)
-
-
-def fit_profile_with_events(runs, robot: RobotProfile, read_logs, **kwargs) -> ProfileFit:
-    """Fit twice: once without event windows, then leaving out the events found with
-    the first corrected profile.
-
-    Events found with a wrong profile are unreliable (an inverted encoder looks like a
-    tracking wheel lifted for the whole run), so the first pass relies on the robust
-    loss alone; the grading pipeline then looks for events with the corrected profile,
-    and the second pass leaves those windows out (plus any the runs already carry).
-
-    Parameters
-    ----------
-    runs : sequence of FitRun
-        Logs read with ``robot``.
-    robot : RobotProfile
-    read_logs : callable
-        ``read_logs(profile) -> list of LogData``, the runs' logs read with ``profile``
-        (same order as ``runs``).
-    **kwargs
-        Passed to :func:`fit_profile`.
-
-    Returns
-    -------
-    ProfileFit
-        The second pass, with a warning naming the windows left out. Its ``clocks``
-        include the first pass's clock corrections (the second pass starts from them).
-    """
-    runs = list(runs)
-    first = fit_profile(runs, robot, **kwargs)
-    logs = read_logs(first.corrected_robot)
-    # the first pass may have corrected the clock too: look for events on that clock
-    runs = [with_clock(r, first.clocks.get(r.name)) for r in runs]
-    runs2, notes = [], []
-    for run, log in zip(runs, logs, strict=True):
-        ev = event_windows(run, log, first.corrected_robot)
-        if ev:
-            notes.append(f"run {run.name}: " + ", ".join(f"{a:.2f}-{b:.2f} s" for a, b in ev))
-        runs2.append(dataclasses.replace(run, exclude_windows=tuple(run.exclude_windows) + ev))
-    second = fit_profile(runs2, robot, **kwargs)
-    if notes:
-        second = dataclasses.replace(second, warnings=second.warnings + (
-            "event windows left out (found with the first corrected profile): "
-            + "; ".join(notes),))
-    return second
-
-
-def drift_comparison(before: dict, after: dict, run_name: str = "") -> pd.DataFrame:
-    """Before/after table of anchored drift per source.
-
-    Parameters
-    ----------
-    before, after : dict of str -> SourceMetrics
-        From :func:`anchored_drift` with the profile handed in and the corrected one.
-    run_name : str
-
-    Returns
-    -------
-    DataFrame
-        Columns ``run, source``, then ``final_err_m``, ``max_err_m``, ``ate_rmse_m``
-        before and after (suffixes ``_before``, ``_after``) and their ratios
-        ``final_err_ratio``, ``max_err_ratio``, ``ate_rmse_ratio`` (before / after).
-    """
-    rows = []
-    for name in before:
-        if name not in after:
-            continue
-        b, a = before[name], after[name]
-        row = {"run": run_name, "source": name}
-        for key in ("final_err_m", "max_err_m", "ate_rmse_m"):
-            row[f"{key}_before"] = getattr(b, key)
-            row[f"{key}_after"] = getattr(a, key)
-        for key in ("final_err_m", "max_err_m", "ate_rmse_m"):
-            vb, va = row[f"{key}_before"], row[f"{key}_after"]
-            row[f"{key.removesuffix('_m')}_ratio"] = (
-                float("nan") if vb is None or va is None else
-                (vb / va if va > 0 else float("inf")))
-        rows.append(row)
-    return pd.DataFrame(rows)

@@ -65,8 +65,8 @@ def _print_fit(folder: Path, most: int = 5) -> None:
 
 
 def run(args) -> int:
+    from vidodo.batch import grade_run_folder
     from vidodo.commands.grade import verdict_lines
-    from vidodo.pipeline import grade_run_folder
     from vidodo.progress import progress_factory
 
     out = Path(args.out)

@@ -11,16 +11,9 @@ import pandas as pd
 
 from ..errors import InputError
 from ..logs import read_log
-from ..outputs import staged_dir
-from ..profile_fit import (
-    FitRun,
-    anchored_drift,
-    drift_comparison,
-    fit_profile_with_events,
-    with_clock,
-    write_profile,
-)
+from ..profile_fit import FitRun
 from ..profiles import load_robot
+from ..tuning import tune_profile, write_tuning
 
 NAME = "tune"
 HELP = "fit wheel radii, offsets and IMU scale to the video truth; write a corrected profile"
@@ -193,22 +186,10 @@ def run(args) -> int:
     robot = load_robot(robot_path)
     logs = [read_log(s[1], robot) for s in specs]
     runs = [FitRun(log=lg.frame, **s[0]) for s, lg in zip(specs, logs, strict=True)]
-    fit = fit_profile_with_events(
-        runs, robot, lambda prof: [read_log(s[1], prof) for s in specs],
-        window_s=args.window, fit_clock=not args.no_clock)
-    tables = []
-    for s, r, lg in zip(specs, runs, logs, strict=True):
-        # both on the fitted clock, so the profile is the only difference
-        r = with_clock(r, fit.clocks.get(r.name))
-        before = anchored_drift(r, lg, robot)
-        fixed_log = read_log(s[1], fit.corrected_robot)
-        after = anchored_drift(r, fixed_log, fit.corrected_robot)
-        tables.append(drift_comparison(before, after, r.name))
-    drift = pd.concat(tables, ignore_index=True) if tables else pd.DataFrame()
-    with staged_dir(args.out) as stage:
-        write_profile(fit, stage / "robot.toml")
-        fit.table.to_csv(stage / "fit.csv", index=False, float_format="%.9g")
-        drift.to_csv(stage / "drift.csv", index=False, float_format="%.6g")
+    tuned = tune_profile(runs, robot, lambda prof: [read_log(s[1], prof) for s in specs],
+                         window_s=args.window, fit_clock=not args.no_clock)
+    fit, drift = tuned.fit, tuned.drift
+    write_tuning(tuned, args.out)
     for w in fit.warnings:
         print(f"vidodo tune: warning: {w}", file=sys.stderr)
     if not args.quiet:

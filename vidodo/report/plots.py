@@ -24,6 +24,7 @@ from matplotlib.patches import Patch
 from ..units import length_factor
 
 __all__ = [
+    "trend_figure",
     "column_prefix",
     "source_prefixes",
     "speed_from_positions",
@@ -392,3 +393,52 @@ def write_plots(drift: pd.DataFrame, events: pd.DataFrame | None, out_dir, *, fi
                               title=prefix + "speed: truth against wheels"),
     }
     return {name: save_figure(fig, out_dir / f"{name}.png") for name, fig in figs.items()}
+
+
+def trend_figure(table: pd.DataFrame, *, unit: str = "mm"):
+    """Drift across runs: final error and ATE per source, failed runs marked.
+
+    Parameters
+    ----------
+    table : DataFrame
+        :func:`vidodo.batch.batch_table` (``<src>_final_err_m``, ``<src>_ate_rmse_m``
+        [m], ``status``, ``run``).
+    unit : {"mm", "in", "m"}
+        Length unit of the axes.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    k = length_factor(unit)
+    srcs = [c[: -len("_final_err_m")] for c in table.columns if c.endswith("_final_err_m")]
+    names = table.attrs.get("source_names", {})
+    colors = source_colors(srcs)
+    n = len(table)
+    fig = Figure(figsize=(max(7.0, 1.0 + 0.55 * n), 6.4), dpi=110)
+    FigureCanvasAgg(fig)
+    axes = fig.subplots(2, 1, sharex=True)
+    x = np.arange(n)
+    failed = (table["status"] != "graded").to_numpy() if n else np.zeros(0, bool)
+    for ax, fig_key, label in ((axes[0], "final_err_m", "final error"),
+                               (axes[1], "ate_rmse_m", "ATE (best fit)")):
+        for s in srcs:
+            col = f"{s}_{fig_key}"
+            if col in table:
+                y = pd.to_numeric(table[col], errors="coerce").to_numpy(float) * k
+                ax.plot(x, y, "o-", color=colors[s], lw=1.4, ms=5, label=names.get(s, s))
+        for xi in x[failed]:
+            ax.axvspan(xi - 0.4, xi + 0.4, color="#d32f2f", alpha=0.12, lw=0)
+        ax.set_ylabel(f"{label} [{unit}]")
+        ax.set_ylim(bottom=0)
+        ax.grid(True, lw=0.3, alpha=0.6)
+    if failed.any():
+        axes[0].plot([], [], "s", color="#d32f2f", alpha=0.3, ms=10, label="not graded")
+    axes[0].legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
+    axes[1].set_xticks(x)
+    axes[1].set_xticklabels(list(table["run"]) if n else [], rotation=35, ha="right",
+                            fontsize=8)
+    axes[1].set_xlabel("run (folder-name order)")
+    fig.suptitle(f"Drift across {n} runs ({int((~failed).sum())} graded)")
+    fig.tight_layout()
+    return fig
