@@ -13,10 +13,9 @@ from vidodo.events import (
     detect_events,
     events_frame,
     hysteresis,
-    se2_log,
 )
 from vidodo.profiles import Imu, RobotProfile, Wheel
-from vidodo.se2 import exp_increment, integrate_twist
+from vidodo.se2 import integrate_twist
 from vidodo.wheels import twist_to_rim
 
 SIGMA_M = 0.0015
@@ -92,14 +91,6 @@ def _run(faults=(), seed=0, duration_s=10.0, sigma_m=SIGMA_M):
     imu = pd.DataFrame({"t_s": tl, "heading_rad": np.interp(tl, t, pose[:, 2] + imu_off)
                         + rng.normal(0, math.radians(0.05), tl.size)})
     return robot, truth, travel, imu
-
-
-def test_se2_log_inverts_exp():
-    """The SE(2) log map undoes the exponential (Lynch & Park 2017, sec. 3.3)."""
-    u = np.array([[0.3, -0.1, 0.9], [0.2, 0.0, 1e-9], [-0.1, 0.4, -2.0]])
-    dx, dy = exp_increment(u[:, 0], u[:, 1], u[:, 2])
-    back = se2_log(np.column_stack([dx, dy, u[:, 2]]))
-    np.testing.assert_allclose(back, u, atol=1e-12)
 
 
 def test_hysteresis_enter_exit_and_minimum_duration():

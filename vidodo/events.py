@@ -101,12 +101,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from scipy.stats import median_abs_deviation
 
-from .se2 import relative_pose, wrap_angle
+from .se2 import interpolate_poses, log_increment, relative_pose, wrap_angle
 from .wheels import wheel_rows
 
 __all__ = ["EventSettings", "Event", "EventResult", "detect_events", "hysteresis",
-           "events_frame", "active_kinds", "se2_log", "EVENT_COLUMNS", "EVENT_KINDS"]
+           "events_frame", "active_kinds", "EVENT_COLUMNS", "EVENT_KINDS"]
 
 LOCAL_NOISE_HALF_S = 1.5
 """Half-width of the window of the local noise check [s]."""
@@ -188,24 +189,6 @@ class EventResult:
     """Tests that could not run, and why."""
 
 
-def se2_log(rel):
-    """Exponential coordinates ``(ux, uy, dtheta)`` of relative poses (SE(2) log map).
-
-    Inverse of :func:`vidodo.se2.exp_increment` (Lynch & Park, *Modern Robotics*, 2017,
-    sec. 3.3 matrix logarithm, planar case).
-    """
-    r = np.asarray(rel, dtype=float).reshape(-1, 3)
-    th = r[:, 2]
-    small = np.abs(th) < 1e-6
-    ts = np.where(small, 1.0, th)
-    a = np.where(small, 1.0 - th**2 / 6.0, np.sin(ts) / ts)
-    b = np.where(small, th / 2.0, (1.0 - np.cos(ts)) / ts)
-    det = a * a + b * b
-    ux = (a * r[:, 0] + b * r[:, 1]) / det
-    uy = (-b * r[:, 0] + a * r[:, 1]) / det
-    return np.column_stack([ux, uy, th])
-
-
 def hysteresis(t_s, score, *, on=1.0, off=0.5, min_duration_s=0.0, merge_gap_s=0.0):
     """Segments where ``score`` rises above ``on`` and stays above ``off``.
 
@@ -285,21 +268,26 @@ def _robust_scale(z):
     z = z[np.isfinite(z)]
     if z.size < 20:
         return 1.0
-    mad = 1.4826 * float(np.median(np.abs(z - np.median(z))))
-    return max(1.0, mad)
+    return max(1.0, float(median_abs_deviation(z, scale="normal")))
+
+
+def _zero(x, axis=None):
+    """Centre for :func:`scipy.stats.median_abs_deviation`: zero."""
+    return 0.0
 
 
 def _noise_scale(t, z, half_s=LOCAL_NOISE_HALF_S, floor=1.0):
     """Per-sample factor by which the residuals ``z`` (in sigma) exceed their sigma.
 
-    The larger of the run's robust spread and that within +-``half_s`` (1.4826 times
-    the median absolute value, common practice), never below ``floor``. The local part catches
+    The larger of the run's robust spread (normalised median absolute deviation) and
+    that within +-``half_s`` (the same about zero, common practice), never below
+    ``floor``. The local part catches
     stretches where the truth track is worse than it says (a swaying hand-held camera);
     a fault of a few tenths of a second barely moves a median over three seconds.
     """
     z = np.asarray(z, dtype=float).reshape(len(t), -1)
     zz = z[np.isfinite(z)]
-    base = max(floor, 1.4826 * float(np.median(np.abs(zz - np.median(zz))))) \
+    base = max(floor, float(median_abs_deviation(zz, scale="normal"))) \
         if zz.size >= 20 else 1.0
     out = np.full(len(t), base)
     az = np.abs(z)
@@ -309,7 +297,8 @@ def _noise_scale(t, z, half_s=LOCAL_NOISE_HALF_S, floor=1.0):
         win = az[lo[i]:hi[i]].ravel()
         win = win[np.isfinite(win)]
         if win.size >= 20:
-            out[i] = max(out[i], 1.4826 * float(np.median(win)))
+            out[i] = max(out[i], float(median_abs_deviation(win, center=_zero,
+                                                            scale="normal")))
     return out
 
 
@@ -339,8 +328,7 @@ class _Truth:
     def pose(self, tq):
         if self.tt.size < 2:
             return np.full((np.size(tq), 3), np.nan)
-        out = np.column_stack([_interp(tq, self.tt, self.x), _interp(tq, self.tt, self.y),
-                               _interp(tq, self.tt, self.h)])
+        out = interpolate_poses(tq, self.tt, np.column_stack([self.x, self.y, self.h]))
         # no pose inside gaps of missing detections longer than 0.25 s
         idx = np.clip(np.searchsorted(self.tt, tq), 1, len(self.tt) - 1)
         gap = (self.tt[idx] - self.tt[idx - 1]) > 0.25
@@ -361,7 +349,7 @@ def _clean_sigma(v, default, n):
 
 def _window_motion(tr: _Truth, t, w):
     a, b = tr.pose(t - w / 2), tr.pose(t + w / 2)
-    u = se2_log(relative_pose(a, b))
+    u = log_increment(*relative_pose(a, b).T)
     u[~np.isfinite(a).all(axis=1) | ~np.isfinite(b).all(axis=1)] = np.nan
     sa, ha = tr.sigma(t - w / 2)
     sb, hb = tr.sigma(t + w / 2)
@@ -398,7 +386,7 @@ def _cumulative(t, travel, wheels, tr):
     tw = travel["t_s"].to_numpy(float)
     rows = wheel_rows(wheels)
     p = tr.pose(t)
-    rel = se2_log(relative_pose(p[:-1], p[1:]))
+    rel = log_increment(*relative_pose(p[:-1], p[1:]).T)
     pred = np.vstack([np.zeros((1, len(wheels))), np.nancumsum(rel @ rows.T, axis=0)])
     meas = np.column_stack([_interp(t, tw, travel[w.name].to_numpy(float)) for w in wheels])
     meas = meas - meas[np.isfinite(meas).all(axis=1)][0] if np.isfinite(meas).any() else meas
@@ -435,8 +423,7 @@ def _affected(source_poses, tr, t0, t1):
     lim_h = max(3 * math.sqrt(float((sh**2).sum())), math.radians(1.0))
     out = []
     for name, (ts, poses) in source_poses.items():
-        pa = np.array([[_interp(ta, ts, poses[:, i]) for i in range(3)]])
-        pb = np.array([[_interp(tb, ts, poses[:, i]) for i in range(3)]])
+        pa, pb = interpolate_poses([ta, tb], ts, poses)
         if not (np.isfinite(pa).all() and np.isfinite(pb).all() and np.isfinite(qa).all()
                 and np.isfinite(qb).all()):
             continue
@@ -525,7 +512,7 @@ def detect_events(truth, wheel_travel, robot, *, imu_heading=None, source_poses=
         cum = _cumulative(t, wheel_travel, drive, tr)
         lat_cum = np.zeros(len(t))
         if no_side:
-            step = se2_log(relative_pose(pose_t[:-1], pose_t[1:]))[:, 1]
+            step = log_increment(*relative_pose(pose_t[:-1], pose_t[1:]).T)[:, 1]
             lat_cum[1:] = np.nancumsum(step)
         off = st.k_off / st.k_on
         for a, b in hysteresis(t, s_slip, on=1.0, off=off, min_duration_s=st.min_duration_s,
@@ -652,12 +639,9 @@ def _truth_glitches(tr, t, source_poses, pair, st):
     motions = []
     for name in pair:
         ts, poses = source_poses[name]
-        h = np.unwrap(poses[:, 2])
-        pa = np.column_stack([_interp(t - w / 2, ts, poses[:, 0]),
-                              _interp(t - w / 2, ts, poses[:, 1]), _interp(t - w / 2, ts, h)])
-        pb = np.column_stack([_interp(t + w / 2, ts, poses[:, 0]),
-                              _interp(t + w / 2, ts, poses[:, 1]), _interp(t + w / 2, ts, h)])
-        motions.append(se2_log(relative_pose(pa, pb)))
+        pa = interpolate_poses(t - w / 2, ts, poses)
+        pb = interpolate_poses(t + w / 2, ts, poses)
+        motions.append(log_increment(*relative_pose(pa, pb).T))
     a, b = motions
     da = np.hypot(a[:, 0] - u[:, 0], a[:, 1] - u[:, 1])
     db = np.hypot(b[:, 0] - u[:, 0], b[:, 1] - u[:, 1])

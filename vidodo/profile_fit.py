@@ -50,6 +50,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 from scipy.optimize import least_squares
+from scipy.stats import median_abs_deviation
 
 from .errors import InputError, MeasurementError
 from .outputs import atomic_file
@@ -376,9 +377,17 @@ def _huber_weights(z, k=_HUBER_K):
 
 
 def _robust_scale(r):
-    """Normalised median absolute deviation about zero (1.4826 MAD; common practice)."""
+    """Normalised median absolute deviation about zero (common practice): residuals
+    of a fit are centred on zero by construction, their median need not be."""
     r = r[np.isfinite(r)]
-    return 1.4826 * float(np.median(np.abs(r))) if r.size else float("nan")
+    if not r.size:
+        return float("nan")
+    return float(median_abs_deviation(r, center=_zero, scale="normal"))
+
+
+def _zero(x, axis=None):
+    """Centre for :func:`scipy.stats.median_abs_deviation`: zero."""
+    return 0.0
 
 
 def _solve(model: _Model, theta0, free, *, max_iter=12):

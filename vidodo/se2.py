@@ -18,6 +18,7 @@ __all__ = [
     "integrate_twist",
     "relative_pose",
     "to_body_frame",
+    "interpolate_poses",
 ]
 
 
@@ -193,3 +194,42 @@ def to_body_frame(dx_m, dy_m, heading_rad):
         to its left.
     """
     return rotate(dx_m, dy_m, -np.asarray(heading_rad, dtype=float))
+
+
+def interpolate_poses(t_query_s, t_s, poses):
+    """Poses at ``t_query_s``, linear in position and in the unwrapped heading.
+
+    Parameters
+    ----------
+    t_query_s : array_like of shape (M,)
+        Times wanted [s].
+    t_s : array_like of shape (N,)
+        Increasing sample times [s].
+    poses : array_like of shape (N, 3)
+        ``(x_m, y_m, heading_rad)`` at ``t_s``.
+
+    Returns
+    -------
+    ndarray of shape (M, 3)
+        Interpolated poses, heading continuous (not wrapped); NaN outside the span of
+        ``t_s`` and everywhere when fewer than two samples are given.
+
+    Examples
+    --------
+    Halfway between headings of 170 and -170 degrees the heading is 180 (through the
+    wrap, not through zero):
+
+    >>> p = interpolate_poses([0.5], [0.0, 1.0], [[0, 0, np.radians(170)],
+    ...                                           [2, 0, np.radians(-170)]])
+    >>> np.round([p[0, 0], np.degrees(p[0, 2])], 6).tolist()
+    [1.0, 180.0]
+    """
+    tq = np.asarray(t_query_s, dtype=float).ravel()
+    t = np.asarray(t_s, dtype=float).ravel()
+    p = np.asarray(poses, dtype=float).reshape(-1, 3)
+    out = np.full((tq.size, 3), np.nan)
+    if t.size < 2:
+        return out
+    for i, v in enumerate((p[:, 0], p[:, 1], np.unwrap(p[:, 2]))):
+        out[:, i] = np.interp(tq, t, v, left=np.nan, right=np.nan)
+    return out
