@@ -50,7 +50,8 @@ sys.path.insert(0, str(ROOT / "tests"))
 
 from vidodo.errors import VidodoError  # noqa: E402
 from vidodo.logs import read_log  # noqa: E402
-from vidodo.metrics import anchor_poses, column_prefix  # noqa: E402
+from vidodo.metrics import anchor_poses  # noqa: E402
+from vidodo.outputs import column_prefix  # noqa: E402
 from vidodo.pipeline import grade_run  # noqa: E402
 from vidodo.profiles import dump_toml, load_robot  # noqa: E402
 from vidodo.synth.scenario import scenario_from_dict  # noqa: E402

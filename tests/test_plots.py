@@ -17,9 +17,10 @@ from matplotlib.patches import Rectangle
 from numpy.testing import assert_allclose
 
 from vidodo import __version__
+from vidodo.outputs import column_prefix
 from vidodo.profiles import FieldProfile
 from vidodo.report import plots
-from vidodo.report.build import load_grade_dir, render_all
+from vidodo.report.build import load_grade_dir, write_report
 from vidodo.se2 import integrate_twist, to_body_frame
 
 FIELD = FieldProfile(tiles_x=6, tiles_y=4, tile_size_m=0.6)
@@ -49,7 +50,7 @@ def synthetic_grade(*, n=241, duration_s=8.0, source_names=("drive", "tracking+i
     for i, name in enumerate(source_names):
         sv, sw = scales[i % 3]
         pose = integrate_twist(t, np.column_stack([v * sv, np.zeros_like(v), w * sw]), start)
-        p = plots.column_prefix(name)
+        p = column_prefix(name)
         dx, dy = pose[:, 0] - truth[:, 0], pose[:, 1] - truth[:, 1]
         along, cross = to_body_frame(dx, dy, truth[:, 2])
         err = np.hypot(dx, dy)
@@ -120,9 +121,13 @@ def make_grade_dir(folder, **kw):
 
 # --------------------------------------------------------------------- data feeding
 def test_column_prefix_rule():
-    """DEVELOPERS.md: every character outside [a-z0-9] becomes '_'."""
-    assert plots.column_prefix("tracking+imu") == "tracking_imu"
-    assert plots.column_prefix("Drive 2") == "_rive_2"
+    """DEVELOPERS.md: lower-cased, then every character outside [a-z0-9] becomes '_';
+    the plots find the columns the drift table wrote for a capitalised name."""
+    assert column_prefix("tracking+imu") == "tracking_imu"
+    assert column_prefix("Drive 2") == "drive_2"
+    drift = pd.DataFrame({"t_s": [0.0], "drive_2_x_m": [0.0], "drive_2_y_m": [0.0],
+                          "drive_2_err_m": [0.0]})
+    assert plots.source_prefixes(drift, ["Drive 2"]) == {"Drive 2": "drive_2"}
 
 
 def test_source_prefixes_follow_summary_order_and_skip_absent():
@@ -223,12 +228,12 @@ def test_speed_figure_truth_matches_commanded_speed():
     assert_allclose(drive[moving, 1], 520.0, rtol=2e-3)  # 1.04 speed scale
 
 
-def test_write_plots_and_render_all(tmp_path):
+def test_write_plots_and_write_report(tmp_path):
     folder = make_grade_dir(tmp_path / "grade")
     data = load_grade_dir(folder)
     assert data.field == FieldProfile(6, 4, 0.6)
     assert list(data.sources) == ["drive", "tracking+imu"]
-    written = render_all(folder, folder, replay=False, units="in")
+    written = write_report(folder, folder, replay=False, units="in")
     names = sorted(p.name for p in written)
     assert names == ["error_vs_time.png", "field_map.png", "report.html", "speed.png"]
     for p in written:

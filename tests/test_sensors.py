@@ -8,11 +8,11 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
+from vidodo.outputs import column_prefix
 from vidodo.se2 import relative_pose
 from vidodo.synth.motion import simulate_motion
 from vidodo.synth.scenario import load_scenario
 from vidodo.synth.sensors import (
-    source_column_prefix,
     source_increments,
     synthesize_log,
     unwrap_counter,
@@ -133,7 +133,7 @@ def test_logged_ticks_reproduce_truth_outside_faults(name):
     assert len(stretches) >= 2 and sum(map(len, stretches)) > 0.8 * len(truth)
     odo = log.odometry_ideal
     for src in sc.robot.resolved_sources():
-        p = source_column_prefix(src.name)
+        p = column_prefix(src.name)
         est = odo[[f"{p}_x_m", f"{p}_y_m", f"{p}_heading_rad"]].to_numpy()
         for r in stretches:
             a = relative_pose(np.repeat(truth[r[:1]], len(r), 0), truth[r])

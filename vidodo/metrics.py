@@ -24,13 +24,13 @@ not add up to metres of imaginary travel.
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
 from .errors import MeasurementError
+from .outputs import column_prefix
 from .se2 import relative_pose, rotate, wrap_angle
 
 __all__ = [
@@ -583,11 +583,6 @@ def _gated_turn(heading_rad, gate_rad):
             total += d
             last = v
     return total
-
-
-def column_prefix(name: str) -> str:
-    """Source name as a column prefix: every character outside [a-z0-9] becomes '_'."""
-    return re.sub(r"[^a-z0-9]", "_", name.lower())
 
 
 def drift_table(truth: pd.DataFrame, anchored: dict, cum_length_m, direction_rad,

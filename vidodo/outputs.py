@@ -9,11 +9,12 @@ from __future__ import annotations
 
 import contextlib
 import os
+import re
 import shutil
 import tempfile
 from pathlib import Path
 
-__all__ = ["staged_dir", "atomic_file"]
+__all__ = ["staged_dir", "atomic_file", "column_prefix"]
 
 
 @contextlib.contextmanager
@@ -57,3 +58,18 @@ def atomic_file(path):
             os.unlink(tmp)
         raise
     os.replace(tmp, path)
+
+
+def column_prefix(name: str) -> str:
+    """A source name as a column prefix in every file vidodo writes.
+
+    Lower-cased, then every character outside ``[a-z0-9]`` becomes ``_``.
+
+    Examples
+    --------
+    >>> column_prefix("tracking+imu")
+    'tracking_imu'
+    >>> column_prefix("Drive 2")
+    'drive_2'
+    """
+    return re.sub(r"[^a-z0-9]", "_", str(name).lower())

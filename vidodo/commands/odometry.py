@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import re
 import sys
 from pathlib import Path
 
@@ -11,8 +10,9 @@ import pandas as pd
 
 from ..logs import read_log
 from ..odometry import TRACK_COLUMNS, odometry_result
-from ..outputs import atomic_file
+from ..outputs import atomic_file, column_prefix
 from ..profiles import load_robot
+from ._options import add_out
 
 NAME = "odometry"
 HELP = "read a robot log and write the pose track of every odometry source"
@@ -28,12 +28,7 @@ def add_arguments(parser):
     """Options of the verb."""
     parser.add_argument("log", type=Path, help="robot log CSV")
     parser.add_argument("--robot", type=Path, required=True, help="robot profile (TOML)")
-    parser.add_argument("--out", type=Path, required=True, help="pose tracks CSV to write")
-
-
-def column_prefix(source: str) -> str:
-    """Source name as a column prefix: every character outside [a-z0-9] becomes '_'."""
-    return re.sub(r"[^a-z0-9]", "_", source.lower())
+    add_out(parser, "pose tracks CSV to write", required=True)
 
 
 def tracks_table(tracks: dict) -> pd.DataFrame:

@@ -11,7 +11,6 @@ Agg canvas (no pyplot, no global state, safe in worker processes).
 from __future__ import annotations
 
 import math
-import re
 from pathlib import Path
 
 import numpy as np
@@ -21,11 +20,11 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
+from ..outputs import column_prefix
 from ..units import length_factor
 
 __all__ = [
     "trend_figure",
-    "column_prefix",
     "source_prefixes",
     "speed_from_positions",
     "event_windows",
@@ -56,15 +55,6 @@ PLOT_NAMES = ("field_map", "error_vs_time", "speed")
 
 
 # ------------------------------------------------------------------ data for plots
-def column_prefix(name: str) -> str:
-    """Column prefix of a source name: every character outside ``[a-z0-9]`` becomes ``_``.
-
-    >>> column_prefix("tracking+imu")
-    'tracking_imu'
-    """
-    return re.sub(r"[^a-z0-9]", "_", str(name))
-
-
 def source_prefixes(drift: pd.DataFrame, names=None) -> dict[str, str]:
     """Odometry sources present in a drift table, display name -> column prefix.
 

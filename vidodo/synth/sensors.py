@@ -38,6 +38,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from ..outputs import column_prefix
 from ..profiles import ANGLE_UNITS_RAD, LENGTH_UNITS_M, TIME_UNITS_S, RobotProfile
 from ..se2 import integrate_increments
 from ..wheels import rim_to_ticks, twist_to_rim
@@ -45,7 +46,7 @@ from .motion import GRID_DT_S, Motion
 from .scenario import Scenario
 
 __all__ = ["LogSynthesis", "synthesize_log", "wrap_counter", "unwrap_counter",
-           "wrap_deg", "ideal_odometry", "log_times", "source_column_prefix"]
+           "wrap_deg", "ideal_odometry", "log_times"]
 
 _IMU_DECIMALS = 4
 _POSE_DECIMALS = 5
@@ -69,12 +70,6 @@ class LogSynthesis:
     """Per sample: t_log_s and per source <prefix>_x_m, _y_m, _heading_rad."""
     meta: dict
     """Clock and sensor parameters for truth/meta.json."""
-
-
-def source_column_prefix(name: str) -> str:
-    """Column prefix of a source: every character outside [a-z0-9] becomes '_'."""
-    return "".join(c if c.isascii() and (c.isdigit() or c.islower()) else "_"
-                   for c in name.lower())
 
 
 def wrap_counter(counts, bits):
@@ -249,7 +244,7 @@ def ideal_odometry(sc: Scenario, log: pd.DataFrame, t_log_s, imu_heading_rad=Non
     cols = {"t_log_s": np.asarray(t_log_s, float)}
     for name, inc in source_increments(sc, log, imu_heading_rad).items():
         pose = integrate_increments(inc)
-        p = source_column_prefix(name)
+        p = column_prefix(name)
         cols[f"{p}_x_m"], cols[f"{p}_y_m"], cols[f"{p}_heading_rad"] = pose.T
     return pd.DataFrame(cols)
 
