@@ -16,8 +16,9 @@ from standin_track import noisy_track
 from vidodo.cli_main import main
 from vidodo.errors import EXIT_MEASURE, EXIT_OK, EXIT_TOLERANCE, SyncError
 from vidodo.logs import read_log
-from vidodo.metrics import anchor_poses, column_prefix
-from vidodo.pipeline import Tolerances, grade_run, read_track_csv
+from vidodo.metrics import anchor_poses
+from vidodo.outputs import column_prefix
+from vidodo.pipeline import GradeSettings, Tolerances, grade_run, read_track_csv
 from vidodo.profiles import load_robot
 from vidodo.report.grade_files import write_outputs
 
@@ -190,7 +191,7 @@ def test_no_overlap_is_could_not_measure(rendered_run, tmp_path):
     out = tmp_path / "out"
     code = main(["grade", "v.mp4", str(run / "log.csv"), "--robot", str(run / "robot.toml"),
                  "--field", str(run / "field.toml"), "--track", str(track),
-                 "--clock-offset", "500", "--out", str(out)])
+                 "--clock-offset-s", "500", "--out", str(out)])
     assert code == EXIT_MEASURE
     assert not out.exists()
 
@@ -224,7 +225,8 @@ def test_truth_without_motion(rendered_run):
     with pytest.raises(SyncError, match="too little motion"):
         grade_run(None, run / "log.csv", run / "robot.toml", run / "field.toml", track=still)
     res = grade_run(None, run / "log.csv", run / "robot.toml", run / "field.toml",
-                    track=still, clock_offset_s=float(true_video_time(run, 0.0)))
+                    track=still,
+                    settings=GradeSettings(clock_offset_s=float(true_video_time(run, 0.0))))
     assert any("no motion" in w for w in res.warnings)
     for m in res.metrics.values():
         assert m.drift_pct is None and m.heading_drift_deg_per_turn is None

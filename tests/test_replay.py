@@ -225,15 +225,15 @@ def _meta_camera_pose(meta):
 
 
 def test_missing_footage_still_writes_the_report(tmp_path):
-    """render_all: no footage -> the plots and the page are written, then the error."""
+    """write_report: no footage -> the plots and the page are written, then the error."""
     from test_plots import make_grade_dir  # sibling test module
 
     from vidodo.errors import InputError
-    from vidodo.report.build import render_all
+    from vidodo.report.build import write_report
 
     folder = make_grade_dir(tmp_path / "grade")
     with pytest.raises(InputError, match="inputs.video"):
-        render_all(folder, folder, replay=True)
+        write_report(folder, folder, replay=True)
     page = (folder / "report.html").read_text()
     assert "replay.mp4 not written" in page
     assert (folder / "field_map.png").is_file()

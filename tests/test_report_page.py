@@ -16,7 +16,7 @@ from pathlib import Path
 import pytest
 from test_plots import make_grade_dir, synthetic_grade  # sibling test module
 
-from vidodo.report.build import render_all
+from vidodo.report.build import write_report
 from vidodo.report.page import METRIC_COLUMNS, build_html
 
 CHROMIUM = Path("/usr/bin/chromium")
@@ -82,7 +82,7 @@ def _cells(driver):
 @pytest.fixture(scope="module")
 def report(tmp_path_factory):
     folder = make_grade_dir(tmp_path_factory.mktemp("grade") / "run")
-    render_all(folder, folder, replay=False, units="mm")
+    write_report(folder, folder, replay=False, units="mm")
     return folder
 
 
@@ -140,7 +140,7 @@ def test_figures_in_page_equal_summary(browser, report):
 def test_units_inch(browser, tmp_path):
     """--units in: 1 in = 25.4 mm exactly (international inch, 1959)."""
     folder = make_grade_dir(tmp_path / "run")
-    render_all(folder, folder, replay=False, units="in")
+    write_report(folder, folder, replay=False, units="in")
     _open(browser, folder / "report.html")
     summary = json.loads((folder / "summary.json").read_text())
     cells = {key: (si, text) for key, si, _, text in _cells(browser)}
@@ -154,7 +154,7 @@ def test_hostile_strings_are_escaped(browser, tmp_path):
     """Markup in a run name or event detail shows as text and loads nothing."""
     folder = make_grade_dir(tmp_path / "run", weird_names=True,
                             source_names=("drive", "<b>pods</b>"))
-    render_all(folder, folder, replay=False, units="mm")
+    write_report(folder, folder, replay=False, units="mm")
     page = (folder / "report.html").read_text()
     assert "<script>alert(1)</script>" not in page
     assert '<img src="http://127.0.0.1' not in page
@@ -227,7 +227,7 @@ def test_report_verb_rebuilds_pictures(tmp_path, capsys):
 
 @pytest.mark.slow
 def test_report_of_a_real_grade(browser, rendered_run, tmp_path):
-    """End to end: grade a rendered run, render_all from the GradeResult (plots, replay,
+    """End to end: grade a rendered run, write_report from the GradeResult (plots, replay,
     HTML), and check the page in the browser against the summary it was built from."""
     from vidodo.pipeline import grade_run
 
@@ -236,7 +236,7 @@ def test_report_of_a_real_grade(browser, rendered_run, tmp_path):
     result = grade_run(run / "video.mp4", run / "log.csv", run / "robot.toml",
                        run / "field.toml", run / "camera.toml")
     out = tmp_path / "grade"
-    written = render_all(result, out, replay=True, units="mm")
+    written = write_report(result, out, replay=True, units="mm")
     assert {p.name for p in written} == {"field_map.png", "error_vs_time.png", "speed.png",
                                          "replay.mp4", "report.html"}
     console, requests = _open(browser, out / "report.html")

@@ -23,8 +23,9 @@ import numpy as np
 import pandas as pd
 
 from .errors import EXIT_MEASURE, EXIT_OK, EXIT_PARTIAL, InputError, VidodoError
-from .pipeline import GradeResult, Tolerances, grade_run
-from .report.build import render_all
+from .outputs import column_prefix
+from .pipeline import GradeResult, GradeSettings, Tolerances, grade_run
+from .report.build import write_report
 from .report.grade_files import write_outputs
 from .report.plots import trend_figure
 from .tuning import tune_from_grade
@@ -51,7 +52,7 @@ def grade_run_folder(run_dir, out_dir, *, tolerances=None, report=True, replay=T
     Writes the grade outputs (:func:`vidodo.report.grade_files.write_outputs`),
     optionally a corrected robot profile (:func:`vidodo.tuning.tune_from_grade`) into
     ``out_dir/tune``, then the plots and the HTML report
-    (:func:`vidodo.report.build.render_all`). The run folder's ``truth/`` is never read.
+    (:func:`vidodo.report.build.write_report`). The run folder's ``truth/`` is never read.
 
     Parameters
     ----------
@@ -82,12 +83,13 @@ def grade_run_folder(run_dir, out_dir, *, tolerances=None, report=True, replay=T
     cam = run_dir / "camera.toml"
     result = grade_run(run_dir / "video.mp4", run_dir / "log.csv", run_dir / "robot.toml",
                        run_dir / "field.toml", cam if cam.is_file() else None,
-                       tolerances=tolerances, progress=progress)
+                       settings=GradeSettings(tolerances=tolerances or Tolerances()),
+                       progress=progress)
     write_outputs(result, out_dir)
     if tune:
         tune_from_grade(result, run_dir, out_dir / "tune")
     if report or replay:
-        render_all(out_dir, out_dir, replay=replay, units=units, progress=progress)
+        write_report(out_dir, out_dir, replay=replay, units=units, progress=progress)
     return result
 
 
@@ -152,7 +154,7 @@ def grade_one(run_dir, out_dir, options: dict) -> dict:
         warnings = []
         if options.get("report", True) or options.get("replay", False):
             try:
-                render_all(out_dir, out_dir, replay=bool(options.get("replay")),
+                write_report(out_dir, out_dir, replay=bool(options.get("replay")),
                            units=options.get("units", "mm"))
             except VidodoError as exc:  # the grade stands; the pictures are extra
                 warnings.append(f"report not written: {exc}")
@@ -248,12 +250,6 @@ def grade_folders(run_dirs, root, out_root, options: dict, *, jobs: int = 1,
     return [records[i] for i in range(len(run_dirs))]
 
 
-def _prefix(name: str) -> str:
-    from .report.plots import column_prefix
-
-    return column_prefix(name)
-
-
 def batch_table(records) -> pd.DataFrame:
     """One row per run: status, error, clock, events and the figures per source.
 
@@ -273,11 +269,11 @@ def batch_table(records) -> pd.DataFrame:
         for name, m in (s.get("sources") or {}).items():
             for fig in ROW_FIGURES:
                 v = m.get(fig)
-                row[f"{_prefix(name)}_{fig}"] = np.nan if v is None else v
+                row[f"{column_prefix(name)}_{fig}"] = np.nan if v is None else v
         rows.append(row)
     table = pd.DataFrame(rows)
     table.attrs["source_names"] = {
-        _prefix(n): n for r in records for n in ((r.get("summary") or {}).get("sources")
+        column_prefix(n): n for r in records for n in ((r.get("summary") or {}).get("sources")
                                                  or {})}
     return table
 

@@ -161,6 +161,20 @@ def odometry_result(log: LogData, robot: RobotProfile) -> OdometryResult:
     :class:`ObservabilityError` naming the source). Default sources
     (:meth:`RobotProfile.resolved_sources` when the profile lists none) that the
     layout cannot observe are left out with a warning.
+
+    Parameters
+    ----------
+    log : LogData
+        The log (:func:`vidodo.logs.read_log`), log clock [s].
+    robot : RobotProfile
+        Wheel geometry [m, rad] and the sources to build.
+
+    Returns
+    -------
+    OdometryResult
+        ``tracks``: per source a DataFrame ``t_s`` [s], ``x_m``, ``y_m`` [m],
+        ``heading_rad`` [rad], body twist ``vx_mps``, ``vy_mps`` [m/s], ``omega_radps``
+        [rad/s]; ``warnings``.
     """
     tracks: dict[str, pd.DataFrame] = {}
     warnings: list[str] = []

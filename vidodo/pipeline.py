@@ -42,11 +42,13 @@ from .metrics import (
     travel_direction,
     umeyama,
 )
+from .odometry import odometry_result, rim_travel
 from .profiles import FieldProfile, RobotProfile, load_camera, load_field, load_robot
+from .se2 import interpolate_poses
 from .sync import ClockSync, estimate_clock, manual_clock
 
-__all__ = ["Tolerances", "GradeResult", "grade_run", "grade_tracks", "read_track_csv",
-           "TRACK_COLUMNS"]
+__all__ = ["Tolerances", "GradeSettings", "GradeResult", "grade_run", "grade_tracks",
+           "read_track_csv", "TRACK_COLUMNS"]
 
 TRACK_COLUMNS = ["t_s", "x_m", "y_m", "heading_rad", "sigma_xy_m", "sigma_heading_rad",
                  "vx_mps", "vy_mps", "speed_mps", "omega_radps", "ax_mps2", "ay_mps2",
@@ -134,6 +136,18 @@ class GradeResult:
 def read_track_csv(path) -> pd.DataFrame:
     """Read a truth track CSV written by ``vidodo track`` or ``vidodo grade``.
 
+    Parameters
+    ----------
+    path : str or Path
+        The CSV (columns in DEVELOPERS.md).
+
+    Returns
+    -------
+    DataFrame
+        ``t_s`` [s] strictly increasing, ``x_m``, ``y_m`` [m], ``heading_rad`` [rad],
+        ``sigma_xy_m`` [m], ``sigma_heading_rad`` [rad] and whatever else the file has;
+        ``detected`` and ``interpolated`` as booleans.
+
     Raises
     ------
     InputError
@@ -164,18 +178,6 @@ def _profile(obj, loader):
     return loader(obj)
 
 
-def _interp_poses(t_query, df):
-    """Poses of ``df`` (t_s, x, y, heading) at ``t_query``; NaN outside its span."""
-    t = df["t_s"].to_numpy(float)
-    out = np.full((len(t_query), 3), np.nan)
-    if len(t) < 2:
-        return out
-    h = np.unwrap(df["heading_rad"].to_numpy(float))
-    for i, v in enumerate((df["x_m"].to_numpy(float), df["y_m"].to_numpy(float), h)):
-        out[:, i] = np.interp(t_query, t, v, left=np.nan, right=np.nan)
-    return out
-
-
 def _anchor(truth, sxy):
     """Anchor sample and truth pose there (mean over the still time before motion)."""
     t = truth["t_s"].to_numpy(float)
@@ -203,23 +205,76 @@ def _anchor(truth, sxy):
     return k, (float(x), float(y), float(h)), moved
 
 
-def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
-                 truth_quality=None, truth_warnings=(), inputs=None,
-                 event_settings=None, odometry=None, field_profile=None) -> GradeResult:
+@dataclass(frozen=True)
+class GradeSettings:
+    """How a run is graded: the clock, the tolerances and the event thresholds."""
+
+    clock_offset_s: float | None = None
+    """Manual ``t_video - t_log`` [s]; found from the motion when None."""
+    tolerances: Tolerances = field(default_factory=Tolerances)
+    """Pass/fail limits (none by default)."""
+    events: EventSettings = field(default_factory=EventSettings)
+    """Event detection thresholds."""
+
+
+@dataclass(frozen=True)
+class _Reference:
+    """The truth track as the grading steps use it, and the anchor where motion starts."""
+
+    frame: pd.DataFrame
+    t: np.ndarray
+    q: np.ndarray
+    """Truth poses ``x_m, y_m, heading_rad`` (heading unwrapped), shape (N, 3)."""
+    sigma_xy_m: float
+    sigma_heading_rad: float
+    sigma_heading_each: np.ndarray
+    path_m: np.ndarray
+    k_anchor: int
+    anchor_pose: tuple
+    moved: bool
+
+
+@dataclass(frozen=True)
+class _SourceGrade:
+    anchored: pd.DataFrame
+    metrics: SourceMetrics | None
+    best_fit: object | None
+    anchor_heading: dict | None
+
+
+def _truth_parts(truth):
+    """A truth DataFrame, its quality figures and warnings from a DataFrame or a
+    :class:`~vidodo.track.TrackResult`."""
+    if isinstance(truth, pd.DataFrame):
+        return truth, {}, []
+    return truth.track, dict(truth.quality), list(truth.warnings)
+
+
+def grade_tracks(truth, log, robot, settings: GradeSettings | None = None, *, odometry=None,
+                 inputs=None, field_profile=None) -> GradeResult:
     """Grade a run from a truth track and a log already read.
+
+    The steps, in order: put the log on the video clock (:func:`_clock_step`), find the
+    truth's anchor where motion starts (:func:`_reference_step`), map every source to
+    the video clock (:func:`_video_clock_step`), find events (:func:`_events_step`),
+    anchor and measure every source (:func:`_source_step`), summarise
+    (:func:`_summary_step`).
 
     Parameters
     ----------
-    truth : DataFrame
-        Truth track (video clock).
+    truth : DataFrame or TrackResult
+        Truth track on the video clock (columns in DEVELOPERS.md: ``t_s`` [s], ``x_m``,
+        ``y_m`` [m], ``heading_rad`` [rad], ``sigma_xy_m`` [m], ``sigma_heading_rad``
+        [rad]), or the tracker's result (its quality and warnings go into the summary).
     log : LogData
         The robot's log (:func:`vidodo.logs.read_log`).
     robot : RobotProfile
-    clock_offset_s : float, optional
-        Manual ``t_video - t_log`` [s]; found automatically when None.
-    tolerances : Tolerances, optional
+    settings : GradeSettings, optional
+        Clock offset [s], tolerances, event thresholds.
     odometry : dict of str -> DataFrame, optional
         Odometry sources on the log clock; rebuilt from ``log`` when None.
+    inputs : dict, optional
+        File paths recorded in the summary.
     field_profile : FieldProfile, optional
         Recorded in the summary (``field``) for the plots.
 
@@ -227,10 +282,8 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
     -------
     GradeResult
     """
-    from .odometry import odometry_result, rim_travel
-
-    tol = tolerances or Tolerances()
-    warn = list(truth_warnings)
+    settings = settings or GradeSettings()
+    truth, quality, warn = _truth_parts(truth)
     missing = [c for c in _REQUIRED if c not in truth.columns]
     if missing:
         raise InputError(f"truth track: missing column(s) {missing}")
@@ -240,17 +293,33 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
         od = odometry_result(log, robot)
         odometry = od.tracks
         warn += list(od.warnings)
+    clock = _clock_step(truth, odometry, settings.clock_offset_s, quality, warn)
+    ref = _reference_step(truth, warn)
+    video_tracks, covered = _video_clock_step(odometry, clock, ref, warn)
+    ev = _events_step(ref, log, robot, clock, {n: video_tracks[n] for n in covered},
+                      settings.events, warn)
+    graded = {name: _source_step(name, p, video_tracks[name], ref, ev.events, warn)
+              for name, p in covered.items()}
+    return _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn,
+                         inputs=inputs, field_profile=field_profile)
+
+
+def _clock_step(truth, odometry, clock_offset_s, quality, warn) -> ClockSync:
+    """Log clock -> video clock, found from the motion or from a manual offset."""
     if clock_offset_s is None:
         clock = estimate_clock(truth, odometry)
     else:
         clock = manual_clock(truth, odometry, float(clock_offset_s))
     warn += list(clock.warnings)
-    if (truth_quality or {}).get("readout_source") == "none":
+    if quality.get("readout_source") == "none":
         warn.append("clock: the camera's rolling-shutter readout time is unknown, so truth "
                     "times are frame times; the offset may be off by up to half a readout "
                     "(phones: 5-30 ms); give a camera profile with readout_s")
+    return clock
 
-    t = truth["t_s"].to_numpy(float)
+
+def _reference_step(truth, warn) -> _Reference:
+    """The truth's typical 1-sigma, path length and anchor pose where motion starts."""
     sxy_all = truth["sigma_xy_m"].to_numpy(float)
     sxy = float(np.nanmedian(sxy_all)) if np.isfinite(sxy_all).any() else 0.002
     sh_all = truth["sigma_heading_rad"].to_numpy(float)
@@ -258,116 +327,139 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
     q = truth[["x_m", "y_m", "heading_rad"]].to_numpy(float).copy()
     q[:, 2] = _unwrap_nan(q[:, 2])
     k_anchor, anchor_pose, moved = _anchor(truth, sxy)
-    t_anchor = float(t[k_anchor])
     if not moved:
         warn.append("the truth track shows no motion: drift %, RPE and heading drift per "
                     "turn are not measured")
+    return _Reference(frame=truth, t=truth["t_s"].to_numpy(float), q=q, sigma_xy_m=sxy,
+                      sigma_heading_rad=sh, sigma_heading_each=sh_all,
+                      path_m=path_length(q[:, :2], gate_m=3.0 * sxy), k_anchor=k_anchor,
+                      anchor_pose=anchor_pose, moved=moved)
 
-    video_tracks = {}
-    anchor_heading = {}
-    anchored = {}
-    best = {}
-    metrics = {}
-    cum = path_length(q[:, :2], gate_m=3.0 * sxy)
-    covered = {}
+
+def _video_clock_step(odometry, clock, ref, warn):
+    """Every source on the video clock, and its poses at the truth samples where the
+    log covers the video."""
+    video_tracks, covered = {}, {}
     for name, df in odometry.items():
         vdf = df.copy()
         vdf["t_s"] = clock.to_video(df["t_s"].to_numpy(float))
         video_tracks[name] = vdf
-        p = _interp_poses(t, vdf)
+        p = interpolate_poses(ref.t, vdf["t_s"].to_numpy(float),
+                              vdf[["x_m", "y_m", "heading_rad"]].to_numpy(float))
         if not np.isfinite(p).all(axis=1).any():
             warn.append(f"source {name!r}: the log does not cover the video; not graded")
             continue
         covered[name] = p
+    return video_tracks, covered
 
-    # events first: they need no alignment, and the anchoring must not lean on them
+
+def _events_step(ref, log, robot, clock, video_tracks, event_settings, warn):
+    """Events from truth, wheel travel, IMU and the sources (no alignment needed, and
+    the anchoring must not lean on them)."""
     wheel_travel = None
     names = [w for w in robot.wheels if f"ticks_{w.name}" in log.frame.columns]
+    t_log_video = clock.to_video(log.frame["t_s"].to_numpy(float))
     if names:
         steps = rim_travel(log, names)
         cumt = np.vstack([np.zeros((1, len(names))), np.cumsum(steps, axis=0)])
         wheel_travel = pd.DataFrame(cumt, columns=[w.name for w in names])
-        wheel_travel.insert(0, "t_s", clock.to_video(log.frame["t_s"].to_numpy(float)))
+        wheel_travel.insert(0, "t_s", t_log_video)
     imu = None
     if "imu_heading_rad" in log.frame.columns:
-        imu = pd.DataFrame({"t_s": clock.to_video(log.frame["t_s"].to_numpy(float)),
+        imu = pd.DataFrame({"t_s": t_log_video,
                             "heading_rad": log.frame["imu_heading_rad"].to_numpy(float)})
     src_poses = {n: (v["t_s"].to_numpy(float),
                      v[["x_m", "y_m", "heading_rad"]].to_numpy(float))
-                 for n, v in video_tracks.items() if n in covered}
-    ev = detect_events(truth, wheel_travel, robot, imu_heading=imu, source_poses=src_poses,
-                       settings=event_settings or EventSettings())
+                 for n, v in video_tracks.items()}
+    ev = detect_events(ref.frame, wheel_travel, robot, imu_heading=imu,
+                       source_poses=src_poses, settings=event_settings)
     warn += list(ev.warnings)
+    return ev
 
-    for name, p in covered.items():
-        vdf = video_tracks[name]
-        ta = t_anchor
-        pa = _interp_poses(np.array([ta]), vdf)[0]
-        qa = anchor_pose
-        if not np.isfinite(pa).all():
-            first = int(np.flatnonzero(np.isfinite(p).all(axis=1) & np.isfinite(q).all(
-                axis=1))[0])
-            ta, pa, qa = float(t[first]), p[first], local_pose(t, q, float(t[first]), sxy)
-            warn.append(f"source {name!r}: the log starts after motion start; anchored at "
-                        f"{ta:.2f} s instead")
+
+def _source_step(name, p, vdf, ref, events, warn) -> _SourceGrade:
+    """Anchor one source at the truth pose where motion starts and measure it."""
+    t, q, sxy = ref.t, ref.q, ref.sigma_xy_m
+    ta, qa = float(t[ref.k_anchor]), ref.anchor_pose
+    pa = interpolate_poses(np.array([ta]), vdf["t_s"].to_numpy(float),
+                           vdf[["x_m", "y_m", "heading_rad"]].to_numpy(float))[0]
+    if not np.isfinite(pa).all():
+        first = int(np.flatnonzero(np.isfinite(p).all(axis=1) & np.isfinite(q).all(
+            axis=1))[0])
+        ta, pa, qa = float(t[first]), p[first], local_pose(t, q, float(t[first]), sxy)
+        warn.append(f"source {name!r}: the log starts after motion start; anchored at "
+                    f"{ta:.2f} s instead")
+    a = anchor_poses(p, pa, qa)
+    k0 = int(np.searchsorted(t, ta))
+    later = [e.t_start_s for e in events if e.t_start_s > ta]
+    dh, sig_rot = anchor_heading_from_travel(
+        t, q, a, k0, sigma_m=sxy, t_stop_s=min(later) - 0.05 if later else None)
+    heading = None
+    if dh is not None:
+        # the truth heading at the start and the heading implied by the first
+        # stretch of travel (up to the first event), combined by inverse variance
+        # (sigma of one truth sample: averaging still frames does not remove a bias)
+        sh_k = ref.sigma_heading_each[k0]
+        sh_k = float(sh_k) if np.isfinite(sh_k) else ref.sigma_heading_rad
+        w = sh_k**2 / (sh_k**2 + sig_rot**2)
+        qa = (qa[0], qa[1], qa[2] + w * dh)
         a = anchor_poses(p, pa, qa)
-        k0 = int(np.searchsorted(t, ta))
-        later = [e.t_start_s for e in ev.events if e.t_start_s > ta]
-        dh, sig_rot = anchor_heading_from_travel(
-            t, q, a, k0, sigma_m=sxy, t_stop_s=min(later) - 0.05 if later else None)
-        if dh is not None:
-            # the truth heading at the start and the heading implied by the first
-            # stretch of travel (up to the first event), combined by inverse variance
-            # (sigma of one truth sample: averaging still frames does not remove a bias)
-            sh_k = float(sh_all[k0]) if np.isfinite(sh_all[k0]) else sh
-            w = sh_k**2 / (sh_k**2 + sig_rot**2)
-            qa = (qa[0], qa[1], qa[2] + w * dh)
-            a = anchor_poses(p, pa, qa)
-            anchor_heading[name] = {"truth_heading_rad": float(qa[2] - w * dh),
-                                    "travel_correction_rad": float(dh),
-                                    "travel_sigma_rad": float(sig_rot), "weight": float(w)}
-        anchored[name] = pd.DataFrame({"t_s": t, "x_m": a[:, 0], "y_m": a[:, 1],
-                                       "heading_rad": a[:, 2]})
-        try:
-            m = source_metrics(t, q, a, cum, sigma_heading_rad=sh, sigma_m=sxy, name=name)
-        except MeasurementError as exc:
-            warn.append(str(exc))
-            continue
-        metrics[name] = m
-        if not moved:
-            m = _without_motion_figures(m)
-            metrics[name] = m
-        warn += list(m.warnings)
-        ok = np.isfinite(a).all(axis=1) & np.isfinite(q).all(axis=1)
-        try:
-            best[name] = umeyama(a[ok, :2], q[ok, :2])
-        except MeasurementError:
-            pass
+        heading = {"truth_heading_rad": float(qa[2] - w * dh),
+                   "travel_correction_rad": float(dh),
+                   "travel_sigma_rad": float(sig_rot), "weight": float(w)}
+    anchored = pd.DataFrame({"t_s": t, "x_m": a[:, 0], "y_m": a[:, 1],
+                             "heading_rad": a[:, 2]})
+    try:
+        m = source_metrics(t, q, a, ref.path_m, sigma_heading_rad=ref.sigma_heading_rad,
+                           sigma_m=sxy, name=name)
+    except MeasurementError as exc:
+        warn.append(str(exc))
+        return _SourceGrade(anchored, None, None, heading)
+    if not ref.moved:
+        m = _without_motion_figures(m)
+    warn += list(m.warnings)
+    ok = np.isfinite(a).all(axis=1) & np.isfinite(q).all(axis=1)
+    try:
+        best = umeyama(a[ok, :2], q[ok, :2])
+    except MeasurementError:
+        best = None
+    return _SourceGrade(anchored, m, best, heading)
+
+
+def _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn, *,
+                  inputs, field_profile) -> GradeResult:
+    """Drift table, events table, verdict and summary.json content."""
+    metrics = {n: g.metrics for n, g in graded.items() if g.metrics is not None}
     if not metrics:
         raise MeasurementError("no odometry source overlaps the truth track; nothing graded")
-
+    anchored = {n: g.anchored for n, g in graded.items()}
+    tol = settings.tolerances
+    t, q = ref.t, ref.q
     flags = active_kinds(t, ev.events)
-    direction = travel_direction(q[:, :2], q[:, 2], min_step_m=max(6.0 * sxy, 0.01))
-    drift = drift_table(truth, {n: anchored[n][["x_m", "y_m", "heading_rad"]].to_numpy()
-                                for n in metrics}, cum, direction, flags)
+    direction = travel_direction(q[:, :2], q[:, 2],
+                                 min_step_m=max(6.0 * ref.sigma_xy_m, 0.01))
+    drift = drift_table(ref.frame, {n: anchored[n][["x_m", "y_m", "heading_rad"]].to_numpy()
+                                    for n in metrics}, ref.path_m, direction, flags)
     events_df = events_frame(ev.events)
     passed = {n: tol.check(m) for n, m in metrics.items()}
     if not tol.is_set:
         verdict = "graded"
     else:
         verdict = "pass" if all(v for v in passed.values()) else "fail"
-    anchor = {"t_s": t_anchor, "x_m": anchor_pose[0], "y_m": anchor_pose[1],
-              "heading_rad": anchor_pose[2], "index": int(k_anchor), "motion": moved}
+    pose = ref.anchor_pose
+    anchor = {"t_s": float(t[ref.k_anchor]), "x_m": pose[0], "y_m": pose[1],
+              "heading_rad": pose[2], "index": int(ref.k_anchor), "motion": ref.moved}
     warn = list(dict.fromkeys(warn))
     summary = {
         "vidodo_version": __version__,
         "inputs": dict(inputs or {}),
-        "settings": {"events": asdict(event_settings or EventSettings()), "anchor": anchor,
-                     "anchor_heading": anchor_heading},
+        "settings": {"events": asdict(settings.events), "anchor": anchor,
+                     "anchor_heading": {n: g.anchor_heading for n, g in graded.items()
+                                        if g.anchor_heading is not None}},
         "clock": {"offset_s": clock.offset_s, "sigma_s": clock.sigma_s,
                   "confidence": clock.confidence, "method": clock.method,
                   "source": clock.source, "rate": clock.rate, "ref_log_s": clock.ref_log_s},
-        "truth": dict(truth_quality or {}),
+        "truth": dict(quality),
         "field": None if field_profile is None else {
             "tiles_x": field_profile.tiles_x, "tiles_y": field_profile.tiles_y,
             "tile_size_m": field_profile.tile_size_m},
@@ -378,8 +470,10 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
         "verdict": verdict,
         "warnings": warn,
     }
-    return GradeResult(truth=truth, truth_quality=dict(truth_quality or {}), clock=clock,
-                       odometry=video_tracks, anchored=anchored, best_fit=best,
+    return GradeResult(truth=ref.frame, truth_quality=dict(quality), clock=clock,
+                       odometry=video_tracks, anchored=anchored,
+                       best_fit={n: g.best_fit for n, g in graded.items()
+                                 if g.best_fit is not None},
                        anchor=anchor, metrics=metrics, drift=drift, events=events_df,
                        event_list=ev.events, tolerances=tol, summary=_jsonable(summary),
                        warnings=tuple(warn), passed=passed)
@@ -411,8 +505,8 @@ def _jsonable(obj):
     return obj
 
 
-def grade_run(video, log, robot, field_profile, camera=None, *, clock_offset_s=None,
-              tolerances=None, progress=None, track=None, event_settings=None) -> GradeResult:
+def grade_run(video, log, robot, field_profile, camera=None, *, settings=None, track=None,
+              progress=None) -> GradeResult:
     """Grade one run: video + log + profiles -> drift, events, verdict.
 
     Parameters
@@ -425,14 +519,12 @@ def grade_run(video, log, robot, field_profile, camera=None, *, clock_offset_s=N
         Robot and field profiles (TOML paths or loaded profiles).
     camera : CameraProfile or path, optional
         Lens profile; the tracker estimates one when absent.
-    clock_offset_s : float, optional
-        Manual ``t_video - t_log`` [s].
-    tolerances : Tolerances, optional
-        Pass/fail limits; none by default.
-    progress : callable, optional
-        Passed to the tracker.
+    settings : GradeSettings, optional
+        Manual clock offset [s], tolerances, event thresholds.
     track : DataFrame or path, optional
         A truth track to reuse instead of tracking the video.
+    progress : callable, optional
+        Passed to the tracker.
 
     Returns
     -------
@@ -453,14 +545,10 @@ def grade_run(video, log, robot, field_profile, camera=None, *, clock_offset_s=N
               "robot": _abs(robot.path) if robot.path else robot.name,
               "field": _abs(field_profile.path) if field_profile else None,
               "camera": _abs(camera.path) if camera is not None else None}
-    quality, twarn = {}, []
     if track is None:
         from .track import track_video
 
-        tres = track_video(video, robot, field_profile, camera, progress=progress)
-        truth = tres.track
-        quality = dict(tres.quality)
-        twarn = list(tres.warnings)
+        truth = track_video(video, robot, field_profile, camera, progress=progress)
     elif isinstance(track, pd.DataFrame):
         truth = track
         inputs["track"] = "given"
@@ -468,9 +556,7 @@ def grade_run(video, log, robot, field_profile, camera=None, *, clock_offset_s=N
         truth = read_track_csv(track)
         inputs["track"] = _abs(track)
     logdata = log if isinstance(log, LogData) else read_log(log, robot)
-    return grade_tracks(truth, logdata, robot, clock_offset_s=clock_offset_s,
-                        tolerances=tolerances, truth_quality=quality, truth_warnings=twarn,
-                        inputs=inputs, event_settings=event_settings,
+    return grade_tracks(truth, logdata, robot, settings, inputs=inputs,
                         field_profile=field_profile)
 
 

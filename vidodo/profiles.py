@@ -394,6 +394,16 @@ def _marker(t: TomlTable, cls):
 def load_robot(path) -> RobotProfile:
     """Read a robot profile (TOML).
 
+    Parameters
+    ----------
+    path : str or Path
+        The TOML file; every key carries its unit (``radius_m``, ``direction_deg``).
+
+    Returns
+    -------
+    RobotProfile
+        Lengths in metres, angles in the file's ``_deg`` keys converted to radians.
+
     Raises
     ------
     InputError
@@ -502,6 +512,16 @@ def load_robot(path) -> RobotProfile:
 def load_field(path) -> FieldProfile:
     """Read a field profile (TOML).
 
+    Parameters
+    ----------
+    path : str or Path
+        The TOML file; every key carries its unit (``radius_m``, ``direction_deg``).
+
+    Returns
+    -------
+    FieldProfile
+        Tile size and fiducial positions in metres.
+
     Raises
     ------
     InputError
@@ -531,6 +551,16 @@ def load_field(path) -> FieldProfile:
 
 def load_camera(path) -> CameraProfile:
     """Read a camera profile (TOML).
+
+    Parameters
+    ----------
+    path : str or Path
+        The TOML file; every key carries its unit (``radius_m``, ``direction_deg``).
+
+    Returns
+    -------
+    CameraProfile
+        Focal lengths and principal point in pixels, readout time in seconds.
 
     Raises
     ------

@@ -418,7 +418,7 @@ def estimate_clock(truth_track, odometry, *, source=None, window_s=1.0, fit_rate
     if moving < min_motion_s:
         raise SyncError(
             f"truth track shows the robot moving for only {moving:.1f} s (< {min_motion_s} s); "
-            "too little motion to find the clock offset: give it with --clock-offset"
+            "too little motion to find the clock offset: give it with --clock-offset-s"
         )
     warn = []
     coarse = {}
@@ -450,7 +450,7 @@ def estimate_clock(truth_track, odometry, *, source=None, window_s=1.0, fit_rate
     if not coarse:
         raise SyncError(
             "no odometry source overlaps the truth track with enough motion to find the "
-            "clock offset; check that the log belongs to this video or give --clock-offset"
+            "clock offset; check that the log belongs to this video or give --clock-offset-s"
         )
     # group sources whose coarse offsets agree within 0.1 s; the group with the most
     # correlation in total wins (a slipping drive or a lifted pod stands apart)
@@ -478,13 +478,13 @@ def estimate_clock(truth_track, odometry, *, source=None, window_s=1.0, fit_rate
         raise SyncError(
             f"the motion in the log ({use!r}) does not match the motion in the video "
             f"(best correlation {peak:.2f} < {MIN_CORRELATION}); check that the log belongs "
-            "to this video, or give --clock-offset"
+            "to this video, or give --clock-offset-s"
         )
     if peak < 0.5:
         warn.append(f"clock sync: weak correlation ({peak:.2f}) between truth and {use!r}")
     if second > 0.9 * peak:
         warn.append("clock sync: another offset more than 0.5 s away fits almost as well "
-                    "(repetitive motion); check the offset or give --clock-offset")
+                    "(repetitive motion); check the offset or give --clock-offset-s")
     ts, ps = prepared[use]
     tv = ts + coarse[use]
     ov = _check_overlap(tt, tv, f"source {use!r}")

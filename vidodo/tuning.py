@@ -21,7 +21,7 @@ import pandas as pd
 
 from .odometry import odometry_result
 from .outputs import staged_dir
-from .pipeline import GradeResult, grade_tracks
+from .pipeline import GradeResult, GradeSettings, grade_tracks
 from .profile_fit import FitRun, ProfileFit, fit_profile, with_clock, write_profile
 from .profiles import RobotProfile
 
@@ -64,7 +64,8 @@ def grade_on_run_clock(run: FitRun, log, robot: RobotProfile) -> GradeResult:
         # fold the rate term into the log times so a plain offset maps them exactly
         d["t_s"] = t + run.rate * (t - run.ref_log_s)
         tracks[name] = d
-    return grade_tracks(run.truth, log, robot, clock_offset_s=run.offset_s, odometry=tracks)
+    return grade_tracks(run.truth, log, robot, GradeSettings(clock_offset_s=run.offset_s),
+                        odometry=tracks)
 
 
 def anchored_drift(run: FitRun, log, robot: RobotProfile) -> dict:

@@ -20,6 +20,7 @@ import sys
 from pathlib import Path
 
 from ..errors import InputError
+from ._options import add_out, add_switch, add_units
 
 NAME = "batch"
 HELP = "grade every run folder under a directory, in parallel; one table for all"
@@ -35,15 +36,12 @@ DESCRIPTION = (
 def add_arguments(parser):
     """Options of the verb."""
     parser.add_argument("dir", type=Path, help="folder holding run folders (searched deeply)")
-    parser.add_argument("--out", type=Path, required=True, help="output folder")
+    add_out(parser, "output folder", required=True)
     parser.add_argument("--jobs", type=int, default=None,
                         help="worker processes (default: number of CPUs)")
-    parser.add_argument("--units", choices=("mm", "in", "m"), default="mm",
-                        help="length unit of the printed lines and plots (files stay SI)")
-    parser.add_argument("--replay", action="store_true",
-                        help="also write each run's annotated replay (slow)")
-    parser.add_argument("--no-report", action="store_true",
-                        help="skip each run's plots and HTML report")
+    add_units(parser, "printed lines and plots")
+    add_switch(parser, "replay", False, "write each run's annotated replay (slow)")
+    add_switch(parser, "report", True, "write each run's plots and HTML report")
     parser.add_argument("--tol-pos-m", type=float, metavar="M",
                         help="largest final position error that passes [m]")
     parser.add_argument("--tol-heading-deg", type=float, metavar="DEG",
@@ -84,7 +82,7 @@ def run(args) -> int:
     options = {"tol_pos_m": args.tol_pos_m,
                "tol_heading_rad": None if args.tol_heading_deg is None
                else math.radians(args.tol_heading_deg),
-               "report": not args.no_report, "replay": args.replay, "units": args.units}
+               "report": args.report, "replay": args.replay, "units": args.units}
     with progress_bar(len(runs), "batch", unit="run", quiet=args.quiet) as bar:
         records = grade_folders(runs, args.dir, out_root, options, jobs=jobs,
                                 on_done=lambda rec: bar.update(1))

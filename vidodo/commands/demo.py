@@ -12,16 +12,17 @@ import shutil
 import time
 from pathlib import Path
 
+from ._options import add_out, add_switch, add_units
+
 NAME = "demo"
 HELP = "render a run of our own, grade it, fit the robot profile, write every output"
 
 def add_arguments(parser):
-    parser.add_argument("--out", default="vidodo-demo", help="output folder (default: %(default)s)")
+    add_out(parser, "output folder (default: %(default)s)", default="vidodo-demo")
     parser.add_argument("--scenario", default="default", help="scenario name or TOML file")
     parser.add_argument("--seed", type=int, default=0, help="random seed of the render")
-    parser.add_argument("--units", choices=("mm", "in", "m"), default="mm",
-                        help="units of displayed figures")
-    parser.add_argument("--no-replay", action="store_true", help="skip the annotated replay")
+    add_units(parser)
+    add_switch(parser, "replay", True, "write the annotated replay")
     parser.add_argument("--rerender", action="store_true", help="ignore the cached run")
 
 
@@ -75,7 +76,7 @@ def run(args) -> int:
     run_dir = _ensure_run(args, out, progress)
     t_render = time.perf_counter() - t0
     result = grade_run_folder(
-        run_dir, out / "grade", progress=progress, replay=not args.no_replay, units=args.units,
+        run_dir, out / "grade", progress=progress, replay=args.replay, units=args.units,
         tune=True,
     )
     t_total = time.perf_counter() - t0

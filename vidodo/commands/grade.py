@@ -7,6 +7,8 @@ import sys
 from pathlib import Path
 
 from ..errors import EXIT_OK, EXIT_TOLERANCE, InputError
+from ..units import length_factor
+from ._options import add_old_spelling, add_out, add_switch, add_units
 
 NAME = "grade"
 HELP = "measure the run from the video, line up the log, report drift and events"
@@ -18,7 +20,6 @@ DESCRIPTION = (
     "the run could not be measured."
 )
 
-_UNITS = {"mm": 1000.0, "m": 1.0, "in": 1.0 / 0.0254}
 
 
 def add_arguments(parser):
@@ -30,19 +31,17 @@ def add_arguments(parser):
     parser.add_argument("--camera", type=Path, help="camera profile (TOML), if calibrated")
     parser.add_argument("--track", type=Path,
                         help="reuse this truth track (track.csv) instead of tracking the video")
-    parser.add_argument("--clock-offset", type=float, metavar="S",
+    parser.add_argument("--clock-offset-s", type=float, metavar="S",
                         help="video time minus log time [s]; found automatically if absent")
+    add_old_spelling(parser, "--clock-offset", "clock_offset_s", type=float)
     parser.add_argument("--tol-pos-m", type=float, metavar="M",
                         help="largest final position error that passes [m]")
     parser.add_argument("--tol-heading-deg", type=float, metavar="DEG",
                         help="largest final heading error that passes [deg]")
-    parser.add_argument("--units", choices=sorted(_UNITS), default="mm",
-                        help="length unit of the printed verdict (files stay in metres)")
-    parser.add_argument("--out", type=Path, required=True, help="output folder")
-    parser.add_argument("--no-report", action="store_true",
-                        help="skip the plots, the HTML report and the replay")
-    parser.add_argument("--no-replay", action="store_true",
-                        help="skip the annotated replay video")
+    add_units(parser, "printed verdict and the plots")
+    add_out(parser, "output folder", required=True)
+    add_switch(parser, "report", True, "write the plots, the HTML report and the replay")
+    add_switch(parser, "replay", True, "write the annotated replay video")
 
 
 def _fmt(v, scale, digits=0, unit=""):
@@ -53,7 +52,7 @@ def _fmt(v, scale, digits=0, unit=""):
 
 def verdict_lines(result, *, units="mm"):
     """The short terminal verdict, one line per source plus events and clock."""
-    k = _UNITS[units]
+    k = length_factor(units)
     dig = 0 if units == "mm" else (3 if units == "m" else 2)
     c = result.clock
     lines = []
@@ -88,7 +87,7 @@ def verdict_lines(result, *, units="mm"):
 
 def run(args) -> int:
     """Grade, write, print the verdict; exit 0 pass, 4 outside tolerance."""
-    from ..pipeline import Tolerances, grade_run
+    from ..pipeline import GradeSettings, Tolerances, grade_run
     from ..progress import progress_bar
     from ..report.grade_files import write_outputs
 
@@ -103,19 +102,20 @@ def run(args) -> int:
         raise InputError(f"{args.video}: file not found; check the video path")
     with progress_bar(desc="tracking", quiet=args.quiet) as bar:
         result = grade_run(args.video, args.log, args.robot, args.field, args.camera,
-                           clock_offset_s=args.clock_offset, tolerances=tol, progress=bar,
-                           track=args.track)
+                           settings=GradeSettings(clock_offset_s=args.clock_offset_s,
+                                                  tolerances=tol),
+                           track=args.track, progress=bar)
     write_outputs(result, args.out)
-    if not args.no_report:
-        from ..report.build import render_all
+    if args.report:
+        from ..report.build import write_report
 
-        replay = not args.no_replay
+        replay = args.replay
         if replay and not args.video.is_file():
             replay = False
             print(f"vidodo grade: warning: {args.video}: not found, so no replay video "
                   "(graded from --track)", file=sys.stderr)
         with progress_bar(desc="report", quiet=args.quiet) as bar:
-            render_all(args.out, args.out, replay=replay, units=args.units, progress=bar)
+            write_report(args.out, args.out, replay=replay, units=args.units, progress=bar)
     for w in result.warnings:
         print(f"vidodo grade: warning: {w}", file=sys.stderr)
     if not args.quiet:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ..units import LENGTH_UNITS
+from ._options import add_out, add_switch, add_units
 
 NAME = "report"
 HELP = "rebuild the plots and the one-file HTML report from a grade folder"
@@ -20,25 +20,23 @@ DESCRIPTION = (
 def add_arguments(parser):
     """Options of the verb."""
     parser.add_argument("grade_dir", type=Path, help="folder written by `vidodo grade --out`")
-    parser.add_argument("--out", type=Path, default=None,
-                        help="where to write (default: the grade folder itself)")
-    parser.add_argument("--units", choices=tuple(LENGTH_UNITS), default="mm",
-                        help="length unit shown in the plots and the report")
-    parser.add_argument("--replay", action="store_true",
-                        help="also write replay.mp4 (the footage with tracks drawn in)")
+    add_out(parser, "where to write (default: the grade folder itself)", default=None)
+    add_units(parser, "plots and the report")
+    add_switch(parser, "replay", False,
+               "write replay.mp4 (the footage with tracks drawn in)")
 
 
 def run(args) -> int:
     """Rebuild the pictures; print what was written."""
     from ..outputs import staged_dir
     from ..progress import progress_bar
-    from ..report.build import load_grade_dir, render_all
+    from ..report.build import load_grade_dir, write_report
 
     load_grade_dir(args.grade_dir)  # fail early, before anything is written
     out = args.out or args.grade_dir
     with staged_dir(out) as stage, progress_bar(None, "replay", quiet=args.quiet or not
                                                 args.replay) as bar:
-        written = render_all(args.grade_dir, stage, replay=args.replay, units=args.units,
+        written = write_report(args.grade_dir, stage, replay=args.replay, units=args.units,
                              progress=bar)
     if not args.quiet:
         for p in written:

@@ -11,6 +11,7 @@ import numpy as np
 from ..outputs import atomic_file
 from ..profiles import load_camera, load_field, load_robot
 from ..progress import Progress
+from ._options import add_out
 
 NAME = "track"
 HELP = "measure the robot's floor pose in every frame of a video (the truth track)"
@@ -29,8 +30,10 @@ def add_arguments(parser):
     parser.add_argument("--robot", type=Path, required=True, help="robot profile (TOML)")
     parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
     parser.add_argument("--camera", type=Path, help="camera profile (TOML): lens, readout")
-    parser.add_argument("--out", type=Path, required=True, help="track CSV to write")
-    parser.add_argument("--refine", choices=("hybrid", "apriltag", "subpix", "contour", "none"),
+    from ..track import REFINE_METHODS
+
+    add_out(parser, "track CSV to write", required=True)
+    parser.add_argument("--refine", choices=tuple(REFINE_METHODS),
                         default="hybrid", help="corner refinement (default: %(default)s)")
     parser.add_argument("--readout-ms", type=float,
                         help="rolling-shutter readout time [ms] (default: camera profile)")

@@ -14,6 +14,7 @@ from ..logs import read_log
 from ..profile_fit import FitRun
 from ..profiles import load_robot
 from ..tuning import tune_profile, write_tuning
+from ._options import add_old_spelling, add_out
 
 NAME = "tune"
 HELP = "fit wheel radii, offsets and IMU scale to the video truth; write a corrected profile"
@@ -36,9 +37,10 @@ def add_arguments(parser):
                         help="robot profile to correct (default: the one the grade used)")
     parser.add_argument("--field", type=Path, help="field profile (for VIDEO LOG pairs)")
     parser.add_argument("--camera", type=Path, help="camera profile (for VIDEO LOG pairs)")
-    parser.add_argument("--out", type=Path, required=True, help="folder to write")
-    parser.add_argument("--window", type=float, default=0.4, metavar="S",
-                        help="length of each fitting window in seconds (default 0.4)")
+    add_out(parser, "folder to write", required=True)
+    parser.add_argument("--window-s", type=float, default=0.4, metavar="S",
+                        help="length of each fitting window [s] (default: %(default)s)")
+    add_old_spelling(parser, "--window", "window_s", type=float)
     parser.add_argument("--no-clock", action="store_true",
                         help="keep the graded clock offset; do not fit offset and rate")
 
@@ -187,14 +189,14 @@ def run(args) -> int:
     logs = [read_log(s[1], robot) for s in specs]
     runs = [FitRun(log=lg.frame, **s[0]) for s, lg in zip(specs, logs, strict=True)]
     tuned = tune_profile(runs, robot, lambda prof: [read_log(s[1], prof) for s in specs],
-                         window_s=args.window, fit_clock=not args.no_clock)
+                         window_s=args.window_s, fit_clock=not args.no_clock)
     fit, drift = tuned.fit, tuned.drift
     write_tuning(tuned, args.out)
     for w in fit.warnings:
         print(f"vidodo tune: warning: {w}", file=sys.stderr)
     if not args.quiet:
         n = sum(fit.n_windows.values())
-        print(f"{len(runs)} run(s), {n} windows of {args.window:g} s outside events")
+        print(f"{len(runs)} run(s), {n} windows of {args.window_s:g} s outside events")
         print(format_table(fit.table))
         if len(drift):
             print("\nanchored drift before -> after the correction:")

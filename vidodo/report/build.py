@@ -1,6 +1,6 @@
 """Everything a person looks at, from one grade: plots, the HTML report, the replay.
 
-:func:`render_all` is what ``vidodo grade`` and ``vidodo report`` call after the grade
+:func:`write_report` is what ``vidodo grade`` and ``vidodo report`` call after the grade
 outputs (``drift.csv``, ``events.csv``, ``summary.json``) are written. It reads those
 files back, so the pictures show exactly the figures the files hold.
 """
@@ -17,7 +17,7 @@ from ..errors import InputError, VidodoError
 from .page import write_html
 from .plots import source_prefixes, write_plots
 
-__all__ = ["GradeData", "load_grade_dir", "field_from_summary", "render_all",
+__all__ = ["GradeData", "load_grade_dir", "field_from_summary", "write_report",
            "PLOT_CAPTIONS"]
 
 PLOT_CAPTIONS = {
@@ -147,8 +147,8 @@ def _run_title(summary: dict) -> str:
     return p.parent.name if p.name == "video.mp4" and p.parent.name else p.name
 
 
-def render_all(grade_result_or_dir, out_dir, *, replay: bool = True, units: str = "mm",
-               progress=None) -> list[Path]:
+def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: str = "mm",
+                 progress=None) -> list[Path]:
     """Write the plots, the HTML report and (optionally) the annotated replay.
 
     Parameters

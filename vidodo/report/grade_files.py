@@ -84,6 +84,14 @@ OUTPUT_FILES = ("drift.csv", "events.csv", "summary.json", "track.csv")
 def write_outputs(result, out_dir, *, write_track=True) -> list[Path]:
     """Write a :class:`~vidodo.pipeline.GradeResult` into ``out_dir``.
 
+    Parameters
+    ----------
+    result : GradeResult
+    out_dir : str or Path
+        Folder to write (staged: nothing half-written on failure).
+    write_track : bool
+        Also write ``track.csv`` (the truth track, reusable with ``--track``).
+
     Returns
     -------
     list of Path

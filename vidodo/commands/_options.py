@@ -1,0 +1,32 @@
+"""Options several verbs share, spelled and explained the same way everywhere."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+
+def add_out(parser, help_text, **kwargs):
+    """``-o/--out``: where the verb writes."""
+    parser.add_argument("-o", "--out", type=kwargs.pop("type", Path), help=help_text, **kwargs)
+
+
+def add_units(parser, what="printed figures and plots"):
+    """``--units``: display length unit, choices from :data:`vidodo.units.LENGTH_UNITS`."""
+    from ..units import LENGTH_UNITS
+
+    parser.add_argument("--units", choices=tuple(LENGTH_UNITS), default="mm",
+                        help=f"length unit of the {what} (files stay SI; default: "
+                        "%(default)s)")
+
+
+def add_switch(parser, name, default, help_text):
+    """``--NAME/--no-NAME``, the same pair on every verb; only the default differs."""
+    parser.add_argument(f"--{name}", action=argparse.BooleanOptionalAction, default=default,
+                        help=f"{help_text} (default: {'on' if default else 'off'})")
+
+
+def add_old_spelling(parser, old, dest, **kwargs):
+    """An earlier spelling of an option, still accepted but not shown in ``--help``."""
+    parser.add_argument(old, dest=dest, help=argparse.SUPPRESS, default=argparse.SUPPRESS,
+                        **kwargs)
