@@ -1,0 +1,249 @@
+"""Tile-corner candidates for the corner picker: seam crossings located to a fraction of a pixel.
+
+A tile corner in footage is where two thin seams cross (or where a seam meets the field
+edge). Generic corner detectors place such a crossing poorly when the seams are faint
+and a pixel or two wide, so each candidate is located from the seams themselves:
+
+1. Thin-line strength from the Hessian of the blurred frame (a line curves the
+   intensity strongly across and little along; after the vesselness idea of Frangi et
+   al., MICCAI 1998). Points where lines of two directions meet are the strongest
+   "corners" of that line map (Shi-Tomasi, ``cv2.goodFeaturesToTrack``).
+2. Around each, the two dominant line directions come from a histogram of the Hessian's
+   line directions, weighted by line strength.
+3. Each line is sampled across every 2 px along +-``half_px`` (the crossing itself
+   left out); the line centre in each cross-section is the centroid of its contrast,
+   and a straight line is fitted to the centres (``cv2.fitLine``, Huber weights). Lens
+   distortion bends a seam by far less than a pixel over so short a span.
+4. The candidate is the intersection of the two lines; candidates whose lines are too
+   short, too noisy or meet far from the start are dropped.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+__all__ = ["CornerSettings", "line_strength", "refine_crossing", "corner_candidates"]
+
+
+@dataclass(frozen=True)
+class CornerSettings:
+    """How candidates are found and located."""
+
+    max_candidates: int = 1500
+    """Most candidates kept (strongest first)."""
+    min_distance_px: float = 8.0
+    """Candidates closer than this are merged [px]."""
+    half_px: float = 30.0
+    """Half length of each seam sampled around a crossing [px]."""
+    gap_px: float = 4.0
+    """Half length left out around the crossing itself [px]."""
+    across_px: float = 6.0
+    """Half width of each cross-section [px]."""
+    sigma_px: float = 1.2
+    """Blur before sampling [px]."""
+    max_rms_px: float = 0.35
+    """Largest RMS of the group centres about a fitted line [px]."""
+    chunks: int = 3
+    """Groups of cross-sections averaged on each arm of a seam."""
+    max_shift_px: float = 6.0
+    """Largest distance between the start and the located crossing [px]."""
+    min_angle_deg: float = 20.0
+    """Smallest angle between the two lines [deg]."""
+
+
+def _hessian(grey, sigma_px):
+    g = cv2.GaussianBlur(grey.astype(np.float32), (0, 0), sigma_px)
+    dxx = cv2.Sobel(g, cv2.CV_32F, 2, 0, ksize=3)
+    dyy = cv2.Sobel(g, cv2.CV_32F, 0, 2, ksize=3)
+    dxy = cv2.Sobel(g, cv2.CV_32F, 1, 1, ksize=3)
+    return dxx, dyy, dxy
+
+
+def line_strength(grey, sigma_px=1.5):
+    """Thin-line strength and line direction per pixel.
+
+    Returns
+    -------
+    (ndarray (H, W) float32, ndarray (H, W) float32)
+        ``|l_big| - 2 |l_small|`` clipped at 0 (Hessian eigenvalues), and the angle of
+        the line (the eigenvector of the smaller curvature) [rad], in [0, pi).
+    """
+    dxx, dyy, dxy = _hessian(grey, sigma_px)
+    half_tr = (dxx + dyy) / 2
+    root = np.sqrt(((dxx - dyy) / 2) ** 2 + dxy ** 2)
+    l_big = np.abs(half_tr) + root
+    l_small = np.abs(np.abs(half_tr) - root)
+    strength = np.maximum(l_big - 2 * l_small, 0)
+    # direction of largest curvature (across the line), then turned by 90 degrees
+    across = 0.5 * np.arctan2(2 * dxy, dxx - dyy)
+    # the eigenvector angle above belongs to the larger signed eigenvalue; for a dark
+    # line (positive curvature across) that is the across direction, for a bright one
+    # the along direction
+    along = np.where(half_tr >= 0, across + np.pi / 2, across)
+    return strength, np.mod(along, np.pi).astype(np.float32)
+
+
+def _directions(strength, angle, p, half, min_angle_rad):
+    h, w = strength.shape
+    u0, v0 = int(round(p[0])), int(round(p[1]))
+    r = int(half)
+    a, b = max(v0 - r, 0), min(v0 + r + 1, h)
+    c, d = max(u0 - r, 0), min(u0 + r + 1, w)
+    s = strength[a:b, c:d].ravel()
+    ang = angle[a:b, c:d].ravel()
+    if s.size == 0 or not np.any(s > 0):
+        return None
+    bins = 36
+    hist = np.bincount((ang / np.pi * bins).astype(int) % bins, weights=s, minlength=bins)
+    hist = hist + 0.5 * (np.roll(hist, 1) + np.roll(hist, -1))
+    i1 = int(np.argmax(hist))
+    sep = np.abs((np.arange(bins) - i1 + bins / 2) % bins - bins / 2) * (np.pi / bins)
+    masked = np.where(sep >= min_angle_rad, hist, -1.0)
+    i2 = int(np.argmax(masked))
+    if masked[i2] <= 0.2 * hist[i1]:
+        return None
+    return [(i + 0.5) * np.pi / bins for i in (i1, i2)]
+
+
+def _fit_line(img, p, theta, cfg: CornerSettings):
+    """Fit one seam through about ``p`` at angle ``theta``: (point, direction, rms) or None.
+
+    The cross-sections of each arm are averaged in ``cfg.chunks`` groups (a faint seam
+    on a grainy floor is located by its mean profile, not by single sections); each
+    group's line centre is the vertex of the parabola through the extreme of the mean
+    profile and its neighbours 0.5 px either side, and the line is fitted to them.
+    """
+    d = np.array([math.cos(theta), math.sin(theta)])
+    centre = np.asarray(p, float)
+    along = np.arange(-cfg.half_px, cfg.half_px + 1e-9, 1.0)
+    along = along[np.abs(along) >= cfg.gap_px]
+    groups = np.array_split(np.arange(along.size), 2 * cfg.chunks)
+    across = np.arange(-cfg.across_px, cfg.across_px + 1e-9, 0.25)
+    fit = None
+    for _ in range(3):
+        n = np.array([-d[1], d[0]])
+        pts = centre + along[:, None] * d
+        grid = pts[:, None, :] + across[None, :, None] * n
+        prof = cv2.remap(img, grid[..., 0].astype(np.float32), grid[..., 1].astype(np.float32),
+                         cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=np.nan)
+        mean = np.array([np.mean(prof[g], axis=0) for g in groups])
+        if not np.all(np.isfinite(mean)):
+            return None
+        # the tiles either side may differ in brightness: remove the straight line
+        # through the profile's ends before looking for the seam
+        ramp = np.linspace(0.0, 1.0, across.size)[None, :]
+        contrast = mean - (mean[:, :1] + ramp * (mean[:, -1:] - mean[:, :1]))
+        sign = -1.0 if np.sum(np.min(contrast, axis=1)) < -np.sum(np.max(contrast, axis=1)) \
+            else 1.0
+        val = sign * contrast
+        k = np.argmax(val, axis=1)
+        if np.any(k < 2) or np.any(k > across.size - 3):
+            return None
+        rows = np.arange(len(groups))
+        y0, y1, y2 = val[rows, k - 2], val[rows, k], val[rows, k + 2]
+        den = y0 - 2 * y1 + y2
+        if np.any(den >= -1e-9):
+            return None
+        off = across[k] + 0.25 * (y0 - y2) / den
+        at = np.array([along[g].mean() for g in groups])
+        samples = centre + at[:, None] * d + off[:, None] * n
+        fit = _line_through(samples)
+        q, d_new, _ = fit
+        if d_new @ d < 0:
+            d_new = -d_new
+        centre = q + ((centre - q) @ d_new) * d_new
+        d = d_new
+    return fit
+
+
+def _line_through(samples):
+    """Total-least-squares line: (point, unit direction, RMS distance)."""
+    q = samples.mean(axis=0)
+    _, _, vt = np.linalg.svd(samples - q)
+    d = vt[0]
+    resid = (samples - q) @ vt[1]
+    return q, d, float(np.sqrt(np.mean(resid ** 2)))
+
+
+def _intersect(q1, d1, q2, d2):
+    a = np.column_stack([d1, -d2])
+    if abs(np.linalg.det(a)) < 1e-6:
+        return None
+    s = np.linalg.solve(a, q2 - q1)
+    return q1 + s[0] * d1
+
+
+def refine_crossing(img, strength, angle, p, cfg: CornerSettings | None = None):
+    """Locate the seam crossing nearest ``p`` to a fraction of a pixel.
+
+    Parameters
+    ----------
+    img : ndarray (H, W) float32
+        The frame in grey, blurred by ``cfg.sigma_px``.
+    strength, angle : ndarray (H, W)
+        From :func:`line_strength`.
+    p : array_like (2,)
+        Starting point [px].
+
+    Returns
+    -------
+    ndarray (2,) or None
+        The crossing [px], or None when two straight seams are not found there.
+    """
+    cfg = cfg or CornerSettings()
+    dirs = _directions(strength, angle, p, cfg.half_px * 0.6, math.radians(cfg.min_angle_deg))
+    if dirs is None:
+        return None
+    lines = []
+    for theta in dirs:
+        fit = _fit_line(img, p, theta, cfg)
+        if fit is None or fit[2] > cfg.max_rms_px:
+            return None
+        lines.append(fit)
+    (q1, d1, _), (q2, d2, _) = lines
+    if abs(float(d1[0] * d2[1] - d1[1] * d2[0])) < math.sin(math.radians(cfg.min_angle_deg)):
+        return None
+    x = _intersect(q1, d1, q2, d2)
+    if x is None or np.linalg.norm(x - np.asarray(p, float)) > cfg.max_shift_px:
+        return None
+    return x
+
+
+def corner_candidates(grey, cfg: CornerSettings | None = None):
+    """Tile-corner candidates of one frame, located on the seams.
+
+    Parameters
+    ----------
+    grey : ndarray (H, W) uint8
+    cfg : CornerSettings, optional
+
+    Returns
+    -------
+    ndarray of shape (N, 2)
+        Candidate corners [px] (OpenCV pixels, centres at integers), strongest first.
+    """
+    cfg = cfg or CornerSettings()
+    grey = np.asarray(grey)
+    if grey.ndim == 3:
+        grey = cv2.cvtColor(grey, cv2.COLOR_BGR2GRAY)
+    strength, angle = line_strength(grey)
+    img = cv2.GaussianBlur(grey.astype(np.float32), (0, 0), cfg.sigma_px)
+    start = cv2.goodFeaturesToTrack(strength, cfg.max_candidates, 0.001,
+                                    cfg.min_distance_px, blockSize=9)
+    if start is None:
+        return np.zeros((0, 2))
+    out = []
+    for p in start.reshape(-1, 2):
+        x = refine_crossing(img, strength, angle, p, cfg)
+        if x is None:
+            continue
+        if out and np.min(np.linalg.norm(np.asarray(out) - x, axis=1)) < cfg.min_distance_px / 2:
+            continue
+        out.append(x)
+        if len(out) >= cfg.max_candidates:
+            break
+    return np.asarray(out, float).reshape(-1, 2)
