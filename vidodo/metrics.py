@@ -84,10 +84,12 @@ class Alignment:
 def umeyama(src, dst, *, with_scale=False) -> Alignment:
     """Least-squares rigid (or similarity) transform from ``src`` to ``dst``.
 
-    Follows Umeyama (IEEE TPAMI 13(4):376, 1991), eqs. (34)-(42): with
-    ``Sigma_xy = (1/n) sum (y_i - mu_y)(x_i - mu_x)^T = U D V^T``, ``S = diag(1,..,-1)``
-    when ``det(Sigma_xy) < 0``, ``R = U S V^T``, ``c = tr(D S) / sigma_x^2`` and
-    ``t = mu_y - c R mu_x``. The sign correction keeps R a rotation, never a reflection.
+    Follows Umeyama (IEEE TPAMI 13(4):376, 1991), eqs. (34)-(43): with
+    ``Sigma_xy = (1/n) sum (y_i - mu_y)(x_i - mu_x)^T = U D V^T``, ``R = U S V^T``,
+    ``c = tr(D S) / sigma_x^2`` and ``t = mu_y - c R mu_x``. ``S = diag(1,..,-1)``
+    is chosen by the rank-aware rule of eq. (43) (:func:`_umeyama_sign`): from
+    ``det(Sigma_xy)`` at full rank, from ``det(U) det(V)`` at rank d - 1 (collinear
+    points: a straight run, two points). R is always a rotation, never a reflection.
 
     Parameters
     ----------
@@ -128,16 +130,31 @@ def umeyama(src, dst, *, with_scale=False) -> Alignment:
     cov = yc.T @ xc / n
     u, dvals, vt = np.linalg.svd(cov)
     s = np.ones(d)
-    if np.linalg.det(cov) < 0 or (
-        np.linalg.matrix_rank(cov) == d - 1 and np.linalg.det(u) * np.linalg.det(vt) < 0
-    ):
-        s[-1] = -1.0
+    s[-1] = _umeyama_sign(cov, u, dvals, vt)
     rot = u @ np.diag(s) @ vt
     c = float((dvals * s).sum() / var_x) if with_scale else 1.0
     t = mu_y - c * rot @ mu_x
     resid = y - (c * x @ rot.T + t)
     rmse = float(np.sqrt((resid**2).sum(axis=1).mean()))
     return Alignment(rotation=rot, translation=t, scale=c, rmse_m=rmse, n_points=int(n))
+
+
+def _umeyama_sign(cov, u, dvals, vt) -> float:
+    """Last diagonal entry of Umeyama's S (1991, eq. 43), rank first.
+
+    The rank is counted with the tolerance of ``numpy.linalg.matrix_rank`` (largest
+    singular value x d x machine epsilon). Full rank: S's sign is that of
+    ``det(Sigma_xy)``. Rank d - 1 (collinear source or destination points, e.g. a
+    straight run or two points): ``det(Sigma_xy)`` is rounding noise and the sign is
+    ``det(U) det(V)``. Lower rank (no unique rotation in eq. 43): the same product,
+    which still gives a proper rotation.
+    """
+    d = cov.shape[0]
+    tol = float(dvals.max(initial=0.0)) * d * np.finfo(float).eps
+    rank = int((dvals > tol).sum())
+    if rank == d:
+        return -1.0 if np.linalg.det(cov) < 0 else 1.0
+    return -1.0 if np.linalg.det(u) * np.linalg.det(vt) < 0 else 1.0
 
 
 def transform_poses(poses, alignment: Alignment):

@@ -1379,6 +1379,11 @@ def _track_video(video_path, robot, field, camera, registrar, progress, refine, 
     with VideoReader(video_path, threaded=threaded, grey=True,
                      decoder_threads=1 if threaded else None) as reader:
         info = reader.info
+        if not info.start_known:
+            warnings.append(
+                "ffprobe not found: frame times count from the video stream's start, not "
+                "the container's times; a --clock-offset measured against the file's "
+                "times must subtract the stream's start time (install ffmpeg to avoid this)")
         if camera is not None and (camera.width_px, camera.height_px) != (
                 info.width_px, info.height_px):
             warnings.append(
