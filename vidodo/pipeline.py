@@ -31,6 +31,7 @@ from . import __version__
 from .errors import InputError, MeasurementError
 from .events import EventSettings, active_kinds, detect_events, events_frame
 from .metrics import (
+    RPE_PAIRS_RULE,
     SourceMetrics,
     anchor_heading_from_travel,
     anchor_poses,
@@ -363,7 +364,7 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
         "vidodo_version": __version__,
         "inputs": dict(inputs or {}),
         "settings": {"events": asdict(event_settings or EventSettings()), "anchor": anchor,
-                     "anchor_heading": anchor_heading},
+                     "anchor_heading": anchor_heading, "rpe_pairs": RPE_PAIRS_RULE},
         "clock": {"offset_s": clock.offset_s, "sigma_s": clock.sigma_s,
                   "confidence": clock.confidence, "method": clock.method,
                   "source": clock.source, "rate": clock.rate, "ref_log_s": clock.ref_log_s},
@@ -386,7 +387,7 @@ def grade_tracks(truth, log, robot, *, clock_offset_s=None, tolerances=None,
 
 
 def _without_motion_figures(m: SourceMetrics) -> SourceMetrics:
-    return replace(m, drift_pct=None, heading_drift_deg_per_turn=None, rpe_0p5m_rmse_m=None,
+    return replace(m, drift_pct=None, heading_drift_deg_per_turn=None, rpe_path_rmse_m=None,
                    ate_rmse_m=None, best_fit_scale=None, best_fit_angle_rad=None)
 
 
