@@ -230,7 +230,7 @@ def test_truth_without_motion(rendered_run):
     assert any("no motion" in w for w in res.warnings)
     for m in res.metrics.values():
         assert m.drift_pct is None and m.heading_drift_deg_per_turn is None
-        assert m.rpe_0p5m_rmse_m is None
+        assert m.rpe_path_rmse_m is None
 
 
 def test_tolerances():

@@ -140,17 +140,50 @@ def test_analyse_timing_finds_drops_and_duplicates():
     assert timing.interval_s == pytest.approx(1 / 30.0)
 
 
-def test_repeated_images_found(tmp_path):
-    """A still picture encoded as video decodes to identical frames: all but the first
-    are reported as repeats (duplicated)."""
+@pytest.mark.parametrize("codec", ["libx264", "libx265"])
+def test_identical_images_with_own_timestamps_are_frames(tmp_path, codec):
+    """A still picture encoded as video decodes to bit-identical frames, each with its
+    own presentation time (ffprobe lists them all): every one is a frame, none a
+    duplicate; they are only noted as identical images."""
     path = tmp_path / "still.mp4"
-    _ffmpeg("-f", "lavfi", "-i", "color=gray:size=160x120:rate=30", "-frames:v", "6",
-            "-c:v", "libx264", "-pix_fmt", "yuv420p", str(path))
+    extra = ["-x265-params", "log-level=error"] if codec == "libx265" else []
+    _ffmpeg("-f", "lavfi", "-i", "color=gray:size=160x120:rate=30", "-frames:v", "40",
+            "-c:v", codec, *extra, "-pix_fmt", "yuv420p", str(path))
+    truth = _ffprobe_pts(path)
     with VideoReader(path) as reader:
-        flags = [reader.last_frame_repeated for _i, _t, _f in reader]
+        got = [(t, reader.last_frame_repeated) for _i, t, _f in reader]
         timing = reader.timing()
-    assert flags == [False] + [True] * 5
-    assert timing.duplicated == (1, 2, 3, 4, 5)
+    assert len(got) == len(truth) == 40
+    assert np.max(np.abs(np.array([t for t, _ in got]) - truth)) < 1e-3
+    assert not any(flag for _t, flag in got)
+    assert timing.duplicated == ()
+    assert timing.identical == tuple(range(1, 40))
+    assert not any("duplicated" in w for w in timing.warnings)
+
+
+def test_analyse_timing_identical_image_at_repeated_time_is_a_duplicate():
+    """Hand-built: frame 3 repeats frame 2's image and time (a true duplicate); frame 5
+    repeats frame 4's image at a later time (a still scene: a frame)."""
+    t = np.array([0, 1, 2, 2, 3, 4, 5]) / 30.0
+    same = [False, False, False, True, False, True, False]
+    timing = analyse_timing(t, same)
+    assert timing.duplicated == (3,)
+    assert timing.identical == (5,)
+
+
+def test_stream_start_time_kept_as_ffprobe_shows(vfr_clip, tmp_path):
+    """A stream that starts at 1.5 s (ffmpeg's -itsoffset writes an edit list): frame
+    times equal ffprobe's pts_time, 1.5 s on, not OpenCV's times from the start."""
+    path = tmp_path / "late.mp4"
+    _ffmpeg("-itsoffset", "1.5", "-i", str(vfr_clip), "-c", "copy", str(path))
+    truth = _ffprobe_pts(path)
+    assert truth[0] == pytest.approx(1.5, abs=1e-3)  # ffprobe: the stream starts at 1.5 s
+    assert probe_video(path).start_s == pytest.approx(1.5, abs=1e-6)
+    for grey in (False, True):
+        with VideoReader(path, grey=grey) as reader:
+            t = np.array([t for _i, t, _f in reader])
+        assert t.size == truth.size
+        assert np.max(np.abs(t - truth)) < 1e-3
 
 
 def test_luma_frames_match_colour_grey(vfr_clip):

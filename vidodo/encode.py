@@ -16,7 +16,8 @@ rewrites the timing tables of the finished MP4 so that frame ``i`` is presented 
 
 Readers see these times through ffprobe's ``pts_time`` and OpenCV's
 ``CAP_PROP_POS_MSEC`` after ``read()``; OpenCV counts from the first frame, so it
-reports ``frame_times_s - frame_times_s[0]``.
+reports ``frame_times_s - frame_times_s[0]`` (``vidodo.video`` adds the stream's start
+time back and hands out ``frame_times_s``).
 """
 
 from __future__ import annotations

@@ -13,8 +13,10 @@ the floor:
 
 Relative pose error (RPE, Sturm et al. 2012) compares the motion between two instants:
 ``E_ij = (Q_i^-1 Q_j)^-1 (P_i^-1 P_j)`` where Q is truth and P the source; it is
-independent of the alignment. Pairs are chosen by time (``t_j >= t_i + delta_s``) or by
-distance travelled along the truth path (``s_j >= s_i + delta_m``).
+independent of the alignment. Pairs follow the common rule (:data:`RPE_PAIRS_RULE`: the
+TUM benchmark tools, Sturm et al. 2012, and evo's RPE over all pairs taken from the
+reference): for every i, j is the later sample whose time (or truth path length) from i
+is nearest to the delta, kept only within 10 % of it.
 
 Path length is accumulated only over steps longer than a gate set by the truth track's
 1-sigma (:func:`path_length`), so that position noise on a robot standing still does
@@ -48,6 +50,8 @@ __all__ = [
     "pairs_by_time",
     "pairs_by_distance",
     "rpe",
+    "rpe_key",
+    "RPE_PAIRS_RULE",
     "ate",
     "source_metrics",
     "drift_table",
@@ -84,10 +88,12 @@ class Alignment:
 def umeyama(src, dst, *, with_scale=False) -> Alignment:
     """Least-squares rigid (or similarity) transform from ``src`` to ``dst``.
 
-    Follows Umeyama (IEEE TPAMI 13(4):376, 1991), eqs. (34)-(42): with
-    ``Sigma_xy = (1/n) sum (y_i - mu_y)(x_i - mu_x)^T = U D V^T``, ``S = diag(1,..,-1)``
-    when ``det(Sigma_xy) < 0``, ``R = U S V^T``, ``c = tr(D S) / sigma_x^2`` and
-    ``t = mu_y - c R mu_x``. The sign correction keeps R a rotation, never a reflection.
+    Follows Umeyama (IEEE TPAMI 13(4):376, 1991), eqs. (34)-(43): with
+    ``Sigma_xy = (1/n) sum (y_i - mu_y)(x_i - mu_x)^T = U D V^T``, ``R = U S V^T``,
+    ``c = tr(D S) / sigma_x^2`` and ``t = mu_y - c R mu_x``. ``S = diag(1,..,-1)``
+    is chosen by the rank-aware rule of eq. (43) (:func:`_umeyama_sign`): from
+    ``det(Sigma_xy)`` at full rank, from ``det(U) det(V)`` at rank d - 1 (collinear
+    points: a straight run, two points). R is always a rotation, never a reflection.
 
     Parameters
     ----------
@@ -128,16 +134,31 @@ def umeyama(src, dst, *, with_scale=False) -> Alignment:
     cov = yc.T @ xc / n
     u, dvals, vt = np.linalg.svd(cov)
     s = np.ones(d)
-    if np.linalg.det(cov) < 0 or (
-        np.linalg.matrix_rank(cov) == d - 1 and np.linalg.det(u) * np.linalg.det(vt) < 0
-    ):
-        s[-1] = -1.0
+    s[-1] = _umeyama_sign(cov, u, dvals, vt)
     rot = u @ np.diag(s) @ vt
     c = float((dvals * s).sum() / var_x) if with_scale else 1.0
     t = mu_y - c * rot @ mu_x
     resid = y - (c * x @ rot.T + t)
     rmse = float(np.sqrt((resid**2).sum(axis=1).mean()))
     return Alignment(rotation=rot, translation=t, scale=c, rmse_m=rmse, n_points=int(n))
+
+
+def _umeyama_sign(cov, u, dvals, vt) -> float:
+    """Last diagonal entry of Umeyama's S (1991, eq. 43), rank first.
+
+    The rank is counted with the tolerance of ``numpy.linalg.matrix_rank`` (largest
+    singular value x d x machine epsilon). Full rank: S's sign is that of
+    ``det(Sigma_xy)``. Rank d - 1 (collinear source or destination points, e.g. a
+    straight run or two points): ``det(Sigma_xy)`` is rounding noise and the sign is
+    ``det(U) det(V)``. Lower rank (no unique rotation in eq. 43): the same product,
+    which still gives a proper rotation.
+    """
+    d = cov.shape[0]
+    tol = float(dvals.max(initial=0.0)) * d * np.finfo(float).eps
+    rank = int((dvals > tol).sum())
+    if rank == d:
+        return -1.0 if np.linalg.det(cov) < 0 else 1.0
+    return -1.0 if np.linalg.det(u) * np.linalg.det(vt) < 0 else 1.0
 
 
 def transform_poses(poses, alignment: Alignment):
@@ -376,22 +397,67 @@ def along_cross(err_xy, direction_rad):
     return rotate(e[:, 0], e[:, 1], -np.asarray(direction_rad, dtype=float))
 
 
-def pairs_by_time(t_s, delta_s):
-    """Index pairs ``(i, j)``: j is the first sample with ``t_j >= t_i + delta_s``."""
-    t = np.asarray(t_s, dtype=float)
-    j = np.searchsorted(t, t + delta_s - 1e-9, side="left")
-    i = np.arange(len(t))
-    keep = j < len(t)
+RPE_PAIRS_RULE = (
+    "RPE pairs: for every truth sample i, j is the later sample whose time (or truth path "
+    "length) from i is nearest to the delta, kept within 10 % of the delta (common "
+    "practice: the TUM benchmark tools; evo's RPE with all pairs from the reference)")
+"""How RPE pairs are chosen, as stated in the summary."""
+
+RPE_REL_TOL = 0.1
+"""Largest accepted deviation of a pair's span from the delta, relative to the delta
+(evo's default ``rel_delta_tol``, common practice)."""
+
+
+def pairs_by_time(t_s, delta_s, rel_tol=RPE_REL_TOL):
+    """Index pairs ``(i, j)``: j the later sample nearest to ``t_i + delta_s``.
+
+    Only pairs within ``rel_tol * delta_s`` of the delta are kept (see
+    :data:`RPE_PAIRS_RULE`).
+    """
+    return _nearest_pairs(t_s, delta_s, rel_tol)
+
+
+def pairs_by_distance(cum_length_m, delta_m, rel_tol=RPE_REL_TOL):
+    """Index pairs ``(i, j)``: j the later sample whose path length from i is nearest to
+    ``delta_m``, kept within ``rel_tol * delta_m`` (see :data:`RPE_PAIRS_RULE`)."""
+    return _nearest_pairs(cum_length_m, delta_m, rel_tol)
+
+
+def _nearest_pairs(values, delta, rel_tol):
+    """For every i, the j > i with ``values[j] - values[i]`` nearest to ``delta``.
+
+    ``values`` never decreases. Ties and flat stretches go to the lowest index, as an
+    argmin over ``j > i`` does (evo's ``filter_pairs_by_path`` with all pairs).
+    """
+    v = np.asarray(values, dtype=float)
+    n = v.size
+    if n < 2 or not delta > 0:
+        return np.zeros(0, int), np.zeros(0, int)
+    i = np.arange(n - 1)
+    target = v[i] + delta
+    hi = np.searchsorted(v, target, side="left")  # first j with v_j >= target (> i)
+    lo = np.maximum(np.searchsorted(v, v[np.maximum(hi - 1, 0)], side="left"), i + 1)
+    has_lo = hi - 1 > i
+    has_hi = hi < n
+    hi_c = np.minimum(hi, n - 1)
+    d_lo = np.where(has_lo, np.abs(v[np.minimum(lo, n - 1)] - target), np.inf)
+    d_hi = np.where(has_hi, np.abs(v[hi_c] - target), np.inf)
+    j = np.where(d_lo <= d_hi, lo, hi_c)
+    keep = np.minimum(d_lo, d_hi) <= rel_tol * delta
     return i[keep], j[keep]
 
 
-def pairs_by_distance(cum_length_m, delta_m):
-    """Index pairs ``(i, j)``: j is the first sample ``delta_m`` further along the path."""
-    s = np.asarray(cum_length_m, dtype=float)
-    j = np.searchsorted(s, s + delta_m - 1e-12, side="left")
-    i = np.arange(len(s))
-    keep = j < len(s)
-    return i[keep], j[keep]
+def rpe_key(delta, unit):
+    """Summary key of an RPE figure named by its delta, e.g. ``rpe_0p5m_rmse_m``.
+
+    Parameters
+    ----------
+    delta : float
+        The delta in its unit.
+    unit : {'m', 's'}
+    """
+    text = f"{float(delta):g}".replace(".", "p").replace("-", "m")
+    return f"rpe_{text}{unit}_rmse_m"
 
 
 def rpe(truth_poses, est_poses, i, j):
@@ -437,10 +503,11 @@ class SourceMetrics:
 
     ate_rmse_m: float | None
     """RMS position error after the best-fit SE(2) alignment [m]."""
-    rpe_0p5m_rmse_m: float | None
-    """RMS translational relative error over 0.5 m of truth path [m]."""
-    rpe_1s_rmse_m: float | None
-    """RMS translational relative error over 1 s [m]."""
+    rpe_path_rmse_m: float | None
+    """RMS translational relative error over ``rpe_delta_m`` of truth path [m]; written
+    to the summary under a key named by the delta (:func:`rpe_key`)."""
+    rpe_time_rmse_m: float | None
+    """RMS translational relative error over ``rpe_delta_s`` of time [m]."""
     final_err_m: float | None
     """Anchored position error at the last sample both cover [m]."""
     final_heading_err_rad: float | None
@@ -468,11 +535,20 @@ class SourceMetrics:
     best_fit_scale: float | None = None
     """Scale of a similarity (Sim(2)) fit of the source onto truth: a diagnostic of
     a length error (wheel radius), not used for ATE [-]."""
+    rpe_delta_m: float = 0.5
+    """Path length over which ``rpe_path_rmse_m`` is taken [m]."""
+    rpe_delta_s: float = 1.0
+    """Time over which ``rpe_time_rmse_m`` is taken [s]."""
 
     def to_dict(self) -> dict:
-        """Plain dict for JSON (None for figures that could not be measured)."""
+        """Plain dict for JSON (None for figures that could not be measured); the RPE
+        figures are keyed by their delta (``rpe_0p5m_rmse_m``, ``rpe_1s_rmse_m``)."""
         out = {}
         for k, v in self.__dict__.items():
+            if k == "rpe_path_rmse_m":
+                k = rpe_key(self.rpe_delta_m, "m")
+            elif k == "rpe_time_rmse_m":
+                k = rpe_key(self.rpe_delta_s, "s")
             out[k] = list(v) if isinstance(v, tuple) else v
         return out
 
@@ -536,11 +612,13 @@ def source_metrics(t_s, truth_poses, anchored_poses, cum_length_m, *, sigma_head
     i, j = pairs_by_distance(sub_s, rpe_delta_m)
     rpe_m = _rmse(rpe(sub_q, sub_p, i, j)[0])
     if rpe_m is None:
-        warn.append(f"{name}: RPE over {rpe_delta_m} m not measured (path shorter than that)")
+        warn.append(f"{name}: RPE over {rpe_delta_m} m not measured (no pair of samples "
+                    "that far apart along the path)")
     i, j = pairs_by_time(sub_t, rpe_delta_s)
     rpe_s = _rmse(rpe(sub_q, sub_p, i, j)[0])
     if rpe_s is None:
-        warn.append(f"{name}: RPE over {rpe_delta_s} s not measured (overlap shorter)")
+        warn.append(f"{name}: RPE over {rpe_delta_s} s not measured (no pair of samples "
+                    "that far apart in time)")
     drift = None
     if plen >= min_path_m:
         drift = 100.0 * final_err / plen
@@ -555,8 +633,8 @@ def source_metrics(t_s, truth_poses, anchored_poses, cum_length_m, *, sigma_head
                     f"{math.degrees(turned):.0f} deg < {math.degrees(min_turn_rad):.0f} deg)")
     return SourceMetrics(
         ate_rmse_m=ate_m,
-        rpe_0p5m_rmse_m=rpe_m,
-        rpe_1s_rmse_m=rpe_s,
+        rpe_path_rmse_m=rpe_m,
+        rpe_time_rmse_m=rpe_s,
         final_err_m=final_err,
         final_heading_err_rad=final_herr,
         drift_pct=drift,
@@ -570,6 +648,8 @@ def source_metrics(t_s, truth_poses, anchored_poses, cum_length_m, *, sigma_head
         best_fit_angle_rad=angle,
         warnings=tuple(warn),
         best_fit_scale=scale,
+        rpe_delta_m=float(rpe_delta_m),
+        rpe_delta_s=float(rpe_delta_s),
     )
 
 

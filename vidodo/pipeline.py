@@ -31,6 +31,7 @@ from . import __version__
 from .errors import InputError, MeasurementError
 from .events import EventSettings, active_kinds, detect_events, events_frame
 from .metrics import (
+    RPE_PAIRS_RULE,
     SourceMetrics,
     anchor_heading_from_travel,
     anchor_poses,
@@ -455,7 +456,8 @@ def _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn,
         "inputs": dict(inputs or {}),
         "settings": {"events": asdict(settings.events), "anchor": anchor,
                      "anchor_heading": {n: g.anchor_heading for n, g in graded.items()
-                                        if g.anchor_heading is not None}},
+                                        if g.anchor_heading is not None},
+                     "rpe_pairs": RPE_PAIRS_RULE},
         "clock": {"offset_s": clock.offset_s, "sigma_s": clock.sigma_s,
                   "confidence": clock.confidence, "method": clock.method,
                   "source": clock.source, "rate": clock.rate, "ref_log_s": clock.ref_log_s},
@@ -480,7 +482,7 @@ def _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn,
 
 
 def _without_motion_figures(m: SourceMetrics) -> SourceMetrics:
-    return replace(m, drift_pct=None, heading_drift_deg_per_turn=None, rpe_0p5m_rmse_m=None,
+    return replace(m, drift_pct=None, heading_drift_deg_per_turn=None, rpe_path_rmse_m=None,
                    ate_rmse_m=None, best_fit_scale=None, best_fit_angle_rad=None)
 
 

@@ -29,6 +29,7 @@ import cv2
 import numpy as np
 import pandas as pd
 
+from . import apriltag3
 from .errors import InputError, TrackingError
 from .profiles import marker_corners_local
 from .smooth import smooth_ca_signals
@@ -55,6 +56,15 @@ TRACK_COLUMNS = [
     "vy_mps", "speed_mps", "omega_radps", "ax_mps2", "ay_mps2", "detected", "interpolated",
 ]
 REGISTRATION_COLUMNS = ["t_s", "ok", "rms_px", "rms_floor_m", "fresh"]
+
+DEFAULT_REFINE = "apriltag"
+"""Default corner refinement, chosen on real photos and renders together (DEVELOPERS.md,
+"Truth track"; ``benchmarks/detector_table.py`` and ``track_accuracy.py --methods``)."""
+
+DETECTORS = ("auto", "opencv", "apriltag3")
+"""Marker detectors: OpenCV's ArUco module; the AprilTag 3 library (:mod:`vidodo.
+apriltag3`, AprilTag families only); 'auto' = OpenCV, and the AprilTag 3 library where
+OpenCV finds none of the robot's markers (when the library is installed)."""
 
 REFINE_METHODS = {
     "none": cv2.aruco.CORNER_REFINE_NONE,
@@ -159,23 +169,39 @@ class MarkerDetector:
     ----------
     markers : sequence of profiles.Marker
         The robot's markers (any mix of families).
-    refine : {'hybrid', 'apriltag', 'subpix', 'contour', 'none'}
+    refine : {'apriltag', 'hybrid', 'subpix', 'contour', 'none'}
         OpenCV corner refinement. ``useAruco3Detection`` is never enabled, because it
         silently skips refinement. The AprilTag refinement returns corners in the
         AprilTag convention (pixel centres at 0.5, AprilRobotics/apriltag issue 121);
-        they are shifted by -0.5 px to OpenCV's convention. 'hybrid' (the default)
-        keeps the AprilTag-refined shape (the most precise heading) but places it at the
-        centre of the SUBPIX-refined corners, which carry less common offset on small,
-        oblique markers (measured in ``benchmarks/track_accuracy.py --methods``).
+        they are shifted by -0.5 px to OpenCV's convention. 'apriltag' is the default
+        (:data:`DEFAULT_REFINE`): on real photos its tag centres lie 0.05 px from the
+        AprilTag 3 library's (SUBPIX 0.37, CONTOUR 0.18, 'hybrid' 0.29 px;
+        ``benchmarks/detector_table.py``), and on renders it is as accurate as any
+        (``benchmarks/track_accuracy.py --methods``). 'hybrid' keeps the AprilTag-refined
+        shape but places it at the centre of the SUBPIX-refined corners.
+    detector : {'auto', 'opencv', 'apriltag3'}
+        See :data:`DETECTORS`; the AprilTag 3 library's corners come refined by the
+        library itself (``refine`` does not apply to them).
     """
 
-    def __init__(self, markers, *, refine="hybrid"):
+    def __init__(self, markers, *, refine=DEFAULT_REFINE, detector="auto"):
         if not markers:
             raise InputError("the robot profile lists no [[marker]]; add the robot's marker")
         if refine not in REFINE_METHODS:
             raise InputError(f"refine = {refine!r}; use one of {sorted(REFINE_METHODS)}")
+        if detector not in DETECTORS:
+            raise InputError(f"detector = {detector!r}; use one of {list(DETECTORS)}")
+        if detector == "apriltag3" and not apriltag3.available():
+            raise InputError("detector 'apriltag3' needs the AprilTag 3 library: "
+                             "pip install 'vidodo[apriltag3]'")
         self.markers = tuple(markers)
         self.refine = refine
+        self.detector = detector
+        self._at3 = set()
+        """Families the AprilTag 3 library is asked for: always ('apriltag3') or where
+        OpenCV finds none of the robot's markers ('auto', when installed)."""
+        if detector != "opencv" and (detector == "apriltag3" or apriltag3.available()):
+            self._at3 = {m.family for m in markers if apriltag3.supports(m.family)}
         self._lookup = {}
         self._detectors = {}
         self._coarse = {}
@@ -328,26 +354,46 @@ class MarkerDetector:
                 side_pass, origin = self._submit_subpix(frame, wide, least, k)
             offset = (np.asarray(origin, float) - (u0, v0)) * k
         for family in self._detectors:
-            det = self._sized_detector(kind, family, least, max(img.shape[:2]))
-            corners, ids, _rej = det.detectMarkers(img)
-            if ids is None:
-                continue
-            for c, mid in zip(corners, ids.ravel(), strict=True):
-                key = (family, int(mid))
-                self.ids_seen[key] = self.ids_seen.get(key, 0) + 1
-                idx = self._lookup.get(key)
-                if idx is None:
-                    continue
-                c = c.reshape(4, 2).astype(np.float64) + shift
-                if family in side_pass:
-                    c = self._centre_from_subpix(side_pass[family].result(), int(mid), c,
-                                                 offset)
-                # Pixel centres at integers at both scales: x = (x_k + 0.5) / k - 0.5.
-                pts = (c + 0.5) / k - 0.5 + (u0, v0)
-                if idx in found and _area(found[idx]) >= _area(pts):
-                    continue
-                found[idx] = pts
+            own = None
+            if self.detector != "apriltag3" or family not in self._at3:
+                det = self._sized_detector(kind, family, least, max(img.shape[:2]))
+                corners, ids, _rej = det.detectMarkers(img)
+                own = self._keep(found, family, corners, ids, shift, (u0, v0), k,
+                                 side_pass.get(family), offset)
+            if family in self._at3 and not own:
+                tags = apriltag3.detect_tags(img if img.ndim == 2 else
+                                             cv2.cvtColor(img, cv2.COLOR_BGR2GRAY), family)
+                # the same smallest outline as OpenCV's pass (perimeter [px])
+                tags = [(i, c) for i, c in tags
+                        if np.linalg.norm(np.roll(c, 1, axis=0) - c, axis=1).sum() >= least]
+                self._keep(found, family, [c for _i, c in tags],
+                           np.array([i for i, _c in tags]) if tags else None, 0.0,
+                           (u0, v0), k, None, offset)
         return [Detection(i, found[i]) for i in sorted(found)]
+
+    def _keep(self, found, family, corners, ids, shift, origin, k, side_pass, offset):
+        """Record one family's detections in ``found`` (marker index -> corners in
+        frame pixels), the largest where an ID repeats; returns how many were the
+        robot's."""
+        if ids is None:
+            return 0
+        own = 0
+        for c, mid in zip(corners, np.ravel(ids), strict=True):
+            key = (family, int(mid))
+            self.ids_seen[key] = self.ids_seen.get(key, 0) + 1
+            idx = self._lookup.get(key)
+            if idx is None:
+                continue
+            own += 1
+            c = np.reshape(c, (4, 2)).astype(np.float64) + shift
+            if side_pass is not None:
+                c = self._centre_from_subpix(side_pass.result(), int(mid), c, offset)
+            # Pixel centres at integers at both scales: x = (x_k + 0.5) / k - 0.5.
+            pts = (c + 0.5) / k - 0.5 + origin
+            if idx in found and _area(found[idx]) >= _area(pts):
+                continue
+            found[idx] = pts
+        return own
 
 
 def _window(frame, roi, k):
@@ -648,9 +694,9 @@ def _camera_distance(reg, point_m, z_m):
 
 
 def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
-                 repeated=None, refine="hybrid", window=True, register_every="auto",
+                 repeated=None, refine=DEFAULT_REFINE, window=True, register_every="auto",
                  max_speed_mps=5.0, max_omega_radps=25.0, progress=None, total=None,
-                 acc=None):
+                 acc=None, detector="auto"):
     """Detect and fit the robot pose in a stream of frames (the streaming part).
 
     Parameters
@@ -670,7 +716,7 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
     _Acc
         Per-frame fixes and statistics (internal; see :func:`track_video`).
     """
-    det = MarkerDetector(robot.markers, refine=refine)
+    det = MarkerDetector(robot.markers, refine=refine, detector=detector)
     policy = _RegistrationPolicy(registrar, field_profile, register_every)
     acc = _Acc() if acc is None else acc
     acc.detector = det
@@ -1292,9 +1338,9 @@ def _size_warnings(acc, robot, field_profile, quality, warnings):
 
 
 def track_video(video_path, robot, field, camera=None, *, registrar=None, progress=None,
-                refine="hybrid", readout_s=None, max_gap_s=0.25, corner_sigma_px=None,
+                refine=DEFAULT_REFINE, readout_s=None, max_gap_s=0.25, corner_sigma_px=None,
                 corner_bias_px=0.0, window=True, threaded=True, register_every="auto",
-                max_speed_mps=5.0):
+                max_speed_mps=5.0, detector="auto"):
     """Track the robot through a video: the truth track with its 1-sigma.
 
     Parameters
@@ -1311,9 +1357,11 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
         ``register.FloorRegistrar(field, camera)``.
     progress : callable, optional
         ``progress(frames_done, frames_total)``.
-    refine : {'hybrid', 'apriltag', 'subpix', 'contour', 'none'}
+    refine : {'apriltag', 'hybrid', 'subpix', 'contour', 'none'}
         Corner refinement (see :class:`MarkerDetector`; ``benchmarks/track_accuracy.py``
         measures their accuracy).
+    detector : {'auto', 'opencv', 'apriltag3'}
+        Marker detector (see :data:`DETECTORS`).
     readout_s : float, optional
         Rolling-shutter readout time [s]; default the camera profile's (0 if none).
     max_gap_s : float
@@ -1367,18 +1415,24 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
     try:
         return _track_video(video_path, robot, field, camera, registrar, progress, refine,
                             readout_s, source, max_gap_s, corner_sigma_px, corner_bias_px,
-                            window, threaded, register_every, max_speed_mps, warnings, acc)
+                            window, threaded, register_every, max_speed_mps, warnings, acc,
+                            detector)
     finally:
         cv2.setNumThreads(threads)
 
 
 def _track_video(video_path, robot, field, camera, registrar, progress, refine, readout_s,
                  source, max_gap_s, corner_sigma_px, corner_bias_px, window, threaded,
-                 register_every, max_speed_mps, warnings, acc):
+                 register_every, max_speed_mps, warnings, acc, detector):
     truncated = None
     with VideoReader(video_path, threaded=threaded, grey=True,
                      decoder_threads=1 if threaded else None) as reader:
         info = reader.info
+        if not info.start_known:
+            warnings.append(
+                "ffprobe not found: frame times count from the video stream's start, not "
+                "the container's times; a --clock-offset measured against the file's "
+                "times must subtract the stream's start time (install ffmpeg to avoid this)")
         if camera is not None and (camera.width_px, camera.height_px) != (
                 info.width_px, info.height_px):
             warnings.append(
@@ -1390,7 +1444,7 @@ def _track_video(video_path, robot, field, camera, registrar, progress, refine, 
                          repeated=lambda: reader.last_frame_repeated, refine=refine,
                          window=window, register_every=register_every,
                          max_speed_mps=max_speed_mps, progress=progress,
-                         total=info.frame_count or None, acc=acc)
+                         total=info.frame_count or None, acc=acc, detector=detector)
         except VideoTruncatedError as exc:
             truncated = exc
         timing = reader.timing()

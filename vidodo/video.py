@@ -1,11 +1,15 @@
 """Reading video frames with their container presentation timestamps.
 
 Phones record with a variable frame rate, so a frame's time is never ``index / fps``:
-every frame carries the presentation time its container gives it (OpenCV's
-``CAP_PROP_POS_MSEC`` read right after ``read()``, which follows the stream's PTS in
-OpenCV >= 4.2). The reader checks that these times increase, reports frames that look
-dropped (an interval well over the typical one) or duplicated (a repeated timestamp or
-an image identical to the previous one), reads the orientation metadata, and raises
+every frame carries the presentation time its container gives it. OpenCV's
+``CAP_PROP_POS_MSEC`` (read right after ``read()``) follows the stream's PTS but counts
+from the stream's start time; the reader adds that start time back (read with
+``ffprobe``, :func:`stream_start_s`), so a frame's time equals the ``pts_time`` ffprobe
+shows. The reader checks that these times increase, reports frames that look
+dropped (an interval well over the typical one) or duplicated (a timestamp that does
+not increase), notes images identical to the previous one (a still scene in HEVC or
+H.264 repeats bit for bit; such a frame with its own timestamp is still a frame), reads
+the orientation metadata, and raises
 :class:`VideoTruncatedError` naming the frame where a truncated or corrupt file stopped,
 after handing out every frame it could decode.
 
@@ -16,8 +20,11 @@ frames are ever held in memory.
 
 from __future__ import annotations
 
+import json
 import math
 import queue
+import shutil
+import subprocess
 import threading
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -33,6 +40,7 @@ __all__ = [
     "VideoReader",
     "VideoTruncatedError",
     "probe_video",
+    "stream_start_s",
     "analyse_timing",
     "readout_fraction",
 ]
@@ -74,6 +82,12 @@ class VideoInfo:
     """True if OpenCV applied the rotation, so frames arrive upright."""
     codec: str
     """Four-character codec code, e.g. 'h264'."""
+    start_s: float = 0.0
+    """Presentation time of the stream's start (ffprobe's ``start_time``), added to
+    OpenCV's times so frame times are container times [s]."""
+    start_known: bool = True
+    """False when the start time could not be read (no ``ffprobe``): frame times then
+    count from the stream's start."""
 
 
 @dataclass(frozen=True)
@@ -88,11 +102,13 @@ class FrameTiming:
     """``(frame_index, t_s, frames_missing)`` for every interval that looks like lost
     frames (longer than 1.6 median intervals) before ``frame_index``."""
     duplicated: tuple = ()
-    """Indices of frames whose timestamp does not increase or whose image equals the
-    previous frame's."""
+    """Indices of frames whose timestamp does not increase."""
     bad_timestamps: tuple = ()
     """Indices of frames whose timestamp went backwards (replaced by an estimate)."""
     warnings: list = field(default_factory=list)
+    identical: tuple = ()
+    """Indices of frames whose image equals the previous frame's but whose timestamp is
+    later: a still scene, kept as frames."""
 
 
 def probe_video(path) -> VideoInfo:
@@ -108,6 +124,39 @@ def probe_video(path) -> VideoInfo:
         return _info(cap, Path(path))
     finally:
         cap.release()
+
+
+def stream_start_s(path):
+    """Start time of the first video stream [s], as ffprobe reports it.
+
+    OpenCV subtracts this from every presentation time; the container's own times (what
+    ffprobe, players and other tools show, and what a clock offset measured against the
+    file refers to) include it.
+
+    Returns
+    -------
+    float or None
+        The start time, 0.0 when the container gives none, None when ``ffprobe`` is not
+        installed or cannot read the file.
+    """
+    exe = shutil.which("ffprobe")
+    if exe is None:
+        return None
+    try:
+        out = subprocess.run(
+            [exe, "-v", "error", "-select_streams", "v:0", "-show_entries",
+             "stream=start_time", "-of", "json", str(path)],
+            check=True, capture_output=True, text=True, timeout=30,
+        ).stdout
+        streams = json.loads(out).get("streams") or [{}]
+    except (OSError, subprocess.SubprocessError, ValueError):
+        return None
+    value = streams[0].get("start_time")
+    try:
+        start = float(value) if value not in (None, "N/A") else 0.0
+    except (TypeError, ValueError):
+        return 0.0
+    return start if math.isfinite(start) else 0.0
 
 
 def _open(path, raw=False, threads=None):
@@ -224,6 +273,7 @@ def _info(cap, p: Path) -> VideoInfo:
     orient = cap.get(cv2.CAP_PROP_ORIENTATION_META)
     orient = int(round(orient)) % 360 if math.isfinite(orient) and orient >= 0 else 0
     count = cap.get(cv2.CAP_PROP_FRAME_COUNT)
+    start = stream_start_s(p)
     return VideoInfo(
         path=p,
         width_px=int(cap.get(cv2.CAP_PROP_FRAME_WIDTH)),
@@ -233,6 +283,8 @@ def _info(cap, p: Path) -> VideoInfo:
         orientation_deg=orient,
         rotated=bool(cap.get(cv2.CAP_PROP_ORIENTATION_AUTO) > 0),
         codec=codec,
+        start_s=0.0 if start is None else start,
+        start_known=start is not None,
     )
 
 
@@ -279,7 +331,9 @@ def analyse_timing(t_s, identical=None, *, gap_factor=1.6) -> FrameTiming:
     t_s : array_like
         Presentation time of each frame as read [s].
     identical : array_like of bool, optional
-        True where a frame's image equals the previous frame's.
+        True where a frame's image equals the previous frame's. Such a frame with a
+        later timestamp is a frame of a still scene (listed in ``identical``); with a
+        repeated timestamp it is a duplicate either way.
     gap_factor : float
         An interval longer than this many median intervals counts as lost frames.
 
@@ -316,9 +370,10 @@ def analyse_timing(t_s, identical=None, *, gap_factor=1.6) -> FrameTiming:
         after = idx > ok[-1]
         fixed[after] = t[ok[-1]] + (idx[after] - ok[-1]) * step
         t = fixed
+    still = ()
     if identical is not None:
-        same = np.flatnonzero(np.asarray(identical, dtype=bool))
-        dup = sorted(set(dup) | {int(i) for i in same if i > 0})
+        same = np.asarray(identical, dtype=bool)[:n]
+        still = tuple(int(i) for i in np.flatnonzero(same & valid) if i > 0)
     dropped = []
     if math.isfinite(interval):
         dt = np.diff(t)
@@ -339,7 +394,8 @@ def analyse_timing(t_s, identical=None, *, gap_factor=1.6) -> FrameTiming:
     if dup:
         warnings.append(f"{len(dup)} frames look duplicated (first: frame {dup[0]})")
     return FrameTiming(t_s=t, interval_s=interval, dropped=tuple(dropped),
-                       duplicated=tuple(dup), bad_timestamps=tuple(bad), warnings=warnings)
+                       duplicated=tuple(dup), bad_timestamps=tuple(bad), warnings=warnings,
+                       identical=still)
 
 
 _END = object()
@@ -403,6 +459,8 @@ class VideoReader:
         self.check_identical = check_identical
         self._t: list[float] = []
         self._identical: list[bool] = []
+        self._repeat = False  # the frame just handed out repeats the previous one
+        self._latest = -math.inf  # latest timestamp handed out [s]
         self._stop = threading.Event()
         self._thread = None
 
@@ -429,10 +487,11 @@ class VideoReader:
     def _decode(self):
         """Yield ``(t_ms, frame)`` until the stream ends."""
         cap = self._cap
+        start_ms = 1000.0 * self.info.start_s
         while not self._stop.is_set():
             if self._held is not None:
                 (t_ms, frame), self._held = self._held, None
-                yield t_ms, cv2.LUT(frame, self._lut)
+                yield t_ms + start_ms, cv2.LUT(frame, self._lut)
                 continue
             ok, frame = cap.read()
             if not ok or frame is None:
@@ -443,7 +502,7 @@ class VideoReader:
                         f"{self.path}: frame {len(self._t)} changed its pixel format "
                         "mid-stream; re-encode the video (e.g. to H.264 yuv420p)")
                 frame = cv2.LUT(frame, self._lut)
-            yield cap.get(cv2.CAP_PROP_POS_MSEC), frame
+            yield cap.get(cv2.CAP_PROP_POS_MSEC) + start_ms, frame
 
     def _threaded(self):
         q: queue.Queue = queue.Queue(maxsize=self.queue_frames)
@@ -488,6 +547,8 @@ class VideoReader:
                 if small == prev_small and prev is not None and prev.shape == frame.shape:
                     same = bool(np.array_equal(frame, prev))
                 prev_small, prev = small, frame
+            self._repeat = same and bool(self._t) and t <= self._latest
+            self._latest = max(self._latest, t)
             self._t.append(t)
             self._identical.append(same)
             yield index, t, frame
@@ -516,8 +577,10 @@ class VideoReader:
 
     @property
     def last_frame_repeated(self) -> bool:
-        """True if the frame just handed out is identical to the one before it."""
-        return bool(self._identical and self._identical[-1])
+        """True if the frame just handed out repeats the one before it: the same image
+        at a timestamp that is not later. An identical image at a later time (a still
+        scene) is a frame of its own and does not count."""
+        return self._repeat
 
     @property
     def frames_read(self) -> int:

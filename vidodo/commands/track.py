@@ -34,7 +34,11 @@ def add_arguments(parser):
 
     add_out(parser, "track CSV to write", required=True)
     parser.add_argument("--refine", choices=tuple(REFINE_METHODS),
-                        default="hybrid", help="corner refinement (default: %(default)s)")
+                        default="apriltag", help="corner refinement (default: %(default)s)")
+    parser.add_argument("--detector", choices=("auto", "opencv", "apriltag3"), default="auto",
+                        help="marker detector: OpenCV, the AprilTag 3 library (AprilTag "
+                        "markers; pip install 'vidodo[apriltag3]'), or auto = OpenCV and "
+                        "the library where OpenCV finds nothing (default: %(default)s)")
     parser.add_argument("--readout-ms", type=float,
                         help="rolling-shutter readout time [ms] (default: camera profile)")
     parser.add_argument("--max-gap-s", type=float, default=0.25,
@@ -84,7 +88,7 @@ def run(args) -> int:
         with Progress(desc="tracking", quiet=args.quiet) as bar:
             result = track_video(args.video, robot, field, camera, registrar=registrar,
                                  progress=bar, refine=args.refine, readout_s=readout,
-                                 max_gap_s=args.max_gap_s)
+                                 max_gap_s=args.max_gap_s, detector=args.detector)
     except VideoTruncatedError as exc:
         if exc.partial is None:
             raise

@@ -54,7 +54,9 @@ summary.json
 ``confidence`` 0..1, ``method``, ``source``, ``rate`` and ``ref_log_s`` of the optional
 rate term); ``truth`` (tracker quality figures); ``field`` (``tiles_x``, ``tiles_y``,
 ``tile_size_m`` [m]) when known; ``sources``, per name:
-``ate_rmse_m``, ``rpe_0p5m_rmse_m``, ``rpe_1s_rmse_m`` [m], ``final_err_m`` [m],
+``ate_rmse_m``, ``rpe_0p5m_rmse_m``, ``rpe_1s_rmse_m`` [m] (keys named by the RPE
+deltas, ``rpe_delta_m`` and ``rpe_delta_s``; pairs as ``settings.rpe_pairs`` says),
+``final_err_m`` [m],
 ``final_heading_err_rad`` [rad], ``drift_pct`` [% of path], ``heading_drift_deg_per_turn``
 [deg per full turn], ``max_err_m`` [m] and where (``max_err_t_s`` [s], ``max_err_x_m``,
 ``max_err_y_m`` [m]), ``path_length_m`` [m], ``coverage_s`` [s], ``best_fit_angle_rad``
