@@ -5,6 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from ..profiles import load_field
+from ._options import add_out
 
 NAME = "pick"
 HELP = "write a page for clicking tile corners; it saves the points CSV that --points reads"
@@ -26,8 +27,7 @@ def add_arguments(parser):
     parser.add_argument("--at", type=float, metavar="SECONDS", default=None,
                         help="show the frame at this time (default: the first frame, the "
                         "one --points registers)")
-    parser.add_argument("--out", type=Path, default=None,
-                        help="page to write (default: <video name>-pick.html beside it)")
+    add_out(parser, "page to write (default: <video name>-pick.html beside it)", default=None)
 
 
 def run(args) -> int:
