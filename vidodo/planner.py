@@ -254,8 +254,14 @@ class Suggestion:
     smallest_marker_m: float | None
 
 
+HEIGHTS_M = tuple(np.round(np.arange(0.5, 4.001, 0.05), 3))
+"""Camera heights :func:`suggest` tries [m]."""
+SIZES_M = tuple(np.round(np.arange(0.04, 0.4001, 0.005), 4))
+"""Marker sizes :func:`suggest` tries [m]."""
+
+
 def suggest(fld, marker, cam: ProposedCamera, settings: PlanSettings = PlanSettings(), *,
-            heights_m=np.arange(0.5, 4.01, 0.05), sizes_m=np.arange(0.04, 0.401, 0.005)):
+            heights_m=HEIGHTS_M, sizes_m=SIZES_M):
     """The lowest camera height (same position and aim) and the smallest marker (same
     camera) that keep every grid point detectable."""
     coarse = replace(settings, grid_m=max(settings.grid_m, 0.1))
