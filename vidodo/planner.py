@@ -29,9 +29,9 @@ import numpy as np
 from .errors import InputError
 from .profiles import marker_corners_local
 
-__all__ = ["marker_cells_across", "marker_cell_px", "ProposedCamera", "PlanSettings",
-           "PlanMap", "camera_pose", "plan_map", "suggest", "Suggestion",
-           "corner_jacobian"]
+__all__ = ["marker_cells_across", "marker_cell_px", "ProposedCamera", "CameraView", "view_of",
+           "PlanSettings", "PlanMap", "camera_pose", "plan_map", "predict_at", "suggest",
+           "Suggestion", "corner_jacobian"]
 
 
 def marker_cells_across(family: str) -> int:
@@ -147,6 +147,27 @@ class ProposedCamera:
                          [0, 0, 1.0]])
 
 
+@dataclass(frozen=True)
+class CameraView:
+    """A camera as the planner needs it: lens and pose (OpenCV conventions)."""
+
+    camera_matrix: np.ndarray
+    dist_coeffs: np.ndarray
+    rvec: np.ndarray
+    """Floor -> camera rotation (Rodrigues)."""
+    tvec: np.ndarray
+    """Floor -> camera translation [m]."""
+    width_px: int
+    height_px: int
+
+
+def view_of(cam: ProposedCamera) -> CameraView:
+    """The :class:`CameraView` of a proposed camera."""
+    rvec, tvec = camera_pose(cam)
+    return CameraView(cam.matrix, np.asarray(cam.dist, float), rvec, tvec, cam.width_px,
+                      cam.height_px)
+
+
 def camera_pose(cam: ProposedCamera):
     """``rvec, tvec`` (floor -> camera, OpenCV) of a camera looking at a floor point.
 
@@ -206,7 +227,7 @@ class PlanMap:
         return bool(self.detectable.all())
 
 
-def plan_map(fld, marker, cam: ProposedCamera, settings: PlanSettings = PlanSettings()):
+def plan_map(fld, marker, cam, settings: PlanSettings = PlanSettings()) -> PlanMap:
     """Expected error, cell size and visibility at every grid point of the field.
 
     Parameters
@@ -214,7 +235,7 @@ def plan_map(fld, marker, cam: ProposedCamera, settings: PlanSettings = PlanSett
     fld : FieldProfile
     marker : Marker
         Its size, height and family.
-    cam : ProposedCamera
+    cam : ProposedCamera or CameraView
     settings : PlanSettings
 
     Returns
@@ -227,23 +248,47 @@ def plan_map(fld, marker, cam: ProposedCamera, settings: PlanSettings = PlanSett
     gy = np.arange(m, sy - m + 1e-9, settings.grid_m)
     xx, yy = np.meshgrid(gx, gy)
     xy = np.column_stack([xx.ravel(), yy.ravel()])
-    rvec, tvec = camera_pose(cam)
-    K, dist = cam.matrix, np.asarray(cam.dist, float)
+    sigma, cell, in_view = predict_at(xy, marker, cam, settings.sigma_corner_px)
+    shape = xx.shape
+    det = in_view & (np.nan_to_num(cell) >= settings.min_cell_px)
+    return PlanMap(gx, gy, sigma.reshape(shape), cell.reshape(shape),
+                   in_view.reshape(shape), det.reshape(shape))
+
+
+def predict_at(xy_m, marker, cam, sigma_corner_px):
+    """Expected 1-sigma position error per axis, cell size and visibility at points.
+
+    Parameters
+    ----------
+    xy_m : ndarray of shape (N, 2)
+        Marker centres on the floor [m].
+    marker : Marker
+    cam : ProposedCamera or CameraView
+    sigma_corner_px : float
+        1-sigma corner noise per image coordinate [px].
+
+    Returns
+    -------
+    sigma_xy_m : ndarray of shape (N,)
+        ``sqrt(trace(cov_xy) / 2)`` with ``cov = sigma^2 (J^T J)^-1`` [m]; NaN out of view.
+    cell_px : ndarray of shape (N,)
+        NaN out of view.
+    in_view : ndarray of bool, shape (N,)
+    """
+    v = cam if isinstance(cam, CameraView) else view_of(cam)
+    xy = np.asarray(xy_m, float).reshape(-1, 2)
+    K, dist, rvec, tvec = v.camera_matrix, v.dist_coeffs, v.rvec, v.tvec
     pts = _marker_points(xy, marker.size_m, marker.z_m)
     img = _project(pts, rvec, tvec, K, dist)
-    inside = ((img[..., 0] >= 0) & (img[..., 0] <= cam.width_px - 1)
-              & (img[..., 1] >= 0) & (img[..., 1] <= cam.height_px - 1)).all(axis=1)
+    inside = ((img[..., 0] >= 0) & (img[..., 0] <= v.width_px - 1)
+              & (img[..., 1] >= 0) & (img[..., 1] <= v.height_px - 1)).all(axis=1)
     in_view = inside & _in_front(pts, rvec, tvec)
     cell = marker_cell_px(rvec, tvec, K, dist, xy, marker)
     J = corner_jacobian(rvec, tvec, K, dist, xy, marker.size_m, marker.z_m)
     info = np.einsum("nki,nkj->nij", J, J)
-    cov = settings.sigma_corner_px**2 * np.linalg.pinv(info)
+    cov = sigma_corner_px**2 * np.linalg.pinv(info)
     sigma = np.sqrt(np.maximum((cov[:, 0, 0] + cov[:, 1, 1]) / 2, 0.0))
-    sigma = np.where(in_view, sigma, np.nan)
-    shape = xx.shape
-    det = in_view & (np.nan_to_num(cell) >= settings.min_cell_px)
-    return PlanMap(gx, gy, sigma.reshape(shape), np.where(in_view, cell, np.nan).reshape(shape),
-                   in_view.reshape(shape), det.reshape(shape))
+    return np.where(in_view, sigma, np.nan), np.where(in_view, cell, np.nan), in_view
 
 
 @dataclass(frozen=True)
@@ -254,21 +299,36 @@ class Suggestion:
     smallest_marker_m: float | None
 
 
-HEIGHTS_M = tuple(np.round(np.arange(0.5, 4.001, 0.05), 3))
-"""Camera heights :func:`suggest` tries [m]."""
-SIZES_M = tuple(np.round(np.arange(0.04, 0.4001, 0.005), 4))
-"""Marker sizes :func:`suggest` tries [m]."""
+HEIGHTS_M = tuple(np.round(np.arange(0.5, 4.001, 0.1), 3))
+"""Camera heights :func:`suggest` tries, lowest first [m]."""
+SIZES_M = (0.02, 0.6)
+"""Range of marker sizes :func:`suggest` searches [m]."""
 
 
 def suggest(fld, marker, cam: ProposedCamera, settings: PlanSettings = PlanSettings(), *,
-            heights_m=HEIGHTS_M, sizes_m=SIZES_M):
-    """The lowest camera height (same position and aim) and the smallest marker (same
-    camera) that keep every grid point detectable."""
+            heights_m=HEIGHTS_M, sizes_m=SIZES_M) -> Suggestion:
+    """The lowest camera height that keeps every point in view and detectable (same
+    spot and aim), and the smallest marker that keeps every point in view detectable
+    (same camera; to 1 mm, by bisection: cells grow with the marker).
+
+    Returns
+    -------
+    Suggestion
+        None where nothing in the range works.
+    """
     coarse = replace(settings, grid_m=max(settings.grid_m, 0.1))
     height = next((float(h) for h in heights_m
                    if plan_map(fld, marker, replace(cam, z_m=float(h)), coarse).all_detectable),
                   None)
-    size = next((float(s) for s in sizes_m
-                 if plan_map(fld, replace(marker, size_m=float(s)), cam, coarse).all_detectable),
-                None)
-    return Suggestion(height, size)
+
+    def fine(size_m):
+        m = plan_map(fld, replace(marker, size_m=float(size_m)), cam, coarse)
+        return bool(np.all(m.detectable[m.in_view])) and m.in_view.any()
+
+    lo, hi = sizes_m
+    if not fine(hi):
+        return Suggestion(height, None)
+    while hi - lo > 0.001:
+        mid = (lo + hi) / 2
+        lo, hi = (lo, mid) if fine(mid) else (mid, hi)
+    return Suggestion(height, round(hi, 3))
