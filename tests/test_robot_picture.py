@@ -9,6 +9,7 @@ from pathlib import Path
 import cv2
 import numpy as np
 import pytest
+from test_html import browser  # noqa: F401  (the headless browser fixture)
 
 from vidodo.profiles import Wheel, load_robot
 from vidodo.robot_picture import (
@@ -103,3 +104,25 @@ def test_report_includes_the_robot_picture(tmp_path):
 def test_write_robot_picture_returns_path(tmp_path):
     p = write_robot_picture(load_robot(FIXTURES / "robot_tank.toml"), tmp_path / "r.png")
     assert p.is_file()
+
+
+def test_report_with_robot_picture_loads_clean_in_a_browser(browser, tmp_path):  # noqa: F811
+    """The same checks as the report's own browser test (tests/test_html.py): no console
+    errors, no request but the file itself, every image decoded."""
+    from test_html import _open
+    from test_plots import make_grade_dir
+
+    from vidodo.showcase import render_all
+
+    folder = make_grade_dir(tmp_path / "run")
+    summary = json.loads((folder / "summary.json").read_text())
+    summary.setdefault("inputs", {})["robot"] = str(FIXTURES / "robot_pods.toml")
+    (folder / "summary.json").write_text(json.dumps(summary))
+    render_all(folder, folder, replay=False)
+    console, requests = _open(browser, folder / "report.html")
+    assert [e for e in console if e["level"] in ("SEVERE", "ERROR")] == []
+    assert [u for u in requests if not u.startswith("data:")] == \
+        [(folder / "report.html").resolve().as_uri()]
+    widths = browser.execute_script(
+        "return [...document.images].map(i => [i.complete, i.naturalWidth, i.alt]);")
+    assert len(widths) == 4 and all(c and w > 0 for c, w, _ in widths)

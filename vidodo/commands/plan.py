@@ -143,10 +143,9 @@ def run(args) -> int:
     if summary["worst_sigma_xy_m"] is not None:
         print(f"expected 1-sigma per axis: median {summary['median_sigma_xy_m'] * 1000:.2f} "
               f"mm, worst {summary['worst_sigma_xy_m'] * 1000:.2f} mm")
-    for what, v, unit in (("lowest camera height (same spot and aim)", sug.lowest_height_m,
-                           "m"), ("smallest marker (this camera, points in view)", sug.smallest_marker_m,
-                                  "m")):
-        print(f"{what}: " + (f"{v:.2f} {unit}" if v is not None else
+    for what, v in (("lowest camera height (same spot and aim)", sug.lowest_height_m),
+                    ("smallest marker (this camera, points in view)", sug.smallest_marker_m)):
+        print(f"{what}: " + (f"{v:.3f} m" if v is not None else
                              "none in the range tried (move or turn the camera)"))
     print(f"wrote {args.out / 'plan.png'} and {args.out / 'plan.json'}")
     return 0
