@@ -4,11 +4,12 @@ For each camera placement the default scenario is rendered (1280x720), tracked w
 `track_video`, and the planner's expected 1-sigma position error (per axis) is computed
 at the true marker positions, from the camera's true lens and pose and the corner noise
 the tracker measured in that run (``quality["corner_sigma_px"]``: the same number the
-track's own 1-sigma starts from). Per floor tile with at least ``--min-samples`` detected
-samples where the planner says the marker is detectable, it prints the measured RMS
-error per axis (track minus truth), the prediction and their ratio; samples within an
-impact or shove (and 0.5 s after) are left out: there the smoother's motion model, not
-corner noise, sets the error.
+track's own 1-sigma starts from), plus the registration term of the same model (RMS and
+point count of the first frame's floor registration). Per floor tile with at least
+``--min-samples`` detected samples where the planner says the marker is detectable, it
+prints the measured RMS error per axis (track minus truth), the prediction and their
+ratio; samples within an impact or shove (and 0.5 s after) are left out: there the
+smoother's motion model, not corner noise, sets the error.
 
 Pass: every compared tile within a factor of 1.5 (``pred / meas`` in [1/1.5, 1.5]).
 Only this script reads the truth files.
@@ -34,10 +35,19 @@ import numpy as np
 import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
+from dataclasses import replace  # noqa: E402
+
 from _runs import rendered  # noqa: E402
 
-from vidodo.planner import CameraView, PlanSettings, plan_map, predict_at  # noqa: E402
+from vidodo.planner import (  # noqa: E402
+    CameraView,
+    PlanSettings,
+    plan_map,
+    predict_at,
+    registration_term_px,
+)
 from vidodo.profiles import load_camera, load_field, load_robot  # noqa: E402
+from vidodo.register import FloorRegistrar  # noqa: E402
 from vidodo.track import track_video  # noqa: E402
 
 # camera position (x, y, z) and aim (x, y) [m], horizontal field of view [deg]; all on the
@@ -65,6 +75,19 @@ def _view(run, cam):
                       np.array(c["rvec"]), np.array(c["tvec"]), cam.width_px, cam.height_px)
 
 
+def _registration(run, fld, cam):
+    """The floor registration of the run's first frame (its RMS and point count)."""
+    import cv2
+
+    cap = cv2.VideoCapture(str(run / "video.mp4"))
+    ok, frame = cap.read()
+    cap.release()
+    reg = FloorRegistrar(fld, cam).register(frame, 0.0)
+    if not ok or not reg.ok:
+        raise SystemExit(f"{run}: the first frame does not register")
+    return reg
+
+
 def _excluded(t, run):
     ev = pd.read_csv(run / "truth" / "events.csv")
     out = np.zeros(t.size, bool)
@@ -83,9 +106,13 @@ def _samples(run, settings):
     wall = time.perf_counter() - t0
     tr, truth = res.track, pd.read_csv(run / "truth" / "truth.csv")
     sigma_px = res.quality["corner_sigma_px"]
+    reg = _registration(run, fld, cam)
     xy = truth[["x_m", "y_m"]].to_numpy(float)
     view = _view(run, cam)
-    pred, cell, _ = predict_at(xy, robot.markers[0], view, sigma_px)
+    pred, cell, _ = predict_at(xy, robot.markers[0], view, sigma_px,
+                               registration_term_px(replace(
+                                   settings, registration_px=reg.rms_px,
+                                   registration_points=reg.n_points)))
     use = (tr["detected"].to_numpy(bool) & ~_excluded(truth["t_s"].to_numpy(), run)
            & (np.nan_to_num(cell) >= settings.min_cell_px))
     e2 = ((tr["x_m"] - truth["x_m"]) ** 2 + (tr["y_m"] - truth["y_m"]) ** 2).to_numpy() / 2

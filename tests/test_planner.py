@@ -124,3 +124,18 @@ def test_plan_verb(tmp_path, capsys):
                  "--aim", "1,1", "--out", str(tmp_path / "bad")]) == 2
     assert "--camera-at '1,2': give 3 numbers" in capsys.readouterr().err
     assert not (tmp_path / "bad").exists()
+
+
+def test_registration_term_straight_down():
+    """The registration's mean prediction error rms * sqrt(p / n) (trace of the hat
+    matrix, Draper & Smith, Applied Regression Analysis, 3rd ed., sec. 8.1; p = 8 for a
+    homography) adds in quadrature through D / f metres per px (pinhole, looking down)."""
+    from vidodo.planner import registration_term_px
+
+    reg = registration_term_px(PlanSettings(registration_px=0.5, registration_points=200))
+    assert reg == pytest.approx(0.5 * math.sqrt(8 / 200))
+    assert registration_term_px(PlanSettings()) == 0.0
+    view = _down(2.26)
+    sigma, _, _ = predict_at(np.array([[1.0, 1.0]]), MARKER, view, 0.4, reg)
+    D = 2.26 - 0.26
+    assert sigma[0] == pytest.approx(math.hypot(0.4 * D / 2000, reg * D / 1000), rel=1e-4)

@@ -31,6 +31,7 @@ from .profiles import marker_corners_local
 
 __all__ = ["marker_cells_across", "marker_cell_px", "ProposedCamera", "CameraView", "view_of",
            "PlanSettings", "PlanMap", "camera_pose", "plan_map", "predict_at", "suggest",
+           "registration_term_px",
            "Suggestion", "corner_jacobian"]
 
 
@@ -200,6 +201,11 @@ class PlanSettings:
     ``track.quality.json`` (``corner_noise_px``)."""
     min_cell_px: float = 4.0
     """Smallest marker cell that detects reliably (README: 4-5 px) [px]."""
+    registration_px: float = 0.0
+    """RMS residual of the floor registration [px] (``vidodo register``'s ``rms_px``);
+    0 leaves the registration's error out."""
+    registration_points: int = 0
+    """Points the registration was fitted to (``n_points``)."""
     margin_m: float = 0.0
     """Keep the marker this far inside the field edges [m] (half the robot)."""
 
@@ -248,14 +254,45 @@ def plan_map(fld, marker, cam, settings: PlanSettings = PlanSettings()) -> PlanM
     gy = np.arange(m, sy - m + 1e-9, settings.grid_m)
     xx, yy = np.meshgrid(gx, gy)
     xy = np.column_stack([xx.ravel(), yy.ravel()])
-    sigma, cell, in_view = predict_at(xy, marker, cam, settings.sigma_corner_px)
+    sigma, cell, in_view = predict_at(xy, marker, cam, settings.sigma_corner_px,
+                                      registration_term_px(settings))
     shape = xx.shape
     det = in_view & (np.nan_to_num(cell) >= settings.min_cell_px)
     return PlanMap(gx, gy, sigma.reshape(shape), cell.reshape(shape),
                    in_view.reshape(shape), det.reshape(shape))
 
 
-def predict_at(xy_m, marker, cam, sigma_corner_px):
+REGISTRATION_PARAMS = 8
+"""Parameters of a floor registration (a homography's 8), as in the track's model."""
+
+
+def registration_term_px(settings: PlanSettings) -> float:
+    """The registration's mean prediction error in image px: ``rms * sqrt(p / n)``.
+
+    A least-squares fit of p parameters to n observations with residual sigma predicts
+    with mean variance sigma^2 p / n (trace of the hat matrix; Draper & Smith, *Applied
+    Regression Analysis*, 3rd ed., section 8.1): the term the track's 1-sigma adds.
+    """
+    if settings.registration_px <= 0 or settings.registration_points <= 0:
+        return 0.0
+    n = max(settings.registration_points, REGISTRATION_PARAMS)
+    return settings.registration_px * math.sqrt(REGISTRATION_PARAMS / n)
+
+
+def _metres_per_px(xy, z_m, v):
+    """Floor metres per image px at each point (RMS over the two axes) [m/px]."""
+    step = 1e-4
+    pts = []
+    for d in ((step, 0.0), (-step, 0.0), (0.0, step), (0.0, -step)):
+        q = np.column_stack([xy + d, np.full(len(xy), z_m)])
+        pts.append(_project(q[:, None, :], v.rvec, v.tvec, v.camera_matrix,
+                            v.dist_coeffs)[:, 0])
+    J = np.stack([(pts[0] - pts[1]) / (2 * step), (pts[2] - pts[3]) / (2 * step)], axis=2)
+    inv = np.linalg.pinv(J)  # d floor / d px, (N, 2, 2)
+    return np.sqrt(np.einsum("nij,nij->n", inv, inv) / 2)
+
+
+def predict_at(xy_m, marker, cam, sigma_corner_px, registration_px=0.0):
     """Expected 1-sigma position error per axis, cell size and visibility at points.
 
     Parameters
@@ -266,11 +303,15 @@ def predict_at(xy_m, marker, cam, sigma_corner_px):
     cam : ProposedCamera or CameraView
     sigma_corner_px : float
         1-sigma corner noise per image coordinate [px].
+    registration_px : float
+        The registration's prediction error [px] (:func:`registration_term_px`), added
+        in quadrature through the floor metres per px at the point.
 
     Returns
     -------
     sigma_xy_m : ndarray of shape (N,)
-        ``sqrt(trace(cov_xy) / 2)`` with ``cov = sigma^2 (J^T J)^-1`` [m]; NaN out of view.
+        ``sqrt(trace(cov_xy) / 2)`` with ``cov = sigma^2 (J^T J)^-1`` [m], plus the
+        registration term; NaN out of view.
     cell_px : ndarray of shape (N,)
         NaN out of view.
     in_view : ndarray of bool, shape (N,)
@@ -287,7 +328,10 @@ def predict_at(xy_m, marker, cam, sigma_corner_px):
     J = corner_jacobian(rvec, tvec, K, dist, xy, marker.size_m, marker.z_m)
     info = np.einsum("nki,nkj->nij", J, J)
     cov = sigma_corner_px**2 * np.linalg.pinv(info)
-    sigma = np.sqrt(np.maximum((cov[:, 0, 0] + cov[:, 1, 1]) / 2, 0.0))
+    var = np.maximum((cov[:, 0, 0] + cov[:, 1, 1]) / 2, 0.0)
+    if registration_px > 0:
+        var = var + (registration_px * _metres_per_px(xy, marker.z_m, v)) ** 2
+    sigma = np.sqrt(var)
     return np.where(in_view, sigma, np.nan), np.where(in_view, cell, np.nan), in_view
 
 

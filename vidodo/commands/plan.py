@@ -52,6 +52,11 @@ def add_arguments(parser):
     parser.add_argument("--corner-noise-px", type=float, default=0.3,
                         help="1-sigma corner noise [px] (a graded run's track.quality.json "
                              "has it as corner_sigma_px; default 0.3)")
+    parser.add_argument("--registration-px", type=float, default=0.0,
+                        help="floor registration RMS [px] (`vidodo register`'s rms_px); "
+                             "with --registration-points adds the registration's error")
+    parser.add_argument("--registration-points", type=int, default=0,
+                        help="points of that registration (n_points)")
     parser.add_argument("--min-cell-px", type=float, default=4.0,
                         help="smallest marker cell that detects [px] (default 4)")
     parser.add_argument("--out", type=Path, required=True, help="folder to write into")
@@ -118,7 +123,9 @@ def run(args) -> int:
     if args.corner_noise_px <= 0 or args.min_cell_px <= 0:
         raise InputError("--corner-noise-px and --min-cell-px must be positive")
     settings = PlanSettings(sigma_corner_px=args.corner_noise_px,
-                            min_cell_px=args.min_cell_px, margin_m=margin)
+                            min_cell_px=args.min_cell_px, margin_m=margin,
+                            registration_px=max(args.registration_px, 0.0),
+                            registration_points=max(args.registration_points, 0))
     plan = plan_map(fld, marker, cam, settings)
     sug = suggest(fld, marker, cam, settings)
     det = plan.detectable
@@ -132,6 +139,8 @@ def run(args) -> int:
         "lowest_camera_height_m": sug.lowest_height_m,
         "smallest_marker_m": sug.smallest_marker_m,
         "settings": {"corner_noise_px": args.corner_noise_px,
+                     "registration_px": settings.registration_px,
+                     "registration_points": settings.registration_points,
                      "min_cell_px": args.min_cell_px, "grid_m": settings.grid_m,
                      "margin_m": margin},
     }
