@@ -208,3 +208,23 @@ def test_write_sheets_pdf_only(tmp_path):
                            png=False)
     assert [p.name for p in written] == ["sheets-a4.pdf"]
     assert written[0].read_bytes().startswith(b"%PDF-")
+
+
+def test_floor_markers_from_the_field_profile(tmp_path):
+    from vidodo.cli_main import main
+
+    if shutil.which("pdftotext") is None:
+        pytest.skip("Debian poppler-utils not installed")
+    field = tmp_path / "field.toml"
+    field.write_text("[floor]\ntiles_x = 6\ntiles_y = 6\ntile_size_m = 0.6096\n"
+                     "[[floor_marker]]\nid = 11\nfamily = 'DICT_5X5_100'\nsize_m = 0.1\n"
+                     "x_m = 0.3\ny_m = 0.3\n")
+    out = tmp_path / "out"
+    assert main(["sheets", "--field", str(field), "--floor-ids", "2", "--no-board",
+                 "--paper", "letter", "--no-png", "--out", str(out), "--quiet"]) == 0
+    assert sorted(p.name for p in out.iterdir()) == ["sheets-letter.pdf"]
+    text = subprocess.run(["pdftotext", str(out / "sheets-letter.pdf"), "-"],
+                          capture_output=True, text=True, check=True).stdout
+    flat = " ".join(text.split())
+    assert "DICT_5X5_100 id 11, 100.0 mm" in flat and "x 0.300 m" in flat
+    assert "DICT_4X4_50 id 2, 150.0 mm" in flat
