@@ -18,7 +18,7 @@ from .page import write_html
 from .plots import source_prefixes, write_plots
 
 __all__ = ["GradeData", "load_grade_dir", "field_from_summary", "write_report",
-           "PLOT_CAPTIONS"]
+           "robot_picture", "PLOT_CAPTIONS"]
 
 PLOT_CAPTIONS = {
     "field_map": "Field map: truth track and every odometry source, events numbered "
@@ -26,6 +26,8 @@ PLOT_CAPTIONS = {
     "error_vs_time": "Anchored drift over time per source (solid: distance, dashed: "
                      "along-track, dotted: cross-track); event windows shaded",
     "speed": "Ground speed of the truth track against each odometry source",
+    "robot": "The robot profile used, from above to scale (front up): wheels, count "
+             "directions, rollers, tracking-wheel lever arms, markers",
 }
 
 
@@ -147,6 +149,28 @@ def _run_title(summary: dict) -> str:
     return p.parent.name if p.name == "video.mp4" and p.parent.name else p.name
 
 
+def robot_picture(summary: dict, folder: Path | None, out_dir: Path) -> dict[str, Path]:
+    """``{'robot': robot.png}`` drawn from the profile named in ``summary.inputs.robot``.
+
+    Empty when that profile cannot be found or read any more (the report is still
+    written without it).
+    """
+    from ..profiles import load_robot
+    from ..robot_picture import PICTURE_NAME, write_robot_picture
+
+    p = (summary.get("inputs") or {}).get("robot")
+    if not isinstance(p, str) or not p:
+        return {}
+    for cand in ([Path(p)] + ([folder / p] if folder is not None else [])):
+        if cand.is_file():
+            try:
+                robot = load_robot(cand)
+            except InputError:
+                return {}
+            return {"robot": write_robot_picture(robot, out_dir / PICTURE_NAME)}
+    return {}
+
+
 def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: str = "mm",
                  progress=None) -> list[Path]:
     """Write the plots, the HTML report and (optionally) the annotated replay.
@@ -170,7 +194,8 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
     Returns
     -------
     list of Path
-        The files written: three PNGs, ``report.html`` and, if asked, ``replay.mp4``.
+        The files written: three PNGs (four with ``robot.png`` when the robot
+        profile named in the summary can be read), ``report.html`` and, if asked, ``replay.mp4``.
 
     Raises
     ------
@@ -185,6 +210,7 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
     title = _run_title(data.summary)
     pngs = write_plots(data.drift, data.events, out_dir, field=data.field,
                        sources=data.sources, unit=units, title=title)
+    pngs.update(robot_picture(data.summary, data.folder, out_dir))
     written = list(pngs.values())
     extra = []
     failure = None

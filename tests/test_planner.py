@@ -1,0 +1,141 @@
+"""Placement planner (vidodo/planner.py, plan_picture.py, verb ``plan``)."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import cv2
+import numpy as np
+import pytest
+
+from vidodo.planner import (
+    CameraView,
+    PlanSettings,
+    ProposedCamera,
+    camera_pose,
+    plan_map,
+    predict_at,
+    suggest,
+)
+from vidodo.profiles import FieldProfile, Marker
+
+FIELD = FieldProfile(6, 6, 0.6096)
+MARKER = Marker(id=7, family="DICT_4X4_50", size_m=0.2, z_m=0.26)
+
+
+def _down(height_m, f_px=1000.0):
+    """A camera looking straight down at the floor's (1, 1) from ``height_m``."""
+    R = np.diag([1.0, -1.0, -1.0])  # camera x = floor x, camera y = -floor y, z down
+    c = np.array([1.0, 1.0, height_m])
+    return CameraView(np.array([[f_px, 0, 999.5], [0, f_px, 999.5], [0, 0, 1]]), np.zeros(5),
+                      cv2.Rodrigues(R)[0].ravel(), -R @ c, 2000, 2000)
+
+
+def test_straight_down_closed_form():
+    """Pinhole camera looking straight down (common practice): the marker at depth D
+    spans f * s / D px, so a cell is f * s / D / 6 for a 4x4 marker (4 bits + border);
+    the centre of four corners each with noise sigma per axis has sigma / 2 per axis in
+    px, i.e. sigma * D / (2 f) on the floor (mean of four independent values)."""
+    view = _down(2.26)
+    sigma, cell, in_view = predict_at(np.array([[1.0, 1.0]]), MARKER, view, 0.4)
+    D = 2.26 - 0.26
+    assert in_view[0]
+    assert cell[0] == pytest.approx(1000 * 0.2 / D / 6, rel=1e-6)
+    assert sigma[0] == pytest.approx(0.4 * D / (2 * 1000), rel=1e-4)
+
+
+def test_error_matches_monte_carlo_with_opencv_back_projection():
+    """Independent check of the propagation: noisy corners (Gaussian, sigma px per axis)
+    are back-projected onto the marker plane with OpenCV's undistortPoints and the
+    centre taken as the mean of the four corners (the least-squares position of a rigid
+    square); the spread over 4000 draws must match the prediction within 5 %."""
+    cam = ProposedCamera(1.83, -1.8, 2.4, 1.83, 1.5, 1280, 720, 68.0,
+                         dist=(0.05, -0.11, 0.0, 0.0, 0.03))
+    rvec, tvec = camera_pose(cam)
+    R, _ = cv2.Rodrigues(rvec)
+    centre = -R.T @ tvec
+    rng = np.random.default_rng(1)
+    for xy in ([1.0, 0.8], [2.9, 3.2]):
+        sigma, _, _ = predict_at(np.array([xy]), MARKER, cam, 0.3)
+        s = MARKER.size_m / 2
+        corners = np.array([[-s, s], [s, s], [s, -s], [-s, -s]]) + xy
+        obj = np.column_stack([corners, np.full(4, MARKER.z_m)])
+        img, _ = cv2.projectPoints(obj, rvec, tvec, cam.matrix, np.asarray(cam.dist))
+        noisy = img.reshape(1, 4, 2) + rng.normal(0, 0.3, (4000, 4, 2))
+        norm = cv2.undistortPoints(noisy.reshape(-1, 1, 2), cam.matrix,
+                                   np.asarray(cam.dist)).reshape(-1, 2)
+        rays = np.column_stack([norm, np.ones(len(norm))]) @ R  # floor-frame directions
+        lam = (MARKER.z_m - centre[2]) / rays[:, 2]
+        floor = (centre[:2] + lam[:, None] * rays[:, :2]).reshape(4000, 4, 2).mean(axis=1)
+        spread = math.sqrt(np.mean(np.var(floor, axis=0)))
+        assert sigma[0] == pytest.approx(spread, rel=0.05), xy
+
+
+def test_out_of_view_and_behind():
+    cam = ProposedCamera(1.83, -1.8, 1.0, 1.83, 0.5, 1280, 720, 40.0)
+    _, cell, in_view = predict_at(np.array([[1.83, 0.5], [1.83, -3.0], [5.0, 3.6]]), MARKER,
+                                  cam, 0.3)
+    assert in_view.tolist() == [True, False, False]
+    assert np.isnan(cell[1:]).all()
+
+
+def test_plan_map_flags_small_cells():
+    cam = ProposedCamera(1.83, -1.8, 2.4, 1.83, 1.5, 1280, 720, 68.0)
+    m = plan_map(FIELD, MARKER, cam, PlanSettings(min_cell_px=4.0))
+    assert m.in_view.any() and not m.all_detectable
+    small = m.in_view & ~m.detectable
+    assert np.all(m.cell_px[small] < 4.0) and np.all(m.cell_px[m.detectable] >= 4.0)
+    # further from the camera (larger y) the cells shrink and the error grows
+    col = m.x_m.size // 2
+    assert m.cell_px[0, col] > m.cell_px[-1, col]
+    assert m.sigma_xy_m[0, col] < m.sigma_xy_m[-1, col]
+
+
+def test_suggested_marker_is_the_smallest_that_works():
+    cam = ProposedCamera(1.83, -1.8, 2.4, 1.83, 1.5, 1280, 720, 68.0)
+    settings = PlanSettings(margin_m=0.2)
+    sug = suggest(FIELD, MARKER, cam, settings)
+    assert sug.smallest_marker_m is not None
+    from dataclasses import replace
+
+    coarse = replace(settings, grid_m=0.1)
+    ok = plan_map(FIELD, replace(MARKER, size_m=sug.smallest_marker_m), cam, coarse)
+    assert ok.detectable[ok.in_view].all()
+    less = plan_map(FIELD, replace(MARKER, size_m=sug.smallest_marker_m - 0.002), cam, coarse)
+    assert not less.detectable[less.in_view].all()
+
+
+def test_plan_verb(tmp_path, capsys):
+    from vidodo.cli_main import main
+
+    field = tmp_path / "field.toml"
+    field.write_text("[floor]\ntiles_x = 6\ntiles_y = 6\ntile_size_m = 0.6096\n")
+    out = tmp_path / "plan"
+    assert main(["plan", "--field", str(field), "--marker-mm", "200", "--marker-height-mm",
+                 "260", "--camera-at", "1.83,-1.8,2.4", "--aim", "1.83,1.5", "--size",
+                 "1920x1080", "--out", str(out)]) == 0
+    assert (out / "plan.png").read_bytes().startswith(b"\x89PNG\r\n\x1a\n")
+    assert cv2.imread(str(out / "plan.png")) is not None
+    summary = json.loads((out / "plan.json").read_text())
+    assert 0 < summary["detectable_share"] <= 1
+    assert "expected 1-sigma per axis" in capsys.readouterr().out
+    assert main(["plan", "--field", str(field), "--marker-mm", "200", "--camera-at", "1,2",
+                 "--aim", "1,1", "--out", str(tmp_path / "bad")]) == 2
+    assert "--camera-at '1,2': give 3 numbers" in capsys.readouterr().err
+    assert not (tmp_path / "bad").exists()
+
+
+def test_registration_term_straight_down():
+    """The registration's mean prediction error rms * sqrt(p / n) (trace of the hat
+    matrix, Draper & Smith, Applied Regression Analysis, 3rd ed., sec. 8.1; p = 8 for a
+    homography) adds in quadrature through D / f metres per px (pinhole, looking down)."""
+    from vidodo.planner import registration_term_px
+
+    reg = registration_term_px(PlanSettings(registration_px=0.5, registration_points=200))
+    assert reg == pytest.approx(0.5 * math.sqrt(8 / 200))
+    assert registration_term_px(PlanSettings()) == 0.0
+    view = _down(2.26)
+    sigma, _, _ = predict_at(np.array([[1.0, 1.0]]), MARKER, view, 0.4, reg)
+    D = 2.26 - 0.26
+    assert sigma[0] == pytest.approx(math.hypot(0.4 * D / 2000, reg * D / 1000), rel=1e-4)

@@ -1,0 +1,79 @@
+"""The placement planner's map as a PNG: expected error and marker cell size over the field.
+
+Two panels, top view to scale with the tile grid: the expected 1-sigma position error
+(colour, mm) and the marker cell size (colour, px); hatched grey where the marker is in
+view but too small to detect, dark grey where it is out of view; the camera's footprint
+position marked when it stands beside the field.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.colors import ListedColormap
+from matplotlib.figure import Figure
+from matplotlib.patches import Patch
+
+from .planner import PlanMap
+
+__all__ = ["plan_figure", "write_plan_png"]
+
+
+def _panel(ax, plan: PlanMap, fld, values, label, cmap, title):
+    k = 1000.0
+    step = (plan.x_m[1] - plan.x_m[0]) if plan.x_m.size > 1 else 0.05
+    extent = ((plan.x_m[0] - step / 2) * k, (plan.x_m[-1] + step / 2) * k,
+              (plan.y_m[0] - step / 2) * k, (plan.y_m[-1] + step / 2) * k)
+    shown = np.where(plan.detectable, values, np.nan)
+    im = ax.imshow(shown, origin="lower", extent=extent, cmap=cmap, interpolation="nearest")
+    small = plan.in_view & ~plan.detectable
+    out = ~plan.in_view
+    ax.imshow(np.where(out, 1.0, np.nan), origin="lower", extent=extent,
+              cmap=ListedColormap(["#424242"]), interpolation="nearest", vmin=0, vmax=1)
+    ax.contourf(plan.x_m * k, plan.y_m * k, small.astype(float), levels=[0.5, 1.5],
+                colors="none", hatches=["///"])
+    ax.imshow(np.where(small, 1.0, np.nan), origin="lower", extent=extent, alpha=0.35,
+              cmap=ListedColormap(["#9e9e9e"]), interpolation="nearest", vmin=0, vmax=1)
+    sx, sy = fld.size_m
+    for i in range(fld.tiles_x + 1):
+        ax.plot([i * fld.tile_size_m * k] * 2, [0, sy * k], color="white", lw=0.5)
+    for j in range(fld.tiles_y + 1):
+        ax.plot([0, sx * k], [j * fld.tile_size_m * k] * 2, color="white", lw=0.5)
+    ax.set_xlim(0, sx * k)
+    ax.set_ylim(0, sy * k)
+    ax.set_aspect("equal")
+    ax.set_xlabel("x [mm]")
+    ax.set_ylabel("y [mm]")
+    ax.set_title(title, fontsize=9)
+    ax.figure.colorbar(im, ax=ax, label=label, shrink=0.8)
+
+
+def plan_figure(plan: PlanMap, fld, marker, *, title: str = "") -> Figure:
+    """Two panels: expected 1-sigma error [mm] and marker cell size [px]."""
+    fig = Figure(figsize=(12.0, 5.8), dpi=110)
+    FigureCanvasAgg(fig)
+    a1, a2 = fig.subplots(1, 2)
+    _panel(a1, plan, fld, plan.sigma_xy_m * 1000.0, "expected 1-sigma per axis [mm]",
+           "viridis", "expected position error (1-sigma)")
+    _panel(a2, plan, fld, plan.cell_px, "marker cell [px]", "magma",
+           "marker cell size in the image")
+    a2.legend(handles=[Patch(facecolor="#9e9e9e", hatch="///", label="too small to detect"),
+                       Patch(facecolor="#424242", label="out of view")],
+              loc="upper right", fontsize=7, framealpha=0.9)
+    det = plan.detectable
+    worst = np.nanmax(np.where(det, plan.sigma_xy_m, np.nan)) * 1000 if det.any() else np.nan
+    fig.suptitle(title or (f"placement plan: marker {marker.size_m * 1000:.0f} mm at "
+                           f"{marker.z_m * 1000:.0f} mm; detectable on "
+                           f"{100 * det.mean():.0f}% of the field, worst 1-sigma "
+                           f"{worst:.1f} mm"), fontsize=10)
+    fig.tight_layout()
+    return fig
+
+
+def write_plan_png(plan: PlanMap, fld, marker, path, *, title: str = "") -> Path:
+    """Write :func:`plan_figure` as a PNG and return its path."""
+    from .report.plots import save_figure
+
+    return save_figure(plan_figure(plan, fld, marker, title=title), path)
