@@ -1308,7 +1308,7 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
         Lens and rolling-shutter readout time; without it the registrar must cope.
     registrar : object, optional
         Anything with ``register(frame_bgr, t_s)`` -> FrameRegistration; default
-        ``register.FloorRegistrar(field, camera)``.
+        ``registrar.FloorRegistrar(field, camera)``.
     progress : callable, optional
         ``progress(frames_done, frames_total)``.
     refine : {'hybrid', 'apriltag', 'subpix', 'contour', 'none'}
@@ -1349,7 +1349,7 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
         The video stopped early; ``.partial`` holds the TrackResult up to there.
     """
     if registrar is None:
-        from .register import FloorRegistrar
+        from .registration.registrar import FloorRegistrar
 
         registrar = FloorRegistrar(field, camera=camera)
     if readout_s is None:

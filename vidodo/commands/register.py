@@ -10,11 +10,12 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from .. import grid, register
 from ..errors import InputError
 from ..lens import IMAGE_SUFFIXES, read_image
 from ..outputs import staged_dir
 from ..profiles import load_camera, load_field
+from ..registration import grid
+from ..registration.registrar import METHODS, FloorRegistrar, RegistrarSettings, summarise
 
 NAME = "register"
 HELP = "check the floor registration of a video; write a grid preview and per-frame errors"
@@ -36,7 +37,7 @@ def add_arguments(parser):
     parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
     parser.add_argument("--camera", type=Path, default=None,
                         help="camera profile from 'vidodo lens' (default: estimate)")
-    parser.add_argument("--method", choices=register.METHODS, default="auto",
+    parser.add_argument("--method", choices=METHODS, default="auto",
                         help="reference registration: floor markers, points CSV or the "
                              "automatic tile grid (auto: markers if seen, else grid)")
     parser.add_argument("--points", type=Path, default=None,
@@ -67,8 +68,9 @@ def run(args) -> int:
     field = load_field(args.field)
     camera = load_camera(args.camera) if args.camera else None
     method = "points" if args.points is not None else args.method
-    registrar = register.FloorRegistrar(field, camera, method=method,
-                                        points_csv=args.points, max_rms_px=args.max_rms_px)
+    registrar = FloorRegistrar(field, camera, method=method,
+                                        points_csv=args.points,
+                               settings=RegistrarSettings(max_rms_px=args.max_rms_px))
     out = args.out or args.video.with_name(args.video.stem + "-register")
     if not args.video.exists():
         raise InputError(f"{args.video}: not found; check the path")
@@ -99,11 +101,11 @@ def run(args) -> int:
     try:
         seams = grid.seam_samples(cv2.cvtColor(ref_frame, cv2.COLOR_BGR2GRAY)
                                   if ref_frame.ndim == 3 else ref_frame, field, ref,
-                                  half_width_px=4.0)[0]
+                                  search=grid.SeamSearch(half_width_px=4.0))[0]
     except (ValueError, cv2.error):
         seams = None
     preview = grid.draw_registration(ref_frame, ref, field, seams=seams)
-    quality = register.summarise(regs)
+    quality = summarise(regs)
     with staged_dir(out) as stage:
         if not cv2.imwrite(str(stage / "preview.png"), preview):
             raise InputError(f"{out}: cannot write preview.png there")

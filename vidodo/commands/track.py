@@ -68,7 +68,7 @@ def _write(result, out: Path):
 
 def run(args) -> int:
     """Track, write the CSV (also the part before a truncation), report."""
-    from ..register import FloorRegistrar
+    from ..registration.registrar import FloorRegistrar
     from ..track import track_video
     from ..video import VideoTruncatedError
 
