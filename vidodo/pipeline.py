@@ -412,7 +412,8 @@ def _jsonable(obj):
 
 
 def grade_run(video, log, robot, field_profile, camera=None, *, clock_offset_s=None,
-              tolerances=None, progress=None, track=None, event_settings=None) -> GradeResult:
+              tolerances=None, progress=None, track=None, event_settings=None,
+              registrar=None) -> GradeResult:
     """Grade one run: video + log + profiles -> drift, events, verdict.
 
     Parameters
@@ -433,6 +434,9 @@ def grade_run(video, log, robot, field_profile, camera=None, *, clock_offset_s=N
         Passed to the tracker.
     track : DataFrame or path, optional
         A truth track to reuse instead of tracking the video.
+    registrar : FloorRegistrar, optional
+        How the floor is registered (points, start tile, limits); default: the
+        automatic one for the field and camera.
 
     Returns
     -------
@@ -457,7 +461,8 @@ def grade_run(video, log, robot, field_profile, camera=None, *, clock_offset_s=N
     if track is None:
         from .track import track_video
 
-        tres = track_video(video, robot, field_profile, camera, progress=progress)
+        tres = track_video(video, robot, field_profile, camera, progress=progress,
+                           registrar=registrar)
         truth = tres.track
         quality = dict(tres.quality)
         twarn = list(tres.warnings)

@@ -6,7 +6,8 @@ import math
 import sys
 from pathlib import Path
 
-from ..errors import EXIT_OK, EXIT_TOLERANCE, InputError
+from ..errors import EXIT_OK, EXIT_TOLERANCE, InputError, RegistrationRefused
+from . import registration_options
 
 NAME = "grade"
 HELP = "measure the run from the video, line up the log, report drift and events"
@@ -30,6 +31,7 @@ def add_arguments(parser):
     parser.add_argument("--camera", type=Path, help="camera profile (TOML), if calibrated")
     parser.add_argument("--track", type=Path,
                         help="reuse this truth track (track.csv) instead of tracking the video")
+    registration_options.add_arguments(parser)
     parser.add_argument("--clock-offset", type=float, metavar="S",
                         help="video time minus log time [s]; found automatically if absent")
     parser.add_argument("--tol-pos-m", type=float, metavar="M",
@@ -101,10 +103,21 @@ def run(args) -> int:
         heading_rad=None if args.tol_heading_deg is None else math.radians(args.tol_heading_deg))
     if args.track is None and not args.video.is_file():
         raise InputError(f"{args.video}: file not found; check the video path")
-    with progress_bar(desc="tracking", quiet=args.quiet) as bar:
-        result = grade_run(args.video, args.log, args.robot, args.field, args.camera,
-                           clock_offset_s=args.clock_offset, tolerances=tol, progress=bar,
-                           track=args.track)
+    registrar = None
+    if args.track is None:
+        from ..profiles import load_camera, load_field
+
+        field = load_field(args.field)
+        camera = load_camera(args.camera) if args.camera else None
+        registrar = registration_options.registrar_from_args(args, field, camera)
+    try:
+        with progress_bar(desc="tracking", quiet=args.quiet) as bar:
+            result = grade_run(args.video, args.log, args.robot, args.field, args.camera,
+                               clock_offset_s=args.clock_offset, tolerances=tol,
+                               progress=bar, track=args.track, registrar=registrar)
+    except RegistrationRefused as exc:
+        registration_options.write_preview(exc, args.out / "preview.png")
+        raise
     write_outputs(result, args.out)
     if not args.no_report:
         from ..showcase import render_all

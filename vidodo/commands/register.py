@@ -10,12 +10,14 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from ..errors import InputError
+from ..errors import InputError, RegistrationRefused
 from ..lens import IMAGE_SUFFIXES, read_image
 from ..outputs import staged_dir
 from ..profiles import load_camera, load_field
 from ..registration import grid
 from ..registration.registrar import METHODS, FloorRegistrar, RegistrarSettings, summarise
+from ..registration.selfcheck import CheckLimits
+from . import registration_options
 
 NAME = "register"
 HELP = "check the floor registration of a video; write a grid preview and per-frame errors"
@@ -45,6 +47,9 @@ def add_arguments(parser):
                              "points)")
     parser.add_argument("--max-frames", type=int, default=0,
                         help="register at most this many frames (0: all)")
+    parser.add_argument("--camera-height-m", type=float, metavar="M",
+                        help="the camera's approximate height above the floor [m]; a "
+                        "registration more than 25%% off is refused")
     parser.add_argument("--max-rms-px", type=float, default=3.0,
                         help="refuse a fit whose residual is above this [px]")
     parser.add_argument("-o", "--out", type=Path, default=None,
@@ -68,9 +73,12 @@ def run(args) -> int:
     field = load_field(args.field)
     camera = load_camera(args.camera) if args.camera else None
     method = "points" if args.points is not None else args.method
-    registrar = FloorRegistrar(field, camera, method=method,
-                                        points_csv=args.points,
-                               settings=RegistrarSettings(max_rms_px=args.max_rms_px))
+    if args.camera_height_m is not None and not args.camera_height_m > 0:
+        raise InputError("--camera-height-m must be positive")
+    limits = CheckLimits(camera_height_m=args.camera_height_m)
+    registrar = FloorRegistrar(field, camera, method=method, points_csv=args.points,
+                               settings=RegistrarSettings(max_rms_px=args.max_rms_px,
+                                                          limits=limits))
     out = args.out or args.video.with_name(args.video.stem + "-register")
     if not args.video.exists():
         raise InputError(f"{args.video}: not found; check the path")
@@ -83,8 +91,13 @@ def run(args) -> int:
     try:
         for t_s, frame in _frames(args.video, args.max_frames):
             if ref_frame is None:
-                # The reference: refuse clearly (CalibrationError, exit 3) if it fails.
-                reg = registrar.register_reference(frame, t_s)
+                # The reference: refuse clearly (CalibrationError, exit 3) if it fails,
+                # with only the preview written when its self-check fails.
+                try:
+                    reg = registrar.register_reference(frame, t_s)
+                except RegistrationRefused as exc:
+                    registration_options.write_preview(exc, out / "preview.png")
+                    raise
                 ref_frame = frame
             else:
                 reg = registrar.register(frame, t_s)

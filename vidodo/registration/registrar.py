@@ -44,9 +44,9 @@ import cv2
 import numpy as np
 
 from .. import floor_features
-from ..errors import CalibrationError, InputError
+from ..errors import CalibrationError, InputError, RegistrationRefused
 from ..profiles import CameraProfile, FieldProfile
-from . import grid
+from . import grid, selfcheck
 from .camera_fit import (
     FitOptions,
     check_correspondences,
@@ -58,6 +58,7 @@ from .camera_fit import (
 )
 from .floor_markers import detect_floor_markers
 from .frame import FrameRegistration, failed, floor_usable, project_rows
+from .selfcheck import CheckLimits
 
 __all__ = ["FloorRegistrar", "RegistrarSettings", "RegistrationQuality", "summarise", "METHODS"]
 
@@ -107,8 +108,14 @@ class RegistrarSettings:
     self_check: bool = True
     """Check the reference registration against evidence it was not fitted to (see
     :mod:`vidodo.registration.selfcheck`) and refuse it when the check fails."""
-    camera_height_m: float | None = None
-    """The camera's approximate height above the floor, if the user knows it [m]."""
+    limits: CheckLimits = CheckLimits()
+    """What the self-check accepts, with the user's approximate camera height."""
+    relative_ok: bool = False
+    """Accept a grid whose place in the tile pattern the view does not fix (it might be
+    shifted by whole tiles): the caller fixes it from the start tile or states which
+    visible corner positions are relative to (:func:`selfcheck.place_track`)."""
+    start_tile: tuple[int, int] | None = None
+    """The tile the robot starts on (default: the field profile's ``start_tile``)."""
 
 
 class FloorRegistrar:
@@ -186,6 +193,7 @@ class FloorRegistrar:
         self._last: FrameRegistration | None = None
         self._detectors: dict = {}
         self.grid_result = None
+        self.check_report = None
 
     # -- reference -----------------------------------------------------------
     def register_reference(self, frame_bgr, t_s=0.0, mask=None) -> FrameRegistration:
@@ -250,8 +258,24 @@ class FloorRegistrar:
                 f"{used}: residual {fit.rms_px:.2f} px RMS is above the {self.max_rms_px} px "
                 "limit; the observations do not fit one floor plane - check them")
         reg = fit_to_registration(t_s, fit, used, extra)
+        if self.settings.self_check:
+            self._self_check(frame_bgr, grey, reg, ignore)
         self._set_reference(grey, reg, ignore)
         return reg
+
+    def _self_check(self, frame_bgr, grey, reg, ignore):
+        """Refuse (:class:`RegistrationRefused`) a reference that fails the self-check."""
+        facts = selfcheck.ReferenceFacts(
+            reg.method, self.camera is not None,
+            points=self.points if reg.method.startswith("points") else None,
+            relative_ok=self.settings.relative_ok,
+            position_fixed=bool(self.grid_result is not None
+                                and self.grid_result.origin_from == "floor marker"))
+        report = selfcheck.check_reference(grey, self.field, reg, facts,
+                                           limits=self.settings.limits, ignore=ignore)
+        self.check_report = report
+        if report.reason:
+            selfcheck.refuse(report.reason, frame_bgr, reg, self.field)
 
     def _set_reference(self, grey, reg, ignore):
         self.reference = reg
@@ -288,6 +312,8 @@ class FloorRegistrar:
                     return failed(t_s, f"no reference yet: {self._retry[1]}")
                 return self.register_reference(frame_bgr, t_s, mask)
             return self._register_follow(frame_bgr, t_s, mask)
+        except RegistrationRefused:
+            raise
         except (CalibrationError, cv2.error, np.linalg.LinAlgError, ValueError) as exc:
             k = None if self.reference is None else self.reference.camera_matrix
             d = None if self.reference is None else self.reference.dist_coeffs

@@ -132,28 +132,29 @@ def locate_seams(grey, reg, lines, tile_size_m, *, ignore=None,
 
     Returns
     -------
-    (ndarray (K, 2), ndarray (K,) int, ndarray (K,), ndarray (N,) bool, ndarray (N,) bool)
+    (ndarray (K, 2), ndarray (K,) int, ndarray (K,), ndarray (N,) bool, ndarray (N,))
         Located seam pixels [px], their axis and value [m] (as :func:`seam_samples`);
         then, per input point, whether it could be examined (in view, resolved, not
-        ignored) and whether a seam was found there.
+        ignored) and where across the predicted position a seam was found [px] (NaN
+        where none was).
     """
     fl, axis, val, nrm = lines
     n_in = len(fl)
     looked = np.zeros(n_in, bool)
+    offset = np.full(n_in, np.nan)
     if n_in == 0:
-        return EMPTY + (looked, looked.copy())
+        return EMPTY + (looked, offset)
     prep = _predict(grey.shape, reg, lines, tile_size_m, search)
     if prep is None:
-        return EMPTY + (looked, looked.copy())
+        return EMPTY + (looked, offset)
     ok, p0, n, tang, reach, bg_px = prep
     prof, keep = _profiles(grey, p0, n, tang, reach, ignore)
     t_peak, found = _locate(prof, reach, bg_px, search.min_contrast)
     looked[np.nonzero(ok)[0][keep]] = True
-    hit = np.zeros(n_in, bool)
-    hit[np.nonzero(ok)[0][keep & found]] = True
     keep &= found
+    offset[np.nonzero(ok)[0][keep]] = t_peak[keep]
     q = p0 + t_peak[:, None] * n
-    return q[keep], axis[ok][keep], val[ok][keep], looked, hit
+    return q[keep], axis[ok][keep], val[ok][keep], looked, offset
 
 
 def _predict(shape, reg, lines, tile_size_m, search):
