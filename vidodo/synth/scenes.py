@@ -41,6 +41,7 @@ from .scene_spec import SceneSpec, draw_scene
 
 __all__ = ["Scene", "render_scene", "write_scene", "corners_in_view", "seam_contrast",
            "truth_dict", "view_categories", "render_spec", "BENCHMARK_SEEDS",
+           "save_scene", "floor_at_pixels",
            "VIEW_CATEGORIES", "SEAM_VISIBLE_CONTRAST"]
 
 VIEW_CATEGORIES = ("full_field", "corner_out", "origin_out", "edge_out", "few_rows")
@@ -392,21 +393,49 @@ def truth_dict(scene: Scene) -> dict:
     }
 
 
-def write_scene(seed: int, folder) -> Path:
-    """Render scene ``seed`` into ``folder``: picture, field.toml, camera.toml, truth.json.
+def save_scene(scene: Scene, folder) -> Path:
+    """Write a rendered scene into ``folder``: picture, field.toml, camera.toml, truth.json.
 
     Returns
     -------
     Path
         The picture file.
     """
-    scene = render_scene(seed)
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     (folder / scene.file_name).write_bytes(scene.file_bytes)
-    header = f"randomised scene {seed} (vidodo.synth.scenes)"
+    header = f"randomised scene {scene.spec.seed} (vidodo.synth.scenes)"
     (folder / "field.toml").write_text(dump_toml(field_to_dict(scene.spec.field), header))
     (folder / "camera.toml").write_text(dump_toml(camera_to_dict(scene.spec.setup.camera),
                                                   header + ": the true lens"))
     (folder / "truth.json").write_text(json.dumps(truth_dict(scene), indent=1))
     return folder / scene.file_name
+
+
+def write_scene(seed: int, folder) -> Path:
+    """Render scene ``seed`` and write it into ``folder`` (see :func:`save_scene`)."""
+    return save_scene(render_scene(seed), folder)
+
+
+def floor_at_pixels(spec: SceneSpec, points_px):
+    """True floor point seen at pixels (the renderer's rays), NaN where the ray misses.
+
+    Parameters
+    ----------
+    points_px : array_like of shape (N, 2)
+
+    Returns
+    -------
+    ndarray of shape (N, 2) [m]
+    """
+    cam = spec.setup.camera
+    crit = (cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 100, 1e-12)
+    und = cv2.undistortPoints(np.asarray(points_px, float).reshape(-1, 1, 2), cam.matrix,
+                              cam.dist_coeffs, None, np.eye(3), np.eye(3), crit)[:, 0]
+    rot, centre = _pose(spec)
+    d = np.column_stack([und, np.ones(len(und))]) @ rot
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s = -centre[2] / d[:, 2]
+    out = centre[:2] + s[:, None] * d[:, :2]
+    out[~(d[:, 2] < 0)] = np.nan
+    return out
