@@ -293,7 +293,8 @@ def _profiles(spec, floor_map, seen, grey, offset_tiles):
                          uv[ok][..., 1].astype(np.float32), cv2.INTER_LINEAR)
         side = np.maximum(vals[:, 21:].mean(axis=1), 1.0)
         centre = vals[:, :21].min(axis=1) if look.seam_depth >= 0 else vals[:, :21].max(axis=1)
-        out.append(np.abs(side - centre) / side)
+        step = np.abs(vals[:, 21:24].mean(axis=1) - vals[:, 24:].mean(axis=1))
+        out.append(np.maximum(np.abs(side - centre), step) / side)
     return np.concatenate(out) if out else np.zeros(0)
 
 
@@ -320,8 +321,10 @@ def seam_contrast(spec: SceneSpec, image, floor_seen, floor_map=None):
     Across each interior seam, at ten points per tile edge, the grey profile is read
     where ``cv2.projectPoints`` puts it: the darkest (for light seams: brightest) value
     within the seam's band (its width and teeth plus 1.5 px) against the mean just
-    beside it, as Weber contrast ``|side - seam| / side``. The same is measured across
-    the middles of the tiles, where only the texture, noise and print make a dip.
+    beside it, as Weber contrast ``|side - seam| / side``, or the step between the two
+    sides' means (tiles of different shades) over the same mean, whichever is larger.
+    The same is measured across the middles of the tiles, where only the texture,
+    noise and print make a dip or a step.
 
     Returns
     -------
