@@ -58,7 +58,7 @@ from vidodo.synth.scene_spec import SPEC_CATEGORIES  # noqa: E402
 CORRECT_MM = 5.0
 COLUMNS = ("seed", "class", "exit_code", "rms_mm", "lattice_rms_mm", "n_corners",
            "seams_visible", "seam_contrast", "lens_profile", "method", "seconds_render",
-           "seconds_register", "picture", "categories", "message")
+           "seconds_register", "picture", "origin_hint_margin_px", "categories", "message")
 _CAPTURED: list = []
 
 
@@ -175,6 +175,7 @@ def score_scene(seed: int, lens: str = "scene", truth_points: bool = False) -> d
             "lens_profile": with_lens, "method": getattr(reg, "method", ""),
             "seconds_render": t1 - t0, "seconds_register": t2 - t1,
             "picture": scene.file_name, "categories": ";".join(scene.categories),
+            "origin_hint_margin_px": scene.spec.origin_hint_margin_px,
             "message": message if code != 0 else ""}
 
 
