@@ -155,3 +155,15 @@ def test_written_scene_reads_as_a_user_would(tmp_path, small_scenes):
     assert truth["n_corners_in_view"] == len(small_scenes[seed].corners)
     img = cv2.imread(str(picture))
     assert img.shape[:2] == (camera.height_px, camera.width_px)
+
+
+def test_start_tile_has_its_four_corners_in_view(small_scenes):
+    for sc in small_scenes.values():
+        tile = scenes.start_tile(sc)
+        seen = {(int(i), int(j)) for i, j in sc.corners[:, :2]}
+        if tile is None:  # no whole tile in view: fewer than four corners of any tile
+            assert not any({(i, j), (i + 1, j), (i, j + 1), (i + 1, j + 1)} <= seen
+                           for i, j in seen)
+            continue
+        i, j = tile
+        assert {(i, j), (i + 1, j), (i, j + 1), (i + 1, j + 1)} <= seen

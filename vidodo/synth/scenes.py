@@ -41,7 +41,7 @@ from .scene_spec import SceneSpec, draw_scene
 
 __all__ = ["Scene", "render_scene", "write_scene", "corners_in_view", "seam_contrast",
            "truth_dict", "view_categories", "render_spec", "BENCHMARK_SEEDS",
-           "save_scene", "floor_at_pixels",
+           "save_scene", "floor_at_pixels", "start_tile",
            "VIEW_CATEGORIES", "SEAM_VISIBLE_CONTRAST"]
 
 VIEW_CATEGORIES = ("full_field", "corner_out", "origin_out", "edge_out", "few_rows")
@@ -375,6 +375,22 @@ def render_spec(spec: SceneSpec) -> Scene:
     return Scene(spec, image, name, data, seen, corners, contrast, visible, cats)
 
 
+def start_tile(scene: Scene):
+    """A field tile whose four corners are in view, nearest the picture's centre (where
+    a robot could start: for a start-tile option), or None."""
+    seen = {(int(i), int(j)): (u, v) for i, j, u, v in scene.corners}
+    cam = scene.spec.setup.camera
+    best = None
+    for (i, j) in seen:
+        quad = [(i, j), (i + 1, j), (i, j + 1), (i + 1, j + 1)]
+        if all(q in seen for q in quad):
+            uv = np.mean([seen[q] for q in quad], axis=0)
+            d = math.hypot(uv[0] - 0.5 * cam.width_px, uv[1] - 0.5 * cam.height_px)
+            if best is None or d < best[0]:
+                best = (d, [i, j])
+    return None if best is None else best[1]
+
+
 def truth_dict(scene: Scene) -> dict:
     """The truth of a scene as written to ``truth.json`` (metres, pixels, radians)."""
     sp = scene.spec
@@ -393,6 +409,7 @@ def truth_dict(scene: Scene) -> dict:
         "corners_in_view": scene.corners.tolist(),
         "n_corners_in_view": len(scene.corners),
         "seam_contrast": scene.seam_contrast, "seams_visible": scene.seams_visible,
+        "start_tile": start_tile(scene),
     }
 
 
