@@ -356,14 +356,15 @@ def check_reference(grey, field_profile: FieldProfile, reg: FrameRegistration,
     figures.update(ev)
     if ev["edges"] < limits.min_edges:
         return CheckReport(f"only {ev['edges']} tile edges of the field are in view", figures)
+    if ev["offset_supported"] >= 0.3 and (
+            ev["offset_supported"] > limits.max_offset_ratio * ev["supported"]):
+        return CheckReport(
+            f"seams show half a tile off the grid as often as on it ({ev['offset_supported']:.0%}"
+            f" against {ev['supported']:.0%} of the edges)", figures)
     if ev["supported"] < limits.min_edge_support:
         return CheckReport(
             f"seams were found on only {ev['supported']:.0%} of the tile edges the grid "
             "predicts", figures)
-    if ev["offset_supported"] > limits.max_offset_ratio * ev["supported"]:
-        return CheckReport(
-            f"seams show half a tile off the grid as often as on it ({ev['offset_supported']:.0%}"
-            f" against {ev['supported']:.0%} of the edges)", figures)
     sub = subset_disagreement_m((w, h), field_profile, reg, samples)
     figures["subset_disagreement_m"] = sub
     limit = max(limits.max_subset_m, limits.max_subset_tiles * field_profile.tile_size_m)
