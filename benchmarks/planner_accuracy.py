@@ -47,7 +47,7 @@ from vidodo.planner import (  # noqa: E402
     registration_term_px,
 )
 from vidodo.profiles import load_camera, load_field, load_robot  # noqa: E402
-from vidodo.register import FloorRegistrar  # noqa: E402
+from vidodo.registration.registrar import FloorRegistrar  # noqa: E402
 from vidodo.track import track_video  # noqa: E402
 
 # camera position (x, y, z) and aim (x, y) [m], horizontal field of view [deg]; all on the

@@ -34,8 +34,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from _runs import rendered  # noqa: E402
 
-from vidodo import register  # noqa: E402
 from vidodo.profiles import load_camera, load_field  # noqa: E402
+from vidodo.registration.registrar import FloorRegistrar, summarise  # noqa: E402
 from vidodo.video import VideoReader  # noqa: E402
 
 
@@ -85,7 +85,7 @@ def bench(run: Path, *, use_camera: bool, max_frames=None):
     field = load_field(run / "field.toml")
     cam_true = load_camera(run / "camera.toml")
     poses = true_poses(run)
-    registrar = register.FloorRegistrar(field, cam_true if use_camera else None)
+    registrar = FloorRegistrar(field, cam_true if use_camera else None)
     errs, first_errs, regs, cost = [], [], [], []
     decode = []
     first = None
@@ -108,7 +108,7 @@ def bench(run: Path, *, use_camera: bool, max_frames=None):
                 first_errs.append(corner_rms_mm(first, field, cam_true, t_s, poses))
             if max_frames and i + 1 >= max_frames:
                 break
-    q = register.summarise(regs)
+    q = summarise(regs)
     errs = np.array(errs)
     return dict(
         frames=len(regs), ok=q.n_ok, methods=q.methods,

@@ -29,7 +29,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _runs import rendered  # noqa: E402
 
 from vidodo.profiles import load_camera, load_field, load_robot  # noqa: E402
-from vidodo.register import FloorRegistrar  # noqa: E402
+from vidodo.registration.registrar import FloorRegistrar  # noqa: E402
 from vidodo.track import track_video  # noqa: E402
 
 TARGETS = {"default": (2.0, 4.0, 0.3), "mecanum-handheld": (4.0, None, None)}

@@ -14,9 +14,10 @@ import cv2
 import numpy as np
 import pytest
 
-from vidodo import grid
 from vidodo.errors import CalibrationError
 from vidodo.profiles import CameraProfile, FieldProfile, FloorMarker
+from vidodo.registration import grid
+from vidodo.registration.grid import lattice
 from vidodo.synth.motion import look_at_pose
 
 MM_PER_TEXEL = 2.0
@@ -122,22 +123,22 @@ def tripod_view():
 
 def test_grid_with_known_lens_meets_2mm(tripod_view):
     """Floor error at tile corners below 2 mm RMS (issue 3 acceptance, tripod)."""
-    from vidodo.register import _fit_to_registration
+    from vidodo.registration.camera_fit import fit_to_registration
 
     img, rvec, tvec = tripod_view
     g = grid.find_grid(img, FIELD, camera=CAM)
-    reg = _fit_to_registration(0.0, g.fit, "grid")
+    reg = fit_to_registration(0.0, g.fit, "grid")
     assert g.origin == "near-left"
     assert corner_error_mm(reg, CAM, rvec, tvec) < 2.0
     assert reg.rms_px < 0.5
 
 
 def test_grid_without_lens_estimates_focal_and_distortion(tripod_view):
-    from vidodo.register import _fit_to_registration
+    from vidodo.registration.camera_fit import fit_to_registration
 
     img, rvec, tvec = tripod_view
     g = grid.find_grid(img, FIELD, camera=None)
-    reg = _fit_to_registration(0.0, g.fit, "grid")
+    reg = fit_to_registration(0.0, g.fit, "grid")
     assert abs(reg.camera_matrix[0, 0] / CAM.fx_px - 1) < 0.03
     assert abs(reg.dist_coeffs[0] - CAM.distortion[0]) < 0.04
     assert corner_error_mm(reg, CAM, rvec, tvec) < 2.0
@@ -146,11 +147,11 @@ def test_grid_without_lens_estimates_focal_and_distortion(tripod_view):
 @pytest.mark.parametrize("hint", ["near-right", "far-right", "far-left"])
 def test_origin_hint_rotates_floor_frame(tripod_view, hint):
     """The hinted corner becomes (0, 0); the frame stays right-handed (camera above)."""
-    from vidodo.register import _fit_to_registration
+    from vidodo.registration.camera_fit import fit_to_registration
 
     img, rvec, tvec = tripod_view
     field = FieldProfile(6, 6, 0.6, origin_hint=hint)
-    reg = _fit_to_registration(0.0, grid.find_grid(img, field, camera=CAM).fit, "grid")
+    reg = fit_to_registration(0.0, grid.find_grid(img, field, camera=CAM).fit, "grid")
     sx, sy = FIELD.size_m
     true_corner = {"near-right": (sx, 0), "far-right": (sx, sy), "far-left": (0, sy)}[hint]
     px = cv2.projectPoints(np.array([[*true_corner, 0.0]]), rvec, tvec, CAM.matrix,
@@ -174,9 +175,9 @@ def test_non_square_field_and_wrong_counts():
     tex, org = tile_texture(field)
     rvec, tvec = tripod_pose(field)
     img = render_view(tex, org, CAM, rvec, tvec)
-    from vidodo.register import _fit_to_registration
+    from vidodo.registration.camera_fit import fit_to_registration
 
-    reg = _fit_to_registration(0.0, grid.find_grid(img, field, camera=CAM).fit, "grid")
+    reg = fit_to_registration(0.0, grid.find_grid(img, field, camera=CAM).fit, "grid")
     assert corner_error_mm(reg, CAM, rvec, tvec, field) < 2.0
     # The same floor with the counts swapped cannot be right-handed from near-left.
     with pytest.raises(CalibrationError, match="tiles_x"):
@@ -190,7 +191,7 @@ def test_blank_frame_is_refused():
 
 def test_seam_samples_subpixel_on_straight_seams():
     """Seams seen straight from above are located within 0.1 px RMS (true camera)."""
-    from vidodo.register import FrameRegistration
+    from vidodo.registration.frame import FrameRegistration
 
     field = FieldProfile(3, 3, 0.4)
     cam = CameraProfile(800, 800, 600.0, 600.0, 399.5, 399.5)
@@ -198,7 +199,7 @@ def test_seam_samples_subpixel_on_straight_seams():
     tex, org = tile_texture(field, margin_m=0.4)
     img = render_view(tex, org, cam, rvec, tvec, noise=0.5, supersample=1)
     truth = FrameRegistration(0.0, True, cam.matrix, cam.dist_coeffs, rvec, tvec, 0, 0, 0, "")
-    q, ax, val = grid.seam_samples(img, field, truth, half_width_px=6)
+    q, ax, val = grid.seam_samples(img, field, truth, search=grid.SeamSearch(half_width_px=6))
     assert len(q) > 100
     back = truth.image_to_floor(q)
     err_px = (back[np.arange(len(q)), ax] - val) * 600.0 / 1.5
@@ -216,13 +217,13 @@ def test_distort_matches_opencv_projection():
                  [-0.2, 0.05, 0.001, -0.002, 0.01, 0.1, 0.01, 0.002]):
         dist = np.array(dist)
         ref = cv2.projectPoints(obj, np.zeros(3), np.zeros(3), k, dist)[0].reshape(-1, 2)
-        np.testing.assert_allclose(grid._distort(norm, k, dist), ref, atol=1e-6)
+        np.testing.assert_allclose(lattice.distort(norm, k, dist), ref, atol=1e-6)
 
 
 def test_grid_on_full_hd_frame_meets_2mm():
     """A 1920 x 1080 frame takes the shrunk lattice search, then the full-resolution seam
     fit: the floor error at tile corners stays below 2 mm RMS (issue 3 acceptance)."""
-    from vidodo.register import _fit_to_registration
+    from vidodo.registration.camera_fit import fit_to_registration
 
     cam = CameraProfile(1920, 1080, 1500.0, 1500.0, 963.0, 536.0, (-0.12, 0.03, 0, 0, 0))
     assert math.hypot(cam.width_px, cam.height_px) * 0.9 > grid.LATTICE_DIAG_PX
@@ -230,7 +231,7 @@ def test_grid_on_full_hd_frame_meets_2mm():
     rvec, tvec = tripod_pose()
     img = render_view(tex, org, cam, rvec, tvec, supersample=1)
     g = grid.find_grid(img, FIELD, camera=cam)
-    reg = _fit_to_registration(0.0, g.fit, "grid")
+    reg = fit_to_registration(0.0, g.fit, "grid")
     assert g.origin == "near-left"
     assert corner_error_mm(reg, cam, rvec, tvec) < 2.0
     assert reg.rms_px < 0.5

@@ -22,9 +22,11 @@ from test_grid import (
 )
 from test_lens import opencv_data
 
-from vidodo import floor_features, register
+from vidodo import floor_features
 from vidodo.errors import CalibrationError, InputError
 from vidodo.profiles import CameraProfile, FieldProfile, FloorMarker
+from vidodo.registration import camera_fit, frame
+from vidodo.registration.registrar import FloorRegistrar, RegistrarSettings
 
 K = np.array([[1000.0, 0, 640], [0, 1000.0, 360], [0, 0, 1]])
 
@@ -42,7 +44,7 @@ def test_pose_from_homography_matches_opencv_solvepnp():
     px = cv2.projectPoints(np.column_stack([fl, np.zeros(len(fl))]), rvec, tvec, K,
                            None)[0].reshape(-1, 2)
     hmg, _ = cv2.findHomography(fl, px, 0)
-    rv, tv = register.pose_from_homography(hmg, K)
+    rv, tv = camera_fit.pose_from_homography(hmg, K)
     ok, rv_cv, tv_cv = cv2.solvePnP(np.column_stack([fl, np.zeros(len(fl))]), px, K, None,
                                     flags=cv2.SOLVEPNP_IPPE)
     assert ok
@@ -61,7 +63,7 @@ def test_focal_from_homography(roll_deg):
     roll = np.array([[c, -s, 0], [s, c, 0], [0, 0, 1]])  # about the optical axis
     r, t = roll @ r, roll @ tvec
     hmg = K @ np.column_stack([r[:, 0], r[:, 1], t])
-    f = register.focal_from_homography(hmg, (640, 360))
+    f = camera_fit.focal_from_homography(hmg, (640, 360))
     assert f == pytest.approx(1000.0, rel=1e-6)
 
 
@@ -69,12 +71,12 @@ def test_focal_not_observable_straight_down():
     rvec, tvec = look_at([1.0, 1.0, 2.0], [1.0, 1.0001, 0.0])
     r = cv2.Rodrigues(rvec)[0]
     hmg = K @ np.column_stack([r[:, 0], r[:, 1], tvec])
-    assert register.focal_from_homography(hmg, (640, 360)) is None
+    assert camera_fit.focal_from_homography(hmg, (640, 360)) is None
 
 
 def _registration(rvec, tvec, k=K, dist=None):
     dist = np.zeros(5) if dist is None else dist
-    return register.FrameRegistration(0.0, True, k, dist, np.asarray(rvec, float),
+    return frame.FrameRegistration(0.0, True, k, dist, np.asarray(rvec, float),
                                       np.asarray(tvec, float), 0.0, 0.0, 0, "test")
 
 
@@ -105,7 +107,7 @@ def test_parallax_of_raised_marker_matches_similar_triangles():
 
 
 def test_failed_registration_maps_to_nan():
-    reg = register.failed(1.0, "no floor")
+    reg = frame.failed(1.0, "no floor")
     assert not reg.ok and reg.reason == "no floor"
     assert np.isnan(reg.image_to_floor([[1.0, 2.0]])).all()
     assert np.isnan(reg.floor_to_image([[1.0, 2.0]])).all()
@@ -120,31 +122,31 @@ def _write_csv(path, text):
 def test_points_csv_errors_name_column_and_line(tmp_path):
     p = _write_csv(tmp_path / "a.csv", "u_px,v_px,x_m\n1,2,3\n")
     with pytest.raises(InputError, match="missing column.*y_m"):
-        register.read_points_csv(p)
+        camera_fit.read_points_csv(p)
     p = _write_csv(tmp_path / "b.csv", "u_px,v_px,x_m,y_m\n1,2,3,4\n5,six,7,8\n")
     with pytest.raises(InputError, match="line 3, column v_px"):
-        register.read_points_csv(p)
+        camera_fit.read_points_csv(p)
     p = _write_csv(tmp_path / "c.csv", "")
     with pytest.raises(InputError, match="empty"):
-        register.read_points_csv(p)
+        camera_fit.read_points_csv(p)
     with pytest.raises(InputError, match="not found"):
-        register.read_points_csv(tmp_path / "missing.csv")
+        camera_fit.read_points_csv(tmp_path / "missing.csv")
 
 
 def test_refusals_one_line_naming_the_cause():
     fl = _floor_pts(8)
     with pytest.raises(CalibrationError, match="3 point"):
-        register.check_correspondences(fl[:3] * 100, fl[:3])
+        camera_fit.check_correspondences(fl[:3] * 100, fl[:3])
     line = np.column_stack([np.linspace(0, 3, 6), 0.5 * np.linspace(0, 3, 6) + 0.001 *
                             np.array([0, 1, 0, 1, 0, 1])])
     with pytest.raises(CalibrationError, match="collinear"):
-        register.check_correspondences(line * 100 + 7, line)
+        camera_fit.check_correspondences(line * 100 + 7, line)
     # Mirrored: x and y swapped in the floor coordinates.
     rvec, tvec = look_at([1.8, -1.8, 2.4], [1.8, 1.5, 0.0])
     px = cv2.projectPoints(np.column_stack([fl, np.zeros(len(fl))]), rvec, tvec, K,
                            None)[0].reshape(-1, 2)
     with pytest.raises(CalibrationError, match="mirrored") as info:
-        register.fit_camera((1280, 720), points=(px, fl[:, ::-1]))
+        camera_fit.fit_camera((1280, 720), points=(px, fl[:, ::-1]))
     assert "\n" not in str(info.value)
 
 
@@ -157,8 +159,8 @@ def test_points_method_on_exact_correspondences(tmp_path):
     rows = "\n".join(f"{u:.4f},{v:.4f},{x},{y}" for (u, v), (x, y) in zip(px, corners,
                                                                           strict=True))
     p = _write_csv(tmp_path / "pts.csv", "u_px,v_px,x_m,y_m\n" + rows + "\n")
-    registrar = register.FloorRegistrar(FIELD, CAM, method="points", points_csv=p,
-                                        refine_on_seams=False)
+    registrar = FloorRegistrar(FIELD, CAM, method="points", points_csv=p,
+                               settings=RegistrarSettings(refine_on_seams=False))
     reg = registrar.register(np.zeros((720, 1280), np.uint8), 0.0)
     assert reg.ok and reg.method == "points"
     assert corner_error_mm(reg, CAM, rvec, tvec) < 0.1
@@ -174,8 +176,9 @@ def test_points_method_refuses_high_error(tmp_path):
     rows = "\n".join(f"{u},{v},{x},{y}" for (u, v), (x, y) in zip(px, fl, strict=True))
     p = _write_csv(tmp_path / "pts.csv", "u_px,v_px,x_m,y_m\n" + rows + "\n")
     cam = CameraProfile(1280, 720, 1000.0, 1000.0, 640.0, 360.0)
-    registrar = register.FloorRegistrar(FIELD, cam, method="points", points_csv=p,
-                                        refine_on_seams=False, max_rms_px=2.0)
+    registrar = FloorRegistrar(FIELD, cam, method="points", points_csv=p,
+                               settings=RegistrarSettings(refine_on_seams=False,
+                                                          max_rms_px=2.0))
     with pytest.raises(CalibrationError, match="above the 2.0 px limit"):
         registrar.register_reference(np.zeros((720, 1280), np.uint8), 0.0)
     # Per frame it is a flagged frame, not an exception.
@@ -200,11 +203,12 @@ def marker_field_view():
 
 def test_markers_method_then_seams(marker_field_view):
     field, _tex, _org, rvec, tvec, img = marker_field_view
-    only = register.FloorRegistrar(field, CAM, method="markers", refine_on_seams=False)
+    only = FloorRegistrar(field, CAM, method="markers",
+                          settings=RegistrarSettings(refine_on_seams=False))
     reg0 = only.register_reference(img, 0.0)
     assert reg0.method == "markers" and reg0.n_points == 16
     err0 = corner_error_mm(reg0, CAM, rvec, tvec)
-    both = register.FloorRegistrar(field, CAM, method="markers")
+    both = FloorRegistrar(field, CAM, method="markers")
     reg = both.register_reference(img, 0.0)
     assert reg.method == "markers+seams"
     err = corner_error_mm(reg, CAM, rvec, tvec)
@@ -215,7 +219,7 @@ def test_auto_uses_grid_without_markers():
     tex, org = tile_texture(FIELD)
     rvec, tvec = tripod_pose()
     img = render_view(tex, org, CAM, rvec, tvec, supersample=1)
-    reg = register.FloorRegistrar(FIELD, None).register(img, 0.0)
+    reg = FloorRegistrar(FIELD, None).register(img, 0.0)
     assert reg.ok and reg.method == "grid", reg.reason
     assert corner_error_mm(reg, CAM, rvec, tvec) < 2.5
 
@@ -225,7 +229,7 @@ def test_handheld_sequence_reregistered_every_frame(marker_field_view):
     """A swaying camera: every frame re-registered; a static repeat is recognised; a
     blank frame is flagged, not raised; a masked robot-sized box is ignored."""
     field, tex, org, rvec0, tvec0, img0 = marker_field_view
-    registrar = register.FloorRegistrar(field, CAM, method="auto")
+    registrar = FloorRegistrar(field, CAM, method="auto")
     reg = registrar.register(img0, 0.0)
     assert reg.ok
     sx, sy = field.size_m
@@ -332,7 +336,7 @@ def test_rolling_shutter_rows_see_their_own_pose():
     rvec, tvec = look_at([1.8, -1.8, 2.4], [1.8, 1.5, 0.0])
     k = np.array([[900.0, 0, 639.5], [0, 900.0, 359.5], [0, 0, 1]])
     rate_r, rate_t = np.array([0.02, -0.03, 0.01]), np.array([0.05, 0.02, -0.01])
-    reg = register.FrameRegistration(0.0, True, k, np.zeros(5), rvec, tvec, 0, 0, 0, "t",
+    reg = frame.FrameRegistration(0.0, True, k, np.zeros(5), rvec, tvec, 0, 0, 0, "t",
                                      readout_s=0.03, rvec_rate=rate_r, tvec_rate=rate_t)
     x = np.array([[1.0, 2.0, 0.0], [3.0, 0.5, 0.0]])
     for pt in x:
@@ -343,14 +347,15 @@ def test_rolling_shutter_rows_see_their_own_pose():
             dt = px[1] / 720 * 0.03
         np.testing.assert_allclose(reg.image_to_floor(px[None])[0], pt[:2], atol=1e-6)
         np.testing.assert_allclose(reg.floor_to_image(pt[None])[0], px, atol=1e-3)
-    still = register.FrameRegistration(0.0, True, k, np.zeros(5), rvec, tvec, 0, 0, 0, "t")
+    still = frame.FrameRegistration(0.0, True, k, np.zeros(5), rvec, tvec, 0, 0, 0, "t")
     assert not still.rolling and reg.rolling
 
 
 def test_reference_retried_after_a_pause(still):
     """A frame that cannot be the reference is flagged; the next full attempt waits."""
     img = cv2.imread(str(still / "floor.png"))
-    registrar = register.FloorRegistrar(FIELD, CAM, reference_retry_s=0.5)
+    registrar = FloorRegistrar(FIELD, CAM,
+                               settings=RegistrarSettings(reference_retry_s=0.5))
     first = registrar.register(np.full_like(img, 128), 0.0)
     assert not first.ok and "grid" in first.reason
     soon = registrar.register(img, 0.2)
@@ -376,7 +381,7 @@ def test_pose_fit_drops_points_a_few_tenths_of_a_pixel_off():
     moved = np.zeros(len(px), bool)
     moved[:30] = True  # a robot starting to move: its corners shift together
     px[moved] += [0.8, 0.0]
-    fit = register.pose_fit_points(px, fl, K, np.zeros(5), rvec + 0.01, tvec + 0.02)
+    fit = camera_fit.pose_fit_points(px, fl, K, np.zeros(5), (rvec + 0.01, tvec + 0.02))
     assert not fit.inliers[moved].any()
     assert fit.inliers[~moved].mean() > 0.98
     ok, rv_ref, tv_ref = cv2.solvePnP(obj[~moved], px[~moved], K, np.zeros(5), rvec.copy(),
@@ -406,9 +411,9 @@ def test_seam_fits_of_later_frames_average_down_the_reference_error(tmp_path):
     sx, sy = FIELD.size_m
 
     def run(anchor_every_s):
-        registrar = register.FloorRegistrar(FIELD, CAM, method="points", points_csv=p,
-                                            refine_on_seams=False,
-                                            anchor_every_s=anchor_every_s)
+        registrar = FloorRegistrar(FIELD, CAM, method="points", points_csv=p,
+                                   settings=RegistrarSettings(
+                                       refine_on_seams=False, anchor_every_s=anchor_every_s))
         img0 = render_view(tex, org, CAM, rvec0, tvec0, supersample=1, seed=20)
         first = registrar.register(img0, 0.0)
         assert first.ok

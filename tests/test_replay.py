@@ -17,7 +17,7 @@ import pytest
 from numpy.testing import assert_allclose
 
 from vidodo.profiles import Marker
-from vidodo.register import FrameRegistration
+from vidodo.registration.frame import FrameRegistration
 from vidodo.report.replay import (
     TRUTH_BGR,
     ReplayTracks,

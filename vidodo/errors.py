@@ -49,6 +49,25 @@ class CalibrationError(MeasurementError):
     """A floor registration or lens calibration could not be fitted."""
 
 
+#: What a refused registration tells the user to do instead.
+REFUSAL_HINT = "give tile corners with --points or floor fiducials"
+
+
+class RegistrationRefused(CalibrationError):
+    """A floor registration failed its self-check: it may be wrong, so nothing is graded.
+
+    The message is one line: ``the floor could not be registered reliably: <reason>;
+    give tile corners with --points or floor fiducials``. ``preview_bgr`` holds the
+    preview image (the fitted grid over the reference frame), or None.
+    """
+
+    def __init__(self, reason: str, preview_bgr=None):
+        super().__init__(f"the floor could not be registered reliably: {reason}; "
+                         f"{REFUSAL_HINT}")
+        self.reason = reason
+        self.preview_bgr = preview_bgr
+
+
 class TrackingError(MeasurementError):
     """The robot's marker could not be tracked."""
 

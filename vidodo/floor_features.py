@@ -1,6 +1,6 @@
 """Feature-based re-registration of a frame to a reference view of the floor.
 
-Two tools, used by :class:`vidodo.register.FloorRegistrar` for hand-held footage:
+Two tools, used by :class:`vidodo.registration.registrar.FloorRegistrar` for hand-held footage:
 
 * :func:`match_homography`: scale-invariant keypoints (SIFT, Lowe, IJCV 60(2), 2004;
   or ORB) matched with Lowe's ratio test, a homography fitted with RANSAC (Fischler &

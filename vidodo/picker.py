@@ -3,7 +3,8 @@
 :func:`picker_frames` takes a frame of the video (the first, or the one at ``at_s``; for
 a hand-held clip a few more spread over the clip) and computes, in Python, the tile-corner
 candidates of each (:func:`vidodo.corner_candidates.corner_candidates`) and the floor
-fiducials of the field profile seen in it (:func:`vidodo.register.detect_floor_markers`).
+fiducials of the field profile seen in it
+(:func:`vidodo.registration.floor_markers.detect_floor_markers`).
 :func:`build_page` embeds the frames as JPEG ``data:`` URIs and the candidates as JSON in
 one HTML file with its script and style sheet inline (package data ``picker_page.js`` and
 ``picker_page.css``); a Content-Security-Policy forbids it to load anything else, so it
@@ -11,7 +12,7 @@ works from ``file://`` with no server and no network.
 
 In the page a click snaps to the nearest candidate, the lattice of tiles is filled in
 once four points carry floor coordinates, the implied grid is drawn over the image, and
-"Save" downloads ``u_px,v_px,x_m,y_m`` rows, the format :func:`vidodo.register.
+"Save" downloads ``u_px,v_px,x_m,y_m`` rows, the format :func:`vidodo.registration.camera_fit.
 read_points_csv` reads.
 """
 
@@ -71,7 +72,7 @@ class PickerFrame:
 def frame_for_picker(frame_bgr, t_s: float, field: FieldProfile,
                      settings: PickerSettings | None = None) -> PickerFrame:
     """Candidates and fiducials of one frame, and the frame as JPEG."""
-    from .register import detect_floor_markers
+    from .registration.floor_markers import detect_floor_markers
 
     settings = settings or PickerSettings()
     grey = frame_bgr if frame_bgr.ndim == 2 else cv2.cvtColor(frame_bgr, cv2.COLOR_BGR2GRAY)

@@ -508,7 +508,7 @@ def _jsonable(obj):
 
 
 def grade_run(video, log, robot, field_profile, camera=None, *, settings=None, track=None,
-              progress=None) -> GradeResult:
+              progress=None, registrar=None) -> GradeResult:
     """Grade one run: video + log + profiles -> drift, events, verdict.
 
     Parameters
@@ -527,6 +527,9 @@ def grade_run(video, log, robot, field_profile, camera=None, *, settings=None, t
         A truth track to reuse instead of tracking the video.
     progress : callable, optional
         Passed to the tracker.
+    registrar : FloorRegistrar, optional
+        How the floor is registered (points, start tile, limits); default: the
+        automatic one for the field and camera.
 
     Returns
     -------
@@ -550,7 +553,8 @@ def grade_run(video, log, robot, field_profile, camera=None, *, settings=None, t
     if track is None:
         from .track import track_video
 
-        truth = track_video(video, robot, field_profile, camera, progress=progress)
+        truth = track_video(video, robot, field_profile, camera, progress=progress,
+                            registrar=registrar)
     elif isinstance(track, pd.DataFrame):
         truth = track
         inputs["track"] = "given"

@@ -118,7 +118,7 @@ def _check_marker(frames, robot, fld) -> Check:
 
 
 def _register(frames, fld, camera):
-    from .register import FloorRegistrar
+    from .registration.registrar import FloorRegistrar
 
     registrar = FloorRegistrar(fld, camera)
     reg = None

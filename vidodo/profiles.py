@@ -38,6 +38,7 @@ __all__ = [
     "FieldProfile",
     "CameraProfile",
     "load_robot",
+    "parse_start_tile",
     "load_field",
     "load_camera",
     "dump_toml",
@@ -256,6 +257,10 @@ class FieldProfile:
     automatic tile grid: 'near-left', 'near-right', 'far-left' or 'far-right'."""
     floor_markers: tuple[FloorMarker, ...] = ()
     path: Path | None = field(default=None, compare=False)
+    start_tile: tuple[int, int] | None = None
+    """The tile the robot starts on, ``(i, j)`` counted from 0 along x and y (tile i
+    spans ``i * tile_size_m`` to ``(i + 1) * tile_size_m``); fixes the field's place in
+    the tile pattern when its origin is out of view."""
 
     @property
     def size_m(self) -> tuple[float, float]:
@@ -537,6 +542,9 @@ def load_field(path) -> FieldProfile:
     markers = tuple(
         _marker(t, FloorMarker) for t in _list_of_tables(data, "floor_marker", where)
     )
+    start = floor.data.get("start_tile")
+    if start is not None:
+        start = parse_start_tile(start, tiles_x, tiles_y, f"{where} [floor] start_tile")
     return FieldProfile(
         tiles_x=tiles_x,
         tiles_y=tiles_y,
@@ -546,7 +554,29 @@ def load_field(path) -> FieldProfile:
         ),
         floor_markers=markers,
         path=p,
+        start_tile=start,
     )
+
+
+def parse_start_tile(value, tiles_x, tiles_y, where) -> tuple[int, int]:
+    """A start tile ``[i, j]`` (or ``"i,j"``) checked against the field's tile counts.
+
+    Raises
+    ------
+    InputError
+        Not two whole numbers, or a tile outside the field.
+    """
+    if isinstance(value, str):
+        value = value.split(",")
+    try:
+        i, j = (int(str(v).strip()) for v in value)
+    except (TypeError, ValueError):
+        raise InputError(f"{where}: give the start tile as two whole numbers i, j "
+                         f"(got {value!r})") from None
+    if not (0 <= i < tiles_x and 0 <= j < tiles_y):
+        raise InputError(f"{where}: tile ({i}, {j}) is outside the field's {tiles_x} x "
+                         f"{tiles_y} tiles (counted from 0)")
+    return i, j
 
 
 def load_camera(path) -> CameraProfile:

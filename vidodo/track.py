@@ -23,7 +23,7 @@ from __future__ import annotations
 
 import math
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import cv2
 import numpy as np
@@ -1354,7 +1354,7 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
         Lens and rolling-shutter readout time; without it the registrar must cope.
     registrar : object, optional
         Anything with ``register(frame_bgr, t_s)`` -> FrameRegistration; default
-        ``register.FloorRegistrar(field, camera)``.
+        ``registrar.FloorRegistrar(field, camera)``.
     progress : callable, optional
         ``progress(frames_done, frames_total)``.
     refine : {'apriltag', 'hybrid', 'subpix', 'contour', 'none'}
@@ -1397,7 +1397,7 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
         The video stopped early; ``.partial`` holds the TrackResult up to there.
     """
     if registrar is None:
-        from .register import FloorRegistrar
+        from .registration.registrar import FloorRegistrar
 
         registrar = FloorRegistrar(field, camera=camera)
     if readout_s is None:
@@ -1413,12 +1413,31 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
     threads = cv2.getNumThreads()
     cv2.setNumThreads(1)
     try:
-        return _track_video(video_path, robot, field, camera, registrar, progress, refine,
-                            readout_s, source, max_gap_s, corner_sigma_px, corner_bias_px,
-                            window, threaded, register_every, max_speed_mps, warnings, acc,
-                            detector)
+        result = _track_video(video_path, robot, field, camera, registrar, progress, refine,
+                              readout_s, source, max_gap_s, corner_sigma_px, corner_bias_px,
+                              window, threaded, register_every, max_speed_mps, warnings, acc,
+                              detector)
     finally:
         cv2.setNumThreads(threads)
+    return _placed(result, registrar)
+
+
+def _placed(result: TrackResult, registrar) -> TrackResult:
+    """The track placed by the start tile and checked against the field (see
+    :func:`vidodo.registration.selfcheck.place_track`); states what positions are
+    relative to."""
+    from .registration.selfcheck import place_track
+
+    track, statement = place_track(result.track, result.quality, registrar)
+    if not statement:
+        return result
+    quality = dict(result.quality, positions_relative_to=statement)
+    warnings = list(result.warnings)
+    if not statement.startswith("the field origin"):
+        warnings.append(f"the field's place in the tile pattern is not fixed by the view and "
+                        f"no start tile was given: positions are relative to {statement}; "
+                        "drift is unaffected (give --start-tile for field positions)")
+    return replace(result, track=track, quality=quality, warnings=warnings)
 
 
 def _track_video(video_path, robot, field, camera, registrar, progress, refine, readout_s,

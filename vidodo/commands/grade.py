@@ -6,8 +6,9 @@ import math
 import sys
 from pathlib import Path
 
-from ..errors import EXIT_OK, EXIT_TOLERANCE, InputError
+from ..errors import EXIT_OK, EXIT_TOLERANCE, InputError, RegistrationRefused
 from ..units import length_factor
+from . import registration_options
 from ._options import add_old_spelling, add_out, add_switch, add_units
 
 NAME = "grade"
@@ -31,6 +32,7 @@ def add_arguments(parser):
     parser.add_argument("--camera", type=Path, help="camera profile (TOML), if calibrated")
     parser.add_argument("--track", type=Path,
                         help="reuse this truth track (track.csv) instead of tracking the video")
+    registration_options.add_arguments(parser)
     parser.add_argument("--clock-offset-s", type=float, metavar="S",
                         help="video time minus log time [s]; found automatically if absent")
     add_old_spelling(parser, "--clock-offset", "clock_offset_s", type=float)
@@ -100,11 +102,22 @@ def run(args) -> int:
         heading_rad=None if args.tol_heading_deg is None else math.radians(args.tol_heading_deg))
     if args.track is None and not args.video.is_file():
         raise InputError(f"{args.video}: file not found; check the video path")
-    with progress_bar(desc="tracking", quiet=args.quiet) as bar:
-        result = grade_run(args.video, args.log, args.robot, args.field, args.camera,
-                           settings=GradeSettings(clock_offset_s=args.clock_offset_s,
-                                                  tolerances=tol),
-                           track=args.track, progress=bar)
+    registrar = None
+    if args.track is None:
+        from ..profiles import load_camera, load_field
+
+        field = load_field(args.field)
+        camera = load_camera(args.camera) if args.camera else None
+        registrar = registration_options.registrar_from_args(args, field, camera)
+    try:
+        with progress_bar(desc="tracking", quiet=args.quiet) as bar:
+            result = grade_run(args.video, args.log, args.robot, args.field, args.camera,
+                               settings=GradeSettings(clock_offset_s=args.clock_offset_s,
+                                                      tolerances=tol),
+                               track=args.track, progress=bar, registrar=registrar)
+    except RegistrationRefused as exc:
+        registration_options.write_preview(exc, args.out / "preview.png")
+        raise
     write_outputs(result, args.out)
     if args.report:
         from ..report.build import write_report

@@ -10,11 +10,14 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from .. import grid, register
-from ..errors import InputError
+from ..errors import InputError, RegistrationRefused
 from ..lens import IMAGE_SUFFIXES, read_image
 from ..outputs import staged_dir
 from ..profiles import load_camera, load_field
+from ..registration import grid
+from ..registration.registrar import METHODS, FloorRegistrar, RegistrarSettings, summarise
+from ..registration.selfcheck import CheckLimits
+from . import registration_options
 
 NAME = "register"
 HELP = "check the floor registration of a video; write a grid preview and per-frame errors"
@@ -36,7 +39,7 @@ def add_arguments(parser):
     parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
     parser.add_argument("--camera", type=Path, default=None,
                         help="camera profile from 'vidodo lens' (default: estimate)")
-    parser.add_argument("--method", choices=register.METHODS, default="auto",
+    parser.add_argument("--method", choices=METHODS, default="auto",
                         help="reference registration: floor markers, points CSV or the "
                              "automatic tile grid (auto: markers if seen, else grid)")
     parser.add_argument("--points", type=Path, default=None,
@@ -44,6 +47,9 @@ def add_arguments(parser):
                              "points)")
     parser.add_argument("--max-frames", type=int, default=0,
                         help="register at most this many frames (0: all)")
+    parser.add_argument("--camera-height-m", type=float, metavar="M",
+                        help="the camera's approximate height above the floor [m]; a "
+                        "registration more than 25%% off is refused")
     parser.add_argument("--max-rms-px", type=float, default=3.0,
                         help="refuse a fit whose residual is above this [px]")
     parser.add_argument("-o", "--out", type=Path, default=None,
@@ -67,8 +73,12 @@ def run(args) -> int:
     field = load_field(args.field)
     camera = load_camera(args.camera) if args.camera else None
     method = "points" if args.points is not None else args.method
-    registrar = register.FloorRegistrar(field, camera, method=method,
-                                        points_csv=args.points, max_rms_px=args.max_rms_px)
+    if args.camera_height_m is not None and not args.camera_height_m > 0:
+        raise InputError("--camera-height-m must be positive")
+    limits = CheckLimits(camera_height_m=args.camera_height_m)
+    registrar = FloorRegistrar(field, camera, method=method, points_csv=args.points,
+                               settings=RegistrarSettings(max_rms_px=args.max_rms_px,
+                                                          limits=limits))
     out = args.out or args.video.with_name(args.video.stem + "-register")
     if not args.video.exists():
         raise InputError(f"{args.video}: not found; check the path")
@@ -81,8 +91,13 @@ def run(args) -> int:
     try:
         for t_s, frame in _frames(args.video, args.max_frames):
             if ref_frame is None:
-                # The reference: refuse clearly (CalibrationError, exit 3) if it fails.
-                reg = registrar.register_reference(frame, t_s)
+                # The reference: refuse clearly (CalibrationError, exit 3) if it fails,
+                # with only the preview written when its self-check fails.
+                try:
+                    reg = registrar.register_reference(frame, t_s)
+                except RegistrationRefused as exc:
+                    registration_options.write_preview(exc, out / "preview.png")
+                    raise
                 ref_frame = frame
             else:
                 reg = registrar.register(frame, t_s)
@@ -99,11 +114,11 @@ def run(args) -> int:
     try:
         seams = grid.seam_samples(cv2.cvtColor(ref_frame, cv2.COLOR_BGR2GRAY)
                                   if ref_frame.ndim == 3 else ref_frame, field, ref,
-                                  half_width_px=4.0)[0]
+                                  search=grid.SeamSearch(half_width_px=4.0))[0]
     except (ValueError, cv2.error):
         seams = None
     preview = grid.draw_registration(ref_frame, ref, field, seams=seams)
-    quality = register.summarise(regs)
+    quality = summarise(regs)
     with staged_dir(out) as stage:
         if not cv2.imwrite(str(stage / "preview.png"), preview):
             raise InputError(f"{out}: cannot write preview.png there")

@@ -8,9 +8,11 @@ from pathlib import Path
 
 import numpy as np
 
+from ..errors import RegistrationRefused
 from ..outputs import atomic_file
 from ..profiles import load_camera, load_field, load_robot
 from ..progress import Progress
+from . import registration_options
 from ._options import add_out
 
 NAME = "track"
@@ -44,8 +46,7 @@ def add_arguments(parser):
     parser.add_argument("--max-gap-s", type=float, default=0.25,
                         help="bridge gaps up to this long, leave longer ones empty "
                         "(default: %(default)s)")
-    parser.add_argument("--points", type=Path,
-                        help="CSV of u_px, v_px, x_m, y_m floor points for registration")
+    registration_options.add_arguments(parser)
 
 
 def _quality_json(result) -> str:
@@ -75,20 +76,22 @@ def _write(result, out: Path):
 
 def run(args) -> int:
     """Track, write the CSV (also the part before a truncation), report."""
-    from ..register import FloorRegistrar
     from ..track import track_video
     from ..video import VideoTruncatedError
 
     robot = load_robot(args.robot)
     field = load_field(args.field)
     camera = load_camera(args.camera) if args.camera else None
-    registrar = FloorRegistrar(field, camera, points_csv=args.points)
+    registrar = registration_options.registrar_from_args(args, field, camera)
     readout = None if args.readout_ms is None else args.readout_ms / 1000.0
     try:
         with Progress(desc="tracking", quiet=args.quiet) as bar:
             result = track_video(args.video, robot, field, camera, registrar=registrar,
                                  progress=bar, refine=args.refine, readout_s=readout,
                                  max_gap_s=args.max_gap_s, detector=args.detector)
+    except RegistrationRefused as exc:
+        registration_options.write_preview(exc, args.out.with_suffix(".preview.png"))
+        raise
     except VideoTruncatedError as exc:
         if exc.partial is None:
             raise

@@ -4,7 +4,7 @@ For each frame, the drift table row at that frame's time gives the truth pose an
 odometry source's believed pose (floor frame, metres). Each pose is turned into the
 floor position of the robot's marker (the pose composed with the marker's body-frame
 offset, at the marker's height above the floor) and projected into the frame with that
-frame's floor registration (:meth:`vidodo.register.FrameRegistration.floor_to_image`,
+frame's floor registration (:meth:`vidodo.registration.registrar.FrameRegistration.floor_to_image`,
 the inverse of the mapping the tracker used). So the truth ring sits on the marker in
 the image when tracking and registration are right, and each source's ring sits where
 that source believed the marker was.
@@ -398,7 +398,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
         Source display name -> drift column prefix.
     registration : FrameRegistration or callable, optional
         One registration for every frame (fixed camera), or ``f(frame_bgr, t_s, mask)
-        -> FrameRegistration``; default: a :class:`vidodo.register.FloorRegistrar`
+        -> FrameRegistration``; default: a :class:`vidodo.registration.registrar.FloorRegistrar`
         for ``field`` and ``camera`` run on every frame.
     marker : Marker, optional
         The marker whose position is drawn (default: the robot's first marker; without
@@ -430,7 +430,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
         if field is None:
             raise InputError("replay: needs the field profile (or a registration) to map "
                              "floor positions into the frames")
-        from ..register import FloorRegistrar
+        from ..registration.registrar import FloorRegistrar
 
         registrar = FloorRegistrar(field, camera)
         register = registrar.register

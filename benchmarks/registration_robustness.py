@@ -1,0 +1,274 @@
+"""Floor registration on randomised floors and camera placements: correct, refused or wrong.
+
+Every scene of a fixed seed list (``vidodo.synth.scenes.BENCHMARK_SEEDS``, 240 seeds)
+is rendered as one still picture (PNG, JPEG or a one-frame H.264 clip) with its
+``field.toml`` (the tile grid and the origin corner a user would name) and, for scenes
+whose user has one, the true lens as ``camera.toml``. The floor is then registered as a
+user would: ``vidodo register PICTURE --field field.toml [--camera camera.toml]``, run
+in-process through ``vidodo.cli_main.main``; the reference registration it makes is
+recorded on the side (a wrapper around ``FloorRegistrar.register_reference``) to score it.
+
+Classes:
+
+* *correct*: exit 0 and at most 5 mm RMS over the field corners in view, each corner's
+  true pixel mapped to the floor with the registration's ``image_to_floor`` and compared
+  with its true floor position (fewer than 4 corners in view: floor points seen on a
+  32-pixel grid inside the field instead);
+* *refused*: exit 3 (the message is kept in the CSV);
+* *wrong*: anything else (exit 0 with a larger error, exit 1, 2 or 4, no registration).
+
+For wrong scenes ``lattice_rms_mm`` is the error left after the best whole-tile shift and
+square symmetry of the floor frame: small values mean the lattice was right but the
+origin or axes were not.
+
+Printed: a table by category (every scene counts in each of its categories), the
+wrong count over all scenes and the correct share among the scenes with at least 12
+field corners in view and seams visible to the eye (criterion:
+``vidodo.synth.scenes.SEAM_VISIBLE_CONTRAST``). Per-scene results go to a CSV.
+
+Run: ``.venv/bin/python benchmarks/registration_robustness.py [--seeds 0-239|1,2,5]
+[--limit N] [--jobs 1] [--lens scene|always|never] [--csv /tmp/robustness.csv]
+[--truth-points]``; ``--truth-points`` registers from the true pixels of the corners in
+view instead (a check of the scoring itself).
+
+Baseline (registration of 2026-12-03, before issue 12's rework): see the report of the
+branch ``scenes``; figures are filled in below when measured.
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import csv
+import io
+import sys
+import tempfile
+import time
+from collections import Counter, defaultdict
+from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from vidodo.synth import scenes  # noqa: E402
+from vidodo.synth.scene_spec import SPEC_CATEGORIES  # noqa: E402
+
+CORRECT_MM = 5.0
+COLUMNS = ("seed", "class", "exit_code", "rms_mm", "lattice_rms_mm", "n_corners",
+           "seams_visible", "seam_contrast", "lens_profile", "method", "seconds_render",
+           "seconds_register", "picture", "origin_hint_margin_px", "categories", "message")
+_CAPTURED: list = []
+
+
+def _install_spy():
+    """Record every reference registration ``vidodo register`` makes (scoring only)."""
+    from vidodo import register
+
+    cls = register.FloorRegistrar
+    if getattr(cls.register_reference, "_robustness_spy", False):
+        return
+    original = cls.register_reference
+
+    def spy(self, *args, **kwargs):
+        reg = original(self, *args, **kwargs)
+        _CAPTURED.append(reg)
+        return reg
+
+    spy._robustness_spy = True
+    cls.register_reference = spy
+
+
+def _truth_points(scene):
+    """Pixels and true floor points to score on: field corners in view, else a grid."""
+    if len(scene.corners) >= 4:
+        return scene.corners[:, 2:], scene.corners[:, :2] * scene.spec.field.tile_size_m
+    cam = scene.spec.setup.camera
+    u, v = np.meshgrid(np.arange(16, cam.width_px - 16, 32), np.arange(16, cam.height_px - 16,
+                                                                        32))
+    px = np.column_stack([u.ravel(), v.ravel()]).astype(float)
+    px = px[scene.floor_seen[px[:, 1].astype(int), px[:, 0].astype(int)] > 0.999]
+    fl = scenes.floor_at_pixels(scene.spec, px)
+    sx, sy = scene.spec.field.size_m
+    keep = np.isfinite(fl).all(axis=1) & (fl[:, 0] >= 0) & (fl[:, 0] <= sx) & (fl[:, 1] >= 0) \
+        & (fl[:, 1] <= sy)
+    return px[keep], fl[keep]
+
+
+def _lattice_rms_mm(est_m, true_m, tile_m):
+    """Error left after the best square symmetry and whole-tile shift of the floor frame."""
+    best = np.inf
+    for swap in (False, True):
+        for sx in (1, -1):
+            for sy in (1, -1):
+                a = np.array([[0, 1], [1, 0]] if swap else [[1, 0], [0, 1]]) * [[sx], [sy]]
+                moved = true_m @ a.T
+                shift = np.round(np.median(est_m - moved, axis=0) / tile_m) * tile_m
+                err = est_m - moved - shift
+                best = min(best, float(np.sqrt(np.mean(np.sum(err**2, axis=1)))) * 1e3)
+    return best
+
+
+def _register(picture: Path, folder: Path, with_lens: bool, points=None):
+    """``vidodo register`` as a user runs it; returns exit code, message, registration.
+
+    ``points``: (pixels, floor points) given as ``--points`` (the benchmark's own check).
+    """
+    from vidodo import cli_main
+
+    argv = ["register", str(picture), "--field", str(folder / "field.toml"), "--quiet",
+            "--out", str(folder / "register-out")]
+    if with_lens:
+        argv += ["--camera", str(folder / "camera.toml")]
+    if points is not None:
+        rows = ["u_px,v_px,x_m,y_m"] + [",".join(f"{v:.6f}" for v in (*p, *f))
+                                        for p, f in zip(*points, strict=True)]
+        (folder / "points.csv").write_text("\n".join(rows) + "\n")
+        argv += ["--points", str(folder / "points.csv")]
+    _CAPTURED.clear()
+    err, out = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out):
+        code = cli_main.main(argv)
+    lines = [ln for ln in err.getvalue().splitlines() if ln.strip()]
+    return code, (lines[-1] if lines else ""), (_CAPTURED[0] if _CAPTURED else None)
+
+
+def score_scene(seed: int, lens: str = "scene", truth_points: bool = False) -> dict:
+    """Render, register and class one scene.
+
+    ``truth_points``: register from the true pixels of the corners in view (``--points``)
+    instead of the automatic grid: a check of the benchmark's scoring, which must class
+    nearly every scene with enough corners correct.
+    """
+    _install_spy()
+    t0 = time.perf_counter()
+    scene = scenes.render_scene(seed)
+    t1 = time.perf_counter()
+    with_lens = lens == "always" or (lens == "scene" and scene.spec.lens_profile)
+    with tempfile.TemporaryDirectory(prefix=f"scene{seed}-") as tmp:
+        folder = Path(tmp)
+        picture = scenes.save_scene(scene, folder)
+        pts = None
+        if truth_points:
+            pts = (scene.corners[:, 2:], scene.corners[:, :2] * scene.spec.field.tile_size_m)
+        code, message, reg = _register(picture, folder, with_lens, pts)
+    t2 = time.perf_counter()
+    rms = lattice = np.nan
+    px, true_m = _truth_points(scene)
+    if code == 0 and reg is not None and len(px):
+        est = np.asarray(reg.image_to_floor(px), float)
+        err = est - true_m
+        rms = float(np.sqrt(np.nanmean(np.sum(err**2, axis=1)))) * 1e3
+        if not np.all(np.isfinite(est)):
+            rms = np.inf
+        lattice = _lattice_rms_mm(est, true_m, scene.spec.field.tile_size_m)
+    if code == 3:
+        kind = "refused"
+    elif code == 0 and rms <= CORRECT_MM:
+        kind = "correct"
+    else:
+        kind = "wrong"
+    return {"seed": seed, "class": kind, "exit_code": code, "rms_mm": rms,
+            "lattice_rms_mm": lattice, "n_corners": len(scene.corners),
+            "seams_visible": scene.seams_visible, "seam_contrast": scene.seam_contrast,
+            "lens_profile": with_lens, "method": getattr(reg, "method", ""),
+            "seconds_render": t1 - t0, "seconds_register": t2 - t1,
+            "picture": scene.file_name, "categories": ";".join(scene.categories),
+            "origin_hint_margin_px": scene.spec.origin_hint_margin_px,
+            "message": message if code != 0 else ""}
+
+
+def _parse_seeds(text):
+    seeds = []
+    for part in text.split(","):
+        if "-" in part:
+            a, b = part.split("-")
+            seeds += list(range(int(a), int(b) + 1))
+        elif part.strip():
+            seeds.append(int(part))
+    return seeds
+
+
+def in_subset(row) -> bool:
+    """The acceptance subset: at least 12 field corners in view and seams visible."""
+    return row["n_corners"] >= 12 and bool(row["seams_visible"])
+
+
+def table(rows) -> list[str]:
+    """The table by category, then all scenes and the acceptance subset."""
+    groups = defaultdict(list)
+    for r in rows:
+        for c in r["categories"].split(";"):
+            groups[c].append(r)
+        if r["lens_profile"]:
+            groups["with lens profile (given)"].append(r)
+    order = [c for c in SPEC_CATEGORIES + scenes.VIEW_CATEGORIES if c in groups]
+    order += [c for c in groups if c not in order]
+    lines = [f"{'category':<28}{'n':>5}{'correct':>9}{'refused':>9}{'wrong':>7}{'correct %':>11}"]
+
+    def line(name, rs):
+        n = Counter(r["class"] for r in rs)
+        share = 100.0 * n["correct"] / len(rs) if rs else float("nan")
+        return (f"{name:<28}{len(rs):>5}{n['correct']:>9}{n['refused']:>9}{n['wrong']:>7}"
+                f"{share:>10.1f}%")
+
+    lines += [line(c, groups[c]) for c in order]
+    lines.append(line("ALL", rows))
+    lines.append(line(">=12 corners, seams seen", [r for r in rows if in_subset(r)]))
+    return lines
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--seeds", default=None, help="e.g. 0-239 or 3,5,8 (default: the list)")
+    ap.add_argument("--limit", type=int, default=0, help="only the first N seeds")
+    ap.add_argument("--jobs", type=int, default=1, help="worker processes")
+    ap.add_argument("--lens", choices=("scene", "always", "never"), default="scene",
+                    help="pass the true lens profile: as the scene says, always or never")
+    ap.add_argument("--csv", type=Path, default=Path(tempfile.gettempdir()) /
+                    "registration_robustness.csv", help="per-scene results")
+    ap.add_argument("--truth-points", action="store_true",
+                    help="check of the scoring: register from the true corner pixels")
+    args = ap.parse_args(argv)
+    seeds = _parse_seeds(args.seeds) if args.seeds else list(scenes.BENCHMARK_SEEDS)
+    if args.limit:
+        seeds = seeds[: args.limit]
+    rows = []
+    args.csv.parent.mkdir(parents=True, exist_ok=True)
+    with open(args.csv, "w", newline="") as fh:
+        w = csv.DictWriter(fh, fieldnames=COLUMNS)
+        w.writeheader()
+        if args.jobs > 1:
+            with ProcessPoolExecutor(args.jobs) as pool:
+                results = pool.map(score_scene, seeds, [args.lens] * len(seeds),
+                                   [args.truth_points] * len(seeds))
+                for r in results:
+                    rows.append(_log(w, fh, r))
+        else:
+            for s in seeds:
+                rows.append(_log(w, fh, score_scene(s, args.lens, args.truth_points)))
+    for ln in table(rows):
+        print(ln)
+    sub = [r for r in rows if in_subset(r)]
+    n_wrong = sum(r["class"] == "wrong" for r in rows)
+    share = 100.0 * sum(r["class"] == "correct" for r in sub) / len(sub) if sub else float("nan")
+    print(f"\nwrong: {n_wrong} of {len(rows)} scenes (target 0)")
+    print(f"correct among scenes with >= 12 field corners in view and seams visible: "
+          f"{share:.1f} % of {len(sub)} (target >= 90 %)")
+    print(f"per-scene results: {args.csv}")
+    return 0
+
+
+def _log(writer, fh, row):
+    writer.writerow({k: (f"{v:.4g}" if isinstance(v, float) else v) for k, v in row.items()})
+    fh.flush()
+    print(f"seed {row['seed']:4d}: {row['class']:<8} exit {row['exit_code']} "
+          f"rms {row['rms_mm']:.1f} mm, {row['n_corners']} corners, "
+          f"{row['seconds_render']:.1f} + {row['seconds_register']:.1f} s "
+          f"{row['message'][:80]}", file=sys.stderr, flush=True)
+    return row
+
+
+if __name__ == "__main__":
+    sys.exit(main())

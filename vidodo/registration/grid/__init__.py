@@ -1,0 +1,30 @@
+"""The automatic tile grid: find the floor's tile seams and fit the field's N x M grid.
+
+Steps (no markers, no clicks):
+
+1. Line segments (LSD, von Gioi et al., IEEE PAMI 32(4), 2010) are grouped by the two
+   vanishing points of the seam families, each found by RANSAC over segment pairs and
+   refined by least squares.
+2. The line through both vanishing points (the floor's horizon) is sent to infinity;
+   in that affinely rectified frame each family is a set of parallel, equally spaced
+   lines (an affine map keeps ratios along parallel lines; Hartley & Zisserman,
+   *Multiple View Geometry*, 2nd ed., section 2.7). The spacing and phase of each
+   family come from the strongest periodic component of the segment positions.
+3. The field is the window of ``tiles_x + 1`` by ``tiles_y + 1`` lattice lines with the
+   most seam evidence; its corner named by ``origin_hint`` (as seen from the camera) or
+   the one that puts a visible floor fiducial where the profile says becomes the
+   origin, with x and y right-handed (z up).
+4. The lattice corners give a first camera fit; :func:`refine_fit` then samples the
+   image across every seam, locates the seam to a fraction of a pixel, and fits pose,
+   focal length and radial distortion to all seam samples (a seam must be straight on
+   the floor, so its bending in the image measures the lens distortion).
+"""
+
+from .draw import draw_registration
+from .lattice import CORNER_NAMES
+from .seams import MAX_MM_PER_PX, SeamSearch, locate_seams, refine_fit, seam_samples
+from .search import LATTICE_DIAG_PX, GridResult, find_grid
+
+__all__ = ["GridResult", "find_grid", "refine_fit", "seam_samples", "draw_registration",
+           "SeamSearch", "locate_seams",
+           "CORNER_NAMES", "LATTICE_DIAG_PX", "MAX_MM_PER_PX"]

@@ -1,0 +1,401 @@
+"""Tile lattice in the affinely rectified floor: combs of equally spaced seam lines,
+the field window with the most seam evidence, its corners and their floor positions."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+from ...errors import CalibrationError
+from ...profiles import FieldProfile
+from .segments import find_segments, find_vp
+
+__all__ = ["CORNER_NAMES", "initial_lattice", "orient", "homography_from_lattice", "distort"]
+
+
+CORNER_NAMES = ("near-left", "near-right", "far-right", "far-left")
+
+
+def _best_combs(rhos, cover, speed, n_teeth, p_min, p_max, min_gap_px=8.0, keep=6):
+    """Combs of ``n_teeth`` equally spaced lines with the most evidence under their teeth.
+
+    A tooth counts only where neighbouring teeth are at least ``min_gap_px`` apart in
+    the image (``speed``: image pixels per unit of rho), so that a comb cannot crowd
+    its teeth onto one strong line near the horizon.
+
+    Returns
+    -------
+    list of (period, start, mean evidence under the teeth)
+        The ``keep`` best distinct combs, best first.
+    """
+    step = rhos[1] - rhos[0]
+    # Tolerate a tooth landing a bin or two off a line (curvature, rounding).
+    c = cv2.dilate(cover.astype(np.float32).reshape(1, -1), np.ones((1, 5), np.uint8)).ravel()
+    periods = np.arange(p_min, p_max, step / 2)
+    cands = []
+    for period in periods:
+        span = period * (n_teeth - 1)
+        starts = rhos[rhos + span <= rhos[-1]]
+        if len(starts) == 0:
+            continue
+        teeth = starts[:, None] + period * np.arange(n_teeth)[None, :]
+        gap_ok = np.interp(teeth, rhos, speed) * period >= min_gap_px
+        score = (np.interp(teeth, rhos, c) * gap_ok).mean(axis=1)
+        # Local maxima over the start position only.
+        top = np.argsort(score)[-3:]
+        cands += [(float(period), float(starts[k]), float(score[k])) for k in top]
+    cands.sort(key=lambda x: -x[2])
+    out = []
+    for period, start, sc in cands:
+        # Distinct: the teeth differ somewhere by more than a fifth of a period.
+        t_new = start + period * np.arange(n_teeth)
+        if any(np.max(np.abs(t_new - (s0 + p0 * np.arange(n_teeth)))) < 0.2 * period
+               for p0, s0, _ in out):
+            continue
+        out.append((period, start, sc))
+        if len(out) >= keep:
+            break
+    return out
+
+
+def _refine_teeth(rhos, cover, teeth, period):
+    """Move each tooth to the evidence centroid near it, then fit equal spacing."""
+    found = []
+    for r in teeth:
+        near = np.abs(rhos - r) < 0.15 * period
+        wgt = cover[near]
+        found.append(float(np.average(rhos[near], weights=wgt)) if wgt.sum() > 0 else np.nan)
+    found = np.array(found)
+    good = np.isfinite(found)
+    k = np.arange(len(teeth))
+    if good.sum() >= 3:
+        a = np.column_stack([np.ones(good.sum()), k[good]])
+        phase, per = np.linalg.lstsq(a, found[good], rcond=None)[0]
+        return phase + per * k
+    return np.asarray(teeth, float)
+
+
+def _rectifier(vp1, vp2):
+    """A homography sending the line through both vanishing points to infinity."""
+    horizon = np.cross(vp1, vp2)
+    horizon = horizon / np.linalg.norm(horizon)
+    u, _s, _vt = np.linalg.svd(np.eye(3) - np.outer(horizon, horizon))
+    basis = u[:, :2]
+    return np.vstack([basis.T, horizon])
+
+
+def _apply(hm, pts):
+    pts = np.asarray(pts, float)
+    p = pts @ hm[:, :2].T + hm[:, 2]
+    return p[:, :2] / p[:, 2:3]
+
+
+def distort(norm, k, dist):
+    """Normalised image coordinates to distorted pixels (OpenCV's lens model: radial
+    k1..k6 and tangential p1, p2; OpenCV documentation, calib3d "Camera Calibration and
+    3D Reconstruction"); ``cv2.projectPoints`` for models with more terms."""
+    d = np.zeros(8)
+    dist = np.asarray(dist, float).ravel()
+    if len(dist) > 8:
+        obj = np.column_stack([norm, np.ones(len(norm))])
+        return cv2.projectPoints(obj, np.zeros(3), np.zeros(3), k, dist)[0].reshape(-1, 2)
+    d[:len(dist)] = dist
+    k1, k2, p1, p2, k3, k4, k5, k6 = d
+    x, y = norm[:, 0], norm[:, 1]
+    r2 = x * x + y * y
+    radial = (1 + r2 * (k1 + r2 * (k2 + r2 * k3))) / (1 + r2 * (k4 + r2 * (k5 + r2 * k6)))
+    xd = x * radial + 2 * p1 * x * y + p2 * (r2 + 2 * x * x)
+    yd = y * radial + p1 * (r2 + 2 * y * y) + 2 * p2 * x * y
+    return np.column_stack([k[0, 0] * xd + k[0, 1] * yd + k[0, 2], k[1, 1] * yd + k[1, 2]])
+
+
+@dataclass
+class _Families:
+    """The two seam families of a frame in the affinely rectified floor."""
+
+    fam: list
+    """Per family: line positions, normal, direction, reference point; later the dense
+    seam evidence across it (``rhos``, ``cover``, ``speed``, ``extent``)."""
+    to_image: object
+    """Rectified points (N, 2) -> distorted image pixels (N, 2)."""
+    evidence: np.ndarray
+    """Pixels on a thin line or a strong edge, bool (H, W)."""
+    line_angle: np.ndarray
+    """Local line direction [rad], (H, W)."""
+    n_segments: int
+
+
+def _families(grey, camera, ignore, rng) -> _Families:
+    """Segments, the two vanishing points, each family's lines after rectification, and
+    the dense seam evidence across each family."""
+    h, w = grey.shape
+    seg, (evidence, line_angle) = find_segments(grey, ignore)
+    if camera is not None and len(seg):
+        k, d = camera.matrix, camera.dist_coeffs
+        seg = cv2.undistortPoints(seg.reshape(-1, 1, 2), k, d, P=k).reshape(-1, 4)
+    if len(seg) < 8:
+        raise CalibrationError(f"grid: only {len(seg)} straight edges in the frame; tile "
+                               "seams not visible - use floor markers or a points file")
+    # Condition: centre and scale so that homogeneous maths is well behaved.
+    scale = 2.0 / math.hypot(w, h)
+    centre = np.array([w / 2.0, h / 2.0])
+    cseg = np.column_stack([(seg[:, :2] - centre) * scale, (seg[:, 2:] - centre) * scale])
+    tol = math.radians(1.5)
+    vp1, in1 = find_vp(cseg, np.zeros(2), rng, tol)
+    if vp1 is None or in1.sum() < 3:
+        raise CalibrationError("grid: no family of parallel tile seams found")
+    rest = ~in1
+    vp2, in2r = find_vp(cseg[rest], np.zeros(2), rng, tol, exclude=vp1)
+    if vp2 is None or in2r.sum() < 3:
+        raise CalibrationError("grid: only one direction of tile seams found; film the "
+                               "floor at an angle that shows both")
+    in2 = np.zeros(len(cseg), bool)
+    in2[np.nonzero(rest)[0][in2r]] = True
+    rect = _rectifier(vp1, vp2)
+    fam = []
+    for inl in (in1, in2):
+        s = cseg[inl]
+        a = _apply(rect, s[:, :2])
+        b = _apply(rect, s[:, 2:])
+        d = _apply(rect, np.array([[0.0, 0.0]]))  # reference point only
+        direc = b - a
+        ang = np.arctan2(direc[:, 1], direc[:, 0])
+        mean_dir = np.angle(np.sum(np.hypot(*direc.T) * np.exp(2j * ang))) / 2
+        nrm = np.array([-math.sin(mean_dir), math.cos(mean_dir)])
+        pos = ((a + b) / 2 - d) @ nrm
+        fam.append(dict(pos=pos, weight=np.hypot(*direc.T), normal=nrm, ref=d[0],
+                        dir=np.array([math.cos(mean_dir), math.sin(mean_dir)])))
+    rect_inv = np.linalg.inv(rect)
+    # Rectified frame -> (undistorted) image pixels in one homography.
+    to_pix = np.array([[1 / scale, 0.0, centre[0]], [0.0, 1 / scale, centre[1]],
+                       [0.0, 0.0, 1.0]]) @ rect_inv
+    if camera is not None:
+        to_pix = np.linalg.inv(camera.matrix) @ to_pix  # to normalised coordinates
+
+    def to_image(pts_rect):
+        img = _apply(to_pix, pts_rect)
+        if camera is not None:  # back to distorted pixels
+            img = distort(img, camera.matrix, camera.dist_coeffs)
+        return img
+
+    fams = _Families(fam, to_image, evidence, line_angle, int(in1.sum() + in2.sum()))
+    mids = _apply(rect, (cseg[:, :2] + cseg[:, 2:]) / 2)
+    for f in fam:
+        _family_cover(fams, f, mids, (h, w))
+    return fams
+
+
+def _family_cover(fams: _Families, f, mids, shape):
+    """Dense seam evidence across one family (into ``f``): for every line position rho
+    (in the rectified frame) the fraction of its visible length lying on a thin line or
+    a strong edge in the image, and image pixels per unit of rho."""
+    to_image = fams.to_image
+    t = (mids - f["ref"]) @ f["dir"]
+    ts = np.linspace(np.percentile(t, 1), np.percentile(t, 99), 200)
+    lo, hi = np.percentile(f["pos"], [0.5, 99.5])
+    pad = 0.15 * (hi - lo)
+    rhos = np.linspace(lo - pad, hi + pad, 900)
+    pts = (f["ref"][None, None, :] + rhos[:, None, None] * f["normal"][None, None, :]
+           + ts[None, :, None] * f["dir"][None, None, :])
+    img = to_image(pts.reshape(-1, 2)).reshape(len(rhos), len(ts), 2)
+    inside, hit = _hits(fams, img, shape)
+    n_in = inside.sum(axis=1)
+    cover = np.where(n_in >= 0.2 * len(ts), hit.sum(axis=1) / np.maximum(n_in, 1), 0.0)
+    # Image pixels per unit of rho (near the horizon many rho map to one image line).
+    across = np.linalg.norm(np.gradient(img, rhos, axis=0), axis=-1)
+    across = np.where(inside, across, np.nan)
+    across = np.where(np.isfinite(across), across, np.inf)
+    speed = np.where(inside.any(axis=1), np.sort(across, axis=1)[
+        np.arange(len(rhos)), np.maximum(inside.sum(axis=1) // 2, 0)], 0.0)
+    f["rhos"], f["cover"], f["speed"] = rhos, cover, np.nan_to_num(speed, posinf=0.0)
+    f["extent"] = hi - lo
+
+
+def _hits(fams: _Families, img, shape):
+    """Which image points (..., 2) along lines (last axis but one runs along each line)
+    are in the frame, and which of those lie on seam evidence running the same way."""
+    h, w = shape
+    inside = ((img[..., 0] >= 0) & (img[..., 0] <= w - 1) & (img[..., 1] >= 0)
+              & (img[..., 1] <= h - 1) & np.all(np.isfinite(img), axis=-1))
+    ui = np.clip(np.nan_to_num(img[..., 0]).round().astype(int), 0, w - 1)
+    vi = np.clip(np.nan_to_num(img[..., 1]).round().astype(int), 0, h - 1)
+    along = np.gradient(img, axis=-2)
+    expected = np.arctan2(along[..., 1], along[..., 0])
+    diff = np.abs(np.angle(np.exp(2j * (fams.line_angle[vi, ui] - expected)))) / 2
+    return inside, fams.evidence[vi, ui] & inside & (diff < math.radians(12))
+
+
+def _span_cover(fams: _Families, shape, f_a, teeth_a, f_b, teeth_b):
+    """Evidence along the teeth of A, only between the first and last tooth of B."""
+    to_image = fams.to_image
+    nb_na = f_b["normal"] @ f_a["normal"]
+    nb_da = f_b["normal"] @ f_a["dir"]
+    if abs(nb_da) < 1e-9:
+        return 0.0
+    frac = np.linspace(0.02, 0.98, 80)
+    ra = np.asarray(teeth_a, float)[:, None, None]
+    t0 = (teeth_b[0] - ra * nb_na) / nb_da
+    t1 = (teeth_b[-1] - ra * nb_na) / nb_da
+    tt = t0 + (t1 - t0) * frac[None, :, None]
+    pts = f_a["ref"] + ra * f_a["normal"] + tt * f_a["dir"]
+    im = to_image(pts.reshape(-1, 2)).reshape(len(teeth_a), len(frac), 2)
+    ok_, hit = _hits(fams, im, shape)
+    n_ok = ok_.sum(axis=1)
+    vals = np.where(n_ok >= 10, hit.sum(axis=1) / np.maximum(n_ok, 1), 0.0)
+    return float(np.mean(vals))
+
+
+def initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidates=3):
+    """Candidate field windows: image positions of every lattice corner (first guesses).
+
+    Returns
+    -------
+    (list of (ndarray (tiles_x+1, tiles_y+1, 2), list of str), int)
+        Candidates best first with their warnings, and the number of seam segments.
+    """
+    fams = _families(grey, camera, ignore, rng)
+    fam, shape = fams.fam, grey.shape
+    n_max = max(field.tiles_x, field.tiles_y)
+    n_min = min(field.tiles_x, field.tiles_y)
+    # The field in each family: a comb of n+1 equally spaced lines (spacing and start
+    # free) with evidence under every tooth. Fewer or more teeth than the field has lines
+    # cannot match it everywhere, so sub-multiples and multiples of the spacing lose.
+    combs = {}
+    for fi, f in enumerate(fam):
+        for n in {field.tiles_x, field.tiles_y}:
+            combs[fi, n] = _best_combs(f["rhos"], f["cover"], f["speed"], n + 1,
+                                       f["extent"] / (2.5 * n_max + 2),
+                                       f["extent"] / max(n_min - 1, 1) * 1.3)
+
+    # Joint choice: the teeth of each family must carry evidence across the span of the
+    # other family's field window (the seams run from one field edge to the other).
+    scored = []
+    for assign in ((0, 1), (1, 0)):
+        fa, fb = fam[assign[0]], fam[assign[1]]
+        for ca in combs[assign[0], field.tiles_x][:4]:
+            ta = ca[1] + ca[0] * np.arange(field.tiles_x + 1)
+            for cb in combs[assign[1], field.tiles_y][:4]:
+                tb = cb[1] + cb[0] * np.arange(field.tiles_y + 1)
+                score = (_span_cover(fams, shape, fa, ta, fb, tb)
+                         + _span_cover(fams, shape, fb, tb, fa, ta))
+                scored.append((score, assign, ca, cb))
+    if not scored:
+        raise CalibrationError(
+            f"grid: no window of {field.tiles_x} x {field.tiles_y} tiles found in the seams; "
+            "show the whole field or check tiles_x/tiles_y")
+    scored.sort(key=lambda x: -x[0])
+    # Close runners-up are kept: the seam fit decides between them (find_grid).
+    keep = [c for c in scored if c[0] >= 0.85 * scored[0][0]][:n_candidates]
+    lattices, errors = [], []
+    for _score, assign, comb_x, comb_y in keep:
+        try:
+            lat = _lattice_corners(fam, assign, comb_x, comb_y, field, fams.to_image)
+        except CalibrationError as exc:
+            errors.append(exc)
+            continue
+        if not any(_same_lattice(lat[0], other[0]) for other in lattices):
+            lattices.append(lat)
+    if not lattices:
+        raise errors[0]
+    return lattices, fams.n_segments
+
+
+
+
+def _same_lattice(a, b, tol_px=3.0):
+    """True when two lattices put the same corners in the same places (either family
+    order: a square field's two assignments give transposed arrays)."""
+    d = [np.nanmedian(np.abs(a - b))] if a.shape == b.shape else []
+    if a.shape == b.transpose(1, 0, 2).shape:
+        d.append(np.nanmedian(np.abs(a - b.transpose(1, 0, 2))))
+    return bool(d) and min(d) < tol_px
+
+
+def _lattice_corners(fam, assign, comb_x, comb_y, field, to_image):
+    """Image positions of the lattice corners of one field window, and warnings."""
+    warnings = []
+    out = []
+    for f_i, (period, start, sc), n in ((assign[0], comb_x, field.tiles_x),
+                                        (assign[1], comb_y, field.tiles_y)):
+        f = fam[f_i]
+        if sc < 0.25:
+            raise CalibrationError(
+                f"grid: the field's {n + 1} seam lines in one direction are not visible "
+                f"(best match {sc:.0%}); show the whole field or check tiles_x/tiles_y")
+        rho = _refine_teeth(f["rhos"], f["cover"], start + period * np.arange(n + 1),
+                            period)
+        # Evidence just outside the field on the same spacing: the tiling continues?
+        beyond = [float(np.interp(r, f["rhos"], f["cover"], left=0, right=0))
+                  for r in (rho[0] - period, rho[-1] + period)]
+        inside_cov = [float(np.interp(r, f["rhos"], f["cover"])) for r in rho]
+        if max(beyond) > 0.7 * float(np.median(inside_cov)):
+            warnings.append("seam lines continue beyond the field's "
+                            f"{n} tiles in one direction; the field's position in the "
+                            "tiling may be wrong - add a floor marker or a points file")
+        out.append(list(rho))
+    # Lattice corners in rectified coordinates: intersect line families.
+    fx, fy = fam[assign[0]], fam[assign[1]]
+    corners = np.empty((field.tiles_x + 1, field.tiles_y + 1, 2))
+    a_mat = np.vstack([fx["normal"], fy["normal"]])
+    for i, px_ in enumerate(out[0]):
+        for j, py_ in enumerate(out[1]):
+            corners[i, j] = np.linalg.solve(a_mat, [px_, py_]) + fx["ref"]
+    img = to_image(corners.reshape(-1, 2))
+    return img.reshape(field.tiles_x + 1, field.tiles_y + 1, 2), warnings
+
+
+def orient(lat_img, field: FieldProfile, origin: str):
+    """Floor coordinates of the lattice corners for a given origin corner.
+
+    ``lat_img[i, j]`` is the image position of the corner between x-family line i and
+    y-family line j of the window. The corner named ``origin`` (as seen from the
+    camera: the near edge is the lowest in the image) becomes (0, 0); x and y follow
+    the field edges so that the frame is right-handed with z up.
+    """
+    nx, ny = field.tiles_x, field.tiles_y
+    idx = {(0, 0): lat_img[0, 0], (nx, 0): lat_img[nx, 0], (nx, ny): lat_img[nx, ny],
+           (0, ny): lat_img[0, ny]}
+    order = [(0, 0), (nx, 0), (nx, ny), (0, ny)]  # around the field
+    edges = [(order[k], order[(k + 1) % 4]) for k in range(4)]
+    near = max(edges, key=lambda e: idx[e[0]][1] + idx[e[1]][1])
+    a, b = near
+    nl, nr = (a, b) if idx[a][0] <= idx[b][0] else (b, a)
+    # far-left: the neighbour of near-left that is not near-right; far-right likewise.
+    def other_neighbour(c, not_this):
+        for e in edges:
+            if c in e:
+                o = e[1] if e[0] == c else e[0]
+                if o != not_this:
+                    return o
+        raise AssertionError
+    fl = other_neighbour(nl, nr)
+    fr = other_neighbour(nr, nl)
+    named = {"near-left": nl, "near-right": nr, "far-right": fr, "far-left": fl}
+    # Right-handed, z up: x runs from the origin towards the next corner clockwise
+    # *in the image* seen from above... spelled out per corner:
+    x_to = {"near-left": "near-right", "near-right": "far-right",
+            "far-right": "far-left", "far-left": "near-left"}
+    y_to = {"near-left": "far-left", "near-right": "near-left",
+            "far-right": "near-right", "far-left": "far-right"}
+    o = np.array(named[origin], float)
+    xv = np.array(named[x_to[origin]], float) - o
+    yv = np.array(named[y_to[origin]], float) - o
+    # xv, yv are lattice-index steps; x must span nx tiles and y ny tiles.
+    if abs(np.abs(xv).sum() - nx) > 0.5 or abs(np.abs(yv).sum() - ny) > 0.5:
+        raise CalibrationError(
+            f"grid: with origin_hint '{origin}' the x edge has {int(np.abs(xv).sum())} "
+            f"tiles but tiles_x = {nx}; swap tiles_x and tiles_y or change origin_hint")
+    ii, jj = np.meshgrid(np.arange(nx + 1), np.arange(ny + 1), indexing="ij")
+    rel = np.stack([ii - o[0], jj - o[1]], axis=-1).astype(float)
+    fx_ = (rel @ xv) / (xv @ xv) * nx
+    fy_ = (rel @ yv) / (yv @ yv) * ny
+    floor = np.stack([fx_, fy_], axis=-1) * field.tile_size_m
+    return floor
+
+
+def homography_from_lattice(lat_img, floor):
+    hmg, _ = cv2.findHomography(floor.reshape(-1, 2), lat_img.reshape(-1, 2), 0)
+    return hmg

@@ -1,0 +1,167 @@
+"""Straight segments of the frame and the vanishing points of the two seam families."""
+
+from __future__ import annotations
+
+import math
+
+import cv2
+import numpy as np
+
+__all__ = ["ridge_strength", "find_segments", "hom_lines", "find_vp", "same_direction"]
+
+
+def ridge_strength(grey, sigma_px=1.5):
+    """Thin-line strength: Hessian eigenvalue contrast at scale ``sigma_px``.
+
+    A line (dark or bright) curves the intensity strongly across and little along,
+    so ``|l_big| - 2 |l_small|`` is large on it and near zero on isotropic grain
+    (after the vesselness idea of Frangi et al., MICCAI 1998).
+    """
+    g = cv2.GaussianBlur(grey.astype(np.float32), (0, 0), sigma_px)
+    dxx = cv2.Sobel(g, cv2.CV_32F, 2, 0, ksize=3)
+    dyy = cv2.Sobel(g, cv2.CV_32F, 0, 2, ksize=3)
+    dxy = cv2.Sobel(g, cv2.CV_32F, 1, 1, ksize=3)
+    half_tr = (dxx + dyy) / 2
+    root = np.sqrt(((dxx - dyy) / 2) ** 2 + dxy ** 2)
+    l_big = np.abs(half_tr) + root
+    l_small = np.abs(np.abs(half_tr) - root)
+    return np.maximum(l_big - 2 * l_small, 0)
+
+
+def find_segments(grey, ignore=None, min_len_px=None):
+    """Straight segments: thin seams (Hough on ridge strength) and strong edges (LSD)."""
+    h, w = grey.shape
+    min_len = min_len_px or max(12.0, 0.012 * math.hypot(w, h))
+    ridge = ridge_strength(grey)
+    binary = (ridge > max(np.percentile(ridge, 96), 1e-3)).astype(np.uint8) * 255
+    if ignore is not None:
+        binary[np.asarray(ignore, bool)] = 0
+    g = cv2.GaussianBlur(grey, (0, 0), 1.0)
+    grad = cv2.magnitude(cv2.Sobel(g, cv2.CV_32F, 1, 0), cv2.Sobel(g, cv2.CV_32F, 0, 1))
+    evidence = (binary > 0) | (grad > np.percentile(grad, 96))
+    evidence = cv2.dilate(evidence.astype(np.uint8), np.ones((5, 5), np.uint8)) > 0
+    # Local line direction from the structure tensor (Bigun & Granlund, 1987): the
+    # dominant gradient direction is across a line or an edge; the line runs across it.
+    gx = cv2.Sobel(g, cv2.CV_32F, 1, 0)
+    gy = cv2.Sobel(g, cv2.CV_32F, 0, 1)
+    jxx = cv2.GaussianBlur(gx * gx, (0, 0), 2.5)
+    jyy = cv2.GaussianBlur(gy * gy, (0, 0), 2.5)
+    jxy = cv2.GaussianBlur(gx * gy, (0, 0), 2.5)
+    line_angle = 0.5 * np.arctan2(2 * jxy, jxx - jyy) + np.pi / 2
+    hp = cv2.HoughLinesP(binary, 1, np.pi / 360, 40, minLineLength=0.04 * max(h, w),
+                         maxLineGap=6)
+    parts = [np.zeros((0, 4))] if hp is None else [hp.reshape(-1, 4).astype(np.float64)]
+    lsd = cv2.createLineSegmentDetector(cv2.LSD_REFINE_STD)
+    lines = lsd.detect(grey)[0]
+    if lines is not None:
+        seg = lines.reshape(-1, 4).astype(np.float64)
+        length = np.hypot(seg[:, 2] - seg[:, 0], seg[:, 3] - seg[:, 1])
+        parts.append(seg[length >= 2 * min_len])
+    seg = np.vstack(parts)
+    if ignore is not None and len(seg):
+        mid = (seg[:, :2] + seg[:, 2:]) / 2
+        ui = np.clip(mid[:, 0].round().astype(int), 0, w - 1)
+        vi = np.clip(mid[:, 1].round().astype(int), 0, h - 1)
+        seg = seg[~np.asarray(ignore, bool)[vi, ui]]
+    return seg, (evidence, line_angle)
+
+
+def hom_lines(seg):
+    p = np.column_stack([seg[:, :2], np.ones(len(seg))])
+    q = np.column_stack([seg[:, 2:], np.ones(len(seg))])
+    ln = np.cross(p, q)
+    return ln / np.linalg.norm(ln[:, :2], axis=1, keepdims=True)
+
+
+def _vp_consistent(seg, vp, tol_rad):
+    """Angle between each segment and the direction from its midpoint to ``vp``."""
+    mid = (seg[:, :2] + seg[:, 2:]) / 2
+    d = seg[:, 2:] - seg[:, :2]
+    if abs(vp[2]) > 1e-12:
+        to = vp[:2] / vp[2] - mid
+    else:
+        to = np.broadcast_to(vp[:2], mid.shape)
+    cross = d[:, 0] * to[:, 1] - d[:, 1] * to[:, 0]
+    dot = d[:, 0] * to[:, 0] + d[:, 1] * to[:, 1]
+    ang = np.abs(np.arctan2(cross, dot))
+    ang = np.minimum(ang, math.pi - ang)
+    return ang < tol_rad
+
+
+def _fit_vp(lines, weights):
+    """Least-squares vanishing point of homogeneous lines (smallest eigenvector)."""
+    m = (lines * weights[:, None]).T @ lines
+    _w, v = np.linalg.eigh(m)
+    return v[:, 0]
+
+
+def _vp_consistent_many(seg, vps, tol_rad):
+    """:func:`_vp_consistent` for many vanishing points at once: (M, N) bool."""
+    mid = (seg[:, :2] + seg[:, 2:]) / 2
+    d = seg[:, 2:] - seg[:, :2]
+    finite = np.abs(vps[:, 2]) > 1e-12
+    with np.errstate(invalid="ignore", divide="ignore"):
+        pt = vps[:, :2] / np.where(finite, vps[:, 2], 1.0)[:, None]
+    to_x = np.where(finite[:, None], pt[:, 0:1] - mid[None, :, 0], vps[:, 0:1])
+    to_y = np.where(finite[:, None], pt[:, 1:2] - mid[None, :, 1], vps[:, 1:2])
+    cross = d[None, :, 0] * to_y - d[None, :, 1] * to_x
+    dot = d[None, :, 0] * to_x + d[None, :, 1] * to_y
+    ang = np.abs(np.arctan2(cross, dot))
+    ang = np.minimum(ang, math.pi - ang)
+    return ang < tol_rad
+
+
+def find_vp(seg, cond, rng, tol_rad, iters=600, exclude=None):
+    """RANSAC vanishing point over segments (conditioned coordinates).
+
+    All ``iters`` hypotheses (two length-weighted segments each) are drawn and scored at
+    once; the one whose consistent segments are longest in total wins.
+    """
+    n = len(seg)
+    if n < 4:
+        return None, np.zeros(n, bool)
+    length = np.hypot(seg[:, 2] - seg[:, 0], seg[:, 3] - seg[:, 1])
+    lines = hom_lines(seg)
+    prob = length / length.sum()
+    i = rng.choice(n, iters, p=prob)
+    j = rng.choice(n, iters, p=prob)
+    vps = np.cross(lines[i], lines[j])
+    good = (i != j) & np.all(np.isfinite(vps), axis=1) & (np.linalg.norm(vps, axis=1) > 0)
+    if exclude is not None:
+        b = _vp_dir(exclude, cond)
+        for k in np.nonzero(good)[0]:
+            a = _vp_dir(vps[k], cond)
+            if abs(a[0] * b[1] - a[1] * b[0]) < math.sin(math.radians(8)):
+                good[k] = False
+    vps = vps[good]
+    if len(vps) == 0:
+        return None, np.zeros(n, bool)
+    score = np.concatenate([_vp_consistent_many(seg, vps[c:c + 100], tol_rad) @ length
+                            for c in range(0, len(vps), 100)])
+    best = vps[int(np.argmax(score))]
+    inl = _vp_consistent(seg, best, tol_rad)
+    for _ in range(3):
+        if inl.sum() < 2:
+            break
+        vp = _fit_vp(lines[inl], length[inl])
+        new = _vp_consistent(seg, vp, tol_rad)
+        best, inl = vp, new
+    return best, inl
+
+
+def same_direction(vp, other, cond):
+    """True when two vanishing points are nearly the same (as seen from the image centre)."""
+    a = _vp_dir(vp, cond)
+    b = _vp_dir(other, cond)
+    return abs(a[0] * b[1] - a[1] * b[0]) < math.sin(math.radians(8))
+
+
+def _vp_dir(vp, cond):
+    c = cond
+    if abs(vp[2]) > 1e-12:
+        d = vp[:2] / vp[2] - c
+    else:
+        d = vp[:2].copy()
+    n = np.linalg.norm(d)
+    return d / n if n > 0 else d
+
