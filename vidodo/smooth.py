@@ -10,6 +10,17 @@ value, rate and acceleration with their variances at every output time.
 The jerk density and a factor on the measurement variances are chosen per signal by
 maximum likelihood of the filter's innovations over a grid, so nothing is tuned to one
 robot or one camera.
+
+A robot that hits a wall or stalls changes its speed within a frame or two, far faster
+than the jerk density fitted to the rest of the run allows: a smoother held to that
+model rounds the stop off, overshoots and reads speed after the robot stood still. So
+the model may *break* (:func:`find_breaks`): where the forward filter's normalised
+innovations drift to one side over a few samples (a manoeuvre, Bar-Shalom, Li &
+Kirubarajan 2001, sec. 11.2), the break instant is located by maximum likelihood over
+the nearby samples, and the rate and acceleration are released there (their variance
+reset to the priors, the position kept: a velocity jump, Willsky & Jones, IEEE TAC
+21(1):108, 1976). A break is kept only if it raises the log-likelihood by more than
+:data:`BREAK_MIN_GAIN`, so a run without such events is smoothed exactly as before.
 """
 
 from __future__ import annotations
@@ -18,13 +29,31 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["SmoothedSignal", "smooth_ca", "smooth_ca_signals", "Q_GRID", "R_SCALE_GRID"]
+__all__ = ["SmoothedSignal", "smooth_ca", "smooth_ca_signals", "find_breaks", "Q_GRID",
+           "R_SCALE_GRID", "BREAK_MIN_GAIN"]
 
 Q_GRID = np.logspace(-3, 4, 15)
 """Default jerk spectral densities tried [unit^2/s^5]."""
 R_SCALE_GRID = 2.0 ** np.arange(0.0, 6.5, 0.5)
 """Default factors on the given measurement variances tried, 1 to 64 in steps of
 sqrt(2) (never below 1: the given variances are taken as a lower bound)."""
+
+BREAK_MIN_GAIN = 5.0
+"""Log-likelihood gain a model break must bring to be kept [nats]. The gain is a log
+Bayes factor: releasing rate and acceleration to their priors already costs several
+nats where nothing happened (the Occam factor of the wider prediction), so a break
+that gains 5 nats (2 ln B = 10) is "very strong" evidence on the scale of Kass &
+Raftery (JASA 90:773, 1995)."""
+
+BREAK_WINDOW = 5
+"""Samples over which the normalised innovations are summed to flag a manoeuvre."""
+
+BREAK_MAX_STEPS = 4
+"""Longest change tried as one break, in steps between samples (a stall from 1.5 m/s at
+15 m/s^2 takes 0.1 s: three frames at 30 fps, touching up to four steps)."""
+
+BREAK_FLAG = 3.0
+"""A window sum of normalised innovations beyond this many sigma flags a candidate."""
 
 
 @dataclass(frozen=True)
@@ -51,6 +80,8 @@ class SmoothedSignal:
     innovation_lag1: float
     """Lag-1 autocorrelation of the normalised innovations; about 0 (white) when the
     model is consistent, positive when the measurement errors persist between samples."""
+    breaks_s: tuple = ()
+    """Times where the model was allowed to break (sudden stop, impact) [s]."""
 
 
 def _transition(dt, q):
@@ -72,7 +103,8 @@ def _transition(dt, q):
     return F, Q * np.asarray(q, dtype=float)[:, None, None]
 
 
-def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True):
+def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
+         jump=None):
     """Filter (and smooth) B parallel models over one event sequence.
 
     Parameters
@@ -85,6 +117,9 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True)
     is_meas : ndarray of bool (T,)
     q, r_scale : ndarray (B,)
         Model parameters of the B parallel filters.
+    jump : ndarray of bool (T, B), optional
+        Where True, the rate and acceleration variances are raised by the priors' at
+        the start of the step to that event (a model break somewhere in the step).
 
     Returns
     -------
@@ -114,6 +149,12 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True)
     dts = np.diff(t, prepend=t[0])
     F_all, Q_all = _transition(dts, np.ones(T))
     for k in range(T):
+        if jump is not None and jump[k].any():
+            # released at the start of the step: the unknown instant of the change
+            # within the step reaches the position through F
+            P = P.copy()
+            P[:, 1, 1] += jump[k] * prior_rate**2
+            P[:, 2, 2] += jump[k] * prior_accel**2
         if dts[k] > 0:
             F = F_all[k]
             x = x @ F.T
@@ -153,7 +194,7 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True)
 
 
 def smooth_ca(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None, q_grid=Q_GRID,
-              r_scale_grid=R_SCALE_GRID, prior_rate=5.0, prior_accel=20.0):
+              r_scale_grid=R_SCALE_GRID, prior_rate=5.0, prior_accel=20.0, breaks=True):
     """Smooth one signal measured at irregular times and evaluate it at other times.
 
     Parameters
@@ -170,7 +211,10 @@ def smooth_ca(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None, q_grid=Q_G
         Fix the jerk density [unit^2/s^5] or the measurement-variance factor instead of
         choosing them by maximum likelihood over ``q_grid`` x ``r_scale_grid``.
     prior_rate, prior_accel : float
-        1-sigma of the initial rate [unit/s] and acceleration [unit/s^2].
+        1-sigma of the initial rate [unit/s] and acceleration [unit/s^2]; also the
+        variance released at a model break.
+    breaks : bool
+        Let the model break at sudden changes (:func:`find_breaks`).
 
     Returns
     -------
@@ -180,12 +224,12 @@ def smooth_ca(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None, q_grid=Q_G
     return smooth_ca_signals(t_meas_s, z[:, None], np.asarray(sigma_z, float)[:, None],
                              t_out_s, q=q, r_scale=r_scale, q_grid=q_grid,
                              r_scale_grid=r_scale_grid, prior_rate=prior_rate,
-                             prior_accel=prior_accel)[0]
+                             prior_accel=prior_accel, breaks=breaks)[0]
 
 
 def smooth_ca_signals(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None,
                       q_grid=Q_GRID, r_scale_grid=R_SCALE_GRID, prior_rate=5.0,
-                      prior_accel=20.0):
+                      prior_accel=20.0, breaks=True):
     """Smooth S independent signals measured at the same times, in one batched pass.
 
     Each signal gets its own maximum-likelihood jerk density and variance factor, exactly
@@ -199,8 +243,8 @@ def smooth_ca_signals(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None,
         Measurements and their 1-sigma [unit of each signal].
     t_out_s : array_like (N,)
         Output times [s].
-    q, r_scale, q_grid, r_scale_grid, prior_rate, prior_accel
-        As in :func:`smooth_ca`, shared by all signals.
+    q, r_scale, q_grid, r_scale_grid, prior_rate, prior_accel, breaks
+        As in :func:`smooth_ca`, shared by all signals (breaks are found per signal).
 
     Returns
     -------
@@ -224,20 +268,21 @@ def smooth_ca_signals(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None,
     t, zz, vv, meas = t[order], zz[order], vv[order], meas[order]
     qs = np.atleast_1d(q_grid if q is None else q).astype(float)
     rs = np.atleast_1d(r_scale_grid if r_scale is None else r_scale).astype(float)
-    if qs.size * rs.size > 1:
-        gq, gr = (g.ravel() for g in np.meshgrid(qs, rs, indexing="ij"))
-        g = gq.size
-        # Column s * g + j: signal s with grid point j.
-        ll, _, _, _, _ = _run(t[meas], np.repeat(zz[meas], g, axis=1),
-                              np.repeat(vv[meas], g, axis=1), np.ones(meas.sum(), bool),
-                              np.tile(gq, n_sig), np.tile(gr, n_sig), prior_rate,
-                              prior_accel, smooth=False)
-        best = np.argmax(ll.reshape(n_sig, g), axis=1)
-        q_best, r_best = gq[best], gr[best]
-    else:
-        q_best, r_best = np.full(n_sig, qs[0]), np.full(n_sig, rs[0])
+    priors = (prior_rate, prior_accel)
+    tz = (t[meas], zz[meas], vv[meas])
+    q_best, r_best = _grid_ml(tz, qs, rs, priors, None)
+    jump_m = np.zeros((tm.size, n_sig), bool)
+    if breaks and tm.size > 4 * BREAK_WINDOW:
+        jump_m = find_breaks(*tz, q_best, r_best, prior_rate=prior_rate,
+                             prior_accel=prior_accel)
+        if jump_m.any():  # the rest of the run, freed from the events, may want less q
+            q_best, r_best = _grid_ml(tz, qs, rs, priors, jump_m)
+            jump_m = find_breaks(*tz, q_best, r_best, prior_rate=prior_rate,
+                                 prior_accel=prior_accel)
+    jump = np.zeros((t.size, n_sig), bool)
+    jump[meas] = jump_m
     _, nis, nu, xs, Ps = _run(t, zz, vv, meas, q_best, r_best, prior_rate, prior_accel,
-                              smooth=True)
+                              smooth=True, jump=jump)
     where = np.empty(order.size, dtype=int)
     where[order] = np.arange(order.size)
     out_pos = where[tm.size:]
@@ -251,8 +296,103 @@ def smooth_ca_signals(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None,
             sigma_rate=np.sqrt(np.maximum(P[:, 1, 1], 0.0)),
             q=float(q_best[s]), r_scale=float(r_best[s]), nis_mean=float(nis[s]) / tm.size,
             innovation_lag1=_lag1(nu[meas, s]),
+            breaks_s=tuple(float(v) for v in t[meas][jump_m[:, s]]),
         ))
     return out
+
+
+def _grid_ml(tz, qs, rs, priors, jump_m):
+    """Maximum-likelihood (q, r_scale) per signal over the grid; ``tz`` = (t, z, var)
+    of the measurements, ``jump_m`` (M, S) the model breaks or None."""
+    t, z, v = tz
+    n_sig = z.shape[1]
+    if qs.size * rs.size == 1:
+        return np.full(n_sig, qs[0]), np.full(n_sig, rs[0])
+    gq, gr = (g.ravel() for g in np.meshgrid(qs, rs, indexing="ij"))
+    g = gq.size
+    # Column s * g + j: signal s with grid point j.
+    ll, _, _, _, _ = _run(t, np.repeat(z, g, axis=1), np.repeat(v, g, axis=1),
+                          np.ones(t.size, bool), np.tile(gq, n_sig), np.tile(gr, n_sig),
+                          *priors, smooth=False,
+                          jump=None if jump_m is None else np.repeat(jump_m, g, axis=1))
+    best = np.argmax(ll.reshape(n_sig, g), axis=1)
+    return gq[best], gr[best]
+
+
+def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0,
+                max_rounds=4, min_gain=BREAK_MIN_GAIN):
+    """Instants where each signal's constant-acceleration model must break.
+
+    The forward filter's normalised innovations are summed over :data:`BREAK_WINDOW`
+    samples; a sum beyond :data:`BREAK_FLAG` sigma flags a manoeuvre. Around the start
+    of each flagged stretch every instant is tried as a break (rate and acceleration
+    released, see :func:`_run`); the one of highest likelihood is kept if it gains more
+    than ``min_gain``; a change spread over two steps (a stall that takes a frame or
+    two) is tried as a break in each of its steps (up to :data:`BREAK_MAX_STEPS`). Repeated until nothing is gained (at most
+    ``max_rounds``).
+
+    Parameters
+    ----------
+    t_s : ndarray (M,)
+        Measurement times, sorted [s].
+    z, var_z : ndarray (M, S)
+        Measurements and their variances.
+    q, r_scale : ndarray (S,)
+        Each signal's model.
+
+    Returns
+    -------
+    ndarray of bool (M, S)
+        True at the measurement before which the model breaks.
+    """
+    m, n_sig = z.shape
+    ones = np.ones(m, bool)
+    w = BREAK_WINDOW
+    jump = np.zeros((m, n_sig), bool)
+    ll, _, nu, _, _ = _run(t_s, z, var_z, ones, q, r_scale, prior_rate, prior_accel,
+                           smooth=False, jump=jump)
+    for _round in range(max_rounds):
+        cols = []  # (signal, stretch, position)
+        for s in range(n_sig):
+            u = np.nan_to_num(nu[:, s])
+            score = np.abs(np.convolve(u, np.ones(w), "valid")) / np.sqrt(w)
+            for n_run, i0 in enumerate(_flagged_starts(score > BREAK_FLAG)):
+                for pos in range(max(i0 - w, 1), min(i0 + 2 * w, m)):
+                    if not jump[pos, s]:
+                        # a change over one step, or spread over a few (a stall)
+                        for span in range(1, BREAK_MAX_STEPS + 1):
+                            if pos + span <= m:
+                                cols.append((s, n_run, tuple(range(pos, pos + span))))
+        if not cols:
+            break
+        sig = np.array([c[0] for c in cols])
+        trial = jump[:, sig].copy()
+        for col, c in enumerate(cols):
+            trial[list(c[2]), col] = True
+        ll_c, _, _, _, _ = _run(t_s, z[:, sig], var_z[:, sig], ones, q[sig], r_scale[sig],
+                                prior_rate, prior_accel, smooth=False, jump=trial)
+        gain = ll_c - ll[sig]
+        best: dict = {}
+        for c, gval in zip(cols, gain, strict=True):
+            key = c[:2]
+            if gval > min_gain and gval > best.get(key, (-np.inf, 0))[0]:
+                best[key] = (gval, c[2])
+        if not best:
+            break
+        for (s, _n), (_g, pos) in best.items():
+            jump[list(pos), s] = True
+        ll, _, nu, _, _ = _run(t_s, z, var_z, ones, q, r_scale, prior_rate, prior_accel,
+                               smooth=False, jump=jump)
+    return jump
+
+
+def _flagged_starts(flags):
+    """First index of every run of True in ``flags``."""
+    f = np.asarray(flags, bool)
+    if not f.any():
+        return []
+    starts = np.flatnonzero(f & ~np.concatenate([[False], f[:-1]]))
+    return starts.tolist()
 
 
 def _lag1(u):
