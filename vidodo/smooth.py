@@ -328,8 +328,8 @@ def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0,
     of each flagged stretch every instant is tried as a break (rate and acceleration
     released, see :func:`_run`); the one of highest likelihood is kept if it gains more
     than ``min_gain``; a change spread over two steps (a stall that takes a frame or
-    two) is tried as a break in each of its steps (up to :data:`BREAK_MAX_STEPS`). Repeated until nothing is gained (at most
-    ``max_rounds``).
+    two) is tried as a break in each of its steps (up to :data:`BREAK_MAX_STEPS`).
+    Repeated until nothing is gained (at most ``max_rounds``).
 
     Parameters
     ----------
