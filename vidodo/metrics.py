@@ -51,6 +51,7 @@ __all__ = [
     "pairs_by_distance",
     "rpe",
     "rpe_key",
+    "sigma_key",
     "RPE_PAIRS_RULE",
     "ate",
     "source_metrics",
@@ -447,6 +448,15 @@ def _nearest_pairs(values, delta, rel_tol):
     return i[keep], j[keep]
 
 
+def sigma_key(figure: str) -> str:
+    """Summary key of a figure's 1-sigma: ``final_err_m`` -> ``final_err_sigma_m``,
+    ``heading_drift_deg_per_turn`` -> ``heading_drift_sigma_deg_per_turn``."""
+    if figure.endswith("_deg_per_turn"):
+        return figure[: -len("_deg_per_turn")] + "_sigma_deg_per_turn"
+    base, unit = figure.rsplit("_", 1)
+    return f"{base}_sigma_{unit}"
+
+
 def rpe_key(delta, unit):
     """Summary key of an RPE figure named by its delta, e.g. ``rpe_0p5m_rmse_m``.
 
@@ -539,17 +549,27 @@ class SourceMetrics:
     """Path length over which ``rpe_path_rmse_m`` is taken [m]."""
     rpe_delta_s: float = 1.0
     """Time over which ``rpe_time_rmse_m`` is taken [s]."""
+    sigma: dict | None = None
+    """1-sigma of the figures, propagated from the truth track's and the clock's sigma
+    (:mod:`vidodo.drift_sigma`): figure name -> sigma in its unit, or None."""
 
     def to_dict(self) -> dict:
         """Plain dict for JSON (None for figures that could not be measured); the RPE
-        figures are keyed by their delta (``rpe_0p5m_rmse_m``, ``rpe_1s_rmse_m``)."""
+        figures are keyed by their delta (``rpe_0p5m_rmse_m``, ``rpe_1s_rmse_m``), and
+        each figure with a 1-sigma is followed by it (``final_err_sigma_m``)."""
         out = {}
+        sig = self.sigma or {}
         for k, v in self.__dict__.items():
+            if k == "sigma":
+                continue
+            name = k
             if k == "rpe_path_rmse_m":
-                k = rpe_key(self.rpe_delta_m, "m")
+                name = rpe_key(self.rpe_delta_m, "m")
             elif k == "rpe_time_rmse_m":
-                k = rpe_key(self.rpe_delta_s, "s")
-            out[k] = list(v) if isinstance(v, tuple) else v
+                name = rpe_key(self.rpe_delta_s, "s")
+            out[name] = list(v) if isinstance(v, tuple) else v
+            if k in sig:
+                out[sigma_key(name)] = sig[k] if v is not None else None
         return out
 
 

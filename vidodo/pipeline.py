@@ -28,6 +28,7 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
+from .drift_sigma import DriftInputs, derived_sigmas, figure_sigmas
 from .errors import InputError, MeasurementError
 from .events import EventSettings, active_kinds, detect_events, events_frame
 from .metrics import (
@@ -299,7 +300,8 @@ def grade_tracks(truth, log, robot, settings: GradeSettings | None = None, *, od
     video_tracks, covered = _video_clock_step(odometry, clock, ref, warn)
     ev = _events_step(ref, log, robot, clock, {n: video_tracks[n] for n in covered},
                       settings.events, warn)
-    graded = {name: _source_step(name, p, video_tracks[name], ref, ev.events, warn)
+    graded = {name: _source_step(name, p, video_tracks[name], ref, ev.events, warn,
+                                 float(clock.sigma_s or 0.0))
               for name, p in covered.items()}
     return _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn,
                          inputs=inputs, field_profile=field_profile)
@@ -378,8 +380,9 @@ def _events_step(ref, log, robot, clock, video_tracks, event_settings, warn):
     return ev
 
 
-def _source_step(name, p, vdf, ref, events, warn) -> _SourceGrade:
-    """Anchor one source at the truth pose where motion starts and measure it."""
+def _source_step(name, p, vdf, ref, events, warn, clock_sigma_s=0.0) -> _SourceGrade:
+    """Anchor one source at the truth pose where motion starts and measure it, each
+    figure with its 1-sigma (:mod:`vidodo.drift_sigma`)."""
     t, q, sxy = ref.t, ref.q, ref.sigma_xy_m
     ta, qa = float(t[ref.k_anchor]), ref.anchor_pose
     pa = interpolate_poses(np.array([ta]), vdf["t_s"].to_numpy(float),
@@ -410,12 +413,14 @@ def _source_step(name, p, vdf, ref, events, warn) -> _SourceGrade:
                    "travel_sigma_rad": float(sig_rot), "weight": float(w)}
     anchored = pd.DataFrame({"t_s": t, "x_m": a[:, 0], "y_m": a[:, 1],
                              "heading_rad": a[:, 2]})
+    kw = dict(sigma_heading_rad=ref.sigma_heading_rad, sigma_m=sxy, name=name)
     try:
-        m = source_metrics(t, q, a, ref.path_m, sigma_heading_rad=ref.sigma_heading_rad,
-                           sigma_m=sxy, name=name)
+        m = source_metrics(t, q, a, ref.path_m, **kw)
     except MeasurementError as exc:
         warn.append(str(exc))
         return _SourceGrade(anchored, None, None, heading)
+    m = replace(m, sigma=_figure_sigmas(m, ref, vdf, k0, ta, qa, sig_rot if dh is not None
+                                        else None, clock_sigma_s, kw))
     if not ref.moved:
         m = _without_motion_figures(m)
     warn += list(m.warnings)
@@ -425,6 +430,22 @@ def _source_step(name, p, vdf, ref, events, warn) -> _SourceGrade:
     except MeasurementError:
         best = None
     return _SourceGrade(anchored, m, best, heading)
+
+
+def _figure_sigmas(m, ref, vdf, k0, ta, qa, sig_rot, clock_sigma_s, kw):
+    """1-sigma of the source's figures: the truth track, the anchor pose (position and
+    the heading combined with the first travel's, ``sig_rot``) and the clock drawn."""
+    sxy_all = ref.frame["sigma_xy_m"].to_numpy(float)
+    sh_k = ref.sigma_heading_each[k0]
+    sh_k = float(sh_k) if np.isfinite(sh_k) else ref.sigma_heading_rad
+    sa_h = sh_k if sig_rot is None else math.sqrt(sh_k**2 * sig_rot**2
+                                                  / (sh_k**2 + sig_rot**2))
+    sa_xy = float(sxy_all[k0]) if np.isfinite(sxy_all[k0]) else ref.sigma_xy_m
+    return derived_sigmas(m, figure_sigmas(DriftInputs(
+        t_s=ref.t, truth_poses=ref.q, sigma_xy_m=sxy_all,
+        sigma_heading_rad=ref.sigma_heading_each, cum_length_m=ref.path_m,
+        source_at=_shifted_source(ref.t, vdf, ta), anchor_pose=tuple(qa),
+        anchor_sigma=(sa_xy, sa_h), clock_sigma_s=clock_sigma_s, metric_kwargs=kw)))
 
 
 def _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn, *,
@@ -479,6 +500,17 @@ def _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn,
                        anchor=anchor, metrics=metrics, drift=drift, events=events_df,
                        event_list=ev.events, tolerances=tol, summary=_jsonable(summary),
                        warnings=tuple(warn), passed=passed)
+
+
+def _shifted_source(t, vdf, t_anchor):
+    """``source_at(dt)`` for :class:`DriftInputs`: the source's poses on ``t`` and at
+    the anchor instant with its video times moved by ``dt`` [s]."""
+    def source_at(dt_s):
+        ts = vdf["t_s"].to_numpy(float) + dt_s
+        poses = vdf[["x_m", "y_m", "heading_rad"]].to_numpy(float)
+        return (interpolate_poses(t, ts, poses),
+                interpolate_poses(np.array([t_anchor]), ts, poses)[0])
+    return source_at
 
 
 def _without_motion_figures(m: SourceMetrics) -> SourceMetrics:

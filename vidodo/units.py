@@ -99,6 +99,17 @@ def _pass_text(value) -> str:
     return "pass" if bool(value) else "FAIL"
 
 
+def _pm(m: dict, key: str, fmt, unit: str) -> str:
+    """A figure with its 1-sigma (``12.3 mm \u00b1 0.4 mm``), or the figure alone."""
+    from .metrics import sigma_key
+
+    v = m.get(key)
+    if not _finite(v):
+        return "\u2013"
+    s = m.get(sigma_key(key))
+    return fmt(v, unit) + (f" \u00b1 {fmt(s, unit)}" if _finite(s) else "")
+
+
 def summary_lines(summary: dict, unit: str = "mm", *, warnings: bool = False) -> list[str]:
     """The compact end-of-run summary for the terminal, one string per line.
 
@@ -137,12 +148,12 @@ def summary_lines(summary: dict, unit: str = "mm", *, warnings: bool = False) ->
         for name, m in sources.items():
             rows.append([
                 str(name),
-                format_length(m.get("ate_rmse_m"), unit),
-                format_length(m.get("final_err_m"), unit),
-                format_length(m.get("max_err_m"), unit),
-                format_percent(m.get("drift_pct")),
-                format_angle(math.radians(m["heading_drift_deg_per_turn"]))
-                if _finite(m.get("heading_drift_deg_per_turn")) else "\u2013",
+                _pm(m, "ate_rmse_m", format_length, unit),
+                _pm(m, "final_err_m", format_length, unit),
+                _pm(m, "max_err_m", format_length, unit),
+                _pm(m, "drift_pct", lambda v, _u: format_percent(v), unit),
+                _pm(m, "heading_drift_deg_per_turn",
+                    lambda v, _u: format_angle(math.radians(v)), unit),
                 _pass_text(m.get("pass")) if judged else "",
             ])
         widths = [max(len(r[i]) for r in rows) for i in range(len(head))]

@@ -110,6 +110,20 @@ def _cell(key: str, v, kind: str, unit: str) -> str:
             f'data-si="{_si_attr(v)}">{_e(_format(v, kind, unit))}</td>')
 
 
+def _cell_pm(key: str, m: dict, figure: str, kind: str, unit: str) -> str:
+    """A figure's cell with its 1-sigma after a plus-minus sign when the summary has it
+    (``<figure>_sigma_<unit>``, :func:`vidodo.metrics.sigma_key`)."""
+    from .metrics import sigma_key
+
+    v = m.get(figure)
+    sig = m.get(sigma_key(figure)) if figure.count("_") else None
+    if not (_is_number(v) and _is_number(sig) and math.isfinite(sig)):
+        return _cell(key, v, kind, unit)
+    text = f"{_format(v, kind, unit)} \u00b1 {_format(sig, kind, unit)}"
+    return (f'<td class="num" data-key="{_e(key)}" data-kind="{kind}" '
+            f'data-si="{_si_attr(v)}" data-sigma-si="{_si_attr(sig)}">{_e(text)}</td>')
+
+
 def _kv_table(data, key_prefix: str, unit: str) -> str:
     """A two-column table of a flat or nested dict; lengths by key suffix ``_m``."""
     rows = []
@@ -150,7 +164,7 @@ def _metrics_table(sources: dict, unit: str) -> str:
     head = "".join(f"<th>{_e(h)}</th>" for _, h, _ in METRIC_COLUMNS)
     rows = []
     for name, m in sources.items():
-        cells = "".join(_cell(f"sources/{name}/{key}", (m or {}).get(key), kind, unit)
+        cells = "".join(_cell_pm(f"sources/{name}/{key}", m or {}, key, kind, unit)
                         for key, _, kind in METRIC_COLUMNS)
         rows.append(f'<tr data-source="{_e(name)}"><th>{_e(name)}</th>{cells}</tr>')
     return f"<table id=\"metrics\"><tr><th>source</th>{head}</tr>{''.join(rows)}</table>"

@@ -1,0 +1,140 @@
+"""1-sigma of every drift figure, propagated from the truth track's and the clock's sigma.
+
+A drift figure (final error, max error, ATE, RPE, final heading error) compares an
+odometry source with the truth track; both the truth poses and the clock that places
+the log on the video's time carry an uncertainty. The figures are not linear in them
+(a maximum, an RMS after a fitted alignment), so the uncertainty is propagated by
+Monte Carlo (common practice: JCGM 101:2008, "Propagation of distributions using a
+Monte Carlo method"): each draw perturbs
+
+* the truth track by its 1-sigma per sample (``sigma_xy_m`` split equally over x and
+  y, ``sigma_heading_rad``), correlated in time as a first-order Gauss-Markov process
+  with :data:`CORRELATION_S` (the smoothed track's errors persist over neighbouring
+  frames; fully independent draws would average away under the final pose's local fit),
+* the anchor pose (where the source is placed on the truth) by its own sigma,
+* the clock offset by the clock's sigma (the source is sampled that much earlier or
+  later),
+
+re-anchors the source and recomputes the figures; the figure's 1-sigma is the standard
+deviation over the draws. ``benchmarks/drift_coverage.py`` checks the share of true
+figures within 2 sigma over rendered runs.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import MeasurementError
+from .metrics import anchor_poses, source_metrics
+
+__all__ = ["DriftInputs", "FIGURES", "CORRELATION_S", "figure_sigmas", "derived_sigmas"]
+
+FIGURES = ("ate_rmse_m", "rpe_path_rmse_m", "rpe_time_rmse_m", "final_err_m",
+           "final_heading_err_rad", "max_err_m")
+"""The figures of :class:`vidodo.metrics.SourceMetrics` given a 1-sigma."""
+
+CORRELATION_S = 0.3
+"""Correlation time of the truth track's errors in the draws [s] (the smoother's span
+at 30 fps and the local corner-noise window; assumed, checked by the coverage
+benchmark)."""
+
+DRAWS = 40
+"""Monte Carlo draws: the relative 1-sigma of a standard deviation from n draws is about
+1 / sqrt(2 (n - 1)), 11 % here (common practice)."""
+
+
+@dataclass(frozen=True)
+class DriftInputs:
+    """What one source's figures were computed from (see :func:`figure_sigmas`)."""
+
+    t_s: np.ndarray
+    """Truth sample times, ndarray (N,) [s]."""
+    truth_poses: np.ndarray
+    """Truth poses (x_m, y_m, heading_rad), ndarray (N, 3)."""
+    sigma_xy_m: np.ndarray
+    """Truth position 1-sigma per sample, ndarray (N,) [m]."""
+    sigma_heading_rad: np.ndarray
+    """Truth heading 1-sigma per sample, ndarray (N,) [rad]."""
+    cum_length_m: np.ndarray
+    """Truth path length, ndarray (N,) [m]."""
+    source_at: Callable
+    """``source_at(dt_s)``: the source's own poses (N, 3) on the truth times when the
+    clock is off by ``dt_s``, and its pose at the anchor instant (3,)."""
+    anchor_pose: tuple
+    """Truth pose the source was anchored on (x_m, y_m, heading_rad)."""
+    anchor_sigma: tuple
+    """Its 1-sigma: position [m] and heading [rad]."""
+    clock_sigma_s: float
+    """1-sigma of the clock offset [s]."""
+    metric_kwargs: dict
+    """Keyword arguments of :func:`vidodo.metrics.source_metrics` as used."""
+
+
+def _gauss_markov(t, rng, n, tau):
+    """Unit-variance first-order Gauss-Markov draws, ndarray (N, n), on times ``t``."""
+    out = np.empty((t.size, n))
+    out[0] = rng.standard_normal(n)
+    dt = np.diff(t, prepend=t[0])
+    rho = np.exp(-np.nan_to_num(dt, nan=0.0) / tau)
+    for k in range(1, t.size):
+        out[k] = rho[k] * out[k - 1] + np.sqrt(1.0 - rho[k] ** 2) * rng.standard_normal(n)
+    return out
+
+
+def figure_sigmas(inp: DriftInputs, *, draws=DRAWS, seed=0) -> dict:
+    """1-sigma of each figure in :data:`FIGURES` (None where never measured).
+
+    Parameters
+    ----------
+    inp : DriftInputs
+    draws : int
+        Monte Carlo draws.
+    seed : int
+        Seed of the draws (the result is reproducible).
+
+    Returns
+    -------
+    dict of str -> float or None
+        ``{figure: sigma}`` in the figure's unit.
+    """
+    rng = np.random.default_rng(seed)
+    t = np.asarray(inp.t_s, float)
+    q = np.asarray(inp.truth_poses, float)
+    sxy = np.nan_to_num(np.asarray(inp.sigma_xy_m, float)) / np.sqrt(2.0)
+    sh = np.nan_to_num(np.asarray(inp.sigma_heading_rad, float))
+    values = {f: [] for f in FIGURES}
+    for _ in range(draws):
+        noise = _gauss_markov(t, rng, 3, CORRELATION_S)
+        qd = q + noise * np.column_stack([sxy, sxy, sh])
+        dt = float(rng.normal(0.0, inp.clock_sigma_s)) if inp.clock_sigma_s > 0 else 0.0
+        p, pa = inp.source_at(dt)
+        sa_xy, sa_h = inp.anchor_sigma
+        qa = np.asarray(inp.anchor_pose, float) + rng.normal(0.0, 1.0, 3) * (
+            sa_xy / np.sqrt(2.0), sa_xy / np.sqrt(2.0), sa_h)
+        a = anchor_poses(p, pa, qa)
+        try:
+            m = source_metrics(t, qd, a, inp.cum_length_m, **inp.metric_kwargs)
+        except MeasurementError:
+            continue
+        for f in FIGURES:
+            v = getattr(m, f)
+            if v is not None:
+                values[f].append(float(v))
+    out = {f: (float(np.std(v, ddof=1)) if len(v) >= 3 else None) for f, v in values.items()}
+    return out
+
+
+def derived_sigmas(m, sig: dict) -> dict:
+    """Add the 1-sigma of drift % and heading drift per turn, which are the final
+    errors divided by the path length and by the turns made (taken as exact)."""
+    out = dict(sig)
+    if m.drift_pct is not None and sig.get("final_err_m") is not None and m.final_err_m:
+        out["drift_pct"] = abs(m.drift_pct) * sig["final_err_m"] / m.final_err_m
+    h = sig.get("final_heading_err_rad")
+    if m.heading_drift_deg_per_turn is not None and h is not None and m.final_heading_err_rad:
+        out["heading_drift_deg_per_turn"] = abs(
+            m.heading_drift_deg_per_turn * h / m.final_heading_err_rad)
+    return out
