@@ -151,6 +151,16 @@ def test_imu_units_wrapping_scale_and_sign():
     assert_allclose(f["imu_heading_rad"], h_true, atol=1e-12)
 
 
+def test_imu_bias_is_subtracted():
+    """heading = sign * (h0 + scale (h - h0)) - bias (t - t0) (robot profile [imu]
+    bias_radps, hand computed): a still robot whose gyro drifts 0.01 rad/s reads still."""
+    t = np.arange(100) * 0.02 + 5.0
+    df = pd.DataFrame({"t": t, "el": 0, "er": 0, "yaw": 0.3 + 0.01 * (t - t[0])})
+    r = robot(imu=Imu("yaw", unit="rad", wrapped=False, bias_radps=0.01))
+    f = read_log(io.StringIO(df.to_csv(index=False)), r).frame
+    assert_allclose(f["imu_heading_rad"], 0.3, atol=1e-12)
+
+
 def test_gaps_and_unexpected_heading_wraps_are_reported():
     t = np.r_[np.arange(10) * 0.01, 1.0 + np.arange(10) * 0.01]
     yaw = np.r_[np.linspace(170, 179, 10), np.linspace(-179, -170, 10)]

@@ -254,6 +254,10 @@ def test_noisy_recovery_within_tolerances(tmp_path):
     assert back.wheel("left").y_m == pytest.approx(fit.corrected_robot.wheel("left").y_m)
     assert back.imu.scale == pytest.approx(fit.corrected_robot.imu.scale)
     assert abs(back.wheel("left").radius_m / 0.024 - 1) < 0.002
+    # the gyro bias (0.002 rad/s in both runs) is fitted, written and read back
+    bias = tab.loc["imu bias_radps"]
+    assert abs(bias["estimate"] - 0.002) < max(3 * bias["std_error"], 1e-4)
+    assert back.imu.bias_radps == pytest.approx(bias["estimate"])
 
 
 def test_straight_run_leaves_track_width_unidentified():
@@ -316,6 +320,20 @@ def test_inverted_imu_is_flagged_and_a_dead_wheel_left_out():
     assert tab.loc["wheel back radius_m", "identifiable"] == "no"
     assert any(w.startswith("wheel back:") and "not fitted" in w for w in fit.warnings)
     assert fit.corrected_robot.wheel("back") == wrong.wheel("back")
+
+
+def test_unusable_run_says_why_nothing_was_fitted():
+    """A robot creeping 2 mm/s for 12 s (windows enough, motion none): every profile
+    value is 'no', and the first warning says so with what the run offered."""
+    true = pod_robot()
+    run = constructed_run(true, [((0.002, 0.0, 0.0), 12.0)], noise_xy_m=0.0005,
+                          noise_heading_rad=0.002)
+    fit = fit_profile([run], true)
+    own = fit.table[~fit.table["parameter"].str.startswith("run ")
+                    & (fit.table["kind"] != "sign")]
+    assert (own["identifiable"] == "no").all()
+    assert fit.warnings[0].startswith("no value could be fitted")
+    assert "m of travel" in fit.warnings[0]
 
 
 def test_too_little_data_is_a_measurement_error():

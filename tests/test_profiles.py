@@ -112,3 +112,17 @@ def test_robot_errors_name_file_and_key(tmp_path, patch, message):
 def test_missing_file():
     with pytest.raises(InputError, match="file not found"):
         load_field("/nonexistent/field.toml")
+
+
+def test_imu_bias_in_either_unit(tmp_path):
+    """[imu] bias_dps (deg/s) or bias_radps (rad/s), not both; it round-trips."""
+    p = tmp_path / "robot.toml"
+    p.write_text(ROBOT + "bias_dps = 0.5\n")
+    r = load_robot(p)
+    assert r.imu.bias_radps == pytest.approx(math.radians(0.5))
+    q = tmp_path / "again.toml"
+    q.write_text(dump_toml(robot_to_dict(r)))
+    assert load_robot(q) == r
+    p.write_text(ROBOT + "bias_dps = 0.5\nbias_radps = 0.01\n")
+    with pytest.raises(InputError, match="bias"):
+        load_robot(p)

@@ -59,7 +59,7 @@ class LogData:
     ``frame`` columns: ``line`` (the sample's line number in the file, header = 1),
     ``t_s`` (log clock [s], strictly increasing), ``ticks_<wheel>`` (unwrapped
     cumulative counts, int64, wheel sign NOT applied), ``imu_heading_rad``
-    (continuous [rad], IMU scale and sign applied) when the profile has [imu], and
+    (continuous [rad], IMU scale, sign and bias applied) when the profile has [imu], and
     ``pose_x_m``, ``pose_y_m``, ``pose_heading_rad`` (continuous) when it has [pose].
     """
 
@@ -427,7 +427,8 @@ def log_from_frame(raw: pd.DataFrame, robot: RobotProfile, *, where="log",
         if imu.unit == "rad" and np.nanmax(np.abs(h)) > 2 * math.pi + 0.1 and imu.wrapped:
             warnings.append(f"IMU column '{imu.column}' is declared wrapped radians but reaches "
                             f"{np.nanmax(np.abs(h)):.1f}; is it in degrees?")
-        hv = imu.sign * (hv[0] + imu.scale * (hv - hv[0]))
+        tv = t_s[ok]
+        hv = imu.sign * (hv[0] + imu.scale * (hv - hv[0])) - imu.bias_radps * (tv - tv[0])
         frame["imu_heading_rad"] = _fill(t_s, hv, ok)
     # pose
     if robot.pose is not None:

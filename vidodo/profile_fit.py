@@ -648,6 +648,10 @@ def fit_profile(runs, robot: RobotProfile, *, exclude_windows=None, window_s=0.4
         noise["imu"] = float(sig[len(fwheels)])
     table, corrected = _tabulate(robot, model, theta, se, cov, status, inverted, imu_flip,
                                  tol, warnings)
+    own = table[~table["parameter"].str.startswith("run ")  # the profile's values
+                & (table["kind"] != "sign")]
+    if len(own) and (own["identifiable"] == "no").all():
+        warnings.insert(0, _why_nothing_fitted(runs, total, window_s))
     for rd in rundata:
         if rd.i_rate >= 0 and status[rd.i_rate] == "yes":
             r = theta[rd.i_rate]
@@ -668,6 +672,22 @@ def fit_profile(runs, robot: RobotProfile, *, exclude_windows=None, window_s=0.4
                       inverted=tuple(inverted), n_windows=n_win, noise=noise,
                       covariance=cov, names=tuple(model.names), warnings=tuple(warnings),
                       clocks=clocks)
+
+
+def _why_nothing_fitted(runs, n_windows, window_s) -> str:
+    """One line saying why no value could be fitted: how much the runs offered."""
+    dist = turn = 0.0
+    for run in runs:
+        tr = run.truth
+        xy = tr[["x_m", "y_m"]].to_numpy(float)
+        ok = np.isfinite(xy).all(axis=1)
+        dist += float(np.sum(np.hypot(*np.diff(xy[ok], axis=0).T)))
+        h = tr["heading_rad"].to_numpy(float)
+        turn += float(np.sum(np.abs(np.diff(np.unwrap(h[np.isfinite(h)])))))
+    return (f"no value could be fitted: these runs give {n_windows} usable {window_s} s "
+            f"windows outside events, {dist:.2f} m of travel and {math.degrees(turn):.0f} "
+            "deg of turning, too little to tell any value from its profile figure; each "
+            "row's suggestion says what motion would identify it")
 
 
 def _solve_holding(model: _Model, theta0, tol, max_iter):
@@ -820,6 +840,7 @@ def _tabulate(robot, model, theta, se, cov, status, inverted, imu_flip, tol, war
             imu_flip < 0)
         new_imu = dataclasses.replace(robot.imu, sign=sign,
                                       scale=float(scale) if iw else robot.imu.scale)
+        new_imu = _imu_bias_row(model, theta, se, tol, robot.imu, new_imu, row)
     elif robot.imu is not None:
         nan = float("nan")
         row("imu scale", "imu_scale", "imu", "", robot.imu.scale, nan, nan, "no", False)
@@ -846,6 +867,24 @@ def _tabulate(robot, model, theta, se, cov, status, inverted, imu_flip, tol, war
         robot, wheels=tuple(new_wheels[w.name] for w in robot.wheels), imu=new_imu,
         path=None)
     return pd.DataFrame(rows), corrected
+
+
+def _imu_bias_row(model, theta, se, tol, imu, new_imu, row):
+    """The profile's IMU bias: the fitted per-run drift rates (on top of the profile's
+    own, scaled by the fitted scale) averaged over the runs, written when that mean is
+    identifiable ("yes" against the imu_bias tolerance)."""
+    idx = [rd.i_bias for rd in model.runs if rd.i_bias >= 0]
+    if not idx:
+        return new_imu
+    c = theta[model.i_c]
+    est = c * imu.bias_radps + float(np.mean(theta[idx]))
+    sd = float(np.sqrt(np.sum(np.asarray(se)[idx] ** 2))) / len(idx)
+    st = _status([sd], ["imu_bias"], tol)[0]
+    # written as the other values are (write_ok): identifiable, or weakly so but more
+    # than 3 standard errors from the profile's figure
+    ok = st == "yes" or (st == "weak" and abs(est - imu.bias_radps) > 3 * sd)
+    row("imu bias_radps", "imu_bias", "imu", "rad/s", imu.bias_radps, est, sd, st, ok)
+    return dataclasses.replace(new_imu, bias_radps=float(est)) if ok else new_imu
 
 
 def write_profile(fit: ProfileFit, path) -> None:

@@ -99,7 +99,8 @@ class Wheel:
     roller_rad: float = 0.0
     """Free-roller angle: 0 for plain and omni wheels, +-pi/4 for mecanum [rad]."""
     gear_ratio: float = 1.0
-    """Encoder-shaft revolutions per wheel revolution."""
+    """Encoder-shaft revolutions per wheel revolution (encoder turns per wheel turn: 19.2
+    for an encoder on the motor of a 19.2:1 gearbox; 1 for an encoder on the axle)."""
     sign: int = 1
     """+1 if counts rise when the wheel rolls along ``direction``; else -1."""
     counter_bits: int = 32
@@ -132,6 +133,10 @@ class Imu:
     """Factor applied to the logged heading change (gyro scale)."""
     sign: int = 1
     """+1 if the logged heading rises counter-clockwise seen from above."""
+    bias_radps: float = 0.0
+    """Drift rate of the logged heading (gyro bias), subtracted after scale and sign:
+    heading = sign * (h0 + scale * (h - h0)) - bias * (t - t0) [rad/s]. TOML key
+    ``bias_radps`` or ``bias_dps`` [deg/s]; ``vidodo tune`` fits it."""
 
 
 @dataclass(frozen=True)
@@ -445,6 +450,8 @@ def load_robot(path) -> RobotProfile:
                 radius_m=t.positive("radius_m"),
                 ticks_per_rev=t.positive("ticks_per_rev"),
                 roller_rad=t.angle("roller_deg", 0.0),
+                # encoder (shaft) turns per wheel turn, > 1 for an encoder on the motor
+                # side of a reduction gearbox (metres per tick = 2 pi r / (ticks * ratio))
                 gear_ratio=t.positive("gear_ratio", 1.0),
                 sign=sign,
                 counter_bits=bits,
@@ -469,6 +476,7 @@ def load_robot(path) -> RobotProfile:
             wrapped=t.get("wrapped", bool, True),
             scale=t.get("scale", float, 1.0),
             sign=sign,
+            bias_radps=_imu_bias(t),
         )
     pose = None
     if "pose" in data:
@@ -660,6 +668,15 @@ def dump_toml(data: dict, header: str = "") -> str:
                 lines.append(f"\n[[{k}]]")
                 lines += [f"{kk} = {_toml_value(vv)}" for kk, vv in item.items() if vv is not None]
     return "\n".join(lines).lstrip("\n") + "\n"
+
+
+def _imu_bias(t) -> float:
+    """The [imu] drift rate from ``bias_radps`` or ``bias_dps`` (not both) [rad/s]."""
+    if "bias_radps" in t.data and "bias_dps" in t.data:
+        raise InputError(f"{t.where}: give the IMU bias once, as bias_radps or bias_dps")
+    if "bias_dps" in t.data:
+        return math.radians(t.get("bias_dps", float, 0.0))
+    return t.get("bias_radps", float, 0.0)
 
 
 def robot_to_dict(robot: RobotProfile) -> dict:
