@@ -96,3 +96,54 @@ def test_batched_signals_equal_one_at_a_time():
         assert (batch[k].q, batch[k].r_scale) == (one.q, one.r_scale)
         np.testing.assert_allclose(batch[k].value, one.value, rtol=0, atol=1e-12)
         np.testing.assert_allclose(batch[k].sigma_value, one.sigma_value, rtol=1e-9)
+
+
+def _stop_track(v_mps, decel_mps2, rng, t_stop_s=2.0):
+    """Exact positions of a body that reaches ``v_mps`` (1.6 m/s^2 ramp) and stops at
+    ``decel_mps2`` from ``t_stop_s`` (integrated on a 20x finer grid), sampled at 30 fps
+    with 1 mm noise."""
+    t = np.arange(0.0, 4.0, 1 / 30)
+    tt = np.arange(0.0, 4.0, 1 / 600)
+    vv = np.minimum(tt / 0.5, 1.0) * v_mps
+    late = tt >= t_stop_s
+    vv[late] = np.maximum(v_mps - decel_mps2 * (tt[late] - t_stop_s), 0.0)
+    x = np.interp(t, tt, np.cumsum(vv) / 600)
+    return t, x, x + rng.normal(0.0, 1e-3, t.size)
+
+
+@pytest.mark.parametrize("v_mps", [0.3, 0.8, pytest.param(1.5, marks=pytest.mark.xfail(
+    reason="known gap: at 1.5 m/s the stop falls inside a 33 ms step and the first sample "
+    "after the break is 2-3.5 sigma off in about a quarter of the draws (the break is "
+    "placed at the step's start; the instant within the step is not modelled)"))])
+def test_sudden_stop_followed_within_two_sigma(v_mps):
+    """A hit that stops the body within a frame (200 m/s^2), 10 noise draws: with model
+    breaks a break is placed at the stop, the smoothed position at the samples around
+    the stop lies within 2 sigma of the truth at least 90 % of the time (a Gaussian
+    1-sigma: 95 %, handbook value) and the speed reads below 2 cm/s 0.1 s after it;
+    held to one model the error there is several sigma (issue 15: 5 sigma, speed still
+    0.2 m/s). Truth: the integrated motion."""
+    rng = np.random.default_rng(int(v_mps * 10))
+    ratios, held_ratios = [], []
+    for _ in range(10):
+        t, x, z = _stop_track(v_mps, 200.0, rng)
+        near = np.abs(t - 2.0) <= 0.05  # the samples around the stop
+        s = smooth_ca(t, z, np.full(t.size, 1e-3), t)
+        assert any(abs(b - 2.0) <= 0.07 for b in s.breaks_s)
+        ratios += list(np.abs(s.value - x)[near] / s.sigma_value[near])
+        assert abs(s.rate[np.searchsorted(t, 2.1 + v_mps / 200.0)]) < 0.02
+        held = smooth_ca(t, z, np.full(t.size, 1e-3), t, breaks=False)
+        held_ratios.append(np.max(np.abs(held.value - x)[near] / held.sigma_value[near]))
+    assert np.mean(np.array(ratios) <= 2.0) >= 0.9
+    assert np.median(held_ratios) > 4.0
+
+
+def test_smooth_motion_gets_no_break():
+    """A smooth sinusoidal motion (no event): no break is placed and the result equals
+    the smoother held to one model."""
+    rng = np.random.default_rng(11)
+    t = np.arange(0.0, 6.0, 1 / 30)
+    z = 0.5 * np.sin(1.3 * t) + rng.normal(0.0, 1e-3, t.size)
+    s = smooth_ca(t, z, np.full(t.size, 1e-3), t)
+    held = smooth_ca(t, z, np.full(t.size, 1e-3), t, breaks=False)
+    assert s.breaks_s == ()
+    np.testing.assert_allclose(s.value, held.value, atol=1e-12)

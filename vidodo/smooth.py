@@ -279,8 +279,13 @@ def smooth_ca_signals(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None,
             q_best, r_best = _grid_ml(tz, qs, rs, priors, jump_m)
             jump_m = find_breaks(*tz, q_best, r_best, prior_rate=prior_rate,
                                  prior_accel=prior_accel)
+    # a break before measurement m is released right after measurement m - 1, so that
+    # output times between the two already see it
     jump = np.zeros((t.size, n_sig), bool)
-    jump[meas] = jump_m
+    pos_m = np.flatnonzero(meas)
+    rows = np.flatnonzero(jump_m.any(axis=1))
+    for r in rows:
+        jump[pos_m[r - 1] + 1 if r > 0 else pos_m[r]] |= jump_m[r]
     _, nis, nu, xs, Ps = _run(t, zz, vv, meas, q_best, r_best, prior_rate, prior_accel,
                               smooth=True, jump=jump)
     where = np.empty(order.size, dtype=int)
