@@ -58,12 +58,18 @@ def main(argv=None):
     args = ap.parse_args(argv)
     lo, _, hi = args.seeds.partition("-")
     seeds = range(int(lo), int(hi or lo) + 1)
-    rows = []
+    rows, clocks = [], []
     for seed in seeds:
         run = rendered(args.scenario, seed, **{"video.width_px": 960, "video.height_px": 540})
         g = grade_run(run / "video.mp4", run / "log.csv", run / "robot.toml",
                       run / "field.toml", run / "camera.toml")
         t = _true_grade(run, g)
+        clk = json.loads((run / "truth" / "meta.json").read_text())["log_clock"]
+        tl = float(np.median(g.odometry[next(iter(g.odometry))]["t_s"]))  # video times
+        tl_log = g.clock.to_log(tl) if hasattr(g.clock, "to_log") else tl - g.clock.offset_s
+        true_v = tl_log / (1.0 + float(clk.get("rate_error", 0.0))) + float(clk["offset_s"])
+        clocks.append((float(g.clock.to_video(np.array([tl_log]))[0]) - true_v,
+                       g.clock.sigma_s))
         for name, m in g.metrics.items():
             if name not in t.metrics:
                 continue
@@ -84,6 +90,12 @@ def main(argv=None):
         print(f"  {f:24s} {100 * np.mean(d.ratio <= 2):5.1f} %  median {d.ratio.median():.2f}"
               f"  (n = {len(d)})")
     print(f"  {'all figures':24s} {100 * np.mean(df.ratio <= 2):5.1f} %")
+    ck = [(e, s) for e, s in clocks if s]
+    if ck:
+        r = np.array([abs(e) / s for e, s in ck])
+        print(f"  {'clock offset':24s} {100 * np.mean(r <= 2):5.1f} %  median {np.median(r):.2f}"
+              f"  (n = {len(r)}; errors {', '.join(f'{1e3 * e:+.2f}' for e, _ in ck)} ms, "
+              f"sigmas {', '.join(f'{1e3 * s:.2f}' for _, s in ck)} ms)")
 
 
 if __name__ == "__main__":

@@ -61,6 +61,8 @@ def evaluate(run):
     t_stop = float(t[after[0]]) if after.size else float(imp.t_start_s)
     near = (np.abs(t - imp.t_start_s) < 0.25) | (np.abs(t - t_stop) < 0.25) \
         | (np.abs(t - imp.t_end_s) < 0.25)
+    at = (np.abs(t - imp.t_start_s) <= 0.05) | (np.abs(t - t_stop) <= 0.05) \
+        | (np.abs(t - imp.t_end_s) <= 0.05)  # the samples at the event's instants
     out = {}
     for breaks in (True, False):
         tr = _track(run, breaks)
@@ -70,6 +72,7 @@ def evaluate(run):
         k = near & ok
         j = int(np.searchsorted(t, t_stop + 0.1))
         out[breaks] = {
+            "at": float(np.max(ratio[at & ok])),
             "ratio": float(np.max(ratio[k])),
             "err_mm": 1000 * float(np.max(e[k])),
             "speed": float(tr.speed_mps.iloc[j]),
@@ -84,8 +87,10 @@ def main(argv=None):
     ap.add_argument("--speeds", default="0.3,0.8,1.5")
     ap.add_argument("--decels", default="15,150")
     args = ap.parse_args(argv)
-    print("speed  decel  | with breaks: max err/sigma, max err, speed 0.1 s after stop, "
-          "RMS elsewhere, all within 2 sigma | without breaks: the same")
+    print("speed (at hit) decel | with breaks: err/sigma at the event's samples (+-0.05 s "
+          "of onset, stop, restart), max err/sigma and max err within +-0.25 s, speed "
+          "0.1 s after the stop, RMS elsewhere, all samples within 2 sigma | without "
+          "breaks: the same")
     worst = 0.0
     for v in (float(x) for x in args.speeds.split(",")):
         for a in (float(x) for x in args.decels.split(",")):
@@ -94,15 +99,15 @@ def main(argv=None):
                                                 "video.width_px": 960,
                                                 "video.height_px": 540})
             r, _t_stop, v_hit = evaluate(run)
-            worst = max(worst, r[True]["ratio"])
+            worst = max(worst, r[True]["at"])
             cells = []
             for b in (True, False):
                 x = r[b]
-                cells.append(f"{x['ratio']:5.2f} sigma {x['err_mm']:5.2f} mm "
+                cells.append(f"{x['at']:5.2f} sigma, {x['ratio']:5.2f} sigma {x['err_mm']:5.2f} mm "
                              f"{x['speed']:+.3f} m/s {x['rms_else_mm']:.2f} mm "
                              f"{100 * x['within2']:.1f}%")
             print(f"{v:4.1f} ({v_hit:.2f}) {a:5.0f} | " + " | ".join(cells))
-    print(f"\nworst error at an event with breaks: {worst:.2f} sigma (target <= 2)")
+    print(f"\nworst error at an event's samples with breaks: {worst:.2f} sigma (target <= 2)")
 
 
 if __name__ == "__main__":
