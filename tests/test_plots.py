@@ -240,3 +240,19 @@ def test_write_plots_and_write_report(tmp_path):
         if p.suffix == ".png":
             assert p.read_bytes().startswith(b"\x89PNG\r\n\x1a\n")
             assert p.stat().st_size > 10_000
+
+
+def test_field_map_legend_stays_inside_the_figure():
+    """A legend right of the axes with long source names and every event kind is drawn
+    wholly inside the figure (it was cut at the right edge; checked on the rendered
+    canvas with matplotlib's own window extents)."""
+    drift, events, _ = synthetic_grade()
+    long = {c: c.replace("drive", "drive_with_a_rather_long_source_name")
+            for c in drift.columns}
+    fig = plots.field_map_figure(drift.rename(columns=long), events, field=FIELD)
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    leg = fig.axes[0].get_legend().get_window_extent(renderer)
+    assert leg.x1 <= fig.bbox.x1 + 0.5
+    ax = fig.axes[0].get_window_extent(renderer)
+    assert ax.x1 < leg.x0  # the axes keep clear of it

@@ -32,9 +32,9 @@ Method
 4. *Uncertainty*: ``sigma_s`` is the larger of the residual's curvature at its minimum
    (scaled by the reduced chi-square so model errors widen it, common practice in
    weighted least squares) and the delete-one-window jackknife of the offset, which
-   also sees the truth errors' correlation over neighbouring frames. ``confidence`` is the normalised correlation at the coarse
-   peak, reduced when another peak more than 0.5 s away is nearly as high (periodic
-   motion makes the offset ambiguous).
+   also sees the truth errors' correlation over neighbouring frames. ``confidence`` is
+   the normalised correlation at the coarse peak, reduced when another peak more than
+   0.5 s away is nearly as high (periodic motion makes the offset ambiguous).
 
 Too little motion (the robot stands still, or only moves for a moment) raises
 :class:`~vidodo.errors.SyncError` with what to do (pass a manual offset).

@@ -260,10 +260,27 @@ def field_map_figure(drift: pd.DataFrame, events: pd.DataFrame | None = None, *,
         ax.text(0.99, 0.01, "no field profile: tile grid not drawn", transform=ax.transAxes,
                 ha="right", va="bottom", fontsize=8, color="#616161")
     ax.set_title(title or "Field map (top view, to scale)")
-    ax.legend(handles, labels, loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8,
-              frameon=False)
-    fig.tight_layout()
+    leg = ax.legend(handles, labels, loc="upper left", bbox_to_anchor=(1.01, 1.0),
+                    fontsize=8, frameon=False)
+    _fit_outside_legend(fig, leg)
     return fig
+
+
+def _fit_outside_legend(fig: Figure, legend) -> None:
+    """Lay the figure out so a legend placed right of the axes stays inside it.
+
+    ``tight_layout`` leaves a legend anchored outside the axes out of its sums, so long
+    source names were cut at the right edge; the legend's drawn width is measured and
+    the figure widened by it, the axes kept to the rest.
+    """
+    fig.tight_layout()
+    renderer = fig.canvas.get_renderer()
+    box = legend.get_window_extent(renderer)
+    over_in = (box.x1 - fig.bbox.x1) / fig.dpi
+    if over_in > 0:
+        w, h = fig.get_size_inches()
+        fig.set_size_inches(w + over_in + 0.15, h)
+        fig.tight_layout(rect=(0.0, 0.0, w / (w + over_in + 0.15), 1.0))
 
 
 def _field_patch(gx, gy, k):
@@ -347,10 +364,10 @@ def speed_figure(drift: pd.DataFrame, events: pd.DataFrame | None = None, *, sou
     ax.set_ylim(bottom=0.0)
     ax.grid(True, lw=0.3, alpha=0.6)
     handles, _ = ax.get_legend_handles_labels()
-    ax.legend(handles=handles + _event_legend(windows), fontsize=8, loc="upper left",
-              bbox_to_anchor=(1.01, 1.0), frameon=False)
+    leg = ax.legend(handles=handles + _event_legend(windows), fontsize=8, loc="upper left",
+                    bbox_to_anchor=(1.01, 1.0), frameon=False)
     ax.set_title(title or "Speed: truth against wheels")
-    fig.tight_layout()
+    _fit_outside_legend(fig, leg)
     return fig
 
 
