@@ -446,10 +446,10 @@ def test_small_marker_warning():
 
 
 # ------------------------------------------------------------ through a video file
-def _encode(frames, path, fps=30):
+def _encode(frames, path, fps=30, codec=("-c:v", "libx264", "-crf", "12")):
     proc = subprocess.Popen(
         ["ffmpeg", "-loglevel", "error", "-y", "-f", "rawvideo", "-pix_fmt", "bgr24",
-         "-s", f"{W}x{H}", "-r", str(fps), "-i", "-", "-c:v", "libx264", "-crf", "12",
+         "-s", f"{W}x{H}", "-r", str(fps), "-i", "-", *codec,
          "-pix_fmt", "yuv420p", "-movflags", "+faststart", str(path)],
         stdin=subprocess.PIPE,
     )
@@ -481,6 +481,26 @@ def test_track_video_and_truncated_file(tmp_path):
     part = info.value.partial
     assert part is not None and 10 < len(part.track) < 60
     assert part.track.detected.mean() > 0.9
+
+
+@pytest.mark.skipif(shutil.which("ffmpeg") is None, reason="needs ffmpeg")
+def test_still_robot_in_hevc_is_tracked_in_every_frame(tmp_path):
+    """A still robot in an HEVC clip decodes to bit-identical frames, each with its own
+    timestamp (ffprobe lists 40): every one is a frame of the track, detected, and
+    none is reported as a duplicate or left as a gap at the end (issue 15: 35-40
+    dropped, the last 5 an untracked gap)."""
+    _t, _truth, frames = _sequence((TAG,), n=1)
+    still = frames[0][2]
+    video = tmp_path / "still.mp4"
+    _encode([(i, i / 30, still) for i in range(40)], video,
+            codec=("-c:v", "libx265", "-x265-params", "log-level=error", "-crf", "18"))
+    robot = _robot([TAG])
+    cam = SimpleNamespace(readout_s=0.0, width_px=W, height_px=H)
+    res = track_video(video, robot, FIELD, cam, registrar=StandInRegistrar())
+    assert len(res.track) == 40 and res.track.detected.all()
+    assert res.quality["duplicated_frames"] == []
+    assert res.quality["repeated_images_skipped"] == 0
+    assert not res.quality["long_gaps"]
 
 
 # ------------------------------------------------------------- on a rendered run

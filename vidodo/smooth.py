@@ -403,6 +403,7 @@ def _flagged_starts(flags):
 def _lag1(u):
     """Lag-1 autocorrelation of a sequence (0 when too short) [-]."""
     u = u[np.isfinite(u)]
-    if u.size < 3:
+    den = float(np.sum(u * u))
+    if u.size < 3 or den <= 0.0:
         return 0.0
-    return float(np.sum(u[:-1] * u[1:]) / np.sum(u * u))
+    return float(np.sum(u[:-1] * u[1:]) / den)
