@@ -113,7 +113,7 @@ def _cell(key: str, v, kind: str, unit: str) -> str:
 def _cell_pm(key: str, m: dict, figure: str, kind: str, unit: str) -> str:
     """A figure's cell with its 1-sigma after a plus-minus sign when the summary has it
     (``<figure>_sigma_<unit>``, :func:`vidodo.metrics.sigma_key`)."""
-    from .metrics import sigma_key
+    from ..metrics import sigma_key
 
     v = m.get(figure)
     sig = m.get(sigma_key(figure)) if figure.count("_") else None
