@@ -29,7 +29,7 @@ from _runs import rendered  # noqa: E402
 
 from vidodo.drift_sigma import FIGURES  # noqa: E402
 from vidodo.logs import read_log  # noqa: E402
-from vidodo.pipeline import grade_run, grade_tracks  # noqa: E402
+from vidodo.pipeline import GradeSettings, grade_run, grade_tracks  # noqa: E402
 from vidodo.profiles import load_robot  # noqa: E402
 
 
@@ -48,7 +48,8 @@ def _true_grade(run, graded):
     off, rate = float(clk["offset_s"]), float(clk.get("rate_error", 0.0))
     shifted = log.frame.copy()
     shifted["t_s"] = shifted["t_s"] / (1.0 + rate)
-    return grade_tracks(tr, replace(log, frame=shifted), robot, clock_offset_s=off)
+    return grade_tracks(tr, replace(log, frame=shifted), robot,
+                        GradeSettings(clock_offset_s=off))
 
 
 def main(argv=None):

@@ -30,7 +30,7 @@ from _runs import rendered  # noqa: E402
 
 from vidodo import smooth  # noqa: E402
 from vidodo.profiles import load_camera, load_field, load_robot  # noqa: E402
-from vidodo.register import FloorRegistrar  # noqa: E402
+from vidodo.registration.registrar import FloorRegistrar  # noqa: E402
 from vidodo.track import track_video  # noqa: E402
 
 

@@ -126,3 +126,10 @@ def test_report_with_robot_picture_loads_clean_in_a_browser(browser, tmp_path): 
     widths = browser.execute_script(
         "return [...document.images].map(i => [i.complete, i.naturalWidth, i.alt]);")
     assert len(widths) == 4 and all(c and w > 0 for c, w, _ in widths)
+
+
+def test_wheel_label_states_the_gear_ratio_direction():
+    """The gear ratio is encoder turns per wheel turn (robot profile key gear_ratio);
+    the picture says so beside the number."""
+    w = Wheel("d", "d", 0.0, 0.15, 0.0, 0.045, 28, gear_ratio=19.2)
+    assert "gear 19.2 enc. turns/wheel turn" in _wheel_glyph(w).label

@@ -113,7 +113,8 @@ def _wheel_glyph(w) -> WheelGlyph:
     label = (f"{w.name} ({kind})\nx {w.x_m * 1000:+.0f} y {w.y_m * 1000:+.0f} mm, "
              f"dir {math.degrees(w.direction_rad):.0f}\u00b0\nroller "
              f"{math.degrees(w.roller_rad):+.0f}\u00b0, sign {w.sign:+d}, "
-             f"r {w.radius_m * 1000:.1f} mm")
+             f"r {w.radius_m * 1000:.1f} mm\n{w.ticks_per_rev:g} counts/enc. turn, "
+             f"gear {w.gear_ratio:g} enc. turns/wheel turn")
     return WheelGlyph(
         name=w.name, powered=w.powered, centre=tuple(body_to_page(p)),
         counts_up=tuple(body_to_page(d * w.sign)), blind=tuple(body_to_page(blind)),
@@ -274,7 +275,8 @@ def robot_figure(robot: RobotProfile, *, title: str = "") -> Figure:
                  fontsize=10)
     fig.text(0.01, 0.01, "arrow: direction in which the wheel's counts rise (rolling "
              "direction x sign); dashed: motion the wheel cannot sense (free rollers); "
-             "dotted: tracking-wheel lever arm", fontsize=6.5, color="#424242")
+             "dotted: tracking-wheel lever arm; gear = encoder turns per wheel turn",
+             fontsize=6.5, color="#424242")
     fig.tight_layout(rect=(0, 0.03, 1, 1))
     return fig
 
