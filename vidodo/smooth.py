@@ -52,6 +52,9 @@ BREAK_MAX_STEPS = 4
 """Longest change tried as one break, in steps between samples (a stall from 1.5 m/s at
 15 m/s^2 takes 0.1 s: three frames at 30 fps, touching up to four steps)."""
 
+BREAK_ROUNDS = 4
+"""Rounds of the break search (each may add one break per flagged stretch)."""
+
 BREAK_FLAG = 3.0
 """A window sum of normalised innovations beyond this many sigma flags a candidate."""
 
@@ -324,17 +327,16 @@ def _grid_ml(tz, qs, rs, priors, jump_m):
     return gq[best], gr[best]
 
 
-def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0,
-                max_rounds=4, min_gain=BREAK_MIN_GAIN):
+def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0):
     """Instants where each signal's constant-acceleration model must break.
 
     The forward filter's normalised innovations are summed over :data:`BREAK_WINDOW`
     samples; a sum beyond :data:`BREAK_FLAG` sigma flags a manoeuvre. Around the start
     of each flagged stretch every instant is tried as a break (rate and acceleration
     released, see :func:`_run`); the one of highest likelihood is kept if it gains more
-    than ``min_gain``; a change spread over two steps (a stall that takes a frame or
+    than :data:`BREAK_MIN_GAIN`; a change spread over two steps (a stall that takes a frame or
     two) is tried as a break in each of its steps (up to :data:`BREAK_MAX_STEPS`).
-    Repeated until nothing is gained (at most ``max_rounds``).
+    Repeated until nothing is gained (at most :data:`BREAK_ROUNDS` times).
 
     Parameters
     ----------
@@ -356,7 +358,7 @@ def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0,
     jump = np.zeros((m, n_sig), bool)
     ll, _, nu, _, _ = _run(t_s, z, var_z, ones, q, r_scale, prior_rate, prior_accel,
                            smooth=False, jump=jump)
-    for _round in range(max_rounds):
+    for _round in range(BREAK_ROUNDS):
         cols = []  # (signal, stretch, position)
         for s in range(n_sig):
             u = np.nan_to_num(nu[:, s])
@@ -380,7 +382,7 @@ def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0,
         best: dict = {}
         for c, gval in zip(cols, gain, strict=True):
             key = c[:2]
-            if gval > min_gain and gval > best.get(key, (-np.inf, 0))[0]:
+            if gval > BREAK_MIN_GAIN and gval > best.get(key, (-np.inf, 0))[0]:
                 best[key] = (gval, c[2])
         if not best:
             break
