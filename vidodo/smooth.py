@@ -294,19 +294,49 @@ def smooth_ca_signals(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None,
     where = np.empty(order.size, dtype=int)
     where[order] = np.arange(order.size)
     out_pos = where[tm.size:]
+    extra = _break_instant_variance(t, meas, jump_m, xs)
     out = []
     for s in range(n_sig):
         x = xs[out_pos, s]
         P = Ps[out_pos, s]
         out.append(SmoothedSignal(
             value=x[:, 0], rate=x[:, 1], accel=x[:, 2],
-            sigma_value=np.sqrt(np.maximum(P[:, 0, 0], 0.0)),
+            sigma_value=np.sqrt(np.maximum(P[:, 0, 0], 0.0) + extra[out_pos, s]),
             sigma_rate=np.sqrt(np.maximum(P[:, 1, 1], 0.0)),
             q=float(q_best[s]), r_scale=float(r_best[s]), nis_mean=float(nis[s]) / tm.size,
             innovation_lag1=_lag1(nu[meas, s]),
             breaks_s=tuple(float(v) for v in t[meas][jump_m[:, s]]),
         ))
     return out
+
+
+def _break_instant_variance(t, meas, jump_m, xs):
+    """Variance from not knowing when, within a break's step, the change happened.
+
+    Between the measurements at t_k and t_k+1 the smoother moves linearly, but a rate
+    change of dv at an unknown instant (uniform in the step) leaves the true value off
+    that line by ``dv dt (min(s, u) - u s)`` at ``s = (t - t_k) / dt``; its mean square
+    over the instant is ``dv^2 dt^2 s^2 (1 - s)^2 / 3`` (integrating over u, s
+    fixed). Added at the events inside a break's step; zero at the measurements.
+
+    Returns
+    -------
+    ndarray (T, S)
+        Extra variance per merged event and signal [unit^2].
+    """
+    extra = np.zeros((t.size, jump_m.shape[1]))
+    pos = np.flatnonzero(meas)
+    for r, s in zip(*np.nonzero(jump_m), strict=True):
+        if r == 0:
+            continue
+        a, b = pos[r - 1], pos[r]
+        dt = t[b] - t[a]
+        if b - a < 2 or dt <= 0:
+            continue
+        dv = xs[b, s, 1] - xs[a, s, 1]
+        u = (t[a + 1:b] - t[a]) / dt
+        extra[a + 1:b, s] += dv**2 * dt**2 * u**2 * (1.0 - u) ** 2 / 3.0
+    return extra
 
 
 def _grid_ml(tz, qs, rs, priors, jump_m):
