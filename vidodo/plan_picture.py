@@ -94,7 +94,7 @@ def plan_of_grade(summary: dict, folder, out_dir) -> dict[str, Path]:
     from .errors import VidodoError
     from .planner import CameraView, PlanSettings, plan_map
     from .profiles import load_camera, load_field, load_robot
-    from .register import FloorRegistrar
+    from .registration.registrar import FloorRegistrar
 
     inputs = summary.get("inputs") or {}
     quality = summary.get("truth") or {}

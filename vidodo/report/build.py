@@ -214,7 +214,7 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
     pngs = write_plots(data.drift, data.events, out_dir, field=data.field,
                        sources=data.sources, unit=units, title=title)
     pngs.update(robot_picture(data.summary, data.folder, out_dir))
-    from .plan_picture import plan_of_grade
+    from ..plan_picture import plan_of_grade
 
     pngs.update(plan_of_grade(data.summary, data.folder, out_dir))
     written = list(pngs.values())
