@@ -177,3 +177,21 @@ def test_preflight_verb(rendered_run, tmp_path, capsys):
     out = capsys.readouterr().out
     assert "[FAIL] encoder directions" in out
     assert "sign of wheel 'left' is backwards: set sign = 1" in out
+
+
+def test_refused_registration_is_a_failed_check(monkeypatch):
+    """The registrar's self-check refusal (errors.RegistrationRefused) becomes a failed
+    checklist line with what to do, never a crash."""
+    from vidodo import preflight_video
+    from vidodo.errors import RegistrationRefused
+    from vidodo.profiles import FieldProfile
+    from vidodo.registration import registrar
+
+    def refuse(self, frame, t_s, mask=None):
+        raise RegistrationRefused("the floor could not be registered reliably: test", None)
+
+    monkeypatch.setattr(registrar.FloorRegistrar, "register", refuse)
+    frames = [(0.0, np.zeros((360, 640, 3), np.uint8))]
+    reg, check = preflight_video._register(frames, FieldProfile(6, 6, 0.6096), None)
+    assert reg is None and check.status == "fail"
+    assert "registered reliably" in check.detail and check.todo

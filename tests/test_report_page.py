@@ -238,7 +238,7 @@ def test_report_of_a_real_grade(browser, rendered_run, tmp_path):
     out = tmp_path / "grade"
     written = write_report(result, out, replay=True, units="mm")
     assert {p.name for p in written} == {"field_map.png", "error_vs_time.png", "speed.png",
-                                         "robot.png",
+                                         "robot.png", "plan.png",
                                          "replay.mp4", "report.html"}
     console, requests = _open(browser, out / "report.html")
     assert [e for e in console if e["level"] in ("SEVERE", "ERROR")] == []

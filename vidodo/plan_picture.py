@@ -77,3 +77,63 @@ def write_plan_png(plan: PlanMap, fld, marker, path, *, title: str = "") -> Path
     from .report.plots import save_figure
 
     return save_figure(plan_figure(plan, fld, marker, title=title), path)
+
+
+def plan_of_grade(summary: dict, folder, out_dir) -> dict[str, Path]:
+    """``{'plan': plan.png}``: the planner's map for the camera of a graded run.
+
+    The camera's pose and lens come from registering the footage's first frame
+    (``summary.inputs.video``, ``field``, ``camera``), the corner noise and the
+    registration's size from the track's quality in the summary. Empty when any of
+    these cannot be had (the report is written without the map).
+    """
+    import math
+
+    import cv2
+
+    from .errors import VidodoError
+    from .planner import CameraView, PlanSettings, plan_map
+    from .profiles import load_camera, load_field, load_robot
+    from .registration.registrar import FloorRegistrar
+
+    inputs = summary.get("inputs") or {}
+    quality = summary.get("truth") or {}
+    sigma_px = quality.get("corner_sigma_px")
+
+    def path(key):
+        p = inputs.get(key)
+        if not isinstance(p, str) or not p:
+            return None
+        for cand in (Path(p), Path(folder) / p if folder is not None else None):
+            if cand is not None and cand.is_file():
+                return cand
+        return None
+
+    video, robot_p, field_p = path("video"), path("robot"), path("field")
+    if None in (video, robot_p, field_p) or not isinstance(sigma_px, int | float) \
+            or not math.isfinite(sigma_px) or sigma_px <= 0:
+        return {}
+    try:
+        robot, fld = load_robot(robot_p), load_field(field_p)
+        camera = load_camera(path("camera")) if path("camera") else None
+        cap = cv2.VideoCapture(str(video))
+        ok, frame = cap.read()
+        cap.release()
+        if not ok or not robot.markers:
+            return {}
+        reg = FloorRegistrar(fld, camera).register(frame, 0.0)
+    except (VidodoError, cv2.error, OSError):
+        return {}
+    if not reg.ok:
+        return {}
+    h, w = frame.shape[:2]
+    view = CameraView(np.asarray(reg.camera_matrix, float), np.asarray(reg.dist_coeffs, float),
+                      np.asarray(reg.rvec, float).ravel(), np.asarray(reg.tvec, float).ravel(),
+                      w, h)
+    settings = PlanSettings(sigma_corner_px=float(sigma_px), registration_px=reg.rms_px,
+                            registration_points=reg.n_points,
+                            margin_m=min(robot.length_m, robot.width_m) / 2)
+    plan = plan_map(fld, robot.markers[0], view, settings)
+    return {"plan": write_plan_png(plan, fld, robot.markers[0], Path(out_dir) / "plan.png",
+                                   title=f"this run's camera: expected 1-sigma (corner noise "
+                                         f"{sigma_px:.2f} px) and marker cell size")}

@@ -118,12 +118,18 @@ def _check_marker(frames, robot, fld) -> Check:
 
 
 def _register(frames, fld, camera):
+    from .errors import RegistrationRefused
     from .registration.registrar import FloorRegistrar
 
     registrar = FloorRegistrar(fld, camera)
     reg = None
     for t, frame in frames[:: max(1, len(frames) // 3)][:3]:
-        reg = registrar.register(frame, t)
+        try:
+            reg = registrar.register(frame, t)
+        except RegistrationRefused as exc:  # its self-check says it may be wrong
+            return None, Check("floor registration", "fail", str(exc),
+                               "keep the whole field in view and sharp, film at 1080p; or "
+                               "give tile corners (vidodo pick) or floor fiducials")
         if reg.ok:
             return reg, Check("floor registration", "pass",
                               f"{reg.method}: {reg.rms_px:.2f} px RMS on {reg.n_points} "

@@ -26,6 +26,8 @@ PLOT_CAPTIONS = {
     "error_vs_time": "Anchored drift over time per source (solid: distance, dashed: "
                      "along-track, dotted: cross-track); event windows shaded",
     "speed": "Ground speed of the truth track against each odometry source",
+    "plan": "This run's camera placement: expected 1-sigma position error and marker "
+            "cell size over the field (vidodo plan's model, this run's corner noise)",
     "robot": "The robot profile used, from above to scale (front up): wheels, count "
              "directions, rollers, tracking-wheel lever arms, markers",
 }
@@ -194,8 +196,9 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
     Returns
     -------
     list of Path
-        The files written: three PNGs (four with ``robot.png`` when the robot
-        profile named in the summary can be read), ``report.html`` and, if asked, ``replay.mp4``.
+        The files written: three PNGs (plus ``robot.png`` when the robot profile
+        named in the summary can be read, and ``plan.png`` when also the footage and
+        field can), ``report.html`` and, if asked, ``replay.mp4``.
 
     Raises
     ------
@@ -211,6 +214,9 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
     pngs = write_plots(data.drift, data.events, out_dir, field=data.field,
                        sources=data.sources, unit=units, title=title)
     pngs.update(robot_picture(data.summary, data.folder, out_dir))
+    from ..plan_picture import plan_of_grade
+
+    pngs.update(plan_of_grade(data.summary, data.folder, out_dir))
     written = list(pngs.values())
     extra = []
     failure = None
