@@ -61,7 +61,7 @@ def main(argv=None):
     seeds = range(int(lo), int(hi or lo) + 1)
     rows, clocks = [], []
     for seed in seeds:
-        run = rendered(args.scenario, seed, **{"video.width_px": 960, "video.height_px": 540})
+        run = rendered(args.scenario, seed)
         g = grade_run(run / "video.mp4", run / "log.csv", run / "robot.toml",
                       run / "field.toml", run / "camera.toml")
         t = _true_grade(run, g)

@@ -95,9 +95,7 @@ def main(argv=None):
     for v in (float(x) for x in args.speeds.split(",")):
         for a in (float(x) for x in args.decels.split(",")):
             run = rendered("tank-tripod", 0, **{"path.max_speed_mps": v,
-                                                "fault.0.decel_mps2": a,
-                                                "video.width_px": 960,
-                                                "video.height_px": 540})
+                                                "fault.0.decel_mps2": a})
             r, _t_stop, v_hit = evaluate(run)
             worst = max(worst, r[True]["at"])
             cells = []
