@@ -39,6 +39,7 @@ from dataclasses import replace  # noqa: E402
 
 from _runs import rendered  # noqa: E402
 
+from vidodo.errors import RegistrationRefused  # noqa: E402
 from vidodo.planner import (  # noqa: E402
     CameraView,
     PlanSettings,
@@ -155,8 +156,14 @@ def main(argv=None):
     ratios, track_ratios, failed = [], [], 0
     for i in (int(v) for v in args.placements.split(",")):
         seeds = [int(v) for v in args.seeds.split(",")]
-        g, sigma_px, wall, (robot, fld, view) = evaluate(i, seeds, args.min_samples, settings)
         (x, y, z), _, hfov = PLACEMENTS[i]
+        try:
+            g, sigma_px, wall, (robot, fld, view) = evaluate(i, seeds, args.min_samples,
+                                                             settings)
+        except RegistrationRefused as exc:
+            print(f"placement {i}: camera ({x:.2f}, {y:.2f}, {z:.2f}) m: not tracked, the "
+                  f"registration refused ({str(exc)[:90]}...)")
+            continue
         r = g["ratio"].to_numpy()
         bad = int(np.sum((r > FACTOR) | (r < 1 / FACTOR)))
         failed += bad

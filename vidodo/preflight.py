@@ -37,7 +37,7 @@ COUNTER_WIDTHS = (8, 16, 24, 32)
 class PreflightSettings:
     """How much of the video the pre-flight check reads."""
 
-    first_s: float = 4.0
+    first_s: float = 3.0
     """Seconds of video read from its start [s]."""
     frame_step: int = 3
     """Look at every this many frames."""

@@ -75,8 +75,11 @@ def _detector(family):
                                    cv2.aruco.DetectorParameters())
 
 
-def find_markers(frames, family) -> dict[int, int]:
-    """``{id: frames seen in}`` for markers of one dictionary."""
+def find_markers(frames, family, *, wanted=None, enough=5) -> dict[int, int]:
+    """``{id: frames seen in}`` for markers of one dictionary.
+
+    Stops early once the id ``wanted`` has been seen in ``enough`` frames.
+    """
     det = _detector(family)
     seen: dict[int, int] = {}
     for _, frame in frames:
@@ -84,6 +87,8 @@ def find_markers(frames, family) -> dict[int, int]:
         _, ids, _ = det.detectMarkers(gray)
         for i in ([] if ids is None else ids.ravel().tolist()):
             seen[int(i)] = seen.get(int(i), 0) + 1
+        if wanted is not None and seen.get(wanted, 0) >= enough:
+            break
     return seen
 
 
@@ -91,10 +96,10 @@ def _check_marker(frames, robot, fld) -> Check:
     floor_ids = {(m.family, m.id) for m in fld.floor_markers}
     found_all = []
     for m in robot.markers:
-        seen = {i: n for i, n in find_markers(frames, m.family).items()
+        seen = {i: n for i, n in find_markers(frames, m.family, wanted=m.id).items()
                 if (m.family, i) not in floor_ids}
         if m.id in seen:
-            found_all.append(f"{m.family} id {m.id} in {seen[m.id]} of {len(frames)} frames")
+            found_all.append(f"{m.family} id {m.id} found (in {seen[m.id]} frames looked at)")
             continue
         if seen:
             other = max(seen, key=seen.get)

@@ -23,8 +23,8 @@ def add_arguments(parser):
     parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
     parser.add_argument("--video", type=Path, default=None, help="the run's video")
     parser.add_argument("--camera", type=Path, default=None, help="camera profile (TOML)")
-    parser.add_argument("--first-s", type=float, default=4.0,
-                        help="seconds of video to look at (default 4)")
+    parser.add_argument("--first-s", type=float, default=3.0,
+                        help="seconds of video to look at (default 3)")
 
 
 def checklist_lines(result) -> list[str]:
