@@ -6,7 +6,9 @@ is rendered as one still picture (PNG, JPEG or a one-frame H.264 clip) with its
 whose user has one, the true lens as ``camera.toml``. The floor is then registered as a
 user would: ``vidodo register PICTURE --field field.toml [--camera camera.toml]``, run
 in-process through ``vidodo.cli_main.main``; the reference registration it makes is
-recorded on the side (a wrapper around ``FloorRegistrar.register_reference``) to score it.
+recorded on the side (a wrapper around ``FloorRegistrar.register_reference``, from
+``vidodo.registration.registrar`` or, before the rework, ``vidodo.register``) to score
+it.
 
 Classes:
 
@@ -14,7 +16,7 @@ Classes:
   true pixel mapped to the floor with the registration's ``image_to_floor`` and compared
   with its true floor position (fewer than 4 corners in view: floor points seen on a
   32-pixel grid inside the field instead);
-* *refused*: exit 3 (the message is kept in the CSV);
+* *refused*: exit 3, whatever the message (it is kept in the CSV);
 * *wrong*: anything else (exit 0 with a larger error, exit 1, 2 or 4, no registration).
 
 For wrong scenes ``lattice_rms_mm`` is the error left after the best whole-tile shift and
@@ -64,9 +66,13 @@ _CAPTURED: list = []
 
 def _install_spy():
     """Record every reference registration ``vidodo register`` makes (scoring only)."""
-    from vidodo import register
+    import importlib
 
-    cls = register.FloorRegistrar
+    try:  # the registration package (issue 12's rework), else the older module
+        module = importlib.import_module("vidodo.registration.registrar")
+    except ImportError:
+        module = importlib.import_module("vidodo.register")
+    cls = module.FloorRegistrar
     if getattr(cls.register_reference, "_robustness_spy", False):
         return
     original = cls.register_reference
