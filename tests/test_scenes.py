@@ -135,6 +135,17 @@ def test_every_category_occurs_over_the_benchmark_seeds():
         hints[spec.field.origin_hint] += 1
         h = spec.setup.height_m
         assert 0.8 <= h <= 3.0
+        # the lens can be inverted at the picture's corners (OpenCV's undistortPoints,
+        # then projectPoints back onto the same pixels)
+        cam = spec.setup.camera
+        px = np.array([[0, 0], [cam.width_px - 1, 0], [0, cam.height_px - 1],
+                       [cam.width_px - 1, cam.height_px - 1]], float)
+        crit = (cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 100, 1e-12)
+        und = cv2.undistortPoints(px[:, None], cam.matrix, cam.dist_coeffs, None, np.eye(3),
+                                  np.eye(3), crit)[:, 0]
+        back = cv2.projectPoints(np.column_stack([und, np.ones(4)]), np.zeros(3), np.zeros(3),
+                                 cam.matrix, cam.dist_coeffs)[0][:, 0]
+        np.testing.assert_allclose(back, px, atol=0.01, err_msg=f"seed {seed}")
     assert len(scenes.BENCHMARK_SEEDS) >= 200
     for cat in SPEC_CATEGORIES + scenes.VIEW_CATEGORIES:
         assert counts[cat] >= 5, cat

@@ -262,6 +262,17 @@ def look_pose(centre_m, aim_m, roll_rad):
     return cv2.Rodrigues(rot)[0].ravel(), -rot @ c
 
 
+def _radial_invertible(k1, k2, corner_radius):
+    """Whether r (1 + k1 r^2 + k2 r^4) grows with r until it passes the picture corner's
+    normalised radius (a lens a renderer's ray table can invert)."""
+    r = np.linspace(0.0, 3.0 * corner_radius, 3001)
+    rd = r * (1 + k1 * r**2 + k2 * r**4)
+    beyond = np.nonzero(rd > 1.02 * corner_radius)[0]
+    if len(beyond) == 0:
+        return False
+    return bool(np.all(np.diff(rd[: beyond[0] + 1]) > 0))
+
+
 def _camera(rng, size, narrow):
     """Camera placement (side or corner, 0.8-3 m up), lens and resolution."""
     sx, sy = size
@@ -272,7 +283,10 @@ def _camera(rng, size, narrow):
     hfov = rng.uniform(18.0, 30.0) if narrow else rng.uniform(45.0, 80.0)
     f = 0.5 * long_side / math.tan(math.radians(0.5 * hfov))
     k1 = rng.uniform(-0.25, 0.08) if rng.random() < 0.3 else rng.uniform(-0.06, 0.03)
-    dist = (k1, rng.uniform(-0.02, 0.04) * (abs(k1) > 0.1), 0.0, 0.0, 0.0)
+    k2 = rng.uniform(-0.02, 0.04) * (abs(k1) > 0.1)
+    while not _radial_invertible(k1, k2, math.hypot(w, h) / (2 * f)):
+        k1, k2 = 0.5 * k1, 0.5 * k2
+    dist = (k1, k2, 0.0, 0.0, 0.0)
     cam = CameraProfile(w, h, f, f * rng.uniform(0.998, 1.002), 0.5 * (w - 1) +
                         rng.uniform(-0.02, 0.02) * w, 0.5 * (h - 1) + rng.uniform(-0.02, 0.02)
                         * h, tuple(float(d) for d in dist))
