@@ -22,12 +22,13 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from .csvsafe import write_csv
 from .errors import EXIT_MEASURE, EXIT_OK, EXIT_PARTIAL, InputError, VidodoError
-from .outputs import column_prefix
+from .outputs import column_prefix, staged_dir
 from .pipeline import GradeResult, GradeSettings, Tolerances, grade_run
 from .report.build import write_report
 from .report.grade_files import write_outputs
-from .report.plots import trend_figure
+from .report.plots import save_figure, trend_figure
 from .tuning import tune_from_grade
 
 __all__ = ["RUN_FILES", "ROW_FIGURES", "find_runs", "run_name", "grade_run_folder",
@@ -81,15 +82,18 @@ def grade_run_folder(run_dir, out_dir, *, tolerances=None, report=True, replay=T
         raise InputError(f"{run_dir}: missing {', '.join(missing)}; a run folder needs "
                          f"{', '.join(RUN_FILES)}")
     cam = run_dir / "camera.toml"
-    result = grade_run(run_dir / "video.mp4", run_dir / "log.csv", run_dir / "robot.toml",
-                       run_dir / "field.toml", cam if cam.is_file() else None,
-                       settings=GradeSettings(tolerances=tolerances or Tolerances()),
-                       progress=progress)
-    write_outputs(result, out_dir)
-    if tune:
-        tune_from_grade(result, run_dir, out_dir / "tune")
-    if report or replay:
-        write_report(out_dir, out_dir, replay=replay, units=units, progress=progress)
+    # one staged set: grade files, tune folder and pictures appear together or not at all
+    with staged_dir(out_dir, inputs=(run_dir,), command="vidodo grade") as stage:
+        result = grade_run(run_dir / "video.mp4", run_dir / "log.csv",
+                           run_dir / "robot.toml", run_dir / "field.toml",
+                           cam if cam.is_file() else None,
+                           settings=GradeSettings(tolerances=tolerances or Tolerances()),
+                           progress=progress)
+        write_outputs(result, stage)
+        if tune:
+            tune_from_grade(result, run_dir, stage / "tune")
+        if report or replay:
+            write_report(stage, stage, replay=replay, units=units, progress=progress)
     return result
 
 
@@ -148,16 +152,17 @@ def grade_one(run_dir, out_dir, options: dict) -> dict:
     try:
         tol = Tolerances(position_m=options.get("tol_pos_m"),
                          heading_rad=options.get("tol_heading_rad"))
-        result = grade_run_folder(run_dir, out_dir, tolerances=tol, report=False,
-                                  replay=False)
-        summary = result.summary
         warnings = []
-        if options.get("report", True) or options.get("replay", False):
-            try:
-                write_report(out_dir, out_dir, replay=bool(options.get("replay")),
-                           units=options.get("units", "mm"))
-            except VidodoError as exc:  # the grade stands; the pictures are extra
-                warnings.append(f"report not written: {exc}")
+        with staged_dir(out_dir, inputs=(run_dir,), command="vidodo batch") as stage:
+            result = grade_run_folder(run_dir, stage, tolerances=tol, report=False,
+                                      replay=False)
+            summary = result.summary
+            if options.get("report", True) or options.get("replay", False):
+                try:
+                    write_report(stage, stage, replay=bool(options.get("replay")),
+                                 units=options.get("units", "mm"))
+                except VidodoError as exc:  # the grade stands; the pictures are extra
+                    warnings.append(f"report not written: {exc}")
         return {"status": "graded", "exit_code": 4 if summary.get("verdict") == "fail" else 0,
                 "error": "; ".join(warnings), "summary": summary,
                 "seconds": time.perf_counter() - t0}
@@ -226,16 +231,22 @@ def grade_folders(run_dirs, root, out_root, options: dict, *, jobs: int = 1,
                                  mp_context=ctx) as pool:
             futs = {pool.submit(grade_fn, run_dirs[i], Path(out_root) / names[i], options): i
                     for i in indices}
-            for fut in as_completed(futs):
-                i = futs[fut]
-                try:
-                    finish(i, fut.result())
-                except BrokenProcessPool:
-                    lost.append(i)
-                except Exception as exc:  # e.g. a result that cannot be pickled
-                    finish(i, {"status": "failed", "exit_code": 1, "summary": None,
-                               "error": f"internal error: {type(exc).__name__}: {exc}",
-                               "seconds": float("nan")})
+            try:
+                for fut in as_completed(futs):
+                    i = futs[fut]
+                    try:
+                        finish(i, fut.result())
+                    except BrokenProcessPool:
+                        lost.append(i)
+                    except Exception as exc:  # e.g. a result that cannot be pickled
+                        finish(i, {"status": "failed", "exit_code": 1, "summary": None,
+                                   "error": f"internal error: {type(exc).__name__}: {exc}",
+                                   "seconds": float("nan")})
+            except BaseException:  # Ctrl-C, SIGTERM: stop our workers now, not after
+                pool.shutdown(wait=False, cancel_futures=True)
+                for proc in multiprocessing.active_children():
+                    proc.terminate()
+                raise
         return lost
 
     lost = attempt(pending, max(1, min(jobs, len(pending)))) if pending else []
@@ -294,7 +305,7 @@ def write_batch_outputs(records, out_root, *, unit: str = "mm") -> tuple[Path, P
     out_root.mkdir(parents=True, exist_ok=True)
     table = batch_table(records)
     with atomic_file(out_root / TABLE) as tmp:
-        table.to_csv(tmp, index=False, float_format="%.6g")
+        write_csv(table, tmp, float_format="%.6g")
     with atomic_file(out_root / TREND_PNG) as tmp:
-        trend_figure(table, unit=unit).savefig(tmp, format="png")
+        save_figure(trend_figure(table, unit=unit), tmp)
     return out_root / TABLE, out_root / TREND_PNG

@@ -78,3 +78,7 @@ class SyncError(MeasurementError):
 
 class ObservabilityError(InputError):
     """A wheel layout cannot determine part of the body motion."""
+
+
+class Interrupted(KeyboardInterrupt):
+    """SIGTERM or SIGHUP arrived: handled like Ctrl-C (staged outputs removed, exit 130)."""

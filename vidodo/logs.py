@@ -42,11 +42,13 @@ from .profiles import ANGLE_UNITS_RAD, LENGTH_UNITS_M, TIME_UNITS_S, RobotProfil
 from .quadrature import decode_raw
 
 __all__ = ["LogData", "read_log", "log_from_frame", "unwrap_counter", "check_time_unit",
-           "STEP_RANGE_S", "MAX_SPAN_S"]
+           "counter_width_slip", "STEP_RANGE_S", "MAX_SPAN_S", "CHUNK_ROWS"]
 
-STEP_RANGE_S = (2e-5, 60.0)
-"""Plausible median sampling step of a robot log [s] (50 kHz down to one a minute)."""
-MAX_SPAN_S = 2 * 86400.0
+STEP_RANGE_S = (2e-5, 0.5)
+"""Plausible median sampling step of an odometry log [s]: 50 kHz down to 2 Hz (slower
+logging cannot follow a turning robot; common practice). Milliseconds read as seconds
+(or microseconds as milliseconds) give steps of seconds and fall outside."""
+MAX_SPAN_S = 86400.0
 """Longest plausible log [s]."""
 
 _LINES_SHOWN = 5
@@ -80,26 +82,21 @@ def _lines_text(lines) -> str:
 
 
 def _used_columns(robot: RobotProfile) -> list[str]:
-    cols = [robot.time_column]
-    for w in robot.wheels:
-        if w.raw_a_column is not None and w.raw_b_column is not None:
-            cols += [w.raw_a_column, w.raw_b_column]
-        else:
-            cols.append(w.column)
-    if robot.imu is not None:
-        cols.append(robot.imu.column)
-    if robot.pose is not None:
-        cols += [robot.pose.x_column, robot.pose.y_column, robot.pose.heading_column]
-    return list(dict.fromkeys(cols))
+    """The time column and every data column the profile reads, once each."""
+    return list(dict.fromkeys([robot.time_column, *_consumers(robot)]))
 
 
-def _to_numeric(raw: pd.DataFrame, cols, lines, where) -> pd.DataFrame:
-    """Numeric copies of ``cols``; a non-numeric cell raises with its line number."""
+def _to_numeric(raw: pd.DataFrame, cols, lines, where) -> dict:
+    """Numeric arrays of ``cols`` (int64 where every cell is a whole number, else
+    float64 with NaN for blanks); a non-numeric or infinite cell raises with its line."""
     out = {}
     for c in cols:
         s = raw[c]
         if pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
-            out[c] = s
+            arr = s.to_numpy()  # copied, so the parsed chunk is freed
+            arr = np.array(arr, dtype=np.int64 if arr.dtype.kind in "iu" else float)
+            _refuse_infinite(arr, c, lines, where)
+            out[c] = arr
             continue
         text = s.astype("string").str.strip()
         text = text.mask(text == "")
@@ -112,8 +109,63 @@ def _to_numeric(raw: pd.DataFrame, cols, lines, where) -> pd.DataFrame:
                 f"{where}: line {lines[i]}, column '{c}': {text.iloc[i]!r} is not a number; "
                 "fix or blank that cell"
             )
-        out[c] = num.astype(float)
-    return pd.DataFrame(out)
+        out[c] = num.to_numpy(dtype=float, na_value=np.nan)
+        _refuse_infinite(out[c], c, lines, where)
+    return out
+
+
+def _refuse_infinite(arr, column, lines, where) -> None:
+    """An infinite cell (``inf``, or a number beyond the float range) is refused."""
+    if arr.dtype.kind != "f":
+        return
+    inf = np.isinf(arr)
+    if inf.any():
+        i = int(np.flatnonzero(inf)[0])
+        raise InputError(f"{where}: line {lines[i]}, column '{column}': "
+                         f"{float(arr[i])} is not a finite number ({int(inf.sum())} "
+                         "such cell(s)); fix or blank those cells")
+
+
+def counter_width_slip(values, bits: int):
+    """The narrower counter width the logged counts wrap at, if not the declared one.
+
+    A 16-bit counter logged under ``counter_bits = 32`` (or a wrapping counter declared
+    as not wrapping) jumps by nearly +-2^16 (or +-2^32) where it wraps; those jumps
+    minus a whole multiple of the width are ordinary steps.
+
+    Parameters
+    ----------
+    values : ndarray of shape (N,), int64
+        Logged counts in file order.
+    bits : int
+        Declared width (0: never wraps).
+
+    Returns
+    -------
+    tuple or None
+        ``(width_bits, index, jump)``: the width that explains every big jump, the row
+        index after the first such jump and its size; None when nothing points to one.
+    """
+    v = np.asarray(values, dtype=np.int64)
+    if v.size < 21:  # too few steps to tell a wrap from motion
+        return None
+    d = np.diff(v)
+    for b in (8, 16, 24, 32):
+        if bits and b >= bits:
+            break
+        m = np.int64(1) << np.int64(b)
+        big = (d > m // 2) | (d < -(m // 2))  # more than a b-bit counter can step
+        n_big = int(np.count_nonzero(big))
+        if not n_big or n_big > 0.05 * d.size:  # wraps are rare events
+            continue
+        typical = float(np.percentile(np.abs(d[~big]), 99))
+        wraps = np.round(d[big] / float(m)).astype(np.int64)
+        rest = d[big] - wraps * m
+        limit = min(float(m) / 8.0, max(16.0, 8.0 * typical))
+        if np.all(np.abs(wraps) == 1) and np.all(np.abs(rest) <= limit):
+            i = int(np.flatnonzero(big)[0])
+            return b, i + 1, int(d[i])
+    return None
 
 
 def check_time_unit(t_raw, unit: str, *, where="log", column="time") -> None:
@@ -132,11 +184,13 @@ def check_time_unit(t_raw, unit: str, *, where="log", column="time") -> None:
         When the median step leaves :data:`STEP_RANGE_S` or the span exceeds
         :data:`MAX_SPAN_S`, suggesting the unit that fits.
     """
-    t = np.asarray(t_raw, dtype=float)
+    t = np.asarray(t_raw)
     if t.size < 2:
         return
-    step_raw = float(np.median(np.diff(t)))
-    span_raw = float(t[-1] - t[0])
+    step = np.diff(t)
+    step_raw = float(np.median(step, overwrite_input=True))
+    del step
+    span_raw = float(t[-1]) - float(t[0])
 
     def ok(u):
         f = TIME_UNITS_S[u]
@@ -152,6 +206,9 @@ def check_time_unit(t_raw, unit: str, *, where="log", column="time") -> None:
         best = min(fits, key=lambda u: abs(math.log10(step_raw * TIME_UNITS_S[u] / 0.01)))
         hint = f"the data fit time_unit = '{best}' (median step " \
                f"{step_raw * TIME_UNITS_S[best]:.3g} s); set that in the profile's [log] table"
+    elif step_raw * f > STEP_RANGE_S[1] and span_raw * f <= MAX_SPAN_S:
+        hint = (f"odometry needs a sample every {STEP_RANGE_S[1]:g} s or faster; check that "
+                "time_column names the time, or log faster")
     else:
         hint = "no time unit fits; check that time_column names the time"
     raise InputError(f"{where}: column '{column}' read as '{unit}' gives {seen}; {hint}")
@@ -183,14 +240,51 @@ def unwrap_counter(values, bits: int) -> np.ndarray:
     >>> unwrap_counter(np.array([-2, -1, 0, 1]), 16).tolist()
     [-2, -1, 0, 1]
     """
-    v = np.asarray(values).astype(np.int64)
+    v = np.asarray(values).astype(np.int64, copy=False)
+    out = np.empty(v.shape, np.int64)
     if v.size == 0:
-        return v
-    d = np.diff(v)
+        return out
+    out[0] = 0
+    d = out[1:]  # the steps, computed in place (a long log holds one extra array only)
+    np.subtract(v[1:], v[:-1], out=d)
     if 0 < bits < 64:
         half = np.int64(1) << np.int64(bits - 1)
-        d = ((d + half) & ((half << np.int64(1)) - np.int64(1))) - half
-    return v[0] + np.concatenate([[0], np.cumsum(d)]).astype(np.int64)
+        d += half
+        d &= (half << np.int64(1)) - np.int64(1)
+        d -= half
+    np.cumsum(out, out=out)
+    out += v[0]
+    return out
+
+
+def unwrap_inplace(p):
+    """``numpy.unwrap(p)`` (period 2 pi) computed into ``p`` itself, for long arrays.
+
+    Same operations as NumPy's, so the same numbers; holds two extra arrays at most.
+
+    Parameters
+    ----------
+    p : ndarray of shape (N,), float64
+        Angles [rad]; overwritten.
+
+    Returns
+    -------
+    ndarray
+        ``p``, unwrapped.
+    """
+    if p.size < 2:
+        return p
+    d = np.diff(p)
+    dd = d + math.pi
+    np.mod(dd, 2 * math.pi, out=dd)
+    dd -= math.pi
+    dd[(dd == -math.pi) & (d > 0)] = math.pi
+    dd -= d
+    dd[(d < math.pi) & (d > -math.pi)] = 0
+    del d
+    np.cumsum(dd, out=dd)
+    p[1:] += dd
+    return p
 
 
 def _counter_range_check(v, bits, where, column):
@@ -208,6 +302,8 @@ def _counter_range_check(v, bits, where, column):
 
 def _fill(t, v_valid, valid):
     """Values at every row: ``v_valid`` where ``valid``, linear in time between."""
+    if valid.all():
+        return v_valid
     out = np.empty(valid.size, dtype=float)
     out[valid] = v_valid
     if not valid.all():
@@ -215,21 +311,67 @@ def _fill(t, v_valid, valid):
     return out
 
 
-def _read_csv(path, where, sep):
+CHUNK_ROWS = 200_000
+"""Rows parsed at a time: a big log is never held as text and numbers at once."""
+
+
+def _read_csv(path, where, sep, **kw):
     try:
         return pd.read_csv(path, sep=sep, skip_blank_lines=False, skipinitialspace=True,
-                           low_memory=False, encoding_errors="strict")
-    except FileNotFoundError:
-        raise InputError(f"{where}: file not found; check the path") from None
-    except pd.errors.EmptyDataError:
-        raise InputError(f"{where}: the file is empty; give a CSV with a header row") from None
-    except (pd.errors.ParserError, UnicodeDecodeError) as exc:
-        msg = str(exc).strip().splitlines()[0]
-        raise InputError(f"{where}: not a readable CSV ({msg}); save it as plain CSV") from None
+                           encoding_errors="strict", **kw)
+    except Exception as exc:  # noqa: BLE001 - mapped to one-line input errors
+        raise _csv_error(exc, where) from None
+
+
+def _chunks(path, where, sep):
+    """The file's rows, :data:`CHUNK_ROWS` at a time, with read errors as InputError."""
+    reader = _read_csv(path, where, sep, chunksize=CHUNK_ROWS)
+    with reader:
+        while True:
+            try:
+                chunk = next(reader)
+            except StopIteration:
+                return
+            except Exception as exc:  # noqa: BLE001 - mapped to one-line input errors
+                raise _csv_error(exc, where) from None
+            yield chunk
+
+
+def _csv_error(exc, where):
+    """The one-line InputError for an exception raised while reading the CSV."""
+    if isinstance(exc, FileNotFoundError):
+        return InputError(f"{where}: file not found; check the path")
+    if isinstance(exc, IsADirectoryError):
+        return InputError(f"{where}: is a folder; give the log CSV file")
+    if isinstance(exc, pd.errors.EmptyDataError):
+        return InputError(f"{where}: the file is empty; give a CSV with a header row")
+    if isinstance(exc, pd.errors.ParserError | UnicodeDecodeError | ValueError):
+        msg = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        return InputError(f"{where}: not a readable CSV ({msg}); save it as plain CSV")
+    if isinstance(exc, OSError):
+        return InputError(f"{where}: cannot read ({exc.strerror or exc})")
+    return exc
+
+
+def _clean_name(c) -> str:
+    return str(c).strip().lstrip("\ufeff")
+
+
+def _check_columns(columns, used, where):
+    missing = [c for c in used if c not in columns]
+    if missing:
+        raise InputError(
+            f"{where}: column(s) {missing} named in the robot profile are not in the log; "
+            f"columns present: {list(columns)}"
+        )
 
 
 def read_log(path, robot: RobotProfile) -> LogData:
     """Read a robot log CSV as the robot profile describes it.
+
+    The file is parsed :data:`CHUNK_ROWS` rows at a time and only the columns the
+    profile uses are kept, so the peak memory stays under twice the file size
+    (``benchmarks/resources.py``).
 
     Parameters
     ----------
@@ -247,23 +389,90 @@ def read_log(path, robot: RobotProfile) -> LogData:
     Raises
     ------
     InputError
-        Missing file or column, non-numeric cell (with its line number), ambiguous
-        duplicated timestamps, implausible time unit, counter out of range.
+        Missing file or column, non-numeric or infinite cell (with its line number),
+        ambiguous duplicated timestamps, implausible time unit, counter out of range
+        or of another width.
     """
     where = str(path) if isinstance(path, str | Path) else getattr(path, "name", "log")
-    raw = _read_csv(path, where, ",")
-    if len(raw.columns) == 1:  # semicolon- or tab-separated logs
-        head = str(raw.columns[0])
-        sep = max(";\t|", key=head.count)
-        if head.count(sep):
+    head = _read_csv(path, where, ",", nrows=0)
+    sep = ","
+    if len(head.columns) == 1:  # semicolon- or tab-separated logs
+        first = str(head.columns[0])
+        cand = max(";\t|", key=first.count)
+        if first.count(cand):
+            sep = cand
             if hasattr(path, "seek"):
                 path.seek(0)
-            raw = _read_csv(path, where, sep)
-    raw.columns = [str(c).strip().lstrip("\ufeff") for c in raw.columns]
-    log = log_from_frame(raw, robot, where=where,
-                         lines=np.arange(2, len(raw) + 2, dtype=np.int64))
+            head = _read_csv(path, where, sep, nrows=0)
+    used = _used_columns(robot)
+    _check_columns([_clean_name(c) for c in head.columns], used, where)
+    if hasattr(path, "seek"):
+        path.seek(0)
+    num, n = _read_columns(path, where, sep, used)
+    log = _clean(num, robot, where, np.arange(2, n + 2, dtype=np.int64))
     p = Path(path) if isinstance(path, str | Path) else None
     return LogData(log.frame, log.warnings, p, log.quadrature)
+
+
+def _row_bound(path) -> int | None:
+    """More rows than the file can hold (its newline count + 1), or None for streams."""
+    if not isinstance(path, str | Path):
+        return None
+    n = 1
+    with open(path, "rb") as fh:
+        while block := fh.read(1 << 22):
+            n += block.count(b"\n")
+    return n
+
+
+class _Column:
+    """One used column, filled chunk by chunk into an array allocated once.
+
+    Allocating the whole column up front (from the file's newline count) keeps the
+    chunks' small arrays from piling up in the heap: concatenating them at the end
+    would hold every column twice and leave the heap fragmented.
+    """
+
+    def __init__(self, capacity):
+        self.capacity = capacity
+        self.data = None
+        self.parts = []  # streams of unknown length: concatenated at the end
+        self.n = 0
+
+    def add(self, arr):
+        if self.capacity is None:
+            self.parts.append(arr)
+            return
+        if self.data is None:
+            self.data = np.empty(self.capacity, arr.dtype)
+        elif arr.dtype.kind == "f" and self.data.dtype.kind != "f":
+            self.data = self.data.astype(float)  # a column of whole numbers gained a blank
+        self.data[self.n:self.n + arr.size] = arr
+        self.n += arr.size
+
+    def array(self):
+        if self.capacity is None:
+            return np.concatenate(self.parts) if self.parts else np.zeros(0)
+        return self.data[:self.n] if self.data is not None else np.zeros(0)
+
+
+def _read_columns(path, where, sep, used) -> tuple[dict, int]:
+    """The used columns as numeric arrays, and the number of rows read."""
+    if hasattr(path, "seek"):
+        path.seek(0)
+    bound = _row_bound(path)
+    cols = {c: _Column(bound) for c in used}
+    n = 0
+    # every column is parsed (a ragged row must fail, which usecols would hide), but
+    # only a chunk at a time, and only the used ones are kept
+    for chunk in _chunks(path, where, sep):
+        chunk.columns = [_clean_name(c) for c in chunk.columns]
+        lines = np.arange(n + 2, n + 2 + len(chunk), dtype=np.int64)
+        for c, arr in _to_numeric(chunk, used, lines, where).items():
+            cols[c].add(arr)
+        n += len(chunk)
+        del chunk
+    return {c: cols.pop(c).array() for c in used}, n
 
 
 def log_from_frame(raw: pd.DataFrame, robot: RobotProfile, *, where="log",
@@ -284,22 +493,26 @@ def log_from_frame(raw: pd.DataFrame, robot: RobotProfile, *, where="log",
     -------
     LogData
     """
-    warnings: list[str] = []
     lines = np.arange(2, len(raw) + 2, dtype=np.int64) if lines is None else np.asarray(lines)
     used = _used_columns(robot)
-    missing = [c for c in used if c not in raw.columns]
-    if missing:
-        raise InputError(
-            f"{where}: column(s) {missing} named in the robot profile are not in the log; "
-            f"columns present: {list(raw.columns)}"
-        )
-    num = _to_numeric(raw, used, lines, where)
-    tc = robot.time_column
+    _check_columns(raw.columns, used, where)
+    return _clean(_to_numeric(raw, used, lines, where), robot, where, lines)
 
-    # 2. blank rows and rows without a time
-    isna = num.isna().to_numpy()
-    blank = isna.all(axis=1)
-    no_time = isna[:, used.index(tc)] & ~blank
+
+def _take(num: dict, rows) -> dict:
+    """Every column at ``rows`` (a mask or an index), replacing the old arrays."""
+    for c in list(num):
+        num[c] = num[c][rows]
+    return num
+
+
+def _drop_blank_rows(num, tc, lines, warnings):
+    blank = None
+    for a in num.values():
+        na = np.isnan(a) if a.dtype.kind == "f" else np.zeros(a.size, bool)
+        blank = na if blank is None else blank & na
+    t = num[tc]
+    no_time = (np.isnan(t) if t.dtype.kind == "f" else np.zeros(t.size, bool)) & ~blank
     if blank.any():
         warnings.append(f"dropped {int(blank.sum())} blank row(s) at line(s) "
                         f"{_lines_text(lines[blank])}")
@@ -307,141 +520,216 @@ def log_from_frame(raw: pd.DataFrame, robot: RobotProfile, *, where="log",
         warnings.append(f"dropped {int(no_time.sum())} row(s) without a time in '{tc}' "
                         f"at line(s) {_lines_text(lines[no_time])}")
     keep = ~(blank | no_time)
-    num = num.loc[keep].reset_index(drop=True)
-    lines = lines[keep]
-    if len(num) < 2:
-        raise InputError(f"{where}: fewer than two samples with a time; nothing to read")
+    if not keep.all():
+        _take(num, keep)
+        lines = lines[keep]
+    return lines
 
-    # 3. sort, duplicates
-    t_raw = num[tc].to_numpy()
+
+def _sort_and_dedupe(num, tc, lines, where, warnings):
+    t_raw = num[tc]
     if np.any(np.diff(t_raw) < 0):
         back = np.flatnonzero(np.diff(t_raw) < 0) + 1
         warnings.append(f"{back.size} row(s) out of time order (first at line(s) "
                         f"{_lines_text(lines[back])}); sorted by '{tc}'")
         order = np.argsort(t_raw, kind="stable")
-        num = num.iloc[order].reset_index(drop=True)
+        _take(num, order)
         lines = lines[order]
-        t_raw = t_raw[order]
+        t_raw = num[tc]
     same = np.flatnonzero(np.diff(t_raw) == 0) + 1
     if same.size:
-        vals = num.to_numpy(dtype=float)
-        eq = (vals[same] == vals[same - 1]) | (np.isnan(vals[same]) & np.isnan(vals[same - 1]))
-        differ = same[~eq.all(axis=1)]
+        eq = np.ones(same.size, bool)
+        for a in num.values():
+            x, y = a[same], a[same - 1]
+            eq &= (x == y) | (np.isnan(x) & np.isnan(y)) if a.dtype.kind == "f" else x == y
+        differ = same[~eq]
         if differ.size:
             i = int(differ[0])
             raise InputError(
                 f"{where}: lines {lines[i - 1]} and {lines[i]} have the same time "
-                f"{t_raw[i]!r} but different values ({differ.size} such pair(s)); "
+                f"{float(t_raw[i]):g} but different values ({differ.size} such pair(s)); "
                 "the order is ambiguous: fix the log's timestamps"
             )
         warnings.append(f"dropped {same.size} exact duplicate row(s) at line(s) "
                         f"{_lines_text(lines[same])}")
-        keep = np.ones(len(num), bool)
+        keep = np.ones(len(t_raw), bool)
         keep[same] = False
-        num = num.loc[keep].reset_index(drop=True)
+        _take(num, keep)
         lines = lines[keep]
-        t_raw = t_raw[keep]
-    if len(num) < 2:
-        raise InputError(f"{where}: fewer than two distinct times; nothing to read")
+    return lines
 
-    # 4. time unit
-    check_time_unit(t_raw, robot.time_unit, where=where, column=tc)
-    t_s = t_raw.astype(float) * TIME_UNITS_S[robot.time_unit]
 
-    # 6a. trim rows before the first / after the last complete row
+def _trim_incomplete(num, tc, used, lines, where, warnings):
+    """Drop rows before the first and after the last complete row; report holes."""
     data_cols = [c for c in used if c != tc]
-    valid = ~num[data_cols].isna().to_numpy() if data_cols else np.ones((len(num), 0), bool)
-    for j, c in enumerate(data_cols):
-        if not valid[:, j].any():
+    complete = np.ones(len(lines), bool)
+    for c in data_cols:
+        a = num[c]
+        if a.dtype.kind != "f":
+            continue
+        ok = ~np.isnan(a)
+        if not ok.any():
             raise InputError(f"{where}: column '{c}' has no numeric values; "
                              "check the column name in the robot profile")
-    complete = valid.all(axis=1)
+        complete &= ok
     if not complete.any():
         raise InputError(f"{where}: no row has every used column filled; "
                          f"columns used: {used}")
     first, last = int(np.argmax(complete)), len(complete) - 1 - int(np.argmax(complete[::-1]))
-    if first > 0 or last < len(num) - 1:
-        cut = np.r_[0:first, last + 1:len(num)]
+    if first > 0 or last < len(complete) - 1:
+        cut = np.r_[0:first, last + 1:len(complete)]
         warnings.append(f"dropped {cut.size} incomplete row(s) at the start or end "
                         f"(line(s) {_lines_text(lines[cut])})")
         sl = slice(first, last + 1)
-        num = num.iloc[sl].reset_index(drop=True)
-        lines, t_s, valid = lines[sl], t_s[sl], valid[sl]
-    holes = ~valid.all(axis=1)
-    if holes.any():
-        warnings.append(f"filled {int(holes.sum())} row(s) with empty cells (counts and "
-                        "angles by linear interpolation in time, raw channels by holding the "
-                        f"last reading), at line(s) {_lines_text(lines[holes])}")
+        _take(num, sl)
+        lines, complete = lines[sl], complete[sl]
+    if not complete.all():
+        warnings.append(f"filled {int((~complete).sum())} row(s) with empty cells (counts "
+                        "and angles by linear interpolation in time, raw channels by holding "
+                        f"the last reading), at line(s) {_lines_text(lines[~complete])}")
+    return lines
 
-    frame = {"line": lines.astype(np.int64), "t_s": t_s}
+
+def _clean(num: dict, robot: RobotProfile, where, lines) -> LogData:
+    """Steps 2-7 of the module notes on numeric columns (arrays, freed as consumed)."""
+    warnings: list[str] = []
+    used = _used_columns(robot)
+    tc = robot.time_column
+    lines = _drop_blank_rows(num, tc, lines, warnings)
+    if len(lines) < 2:
+        raise InputError(f"{where}: fewer than two samples with a time; nothing to read")
+    lines = _sort_and_dedupe(num, tc, lines, where, warnings)
+    if len(lines) < 2:
+        raise InputError(f"{where}: fewer than two distinct times; nothing to read")
+    check_time_unit(num[tc], robot.time_unit, where=where, column=tc)
+    lines = _trim_incomplete(num, tc, used, lines, where, warnings)
+    t_s = num.pop(tc).astype(float)
+    t_s *= TIME_UNITS_S[robot.time_unit]
+    uses = {c: sum(c == u for u in _consumers(robot)) for c in num}
+
+    def take(col):
+        uses[col] -= 1
+        return num.pop(col) if uses[col] <= 0 else num[col]
+
+    frame = {"line": lines.astype(np.int64, copy=False), "t_s": t_s}
     quad = {}
-    # 5/6b. wheels
     for w in robot.wheels:
         if w.raw_a_column is not None and w.raw_b_column is not None:
-            a = num[w.raw_a_column].ffill().to_numpy(dtype=float)
-            b = num[w.raw_b_column].ffill().to_numpy(dtype=float)
+            a = pd.Series(take(w.raw_a_column)).ffill().to_numpy(dtype=float)
+            b = pd.Series(take(w.raw_b_column)).ffill().to_numpy(dtype=float)
             res = decode_raw(a, b, t_s, threshold=w.raw_threshold, name=w.name)
             quad[w.name] = res
             warnings += res.warnings
             frame[f"ticks_{w.name}"] = res.counts
             continue
-        series = num[w.column]
-        col = series.to_numpy(dtype=float)
-        ok = ~np.isnan(col)
-        if pd.api.types.is_integer_dtype(series):
-            v = series.to_numpy(dtype=np.int64)  # exact beyond 2**53
-        else:
-            v = col[ok]
-            if np.any(v != np.round(v)):
-                i = int(np.flatnonzero(ok)[np.flatnonzero(v != np.round(v))[0]])
-                raise InputError(f"{where}: line {lines[i]}, column '{w.column}': {col[i]!r} is "
-                                 "not a whole count; the column must hold cumulative encoder "
-                                 "ticks")
-        _counter_range_check(v, w.counter_bits, where, w.column)
-        ticks = unwrap_counter(v, w.counter_bits)
-        if w.counter_bits and v.size > 1:
-            big = np.abs(np.diff(ticks)) > 2 ** (w.counter_bits - 2)
-            if big.any():
-                warnings.append(f"wheel '{w.name}': {int(big.sum())} step(s) over a quarter of "
-                                f"the {w.counter_bits}-bit counter range; wrap-around may be "
-                                "ambiguous: log faster")
-        if not ok.all():
-            full = np.empty(len(col), np.int64)
-            full[ok] = ticks
-            full[~ok] = np.round(np.interp(t_s[~ok], t_s[ok], ticks.astype(float)))
-            ticks = full
-        frame[f"ticks_{w.name}"] = ticks
-    # 7. IMU
+        frame[f"ticks_{w.name}"] = _wheel_ticks(take(w.column), w, t_s, lines, where,
+                                                warnings)
     if robot.imu is not None:
-        imu = robot.imu
-        h = num[imu.column].to_numpy(dtype=float) * ANGLE_UNITS_RAD[imu.unit]
-        ok = ~np.isnan(h)
-        hv = h[ok]
-        jumps = np.abs(np.diff(hv)) > math.pi
-        if imu.wrapped:
-            hv = np.unwrap(hv)
-        elif jumps.any():
-            warnings.append(f"IMU column '{imu.column}' jumps by more than 180 deg "
-                            f"{int(jumps.sum())} time(s) but the profile says it is not "
-                            "wrapped; set wrapped = true in [imu] if it wraps")
-        if imu.unit == "rad" and np.nanmax(np.abs(h)) > 2 * math.pi + 0.1 and imu.wrapped:
-            warnings.append(f"IMU column '{imu.column}' is declared wrapped radians but reaches "
-                            f"{np.nanmax(np.abs(h)):.1f}; is it in degrees?")
-        tv = t_s[ok]
-        hv = imu.sign * (hv[0] + imu.scale * (hv - hv[0])) - imu.bias_radps * (tv - tv[0])
-        frame["imu_heading_rad"] = _fill(t_s, hv, ok)
-    # pose
+        frame["imu_heading_rad"] = _imu_heading(take(robot.imu.column), robot.imu, t_s,
+                                                warnings)
     if robot.pose is not None:
         pc = robot.pose
         fl, fa = LENGTH_UNITS_M[pc.length_unit], ANGLE_UNITS_RAD[pc.angle_unit]
         for key, col, f in (("pose_x_m", pc.x_column, fl), ("pose_y_m", pc.y_column, fl),
                             ("pose_heading_rad", pc.heading_column, fa)):
-            v = num[col].to_numpy(dtype=float) * f
+            v = take(col) * f  # a new float array
             ok = ~np.isnan(v)
-            vv = np.unwrap(v[ok]) if key == "pose_heading_rad" else v[ok]
+            vv = v[ok] if not ok.all() else v
+            if key == "pose_heading_rad":
+                vv = unwrap_inplace(vv)
             frame[key] = _fill(t_s, vv, ok)
+            del v, vv
     _gap_warning(t_s, lines, warnings)
-    return LogData(pd.DataFrame(frame), warnings, None, quad)
+    return LogData(pd.DataFrame(frame, copy=False), warnings, None, quad)
+
+
+def _consumers(robot: RobotProfile) -> list[str]:
+    """Every use of a data column, with repeats (a column read twice is kept longer)."""
+    out = []
+    for w in robot.wheels:
+        if w.raw_a_column is not None and w.raw_b_column is not None:
+            out += [w.raw_a_column, w.raw_b_column]
+        else:
+            out.append(w.column)
+    if robot.imu is not None:
+        out.append(robot.imu.column)
+    if robot.pose is not None:
+        out += [robot.pose.x_column, robot.pose.y_column, robot.pose.heading_column]
+    return out
+
+
+def _wheel_ticks(col, w, t_s, lines, where, warnings):
+    """Unwrapped cumulative counts of one wheel, holes filled (steps 5 and 6b)."""
+    if col.dtype.kind in "iu":
+        ok = np.ones(col.size, bool)
+        v = col.astype(np.int64, copy=False)  # exact beyond 2**53
+    else:
+        ok = ~np.isnan(col)
+        v = col[ok]
+        frac = np.flatnonzero(v != np.round(v))
+        if frac.size:
+            i = int(np.flatnonzero(ok)[frac[0]])
+            raise InputError(f"{where}: line {lines[i]}, column '{w.column}': {col[i]:g} is "
+                             "not a whole count; the column must hold cumulative encoder "
+                             "ticks")
+    _counter_range_check(v, w.counter_bits, where, w.column)
+    slip = counter_width_slip(v, w.counter_bits)
+    if slip is not None:
+        b, i, jump = slip
+        raise InputError(
+            f"{where}: line {lines[np.flatnonzero(ok)[i]]}, column '{w.column}' jumps by "
+            f"{jump:+d} (near {'-' if jump < 0 else '+'}2^{b}): the counter wraps at {b} "
+            f"bits but the profile says counter_bits = {w.counter_bits}; set counter_bits "
+            f"= {b} in wheel '{w.name}'")
+    ticks = unwrap_counter(v, w.counter_bits)
+    del v
+    if w.counter_bits and ticks.size > 1:
+        step = np.diff(ticks)
+        quarter = 2 ** (w.counter_bits - 2)
+        big = (step > quarter) | (step < -quarter)
+        del step
+        if big.any():
+            warnings.append(f"wheel '{w.name}': {int(big.sum())} step(s) over a quarter of "
+                            f"the {w.counter_bits}-bit counter range; wrap-around may be "
+                            "ambiguous: log faster")
+    if not ok.all():
+        full = np.empty(ok.size, np.int64)
+        full[ok] = ticks
+        full[~ok] = np.round(np.interp(t_s[~ok], t_s[ok], ticks.astype(float)))
+        ticks = full
+    return ticks
+
+
+def _imu_heading(col, imu, t_s, warnings):
+    """Continuous IMU heading [rad], scale and sign applied, holes filled (step 7).
+
+    Computed in place on one new array (a long log holds two extra arrays at most).
+    """
+    h = col * ANGLE_UNITS_RAD[imu.unit]  # a new float array
+    ok = ~np.isnan(h)
+    hv = h if ok.all() else h[ok]
+    d = np.diff(hv)
+    n_jumps = int(np.count_nonzero((d > math.pi) | (d < -math.pi)))
+    del d
+    peak = max(float(np.max(hv)), -float(np.min(hv)))
+    if not imu.wrapped and n_jumps:
+        warnings.append(f"IMU column '{imu.column}' jumps by more than 180 deg "
+                        f"{n_jumps} time(s) but the profile says it is not "
+                        "wrapped; set wrapped = true in [imu] if it wraps")
+    if imu.unit == "rad" and peak > 2 * math.pi + 0.1 and imu.wrapped:
+        warnings.append(f"IMU column '{imu.column}' is declared wrapped radians but reaches "
+                        f"{peak:.1f}; is it in degrees?")
+    if imu.wrapped:
+        unwrap_inplace(hv)
+    h0 = float(hv[0])
+    hv -= h0  # sign * (h0 + scale * (h - h0)), in place
+    hv *= imu.scale
+    hv += h0
+    hv *= imu.sign
+    if imu.bias_radps:  # a constant gyro bias, integrated from the first reading
+        tv = t_s if hv is h else t_s[ok]
+        hv -= imu.bias_radps * (tv - tv[0])
+    return _fill(t_s, hv, ok)
 
 
 def _gap_warning(t_s, lines, warnings):

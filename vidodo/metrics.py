@@ -248,6 +248,8 @@ def anchor_heading_from_travel(t_s, truth_poses, anchored_poses, k0, *, length_m
     dh = math.atan2(cross, dot)
     sig = 0.002 if sigma_m is None else float(sigma_m)
     rms = float(np.sqrt(np.mean(np.sum(dp**2, axis=1))))
+    if rms < 1e-6:  # the source did not move over the stretch: no heading from it
+        return None, None
     sigma = sig / rms * math.sqrt(corr_samples / idx.size)
     return dh, sigma
 

@@ -583,8 +583,10 @@ def grade_run(video, log, robot, field_profile, camera=None, *, settings=None, t
               "field": _abs(field_profile.path) if field_profile else None,
               "camera": _abs(camera.path) if camera is not None else None}
     if track is None:
+        from .input_checks import camera_matches_video
         from .track import track_video
 
+        camera_matches_video(camera, video)  # before a whole tracking pass
         truth = track_video(video, robot, field_profile, camera, progress=progress,
                             registrar=registrar)
     elif isinstance(track, pd.DataFrame):

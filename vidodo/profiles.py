@@ -18,6 +18,7 @@ Frames (see DEVELOPERS.md):
 
 from __future__ import annotations
 
+import difflib
 import math
 import tomllib
 from dataclasses import dataclass, field, fields
@@ -309,6 +310,81 @@ class CameraProfile:
 
 
 # ------------------------------------------------------------------------- loading
+class _Seen(dict):
+    """A TOML table that remembers which keys the loader asked for."""
+
+    def __init__(self, *args):
+        super().__init__(*args)
+        self.seen: set = set()
+
+    def get(self, key, default=None):
+        self.seen.add(key)
+        return super().get(key, default)
+
+    def __getitem__(self, key):
+        self.seen.add(key)
+        return super().__getitem__(key)
+
+
+def _tracked(value):
+    if isinstance(value, dict):
+        return _Seen({k: _tracked(v) for k, v in value.items()})
+    if isinstance(value, list):
+        return [_tracked(v) for v in value]
+    return value
+
+
+ROBOT_TABLES = ("robot", "log", "marker", "wheel", "imu", "pose", "source")
+FIELD_TABLES = ("floor", "floor_marker")
+CAMERA_TABLES = ("camera",)
+
+
+def reject_unknown_tables(data, where: str, known) -> None:
+    """Refuse a top-level table the profile kind does not have, before reading any.
+
+    Raises
+    ------
+    InputError
+        Naming the table, with a "did you mean".
+    """
+    for key in data:
+        if key not in known:
+            close = difflib.get_close_matches(str(key), known, n=1, cutoff=0.6)
+            hint = f"did you mean '{close[0]}'?" if close else \
+                f"tables are {', '.join(known)}"
+            raise InputError(f"{where}: unknown key '{key}'; {hint}")
+
+
+def reject_unknown_keys(data, where: str, *, top: bool = True) -> None:
+    """Refuse any key of a loaded profile that the loader never asked for.
+
+    A misspelt key would otherwise be ignored and its default used (``gear_raito = 2``
+    grading with gear ratio 1), so the message suggests the closest known key.
+
+    Raises
+    ------
+    InputError
+        Naming the file, the table and the unknown key, with a "did you mean".
+    """
+    if not isinstance(data, _Seen):
+        return
+    for key in data:
+        if key not in data.seen:
+            close = difflib.get_close_matches(str(key), sorted(map(str, data.seen)), n=1,
+                                              cutoff=0.6)
+            hint = f"did you mean '{close[0]}'?" if close else (
+                f"known keys here: {', '.join(sorted(map(str, data.seen))) or 'none'}")
+            raise InputError(f"{where}: unknown key '{key}'; {hint}")
+        value = dict.get(data, key)
+        if isinstance(value, dict):
+            reject_unknown_keys(value, f"{where} [{key}]" if top else f"{where}.{key}",
+                                top=False)
+        elif isinstance(value, list):
+            for i, item in enumerate(value):
+                reject_unknown_keys(item, f"{where} [[{key}]] #{i + 1}" if top
+                                    else f"{where}.{key}[{i}]", top=False)
+
+
 class TomlTable:
     """Reads typed values out of one TOML table and names the key on error."""
 
@@ -319,9 +395,13 @@ class TomlTable:
             raise InputError(f"{where}: expected a table; check the profile's layout")
 
     def get(self, key, kind=float, default=...):
+        self.data.get(key)  # marks the key as known (see reject_unknown_keys)
         if key not in self.data:
             if default is ...:
-                raise InputError(f"{self.where}: missing key '{key}'; add it to the profile")
+                close = difflib.get_close_matches(key, [str(k) for k in self.data], n=1)
+                hint = f" ('{close[0]}' is there: a misspelling?)" if close else ""
+                raise InputError(f"{self.where}: missing key '{key}'{hint}; add it to the "
+                                 "profile")
             return default
         value = self.data[key]
         try:
@@ -371,7 +451,7 @@ def read_toml(path) -> tuple[dict, Path]:
     p = Path(path)
     try:
         with open(p, "rb") as fh:
-            return tomllib.load(fh), p
+            return _tracked(tomllib.load(fh)), p
     except FileNotFoundError:
         raise InputError(f"{p}: file not found; check the path") from None
     except tomllib.TOMLDecodeError as exc:
@@ -401,6 +481,43 @@ def _marker(t: TomlTable, cls):
     return cls(**kw)
 
 
+def _wheel(t: TomlTable) -> Wheel:
+    """One [[wheel]] table."""
+    column = t.get("column", str, None)
+    raw_a = t.get("raw_a_column", str, None)
+    raw_b = t.get("raw_b_column", str, None)
+    if column is None and (raw_a is None or raw_b is None):
+        raise InputError(
+            f"{t.where}: give 'column' (cumulative ticks) or both 'raw_a_column' "
+            "and 'raw_b_column'"
+        )
+    sign = t.get("sign", int, 1)
+    if sign not in (1, -1):
+        raise InputError(f"{t.where}: key 'sign' must be 1 or -1, got {sign}")
+    bits = t.get("counter_bits", int, 32)
+    if bits not in (0, 8, 16, 24, 32, 64):
+        raise InputError(f"{t.where}: key 'counter_bits' must be 0, 16 or 32, got {bits}")
+    return Wheel(
+        name=t.get("name", str),
+        column=column,
+        x_m=t.get("x_m"),
+        y_m=t.get("y_m"),
+        direction_rad=t.angle("direction_deg", 0.0),
+        radius_m=t.positive("radius_m"),
+        ticks_per_rev=t.positive("ticks_per_rev"),
+        roller_rad=t.angle("roller_deg", 0.0),
+        # encoder (shaft) turns per wheel turn, > 1 for an encoder on the motor
+        # side of a reduction gearbox (metres per tick = 2 pi r / (ticks * ratio))
+        gear_ratio=t.positive("gear_ratio", 1.0),
+        sign=sign,
+        counter_bits=bits,
+        powered=t.get("powered", bool, True),
+        raw_a_column=raw_a,
+        raw_b_column=raw_b,
+        raw_threshold=t.get("raw_threshold", float, None),
+    )
+
+
 def load_robot(path) -> RobotProfile:
     """Read a robot profile (TOML).
 
@@ -421,46 +538,11 @@ def load_robot(path) -> RobotProfile:
     """
     data, p = read_toml(path)
     where = str(p)
+    reject_unknown_tables(data, where, ROBOT_TABLES)
     robot = TomlTable(data.get("robot", {}), f"{where} [robot]")
     log = TomlTable(data.get("log", {}), f"{where} [log]")
     markers = tuple(_marker(t, Marker) for t in _list_of_tables(data, "marker", where))
-    wheels = []
-    for t in _list_of_tables(data, "wheel", where):
-        column = t.get("column", str, None)
-        raw_a = t.get("raw_a_column", str, None)
-        raw_b = t.get("raw_b_column", str, None)
-        if column is None and (raw_a is None or raw_b is None):
-            raise InputError(
-                f"{t.where}: give 'column' (cumulative ticks) or both 'raw_a_column' "
-                "and 'raw_b_column'"
-            )
-        sign = t.get("sign", int, 1)
-        if sign not in (1, -1):
-            raise InputError(f"{t.where}: key 'sign' must be 1 or -1, got {sign}")
-        bits = t.get("counter_bits", int, 32)
-        if bits not in (0, 8, 16, 24, 32, 64):
-            raise InputError(f"{t.where}: key 'counter_bits' must be 0, 16 or 32, got {bits}")
-        wheels.append(
-            Wheel(
-                name=t.get("name", str),
-                column=column,
-                x_m=t.get("x_m"),
-                y_m=t.get("y_m"),
-                direction_rad=t.angle("direction_deg", 0.0),
-                radius_m=t.positive("radius_m"),
-                ticks_per_rev=t.positive("ticks_per_rev"),
-                roller_rad=t.angle("roller_deg", 0.0),
-                # encoder (shaft) turns per wheel turn, > 1 for an encoder on the motor
-                # side of a reduction gearbox (metres per tick = 2 pi r / (ticks * ratio))
-                gear_ratio=t.positive("gear_ratio", 1.0),
-                sign=sign,
-                counter_bits=bits,
-                powered=t.get("powered", bool, True),
-                raw_a_column=raw_a,
-                raw_b_column=raw_b,
-                raw_threshold=t.get("raw_threshold", float, None),
-            )
-        )
+    wheels = [_wheel(t) for t in _list_of_tables(data, "wheel", where)]
     names = [w.name for w in wheels]
     if len(set(names)) != len(names):
         raise InputError(f"{where}: wheel names must be unique, got {names}")
@@ -506,7 +588,7 @@ def load_robot(path) -> RobotProfile:
         )
         if sources[-1].heading == "imu" and imu is None:
             raise InputError(f"{t.where}: heading = 'imu' but the profile has no [imu] table")
-    return RobotProfile(
+    prof = RobotProfile(
         name=robot.get("name", str, p.stem),
         length_m=robot.positive("length_m", 0.45),
         width_m=robot.positive("width_m", 0.45),
@@ -520,6 +602,11 @@ def load_robot(path) -> RobotProfile:
         sources=tuple(sources),
         path=p,
     )
+    reject_unknown_keys(data, where)
+    from .plausible import check_robot
+
+    check_robot(prof)
+    return prof
 
 
 def load_field(path) -> FieldProfile:
@@ -542,6 +629,7 @@ def load_field(path) -> FieldProfile:
     """
     data, p = read_toml(path)
     where = str(p)
+    reject_unknown_tables(data, where, FIELD_TABLES)
     floor = TomlTable(data.get("floor", {}), f"{where} [floor]")
     tiles_x = floor.get("tiles_x", int)
     tiles_y = floor.get("tiles_y", int)
@@ -553,7 +641,7 @@ def load_field(path) -> FieldProfile:
     start = floor.data.get("start_tile")
     if start is not None:
         start = parse_start_tile(start, tiles_x, tiles_y, f"{where} [floor] start_tile")
-    return FieldProfile(
+    prof = FieldProfile(
         tiles_x=tiles_x,
         tiles_y=tiles_y,
         tile_size_m=floor.positive("tile_size_m"),
@@ -564,6 +652,11 @@ def load_field(path) -> FieldProfile:
         path=p,
         start_tile=start,
     )
+    reject_unknown_keys(data, where)
+    from .plausible import check_field
+
+    check_field(prof)
+    return prof
 
 
 def parse_start_tile(value, tiles_x, tiles_y, where) -> tuple[int, int]:
@@ -606,6 +699,7 @@ def load_camera(path) -> CameraProfile:
         Naming the file and the key that is missing or wrong.
     """
     data, p = read_toml(path)
+    reject_unknown_tables(data, str(p), CAMERA_TABLES)
     t = TomlTable(data.get("camera", {}), f"{p} [camera]")
     dist = t.data.get("distortion", [0.0, 0.0, 0.0, 0.0, 0.0])
     if not isinstance(dist, list) or not all(
@@ -615,7 +709,7 @@ def load_camera(path) -> CameraProfile:
             f"{p} [camera]: 'distortion' must be a list of 4, 5, 8, 12 or 14 numbers "
             "(k1, k2, p1, p2[, k3, ...], OpenCV order)"
         )
-    return CameraProfile(
+    prof = CameraProfile(
         width_px=t.get("width_px", int),
         height_px=t.get("height_px", int),
         fx_px=t.positive("fx_px"),
@@ -626,6 +720,11 @@ def load_camera(path) -> CameraProfile:
         readout_s=t.get("readout_s", float, 0.0),
         path=p,
     )
+    reject_unknown_keys(data, str(p))
+    from .plausible import check_camera
+
+    check_camera(prof)
+    return prof
 
 
 # ------------------------------------------------------------------------- writing

@@ -402,8 +402,56 @@ def manual_clock(truth_track, odometry, offset_s, *, rate=0.0) -> ClockSync:
             warn.append(f"with the manual offset the log overlaps the video for only "
                         f"{ov:.1f} s")
             break
+    warn += _manual_offset_check(truth_track, odometry, offset_s)
     return ClockSync(offset_s=float(offset_s), sigma_s=None, confidence=None,
                      method="manual", rate=float(rate), warnings=tuple(warn))
+
+
+def _travel(t_s, xy, t0, t1):
+    sel = (t_s >= t0) & (t_s <= t1) & np.isfinite(xy).all(axis=1)
+    p = xy[sel]
+    return float(np.sum(np.hypot(*np.diff(p, axis=0).T))) if len(p) > 1 else 0.0
+
+
+def _manual_offset_check(truth_track, odometry, offset_s) -> list[str]:
+    """Refuse a manual offset under which the log and the video disagree on motion.
+
+    Over the overlap, the truth's path length and each source's are compared: the
+    robot cannot travel metres in the video while every odometry source stands still
+    (or the reverse). Typical cause: the offset's sign (it is video time minus log
+    time). Also compares with the automatic estimate and warns when they differ.
+
+    Raises
+    ------
+    SyncError
+        When the travel differs by more than a factor of 4 for every source.
+    """
+    t_tr = truth_track["t_s"].to_numpy(float)
+    xy_tr = truth_track[["x_m", "y_m"]].to_numpy(float)
+    ratios = []
+    for df in odometry.values():
+        t = df["t_s"].to_numpy(float) + offset_s
+        t0, t1 = max(t[0], t_tr[0]), min(t[-1], t_tr[-1])
+        truth_m = _travel(t_tr, xy_tr, t0, t1)
+        src_m = _travel(t, df[["x_m", "y_m"]].to_numpy(float), t0, t1)
+        if max(truth_m, src_m) >= 0.3:
+            ratios.append((truth_m, src_m))
+    if ratios and all(max(a, b) > 4.0 * min(a, b) for a, b in ratios):
+        a, b = ratios[0]
+        raise SyncError(
+            f"with --clock-offset {offset_s:+.3f} s the log shows {b:.2f} m of travel "
+            f"where the video shows {a:.2f} m; the offset is video time minus log time "
+            f"(check its sign: {-offset_s:+.3f}?), or leave it out to find it automatically")
+    try:
+        auto = estimate_clock(truth_track, odometry)
+    except (SyncError, InputError, ValueError):
+        return []
+    if auto.confidence is not None and auto.confidence >= 0.5 and \
+            abs(auto.offset_s - offset_s) > max(0.25, 5.0 * (auto.sigma_s or 0.0)):
+        return [f"clock: the manual offset {offset_s:+.3f} s differs from the one the "
+                f"motion gives ({auto.offset_s:+.3f} s, confidence {auto.confidence:.2f}); "
+                "check --clock-offset"]
+    return []
 
 
 def estimate_clock(truth_track, odometry, *, source=None, window_s=1.0, fit_rate=None,

@@ -19,6 +19,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from .csvsafe import write_csv
 from .odometry import odometry_result
 from .outputs import staged_dir
 from .pipeline import GradeResult, GradeSettings, grade_tracks
@@ -228,9 +229,9 @@ def write_tuning(result: TuneResult | ProfileFit, out_dir) -> None:
     fit = result.fit if isinstance(result, TuneResult) else result
     with staged_dir(Path(out_dir)) as stage:
         write_profile(fit, stage / "robot.toml")
-        fit.table.to_csv(stage / "fit.csv", index=False, float_format="%.9g")
+        write_csv(fit.table, stage / "fit.csv", float_format="%.9g")
         if isinstance(result, TuneResult):
-            result.drift.to_csv(stage / "drift.csv", index=False, float_format="%.6g")
+            write_csv(result.drift, stage / "drift.csv", float_format="%.6g")
 
 
 def tune_from_grade(result: GradeResult, run_dir, out_dir) -> ProfileFit:

@@ -30,3 +30,15 @@ def add_old_spelling(parser, old, dest, **kwargs):
     """An earlier spelling of an option, still accepted but not shown in ``--help``."""
     parser.add_argument(old, dest=dest, help=argparse.SUPPRESS, default=argparse.SUPPRESS,
                         **kwargs)
+
+
+_FORCE_HELP = {
+    "folder": "write into a folder holding other files (they are kept; inputs are never "
+              "touched)",
+    "file": "replace an existing file vidodo did not write (never an input)",
+}
+
+
+def add_force(parser, kind: str = "folder") -> None:
+    """``--force``: write over what the output rules would refuse (never an input)."""
+    parser.add_argument("--force", action="store_true", help=_FORCE_HELP[kind])

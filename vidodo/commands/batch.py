@@ -20,7 +20,7 @@ import sys
 from pathlib import Path
 
 from ..errors import InputError
-from ._options import add_out, add_switch, add_units
+from ._options import add_force, add_out, add_switch, add_units
 
 NAME = "batch"
 HELP = "grade every run folder under a directory, in parallel; one table for all"
@@ -46,6 +46,7 @@ def add_arguments(parser):
                         help="largest final position error that passes [m]")
     parser.add_argument("--tol-heading-deg", type=float, metavar="DEG",
                         help="largest final heading error that passes [deg]")
+    add_force(parser)
 
 
 def _line(rec, unit) -> str:
@@ -63,16 +64,27 @@ def _line(rec, unit) -> str:
 
 def run(args) -> int:
     """Find, grade in parallel, write the table and the trend plot."""
-    from ..batch import exit_code_for, find_runs, grade_folders, write_batch_outputs
+    from ..batch import (
+        TABLE,
+        TREND_PNG,
+        exit_code_for,
+        find_runs,
+        grade_folders,
+        write_batch_outputs,
+    )
+    from ..input_checks import positive_option
+    from ..outputs import staged_dir
     from ..progress import progress_bar
 
     if args.jobs is not None and args.jobs < 1:
         raise InputError(f"--jobs {args.jobs}: must be at least 1")
-    for opt in ("tol_pos_m", "tol_heading_deg"):
-        v = getattr(args, opt)
-        if v is not None and not (v > 0):
-            raise InputError(f"--{opt.replace('_', '-')} must be positive")
+    positive_option("--tol-pos-m", args.tol_pos_m)
+    positive_option("--tol-heading-deg", args.tol_heading_deg)
     out_root = args.out.resolve()
+    root = args.dir.resolve()
+    if out_root == root or out_root in root.parents:
+        raise InputError(f"{args.out}: is (or holds) the folder of runs {args.dir}; give an "
+                         "output folder outside it, e.g. --out graded")
     runs = [d for d in find_runs(args.dir) if out_root not in (d.resolve(),
                                                                 *d.resolve().parents)]
     if not runs:
@@ -83,10 +95,16 @@ def run(args) -> int:
                "tol_heading_rad": None if args.tol_heading_deg is None
                else math.radians(args.tol_heading_deg),
                "report": args.report, "replay": args.replay, "units": args.units}
-    with progress_bar(len(runs), "batch", unit="run", quiet=args.quiet) as bar:
-        records = grade_folders(runs, args.dir, out_root, options, jobs=jobs,
-                                on_done=lambda rec: bar.update(1))
-    table, trend = write_batch_outputs(records, out_root, unit=args.units)
+    # the whole batch is one staged set: every run's folder, batch.csv and the trend
+    with staged_dir(out_root, inputs=runs, force=args.force,
+                    command="vidodo batch") as stage:
+        with progress_bar(len(runs), "batch", unit="run", quiet=args.quiet) as bar:
+            records = grade_folders(runs, args.dir, stage, options, jobs=jobs,
+                                    on_done=lambda rec: bar.update(1))
+        for rec in records:  # where the run's folder will be once the set is in place
+            rec["out"] = str(out_root / rec["run"])
+        write_batch_outputs(records, stage, unit=args.units)
+    table, trend = out_root / TABLE, out_root / TREND_PNG
     graded = sum(r["status"] == "graded" for r in records)
     for rec in records:
         if rec["status"] != "graded":

@@ -36,7 +36,7 @@ def _ensure_run(args, out: Path, progress) -> Path:
     scenario = load_scenario(args.scenario, **overrides)
     key = run_cache_key(scenario, args.seed)
     run = out / "run"
-    stamp = run / ".vidodo-cache"
+    stamp = out / ".vidodo-run-cache"  # beside the run: the run folder holds only its set
     if not args.rerender and stamp.is_file() and stamp.read_text().strip() == key:
         return run
     simulate_run(scenario, args.seed, run, progress=progress)
@@ -95,6 +95,9 @@ def run(args) -> int:
         print(f"run folder: {run_dir}  (rendered in {t_render:.1f} s)")
         print(f"outputs:    {out / 'grade'}  (open report.html)")
         print(f"total time: {t_total:.1f} s")
+    from vidodo.outputs import atomic_file
+
     meta = {"render_s": round(t_render, 2), "total_s": round(t_total, 2)}
-    (out / "timing.json").write_text(json.dumps(meta, indent=1) + "\n")
+    with atomic_file(out / "timing.json", signature=b'{\n "render_s"') as tmp:
+        tmp.write_text(json.dumps(meta, indent=1) + "\n")
     return 0

@@ -6,10 +6,10 @@ import math
 import sys
 from pathlib import Path
 
-from ..errors import EXIT_OK, EXIT_TOLERANCE, InputError, RegistrationRefused
+from ..errors import EXIT_OK, EXIT_TOLERANCE, InputError, RegistrationRefused, VidodoError
 from ..units import length_factor
 from . import registration_options
-from ._options import add_old_spelling, add_out, add_switch, add_units
+from ._options import add_force, add_old_spelling, add_out, add_switch, add_units
 
 NAME = "grade"
 HELP = "measure the run from the video, line up the log, report drift and events"
@@ -44,6 +44,7 @@ def add_arguments(parser):
     add_out(parser, "output folder", required=True)
     add_switch(parser, "report", True, "write the plots, the HTML report and the replay")
     add_switch(parser, "replay", True, "write the annotated replay video")
+    add_force(parser)
 
 
 def _fmt(v, scale, digits=0, unit=""):
@@ -87,48 +88,58 @@ def verdict_lines(result, *, units="mm"):
     return lines
 
 
+def _check_options(args) -> None:
+    from ..input_checks import finite_option, positive_option
+
+    positive_option("--tol-pos-m", args.tol_pos_m)
+    positive_option("--tol-heading-deg", args.tol_heading_deg)
+    finite_option("--clock-offset-s", args.clock_offset_s)
+    if args.track is None and not args.video.is_file():
+        raise InputError(f"{args.video}: file not found; check the video path")
+
+
 def run(args) -> int:
     """Grade, write, print the verdict; exit 0 pass, 4 outside tolerance."""
+    from ..input_checks import with_file_names
+    from ..profiles import load_camera, load_field, load_robot
+
+    # profiles first: a mistake in them is refused before the heavy imports
+    robot, field = load_robot(args.robot), load_field(args.field)
+    camera = load_camera(args.camera) if args.camera else None
+    _check_options(args)
+    from ..outputs import staged_dir
     from ..pipeline import GradeSettings, Tolerances, grade_run
     from ..progress import progress_bar
     from ..report.grade_files import write_outputs
 
-    if args.tol_pos_m is not None and args.tol_pos_m <= 0:
-        raise InputError("--tol-pos-m must be positive")
-    if args.tol_heading_deg is not None and args.tol_heading_deg <= 0:
-        raise InputError("--tol-heading-deg must be positive")
     tol = Tolerances(
         position_m=args.tol_pos_m,
         heading_rad=None if args.tol_heading_deg is None else math.radians(args.tol_heading_deg))
-    if args.track is None and not args.video.is_file():
-        raise InputError(f"{args.video}: file not found; check the video path")
     registrar = None
     if args.track is None:
-        from ..profiles import load_camera, load_field
-
-        field = load_field(args.field)
-        camera = load_camera(args.camera) if args.camera else None
         registrar = registration_options.registrar_from_args(args, field, camera)
-    try:
-        with progress_bar(desc="tracking", quiet=args.quiet) as bar:
-            result = grade_run(args.video, args.log, args.robot, args.field, args.camera,
-                               settings=GradeSettings(clock_offset_s=args.clock_offset_s,
-                                                      tolerances=tol),
-                               track=args.track, progress=bar, registrar=registrar)
-    except RegistrationRefused as exc:
-        registration_options.write_preview(exc, args.out / "preview.png")
-        raise
-    write_outputs(result, args.out)
-    if args.report:
-        from ..report.build import write_report
-
-        replay = args.replay
-        if replay and not args.video.is_file():
-            replay = False
-            print(f"vidodo grade: warning: {args.video}: not found, so no replay video "
-                  "(graded from --track)", file=sys.stderr)
-        with progress_bar(desc="report", quiet=args.quiet) as bar:
-            write_report(args.out, args.out, replay=replay, units=args.units, progress=bar)
+    inputs = (args.video, args.log, args.robot, args.field, args.camera, args.track,
+              getattr(args, "points", None))
+    refused = None
+    with staged_dir(args.out, inputs=inputs, force=args.force,
+                    command="vidodo grade") as stage:
+        try:
+            with progress_bar(desc="tracking", quiet=args.quiet) as bar:
+                result = grade_run(args.video, args.log, robot, field, camera,
+                                   settings=GradeSettings(clock_offset_s=args.clock_offset_s,
+                                                          tolerances=tol),
+                                   track=args.track, progress=bar, registrar=registrar)
+        except RegistrationRefused as exc:  # the set is the preview alone
+            registration_options.write_preview(exc, stage / "preview.png")
+            refused = exc
+        except VidodoError as exc:
+            raise with_file_names(exc, (args.track or args.video, args.log)) from None
+        else:
+            write_outputs(result, stage)
+            if args.report:
+                _pictures(args, stage)
+    if refused is not None:
+        raise refused
     for w in result.warnings:
         print(f"vidodo grade: warning: {w}", file=sys.stderr)
     if not args.quiet:
@@ -136,3 +147,17 @@ def run(args) -> int:
             print(line)
         print(f"outputs: {args.out}")
     return EXIT_TOLERANCE if result.verdict == "fail" else EXIT_OK
+
+
+def _pictures(args, stage) -> None:
+    """Plots, report and replay into the staging folder (they appear with the rest)."""
+    from ..progress import progress_bar
+    from ..report.build import write_report
+
+    replay = args.replay
+    if replay and not args.video.is_file():
+        replay = False
+        print(f"vidodo grade: warning: {args.video}: not found, so no replay video "
+              "(graded from --track)", file=sys.stderr)
+    with progress_bar(desc="report", quiet=args.quiet) as bar:
+        write_report(stage, stage, replay=replay, units=args.units, progress=bar)

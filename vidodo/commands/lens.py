@@ -8,6 +8,7 @@ from .. import lens
 from ..errors import InputError
 from ..outputs import atomic_file
 from ..profiles import camera_to_dict, dump_toml
+from ._options import add_force
 
 NAME = "lens"
 HELP = "calibrate the lens from a board clip or images; write a camera profile"
@@ -51,9 +52,17 @@ def add_arguments(parser):
                         help="rolling-shutter readout time to store in the profile [ms]")
     parser.add_argument("-o", "--out", type=Path, default=Path("camera.toml"),
                         help="camera profile to write (default camera.toml)")
+    add_force(parser, "file")
+
+
+SIGNATURE = b"# camera profile written by vidodo lens"
 
 
 def run(args) -> int:
+    from ..outputs import check_file_target
+
+    target = dict(inputs=args.inputs, force=args.force, signature=SIGNATURE)
+    check_file_target(args.out, **target)
     board = _board(args.board)
     if args.square_mm is None or args.square_mm <= 0:
         raise InputError(f"--square-mm {args.square_mm}: must be positive")
@@ -75,7 +84,7 @@ def run(args) -> int:
         cam = replace(cam, readout_s=args.readout_ms / 1000.0)
     header = (f"camera profile written by vidodo lens from {report.n_used} views, "
               f"reprojection error {report.rms_px:.3f} px RMS")
-    with atomic_file(args.out) as tmp:
+    with atomic_file(args.out, **target) as tmp:
         tmp.write_text(dump_toml(camera_to_dict(cam), header=header))
     if not args.quiet:
         for line in report.lines():

@@ -5,6 +5,8 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
+from ._options import add_force
+
 NAME = "new-robot"
 HELP = "write a starter robot profile from a few questions (or an answers file)"
 DESCRIPTION = (
@@ -17,6 +19,10 @@ DESCRIPTION = (
 )
 
 
+SIGNATURE = b"# robot profile written by `vidodo new-robot`"
+"""First bytes of every profile this verb writes (an existing file without them is kept)."""
+
+
 def add_arguments(parser):
     """Options of the verb."""
     parser.add_argument("-o", "--out", type=Path, default=Path("robot.toml"),
@@ -27,6 +33,7 @@ def add_arguments(parser):
                         help="robot picture to write (default: beside --out, .png)")
     parser.add_argument("--list", action="store_true",
                         help="list the questions' keys and defaults, write nothing")
+    add_force(parser, "file")
 
 
 def _ask(q):
@@ -62,6 +69,9 @@ def run(args) -> int:
         for q in QUESTIONS:
             print(f"{q.key} = {q.default!r}   # {q.text}")
         return 0
+    from ..outputs import check_file_target
+
+    check_file_target(args.out, inputs=(args.answers,), force=args.force, signature=SIGNATURE)
     if args.answers is not None:
         given, _ = read_toml(args.answers)
         answers = complete_answers(given, str(args.answers))
@@ -71,7 +81,8 @@ def run(args) -> int:
             answers[q.key] = _ask(q)
     text = profile_text(answers)
     picture = args.picture or args.out.with_suffix(".png")
-    with atomic_file(args.out) as tmp:
+    with atomic_file(args.out, inputs=(args.answers,), force=args.force,
+                     signature=SIGNATURE) as tmp:
         tmp.write_text(text, encoding="utf-8")
         robot = load_robot(tmp)  # what is written must load
         with atomic_file(picture) as ptmp:

@@ -12,7 +12,7 @@ from ..logs import read_log
 from ..odometry import TRACK_COLUMNS, odometry_result
 from ..outputs import atomic_file, column_prefix
 from ..profiles import load_robot
-from ._options import add_out
+from ._options import add_force, add_out
 
 NAME = "odometry"
 HELP = "read a robot log and write the pose track of every odometry source"
@@ -29,6 +29,7 @@ def add_arguments(parser):
     parser.add_argument("log", type=Path, help="robot log CSV")
     parser.add_argument("--robot", type=Path, required=True, help="robot profile (TOML)")
     add_out(parser, "pose tracks CSV to write", required=True)
+    add_force(parser, "file")
 
 
 def tracks_table(tracks: dict) -> pd.DataFrame:
@@ -44,11 +45,15 @@ def tracks_table(tracks: dict) -> pd.DataFrame:
 
 def run(args) -> int:
     """Read, rebuild, write; warnings and a per-source summary to the terminal."""
+    from ..outputs import check_file_target
+
+    target = dict(inputs=(args.log, args.robot), force=args.force, signature=b"t_s,")
+    check_file_target(args.out, **target)
     robot = load_robot(args.robot)
     log = read_log(args.log, robot)
     result = odometry_result(log, robot)
     table = tracks_table(result.tracks)
-    with atomic_file(args.out) as tmp:
+    with atomic_file(args.out, **target) as tmp:
         table.to_csv(tmp, index=False, float_format="%.9g")
     for w in log.warnings + result.warnings:
         print(f"vidodo odometry: warning: {w}", file=sys.stderr)

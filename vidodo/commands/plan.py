@@ -5,6 +5,8 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+from ._options import add_force
+
 NAME = "plan"
 HELP = "plan the camera: expected error and marker size over the field for a placement"
 DESCRIPTION = (
@@ -60,6 +62,7 @@ def add_arguments(parser):
     parser.add_argument("--min-cell-px", type=float, default=4.0,
                         help="smallest marker cell that detects [px] (default 4)")
     parser.add_argument("-o", "--out", type=Path, required=True, help="folder to write into")
+    add_force(parser)
 
 
 def _marker(args):
@@ -144,7 +147,8 @@ def run(args) -> int:
                      "min_cell_px": args.min_cell_px, "grid_m": settings.grid_m,
                      "margin_m": margin},
     }
-    with staged_dir(args.out) as stage:
+    with staged_dir(args.out, inputs=(args.field, args.robot, args.lens), force=args.force,
+                    command="vidodo plan") as stage:
         write_plan_png(plan, fld, marker, stage / "plan.png")
         (stage / "plan.json").write_text(json.dumps(summary, indent=2) + "\n")
     print(f"marker detectable on {100 * det.mean():.0f}% of the field, in view on "

@@ -12,7 +12,7 @@ import numpy as np
 
 from ..errors import InputError, RegistrationRefused
 from ..lens import IMAGE_SUFFIXES, read_image
-from ..outputs import staged_dir
+from ..outputs import check_target, staged_dir
 from ..profiles import load_camera, load_field
 from ..registration import grid
 from ..registration.registrar import METHODS, FloorRegistrar, RegistrarSettings, summarise
@@ -82,6 +82,8 @@ def run(args) -> int:
     out = args.out or args.video.with_name(args.video.stem + "-register")
     if not args.video.exists():
         raise InputError(f"{args.video}: not found; check the path")
+    inputs = (args.video, args.field, args.camera, args.points)
+    check_target(out, inputs=inputs)  # before the frames are read
     regs = []
     ref_frame = None
     progress = None
@@ -96,7 +98,8 @@ def run(args) -> int:
                 try:
                     reg = registrar.register_reference(frame, t_s)
                 except RegistrationRefused as exc:
-                    registration_options.write_preview(exc, out / "preview.png")
+                    with staged_dir(out, inputs=inputs, command="vidodo register") as stage:
+                        registration_options.write_preview(exc, stage / "preview.png")
                     raise
                 ref_frame = frame
             else:
@@ -119,7 +122,7 @@ def run(args) -> int:
         seams = None
     preview = grid.draw_registration(ref_frame, ref, field, seams=seams)
     quality = summarise(regs)
-    with staged_dir(out) as stage:
+    with staged_dir(out, inputs=inputs, command="vidodo register") as stage:
         if not cv2.imwrite(str(stage / "preview.png"), preview):
             raise InputError(f"{out}: cannot write preview.png there")
         with open(stage / "registration.csv", "w", newline="") as fh:

@@ -8,6 +8,7 @@ from pathlib import Path
 from ..errors import InputError
 from ..progress import progress_bar
 from ..synth.scenario import load_scenario, scenario_names
+from ._options import add_force
 
 NAME = "render"
 HELP = "render a synthetic run (video, log, profiles, truth) from a scenario"
@@ -32,6 +33,7 @@ def add_arguments(parser):
                              "(repeatable; values in TOML syntax)")
     parser.add_argument("--no-video", action="store_true",
                         help="write everything except video.mp4 (fast)")
+    add_force(parser)
 
 
 def _overrides(args, base) -> dict:
@@ -55,14 +57,19 @@ def _overrides(args, base) -> dict:
 
 
 def run(args) -> int:
+    from ..outputs import staged_dir
     from ..synth.simulate import simulate_run
 
     base = load_scenario(args.scenario)
     sc = load_scenario(args.scenario, **_overrides(args, base)) if (
         args.set or args.width or args.fps) else base
     t0 = time.perf_counter()
-    with progress_bar(None, f"render {sc.name}", quiet=args.quiet) as bar:
-        out = simulate_run(sc, args.seed, args.out, progress=bar, video=not args.no_video)
+    scenario_file = Path(args.scenario) if Path(args.scenario).is_file() else None
+    with staged_dir(args.out, inputs=(scenario_file,), force=args.force,
+                    command="vidodo render") as stage, \
+            progress_bar(None, f"render {sc.name}", quiet=args.quiet) as bar:
+        simulate_run(sc, args.seed, stage, progress=bar, video=not args.no_video)
+    out = args.out
     if not args.quiet:
         print(f"rendered scenario '{sc.name}' (seed {args.seed}) in "
               f"{time.perf_counter() - t0:.1f} s -> {out}")

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ._options import add_out, add_switch, add_units
+from ._options import add_force, add_out, add_switch, add_units
 
 NAME = "report"
 HELP = "rebuild the plots and the one-file HTML report from a grade folder"
@@ -25,6 +25,7 @@ def add_arguments(parser):
     add_units(parser, "plots and the report")
     add_switch(parser, "replay", False,
                "write replay.mp4 (the footage with tracks drawn in)")
+    add_force(parser)
 
 
 def run(args) -> int:
@@ -33,10 +34,15 @@ def run(args) -> int:
     from ..progress import progress_bar
     from ..report.build import load_grade_dir, write_report
 
-    load_grade_dir(args.grade_dir)  # fail early, before anything is written
+    data = load_grade_dir(args.grade_dir)  # fail early, before anything is written
     out = args.out or args.grade_dir
-    with staged_dir(out) as stage, progress_bar(None, "replay", quiet=args.quiet or not
-                                                args.replay) as bar:
+    inputs = [(data.summary.get("inputs") or {}).get(k) for k in ("video", "robot", "field",
+                                                                  "camera")]
+    if args.out is not None:
+        inputs.append(args.grade_dir)
+    with staged_dir(out, inputs=[i for i in inputs if isinstance(i, str)], force=args.force,
+                    carry_over=True, command="vidodo report") as stage, \
+            progress_bar(None, "replay", quiet=args.quiet or not args.replay) as bar:
         written = write_report(args.grade_dir, stage, replay=args.replay, units=args.units,
                              progress=bar)
     if not args.quiet:

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from ._options import add_force
+
 NAME = "sheets"
 HELP = "write printable sheets at true scale (PDF + PNG, A4 and US Letter)"
 DESCRIPTION = (
@@ -45,6 +47,7 @@ def add_arguments(parser):
     parser.add_argument("--paper", default="a4,letter", help="a4, letter or both (default)")
     parser.add_argument("--no-png", action="store_true", help="PDF only")
     parser.add_argument("-o", "--out", type=Path, required=True, help="folder to write into")
+    add_force(parser)
 
 
 def _items(args):
@@ -88,7 +91,8 @@ def run(args) -> int:
     if bad or not papers:
         raise InputError(f"--paper {args.paper!r}: use a4, letter or a4,letter")
     items = _items(args)
-    with staged_dir(args.out) as stage:
+    with staged_dir(args.out, inputs=(args.robot, args.field), force=args.force,
+                    command="vidodo sheets") as stage:
         written = write_sheets(items, stage, papers=papers, png=not args.no_png)
     if not args.quiet:
         for p in written:

@@ -13,7 +13,7 @@ from ..outputs import atomic_file
 from ..profiles import load_camera, load_field, load_robot
 from ..progress import Progress
 from . import registration_options
-from ._options import add_out
+from ._options import add_force, add_out
 
 NAME = "track"
 HELP = "measure the robot's floor pose in every frame of a video (the truth track)"
@@ -35,6 +35,7 @@ def add_arguments(parser):
     from ..track import REFINE_METHODS
 
     add_out(parser, "track CSV to write", required=True)
+    add_force(parser, "file")
     parser.add_argument("--refine", choices=tuple(REFINE_METHODS),
                         default="apriltag", help="corner refinement (default: %(default)s)")
     parser.add_argument("--detector", choices=("auto", "opencv", "apriltag3"), default="auto",
@@ -65,23 +66,43 @@ def _quality_json(result) -> str:
                       indent=2)
 
 
-def _write(result, out: Path):
+TRACK_SIGNATURE = b"t_s,x_m,"
+QUALITY_SIGNATURE = b'{\n  "quality"'
+
+
+def _targets(args):
+    out = Path(args.out)
+    return ((out, TRACK_SIGNATURE), (out.with_suffix(".quality.json"), QUALITY_SIGNATURE))
+
+
+def _inputs(args):
+    return (args.video, args.robot, args.field, args.camera, getattr(args, "points", None))
+
+
+def _write(result, out: Path, args=None):
     from ..track import save_track_csv
 
-    with atomic_file(out) as tmp:
+    kw = {} if args is None else dict(inputs=_inputs(args), force=args.force)
+    with atomic_file(out, signature=TRACK_SIGNATURE, **kw) as tmp:
         save_track_csv(result, tmp)
-    with atomic_file(out.with_suffix(".quality.json")) as tmp:
+    with atomic_file(out.with_suffix(".quality.json"), signature=QUALITY_SIGNATURE,
+                     **kw) as tmp:
         tmp.write_text(_quality_json(result))
 
 
 def run(args) -> int:
     """Track, write the CSV (also the part before a truncation), report."""
+    from ..input_checks import camera_matches_video
+    from ..outputs import check_file_target
     from ..track import track_video
     from ..video import VideoTruncatedError
 
+    for path, sig in _targets(args):
+        check_file_target(path, inputs=_inputs(args), force=args.force, signature=sig)
     robot = load_robot(args.robot)
     field = load_field(args.field)
     camera = load_camera(args.camera) if args.camera else None
+    camera_matches_video(camera, args.video)
     registrar = registration_options.registrar_from_args(args, field, camera)
     readout = None if args.readout_ms is None else args.readout_ms / 1000.0
     try:
@@ -95,11 +116,11 @@ def run(args) -> int:
     except VideoTruncatedError as exc:
         if exc.partial is None:
             raise
-        _write(exc.partial, args.out)
+        _write(exc.partial, args.out, args)
         print(f"vidodo track: warning: track written up to frame {exc.frames_read} "
               f"({exc.t_last_s:.3f} s) -> {args.out}", file=sys.stderr)
         raise
-    _write(result, args.out)
+    _write(result, args.out, args)
     for w in result.warnings:
         print(f"vidodo track: warning: {w}", file=sys.stderr)
     if not args.quiet:

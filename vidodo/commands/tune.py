@@ -14,7 +14,7 @@ from ..logs import read_log
 from ..profile_fit import FitRun
 from ..profiles import load_robot
 from ..tuning import tune_profile, write_tuning
-from ._options import add_old_spelling, add_out
+from ._options import add_force, add_old_spelling, add_out
 
 NAME = "tune"
 HELP = "fit wheel radii, offsets and IMU scale to the video truth; write a corrected profile"
@@ -38,6 +38,7 @@ def add_arguments(parser):
     parser.add_argument("--field", type=Path, help="field profile (for VIDEO LOG pairs)")
     parser.add_argument("--camera", type=Path, help="camera profile (for VIDEO LOG pairs)")
     add_out(parser, "folder to write", required=True)
+    add_force(parser)
     parser.add_argument("--window-s", type=float, default=0.4, metavar="S",
                         help="length of each fitting window [s] (default: %(default)s)")
     add_old_spelling(parser, "--window", "window_s", type=float)
@@ -183,15 +184,22 @@ def format_table(table: pd.DataFrame) -> str:
 # ---------------------------------------------------------------------------- run
 def run(args) -> int:
     """Collect the runs, fit, write the profile and the tables, print the values."""
+    from ..outputs import check_target, staged_dir
+
+    check_target(args.out, inputs=(*args.inputs, args.robot), force=args.force)
     specs = _collect(args)
-    robot_path = specs[0][2]
-    robot = load_robot(robot_path)
-    logs = [read_log(s[1], robot) for s in specs]
-    runs = [FitRun(log=lg.frame, **s[0]) for s, lg in zip(specs, logs, strict=True)]
-    tuned = tune_profile(runs, robot, lambda prof: [read_log(s[1], prof) for s in specs],
-                         window_s=args.window_s, fit_clock=not args.no_clock)
-    fit, drift = tuned.fit, tuned.drift
-    write_tuning(tuned, args.out)
+    inputs = [*args.inputs, args.robot, args.field, args.camera,
+              *(p for s in specs for p in s[1:])]
+    with staged_dir(args.out, inputs=inputs, force=args.force,
+                    command="vidodo tune") as stage:
+        robot_path = specs[0][2]
+        robot = load_robot(robot_path)
+        logs = [read_log(s[1], robot) for s in specs]
+        runs = [FitRun(log=lg.frame, **s[0]) for s, lg in zip(specs, logs, strict=True)]
+        tuned = tune_profile(runs, robot, lambda prof: [read_log(s[1], prof) for s in specs],
+                             window_s=args.window_s, fit_clock=not args.no_clock)
+        fit, drift = tuned.fit, tuned.drift
+        write_tuning(tuned, stage)
     for w in fit.warnings:
         print(f"vidodo tune: warning: {w}", file=sys.stderr)
     if not args.quiet:

@@ -76,8 +76,12 @@ def field_from_summary(summary: dict, folder: Path | None = None):
     f = summary.get("field")
     if isinstance(f, dict) and {"tiles_x", "tiles_y", "tile_size_m"} <= set(f):
         try:
-            return FieldProfile(int(f["tiles_x"]), int(f["tiles_y"]), float(f["tile_size_m"]))
-        except (TypeError, ValueError):
+            from ..plausible import check_field
+
+            fp = FieldProfile(int(f["tiles_x"]), int(f["tiles_y"]), float(f["tile_size_m"]))
+            check_field(fp)  # bounds the tile grid drawn
+            return fp
+        except (TypeError, ValueError, OverflowError):
             pass
     candidates = []
     p = (summary.get("inputs") or {}).get("field")

@@ -76,6 +76,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+from ..csvsafe import write_csv
 from ..outputs import staged_dir
 
 __all__ = ["write_outputs", "OUTPUT_FILES"]
@@ -102,15 +103,15 @@ def write_outputs(result, out_dir, *, write_track=True) -> list[Path]:
     out = Path(out_dir)
     names = []
     with staged_dir(out) as stage:
-        result.drift.to_csv(stage / "drift.csv", index=False, float_format="%.6g")
+        write_csv(result.drift, stage / "drift.csv", float_format="%.6g")
         names.append("drift.csv")
-        result.events.to_csv(stage / "events.csv", index=False, float_format="%.6g")
+        write_csv(result.events, stage / "events.csv", float_format="%.6g")
         names.append("events.csv")
         with open(stage / "summary.json", "w", encoding="utf-8") as fh:
             json.dump(result.summary, fh, indent=2, allow_nan=False)
             fh.write("\n")
         names.append("summary.json")
         if write_track:
-            result.truth.to_csv(stage / "track.csv", index=False, float_format="%.7g")
+            write_csv(result.truth, stage / "track.csv", float_format="%.7g")
             names.append("track.csv")
     return [out / n for n in names]

@@ -10,9 +10,11 @@ Agg canvas (no pyplot, no global state, safe in worker processes).
 
 from __future__ import annotations
 
+import functools
 import math
 from pathlib import Path
 
+import matplotlib
 import numpy as np
 import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
@@ -55,6 +57,20 @@ PLOT_NAMES = ("field_map", "error_vs_time", "speed")
 
 
 # ------------------------------------------------------------------ data for plots
+LITERAL_TEXT = {"text.parse_math": False, "text.usetex": False}
+"""Matplotlib settings under which every string is drawn as written: names, titles and
+labels come from users (a ``$`` in a source name must not start math text)."""
+
+
+def literal_text(fn):
+    """Run ``fn`` (which makes or saves a figure) with :data:`LITERAL_TEXT`."""
+    @functools.wraps(fn)
+    def wrapper(*args, **kwargs):
+        with matplotlib.rc_context(LITERAL_TEXT):
+            return fn(*args, **kwargs)
+    return wrapper
+
+
 def source_prefixes(drift: pd.DataFrame, names=None) -> dict[str, str]:
     """Odometry sources present in a drift table, display name -> column prefix.
 
@@ -168,6 +184,7 @@ def _event_legend(windows):
 
 
 # ------------------------------------------------------------------------ figures
+@literal_text
 def field_map_figure(drift: pd.DataFrame, events: pd.DataFrame | None = None, *,
                      field=None, sources=None, unit: str = "mm", title: str = "") -> Figure:
     """Top-down map of the field to scale with every track and the events.
@@ -302,6 +319,7 @@ def _map_limits(xs, ys, *, tight):
     return (x.min() - pad, x.max() + pad, y.min() - pad, y.max() + pad)
 
 
+@literal_text
 def error_figure(drift: pd.DataFrame, events: pd.DataFrame | None = None, *, sources=None,
                  unit: str = "mm", title: str = "") -> Figure:
     """Anchored position error over time, one panel per source, events shaded.
@@ -342,6 +360,7 @@ def error_figure(drift: pd.DataFrame, events: pd.DataFrame | None = None, *, sou
     return fig
 
 
+@literal_text
 def speed_figure(drift: pd.DataFrame, events: pd.DataFrame | None = None, *, sources=None,
                  unit: str = "mm", title: str = "") -> Figure:
     """Ground speed of the truth track against each odometry source, events shaded."""
@@ -371,6 +390,7 @@ def speed_figure(drift: pd.DataFrame, events: pd.DataFrame | None = None, *, sou
     return fig
 
 
+@literal_text
 def save_figure(fig: Figure, path) -> Path:
     """Write a figure as PNG and return the path."""
     path = Path(path)
@@ -402,6 +422,7 @@ def write_plots(drift: pd.DataFrame, events: pd.DataFrame | None, out_dir, *, fi
     return {name: save_figure(fig, out_dir / f"{name}.png") for name, fig in figs.items()}
 
 
+@literal_text
 def trend_figure(table: pd.DataFrame, *, unit: str = "mm"):
     """Drift across runs: final error and ATE per source, failed runs marked.
 
