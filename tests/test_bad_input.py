@@ -194,26 +194,26 @@ def test_interrupt_while_plotting_leaves_the_old_set(run, tmp_path, capsys, monk
     out = tmp_path / "graded"
     assert main(grade_argv(run, out)) == 0
     capsys.readouterr()
-    import vidodo.showcase
+    import vidodo.report.build
 
     def stop(*a, **k):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(vidodo.showcase, "render_all", stop)
+    monkeypatch.setattr(vidodo.report.build, "write_report", stop)
     check(capsys, grade_argv(run, out, report=True), 130, r"interrupted", out, run)
 
 
 @pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGHUP])
 def test_sigterm_and_sighup_remove_the_staged_set(run, tmp_path, capsys, monkeypatch, sig):
-    import vidodo.report
+    import vidodo.report.grade_files
 
-    real = vidodo.report.write_outputs
+    real = vidodo.report.grade_files.write_outputs
 
     def killed(*a, **k):
         real(*a, **k)
         os.kill(os.getpid(), sig)
 
-    monkeypatch.setattr(vidodo.report, "write_outputs", killed)
+    monkeypatch.setattr(vidodo.report.grade_files, "write_outputs", killed)
     out = tmp_path / "graded"
     check(capsys, grade_argv(run, out), 130, rf"interrupted by {sig.name}", out, run)
 
@@ -267,7 +267,7 @@ def test_wrong_clock_offset_is_not_a_crash(run, tmp_path, capsys, offset):
 
 def test_clock_offset_nan(run, tmp_path, capsys):
     check(capsys, grade_argv(run, tmp_path / "o", "--clock-offset", "nan"), 2,
-          r"--clock-offset nan: must be a finite number", run)
+          r"--clock-offset-s nan: must be a finite number", run)
 
 
 def test_math_text_in_a_source_name_is_drawn_literally(run, tmp_path, capsys):
