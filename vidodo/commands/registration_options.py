@@ -5,8 +5,6 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import cv2
-
 from ..errors import InputError
 from ..outputs import atomic_file
 from ..profiles import parse_start_tile
@@ -47,6 +45,8 @@ def registrar_from_args(args, field, camera, *, relative_ok=True):
 
 def write_preview(exc, path: Path) -> None:
     """Write the preview a refused registration carries (if any) to ``path``."""
+    import cv2  # here, so a verb's options and refusals need no vision library
+
     preview = getattr(exc, "preview_bgr", None)
     if preview is None:
         return
