@@ -18,6 +18,7 @@ import numpy as np
 import pytest
 from apriltag3 import apriltag3_corners
 
+from vidodo.outputs import MANIFEST
 from vidodo.sheets import (
     BOARD_DEFAULT,
     MEASURE_LINE,
@@ -222,7 +223,7 @@ def test_floor_markers_from_the_field_profile(tmp_path):
     out = tmp_path / "out"
     assert main(["sheets", "--field", str(field), "--floor-ids", "2", "--no-board",
                  "--paper", "letter", "--no-png", "--out", str(out), "--quiet"]) == 0
-    assert sorted(p.name for p in out.iterdir()) == ["sheets-letter.pdf"]
+    assert sorted(p.name for p in out.iterdir() if p.name != MANIFEST) == ["sheets-letter.pdf"]
     text = subprocess.run(["pdftotext", str(out / "sheets-letter.pdf"), "-"],
                           capture_output=True, text=True, check=True).stdout
     flat = " ".join(text.split())

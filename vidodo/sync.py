@@ -407,19 +407,23 @@ def manual_clock(truth_track, odometry, offset_s, *, rate=0.0) -> ClockSync:
                      method="manual", rate=float(rate), warnings=tuple(warn))
 
 
-def _travel(t_s, xy, t0, t1):
+def _travel(t_s, xy, t0, t1, gate_m=0.0):
+    """Path length between t0 and t1, steps under ``gate_m`` held back (noise)."""
+    from .metrics import path_length
+
     sel = (t_s >= t0) & (t_s <= t1) & np.isfinite(xy).all(axis=1)
     p = xy[sel]
-    return float(np.sum(np.hypot(*np.diff(p, axis=0).T))) if len(p) > 1 else 0.0
+    return float(path_length(p, gate_m=gate_m)[-1]) if len(p) > 1 else 0.0
 
 
 def _manual_offset_check(truth_track, odometry, offset_s) -> list[str]:
     """Refuse a manual offset under which the log and the video disagree on motion.
 
-    Over the overlap, the truth's path length and each source's are compared: the
-    robot cannot travel metres in the video while every odometry source stands still
-    (or the reverse). Typical cause: the offset's sign (it is video time minus log
-    time). Also compares with the automatic estimate and warns when they differ.
+    Over the overlap, the truth's path length (steps under 3 sigma held back) and each
+    source's are compared: the robot cannot travel metres in the video while every
+    odometry source stands still (or the reverse). Typical cause: the offset's sign (it
+    is video time minus log time). Also compares with the automatic estimate and warns
+    when they differ.
 
     Raises
     ------
@@ -428,13 +432,15 @@ def _manual_offset_check(truth_track, odometry, offset_s) -> list[str]:
     """
     t_tr = truth_track["t_s"].to_numpy(float)
     xy_tr = truth_track[["x_m", "y_m"]].to_numpy(float)
+    sig = truth_track["sigma_xy_m"].to_numpy(float) if "sigma_xy_m" in truth_track else []
+    gate = 3.0 * float(np.nanmedian(sig)) if np.isfinite(sig).any() else 0.006
     ratios = []
     for df in odometry.values():
         t = df["t_s"].to_numpy(float) + offset_s
         t0, t1 = max(t[0], t_tr[0]), min(t[-1], t_tr[-1])
-        truth_m = _travel(t_tr, xy_tr, t0, t1)
+        truth_m = _travel(t_tr, xy_tr, t0, t1, gate_m=gate)
         src_m = _travel(t, df[["x_m", "y_m"]].to_numpy(float), t0, t1)
-        if max(truth_m, src_m) >= 0.3:
+        if truth_m >= 0.3:  # a still video is left to the no-motion warnings
             ratios.append((truth_m, src_m))
     if ratios and all(max(a, b) > 4.0 * min(a, b) for a, b in ratios):
         a, b = ratios[0]
