@@ -18,7 +18,6 @@ Frames are streamed: one is decoded, annotated and handed to the encoder at a ti
 from __future__ import annotations
 
 import math
-import shutil
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -408,8 +407,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
     trail_s : float
         Track length drawn behind each pose [s].
     codec : str
-        Codec for :func:`vidodo.encode.write_video` ('h264' plays in browsers); without
-        ffmpeg the file is written by OpenCV as MPEG-4 part 2.
+        Codec for :func:`vidodo.encode.write_video` ('h264' plays in browsers).
     progress : callable, optional
         ``progress(done, total)`` per frame.
 
@@ -475,7 +473,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
     from ..encode import write_video
 
     out_path.parent.mkdir(parents=True, exist_ok=True)
-    write_video(out_path, frames(), times, codec=codec if shutil.which("ffmpeg") else "mpeg4")
+    write_video(out_path, frames(), times, codec=codec)
     return out_path
 
 
