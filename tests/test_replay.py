@@ -159,7 +159,7 @@ def test_written_replay_keeps_times_and_lands_on_marker(tmp_path):
 
 @pytest.mark.slow
 def test_replay_on_rendered_run(request, tmp_path):
-    """Acceptance (issue 8): on a rendered run, the drawn truth ring is within 3 px of the
+    """On a rendered run, the drawn truth ring is within 3 px of the
     marker's true position projected with the run's camera (truth/meta.json) in sampled
     frames. The replay itself registers each frame with FloorRegistrar (no truth read).
     """
