@@ -36,6 +36,8 @@ __all__ = [
     "marker_points_m",
     "frame_overlay",
     "annotate_frame",
+    "ReplaySetup",
+    "ReplayStyle",
     "write_replay",
     "replay_from_grade",
 ]
@@ -372,10 +374,45 @@ def _frame_times(path: Path) -> np.ndarray:
     return t - min(0.0, t[0])
 
 
-def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, out_path, *,
-                 robot=None, field=None, camera=None, sources: dict | None = None,
-                 registration=None, marker=None, units: str = "mm", trail_s: float = 3.0,
-                 codec: str = "h264", progress=None) -> Path:
+@dataclass(frozen=True)
+class ReplaySetup:
+    """What the replay needs to know about the run besides its tables."""
+
+    robot: object = None
+    """RobotProfile: its first marker's offset and height place the rings; its box is
+    masked out of the floor registration."""
+    field: object = None
+    """FieldProfile; needed unless ``registration`` is given."""
+    camera: object = None
+    """CameraProfile (lens) for the floor registration."""
+    registration: object = None
+    """One FrameRegistration for every frame (fixed camera), or ``f(frame_bgr, t_s,
+    mask) -> FrameRegistration``; default: a
+    :class:`vidodo.registration.registrar.FloorRegistrar` for ``field`` and ``camera``
+    run on every frame."""
+    marker: object = None
+    """The Marker whose position is drawn (default: the robot's first marker; without
+    either, the robot's reference point on the floor)."""
+    sources: dict | None = None
+    """Source display name -> drift column prefix (default: every source in the
+    drift table)."""
+
+
+@dataclass(frozen=True)
+class ReplayStyle:
+    """How the replay looks."""
+
+    units: str = "mm"
+    """Display unit of the readout: 'mm', 'in' or 'm'."""
+    trail_s: float = 3.0
+    """Track length drawn behind each pose [s]."""
+    codec: str = "h264"
+    """Codec for :func:`vidodo.encode.write_video` ('h264' plays in browsers)."""
+
+
+def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, out_path,
+                 setup: ReplaySetup | None = None, style: ReplayStyle | None = None, *,
+                 progress=None) -> Path:
     """Write the annotated replay of a run.
 
     Parameters
@@ -386,28 +423,10 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
         Grade outputs (DEVELOPERS.md, "Grade outputs").
     out_path : path
         The mp4 to write.
-    robot : RobotProfile, optional
-        Its first marker's offset and height place the rings; its box is masked out of
-        the floor registration.
-    field : FieldProfile
-        Needed unless ``registration`` is given.
-    camera : CameraProfile, optional
-        Lens profile for the floor registration.
-    sources : dict, optional
-        Source display name -> drift column prefix.
-    registration : FrameRegistration or callable, optional
-        One registration for every frame (fixed camera), or ``f(frame_bgr, t_s, mask)
-        -> FrameRegistration``; default: a :class:`vidodo.registration.registrar.FloorRegistrar`
-        for ``field`` and ``camera`` run on every frame.
-    marker : Marker, optional
-        The marker whose position is drawn (default: the robot's first marker; without
-        either, the robot's reference point on the floor).
-    units : {'mm', 'in', 'm'}
-        Display unit of the readout.
-    trail_s : float
-        Track length drawn behind each pose [s].
-    codec : str
-        Codec for :func:`vidodo.encode.write_video` ('h264' plays in browsers).
+    setup : ReplaySetup, optional
+        Robot, field and camera profiles, or a registration; marker; sources.
+    style : ReplayStyle, optional
+        Display unit, trail length [s], codec.
     progress : callable, optional
         ``progress(done, total)`` per frame.
 
@@ -418,19 +437,22 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
     """
     from ..video import VideoReader, VideoTruncatedError
 
+    setup, style = setup or ReplaySetup(), style or ReplayStyle()
+    robot, marker = setup.robot, setup.marker
     video_path, out_path = Path(video_path), Path(out_path)
-    sources = source_prefixes(drift) if sources is None else sources
+    sources = source_prefixes(drift) if setup.sources is None else setup.sources
     tracks = ReplayTracks.from_tables(drift, events, sources)
     colors = {n: _hex_to_bgr(c) for n, c in source_colors(sources).items()}
     if marker is None and robot is not None and robot.markers:
         marker = robot.markers[0]
+    registration = setup.registration
     if registration is None:
-        if field is None:
+        if setup.field is None:
             raise InputError("replay: needs the field profile (or a registration) to map "
                              "floor positions into the frames")
         from ..registration.registrar import FloorRegistrar
 
-        registrar = FloorRegistrar(field, camera)
+        registrar = FloorRegistrar(setup.field, setup.camera)
         register = registrar.register
     elif callable(registration) and not hasattr(registration, "floor_to_image"):
         register = registration
@@ -461,8 +483,8 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
             row = tracks.row_at(t_s, max_gap_s=gap)
             state["reg"] = reg if getattr(reg, "ok", False) else state["reg"]
             state["pose"] = tracks.truth[row] if row is not None else state["pose"]
-            ov = frame_overlay(tracks, row, reg, marker=marker, trail_s=trail_s)
-            lines = readout_lines(tracks, row, t_s, colors, units)
+            ov = frame_overlay(tracks, row, reg, marker=marker, trail_s=style.trail_s)
+            lines = readout_lines(tracks, row, t_s, colors, style.units)
             if not getattr(reg, "ok", False):
                 lines.append(("floor not registered in this frame", (0, 0, 255)))
             img = annotate_frame(frame, ov, lines=lines, colors=colors)
@@ -473,7 +495,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
     from ..encode import write_video
 
     out_path.parent.mkdir(parents=True, exist_ok=True)
-    write_video(out_path, frames(), times, codec=codec)
+    write_video(out_path, frames(), times, codec=style.codec)
     return out_path
 
 
@@ -516,6 +538,7 @@ def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,
     field = load_field(field_path) if field_path is not None else data.field
     cam_path = find("camera", required=False)
     camera = load_camera(cam_path) if cam_path is not None else None
-    return write_replay(video, data.drift, data.events, out_path, robot=robot, field=field,
-                        camera=camera, sources=data.sources, registration=registration,
-                        units=units, progress=progress)
+    setup = ReplaySetup(robot=robot, field=field, camera=camera, registration=registration,
+                        sources=data.sources)
+    return write_replay(video, data.drift, data.events, out_path, setup,
+                        ReplayStyle(units=units), progress=progress)
