@@ -217,6 +217,10 @@ class GradeSettings:
     """Pass/fail limits (none by default)."""
     events: EventSettings = field(default_factory=EventSettings)
     """Event detection thresholds."""
+    registrar: object = None
+    """How the floor is registered while tracking (a
+    :class:`~vidodo.registration.registrar.FloorRegistrar`: points, start tile, limits);
+    default: the automatic one for the field and camera."""
 
 
 @dataclass(frozen=True)
@@ -540,7 +544,7 @@ def _jsonable(obj):
 
 
 def grade_run(video, log, robot, field_profile, camera=None, *, settings=None, track=None,
-              progress=None, registrar=None) -> GradeResult:
+              progress=None) -> GradeResult:
     """Grade one run: video + log + profiles -> drift, events, verdict.
 
     Parameters
@@ -554,14 +558,11 @@ def grade_run(video, log, robot, field_profile, camera=None, *, settings=None, t
     camera : CameraProfile or path, optional
         Lens profile; the tracker estimates one when absent.
     settings : GradeSettings, optional
-        Manual clock offset [s], tolerances, event thresholds.
+        Manual clock offset [s], tolerances, event thresholds, floor registrar.
     track : DataFrame or path, optional
         A truth track to reuse instead of tracking the video.
     progress : callable, optional
         Passed to the tracker.
-    registrar : FloorRegistrar, optional
-        How the floor is registered (points, start tile, limits); default: the
-        automatic one for the field and camera.
 
     Returns
     -------
@@ -588,7 +589,7 @@ def grade_run(video, log, robot, field_profile, camera=None, *, settings=None, t
 
         camera_matches_video(camera, video)  # before a whole tracking pass
         truth = track_video(video, robot, field_profile, camera, progress=progress,
-                            registrar=registrar)
+                            registrar=(settings or GradeSettings()).registrar)
     elif isinstance(track, pd.DataFrame):
         truth = track
         inputs["track"] = "given"
