@@ -32,7 +32,7 @@ import pandas as pd
 from . import apriltag3
 from .errors import InputError, TrackingError
 from .profiles import marker_corners_local
-from .smooth import smooth_ca_signals
+from .smooth import rts_smooth_signals
 from .video import VideoReader, VideoTruncatedError, readout_fraction
 
 __all__ = [
@@ -614,7 +614,7 @@ class _RegistrationPolicy:
 
 # ------------------------------------------------------------------ the tracking
 @dataclass
-class _Acc:
+class _FrameRecords:
     """Per-frame numbers gathered while streaming (no images)."""
 
     t: list = field(default_factory=list)
@@ -713,12 +713,12 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
 
     Returns
     -------
-    _Acc
+    _FrameRecords
         Per-frame fixes and statistics (internal; see :func:`track_video`).
     """
     det = MarkerDetector(robot.markers, refine=refine, detector=detector)
     policy = _RegistrationPolicy(registrar, field_profile, register_every)
-    acc = _Acc() if acc is None else acc
+    acc = _FrameRecords() if acc is None else acc
     acc.detector = det
     acc.policy = policy
     last = prev = None
@@ -1083,7 +1083,7 @@ def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, fresh_px
         rows = np.arange(a, b + 1)
         # Fresh corner noise goes through the smoother (averaged over frames) ...
         unit = cov_unit[m]
-        sx, sy, sh = smooth_ca_signals(
+        sx, sy, sh = rts_smooth_signals(
             t_meas[m], np.column_stack([x[m], y[m], th[m]]),
             fresh_px[m, None] * np.sqrt(np.diagonal(unit, axis1=1, axis2=2)), t[rows])
         fits.append((sx.q, sx.r_scale, sy.q, sy.r_scale, sh.q, sh.r_scale,
@@ -1407,7 +1407,7 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
         readout_s = float(readout_s)
         source = "given"
     warnings: list[str] = []
-    acc = _Acc()
+    acc = _FrameRecords()
     # Detection runs on small windows: OpenCV's own thread pool costs more than it gives
     # there and competes with the decoder's threads, so it is paused while tracking.
     threads = cv2.getNumThreads()
