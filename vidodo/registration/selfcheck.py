@@ -287,15 +287,20 @@ def pose_problem(reg: FrameRegistration, image_size, limits: CheckLimits, *,
     return ""
 
 
-def holdout_problem(points, reg: FrameRegistration, image_size, tile_size_m,
-                    limits: CheckLimits) -> str:
-    """Why a clicked point disagrees with the others, or '' (each point predicted by a
-    pose fitted to all the others, with the intrinsics held)."""
+def holdout_errors(points, reg: FrameRegistration, image_size):
+    """Each clicked point predicted by a pose fitted to all the others (intrinsics held).
+
+    Returns
+    -------
+    (ndarray (N,), ndarray (N,))
+        Floor error [m] and image error [px] of each point; empty with fewer than 6.
+    """
     px, fl = (np.asarray(a, float).reshape(-1, 2) for a in points)
     if len(px) < 6:
-        return ""
+        return np.zeros(0), np.zeros(0)
     k, d = reg.camera_matrix, reg.dist_coeffs
-    worst, at = 0.0, -1
+    err = np.full(len(px), np.nan)
+    err_px = np.full(len(px), np.nan)
     for i in range(len(px)):
         rest = np.arange(len(px)) != i
         try:
@@ -305,11 +310,18 @@ def holdout_problem(points, reg: FrameRegistration, image_size, tile_size_m,
         except CalibrationError:
             continue
         one = FrameRegistration(0.0, True, k, d, fit.rvec, fit.tvec, 0.0, 0.0, 0, "")
-        err = float(np.linalg.norm(one.image_to_floor(px[i:i + 1])[0] - fl[i]))
-        if err > worst:
-            worst, at = err, i
-    if worst > limits.max_holdout_tiles * tile_size_m:
-        return (f"point {at + 1} (u {px[at, 0]:.0f}, v {px[at, 1]:.0f} px) is {worst:.3f} m "
+        err[i] = float(np.linalg.norm(one.image_to_floor(px[i:i + 1])[0] - fl[i]))
+        err_px[i] = float(np.linalg.norm(one.floor_to_image(fl[i:i + 1])[0] - px[i]))
+    return err, err_px
+
+
+def _holdout_problem(points, err, tile_size_m, limits: CheckLimits) -> str:
+    if not np.isfinite(err).any():
+        return ""
+    at = int(np.nanargmax(err))
+    if err[at] > limits.max_holdout_tiles * tile_size_m:
+        px = np.asarray(points[0], float).reshape(-1, 2)
+        return (f"point {at + 1} (u {px[at, 0]:.0f}, v {px[at, 1]:.0f} px) is {err[at]:.3f} m "
                 "from where the other points put it; check that row")
     return ""
 
@@ -347,8 +359,14 @@ def check_reference(grey, field_profile: FieldProfile, reg: FrameRegistration,
                "focal_px": float(reg.camera_matrix[0, 0])}
     reason = pose_problem(reg, (w, h), limits, lens_known=facts.lens_known)
     if not reason and facts.points is not None:
-        reason = holdout_problem(facts.points, reg, (w, h), field_profile.tile_size_m,
-                                 limits)
+        err, err_px = holdout_errors(facts.points, reg, (w, h))
+        if np.isfinite(err_px).any():
+            # Prediction error beyond the residual: held-out residuals carry the point's
+            # own noise plus the model's error at a point it did not see.
+            loo2 = float(np.nanmean(err_px ** 2))
+            figures["holdout_rms_px"] = math.sqrt(loo2)
+            figures["prediction_px"] = math.sqrt(max(loo2 - reg.rms_px ** 2, 0.0))
+        reason = _holdout_problem(facts.points, err, field_profile.tile_size_m, limits)
     if reason or not facts.method.startswith("grid"):
         return CheckReport(reason, figures)
     ev = seam_evidence(grey, field_profile, reg, ignore=ignore)
