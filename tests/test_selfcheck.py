@@ -280,3 +280,19 @@ def test_field_profile_start_tile_is_checked(tmp_path):
     with pytest.raises(InputError, match="outside the field's 6 x 4 tiles"):
         load_field(p)
     assert FieldProfile(2, 2, 0.5).start_tile is None
+
+
+def test_grid_window_moved_onto_the_field_by_whole_tiles(still):
+    """A lattice right but two tiles off in x and one in y is moved back to where the
+    seams stop at the field's edges."""
+    from vidodo.registration.grid.search import place_in_tiling
+
+    d, rvec, tvec = still
+    grey = cv2.imread(str(d / "floor.png"), cv2.IMREAD_GRAYSCALE)
+    rv, tv = _shifted(rvec, tvec, -1.2, 0.6)
+    fit = CameraFit(CAM.matrix, CAM.dist_coeffs, rv, tv, 0.4, 0.001, 500, np.ones(500, bool))
+    placed = place_in_tiling(grey, FIELD, fit)
+    np.testing.assert_allclose(placed.tvec, tvec, atol=1e-9)
+    same = place_in_tiling(grey, FIELD, CameraFit(CAM.matrix, CAM.dist_coeffs, rvec, tvec, 0.4,
+                                                  0.001, 500, np.ones(500, bool)))
+    np.testing.assert_allclose(same.tvec, tvec, atol=1e-12)

@@ -37,7 +37,7 @@ from ..profiles import FieldProfile
 from .camera_fit import FitOptions, fit_camera
 from .frame import FrameRegistration
 from .grid import draw_registration
-from .grid.seams import SeamSearch, locate_seams
+from .grid.evidence import edge_rates, edge_samples, row_rates, search_half_width_px, tiles_end
 
 __all__ = ["CheckLimits", "CheckReport", "ReferenceFacts", "check_reference", "check_track",
            "place_track", "refuse", "seam_evidence"]
@@ -86,65 +86,6 @@ class CheckReport:
 
 
 # ------------------------------------------------------------------ seam evidence
-#: Half-width of the band searched for a seam across each predicted tile edge, and the
-#: distance from the prediction within which a found seam counts [px at 1280 x 720,
-#: scaled with the image diagonal]. A registration good to a few millimetres puts the
-#: seams within a pixel; a dip on grain or print lands anywhere in the band (chance
-#: about 1.2 / 6 per sample).
-SEARCH_PX = 6.0
-HIT_PX = 1.2
-
-def _edge_samples(field_profile: FieldProfile, offset, ring=0, per_edge=8, gap=0.15):
-    """Sample points on every tile side of the field (grown by ``ring`` tiles), shifted
-    across the side by ``offset`` tiles.
-
-    Returns (points (N, 2) [m], axis (N,), value (N,) [m], normal (N, 2), edge id (N,)).
-    """
-    s = field_profile.tile_size_m
-    nx, ny = field_profile.tiles_x, field_profile.tiles_y
-    t = np.linspace(gap, 1 - gap, per_edge)
-    pts, axis, val, nrm, eid = [], [], [], [], []
-    k = 0
-    for ax, n_lines, n_tiles in ((0, nx, ny), (1, ny, nx)):
-        for i in range(-ring, n_lines + ring + 1):
-            v = (i + offset) * s
-            for j in range(-ring, n_tiles + ring):
-                along = (j + t) * s
-                p = np.column_stack([np.full_like(along, v), along])
-                pts.append(p if ax == 0 else p[:, ::-1])
-                axis.append(np.full(per_edge, ax))
-                val.append(np.full(per_edge, v))
-                nrm.append(np.tile([1.0, 0.0] if ax == 0 else [0.0, 1.0], (per_edge, 1)))
-                eid.append(np.full(per_edge, k))
-                k += 1
-    return (np.vstack(pts), np.concatenate(axis), np.concatenate(val), np.vstack(nrm),
-            np.concatenate(eid))
-
-
-def _edge_rates(grey, reg, samples, tile_size_m, ignore, half_width_px):
-    """Per tile edge: samples examined and samples with a seam found where predicted.
-
-    The seam is looked for over a wide band (``half_width_px`` each side) but counts
-    only within :data:`HIT_PX` of the prediction: on tile grain, print or texture a dip
-    turns up anywhere in the band, a true seam where the registration puts it.
-    """
-    fl, axis, val, nrm, eid = samples
-    q, q_ax, q_val, looked, offset = locate_seams(
-        grey, reg, (fl, axis, val, nrm), tile_size_m, ignore=ignore,
-        search=SeamSearch(half_width_px=half_width_px))
-    with np.errstate(invalid="ignore"):
-        hit = np.abs(offset) <= HIT_PX * half_width_px / SEARCH_PX
-    n_e = int(eid.max()) + 1 if len(eid) else 0
-    n_looked = np.bincount(eid, looked, n_e)
-    n_hit = np.bincount(eid, hit, n_e)
-    n_any = np.bincount(eid, np.isfinite(offset), n_e)
-    return n_looked, n_hit, (q, q_ax, q_val), n_any
-
-
-def _half_width_px(shape):
-    return SEARCH_PX * float(np.clip(math.hypot(shape[1], shape[0]) / 1469.0, 0.5, 1.5))
-
-
 def seam_evidence(grey, field_profile: FieldProfile, reg: FrameRegistration, *, ignore=None):
     """Seam evidence on the predicted tile edges of the field and half a tile off.
 
@@ -156,14 +97,14 @@ def seam_evidence(grey, field_profile: FieldProfile, reg: FrameRegistration, *, 
         a tile off), ``on_rate`` / ``off_rate`` (fraction of samples with a seam), and
         ``samples`` (located seam pixels, axis, value: for the subset check).
     """
-    hw = _half_width_px(grey.shape)
+    hw = search_half_width_px(grey.shape)
     s = field_profile.tile_size_m
-    on = _edge_rates(grey, reg, _edge_samples(field_profile, 0.0), s, ignore, hw)
-    off_samples = _edge_samples(field_profile, 0.5)
+    on = edge_rates(grey, reg, edge_samples(field_profile, 0.0), s, ignore, hw)
+    off_samples = edge_samples(field_profile, 0.5)
     # Half a tile off: only the lines inside the field (the last one is outside it).
     inside = np.all((off_samples[0] > 0) & (off_samples[0] < np.array(field_profile.size_m)),
                     axis=1)
-    off = _edge_rates(grey, reg, tuple(a[inside] for a in off_samples), s, ignore, hw)
+    off = edge_rates(grey, reg, tuple(a[inside] for a in off_samples), s, ignore, hw)
     out = {}
     for name, (n_looked, n_hit, _q, _any) in (("", on), ("offset_", off)):
         seen = n_looked >= 3
@@ -192,32 +133,10 @@ def field_position_known(grey, field_profile: FieldProfile, reg: FrameRegistrati
     (bool, str)
         Known in both directions, and a description of what was seen.
     """
-    s = field_profile.tile_size_m
-    hw = _half_width_px(grey.shape)
     nx, ny = field_profile.tiles_x, field_profile.tiles_y
-    lines = _edge_samples(field_profile, 0.0, ring=1, per_edge=10)
-    n_looked, n_hit, _q, _any = _edge_rates(grey, reg, lines, s, ignore, hw)
-    fl, axis, val, _nrm, eid = lines
-    line = np.round(val / s).astype(int)
-    row = np.floor(np.where(axis == 0, fl[:, 1], fl[:, 0]) / s).astype(int)
-    n_lines = np.where(axis == 0, nx, ny)
-    interior = (line >= 1) & (line <= n_lines - 1)
-
-    def rate(ax, r):
-        """Seams across the rows ``r`` of direction ``ax``: (looked, found rate)."""
-        sel = np.unique(eid[(axis == 1 - ax) & interior & (row == r)])
-        looked = n_looked[sel].sum()
-        return looked, n_hit[sel].sum() / max(looked, 1)
-
-    found = []
-    for ax, n in ((0, nx), (1, ny)):
-        fixed = False
-        for inside_row, outside_row in ((0, -1), (n - 1, n)):
-            l_in, r_in = rate(ax, inside_row)
-            l_out, r_out = rate(ax, outside_row)
-            if min(l_in, l_out) >= 10 and r_in >= 0.4 and r_out <= 0.25 * r_in:
-                fixed = True
-        found.append(fixed)
+    rates = row_rates(grey, field_profile, reg, 1, ignore=ignore)
+    found = [tiles_end(rates, ax, 0, -1) or tiles_end(rates, ax, n - 1, n)
+             for ax, n in ((0, nx), (1, ny))]
     seen = ("a field edge is in view and the tiles end there",
             "no field edge where the tiles end is in view")
     what = ", ".join(f"{'xy'[ax]}: {seen[0] if ok else seen[1]}" for ax, ok in enumerate(found))
