@@ -296,3 +296,26 @@ def test_grid_window_moved_onto_the_field_by_whole_tiles(still):
     same = place_in_tiling(grey, FIELD, CameraFit(CAM.matrix, CAM.dist_coeffs, rvec, tvec, 0.4,
                                                   0.001, 500, np.ones(500, bool)))
     np.testing.assert_allclose(same.tvec, tvec, atol=1e-12)
+
+
+def test_grade_and_track_take_points_start_tile_and_camera_height(tmp_path):
+    """``grade`` and ``track`` build the same registrar from --points, --start-tile and
+    --camera-height-m."""
+    import argparse
+
+    from vidodo.commands import grade, registration_options, track
+
+    pts = tmp_path / "p.csv"
+    pts.write_text("u_px,v_px,x_m,y_m\n10,10,0,0\n500,12,1,0\n505,400,1,1\n12,405,0,1\n")
+    for verb in (grade, track):
+        parser = argparse.ArgumentParser()
+        verb.add_arguments(parser)
+        args = parser.parse_known_args(["v.mp4", "log.csv", "--robot", "r", "--field", "f",
+                                        "--out", "o", "--points", str(pts), "--start-tile",
+                                        "1,2", "--camera-height-m", "1.5"])[0]
+        reg = registration_options.registrar_from_args(args, FIELD, None)
+        assert reg.method == "points" and reg.settings.start_tile == (1, 2)
+        assert reg.settings.limits.camera_height_m == 1.5 and reg.settings.relative_ok
+    args.start_tile = "6,0"
+    with pytest.raises(Exception, match="--start-tile: tile \\(6, 0\\) is outside"):
+        registration_options.registrar_from_args(args, FIELD, None)
