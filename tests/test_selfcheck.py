@@ -282,22 +282,6 @@ def test_field_profile_start_tile_is_checked(tmp_path):
     assert FieldProfile(2, 2, 0.5).start_tile is None
 
 
-def test_grid_window_moved_onto_the_field_by_whole_tiles(still):
-    """A lattice right but two tiles off in x and one in y is moved back to where the
-    seams stop at the field's edges."""
-    from vidodo.registration.grid.search import place_in_tiling
-
-    d, rvec, tvec = still
-    grey = cv2.imread(str(d / "floor.png"), cv2.IMREAD_GRAYSCALE)
-    rv, tv = _shifted(rvec, tvec, -1.2, 0.6)
-    fit = CameraFit(CAM.matrix, CAM.dist_coeffs, rv, tv, 0.4, 0.001, 500, np.ones(500, bool))
-    placed = place_in_tiling(grey, FIELD, fit)
-    np.testing.assert_allclose(placed.tvec, tvec, atol=1e-9)
-    same = place_in_tiling(grey, FIELD, CameraFit(CAM.matrix, CAM.dist_coeffs, rvec, tvec, 0.4,
-                                                  0.001, 500, np.ones(500, bool)))
-    np.testing.assert_allclose(same.tvec, tvec, atol=1e-12)
-
-
 def test_grade_and_track_take_points_start_tile_and_camera_height(tmp_path):
     """``grade`` and ``track`` build the same registrar from --points, --start-tile and
     --camera-height-m."""

@@ -56,8 +56,13 @@ class CheckLimits:
     """The camera's approximate height, if the user gave it [m]."""
     camera_height_tolerance: float = 0.25
     """Relative tolerance on ``camera_height_m``."""
-    min_edge_support: float = 0.65
-    """Fewest predicted tile edges in view (as a fraction) on which a seam is found."""
+    min_edge_support: float = 0.3
+    """Fewest predicted tile edges in view (as a fraction of their image length) on which
+    a seam is found (far seams thinner than a pixel are not seen even on a right grid)."""
+    weak_support: float = 0.65
+    """Below this support, the lines half a tile off must show a seam on at most
+    :attr:`weak_offset_ratio` as much (weak evidence needs a clear contrast)."""
+    weak_offset_ratio: float = 0.2
     max_offset_ratio: float = 0.5
     """Most tile edges half a tile off that show a seam, as a fraction of the supported
     predicted edges."""
@@ -99,21 +104,41 @@ def seam_evidence(grey, field_profile: FieldProfile, reg: FrameRegistration, *, 
     """
     hw = search_half_width_px(grey.shape)
     s = field_profile.tile_size_m
-    on = edge_rates(grey, reg, edge_samples(field_profile, 0.0), s, ignore, hw)
+    on_samples = edge_samples(field_profile, 0.0)
+    on = edge_rates(grey, reg, on_samples, s, ignore, hw)
     off_samples = edge_samples(field_profile, 0.5)
     # Half a tile off: only the lines inside the field (the last one is outside it).
     inside = np.all((off_samples[0] > 0) & (off_samples[0] < np.array(field_profile.size_m)),
                     axis=1)
-    off = edge_rates(grey, reg, tuple(a[inside] for a in off_samples), s, ignore, hw)
+    off_samples = tuple(a[inside] for a in off_samples)
+    off = edge_rates(grey, reg, off_samples, s, ignore, hw)
     out = {}
-    for name, (n_looked, n_hit, _q, _any) in (("", on), ("offset_", off)):
+    for name, (n_looked, n_hit, _q, _any), smp in (("", on, on_samples),
+                                                    ("offset_", off, off_samples)):
         seen = n_looked >= 3
         frac = np.where(seen, n_hit / np.maximum(n_looked, 1), 0.0)
+        # Each edge weighted by its length in the picture: the floor area in view counts,
+        # not the number of far tiles whose seams are thinner than a pixel.
+        weight = _edge_lengths_px(reg, smp) * seen
         out[name + "edges"] = int(seen.sum())
-        out[name + "supported"] = float((frac[seen] >= 1 / 3).mean()) if seen.any() else 0.0
+        out[name + "supported"] = (float(weight @ (frac >= 1 / 3) / weight.sum())
+                                   if weight.sum() > 0 else 0.0)
         out[name + "rate"] = float(n_hit.sum() / max(n_looked.sum(), 1))
     out["samples"] = on[2]
     return out
+
+
+def _edge_lengths_px(reg, samples):
+    """Image length of each tile edge between its first and last sample [px]."""
+    fl, _axis, _val, _nrm, eid = samples
+    n_e = int(eid.max()) + 1 if len(eid) else 0
+    if n_e == 0:
+        return np.zeros(0)
+    first = np.clip(np.searchsorted(eid, np.arange(n_e)), 0, len(eid) - 1)
+    last = np.clip(np.searchsorted(eid, np.arange(n_e), side="right") - 1, 0, len(eid) - 1)
+    ends = reg.floor_to_image(np.vstack([fl[first], fl[last]]))
+    length = np.linalg.norm(ends[:n_e] - ends[n_e:], axis=1)
+    return np.nan_to_num(length, nan=0.0, posinf=0.0)
 
 
 # ------------------------------------------------------------------ field position
@@ -298,10 +323,12 @@ def check_reference(grey, field_profile: FieldProfile, reg: FrameRegistration,
         return CheckReport(
             f"seams show half a tile off the grid as often as on it ({ev['offset_supported']:.0%}"
             f" against {ev['supported']:.0%} of the edges)", figures)
-    if ev["supported"] < limits.min_edge_support:
+    if ev["supported"] < limits.min_edge_support or (
+            ev["supported"] < limits.weak_support
+            and ev["offset_supported"] > limits.weak_offset_ratio * ev["supported"]):
         return CheckReport(
             f"seams were found on only {ev['supported']:.0%} of the tile edges the grid "
-            "predicts", figures)
+            f"predicts ({ev['offset_supported']:.0%} half a tile off)", figures)
     sub = subset_disagreement_m((w, h), field_profile, reg, samples)
     figures["subset_disagreement_m"] = sub
     limit = max(limits.max_subset_m, limits.max_subset_tiles * field_profile.tile_size_m)

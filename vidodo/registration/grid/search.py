@@ -13,12 +13,10 @@ from ...errors import CalibrationError
 from ...profiles import CameraProfile, FieldProfile
 from ..camera_fit import FitOptions, check_correspondences, fit_camera
 from ..floor_markers import detect_floor_markers
-from ..frame import FrameRegistration
-from .evidence import row_rates, tiles_end
 from .lattice import CORNER_NAMES, homography_from_lattice, initial_lattice, orient
 from .seams import refine_fit
 
-__all__ = ["GridResult", "find_grid", "place_in_tiling", "LATTICE_DIAG_PX"]
+__all__ = ["GridResult", "find_grid", "LATTICE_DIAG_PX"]
 
 
 #: The lattice search (segments, vanishing points, combs) runs on a copy of the frame
@@ -175,39 +173,5 @@ def find_grid(grey, field: FieldProfile, *, camera: CameraProfile | None = None,
     most = max(r[0].n_points for r in results)
     close = [r for r in results if r[0].n_points >= 0.98 * most]
     fit, origin, origin_from, warnings = min(close, key=lambda r: r[0].rms_px)
-    if origin_from != "floor marker":
-        fit = place_in_tiling(grey, field, fit, ignore=ignore)
     return GridResult(fit, origin, origin_from, n_seg, tuple(warnings) + tuple(fit.warnings))
-
-
-def place_in_tiling(grey, field: FieldProfile, fit, *, ignore=None):
-    """Move the field by whole tiles to where the tiling ends at its edges.
-
-    The lattice search may put the field's window a few tiles off when the field is only
-    partly in view. In each direction, the shifts by whole tiles (up to the field's own
-    count) are tried on the seams crossing each row: a shift is chosen when a field edge
-    then lies where the seams stop (:func:`evidence.tiles_end`) and no other shift does
-    so; otherwise the window stays (the self-check decides whether its place is known).
-
-    Returns
-    -------
-    CameraFit
-        ``fit`` with its floor frame moved by the chosen whole tiles.
-    """
-    nx, ny = field.tiles_x, field.tiles_y
-    ring = max(nx, ny)
-    reg = FrameRegistration(0.0, True, fit.camera_matrix, fit.dist_coeffs, fit.rvec,
-                            fit.tvec, 0.0, 0.0, 0, "")
-    rates = row_rates(grey, field, reg, ring, ignore=ignore)
-    shift = np.zeros(2)
-    for ax, n in ((0, nx), (1, ny)):
-        good = [k for k in range(-n, n + 1)
-                if tiles_end(rates, ax, k, k - 1) or tiles_end(rates, ax, k + n - 1, k + n)]
-        if 0 not in good and len(good) == 1:
-            shift[ax] = good[0]
-    if not shift.any():
-        return fit
-    r = cv2.Rodrigues(np.asarray(fit.rvec, float))[0]
-    tvec = np.asarray(fit.tvec, float) + r @ np.array([*(shift * field.tile_size_m), 0.0])
-    return dataclasses.replace(fit, tvec=tvec)
 
