@@ -19,18 +19,12 @@ __all__ = ["CORNER_NAMES", "initial_lattice", "orient", "homography_from_lattice
 CORNER_NAMES = ("near-left", "near-right", "far-right", "far-left")
 
 
-def _best_combs(rhos, cover, speed, n_teeth, p_min, p_max, visible=None, min_gap_px=8.0,
-                keep=6):
+def _best_combs(rhos, cover, speed, n_teeth, p_min, p_max, min_gap_px=8.0, keep=6):
     """Combs of ``n_teeth`` equally spaced lines with the most evidence under their teeth.
 
     A tooth counts only where neighbouring teeth are at least ``min_gap_px`` apart in
     the image (``speed``: image pixels per unit of rho), so that a comb cannot crowd
     its teeth onto one strong line near the horizon.
-
-    With ``visible`` (bool per rho: the line is in the frame) a comb may reach beyond
-    the view (the field only partly in the picture): it is scored on its teeth in view
-    (at least three), less the evidence half a period off its teeth (tile middles: a
-    comb of twice the tile spacing has seams there), plus a little per tooth in view.
 
     Returns
     -------
@@ -40,23 +34,16 @@ def _best_combs(rhos, cover, speed, n_teeth, p_min, p_max, visible=None, min_gap
     step = rhos[1] - rhos[0]
     # Tolerate a tooth landing a bin or two off a line (curvature, rounding).
     c = cv2.dilate(cover.astype(np.float32).reshape(1, -1), np.ones((1, 5), np.uint8)).ravel()
-    periods = np.arange(p_min, p_max, step / 2 if visible is None else step)
+    periods = np.arange(p_min, p_max, step / 2)
     cands = []
     for period in periods:
         span = period * (n_teeth - 1)
-        if visible is None:
-            starts = rhos[rhos + span <= rhos[-1]]
-        else:  # a coarser start grid: the teeth are refined on the evidence later
-            starts = np.arange(rhos[0] - span, rhos[-1], 2 * step)
+        starts = rhos[rhos + span <= rhos[-1]]
         if len(starts) == 0:
             continue
         teeth = starts[:, None] + period * np.arange(n_teeth)[None, :]
-        gap_ok = np.interp(teeth, rhos, speed, left=0, right=0) * period >= min_gap_px
-        ev = np.interp(teeth, rhos, c, left=0, right=0) * gap_ok
-        if visible is None:
-            score = ev.mean(axis=1)
-        else:
-            score = _partial_score(teeth, ev, rhos, c, visible, period, n_teeth)
+        gap_ok = np.interp(teeth, rhos, speed) * period >= min_gap_px
+        score = (np.interp(teeth, rhos, c) * gap_ok).mean(axis=1)
         # Local maxima over the start position only.
         top = np.argsort(score)[-3:]
         cands += [(float(period), float(starts[k]), float(score[k])) for k in top]
@@ -72,21 +59,6 @@ def _best_combs(rhos, cover, speed, n_teeth, p_min, p_max, visible=None, min_gap
         if len(out) >= keep:
             break
     return out
-
-
-def _partial_score(teeth, ev, rhos, c, visible, period, n_teeth):
-    """Score of combs that may reach beyond the view (see :func:`_best_combs`)."""
-    vis = np.interp(teeth, rhos, visible.astype(float), left=0, right=0) > 0.5
-    n_in = vis.sum(axis=1)
-    mid = teeth[:, :-1] + period / 2
-    vis_mid = np.interp(mid, rhos, visible.astype(float), left=0, right=0) > 0.5
-    ev_mid = np.interp(mid, rhos, c, left=0, right=0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        on = (ev * vis).sum(axis=1) / n_in
-        off = np.where(vis_mid.any(axis=1),
-                       (ev_mid * vis_mid).sum(axis=1) / np.maximum(vis_mid.sum(axis=1), 1), 0)
-    score = on - off + 0.02 * n_in / n_teeth
-    return np.where(n_in >= min(3, n_teeth), np.nan_to_num(score, nan=-1.0), -1.0)
 
 
 def _refine_teeth(rhos, cover, teeth, period):
@@ -239,7 +211,6 @@ def _family_cover(fams: _Families, f, mids, shape):
     speed = np.where(inside.any(axis=1), np.sort(across, axis=1)[
         np.arange(len(rhos)), np.maximum(inside.sum(axis=1) // 2, 0)], 0.0)
     f["rhos"], f["cover"], f["speed"] = rhos, cover, np.nan_to_num(speed, posinf=0.0)
-    f["visible"] = n_in >= 0.2 * len(ts)
     f["extent"] = hi - lo
 
 
@@ -249,8 +220,8 @@ def _hits(fams: _Families, img, shape):
     h, w = shape
     inside = ((img[..., 0] >= 0) & (img[..., 0] <= w - 1) & (img[..., 1] >= 0)
               & (img[..., 1] <= h - 1) & np.all(np.isfinite(img), axis=-1))
-    ui = np.clip(np.nan_to_num(img[..., 0]), -1, w).round().astype(int).clip(0, w - 1)
-    vi = np.clip(np.nan_to_num(img[..., 1]), -1, h).round().astype(int).clip(0, h - 1)
+    ui = np.clip(np.nan_to_num(img[..., 0]).round().astype(int), 0, w - 1)
+    vi = np.clip(np.nan_to_num(img[..., 1]).round().astype(int), 0, h - 1)
     along = np.gradient(img, axis=-2)
     expected = np.arctan2(along[..., 1], along[..., 0])
     diff = np.abs(np.angle(np.exp(2j * (fams.line_angle[vi, ui] - expected)))) / 2
@@ -273,10 +244,8 @@ def _span_cover(fams: _Families, shape, f_a, teeth_a, f_b, teeth_b):
     im = to_image(pts.reshape(-1, 2)).reshape(len(teeth_a), len(frac), 2)
     ok_, hit = _hits(fams, im, shape)
     n_ok = ok_.sum(axis=1)
-    seen = n_ok >= 10
-    if not seen.any():
-        return 0.0
-    return float(np.mean(hit.sum(axis=1)[seen] / n_ok[seen]))
+    vals = np.where(n_ok >= 10, hit.sum(axis=1) / np.maximum(n_ok, 1), 0.0)
+    return float(np.mean(vals))
 
 
 def initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidates=3):
@@ -300,20 +269,15 @@ def initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidates
             combs[fi, n] = _best_combs(f["rhos"], f["cover"], f["speed"], n + 1,
                                        f["extent"] / (2.5 * n_max + 2),
                                        f["extent"] / max(n_min - 1, 1) * 1.3)
-            # The field may be only partly in view: combs reaching beyond it, with
-            # periods down to a tenth of what is seen.
-            combs[fi, n] += _best_combs(f["rhos"], f["cover"], f["speed"], n + 1,
-                                        f["extent"] / 12, f["extent"] / 2.2,
-                                        visible=f["visible"], keep=4)
 
     # Joint choice: the teeth of each family must carry evidence across the span of the
     # other family's field window (the seams run from one field edge to the other).
     scored = []
     for assign in ((0, 1), (1, 0)):
         fa, fb = fam[assign[0]], fam[assign[1]]
-        for ca in combs[assign[0], field.tiles_x][:8]:
+        for ca in combs[assign[0], field.tiles_x][:4]:
             ta = ca[1] + ca[0] * np.arange(field.tiles_x + 1)
-            for cb in combs[assign[1], field.tiles_y][:8]:
+            for cb in combs[assign[1], field.tiles_y][:4]:
                 tb = cb[1] + cb[0] * np.arange(field.tiles_y + 1)
                 score = (_span_cover(fams, shape, fa, ta, fb, tb)
                          + _span_cover(fams, shape, fb, tb, fa, ta))
