@@ -72,6 +72,9 @@ class CheckLimits:
     """Largest disagreement of the half-image fits at the corners in view [tiles]."""
     max_subset_m: float = 0.015
     """... but never refused below this [m]."""
+    max_subset_tiles_no_lens: float = 0.1
+    """The same without a lens profile: focal length and distortion estimated on the
+    seams leave each half's extrapolation less certain [tiles]."""
     max_holdout_tiles: float = 0.1
     """Largest error of a clicked point predicted from the others [tiles]."""
     max_marker_scale_error: float = 0.1
@@ -331,7 +334,8 @@ def check_reference(grey, field_profile: FieldProfile, reg: FrameRegistration,
             f"predicts ({ev['offset_supported']:.0%} half a tile off)", figures)
     sub = subset_disagreement_m((w, h), field_profile, reg, samples)
     figures["subset_disagreement_m"] = sub
-    limit = max(limits.max_subset_m, limits.max_subset_tiles * field_profile.tile_size_m)
+    tiles = limits.max_subset_tiles if facts.lens_known else limits.max_subset_tiles_no_lens
+    limit = max(limits.max_subset_m, tiles * field_profile.tile_size_m)
     if sub > limit:
         return CheckReport(
             f"the left/right and top/bottom halves of the image disagree by {1000 * sub:.0f} "
