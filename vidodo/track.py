@@ -623,6 +623,7 @@ class _FrameRecords:
     cell: list = field(default_factory=list)  # min cell width seen in the frame [px]
     reg_ok: list = field(default_factory=list)
     reg_rms_px: list = field(default_factory=list)
+    reg_pred_px: list = field(default_factory=list)
     reg_n: list = field(default_factory=list)
     reg_rms_m: list = field(default_factory=list)
     reg_fresh: list = field(default_factory=list)
@@ -745,6 +746,7 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
         acc.reg_rms_px.append(float(getattr(reg, "rms_px", np.nan)) if reg else np.nan)
         acc.reg_n.append(int(getattr(reg, "n_points", 0) or 0) if reg else 0)
         acc.reg_rms_m.append(float(getattr(reg, "rms_floor_m", np.nan)) if reg else np.nan)
+        acc.reg_pred_px.append(float(getattr(reg, "prediction_px", 0.0)) if reg else 0.0)
         acc.reg_fresh.append(fresh)
         fix = None
         frac = np.nan
@@ -1169,6 +1171,10 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
     reg_n = np.maximum(np.asarray(acc.reg_n, float), REGISTRATION_PARAMS)
     reg_err = reg_px * np.sqrt(REGISTRATION_PARAMS / reg_n) * mpp
     reg_err = np.where(np.isfinite(reg_err), reg_err, np.asarray(acc.reg_rms_m, float))
+    # ... or, where larger, the error the registration showed at clicked points it was
+    # not fitted to (held out one at a time): it holds the lens and pose error the
+    # residuals alone do not show (an unmodelled lens is a systematic error).
+    reg_err = np.fmax(reg_err, np.asarray(acc.reg_pred_px, float) * mpp)
     segs = _segments(idx, t, max_gap_s)
     first = _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, fresh_px,
                     persistent_px, keep, corner_bias_px)
