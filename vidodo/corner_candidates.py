@@ -6,14 +6,18 @@ and a pixel or two wide, so each candidate is located from the seams themselves:
 
 1. Thin-line strength from the Hessian of the blurred frame (a line curves the
    intensity strongly across and little along; after the vesselness idea of Frangi et
-   al., MICCAI 1998). Points where lines of two directions meet are the strongest
-   "corners" of that line map (Shi-Tomasi, ``cv2.goodFeaturesToTrack``).
+   al., MICCAI 1998). Long straight segments of the strongest responses
+   (``cv2.HoughLinesP``) are seams; grain makes short scattered ones. Where two such
+   segments at a clear angle cross, a candidate is tried.
 2. Around each, the two dominant line directions come from a histogram of the Hessian's
    line directions, weighted by line strength.
-3. Each line is sampled across every 2 px along +-``half_px`` (the crossing itself
-   left out); the line centre in each cross-section is the centroid of its contrast,
-   and a straight line is fitted to the centres (``cv2.fitLine``, Huber weights). Lens
-   distortion bends a seam by far less than a pixel over so short a span.
+3. Each line is sampled across every pixel along +-``half_px`` (the crossing itself
+   left out), the cross-sections averaged in a few groups per arm, the seam centre
+   located in each group's mean profile, and a straight line fitted to the centres
+   (total least squares). Lens distortion bends a seam by far less than a pixel over
+   so short a span. The last pass models the profile as a line plus a brightness step
+   on the same centre (neighbouring tiles differ in brightness, which would otherwise
+   pull the centre towards the darker tile).
 4. The candidate is the intersection of the two lines; candidates whose lines are too
    short, too noisy or meet far from the start are dropped.
 """
@@ -245,7 +249,7 @@ def _intersect(q1, d1, q2, d2):
     return q1 + s[0] * d1
 
 
-def refine_crossing(img, strength, angle, p, cfg: CornerSettings | None = None):
+def refine_crossing(img, strength, angle, p, cfg: CornerSettings | None = None, dirs=None):
     """Locate the seam crossing nearest ``p`` to a fraction of a pixel.
 
     Parameters
@@ -256,6 +260,9 @@ def refine_crossing(img, strength, angle, p, cfg: CornerSettings | None = None):
         From :func:`line_strength`.
     p : array_like (2,)
         Starting point [px].
+    dirs : (float, float), optional
+        Directions of the two seams [rad]; default from the line directions around
+        ``p``.
 
     Returns
     -------
@@ -263,7 +270,9 @@ def refine_crossing(img, strength, angle, p, cfg: CornerSettings | None = None):
         The crossing [px], or None when two straight seams are not found there.
     """
     cfg = cfg or CornerSettings()
-    dirs = _directions(strength, angle, p, cfg.half_px * 0.6, math.radians(cfg.min_angle_deg))
+    if dirs is None:
+        dirs = _directions(strength, angle, p, cfg.half_px * 0.6,
+                           math.radians(cfg.min_angle_deg))
     if dirs is None:
         return None
     lines = []
@@ -291,7 +300,10 @@ def refine_crossing(img, strength, angle, p, cfg: CornerSettings | None = None):
 
 
 def _crossing_seeds(strength, cfg: CornerSettings):
-    """Starting points where two long straight lines cross, (N, 2) [px] or None.
+    """Starting points where two long straight lines cross, or None.
+
+    Returns rows ``(u_px, v_px, theta1_rad, theta2_rad)``: the crossing and the
+    directions of the two segments.
 
     The strongest 10 % of the line-strength map, probabilistic Hough segments of at least
     ``cfg.min_segment_frac`` of the frame's larger side (grain and pebbles make short,
@@ -318,13 +330,17 @@ def _crossing_seeds(strength, cfg: CornerSettings):
     u = (r[:, 0] * d[i, 1] - r[:, 1] * d[i, 0]) / cross
     ext_i, ext_j = 0.25 * length[i] + 6, 0.25 * length[j] + 6
     on = (t > -ext_i) & (t < length[i] + ext_i) & (u > -ext_j) & (u < length[j] + ext_j)
-    x = p0[i[on]] + t[on, None] * d[i[on]]
-    x = x[(x[:, 0] >= 0) & (x[:, 0] < w) & (x[:, 1] >= 0) & (x[:, 1] < h)]
+    i, j = i[on], j[on]
+    x = p0[i] + t[on, None] * d[i]
+    inside = (x[:, 0] >= 0) & (x[:, 0] < w) & (x[:, 1] >= 0) & (x[:, 1] < h)
+    x, i, j = x[inside], i[inside], j[inside]
     if len(x) == 0:
         return None
     # one seed per 4 px cell, the order of the longest segments first
     _, first = np.unique(np.floor(x / 4.0).astype(np.int64), axis=0, return_index=True)
-    return x[np.sort(first)][:cfg.max_seeds]
+    keep = np.sort(first)[:cfg.max_seeds]
+    theta = np.arctan2(d[:, 1], d[:, 0])
+    return np.column_stack([x[keep], theta[i[keep]], theta[j[keep]]])
 
 
 def corner_candidates(grey, cfg: CornerSettings | None = None):
@@ -350,10 +366,11 @@ def corner_candidates(grey, cfg: CornerSettings | None = None):
     if start is None:
         return np.zeros((0, 2))
     out = np.zeros((0, 2))
-    for p in start.reshape(-1, 2):
+    for row in start:
+        p = row[:2]
         if len(out) and np.min(np.sum((out - p) ** 2, axis=1)) < cfg.min_distance_px ** 2:
             continue  # a crossing already found here
-        x = refine_crossing(img, strength, angle, p, cfg)
+        x = refine_crossing(img, strength, angle, p, cfg, dirs=(row[2], row[3]))
         if x is None:
             continue
         if len(out) and np.min(np.sum((out - x) ** 2, axis=1)) < (cfg.min_distance_px / 2) ** 2:
