@@ -178,7 +178,7 @@ def test_clicks_give_points_csv_on_true_corners(browser, page, tripod_run, tmp_p
     assert max(errs) <= 0.4, np.round(errs, 3)
     # the registration `vidodo track --points` makes from this CSV (FloorRegistrar with
     # points_csv, as vidodo/commands/track.py builds it), on the same frame
-    from vidodo.register import FloorRegistrar
+    from vidodo.registration.registrar import FloorRegistrar
 
     cap = cv2.VideoCapture(str(tripod_run / "video.mp4"))
     ok, frame = cap.read()

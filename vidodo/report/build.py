@@ -178,7 +178,7 @@ def robot_picture(summary: dict, folder: Path | None, out_dir: Path) -> dict[str
 
 
 def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: str = "mm",
-                 progress=None) -> list[Path]:
+                 progress=None, grid: bool = True) -> list[Path]:
     """Write the plots, the HTML report and (optionally) the annotated replay.
 
     Parameters
@@ -196,6 +196,8 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
         Display unit for lengths.
     progress : callable, optional
         ``progress(done, total)`` for the replay's frames.
+    grid : bool
+        Draw the registered tile grid, faint, on every frame of the replay.
 
     Returns
     -------
@@ -229,7 +231,7 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
 
         try:
             path = replay_from_grade(data, out_dir / "replay.mp4", units=units,
-                                     progress=progress)
+                                     progress=progress, grid=grid)
         except VidodoError as exc:  # the report is still written, then the error raised
             failure = exc
             extra.append(f"replay.mp4 not written: {exc}")
