@@ -51,9 +51,13 @@ def grid_polylines_px(reg, field, samples: int = 48):
 
 
 def draw_grid_overlay(img, reg, field, *, alpha: float = 0.35, thickness: int = 1,
-                      colour=GRID_BGR, outline_colour=OUTLINE_BGR):
-    """Draw the registered grid on ``img`` in place (blended by ``alpha``); returns it."""
-    lines = grid_polylines_px(reg, field)
+                      colour=GRID_BGR, outline_colour=OUTLINE_BGR, scale: float = 1.0):
+    """Draw the registered grid on ``img`` in place (blended by ``alpha``); returns it.
+
+    ``scale`` is the size of ``img`` relative to the frame ``reg`` belongs to (for a
+    shrunken copy); pixel centres stay at integers.
+    """
+    lines = [((px + 0.5) * scale - 0.5, border) for px, border in grid_polylines_px(reg, field)]
     if not lines:
         return img
     layer = img.copy() if alpha < 1.0 else img

@@ -41,6 +41,7 @@ __all__ = [
     "write_replay",
     "replay_from_grade",
     "grade_registration",
+    "grade_input",
 ]
 
 TRUTH_BGR = (0, 255, 0)
@@ -546,19 +547,7 @@ def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,
     inputs = data.summary.get("inputs") or {}
 
     def find(key, required=True):
-        p = inputs.get(key)
-        cands = []
-        if isinstance(p, str) and p:
-            cands.append(Path(p))
-            if data.folder is not None:
-                cands.append(Path(data.folder) / p)
-        for c in cands:
-            if c.is_file():
-                return c
-        if required:
-            raise InputError(f"{data.folder}/summary.json: inputs.{key} = {p!r} not found; "
-                             "run the report where the run folder is, or skip the replay")
-        return None
+        return grade_input(data, key, required=required)
 
     video = find("video")
     robot = load_robot(find("robot"))
@@ -575,6 +564,30 @@ def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,
     return write_replay(video, data.drift, data.events, out_path, robot=robot, field=field,
                         camera=camera, sources=data.sources, registration=registration,
                         units=units, progress=progress, grid=grid, readout_s=readout)
+
+
+def grade_input(data, key: str, *, required: bool = True):
+    """The file ``summary['inputs'][key]`` of a grade names (as given, or relative to the
+    grade folder), or None when it is not there and not ``required``.
+
+    Raises
+    ------
+    InputError
+        When a required file cannot be found.
+    """
+    p = (data.summary.get("inputs") or {}).get(key)
+    cands = []
+    if isinstance(p, str) and p:
+        cands.append(Path(p))
+        if data.folder is not None:
+            cands.append(Path(data.folder) / p)
+    for c in cands:
+        if c.is_file():
+            return c
+    if required:
+        raise InputError(f"{data.folder}/summary.json: inputs.{key} = {p!r} not found; "
+                         "run the report where the run folder is, or skip the replay")
+    return None
 
 
 def grade_registration(folder, field, camera=None, points=None):
