@@ -31,16 +31,15 @@ def grid_polylines_px(reg, field, samples: int = 48):
     """
     if reg is None or not getattr(reg, "ok", False):
         return []
-    s = field.tile_size_m
     sx, sy = field.size_m
-    t = np.linspace(0.0, 1.0, samples)
-    out = []
-    for i in range(field.tiles_x + 1):
-        out.append((np.column_stack([np.full_like(t, i * s), t * sy]),
-                    i in (0, field.tiles_x)))
-    for j in range(field.tiles_y + 1):
-        out.append((np.column_stack([t * sx, np.full_like(t, j * s)]),
-                    j in (0, field.tiles_y)))
+    xs = np.arange(field.tiles_x + 1) * field.tile_size_m
+    ys = np.arange(field.tiles_y + 1) * field.tile_size_m
+    # each seam from end to end on the floor, and whether it is on the outline
+    ends = [((x, 0.0), (x, sy), k in (0, field.tiles_x)) for k, x in enumerate(xs)]
+    ends += [((0.0, y), (sx, y), k in (0, field.tiles_y)) for k, y in enumerate(ys)]
+    t = np.linspace(0.0, 1.0, samples)[:, None]
+    out = [(np.asarray(a) + t * (np.asarray(b) - np.asarray(a)), border)
+           for a, b, border in ends]
     lines = []
     for pts, border in out:
         px = np.asarray(reg.floor_to_image(pts), float).reshape(-1, 2)

@@ -87,8 +87,8 @@ def _pick_times(regs):
     if not ok:
         return {}, False
     t = np.array([r.t_s for r in ok])
-    picks = {"start": ok[0], "end": ok[-1],
-             "middle": ok[int(np.argmin(np.abs(t - (t[0] + t[-1]) / 2)))]}
+    picks = {"start": ok[0], "middle": ok[int(np.argmin(np.abs(t - (t[0] + t[-1]) / 2)))],
+             "end": ok[-1]}
     poses = np.array([np.concatenate([np.ravel(r.rvec), np.ravel(r.tvec)]) for r in ok])
     moving = bool(np.ptp(poses, axis=0).max() > 1e-6) if len(ok) > 1 else False
     if moving:
@@ -122,7 +122,7 @@ def _picture(frame, reg, field, max_width_px):
         img = cv2.resize(img, None, fx=scale, fy=scale, interpolation=cv2.INTER_AREA)
     else:
         img = img.copy()
-    draw_grid_overlay(img, reg, field, alpha=1.0, thickness=1, scale=scale)
+    draw_grid_overlay(img, reg, field, alpha=1.0, thickness=2, scale=scale)
     ok, buf = cv2.imencode(".jpg", img, [cv2.IMWRITE_JPEG_QUALITY, 92])
     return (buf.tobytes() if ok else b""), scale
 
