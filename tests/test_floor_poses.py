@@ -19,7 +19,7 @@ from vidodo.floor_poses import (
     read_floor_poses,
     write_floor_poses,
 )
-from vidodo.register import FrameRegistration, failed
+from vidodo.registration.frame import FrameRegistration, failed
 
 K = np.array([[800.0, 0, 639.5], [0, 800.0, 359.5], [0, 0, 1]])
 DIST = np.array([0.06, -0.12, 0.0005, -0.0004, 0.02])

@@ -18,7 +18,7 @@ import time
 import cv2
 import numpy as np
 import pytest
-from test_html import _open, browser  # noqa: F401  (sibling test module; fixture)
+from test_report_page import _open, browser  # noqa: F401  (sibling test module; fixture)
 
 from vidodo.corner_candidates import corner_candidates
 from vidodo.picker import write_picker

@@ -19,8 +19,8 @@ import cv2
 import numpy as np
 import pandas as pd
 import pytest
-from test_html import _open, browser  # noqa: F401  (sibling test module; fixture)
 from test_replay import ring_centre_near  # sibling test module
+from test_report_page import _open, browser  # noqa: F401  (sibling test module; fixture)
 
 from vidodo.cli_main import main
 from vidodo.grid_overlay import GRID_BGR
