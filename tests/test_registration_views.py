@@ -19,7 +19,7 @@ import cv2
 import numpy as np
 import pandas as pd
 import pytest
-from test_replay import ring_centre_near  # sibling test module
+from test_replay import ring_centre_near, sampled_frame_pairs  # sibling test module
 from test_report_page import _open, browser  # noqa: F401  (sibling test module; fixture)
 
 from vidodo.cli_main import main
@@ -109,20 +109,13 @@ def graded(handheld, tmp_path_factory):
 def test_replay_ring_on_true_marker(graded, handheld, path):
     run = handheld
     truth = pd.read_csv(run / "truth" / "truth.csv")
-    cap_in = cv2.VideoCapture(str(run / "video.mp4"))
-    cap_out = cv2.VideoCapture(str(graded[path] / "replay.mp4"))
-    errs, i = [], 0
-    while True:
-        ok1, orig = cap_in.read()
-        ok2, img = cap_out.read()
-        if not (ok1 and ok2):
-            break
-        if i % 10 == 5 and bool(truth["marker_visible"].iloc[i]):
+    errs = []
+    for i, orig, img in sampled_frame_pairs(run / "video.mp4", graded[path] / "replay.mp4"):
+        if bool(truth["marker_visible"].iloc[i]):
             exp = _true_marker_px(run, float(truth["t_s"].iloc[i]))
             centre = ring_centre_near(img, orig, exp)
             assert centre is not None, f"{path}: no truth ring near the marker in frame {i}"
             errs.append(math.hypot(*(centre - exp)))
-        i += 1
     assert len(errs) >= 8
     assert max(errs) <= 1.0, (path, np.round(errs, 2))
 
