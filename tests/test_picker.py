@@ -227,3 +227,43 @@ def test_candidates_on_a_drawn_crossing():
         cand = corner_candidates(img)
         assert len(cand)
         assert float(np.min(np.hypot(*(cand - c).T))) < 0.1
+
+
+def test_handheld_clip_offers_frames_and_floor_fiducials(browser, rendered_run,  # noqa: F811
+                                                         tmp_path):
+    """A hand-held clip gets more than one frame; the floor fiducials of the field
+    profile seen in the first are added as points with the profile's corner positions
+    (``FloorMarker.corners_floor_m``), and then clicks get floor positions from the
+    lattice without typing."""
+    run = rendered_run("mecanum-handheld", 0, video__width_px=1280, video__height_px=720,
+                       **{"video.max_duration_s": 4.0})
+    field = load_field(run / "field.toml")
+    page = write_picker(run / "video.mp4", field, tmp_path / "pick.html")
+    browser.set_window_size(1280, 900)
+    console, _ = _open(browser, page)
+    assert [e for e in console if e["level"] in ("SEVERE", "ERROR")] == []
+    n_frames = browser.execute_script(
+        "return document.getElementById('frame-select').options.length;")
+    assert n_frames > 1
+    browser.find_element("id", "btn-fiducials").click()
+    pts = browser.execute_script("return window.vidodoPicker.points();")
+    want = np.vstack([m.corners_floor_m() for m in field.floor_markers])
+    got = np.array([[p["x_m"], p["y_m"]] for p in pts])
+    assert len(got) == len(want)
+    for w in want:
+        assert np.min(np.hypot(*(got - w).T)) < 1e-6
+    # a click near tile corner (3, 3) (true camera of the first frame) is numbered from
+    # the lattice the fiducials fixed
+    import pandas as pd
+
+    cam = load_camera(run / "camera.toml")
+    cp = pd.read_csv(run / "truth" / "camera_poses.csv").iloc[0]
+    s = field.tile_size_m
+    px = cv2.projectPoints(np.array([[3 * s, 3 * s, 0.0]]),
+                           cp[["rvec_0", "rvec_1", "rvec_2"]].to_numpy(float),
+                           cp[["tvec_0_m", "tvec_1_m", "tvec_2_m"]].to_numpy(float),
+                           cam.matrix, cam.dist_coeffs)[0].ravel()
+    _click_image(browser, *(px + [1.0, -1.0]))
+    last = browser.execute_script("return window.vidodoPicker.points();")[-1]
+    assert last["src"] == "auto"
+    assert (last["x_m"], last["y_m"]) == pytest.approx((3 * s, 3 * s), abs=1e-9)
