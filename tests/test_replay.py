@@ -186,33 +186,50 @@ def test_replay_on_rendered_run(request, tmp_path):
                        ReplaySetup(robot=robot, field=field, camera=camera))
     cam_pose = _meta_camera_pose(meta)
     marker = robot.markers[0]
-    cap_in = cv2.VideoCapture(str(run / "video.mp4"))
-    cap_out = cv2.VideoCapture(str(out))
     errs = []
-    i = 0
-    while True:
-        ok1, orig = cap_in.read()
-        ok2, img = cap_out.read()
-        if not (ok1 and ok2):
-            break
-        if i % 10 == 5 and bool(truth["marker_visible"].iloc[i]):
+    for i, orig, img in sampled_frame_pairs(run / "video.mp4", out):
+        if bool(truth["marker_visible"].iloc[i]):
             x, y, h = truth[["x_m", "y_m", "heading_rad"]].iloc[i]
             p = np.array([[x + math.cos(h) * marker.x_m - math.sin(h) * marker.y_m,
                            y + math.sin(h) * marker.x_m + math.cos(h) * marker.y_m,
                            marker.z_m]])
             rvec, tvec = cam_pose(truth["t_s"].iloc[i])
             exp = cv2.projectPoints(p, rvec, tvec, camera.matrix, camera.dist_coeffs)[0]
-            near = np.all(np.abs(img.astype(int) - TRUTH_BGR) < 60, axis=2) & \
-                ~np.all(np.abs(orig.astype(int) - TRUTH_BGR) < 60, axis=2)
-            box = np.zeros_like(near)
-            u0, v0 = np.round(exp.ravel()).astype(int)
-            box[max(v0 - 40, 0):v0 + 40, max(u0 - 40, 0):u0 + 40] = True
-            v, u = np.nonzero(near & box)
-            assert u.size > 10, f"no truth ring near the marker in frame {i}"
-            errs.append(np.hypot(u.mean() - exp.ravel()[0], v.mean() - exp.ravel()[1]))
-        i += 1
+            centre = ring_centre_near(img, orig, exp.ravel())
+            assert centre is not None, f"no truth ring near the marker in frame {i}"
+            errs.append(np.hypot(*(centre - exp.ravel())))
     assert len(errs) >= 5
     assert max(errs) < 3.0, errs
+
+
+def sampled_frame_pairs(video, replay, every=10, phase=5):
+    """``(index, original frame, replay frame)`` for every ``every``-th frame pair."""
+    cap_in, cap_out = cv2.VideoCapture(str(video)), cv2.VideoCapture(str(replay))
+    i = 0
+    try:
+        while True:
+            ok1, orig = cap_in.read()
+            ok2, img = cap_out.read()
+            if not (ok1 and ok2):
+                return
+            if i % every == phase:
+                yield i, orig, img
+            i += 1
+    finally:
+        cap_in.release()
+        cap_out.release()
+
+
+def ring_centre_near(img, orig, exp_px, half_px=40):
+    """Centroid of the truth-coloured pixels the replay added within ``half_px`` of
+    ``exp_px`` (None when fewer than 11), shape (2,) [px]."""
+    near = np.all(np.abs(img.astype(int) - TRUTH_BGR) < 60, axis=2) & \
+        ~np.all(np.abs(orig.astype(int) - TRUTH_BGR) < 60, axis=2)
+    box = np.zeros_like(near)
+    u0, v0 = np.round(np.asarray(exp_px, float)).astype(int)
+    box[max(v0 - half_px, 0):v0 + half_px, max(u0 - half_px, 0):u0 + half_px] = True
+    v, u = np.nonzero(near & box)
+    return np.array([u.mean(), v.mean()]) if u.size > 10 else None
 
 
 def _meta_camera_pose(meta):

@@ -7,6 +7,9 @@
   const ctx = canvas.getContext("2d");
   const $ = (id) => document.getElementById(id);
   const SNAP_CSS_PX = 14;
+  // smallest ratio of the points' two principal spreads: two floor fiducials far apart
+  // (four precise corners each) still fix the plane, as in the registration itself
+  const MIN_SPREAD = 0.02;
   const images = D.frames.map((fr) => { const im = new Image(); im.src = fr.src; return im; });
   const points = D.frames.map(() => []);  // {u, v, snapped, x_m, y_m, src: user|auto|fiducial|null}
   const history = [];
@@ -118,7 +121,7 @@
     const pts = points[fi];
     const anchors = pts.filter((p) => hasFloor(p) && (p.src === "user" || p.src === "fiducial"));
     pts.forEach((p) => { if (p.src === "auto") { p.x_m = null; p.y_m = null; p.src = null; } });
-    if (anchors.length >= 4 && spread(anchors.map((p) => [p.u, p.v])) > 0.05) {
+    if (anchors.length >= 4 && spread(anchors.map((p) => [p.u, p.v])) > MIN_SPREAD) {
       const H = homography(anchors.map((p) => [p.u, p.v]),
         anchors.map((p) => [p.x_m / F.tile_m, p.y_m / F.tile_m]));
       if (H) {
@@ -134,7 +137,7 @@
     }
     const withFloor = pts.filter(hasFloor);
     implied = null;
-    if (withFloor.length >= 4 && spread(withFloor.map((p) => [p.x_m, p.y_m])) > 0.05) {
+    if (withFloor.length >= 4 && spread(withFloor.map((p) => [p.x_m, p.y_m])) > MIN_SPREAD) {
       implied = homography(withFloor.map((p) => [p.x_m / F.tile_m, p.y_m / F.tile_m]),
         withFloor.map((p) => [p.u, p.v]));
     }

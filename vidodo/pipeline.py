@@ -128,6 +128,9 @@ class GradeResult:
     """What could not be measured, or is doubtful."""
     passed: dict = field(default_factory=dict)
     """Per source: True, False or None (no tolerance)."""
+    floor_poses: object = None
+    """:class:`~vidodo.floor_poses.FloorPoses` the truth track was measured with (written
+    as ``track.floor.csv``), or None when not known."""
 
     @property
     def verdict(self) -> str:
@@ -560,7 +563,8 @@ def grade_run(video, log, robot, field, camera=None, *, settings=None, track=Non
     settings : GradeSettings, optional
         Manual clock offset [s], tolerances, event thresholds, floor registrar.
     track : DataFrame or path, optional
-        A truth track to reuse instead of tracking the video.
+        A truth track to reuse instead of tracking the video. Its registrations are
+        taken from ``<track>.floor.csv`` beside it when there.
     progress : callable, optional
         Passed to the tracker.
 
@@ -585,20 +589,42 @@ def grade_run(video, log, robot, field, camera=None, *, settings=None, track=Non
               "camera": _abs(camera.path) if camera is not None else None}
     if track is None:
         from .input_checks import camera_matches_video
-        from .track import track_video
 
         camera_matches_video(camera, video)  # before a whole tracking pass
-        truth = track_video(video, robot, field, camera, progress=progress,
-                            registrar=(settings or GradeSettings()).registrar)
+        truth, poses = _track_recorded(video, robot, field, camera,
+                                       (settings or GradeSettings()).registrar, progress)
     elif isinstance(track, pd.DataFrame):
-        truth = track
+        truth, poses = track, None
         inputs["track"] = "given"
     else:
-        truth = read_track_csv(track)
+        truth, poses = read_track_csv(track), _sibling_floor_poses(track)
         inputs["track"] = _abs(track)
     logdata = log if isinstance(log, LogData) else read_log(log, robot)
-    return grade_tracks(truth, logdata, robot, settings, inputs=inputs,
-                        field=field)
+    result = grade_tracks(truth, logdata, robot, settings, inputs=inputs,
+                          field=field)
+    return replace(result, floor_poses=poses)
+
+
+def _track_recorded(video, robot, field, camera, registrar, progress):
+    """Track the video, keeping the floor registrations the track was measured with."""
+    from .floor_poses import FloorPoses, RecordingRegistrar
+    from .registration.registrar import FloorRegistrar
+    from .track import track_video
+
+    recorder = RecordingRegistrar(registrar if registrar is not None
+                                  else FloorRegistrar(field, camera))
+    tres = track_video(video, robot, field, camera, progress=progress,
+                       registrar=recorder)
+    readout = float((getattr(tres, "quality", None) or {}).get("readout_s") or 0.0)
+    return tres, FloorPoses(tuple(recorder.records), readout)
+
+
+def _sibling_floor_poses(track):
+    """The registrations saved beside a track CSV, or None when there are none."""
+    from .floor_poses import floor_poses_path, read_floor_poses
+
+    p = floor_poses_path(track)
+    return read_floor_poses(p) if p.is_file() else None
 
 
 def _abs(path):

@@ -44,6 +44,7 @@ def add_arguments(parser):
     add_out(parser, "output folder", required=True)
     add_switch(parser, "report", True, "write the plots, the HTML report and the replay")
     add_switch(parser, "replay", True, "write the annotated replay video")
+    add_switch(parser, "grid", True, "draw the registered tile grid, faint, in the replay")
     add_force(parser)
 
 
@@ -96,6 +97,9 @@ def _check_options(args) -> None:
     finite_option("--clock-offset-s", args.clock_offset_s)
     if args.track is None and not args.video.is_file():
         raise InputError(f"{args.video}: file not found; check the video path")
+    if args.track is not None and getattr(args, "points", None) is not None:
+        raise InputError("--points registers the video for tracking, but --track reuses a "
+                         "track (with its own registration): give one of them")
 
 
 def run(args) -> int:
@@ -160,4 +164,5 @@ def _pictures(args, stage) -> None:
         print(f"vidodo grade: warning: {args.video}: not found, so no replay video "
               "(graded from --track)", file=sys.stderr)
     with progress_bar(desc="report", quiet=args.quiet) as bar:
-        write_report(stage, stage, replay=replay, units=args.units, progress=bar)
+        write_report(stage, stage, replay=replay, units=args.units, progress=bar,
+                     grid=args.grid)

@@ -25,6 +25,7 @@ def add_arguments(parser):
     add_units(parser, "plots and the report")
     add_switch(parser, "replay", False,
                "write replay.mp4 (the footage with tracks drawn in)")
+    add_switch(parser, "grid", True, "draw the registered tile grid, faint, in the replay")
     add_force(parser)
 
 
@@ -44,7 +45,7 @@ def run(args) -> int:
                     carry_over=True, command="vidodo report") as stage, \
             progress_bar(None, "replay", quiet=args.quiet or not args.replay) as bar:
         written = write_report(args.grade_dir, stage, replay=args.replay, units=args.units,
-                             progress=bar)
+                               progress=bar, grid=args.grid)
     if not args.quiet:
         for p in written:
             print(Path(out) / p.name)

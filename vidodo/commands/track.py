@@ -22,7 +22,8 @@ DESCRIPTION = (
     "floor registration (correcting the marker height and the rolling shutter), smooth "
     "and write one CSV row per frame: t_s, x_m, y_m, heading_rad, sigma_xy_m, "
     "sigma_heading_rad, vx_mps, vy_mps, speed_mps, omega_radps, ax_mps2, ay_mps2, "
-    "detected, interpolated. A JSON file with the quality figures is written beside it."
+    "detected, interpolated. A JSON file with the quality figures and a CSV of the floor "
+    "registrations used (<name>.floor.csv, for the replay) are written beside it."
 )
 
 
@@ -70,16 +71,23 @@ TRACK_SIGNATURE = b"t_s,x_m,"
 QUALITY_SIGNATURE = b'{\n  "quality"'
 
 
+FLOOR_SIGNATURE = b"t_s,ok,method,"
+
+
 def _targets(args):
+    from ..floor_poses import floor_poses_path
+
     out = Path(args.out)
-    return ((out, TRACK_SIGNATURE), (out.with_suffix(".quality.json"), QUALITY_SIGNATURE))
+    return ((out, TRACK_SIGNATURE), (out.with_suffix(".quality.json"), QUALITY_SIGNATURE),
+            (floor_poses_path(out), FLOOR_SIGNATURE))
 
 
 def _inputs(args):
     return (args.video, args.robot, args.field, args.camera, getattr(args, "points", None))
 
 
-def _write(result, out: Path, args=None):
+def _write(result, out: Path, args=None, registrations=()):
+    from ..floor_poses import floor_poses_path, write_floor_poses
     from ..track import save_track_csv
 
     kw = {} if args is None else dict(inputs=_inputs(args), force=args.force)
@@ -88,10 +96,16 @@ def _write(result, out: Path, args=None):
     with atomic_file(out.with_suffix(".quality.json"), signature=QUALITY_SIGNATURE,
                      **kw) as tmp:
         tmp.write_text(_quality_json(result))
+    if registrations:
+        # the registrations the track was measured with, for the pictures drawn from it
+        with atomic_file(floor_poses_path(out), signature=FLOOR_SIGNATURE, **kw) as tmp:
+            write_floor_poses(registrations, tmp,
+                              detection_readout_s=float(result.quality.get("readout_s") or 0))
 
 
 def run(args) -> int:
     """Track, write the CSV (also the part before a truncation), report."""
+    from ..floor_poses import RecordingRegistrar
     from ..input_checks import camera_matches_video
     from ..outputs import check_file_target
     from ..track import track_video
@@ -103,7 +117,8 @@ def run(args) -> int:
     field = load_field(args.field)
     camera = load_camera(args.camera) if args.camera else None
     camera_matches_video(camera, args.video)
-    registrar = registration_options.registrar_from_args(args, field, camera)
+    registrar = RecordingRegistrar(registration_options.registrar_from_args(args, field,
+                                                                            camera))
     readout = None if args.readout_ms is None else args.readout_ms / 1000.0
     try:
         with Progress(desc="tracking", quiet=args.quiet) as bar:
@@ -116,11 +131,11 @@ def run(args) -> int:
     except VideoTruncatedError as exc:
         if exc.partial is None:
             raise
-        _write(exc.partial, args.out, args)
+        _write(exc.partial, args.out, args, registrar.records)
         print(f"vidodo track: warning: track written up to frame {exc.frames_read} "
               f"({exc.t_last_s:.3f} s) -> {args.out}", file=sys.stderr)
         raise
-    _write(result, args.out, args)
+    _write(result, args.out, args, registrar.records)
     for w in result.warnings:
         print(f"vidodo track: warning: {w}", file=sys.stderr)
     if not args.quiet:

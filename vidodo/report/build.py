@@ -177,8 +177,16 @@ def robot_picture(summary: dict, folder: Path | None, out_dir: Path) -> dict[str
     return {}
 
 
+def _registration(data):
+    """The report's registration section data (None when the grade has no
+    registrations)."""
+    from ..registration_report import registration_summary
+
+    return registration_summary(data)
+
+
 def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: str = "mm",
-                 progress=None) -> list[Path]:
+                 progress=None, grid: bool = True) -> list[Path]:
     """Write the plots, the HTML report and (optionally) the annotated replay.
 
     Parameters
@@ -196,6 +204,8 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
         Display unit for lengths.
     progress : callable, optional
         ``progress(done, total)`` for the replay's frames.
+    grid : bool
+        Draw the registered tile grid, faint, on every frame of the replay.
 
     Returns
     -------
@@ -229,7 +239,7 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
 
         try:
             path = replay_from_grade(data, out_dir / "replay.mp4", units=units,
-                                     progress=progress)
+                                     progress=progress, grid=grid)
         except VidodoError as exc:  # the report is still written, then the error raised
             failure = exc
             extra.append(f"replay.mp4 not written: {exc}")
@@ -240,7 +250,7 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
     images = {PLOT_CAPTIONS.get(k, k): p for k, p in pngs.items()}
     html_path = write_html(out_dir / "report.html", data.summary, images, unit=units,
                            title=f"vidodo report: {title}" if title else None,
-                           extra_files=extra)
+                           extra_files=extra, registration=_registration(data))
     written.append(html_path)
     if failure is not None:
         raise failure

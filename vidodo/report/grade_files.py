@@ -114,4 +114,11 @@ def write_outputs(result, out_dir, *, write_track=True) -> list[Path]:
         if write_track:
             write_csv(result.truth, stage / "track.csv", float_format="%.7g")
             names.append("track.csv")
+            poses = getattr(result, "floor_poses", None)
+            if poses is not None and len(poses):
+                from ..floor_poses import write_floor_poses
+
+                write_floor_poses(poses.registrations, stage / "track.floor.csv",
+                                  detection_readout_s=poses.detection_readout_s)
+                names.append("track.floor.csv")
     return [out / n for n in names]

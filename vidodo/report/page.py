@@ -22,7 +22,8 @@ from pathlib import Path
 from .. import __version__
 from ..units import format_angle, format_length, format_percent, length_factor
 
-__all__ = ["METRIC_COLUMNS", "build_html", "write_html", "png_data_uri"]
+__all__ = ["METRIC_COLUMNS", "build_html", "write_html", "png_data_uri",
+           "registration_section"]
 
 METRIC_COLUMNS = (
     # (summary key, heading, kind)  kind: length | angle | percent | degrees | seconds | bool
@@ -254,8 +255,56 @@ def _verdict_block(summary: dict) -> str:
     return f'<p class="verdict {cls}" id="verdict">Verdict: {_e(text)}</p>'
 
 
+def registration_section(reg, unit: str = "mm") -> str:
+    """The report's registration section (``id="registration"``) as HTML.
+
+    Parameters
+    ----------
+    reg : vidodo.registration_report.RegistrationSummary or None
+        None gives a short note that the registrations are not known.
+    unit : {'mm', 'in', 'm'}
+        Display unit of floor residuals.
+    """
+    parts = ['<section id="registration"><h2>Floor registration</h2>']
+    if reg is None:
+        parts.append("<p>The registrations the truth track was measured with are not in "
+                     "this grade folder (no track.floor.csv), so none is shown.</p></section>")
+        return "".join(parts)
+    cam = "hand-held (every frame registered again)" if reg.moving else "still"
+    parts.append(
+        "<table>"
+        '<tr><th>method</th><td colspan="2" data-key="registration/method">'
+        f"{_e(reg.method)}</td></tr>"
+        f'<tr><th>lens</th><td colspan="2" data-key="registration/lens">{_e(reg.lens)}</td></tr>'
+        f'<tr><th>camera</th><td colspan="2">{_e(cam)}</td></tr>'
+        f'<tr><th>shown</th><td colspan="2">{_e(reg.source)}</td></tr>'
+        f'<tr><th>registrations made</th><td colspan="2" class="num">{reg.n_ok} of '
+        f"{reg.n_registrations} succeeded</td></tr>"
+        "<tr><th>residual in px (median / worst)</th>"
+        f'{_cell("registration/rms_px_median", reg.rms_px_median, "raw", unit)}'
+        f'{_cell("registration/rms_px_max", reg.rms_px_max, "raw", unit)}</tr>'
+        "<tr><th>on the floor (median / worst)</th>"
+        f'{_cell("registration/rms_floor_m_median", reg.rms_floor_m_median, "length", unit)}'
+        f'{_cell("registration/rms_floor_m_max", reg.rms_floor_m_max, "length", unit)}</tr>'
+        "</table>")
+    if reg.note:
+        parts.append(f'<p class="warn">{_e(reg.note)}</p>')
+    for f in reg.frames:
+        src = "data:image/jpeg;base64," + base64.b64encode(f.jpeg).decode("ascii")
+        cap = (f"{f.role} frame, t = {f.t_s:.2f} s: {f.method}, residual {f.rms_px:.3g} px "
+               f"({format_length(f.rms_floor_m, unit)} on the floor), {f.n_points} "
+               "observations; magenta: the tile grid and field outline this registration "
+               "implies")
+        parts.append(f'<figure class="registration-frame" data-role="{_e(f.role)}" '
+                     f'data-t-s="{f.t_s!r}" data-scale="{f.scale!r}">'
+                     f'<img src="{src}" alt="{_e(f.role)} frame with the registered grid">'
+                     f"<figcaption>{_e(cap)}</figcaption></figure>")
+    parts.append("</section>")
+    return "".join(parts)
+
+
 def build_html(summary: dict, images: dict | None = None, *, unit: str = "mm",
-               title: str | None = None, extra_files=()) -> str:
+               title: str | None = None, extra_files=(), registration="absent") -> str:
     """The report page as one string.
 
     Parameters
@@ -270,6 +319,9 @@ def build_html(summary: dict, images: dict | None = None, *, unit: str = "mm",
         Page heading (default from the inputs in the summary).
     extra_files : iterable of str
         Names of files written beside the report (e.g. the replay), listed as text.
+    registration : RegistrationSummary or None, optional
+        The registration section (:func:`registration_section`); left out when not
+        given.
 
     Returns
     -------
@@ -306,6 +358,8 @@ def build_html(summary: dict, images: dict | None = None, *, unit: str = "mm",
         for caption, png in images.items():
             parts.append(f'<figure><img src="{png_data_uri(png)}" alt="{_e(caption)}">'
                          f"<figcaption>{_e(caption)}</figcaption></figure>")
+    if registration != "absent":
+        parts.append(registration_section(registration, unit))
     parts.append("<h2>Details</h2>")
     parts.append("<h3>Inputs</h3>" + _kv_table(inputs, "inputs", unit))
     parts.append("<h3>Clock (log onto video)</h3>" + _kv_table(summary.get("clock") or {},
@@ -330,10 +384,11 @@ def build_html(summary: dict, images: dict | None = None, *, unit: str = "mm",
 
 
 def write_html(path, summary: dict, images: dict | None = None, *, unit: str = "mm",
-               title: str | None = None, extra_files=()) -> Path:
+               title: str | None = None, extra_files=(), registration="absent") -> Path:
     """Write :func:`build_html` to ``path`` (UTF-8) and return the path."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     path.write_text(build_html(summary, images, unit=unit, title=title,
-                               extra_files=extra_files), encoding="utf-8")
+                               extra_files=extra_files, registration=registration),
+                    encoding="utf-8")
     return path

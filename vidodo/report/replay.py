@@ -26,6 +26,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
+from ..grid_overlay import draw_grid_overlay
 from ..units import format_length
 from .plots import EVENT_STYLE, source_colors, source_prefixes
 
@@ -40,6 +41,8 @@ __all__ = [
     "ReplayStyle",
     "write_replay",
     "replay_from_grade",
+    "grade_registration",
+    "grade_input",
 ]
 
 TRUTH_BGR = (0, 255, 0)
@@ -141,8 +144,36 @@ def marker_points_m(poses, marker=None):
     return np.column_stack([x, y, np.full(len(p), mz)])
 
 
+def _pose_after(tracks: ReplayTracks, poses, row: int, dt_s: float):
+    """The pose ``dt_s`` after sample ``row`` (linear between neighbouring samples)."""
+    if dt_s <= 0:
+        return poses[row]
+    lo, hi = max(row - 1, 0), min(row + 3, len(tracks.t_s))
+    ts, p = tracks.t_s[lo:hi], poses[lo:hi]
+    t = tracks.t_s[row] + dt_s
+    head = np.unwrap(p[:, 2]) if np.all(np.isfinite(p[:, 2])) else p[:, 2]
+    return np.array([np.interp(t, ts, p[:, 0]), np.interp(t, ts, p[:, 1]),
+                     np.interp(t, ts, head)])
+
+
+def _seen_pose(tracks, poses, row, registration, marker, readout_s, height_px):
+    """The pose at the moment the rows showing it were read (rolling shutter): the row
+    of the marker's projection gives the delay after the frame time, iterated twice."""
+    pose = poses[row]
+    if not readout_s or not height_px:
+        return pose
+    for _ in range(2):
+        px = _project(registration, marker_points_m(pose[None], marker))[0]
+        if not np.all(np.isfinite(px)):
+            return pose
+        dt = float(np.clip(px[1] / height_px, 0.0, 1.0)) * readout_s
+        pose = _pose_after(tracks, poses, row, dt)
+    return pose
+
+
 def frame_overlay(tracks: ReplayTracks, row: int | None, registration, *, marker=None,
-                  trail_s: float = 3.0, heading_len_m: float = 0.15) -> dict:
+                  trail_s: float = 3.0, heading_len_m: float = 0.15, readout_s: float = 0.0,
+                  height_px: int | None = None) -> dict:
     """Pixel positions of everything drawn on one frame.
 
     Parameters
@@ -158,6 +189,12 @@ def frame_overlay(tracks: ReplayTracks, row: int | None, registration, *, marker
         Length of the track drawn behind each pose [s].
     heading_len_m : float
         Length of the heading tick on the floor [m].
+    readout_s : float
+        Rolling-shutter readout the track's detections were placed in time with [s]:
+        a pose is drawn as it was when the rows showing it were read, ``v / height_px *
+        readout_s`` after the frame time (0: at the frame time, as the track was made).
+    height_px : int, optional
+        Frame height [px] (needed with ``readout_s``).
 
     Returns
     -------
@@ -174,7 +211,8 @@ def frame_overlay(tracks: ReplayTracks, row: int | None, registration, *, marker
         t_now = tracks.t_s[row]
         lo = int(np.searchsorted(tracks.t_s, t_now - trail_s))
         for name, poses in [("__truth__", tracks.truth), *tracks.sources.items()]:
-            cur = poses[row:row + 1]
+            cur = _seen_pose(tracks, poses, row, registration, marker, readout_s,
+                             height_px)[None]
             pts = marker_points_m(cur, marker)
             tip = pts.copy()
             tip[:, 0] += heading_len_m * np.cos(cur[:, 2])
@@ -396,6 +434,8 @@ class ReplaySetup:
     sources: dict | None = None
     """Source display name -> drift column prefix (default: every source in the
     drift table)."""
+    readout_s: float = 0.0
+    """Rolling-shutter readout the track was made with (see :func:`frame_overlay`) [s]."""
 
 
 @dataclass(frozen=True)
@@ -408,6 +448,9 @@ class ReplayStyle:
     """Track length drawn behind each pose [s]."""
     codec: str = "h264"
     """Codec for :func:`vidodo.encode.write_video` ('h264' plays in browsers)."""
+    grid: bool = True
+    """Draw the registered tile grid and field outline, faint, on every frame (needs the
+    field profile), so a wrong floor mapping shows at a glance."""
 
 
 def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, out_path,
@@ -424,9 +467,10 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
     out_path : path
         The mp4 to write.
     setup : ReplaySetup, optional
-        Robot, field and camera profiles, or a registration; marker; sources.
+        Robot, field and camera profiles, or a registration; marker; sources; readout
+        time the track was made with.
     style : ReplayStyle, optional
-        Display unit, trail length [s], codec.
+        Display unit, trail length [s], codec, tile grid on or off.
     progress : callable, optional
         ``progress(done, total)`` per frame.
 
@@ -483,11 +527,15 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
             row = tracks.row_at(t_s, max_gap_s=gap)
             state["reg"] = reg if getattr(reg, "ok", False) else state["reg"]
             state["pose"] = tracks.truth[row] if row is not None else state["pose"]
-            ov = frame_overlay(tracks, row, reg, marker=marker, trail_s=style.trail_s)
+            ov = frame_overlay(tracks, row, reg, marker=marker, trail_s=style.trail_s,
+                               readout_s=setup.readout_s, height_px=frame.shape[0])
             lines = readout_lines(tracks, row, t_s, colors, style.units)
             if not getattr(reg, "ok", False):
                 lines.append(("floor not registered in this frame", (0, 0, 255)))
-            img = annotate_frame(frame, ov, lines=lines, colors=colors)
+            base = frame
+            if style.grid and setup.field is not None and getattr(reg, "ok", False):
+                base = draw_grid_overlay(frame.copy(), reg, setup.field, alpha=0.35)
+            img = annotate_frame(base, ov, lines=lines, colors=colors)
             if progress is not None:
                 progress(index + 1, times.size)
             yield img[: img.shape[0] // 2 * 2, : img.shape[1] // 2 * 2]
@@ -500,11 +548,14 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
 
 
 def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,
-                      registration=None) -> Path:
+                      registration=None, grid: bool = True) -> Path:
     """Write the replay for a :class:`vidodo.report.build.GradeData`.
 
     The footage and profiles are the ones named in ``summary['inputs']`` (``video``,
     ``robot``, ``field``, optional ``camera``), relative to the grade folder or absolute.
+    The frames are mapped with the registrations the truth track was measured with
+    (``track.floor.csv`` in the grade folder, :func:`grade_registration`); only a grade
+    folder without them registers the frames again.
 
     Raises
     ------
@@ -516,19 +567,7 @@ def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,
     inputs = data.summary.get("inputs") or {}
 
     def find(key, required=True):
-        p = inputs.get(key)
-        cands = []
-        if isinstance(p, str) and p:
-            cands.append(Path(p))
-            if data.folder is not None:
-                cands.append(Path(data.folder) / p)
-        for c in cands:
-            if c.is_file():
-                return c
-        if required:
-            raise InputError(f"{data.folder}/summary.json: inputs.{key} = {p!r} not found; "
-                             "run the report where the run folder is, or skip the replay")
-        return None
+        return grade_input(data, key, required=required)
 
     video = find("video")
     robot = load_robot(find("robot"))
@@ -538,7 +577,62 @@ def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,
     field = load_field(field_path) if field_path is not None else data.field
     cam_path = find("camera", required=False)
     camera = load_camera(cam_path) if cam_path is not None else None
+    readout = 0.0
+    if registration is None:
+        registration, readout = grade_registration(data.folder, field, camera,
+                                                   inputs.get("points"))
     setup = ReplaySetup(robot=robot, field=field, camera=camera, registration=registration,
-                        sources=data.sources)
+                        sources=data.sources, readout_s=readout)
     return write_replay(video, data.drift, data.events, out_path, setup,
-                        ReplayStyle(units=units), progress=progress)
+                        ReplayStyle(units=units, grid=grid), progress=progress)
+
+
+
+def grade_input(data, key: str, *, required: bool = True):
+    """The file ``summary['inputs'][key]`` of a grade names (as given, or relative to the
+    grade folder), or None when it is not there and not ``required``.
+
+    Raises
+    ------
+    InputError
+        When a required file cannot be found.
+    """
+    p = (data.summary.get("inputs") or {}).get(key)
+    cands = []
+    if isinstance(p, str) and p:
+        cands.append(Path(p))
+        if data.folder is not None:
+            cands.append(Path(data.folder) / p)
+    for c in cands:
+        if c.is_file():
+            return c
+    if required:
+        raise InputError(f"{data.folder}/summary.json: inputs.{key} = {p!r} not found; "
+                         "run the report where the run folder is, or skip the replay")
+    return None
+
+
+def grade_registration(folder, field, camera=None, points=None):
+    """How the frames of a grade are mapped to the floor: ``(register, readout_s)``.
+
+    With ``track.floor.csv`` in the grade folder (the registrations the truth track was
+    measured with), ``register(frame, t_s, mask=None)`` returns the one in effect at
+    ``t_s``, and ``readout_s`` is the rolling-shutter readout the track used. Without
+    it, a new :class:`vidodo.registration.registrar.FloorRegistrar` (with the grade's
+    points CSV when it had one) registers every frame, and ``readout_s`` is 0.
+    """
+    from ..floor_poses import read_floor_poses
+    from ..registration.frame import failed
+    from ..registration.registrar import FloorRegistrar
+
+    path = None if folder is None else Path(folder) / "track.floor.csv"
+    if path is not None and path.is_file():
+        poses = read_floor_poses(path)
+
+        def register(frame, t_s, mask=None):
+            reg = poses.at(t_s)
+            return reg if reg is not None else failed(t_s, "not registered when tracked")
+
+        return register, poses.detection_readout_s
+    pts = points if isinstance(points, str) and Path(points).is_file() else None
+    return FloorRegistrar(field, camera, points_csv=pts).register, 0.0

@@ -1,0 +1,69 @@
+"""The registered tile grid and field outline drawn over a frame.
+
+Every seam of the field profile is sampled along its length on the floor and projected
+through the frame's registration (``FrameRegistration.floor_to_image`` of
+:mod:`vidodo.registration.frame`, so lens distortion and a rolling shutter bend it as in
+the footage). A wrong floor
+mapping is then visible at a glance: the drawn lines leave the seams.
+"""
+
+from __future__ import annotations
+
+import cv2
+import numpy as np
+
+__all__ = ["GRID_BGR", "OUTLINE_BGR", "grid_polylines_px", "draw_grid_overlay"]
+
+GRID_BGR = (255, 0, 255)
+"""Colour of the tile seams drawn (magenta: rare on floors and robots)."""
+OUTLINE_BGR = (255, 0, 255)
+"""Colour of the field outline (drawn thicker)."""
+
+
+def grid_polylines_px(reg, field, samples: int = 48):
+    """The seams of ``field`` in the image of ``reg``.
+
+    Returns
+    -------
+    list of (ndarray (K, 2), bool)
+        Pixel polylines [px] (points that do not project are left out) and whether the
+        line is on the field outline.
+    """
+    if reg is None or not getattr(reg, "ok", False):
+        return []
+    sx, sy = field.size_m
+    xs = np.arange(field.tiles_x + 1) * field.tile_size_m
+    ys = np.arange(field.tiles_y + 1) * field.tile_size_m
+    # each seam from end to end on the floor, and whether it is on the outline
+    ends = [((x, 0.0), (x, sy), k in (0, field.tiles_x)) for k, x in enumerate(xs)]
+    ends += [((0.0, y), (sx, y), k in (0, field.tiles_y)) for k, y in enumerate(ys)]
+    t = np.linspace(0.0, 1.0, samples)[:, None]
+    out = [(np.asarray(a) + t * (np.asarray(b) - np.asarray(a)), border)
+           for a, b, border in ends]
+    lines = []
+    for pts, border in out:
+        px = np.asarray(reg.floor_to_image(pts), float).reshape(-1, 2)
+        good = np.all(np.isfinite(px), axis=1) & np.all(np.abs(px) < 1e5, axis=1)
+        if good.sum() >= 2:
+            lines.append((px[good], border))
+    return lines
+
+
+def draw_grid_overlay(img, reg, field, *, alpha: float = 0.35, thickness: int = 1,
+                      colour=GRID_BGR, outline_colour=OUTLINE_BGR, scale: float = 1.0):
+    """Draw the registered grid on ``img`` in place (blended by ``alpha``); returns it.
+
+    ``scale`` is the size of ``img`` relative to the frame ``reg`` belongs to (for a
+    shrunken copy); pixel centres stay at integers.
+    """
+    lines = [((px + 0.5) * scale - 0.5, border) for px, border in grid_polylines_px(reg, field)]
+    if not lines:
+        return img
+    layer = img.copy() if alpha < 1.0 else img
+    for px, border in lines:
+        arr = np.round(px * 16).astype(np.int32).reshape(-1, 1, 2)
+        cv2.polylines(layer, [arr], False, outline_colour if border else colour,
+                      thickness + (1 if border else 0), cv2.LINE_AA, shift=4)
+    if alpha < 1.0:
+        cv2.addWeighted(layer, alpha, img, 1.0 - alpha, 0.0, dst=img)
+    return img
