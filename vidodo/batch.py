@@ -139,7 +139,7 @@ def grade_one(run_dir, out_dir, options: dict) -> dict:
     run_dir, out_dir : path
     options : dict
         ``tol_pos_m``, ``tol_heading_rad`` (None for no tolerance), ``report`` (bool),
-        ``replay`` (bool), ``units``.
+        ``replay`` (bool), ``units``, ``replay_scale`` (None for the default).
 
     Returns
     -------
@@ -160,7 +160,8 @@ def grade_one(run_dir, out_dir, options: dict) -> dict:
             if options.get("report", True) or options.get("replay", False):
                 try:
                     write_report(stage, stage, replay=bool(options.get("replay")),
-                                 units=options.get("units", "mm"))
+                                 units=options.get("units", "mm"),
+                                 replay_scale=options.get("replay_scale"))
                 except VidodoError as exc:  # the grade stands; the pictures are extra
                     warnings.append(f"report not written: {exc}")
         return {"status": "graded", "exit_code": 4 if summary.get("verdict") == "fail" else 0,

@@ -109,8 +109,10 @@ def write_video(path, frames: Iterable[np.ndarray], frame_times_s, *, codec="h26
         Output file (.mp4).
     frames : iterable of ndarray of shape (H, W, 3), uint8
         BGR frames, all the same size; H and W must be even.
-    frame_times_s : array_like of shape (N,)
-        Presentation time of each frame, strictly increasing, first >= 0 [s].
+    frame_times_s : array_like of shape (N,), or callable
+        Presentation time of each frame, strictly increasing, first >= 0 [s]; or a
+        function returning them, called after the last frame (for a stream whose times
+        come with its frames).
     codec : {'h264', 'hevc', 'mpeg4'}
         Video codec (libx264, libx265, or ffmpeg's MPEG-4 part 2 encoder).
     crf : float
@@ -129,7 +131,8 @@ def write_video(path, frames: Iterable[np.ndarray], frame_times_s, *, codec="h26
     VidodoError
         ffmpeg is missing or failed (its last message is included).
     """
-    t = _check_times(frame_times_s)
+    lazy = callable(frame_times_s)
+    t = None if lazy else _check_times(frame_times_s)
     codec = {"h265": "hevc", "x264": "h264", "x265": "hevc"}.get(codec, codec)
     if codec not in CODECS:
         raise InputError(f"write_video: codec {codec!r} unknown; use one of {sorted(CODECS)}")
@@ -150,6 +153,7 @@ def write_video(path, frames: Iterable[np.ndarray], frame_times_s, *, codec="h26
     with atomic_file(path) as tmp:
         if exe is None:
             n = _opencv_frames(tmp, first, it, (h, w), fps_nominal, path)
+            t = _check_times(frame_times_s()) if lazy else t
             if n != t.size:
                 raise InputError(
                     f"{path}: got {n} frames but {t.size} frame times; give one time per frame"
@@ -163,6 +167,7 @@ def write_video(path, frames: Iterable[np.ndarray], frame_times_s, *, codec="h26
                *CODECS[codec], *quality, "-an",
                "-video_track_timescale", str(TIMESCALE_HZ), "-f", "mp4", str(tmp)]
         n = _pipe_frames(cmd, first, it, (h, w), path)
+        t = _check_times(frame_times_s()) if lazy else t
         if n != t.size:
             raise InputError(
                 f"{path}: got {n} frames but {t.size} frame times; give one time per frame"

@@ -20,7 +20,7 @@ import sys
 from pathlib import Path
 
 from ..errors import InputError
-from ._options import add_force, add_out, add_switch, add_units
+from ._options import add_force, add_out, add_replay_scale, add_switch, add_units
 
 NAME = "batch"
 HELP = "grade every run folder under a directory, in parallel; one table for all"
@@ -40,7 +40,8 @@ def add_arguments(parser):
     parser.add_argument("--jobs", type=int, default=None,
                         help="worker processes (default: number of CPUs)")
     add_units(parser, "printed lines and plots")
-    add_switch(parser, "replay", False, "write each run's annotated replay (slow)")
+    add_switch(parser, "replay", False, "write each run's annotated replay")
+    add_replay_scale(parser)
     add_switch(parser, "report", True, "write each run's plots and HTML report")
     parser.add_argument("--tol-pos-m", type=float, metavar="M",
                         help="largest final position error that passes [m]")
@@ -94,7 +95,8 @@ def run(args) -> int:
     options = {"tol_pos_m": args.tol_pos_m,
                "tol_heading_rad": None if args.tol_heading_deg is None
                else math.radians(args.tol_heading_deg),
-               "report": args.report, "replay": args.replay, "units": args.units}
+               "report": args.report, "replay": args.replay, "units": args.units,
+               "replay_scale": args.replay_scale}
     # the whole batch is one staged set: every run's folder, batch.csv and the trend
     with staged_dir(out_root, inputs=runs, force=args.force,
                     command="vidodo batch") as stage:

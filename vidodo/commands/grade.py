@@ -9,7 +9,7 @@ from pathlib import Path
 from ..errors import EXIT_OK, EXIT_TOLERANCE, InputError, RegistrationRefused, VidodoError
 from ..units import length_factor
 from . import registration_options
-from ._options import add_force, add_old_spelling, add_out, add_switch, add_units
+from ._options import add_force, add_old_spelling, add_out, add_replay_scale, add_switch, add_units
 
 NAME = "grade"
 HELP = "measure the run from the video, line up the log, report drift and events"
@@ -45,6 +45,7 @@ def add_arguments(parser):
     add_switch(parser, "report", True, "write the plots, the HTML report and the replay")
     add_switch(parser, "replay", True, "write the annotated replay video")
     add_force(parser)
+    add_replay_scale(parser)
 
 
 def _fmt(v, scale, digits=0, unit=""):
@@ -160,4 +161,5 @@ def _pictures(args, stage) -> None:
         print(f"vidodo grade: warning: {args.video}: not found, so no replay video "
               "(graded from --track)", file=sys.stderr)
     with progress_bar(desc="report", quiet=args.quiet) as bar:
-        write_report(stage, stage, replay=replay, units=args.units, progress=bar)
+        write_report(stage, stage, replay=replay, units=args.units, progress=bar,
+                     replay_scale=args.replay_scale)

@@ -14,6 +14,8 @@ from pathlib import Path
 import pandas as pd
 
 from ..errors import InputError, VidodoError
+from ..outputs import atomic_file
+from ..timings import StageTimes, merged
 from .page import write_html
 from .plots import source_prefixes, write_plots
 
@@ -178,7 +180,7 @@ def robot_picture(summary: dict, folder: Path | None, out_dir: Path) -> dict[str
 
 
 def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: str = "mm",
-                 progress=None) -> list[Path]:
+                 progress=None, replay_scale: float | None = None) -> list[Path]:
     """Write the plots, the HTML report and (optionally) the annotated replay.
 
     Parameters
@@ -196,6 +198,9 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
         Display unit for lengths.
     progress : callable, optional
         ``progress(done, total)`` for the replay's frames.
+    replay_scale : float, optional
+        Size of the replay relative to the footage (default
+        :data:`vidodo.report.replay.DEFAULT_SCALE`; 1 for full resolution).
 
     Returns
     -------
@@ -203,6 +208,8 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
         The files written: three PNGs (plus ``robot.png`` when the robot profile
         named in the summary can be read, and ``plan.png`` when also the footage and
         field can), ``report.html`` and, if asked, ``replay.mp4``.
+        When ``out_dir`` holds the grade's ``summary.json``, the seconds spent on the
+        pictures and the replay are added to its ``timings_s``.
 
     Raises
     ------
@@ -215,12 +222,14 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
     folder = _grade_folder_of(grade_result_or_dir, out_dir)
     data = load_grade_dir(folder)
     title = _run_title(data.summary)
-    pngs = write_plots(data.drift, data.events, out_dir, field=data.field,
-                       sources=data.sources, unit=units, title=title)
-    pngs.update(robot_picture(data.summary, data.folder, out_dir))
-    from ..plan_picture import plan_of_grade
+    times = StageTimes()
+    with times.stage("pictures"):
+        pngs = write_plots(data.drift, data.events, out_dir, field=data.field,
+                           sources=data.sources, unit=units, title=title)
+        pngs.update(robot_picture(data.summary, data.folder, out_dir))
+        from ..plan_picture import plan_of_grade
 
-    pngs.update(plan_of_grade(data.summary, data.folder, out_dir))
+        pngs.update(plan_of_grade(data.summary, data.folder, out_dir))
     written = list(pngs.values())
     extra = []
     failure = None
@@ -228,8 +237,9 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
         from .replay import replay_from_grade
 
         try:
-            path = replay_from_grade(data, out_dir / "replay.mp4", units=units,
-                                     progress=progress)
+            with times.stage("replay"):
+                path = replay_from_grade(data, out_dir / "replay.mp4", units=units,
+                                         progress=progress, scale=replay_scale)
         except VidodoError as exc:  # the report is still written, then the error raised
             failure = exc
             extra.append(f"replay.mp4 not written: {exc}")
@@ -238,11 +248,29 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
             extra.append(f"{path.name}: the footage with the truth track and every source "
                          "drawn in")
     images = {PLOT_CAPTIONS.get(k, k): p for k, p in pngs.items()}
-    html_path = write_html(out_dir / "report.html", data.summary, images, unit=units,
-                           title=f"vidodo report: {title}" if title else None,
-                           extra_files=extra)
+    with times.stage("pictures"):
+        html_path = write_html(out_dir / "report.html", data.summary, images, unit=units,
+                               title=f"vidodo report: {title}" if title else None,
+                               extra_files=extra)
     written.append(html_path)
+    _record_times(out_dir / "summary.json", times.as_dict())
     if failure is not None:
         raise failure
     return written
+
+
+def _record_times(summary_path: Path, table: dict) -> None:
+    """Add the report's stage times to the ``timings_s`` of ``summary_path`` (if the
+    grade's summary is there: the report may be written elsewhere)."""
+    if not summary_path.is_file():
+        return
+    try:
+        summary = json.loads(summary_path.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return  # not a summary this report may touch
+    if not isinstance(summary, dict):
+        return
+    summary["timings_s"] = merged(summary.get("timings_s"), table)
+    with atomic_file(summary_path) as tmp:
+        tmp.write_text(json.dumps(summary, indent=2, allow_nan=False), encoding="utf-8")
 

@@ -12,7 +12,13 @@ that source believed the marker was.
 The frame also carries a readout (time, error per source in the display unit) and the
 events active at that moment, with their floor position marked.
 
-Frames are streamed: one is decoded, annotated and handed to the encoder at a time.
+Frames are streamed: one is decoded (in a background thread), annotated and handed to
+the encoder (its own process) at a time; each frame's time is taken as it is decoded.
+Cost (``benchmarks/replay_speed.py``): by default the replay is half the footage's size
+(:data:`DEFAULT_SCALE`; ``scale=1`` for full size) and encoded with a fast x264 preset
+(:data:`ENCODER_PRESET`); the floor is registered when the tracker would register it
+(every frame while the camera moves, once a second while it is still: the policy of
+:class:`vidodo.track.RegistrationPolicy`), not on every frame.
 """
 
 from __future__ import annotations
@@ -41,6 +47,14 @@ __all__ = [
     "replay_from_grade",
 ]
 
+DEFAULT_SCALE = 0.5
+"""Replay size relative to the footage unless told otherwise (a 1080p clip gives a
+960x540 replay: rings and text are drawn for that size, the encoder has a quarter of the
+pixels)."""
+ENCODER_PRESET = "superfast"
+"""x264 speed preset of the replay (a review copy, not an archive)."""
+ENCODER_CRF = 23
+"""x264 constant rate factor of the replay (x264's own default)."""
 TRUTH_BGR = (0, 255, 0)
 """Colour of the truth marker ring and crosshair (pure green)."""
 TRUTH_TRAIL_BGR = (40, 160, 40)
@@ -352,31 +366,70 @@ def _robot_mask(shape, registration, pose, robot, margin_m=0.05):
     return mask.astype(bool)
 
 
-def _frame_times(path: Path) -> np.ndarray:
-    """Presentation time of every frame the frame reader hands out [s] (a decoding pass,
-    so that a truncated file gives the same count as the annotating pass)."""
-    from ..video import VideoReader, VideoTruncatedError
+class _Resized:
+    """A frame registration seen through an image resized by ``(sx, sy)`` (pixel centres
+    at integers on both sides: ``u' = (u + 0.5) sx - 0.5``)."""
 
-    t = []
-    with VideoReader(path, threaded=False, check_identical=False) as reader:
-        try:
-            for _, t_s, _ in reader:
-                t.append(t_s)
-        except VideoTruncatedError:
-            pass
-    if not t:
-        raise InputError(f"{path}: no frame could be decoded; re-copy the file")
-    t = np.asarray(t, float)
-    for i in range(1, t.size):  # the encoder needs strictly increasing times
+    def __init__(self, registration, sx: float, sy: float):
+        self._reg = registration
+        self._s = np.array([sx, sy], float)
+
+    def floor_to_image(self, pts_m):
+        px = np.asarray(self._reg.floor_to_image(pts_m), float)
+        return (px + 0.5) * self._s - 0.5
+
+    def __getattr__(self, name):
+        return getattr(self._reg, name)
+
+
+def _replay_size(shape, scale: float) -> tuple[int, int]:
+    """(width, height) of the replay: even, at least 2 px [px]."""
+    if not (0.0 < scale <= 1.0):
+        raise InputError(f"replay: scale must be in (0, 1], got {scale}")
+    h, w = shape[:2]
+    return max(2, int(round(w * scale / 2)) * 2), max(2, int(round(h * scale / 2)) * 2)
+
+
+def _increasing(times: list) -> np.ndarray:
+    """Frame times made strictly increasing and not negative, as the encoder needs [s]."""
+    t = np.asarray(times, float)
+    if not t.size:
+        return t
+    for i in range(1, t.size):
         if not t[i] > t[i - 1]:
             t[i] = t[i - 1] + 1e-3
     return t - min(0.0, t[0])
 
 
+def _register_fn(registration, field, camera):
+    """``register(frame, t_s, mask_fn, index)`` -> the registration in effect for a frame
+    (see :func:`write_replay`, ``registration``)."""
+    if registration is None:
+        if field is None:
+            raise InputError("replay: needs the field profile (or a registration) to map "
+                             "floor positions into the frames")
+        from ..registration.registrar import FloorRegistrar
+        from ..track import RegistrationPolicy
+
+        policy = RegistrationPolicy(FloorRegistrar(field, camera), field)
+
+        def register(frame, t_s, mask_fn, index):
+            return policy.update(frame, index, t_s, mask_fn)[0]
+    elif callable(registration) and not hasattr(registration, "floor_to_image"):
+        def register(frame, t_s, mask_fn, index):
+            mask = mask_fn()
+            return registration(frame, t_s, mask) if mask is not None else \
+                registration(frame, t_s)
+    else:
+        def register(frame, t_s, mask_fn, index):
+            return registration
+    return register
+
+
 def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, out_path, *,
                  robot=None, field=None, camera=None, sources: dict | None = None,
                  registration=None, marker=None, units: str = "mm", trail_s: float = 3.0,
-                 codec: str = "h264", progress=None) -> Path:
+                 codec: str = "h264", progress=None, scale: float | None = None) -> Path:
     """Write the annotated replay of a run.
 
     Parameters
@@ -398,8 +451,9 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
         Source display name -> drift column prefix.
     registration : FrameRegistration or callable, optional
         One registration for every frame (fixed camera), or ``f(frame_bgr, t_s, mask)
-        -> FrameRegistration``; default: a :class:`vidodo.registration.registrar.FloorRegistrar`
-        for ``field`` and ``camera`` run on every frame.
+        -> FrameRegistration`` called on every frame; default: a
+        :class:`vidodo.registration.registrar.FloorRegistrar` for ``field`` and ``camera``
+        run when :class:`vidodo.track.RegistrationPolicy` says so (as while tracking).
     marker : Marker, optional
         The marker whose position is drawn (default: the robot's first marker; without
         either, the robot's reference point on the floor).
@@ -412,6 +466,8 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
         ffmpeg the file is written by OpenCV as MPEG-4 part 2.
     progress : callable, optional
         ``progress(done, total)`` per frame.
+    scale : float, optional
+        Replay size relative to the footage, in (0, 1]; default :data:`DEFAULT_SCALE`.
 
     Returns
     -------
@@ -426,61 +482,56 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
     colors = {n: _hex_to_bgr(c) for n, c in source_colors(sources).items()}
     if marker is None and robot is not None and robot.markers:
         marker = robot.markers[0]
-    if registration is None:
-        if field is None:
-            raise InputError("replay: needs the field profile (or a registration) to map "
-                             "floor positions into the frames")
-        from ..registration.registrar import FloorRegistrar
-
-        registrar = FloorRegistrar(field, camera)
-        register = registrar.register
-    elif callable(registration) and not hasattr(registration, "floor_to_image"):
-        register = registration
-    else:
-        fixed = registration
-
-        def register(frame, t_s, mask=None):
-            return fixed
-
-    times = _frame_times(video_path)
-    gap = 0.6 * float(np.median(np.diff(times))) if times.size > 1 else 0.05
+    register = _register_fn(registration, field, camera)
+    times: list[float] = []
+    scale = DEFAULT_SCALE if scale is None else float(scale)
+    _replay_size((2, 2), scale)  # a bad scale fails before anything is decoded
+    steps = np.diff(tracks.t_s)
+    gap = 0.6 * float(np.median(steps)) if steps.size else 0.05  # a row per frame
     state = {"reg": None, "pose": None}
 
     def frames():
         with VideoReader(video_path) as reader:
+            total = reader.info.frame_count or None
             try:
-                yield from annotated(reader)
+                for index, t_s, frame in reader:
+                    times.append(t_s)
+                    yield annotated(index, t_s, frame)
+                    if progress is not None:
+                        progress(index + 1, total)
             except VideoTruncatedError:
-                return  # every good frame was annotated; the encoder checks the count
+                return  # every good frame was annotated
 
-    def annotated(reader):
-        for index, t_s, frame in reader:
-            if index >= times.size:
-                break
-            mask = (_robot_mask(frame.shape, state["reg"], state["pose"], robot)
+    def annotated(index, t_s, frame):
+        def mask_fn():
+            return (_robot_mask(frame.shape, state["reg"], state["pose"], robot)
                     if robot is not None else None)
-            reg = register(frame, t_s, mask) if mask is not None else register(frame, t_s)
-            row = tracks.row_at(t_s, max_gap_s=gap)
-            state["reg"] = reg if getattr(reg, "ok", False) else state["reg"]
-            state["pose"] = tracks.truth[row] if row is not None else state["pose"]
-            ov = frame_overlay(tracks, row, reg, marker=marker, trail_s=trail_s)
-            lines = readout_lines(tracks, row, t_s, colors, units)
-            if not getattr(reg, "ok", False):
-                lines.append(("floor not registered in this frame", (0, 0, 255)))
-            img = annotate_frame(frame, ov, lines=lines, colors=colors)
-            if progress is not None:
-                progress(index + 1, times.size)
-            yield img[: img.shape[0] // 2 * 2, : img.shape[1] // 2 * 2]
+
+        reg = register(frame, t_s, mask_fn, index)
+        row = tracks.row_at(t_s, max_gap_s=gap)
+        state["reg"] = reg if getattr(reg, "ok", False) else state["reg"]
+        state["pose"] = tracks.truth[row] if row is not None else state["pose"]
+        (h0, w0), (w, h) = frame.shape[:2], _replay_size(frame.shape, scale)
+        if (w, h) != (w0, h0):
+            frame = cv2.resize(frame, (w, h), interpolation=cv2.INTER_AREA)
+            reg = None if reg is None else _Resized(reg, w / w0, h / h0)
+        ov = frame_overlay(tracks, row, reg, marker=marker, trail_s=trail_s)
+        lines = readout_lines(tracks, row, t_s, colors, units)
+        if not getattr(reg, "ok", False):
+            lines.append(("floor not registered in this frame", (0, 0, 255)))
+        return annotate_frame(frame, ov, lines=lines, colors=colors)
 
     from ..encode import write_video
 
     out_path.parent.mkdir(parents=True, exist_ok=True)
-    write_video(out_path, frames(), times, codec=codec if shutil.which("ffmpeg") else "mpeg4")
+    write_video(out_path, frames(), lambda: _increasing(times),
+                codec=codec if shutil.which("ffmpeg") else "mpeg4", crf=ENCODER_CRF,
+                preset=ENCODER_PRESET)
     return out_path
 
 
 def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,
-                      registration=None) -> Path:
+                      registration=None, scale: float | None = None) -> Path:
     """Write the replay for a :class:`vidodo.report.build.GradeData`.
 
     The footage and profiles are the ones named in ``summary['inputs']`` (``video``,
@@ -520,4 +571,4 @@ def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,
     camera = load_camera(cam_path) if cam_path is not None else None
     return write_replay(video, data.drift, data.events, out_path, robot=robot, field=field,
                         camera=camera, sources=data.sources, registration=registration,
-                        units=units, progress=progress)
+                        units=units, progress=progress, scale=scale)
