@@ -185,8 +185,8 @@ def _one_line(exc) -> str:
 
 # ------------------------------------------------------------------ many runs
 def grade_folders(run_dirs, root, out_root, options: dict, *, jobs: int = 1,
-                  grade_fn=grade_one, on_done=None) -> list[dict]:
-    """Grade many run folders in worker processes.
+                  grade_fn=grade_one, on_done=None, scheduler=None) -> list[dict]:
+    """Grade many run folders in worker processes, or on a Dask cluster.
 
     Parameters
     ----------
@@ -204,6 +204,9 @@ def grade_folders(run_dirs, root, out_root, options: dict, *, jobs: int = 1,
         importable by name (it runs in a freshly started process).
     on_done : callable, optional
         ``on_done(record)`` after each run (for progress and printing).
+    scheduler : str or distributed.Client, optional
+        A Dask scheduler's address: the runs are tasks on its workers
+        (:mod:`vidodo.batch_dask`) instead of local processes; ``jobs`` is then unused.
 
     Returns
     -------
@@ -250,6 +253,12 @@ def grade_folders(run_dirs, root, out_root, options: dict, *, jobs: int = 1,
                 raise
         return lost
 
+    if scheduler is not None:
+        from .batch_dask import grade_folders_dask
+
+        grade_folders_dask(run_dirs, names, out_root, options, scheduler,
+                           grade_fn=grade_fn, finish=finish)
+        return [records[i] for i in range(len(run_dirs))]
     lost = attempt(pending, max(1, min(jobs, len(pending)))) if pending else []
     # a worker died (a crash in native code): retry the runs it took down one by one,
     # so only the run that crashes is reported as failed

@@ -39,6 +39,9 @@ def add_arguments(parser):
     add_out(parser, "output folder", required=True)
     parser.add_argument("--jobs", type=int, default=None,
                         help="worker processes (default: number of CPUs)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help="grade on a Dask cluster instead (e.g. tcp://host:8786; needs "
+                        "pip install 'vidodo[dask]' and the same paths on every worker)")
     add_units(parser, "printed lines and plots")
     add_switch(parser, "replay", False, "write each run's annotated replay")
     add_replay_scale(parser)
@@ -102,7 +105,8 @@ def run(args) -> int:
                     command="vidodo batch") as stage:
         with progress_bar(len(runs), "batch", unit="run", quiet=args.quiet) as bar:
             records = grade_folders(runs, args.dir, stage, options, jobs=jobs,
-                                    on_done=lambda rec: bar.update(1))
+                                    on_done=lambda rec: bar.update(1),
+                                    scheduler=args.scheduler)
         for rec in records:  # where the run's folder will be once the set is in place
             rec["out"] = str(out_root / rec["run"])
         write_batch_outputs(records, stage, unit=args.units)
