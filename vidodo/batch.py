@@ -81,19 +81,25 @@ def grade_run_folder(run_dir, out_dir, *, tolerances=None, report=True, replay=T
     if missing:
         raise InputError(f"{run_dir}: missing {', '.join(missing)}; a run folder needs "
                          f"{', '.join(RUN_FILES)}")
+    from .profiles import load_camera, load_field
+    from .registration.registrar import FloorRegistrar
+
     cam = run_dir / "camera.toml"
+    field = load_field(run_dir / "field.toml")
+    camera = load_camera(cam) if cam.is_file() else None
+    registrar = FloorRegistrar(field, camera)  # handed on to the replay
     # one staged set: grade files, tune folder and pictures appear together or not at all
     with staged_dir(out_dir, inputs=(run_dir,), command="vidodo grade") as stage:
         result = grade_run(run_dir / "video.mp4", run_dir / "log.csv",
-                           run_dir / "robot.toml", run_dir / "field.toml",
-                           cam if cam.is_file() else None,
+                           run_dir / "robot.toml", field, camera,
                            settings=GradeSettings(tolerances=tolerances or Tolerances()),
-                           progress=progress)
+                           progress=progress, registrar=registrar)
         write_outputs(result, stage)
         if tune:
             tune_from_grade(result, run_dir, stage / "tune")
         if report or replay:
-            write_report(stage, stage, replay=replay, units=units, progress=progress)
+            write_report(stage, stage, replay=replay, units=units, progress=progress,
+                         registrar=registrar)
     return result
 
 

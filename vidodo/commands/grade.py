@@ -138,7 +138,7 @@ def run(args) -> int:
         else:
             write_outputs(result, stage)
             if args.report:
-                _pictures(args, stage)
+                _pictures(args, stage, registrar)
     if refused is not None:
         raise refused
     for w in result.warnings:
@@ -150,7 +150,7 @@ def run(args) -> int:
     return EXIT_TOLERANCE if result.verdict == "fail" else EXIT_OK
 
 
-def _pictures(args, stage) -> None:
+def _pictures(args, stage, registrar=None) -> None:
     """Plots, report and replay into the staging folder (they appear with the rest)."""
     from ..progress import progress_bar
     from ..report.build import write_report
@@ -162,4 +162,4 @@ def _pictures(args, stage) -> None:
               "(graded from --track)", file=sys.stderr)
     with progress_bar(desc="report", quiet=args.quiet) as bar:
         write_report(stage, stage, replay=replay, units=args.units, progress=bar,
-                     replay_scale=args.replay_scale)
+                     replay_scale=args.replay_scale, registrar=registrar)

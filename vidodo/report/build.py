@@ -180,7 +180,8 @@ def robot_picture(summary: dict, folder: Path | None, out_dir: Path) -> dict[str
 
 
 def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: str = "mm",
-                 progress=None, replay_scale: float | None = None) -> list[Path]:
+                 progress=None, replay_scale: float | None = None,
+                 registrar=None) -> list[Path]:
     """Write the plots, the HTML report and (optionally) the annotated replay.
 
     Parameters
@@ -201,6 +202,9 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
     replay_scale : float, optional
         Size of the replay relative to the footage (default
         :data:`vidodo.report.replay.DEFAULT_SCALE`; 1 for full resolution).
+    registrar : FloorRegistrar, optional
+        The registrar the tracker used on this footage: the replay follows the floor
+        from where tracking left it instead of registering from scratch.
 
     Returns
     -------
@@ -239,7 +243,8 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
         try:
             with times.stage("replay"):
                 path = replay_from_grade(data, out_dir / "replay.mp4", units=units,
-                                         progress=progress, scale=replay_scale)
+                                         progress=progress, scale=replay_scale,
+                                         registration=registrar)
         except VidodoError as exc:  # the report is still written, then the error raised
             failure = exc
             extra.append(f"replay.mp4 not written: {exc}")

@@ -404,14 +404,17 @@ def _increasing(times: list) -> np.ndarray:
 def _register_fn(registration, field, camera):
     """``register(frame, t_s, mask_fn, index)`` -> the registration in effect for a frame
     (see :func:`write_replay`, ``registration``)."""
-    if registration is None:
-        if field is None:
-            raise InputError("replay: needs the field profile (or a registration) to map "
-                             "floor positions into the frames")
-        from ..registration.registrar import FloorRegistrar
+    if registration is None or hasattr(registration, "register"):
         from ..track import RegistrationPolicy
 
-        policy = RegistrationPolicy(FloorRegistrar(field, camera), field)
+        if registration is None:
+            if field is None:
+                raise InputError("replay: needs the field profile (or a registration) to "
+                                 "map floor positions into the frames")
+            from ..registration.registrar import FloorRegistrar
+
+            registration = FloorRegistrar(field, camera)
+        policy = RegistrationPolicy(registration, field or registration.field)
 
         def register(frame, t_s, mask_fn, index):
             return policy.update(frame, index, t_s, mask_fn)[0]
@@ -449,11 +452,13 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
         Lens profile for the floor registration.
     sources : dict, optional
         Source display name -> drift column prefix.
-    registration : FrameRegistration or callable, optional
-        One registration for every frame (fixed camera), or ``f(frame_bgr, t_s, mask)
-        -> FrameRegistration`` called on every frame; default: a
-        :class:`vidodo.registration.registrar.FloorRegistrar` for ``field`` and ``camera``
-        run when :class:`vidodo.track.RegistrationPolicy` says so (as while tracking).
+    registration : FrameRegistration, FloorRegistrar or callable, optional
+        One registration for every frame (fixed camera); a registrar (e.g. the one the
+        tracker used, which saves registering the first frame from scratch again) run
+        when :class:`vidodo.track.RegistrationPolicy` says so (as while tracking); or
+        ``f(frame_bgr, t_s, mask) -> FrameRegistration`` called on every frame. Default:
+        a new :class:`vidodo.registration.registrar.FloorRegistrar` for ``field`` and
+        ``camera``, run as a registrar.
     marker : Marker, optional
         The marker whose position is drawn (default: the robot's first marker; without
         either, the robot's reference point on the floor).
