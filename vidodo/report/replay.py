@@ -505,6 +505,8 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
                     if progress is not None:
                         progress(index + 1, total)
             except VideoTruncatedError:
+                if not times:
+                    raise  # nothing could be decoded: the message names the footage
                 return  # every good frame was annotated
 
     def annotated(index, t_s, frame):
