@@ -168,7 +168,8 @@ def test_written_replay_keeps_times_and_lands_on_marker(tmp_path, scale):
 def test_replay_on_rendered_run(request, tmp_path):
     """Acceptance (issue 8): on a rendered run, the drawn truth ring is within 3 px of the
     marker's true position projected with the run's camera (truth/meta.json) in sampled
-    frames. The replay itself registers each frame with FloorRegistrar (no truth read).
+    frames. The replay itself registers the floor with FloorRegistrar on the tracker's
+    schedule (no truth read); full size, so the 3 px are footage pixels.
     """
     try:
         rendered_run = request.getfixturevalue("rendered_run")
@@ -189,7 +190,7 @@ def test_replay_on_rendered_run(request, tmp_path):
     # replay's drawing and the registration's inverse mapping
     drift = _tracks(truth[["x_m", "y_m", "heading_rad"]].to_numpy(), truth["t_s"].to_numpy())
     out = write_replay(run / "video.mp4", drift, None, tmp_path / "replay.mp4",
-                       robot=robot, field=field, camera=camera)
+                       robot=robot, field=field, camera=camera, scale=1.0)
     cam_pose = _meta_camera_pose(meta)
     marker = robot.markers[0]
     cap_in = cv2.VideoCapture(str(run / "video.mp4"))
