@@ -28,7 +28,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from vidodo.encode import write_video  # noqa: E402
 from vidodo.profiles import CameraProfile, FieldProfile, Marker, RobotProfile  # noqa: E402
 from vidodo.synth.motion import look_at_pose  # noqa: E402
-from vidodo.synth.render import render_frames  # noqa: E402
+from vidodo.synth.render import RenderSettings, render_frames  # noqa: E402
 
 FIELD = FieldProfile(6, 6, 0.6096)
 ROBOT = RobotProfile("bench", 0.45, 0.45, 0.30,
@@ -65,8 +65,9 @@ def run(width, height, camera_pose_at, n_frames):
     cam = camera(width, height)
     times = np.arange(n_frames + 1) / 30.0
     frames = render_frames(FIELD, ROBOT, cam, frame_times_s=times, pose_at=pose_at,
-                           camera_pose_at=camera_pose_at, exposure_s=1 / 120,
-                           noise_sigma=2.0, seed=1, floor_seed=3)
+                           camera_pose_at=camera_pose_at,
+                           settings=RenderSettings(exposure_s=1 / 120, noise_sigma=2.0, seed=1,
+                                                   floor_seed=3))
     c0, w0 = time.process_time(), time.perf_counter()
     next(frames)
     c1, w1 = time.process_time(), time.perf_counter()

@@ -38,13 +38,13 @@ def _track(run, breaks):
     robot = load_robot(run / "robot.toml")
     field = load_field(run / "field.toml")
     camera = load_camera(run / "camera.toml")
-    original = smooth.smooth_ca_signals
+    original = smooth.rts_smooth_signals
 
     def patched(*a, **k):
         k["breaks"] = breaks
         return original(*a, **k)
 
-    with mock.patch("vidodo.track.smooth_ca_signals", patched):
+    with mock.patch("vidodo.track.rts_smooth_signals", patched):
         res = track_video(run / "video.mp4", robot, field, camera,
                           registrar=FloorRegistrar(field, camera))
     return res.track

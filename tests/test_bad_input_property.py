@@ -157,10 +157,13 @@ def test_log_with_random_cells_is_read_clean_or_refused_with_a_line(cells):
 
 @settings(max_examples=100, deadline=None)
 @given(steps=st.lists(st.integers(-3000, 3000), min_size=30, max_size=200),
-       start=st.integers(-(2**31), 2**31 - 1))
+       start=st.one_of(st.integers(-(2**31), -(2**25)), st.integers(2**25, 2**31 - 1)))
 def test_counter_width_slip_only_where_a_narrower_counter_wrapped(steps, start):
-    """Counts logged at their own width are never taken for a narrower counter; the same
-    counts folded into a signed 16-bit counter are, wherever they cross its range."""
+    """Counts logged at their own width, with readings outside every narrower register,
+    are never taken for a narrower counter; the same counts folded into a signed 16-bit
+    counter are, wherever they cross its range. (Readings that would fit a narrower
+    register, such as 29 still samples and one step of 240 from zero, are genuinely
+    ambiguous and are not part of the property.)"""
     from vidodo.logs import counter_width_slip, unwrap_counter
 
     true = start + np.cumsum(np.r_[0, steps]).astype(np.int64)

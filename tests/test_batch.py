@@ -202,7 +202,7 @@ def test_no_runs_is_bad_input(tmp_path, capsys):
 
 @pytest.mark.slow
 def test_batch_rendered_runs_with_one_corrupt_video(rendered_run, tmp_path, capsys):
-    """Acceptance (issue 8), scaled to N_RUNS: all but the corrupt run graded, the corrupt
+    """Scaled to N_RUNS: all but the corrupt run graded, the corrupt
     one reported with its error, exit code 5 (partial failure)."""
     root = tmp_path / "season"
     for i in range(N_RUNS):

@@ -122,7 +122,7 @@ def tripod_view():
 
 
 def test_grid_with_known_lens_meets_2mm(tripod_view):
-    """Floor error at tile corners below 2 mm RMS (issue 3 acceptance, tripod)."""
+    """Floor error at tile corners below 2 mm RMS (our target, tripod)."""
     from vidodo.registration.camera_fit import fit_to_registration
 
     img, rvec, tvec = tripod_view
@@ -222,7 +222,7 @@ def test_distort_matches_opencv_projection():
 
 def test_grid_on_full_hd_frame_meets_2mm():
     """A 1920 x 1080 frame takes the shrunk lattice search, then the full-resolution seam
-    fit: the floor error at tile corners stays below 2 mm RMS (issue 3 acceptance)."""
+    fit: the floor error at tile corners stays below 2 mm RMS (our target)."""
     from vidodo.registration.camera_fit import fit_to_registration
 
     cam = CameraProfile(1920, 1080, 1500.0, 1500.0, 963.0, 536.0, (-0.12, 0.03, 0, 0, 0))

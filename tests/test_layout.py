@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import ast
+import re
 from pathlib import Path
 
 PKG = Path(__file__).resolve().parents[1] / "vidodo"
@@ -130,3 +131,58 @@ def test_cycle_finder_sees_a_cycle_through_a_function_level_import():
     """The cycle finder reports a loop of three and leaves a chain alone (worked by hand)."""
     assert import_cycles({"a": {"b"}, "b": {"c"}, "c": {"a"}, "d": {"a"}}) == [["a", "b", "c"]]
     assert import_cycles({"a": {"b"}, "b": {"c"}, "c": set()}) == []
+
+
+DEVELOPERS = PKG.parent / "DEVELOPERS.md"
+_WRITERS = {"atomic_file", "staged_dir", "savefig", "imwrite", "write_text", "write_bytes",
+            "to_csv", "print_png"}
+
+
+def _layout_rows() -> list[tuple[set[str], str]]:
+    """The layout table of DEVELOPERS.md: (names in the first column, last column)."""
+    text = DEVELOPERS.read_text(encoding="utf-8").split("## Layout", 1)[1].split("\n## ", 1)[0]
+    rows = []
+    for line in text.splitlines():
+        cells = [c.strip() for c in line.strip().strip("|").split("|")]
+        if len(cells) >= 3 and "`" in cells[0]:
+            rows.append((set(re.findall(r"`([^`]+)`", cells[0])), cells[-1]))
+    return rows
+
+
+def _writes_files(path: Path) -> bool:
+    """True when the module calls something that writes a file (atomic files, staged
+    folders, CSV, figures, images, text and bytes)."""
+    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+        if isinstance(node, ast.Call):
+            f = node.func
+            name = f.attr if isinstance(f, ast.Attribute) else getattr(f, "id", None)
+            if name in _WRITERS:
+                return True
+    return False
+
+
+def _row_of(rel: str, rows):
+    folder, _, stem = rel.rpartition("/")
+    for names, files in rows:
+        if rel in names or any(n.endswith("/") and f"{folder}/".startswith(n)
+                               and stem.removesuffix(".py") in names for n in names):
+            return files
+    return None
+
+
+def test_layout_table_is_true():
+    """Every library module has a row in DEVELOPERS.md's layout table, and every one that
+    writes files says so in the last column."""
+    rows = _layout_rows()
+    missing, unmarked = [], []
+    for path in sorted(PKG.rglob("*.py")):
+        rel = path.relative_to(PKG).as_posix()
+        if rel.startswith("commands/") or path.name == "__init__.py" or rel == "cli_main.py":
+            continue
+        files = _row_of(rel, rows)
+        if files is None:
+            missing.append(rel)
+        elif _writes_files(path) and "write" not in files:
+            unmarked.append(rel)
+    assert not missing, f"modules without a row in the layout table: {missing}"
+    assert not unmarked, f"modules that write files, marked otherwise: {unmarked}"

@@ -53,7 +53,7 @@ def test_left_images_match_opencv_stored_calibration(square_pixels):
     """fx, fy, cx, cy within 1 % of OpenCV's left_intrinsics.yml (opencv-doc)."""
     k_ref, d_ref = stored_left_calibration()
     cam, report = lens.calibrate_images(left_images(), (9, 6), 0.025,
-                                        fix_aspect=square_pixels)
+                                        model=lens.LensModel(fix_aspect=square_pixels))
     assert report.n_used == 13
     got = [cam.fx_px, cam.fy_px, cam.cx_px, cam.cy_px]
     ref = [k_ref[0, 0], k_ref[1, 1], k_ref[0, 2], k_ref[1, 2]]
@@ -140,7 +140,8 @@ def test_synthetic_board_views_recover_known_lens():
         tvec = np.array([-0.12, -0.08, 0.6]) + rng.normal(0, 0.05, 3)
         img, _ = cv2.projectPoints(obj, rvec, tvec, k, d)
         views.append((obj, img.reshape(-1, 2) + rng.normal(0, 0.05, (len(obj), 2))))
-    cam, rep = lens.calibrate_views(views, (1280, 720), spec, zero_tangent=True)
+    cam, rep = lens.calibrate_views(views, (1280, 720), spec,
+                                    model=lens.LensModel(zero_tangent=True))
     np.testing.assert_allclose([cam.fx_px, cam.fy_px, cam.cx_px, cam.cy_px],
                                [900, 900, 650, 350], rtol=0.005)
     assert abs(cam.distortion[0] - d[0]) < 0.02
@@ -185,7 +186,8 @@ def test_charuco_views_recover_known_lens(tmp_path):
         paths.append(tmp_path / f"v{i}.png")
         cv2.imwrite(str(paths[-1]), img)
     cam, report = lens.calibrate_images(paths, squares, square_m, dictionary=dic,
-                                        marker_m=marker_m, zero_tangent=True)
+                                        marker_m=marker_m,
+                                        model=lens.LensModel(zero_tangent=True))
     assert report.n_used >= 6
     np.testing.assert_allclose([cam.fx_px, cam.fy_px], [800, 800], rtol=0.02)
     np.testing.assert_allclose([cam.cx_px, cam.cy_px], [479.5, 359.5], atol=12)

@@ -26,7 +26,7 @@ from vidodo.metrics import (  # noqa: E402
 )
 from vidodo.se2 import wrap_angle  # noqa: E402
 
-REL = 1e-9  # agreement asked of every figure, relative (issue 15)
+REL = 1e-9  # agreement asked of every figure, relative
 
 
 def _se3(poses):
@@ -91,9 +91,10 @@ def test_umeyama_collinear_and_two_point_cases_agree_with_evo(n):
 
 
 def test_straight_anchored_runs_never_reflect():
-    """The case of issue 15: straight odometry anchored at the truth start against a
-    straight truth track with 1 mm noise; evo's rotation is the reference, and the
-    best-fit angle stays near zero (the odometry is exact)."""
+    """Nearly collinear points, where a sign rule can reflect: straight odometry
+    anchored at the truth start against a straight truth track with 1 mm noise; evo's
+    rotation is the reference, and the best-fit angle stays near zero (the odometry is
+    exact)."""
     rng = np.random.default_rng(15)
     for _ in range(1000):
         n = int(rng.integers(20, 200))

@@ -89,7 +89,7 @@ def graded(rendered_run):
 
 @pytest.mark.parametrize("name", ["default", "tank-tripod", "mecanum-handheld"])
 def test_clock_offset_recovered(graded, name):
-    """Offset error below 5 ms (issue 6 acceptance: median <= 5 ms, max <= 1 frame)."""
+    """Offset error below 5 ms (our target: median <= 5 ms, max <= 1 frame)."""
     run, res = graded[name]
     robot = load_robot(run / "robot.toml")
     t_mid_s = float(np.median(read_log(run / "log.csv", robot).frame["t_s"]))
@@ -100,7 +100,7 @@ def test_clock_offset_recovered(graded, name):
 
 @pytest.mark.parametrize("name", ["default", "tank-tripod", "mecanum-handheld"])
 def test_anchored_drift_matches_renderer(graded, name):
-    """Final anchored error within 5 mm of the renderer's own (issue 6 acceptance)."""
+    """Final anchored error within 5 mm of the renderer's own."""
     run, res = graded[name]
     ideal = pd.read_csv(run / "truth" / "odometry_ideal.csv", nrows=1)
     checked = 0
@@ -252,7 +252,7 @@ def test_tolerances():
 
 @pytest.mark.slow
 def test_grade_rendered_video_end_to_end(rendered_run, tmp_path):
-    """Full path on footage: tracker, sync, drift. Clock within one frame (issue 6)."""
+    """Full path on footage: tracker, sync, drift. Clock within one frame."""
     run = rendered_run("tank-tripod", 0, video__width_px=1280, video__height_px=720)
     res = grade_run(run / "video.mp4", run / "log.csv", run / "robot.toml",
                     run / "field.toml", run / "camera.toml")

@@ -16,7 +16,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from vidodo.profile_fit import FitRun, fit_profile, truth_increments, write_profile
+from vidodo.profile_fit import (
+    FitRun,
+    FitSettings,
+    fit_profile,
+    truth_increments,
+    write_profile,
+)
 from vidodo.profiles import Imu, RobotProfile, Source, Wheel, load_robot
 from vidodo.se2 import exp_increment, integrate_twist, log_increment
 from vidodo.wheels import wheel_rows
@@ -173,7 +179,7 @@ def test_noise_free_fit_matches_independent_lstsq():
     wrong = _wrong_pods(true)
     offset = 3.2
     run = constructed_run(true, profile=wrong, offset_s=offset, imu_bias_radps=0.003)
-    fit = fit_profile([run], wrong, fit_clock=False)
+    fit = fit_profile([run], wrong, FitSettings(fit_clock=False))
 
     # ---- independent linear solve
     t, tw, _pose, _rim = simulate(true, MIXED)
@@ -226,7 +232,7 @@ def test_noise_free_fit_matches_independent_lstsq():
 
 def test_noisy_recovery_within_tolerances(tmp_path):
     """Truth noise, tick quantisation, a 100 ppm clock rate and gyro bias: every value
-    comes back within 0.2 % / 1 mm / 0.1 % (issue 7 acceptance), the inverted encoder
+    comes back within 0.2 % / 1 mm / 0.1 % (our target), the inverted encoder
     is flagged, and the written profile reads back with the corrected numbers."""
     true = pod_robot()
     wrong = _wrong_pods(true)
@@ -348,7 +354,7 @@ def test_too_little_data_is_a_measurement_error():
 def test_corrected_profile_cuts_anchored_drift():
     """End to end on a constructed run: raw log -> log reader with the wrong profile ->
     fit -> odometry with the corrected profile; anchored drift of every source falls
-    at least 5x (issue 7 acceptance)."""
+    at least 5x."""
     from vidodo.logs import log_from_frame
     from vidodo.tuning import anchored_drift, drift_comparison
 

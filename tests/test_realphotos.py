@@ -83,7 +83,7 @@ def test_default_refinement_matches_the_reference_on_real_photos():
 
 def test_hybrid_refinement_is_further_from_the_reference():
     """The former default: the SUBPIX centre sits 0.3-0.4 px from the reference on these
-    photos (issue 15: 0.36 px), several times the default's error."""
+    photos (0.36 px measured), several times the default's error."""
     hyb = [e for e in _run("opencv", "hybrid")[0] if e is not None]
     dflt = [e for e in _run("opencv")[0] if e is not None]
     assert np.mean(hyb) > 3 * np.mean(dflt)

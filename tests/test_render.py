@@ -28,7 +28,7 @@ from vidodo.profiles import (
     marker_corners_local,
 )
 from vidodo.synth.motion import look_at_pose
-from vidodo.synth.render import camera_rays, floor_points, render_frames
+from vidodo.synth.render import RenderSettings, camera_rays, floor_points, render_frames
 
 DIST = (-0.12, 0.05, 0.0008, -0.0006, -0.01)
 
@@ -94,10 +94,9 @@ def test_floor_points_project_back_to_their_pixels():
 
 
 def _static_frame(cam, field, robot, pose, rvec, tvec, **kw):
-    kw = {"exposure_s": 0.0, "noise_sigma": 0.0, "seed": 0, **kw}
     gen = render_frames(field, robot, cam, frame_times_s=[0.0],
                         pose_at=lambda t: np.tile(pose, (np.size(t), 1)),
-                        camera_pose_at=lambda t: (rvec, tvec), **kw)
+                        camera_pose_at=lambda t: (rvec, tvec), settings=RenderSettings(**kw))
     return next(iter(gen))
 
 
@@ -156,8 +155,7 @@ def test_rolling_shutter_shears_a_sideways_moving_marker():
                                 np.zeros(t.size)])
 
     gen = render_frames(field, robot, cam, frame_times_s=[0.0], pose_at=pose_at,
-                        camera_pose_at=lambda t: (rvec, tvec), exposure_s=0.0,
-                        noise_sigma=0.0, seed=0)
+                        camera_pose_at=lambda t: (rvec, tvec))
     img = next(iter(gen))
     found = _detect(img)[7]
     static = cv2.projectPoints(_marker_corners_floor(robot.markers[0], start), rvec, tvec,
@@ -187,8 +185,9 @@ def test_motion_blur_ramp_matches_travel_during_exposure():
 
     def profile(exp):
         img = next(iter(render_frames(field, robot, cam, frame_times_s=[0.0], pose_at=pose_at,
-                                      camera_pose_at=lambda t: (rvec, tvec), exposure_s=exp,
-                                      noise_sigma=0.0, seed=0, contact_shadow=0.0)))
+                                      camera_pose_at=lambda t: (rvec, tvec),
+                                      settings=RenderSettings(exposure_s=exp,
+                                                              contact_shadow=0.0))))
         return img[225:256, :, 0].astype(float).mean(axis=0)  # blue: chassis vs grey floor
 
     sharp, blurred = profile(0.0), profile(exposure)
@@ -243,8 +242,7 @@ def test_panning_camera_rolling_shutter_on_floor_marker(n_frames):
 
     gen = render_frames(field, _robot(), cam, frame_times_s=np.arange(n_frames) * 0.1,
                         pose_at=lambda t: np.tile([3.0, 3.0, 0.0], (np.size(t), 1)),
-                        camera_pose_at=camera_pose_at, exposure_s=0.0, noise_sigma=0.0,
-                        seed=0)
+                        camera_pose_at=camera_pose_at)
     found = _detect(next(iter(gen)))[4]
     corners = np.column_stack([fm.corners_floor_m(), np.zeros(4)])
     still = cv2.projectPoints(corners, *camera_pose_at(0.0), cam.matrix,
@@ -329,8 +327,8 @@ def test_moving_camera_blurs_the_floor_by_its_travel():
 
     gen = render_frames(field, _robot(), cam, frame_times_s=[0.0, 0.1],
                         pose_at=lambda t: np.tile([9.0, 9.0, 0.0], (np.size(t), 1)),
-                        camera_pose_at=camera_pose_at, exposure_s=exposure, noise_sigma=0.0,
-                        seed=0)
+                        camera_pose_at=camera_pose_at,
+                        settings=RenderSettings(exposure_s=exposure))
     profile = next(iter(gen))[230:251, :, 1].astype(float).mean(axis=0)
     # the camera moves +x, so the floor moves -u; the marker's black border meets its
     # white quiet zone at floor x = 1.2 + 0.15, i.e. u = cx + f 0.15 / Z at mid-exposure

@@ -20,6 +20,8 @@ from vidodo.profiles import Marker
 from vidodo.registration.frame import FrameRegistration
 from vidodo.report.replay import (
     TRUTH_BGR,
+    ReplaySetup,
+    ReplayStyle,
     ReplayTracks,
     annotate_frame,
     frame_overlay,
@@ -138,7 +140,8 @@ def test_written_replay_keeps_times_and_lands_on_marker(tmp_path, scale):
     events = pd.DataFrame([{"kind": "impact", "t_start_s": t[10], "t_end_s": t[12],
                             "x_m": 1.5, "y_m": 2.0}])
     out = write_replay(tmp_path / "in.mp4", drift, events, tmp_path / "replay.mp4",
-                       registration=_registration(), marker=MARKER, scale=scale)
+                       ReplaySetup(registration=_registration(), marker=MARKER),
+                       ReplayStyle(scale=scale))
     cap = cv2.VideoCapture(str(out))
     got_t, errs = [], []
     i = 0
@@ -166,7 +169,7 @@ def test_written_replay_keeps_times_and_lands_on_marker(tmp_path, scale):
 
 @pytest.mark.slow
 def test_replay_on_rendered_run(request, tmp_path):
-    """Acceptance (issue 8): on a rendered run, the drawn truth ring is within 3 px of the
+    """On a rendered run, the drawn truth ring is within 3 px of the
     marker's true position projected with the run's camera (truth/meta.json) in sampled
     frames. The replay itself registers the floor with FloorRegistrar on the tracker's
     schedule (no truth read); full size, so the 3 px are footage pixels.
@@ -190,7 +193,8 @@ def test_replay_on_rendered_run(request, tmp_path):
     # replay's drawing and the registration's inverse mapping
     drift = _tracks(truth[["x_m", "y_m", "heading_rad"]].to_numpy(), truth["t_s"].to_numpy())
     out = write_replay(run / "video.mp4", drift, None, tmp_path / "replay.mp4",
-                       robot=robot, field=field, camera=camera, scale=1.0)
+                       ReplaySetup(robot=robot, field=field, camera=camera),
+                       ReplayStyle(scale=1.0))
     cam_pose = _meta_camera_pose(meta)
     marker = robot.markers[0]
     cap_in = cv2.VideoCapture(str(run / "video.mp4"))

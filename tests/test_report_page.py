@@ -1,6 +1,6 @@
 """The HTML report, opened in a real headless browser (Debian's chromium + chromedriver).
 
-Checks (issue 8): the page loads with no console errors and no network requests other
+Checks: the page loads with no console errors and no network requests other
 than the file itself, every image has decoded (naturalWidth > 0), the figures in the
 page equal those in summary.json, and strings from the inputs are escaped.
 """

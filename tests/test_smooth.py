@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from vidodo.smooth import smooth_ca
+from vidodo.smooth import rts_smooth
 
 
 def test_no_process_noise_equals_quadratic_least_squares():
@@ -20,7 +20,7 @@ def test_no_process_noise_equals_quadratic_least_squares():
     t = np.sort(rng.uniform(0.0, 4.0, 120))
     z = 0.4 * t**2 - 1.1 * t + 0.3 + rng.normal(0.0, 0.01, t.size)
     t_out = np.linspace(0.2, 3.8, 25)
-    s = smooth_ca(t, z, np.full(t.size, 0.01), t_out, q=1e-14, r_scale=1.0,
+    s = rts_smooth(t, z, np.full(t.size, 0.01), t_out, q=1e-14, r_scale=1.0,
                   prior_rate=1e4, prior_accel=1e4)
     c = np.polyfit(t, z, 2)
     np.testing.assert_allclose(s.value, np.polyval(c, t_out), atol=1e-6)
@@ -35,7 +35,7 @@ def test_sigma_covers_errors_on_a_smooth_signal():
     t_meas = t_out + rng.uniform(0.0, 0.02, t_out.size)  # rolling-shutter-like offsets
     truth = np.sin(1.3 * t_meas) + 0.2 * np.sin(4.0 * t_meas)
     sigma = 0.002
-    s = smooth_ca(t_meas, truth + rng.normal(0, sigma, t_meas.size), np.full(t_meas.size, sigma),
+    s = rts_smooth(t_meas, truth + rng.normal(0, sigma, t_meas.size), np.full(t_meas.size, sigma),
                   t_out)
     ref = np.sin(1.3 * t_out) + 0.2 * np.sin(4.0 * t_out)
     err = s.value - ref
@@ -50,10 +50,10 @@ def test_output_order_and_ties():
     """Outputs come back in the order asked, also when they coincide with measurements."""
     t = np.array([0.0, 0.1, 0.2, 0.3])
     z = np.array([1.0, 1.1, 1.2, 1.3])
-    s = smooth_ca(t, z, np.full(4, 1e-4), np.array([0.3, 0.0, 0.15]), q=1.0, r_scale=1.0)
+    s = rts_smooth(t, z, np.full(4, 1e-4), np.array([0.3, 0.0, 0.15]), q=1.0, r_scale=1.0)
     np.testing.assert_allclose(s.value, [1.3, 1.0, 1.15], atol=1e-3)
     with pytest.raises(ValueError, match="no measurements"):
-        smooth_ca([], [], [], [0.0])
+        rts_smooth([], [], [], [0.0])
 
 
 def test_measurement_variance_scaled_by_innovation_consistency():
@@ -70,7 +70,7 @@ def test_measurement_variance_scaled_by_innovation_consistency():
     t = np.arange(2400) / 30.0
     truth = np.sin(0.9 * t) + 0.3 * np.sin(2.1 * t)
     sigma_true = 0.004
-    s = smooth_ca(t, truth + rng.normal(0, sigma_true, t.size),
+    s = rts_smooth(t, truth + rng.normal(0, sigma_true, t.size),
                   np.full(t.size, sigma_true / 2), t)
     assert 2.8 <= s.r_scale <= 5.7
     assert s.nis_mean == pytest.approx(1.0, abs=0.15)
@@ -80,9 +80,9 @@ def test_measurement_variance_scaled_by_innovation_consistency():
 
 
 def test_batched_signals_equal_one_at_a_time():
-    """Several signals smoothed in one batch: each equals its own smooth_ca (whose
+    """Several signals smoothed in one batch: each equals its own rts_smooth (whose
     accuracy the polyfit and coverage checks above tie to references)."""
-    from vidodo.smooth import smooth_ca_signals
+    from vidodo.smooth import rts_smooth_signals
 
     rng = np.random.default_rng(21)  # seed fixed for reproducibility
     t = np.sort(rng.uniform(0.0, 3.0, 90))
@@ -90,9 +90,9 @@ def test_batched_signals_equal_one_at_a_time():
     z = np.column_stack([np.sin(t), 0.01 * t**2, np.cos(3 * t)])
     sig = np.column_stack([np.full(t.size, s) for s in (0.002, 0.0005, 0.01)])
     z = z + rng.normal(0.0, 1.0, z.shape) * sig * 1.7
-    batch = smooth_ca_signals(t, z, sig, t_out)
+    batch = rts_smooth_signals(t, z, sig, t_out)
     for k in range(3):
-        one = smooth_ca(t, z[:, k], sig[:, k], t_out)
+        one = rts_smooth(t, z[:, k], sig[:, k], t_out)
         assert (batch[k].q, batch[k].r_scale) == (one.q, one.r_scale)
         np.testing.assert_allclose(batch[k].value, one.value, rtol=0, atol=1e-12)
         np.testing.assert_allclose(batch[k].sigma_value, one.sigma_value, rtol=1e-9)
@@ -127,11 +127,11 @@ def test_sudden_stop_followed_within_two_sigma(v_mps):
     for _ in range(10):
         t, x, z = _stop_track(v_mps, 200.0, rng)
         near = np.abs(t - 2.0) <= 0.05  # the samples around the stop
-        s = smooth_ca(t, z, np.full(t.size, 1e-3), t)
+        s = rts_smooth(t, z, np.full(t.size, 1e-3), t)
         assert any(abs(b - 2.0) <= 0.07 for b in s.breaks_s)
         ratios += list(np.abs(s.value - x)[near] / s.sigma_value[near])
         assert abs(s.rate[np.searchsorted(t, 2.1 + v_mps / 200.0)]) < 0.02
-        held = smooth_ca(t, z, np.full(t.size, 1e-3), t, breaks=False)
+        held = rts_smooth(t, z, np.full(t.size, 1e-3), t, breaks=False)
         held_ratios.append(np.max(np.abs(held.value - x)[near] / held.sigma_value[near]))
     assert np.mean(np.array(ratios) <= 2.0) >= 0.9
     assert np.median(held_ratios) > 4.0
@@ -143,7 +143,7 @@ def test_smooth_motion_gets_no_break():
     rng = np.random.default_rng(11)
     t = np.arange(0.0, 6.0, 1 / 30)
     z = 0.5 * np.sin(1.3 * t) + rng.normal(0.0, 1e-3, t.size)
-    s = smooth_ca(t, z, np.full(t.size, 1e-3), t)
-    held = smooth_ca(t, z, np.full(t.size, 1e-3), t, breaks=False)
+    s = rts_smooth(t, z, np.full(t.size, 1e-3), t)
+    held = rts_smooth(t, z, np.full(t.size, 1e-3), t, breaks=False)
     assert s.breaks_s == ()
     np.testing.assert_allclose(s.value, held.value, atol=1e-12)

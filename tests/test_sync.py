@@ -68,7 +68,7 @@ def test_correlation_lag_convention():
 def test_recovers_known_offset_sub_frame(seed):
     """A synthetic offset of -4.8766 s is recovered to well under a frame (33 ms).
 
-    The bound of 3 ms is our own target (issue 6: median <= 5 ms); the truth noise is
+    The bound of 3 ms is our own target (median <= 5 ms); the truth noise is
     1.5 mm and 0.3 deg per frame, typical of a marker track (domain notes, section 1).
     """
     true_offset = -5.0 + 0.1234

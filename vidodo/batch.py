@@ -92,8 +92,9 @@ def grade_run_folder(run_dir, out_dir, *, tolerances=None, report=True, replay=T
     with staged_dir(out_dir, inputs=(run_dir,), command="vidodo grade") as stage:
         result = grade_run(run_dir / "video.mp4", run_dir / "log.csv",
                            run_dir / "robot.toml", field, camera,
-                           settings=GradeSettings(tolerances=tolerances or Tolerances()),
-                           progress=progress, registrar=registrar)
+                           settings=GradeSettings(tolerances=tolerances or Tolerances(),
+                                                  registrar=registrar),
+                           progress=progress)
         write_outputs(result, stage)
         if tune:
             tune_from_grade(result, run_dir, stage / "tune")

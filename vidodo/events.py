@@ -272,9 +272,9 @@ def _robust_scale(z):
     return max(1.0, float(median_abs_deviation(z, scale="normal")))
 
 
-def _zero(x, axis=None):
-    """Centre for :func:`scipy.stats.median_abs_deviation`: zero."""
-    return 0.0
+_MAD_PER_SIGMA = float(ndtri(0.75))
+"""Median absolute deviation of a unit normal (0.6745), as scipy's
+``median_abs_deviation(scale="normal")`` divides by it."""
 
 
 def _noise_scale(t, z, half_s=LOCAL_NOISE_HALF_S, floor=1.0):
@@ -298,12 +298,11 @@ def _noise_scale(t, z, half_s=LOCAL_NOISE_HALF_S, floor=1.0):
     # median(|win - 0|) / ndtri(0.75) (its "normal" scale); its argument checks cost more
     # than the median over a few hundred samples, so the same arithmetic (bit for bit) is
     # done here directly
-    q3 = float(ndtri(0.75))
     for i in range(len(t)):
         win = az[lo[i]:hi[i]].ravel()
         win = win[np.isfinite(win)]
         if win.size >= 20:
-            out[i] = max(out[i], float(np.median(win)) / q3)
+            out[i] = max(out[i], float(np.median(win)) / _MAD_PER_SIGMA)
     return out
 
 
@@ -466,151 +465,166 @@ def detect_events(truth, wheel_travel, robot, *, imu_heading=None, source_poses=
     st = settings or EventSettings()
     tr = _Truth(truth)
     warn = []
-    events: list[Event] = []
-    noise = {}
     if tr.tt.size < 10:
         return EventResult((), {}, ("events not detected: fewer than 10 truth samples",))
     t = tr.tt
-    pose_t = tr.pose(t)
-    drive = [w for w in robot.wheels if w.powered]
-    pods = [w for w in robot.wheels if not w.powered]
     have = set(wheel_travel.columns) if wheel_travel is not None else set()
-    drive = [w for w in drive if w.name in have]
-    pods = [w for w in pods if w.name in have]
+    drive = [w for w in robot.wheels if w.powered and w.name in have]
+    pods = [w for w in robot.wheels if not w.powered and w.name in have]
     src = source_poses or {}
-    glitch = np.zeros(len(t), dtype=bool)
     pair = _independent_pair(robot, list(src))
-    if pair is not None:
-        glitch = _truth_glitches(tr, t, src, pair, st)
-    suppressed = []
-
-    def add(kind, t0, t1, mag, unit, detail):
-        p = tr.pose(np.array([t0]))[0]
-        if not np.isfinite(p).all():
-            p = tr.pose(np.array([t[np.argmin(np.abs(t - t0))]]))[0]
-        events.append(Event(kind, float(t0), float(t1), float(p[0]), float(p[1]),
-                            float(mag), unit, _affected(src, tr, t0, t1), detail))
-
+    glitch = (_truth_glitches(tr, t, src, pair, st) if pair is not None
+              else np.zeros(len(t), dtype=bool))
+    scan = _Scan(tr, t, tr.pose(t), st, src, glitch)
     drive_bad = np.zeros(len(t))
     if drive:
-        meas, pred, sig, u, sd = _wheel_residuals(tr, t, wheel_travel, drive, st)
-        # the wheel turned more than the body moved (slip) or less (shove)
-        more = np.abs(meas) >= np.abs(pred)
-        excess = np.where(more, np.abs(meas - pred), 0.0)
-        deficit = np.where(~more, np.abs(meas - pred), 0.0)
-        r = (meas - pred) / sig
-        ks = _noise_scale(t, r)
-        noise["drive_wheels"] = float(np.median(ks))
-        slip_score, slip_ratio = _ratio_score(excess, meas, pred, sig, st, ks[:, None])
-        shove_score, _ = _ratio_score(deficit, meas, pred, sig, st, ks[:, None])
-        s_slip = np.nanmax(np.where(np.isfinite(slip_score), slip_score, -np.inf), axis=1)
-        s_shove = np.nanmax(np.where(np.isfinite(shove_score), shove_score, -np.inf), axis=1)
-        no_side = any(s.no_sideways for s in robot.resolved_sources()
-                      if set(s.wheels) & {w.name for w in drive}) or _parallel_plain(drive)
-        if no_side:
-            lat = np.abs(u[:, 1])
-            zl = lat / (st.k_on * sd * ks)
-            rl = lat / (st.lateral_speed_on_mps * st.window_s)
-            s_shove = np.fmax(s_shove, np.minimum(zl, rl))
-        drive_bad = np.fmax(np.nan_to_num(s_slip, nan=0, neginf=0),
-                            np.nan_to_num(s_shove, nan=0, neginf=0))
-        cum = _cumulative(t, wheel_travel, drive, tr)
-        lat_cum = np.zeros(len(t))
-        if no_side:
-            step = log_increment(*relative_pose(pose_t[:-1], pose_t[1:]).T)[:, 1]
-            lat_cum[1:] = np.nancumsum(step)
-        off = st.k_off / st.k_on
-        for a, b in hysteresis(t, s_slip, on=1.0, off=off, min_duration_s=st.min_duration_s,
-                               merge_gap_s=st.merge_gap_s):
-            if _mostly(glitch, a, b):
-                suppressed.append(float(t[a]))
-                continue
-            lost = cum[b] - cum[a]
-            k = int(np.nanargmax(np.abs(lost)))
-            t0, t1 = _refine(t, cum[:, k], a, b, st.window_s)
-            i0, i1 = np.searchsorted(t, [t0 - st.window_s / 2, t1 + st.window_s / 2])
-            i1 = min(max(i1, i0 + 1), len(t))
-            dl = _span(t, cum, t0, t1)
-            lost_m = float(np.nanmean(np.abs(dl)))
-            if lost_m < st.min_lost_m:
-                continue
-            seg = slip_ratio[i0:i1]
-            peak = float(np.nanmax(seg)) if np.isfinite(seg).any() else float("nan")
-            wk = drive[int(np.nanargmax(np.abs(dl)))].name
-            add("wheel_slip", t0, t1, lost_m, "m",
-                f"peak slip ratio {min(peak, 1.0):.2f}; most on wheel {wk}; "
-                + ", ".join(f"{w.name} {v * 1000:+.0f} mm" for w, v in zip(drive, dl,
-                                                                          strict=True)))
-        for a, b in hysteresis(t, s_shove, on=1.0, off=off, min_duration_s=st.min_duration_s,
-                               merge_gap_s=st.merge_gap_s):
-            if _mostly(glitch, a, b):
-                suppressed.append(float(t[a]))
-                continue
-            # cumulative body displacement as the change-point signal
-            # change-point signal: how far the body has moved unseen by the drive
-            # wheels (their cumulative discrepancy, and sideways travel if they
-            # cannot slide), from shortly before the event
-            r0 = int(np.searchsorted(t, t[a] - st.window_s - 0.3))
-            unseen = np.sqrt(np.mean((cum - cum[r0]) ** 2, axis=1)
-                             + (lat_cum - lat_cum[r0]) ** 2)
-            t0, t1 = _refine(t, unseen, a, b, st.window_s)
-            pa, pb = tr.pose(np.array([t0, t1]))
-            moved = math.hypot(pb[0] - pa[0], pb[1] - pa[1])
-            if moved < st.min_lost_m and abs(wrap_angle(pb[2] - pa[2])) < math.radians(2):
-                continue
-            dl = _span(t, cum, t0, t1)
-            add("shove", t0, t1, moved, "m",
-                f"body moved {moved * 1000:.0f} mm, turned "
-                f"{math.degrees(wrap_angle(pb[2] - pa[2])):+.1f} deg; drive wheels "
-                + ", ".join(f"{w.name} {v * 1000:+.0f} mm" for w, v in zip(drive, dl,
-                                                                          strict=True)))
+        drive_bad = _drive_wheel_events(scan, wheel_travel, drive, robot)
     else:
         warn.append("wheel slip and shove not checked: no drive-wheel counts in the log")
-
     if pods:
-        meas, pred, sig, _, _ = _wheel_residuals(tr, t, wheel_travel, pods, st)
-        res = meas - pred
-        ks = _noise_scale(t, res / sig)
-        noise["tracking_wheels"] = float(np.median(ks))
-        score, _ = _ratio_score(np.abs(res), meas, pred, sig, st, ks[:, None])
-        cum = _cumulative(t, wheel_travel, pods, tr)
-        off = st.k_off / st.k_on
-        for j, pod in enumerate(pods):
-            sj = np.where(drive_bad < off, score[:, j], np.nan)
-            for a, b in hysteresis(t, sj, on=1.0, off=off, min_duration_s=st.min_duration_s,
-                                   merge_gap_s=st.merge_gap_s):
-                if _mostly(glitch, a, b):
-                    suppressed.append(float(t[a]))
-                    continue
-                t0, t1 = _refine(t, cum[:, j], a, b, st.window_s)
-                missed = float(abs(_span(t, cum[:, j:j + 1], t0, t1)[0]))
-                if missed < st.min_lost_m:
-                    continue
-                add("pod_lift", t0, t1, missed, "m",
-                    f"tracking wheel {pod.name} missed {missed * 1000:.0f} mm")
+        _pod_events(scan, wheel_travel, pods, drive_bad)
     elif any(not w.powered for w in robot.wheels):
         warn.append("pod lift not checked: no tracking-wheel counts in the log")
-
-    slip_onsets = [e.t_start_s for e in events if e.kind == "wheel_slip"]
-    shoves = [(e.t_start_s, e.t_end_s) for e in events if e.kind == "shove"]
-    _impacts(tr, t, pose_t, st, noise, add, slip_onsets, shoves, glitch, suppressed)
-
+    slip_onsets = [e.t_start_s for e in scan.events if e.kind == "wheel_slip"]
+    shoves = [(e.t_start_s, e.t_end_s) for e in scan.events if e.kind == "shove"]
+    _impacts(tr, t, scan.pose_t, st, scan.noise, scan.add, slip_onsets, shoves, glitch,
+             scan.suppressed)
     if imu_heading is not None and len(imu_heading) >= 10:
-        _heading_jumps(tr, t, pose_t, imu_heading, st, noise, add, glitch, suppressed)
+        _heading_jumps(tr, t, scan.pose_t, imu_heading, st, scan.noise, scan.add, glitch,
+                       scan.suppressed)
     elif robot.imu is not None:
         warn.append("heading jumps not checked: no IMU heading in the log")
-
-    if suppressed:
+    if scan.suppressed:
         warn.append(
             f"the truth track disagrees with two independent odometry sources ({pair[0]}, "
-            f"{pair[1]}) at {len(suppressed)} place(s) (first at {min(suppressed):.2f} s): "
-            "no event claimed there; the footage or the tracking may be poor there")
+            f"{pair[1]}) at {len(scan.suppressed)} place(s) (first at "
+            f"{min(scan.suppressed):.2f} s): no event claimed there; the footage or the "
+            "tracking may be poor there")
     gaps = np.diff(t) > 0.25
     if gaps.any():
         warn.append(f"events not checked inside {int(gaps.sum())} gap(s) of the truth track "
                     f"(longest {float(np.diff(t).max()):.2f} s)")
-    events.sort(key=lambda e: (e.t_start_s, e.kind))
-    return EventResult(tuple(events), noise, tuple(warn))
+    events = sorted(scan.events, key=lambda e: (e.t_start_s, e.kind))
+    return EventResult(tuple(events), scan.noise, tuple(warn))
+
+
+class _Scan:
+    """What every detector of :func:`detect_events` shares, and the events found."""
+
+    def __init__(self, tr, t, pose_t, st, src, glitch):
+        self.tr, self.t, self.pose_t, self.st, self.src = tr, t, pose_t, st, src
+        self.glitch = glitch
+        self.events: list[Event] = []
+        self.suppressed: list[float] = []
+        self.noise: dict = {}
+
+    def add(self, kind, t0, t1, mag, unit, detail):
+        """Record an event; its position is the truth pose at onset."""
+        t, tr = self.t, self.tr
+        p = tr.pose(np.array([t0]))[0]
+        if not np.isfinite(p).all():
+            p = tr.pose(np.array([t[np.argmin(np.abs(t - t0))]]))[0]
+        self.events.append(Event(kind, float(t0), float(t1), float(p[0]), float(p[1]),
+                                 float(mag), unit, _affected(self.src, tr, t0, t1), detail))
+
+    def spans(self, score):
+        """Stretches where ``score`` crosses 1 (hysteresis), leaving out truth glitches."""
+        st = self.st
+        for a, b in hysteresis(self.t, score, on=1.0, off=st.k_off / st.k_on,
+                               min_duration_s=st.min_duration_s, merge_gap_s=st.merge_gap_s):
+            if _mostly(self.glitch, a, b):
+                self.suppressed.append(float(self.t[a]))
+                continue
+            yield a, b
+
+
+def _drive_wheel_events(scan: _Scan, wheel_travel, drive, robot) -> np.ndarray:
+    """Wheel slip (a wheel turned more than the body moved) and shove (less); returns
+    the per-sample drive-wheel score (pod lifts are not claimed where it is high)."""
+    t, st, tr = scan.t, scan.st, scan.tr
+    meas, pred, sig, u, sd = _wheel_residuals(tr, t, wheel_travel, drive, st)
+    more = np.abs(meas) >= np.abs(pred)
+    excess = np.where(more, np.abs(meas - pred), 0.0)
+    deficit = np.where(~more, np.abs(meas - pred), 0.0)
+    ks = _noise_scale(t, (meas - pred) / sig)
+    scan.noise["drive_wheels"] = float(np.median(ks))
+    slip_score, slip_ratio = _ratio_score(excess, meas, pred, sig, st, ks[:, None])
+    shove_score, _ = _ratio_score(deficit, meas, pred, sig, st, ks[:, None])
+    s_slip = np.nanmax(np.where(np.isfinite(slip_score), slip_score, -np.inf), axis=1)
+    s_shove = np.nanmax(np.where(np.isfinite(shove_score), shove_score, -np.inf), axis=1)
+    no_side = any(s.no_sideways for s in robot.resolved_sources()
+                  if set(s.wheels) & {w.name for w in drive}) or _parallel_plain(drive)
+    if no_side:
+        lat = np.abs(u[:, 1])
+        zl = lat / (st.k_on * sd * ks)
+        rl = lat / (st.lateral_speed_on_mps * st.window_s)
+        s_shove = np.fmax(s_shove, np.minimum(zl, rl))
+    cum = _cumulative(t, wheel_travel, drive, tr)
+    lat_cum = np.zeros(len(t))
+    if no_side:
+        pose_t = scan.pose_t
+        step = log_increment(*relative_pose(pose_t[:-1], pose_t[1:]).T)[:, 1]
+        lat_cum[1:] = np.nancumsum(step)
+    for a, b in scan.spans(s_slip):
+        lost = cum[b] - cum[a]
+        k = int(np.nanargmax(np.abs(lost)))
+        t0, t1 = _refine(t, cum[:, k], a, b, st.window_s)
+        i0, i1 = np.searchsorted(t, [t0 - st.window_s / 2, t1 + st.window_s / 2])
+        i1 = min(max(i1, i0 + 1), len(t))
+        dl = _span(t, cum, t0, t1)
+        lost_m = float(np.nanmean(np.abs(dl)))
+        if lost_m < st.min_lost_m:
+            continue
+        seg = slip_ratio[i0:i1]
+        peak = float(np.nanmax(seg)) if np.isfinite(seg).any() else float("nan")
+        wk = drive[int(np.nanargmax(np.abs(dl)))].name
+        scan.add("wheel_slip", t0, t1, lost_m, "m",
+                 f"peak slip ratio {min(peak, 1.0):.2f}; most on wheel {wk}; "
+                 + _per_wheel_mm(drive, dl))
+    for a, b in scan.spans(s_shove):
+        # change-point signal: how far the body has moved unseen by the drive wheels
+        # (their cumulative discrepancy, and sideways travel if they cannot slide),
+        # from shortly before the event
+        r0 = int(np.searchsorted(t, t[a] - st.window_s - 0.3))
+        unseen = np.sqrt(np.mean((cum - cum[r0]) ** 2, axis=1)
+                         + (lat_cum - lat_cum[r0]) ** 2)
+        t0, t1 = _refine(t, unseen, a, b, st.window_s)
+        pa, pb = tr.pose(np.array([t0, t1]))
+        moved = math.hypot(pb[0] - pa[0], pb[1] - pa[1])
+        if moved < st.min_lost_m and abs(wrap_angle(pb[2] - pa[2])) < math.radians(2):
+            continue
+        scan.add("shove", t0, t1, moved, "m",
+                 f"body moved {moved * 1000:.0f} mm, turned "
+                 f"{math.degrees(wrap_angle(pb[2] - pa[2])):+.1f} deg; drive wheels "
+                 + _per_wheel_mm(drive, _span(t, cum, t0, t1)))
+    return np.fmax(np.nan_to_num(s_slip, nan=0, neginf=0),
+                   np.nan_to_num(s_shove, nan=0, neginf=0))
+
+
+def _per_wheel_mm(wheels, travel_m) -> str:
+    return ", ".join(f"{w.name} {v * 1000:+.0f} mm" for w, v in zip(wheels, travel_m,
+                                                                   strict=True))
+
+
+def _pod_events(scan: _Scan, wheel_travel, pods, drive_bad) -> None:
+    """Pod lift: a tracking wheel missed travel the body made (not claimed where the
+    drive wheels are in trouble themselves)."""
+    t, st, tr = scan.t, scan.st, scan.tr
+    meas, pred, sig, _, _ = _wheel_residuals(tr, t, wheel_travel, pods, st)
+    res = meas - pred
+    ks = _noise_scale(t, res / sig)
+    scan.noise["tracking_wheels"] = float(np.median(ks))
+    score, _ = _ratio_score(np.abs(res), meas, pred, sig, st, ks[:, None])
+    cum = _cumulative(t, wheel_travel, pods, tr)
+    off = st.k_off / st.k_on
+    for j, pod in enumerate(pods):
+        for a, b in scan.spans(np.where(drive_bad < off, score[:, j], np.nan)):
+            t0, t1 = _refine(t, cum[:, j], a, b, st.window_s)
+            missed = float(abs(_span(t, cum[:, j:j + 1], t0, t1)[0]))
+            if missed < st.min_lost_m:
+                continue
+            scan.add("pod_lift", t0, t1, missed, "m",
+                     f"tracking wheel {pod.name} missed {missed * 1000:.0f} mm")
 
 
 def _independent_pair(robot, names):

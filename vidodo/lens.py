@@ -22,6 +22,7 @@ from .profiles import CameraProfile
 __all__ = [
     "LensReport",
     "BoardSpec",
+    "LensModel",
     "board_points_m",
     "find_board",
     "calibrate_views",
@@ -167,9 +168,20 @@ def find_board(grey, board: BoardSpec, *, charuco_detector=None):
     return np.asarray(obj, np.float64), ch_corners.reshape(-1, 2).astype(np.float64)
 
 
-def calibrate_views(views, image_size, board: BoardSpec, *, fix_aspect=False,
-                    zero_tangent=False, rational=False, names=None, n_offered=None,
-                    skipped=()):
+@dataclass(frozen=True)
+class LensModel:
+    """Which lens parameters the calibration fits."""
+
+    fix_aspect: bool = False
+    """Force fx = fy (square pixels)."""
+    zero_tangent: bool = False
+    """Fix the tangential terms p1, p2 at zero."""
+    rational: bool = False
+    """Use OpenCV's 8-term rational model."""
+
+
+def calibrate_views(views, image_size, board: BoardSpec, *, model: LensModel | None = None,
+                    names=None, n_offered=None, skipped=()):
     """Calibrate from board detections already made.
 
     Parameters
@@ -178,12 +190,15 @@ def calibrate_views(views, image_size, board: BoardSpec, *, fix_aspect=False,
         Board points [m] and their pixels [px] per view.
     image_size : (int, int)
         (width, height) [px].
-    fix_aspect : bool
-        Force fx = fy (square pixels).
-    zero_tangent : bool
-        Fix the tangential terms p1, p2 at zero.
-    rational : bool
-        Use OpenCV's 8-term rational model.
+    board : BoardSpec
+    model : LensModel, optional
+        Which parameters to fit (default: all of OpenCV's 5-term model).
+    names : list of str, optional
+        Label of each view (for the report).
+    n_offered : int, optional
+        Images or frames offered, with or without a board found.
+    skipped : sequence of str
+        Labels of those without a usable board.
 
     Returns
     -------
@@ -201,19 +216,20 @@ def calibrate_views(views, image_size, board: BoardSpec, *, fix_aspect=False,
             "film the board from more angles, filling more of the frame")
     flags = 0
     flag_names = []
-    if fix_aspect:
+    model = model or LensModel()
+    if model.fix_aspect:
         flags |= cv2.CALIB_FIX_ASPECT_RATIO
         flag_names.append("CALIB_FIX_ASPECT_RATIO")
-    if zero_tangent:
+    if model.zero_tangent:
         flags |= cv2.CALIB_ZERO_TANGENT_DIST
         flag_names.append("CALIB_ZERO_TANGENT_DIST")
-    if rational:
+    if model.rational:
         flags |= cv2.CALIB_RATIONAL_MODEL
         flag_names.append("CALIB_RATIONAL_MODEL")
     obj = [v[0].astype(np.float32) for v in views]
     img = [v[1].astype(np.float32).reshape(-1, 1, 2) for v in views]
     k0 = np.eye(3)
-    if fix_aspect:  # the aspect ratio fixed is fx/fy of the initial guess
+    if model.fix_aspect:  # the aspect ratio fixed is fx/fy of the initial guess
         flags |= cv2.CALIB_USE_INTRINSIC_GUESS
         f0 = 0.9 * max(image_size)
         k0 = np.array([[f0, 0, image_size[0] / 2], [0, f0, image_size[1] / 2], [0, 0, 1]])
@@ -276,7 +292,7 @@ def _collect(frames, board: BoardSpec):
 
 
 def calibrate_images(paths, board=(9, 6), square_m=0.025, *, dictionary=None,
-                     marker_m=None, fix_aspect=False, zero_tangent=False, rational=False):
+                     marker_m=None, model: LensModel | None = None):
     """Calibrate a lens from still images of a board.
 
     Parameters
@@ -292,8 +308,8 @@ def calibrate_images(paths, board=(9, 6), square_m=0.025, *, dictionary=None,
         cv2.aruco dictionary name of a ChArUco board.
     marker_m : float, optional
         ChArUco marker side [m].
-    fix_aspect, zero_tangent, rational : bool
-        See :func:`calibrate_views`.
+    model : LensModel, optional
+        Which lens parameters to fit.
 
     Returns
     -------
@@ -319,14 +335,12 @@ def calibrate_images(paths, board=(9, 6), square_m=0.025, *, dictionary=None,
         raise InputError("no images given; pass image files or a folder holding them")
     frames = ((f.name, read_image(f, grey=True)) for f in files)
     views, names, skipped, size, n = _collect(frames, spec)
-    return calibrate_views(views, size, spec, fix_aspect=fix_aspect,
-                           zero_tangent=zero_tangent, rational=rational, names=names,
-                           n_offered=n, skipped=skipped)
+    return calibrate_views(views, size, spec, model=model, names=names, n_offered=n,
+                           skipped=skipped)
 
 
 def calibrate_video(path, board=(9, 6), square_m=0.025, *, every_s=0.5, max_views=40,
-                    dictionary=None, marker_m=None, fix_aspect=False, zero_tangent=False,
-                    rational=False):
+                    dictionary=None, marker_m=None, model: LensModel | None = None):
     """Calibrate a lens from a clip of a board, using one frame every ``every_s`` seconds.
 
     Parameters
@@ -337,6 +351,10 @@ def calibrate_video(path, board=(9, 6), square_m=0.025, *, every_s=0.5, max_view
         Spacing of the frames tried [s].
     max_views : int
         At most this many views with a found board are used (spread over the clip).
+    board, square_m, dictionary, marker_m
+        As for :func:`calibrate_images`.
+    model : LensModel, optional
+        Which lens parameters to fit.
 
     Returns
     -------
@@ -376,6 +394,5 @@ def calibrate_video(path, board=(9, 6), square_m=0.025, *, every_s=0.5, max_view
         keep = np.linspace(0, len(views) - 1, max_views).round().astype(int)
         views = [views[i] for i in keep]
         names = [names[i] for i in keep]
-    return calibrate_views(views, size, spec, fix_aspect=fix_aspect,
-                           zero_tangent=zero_tangent, rational=rational, names=names,
-                           n_offered=n, skipped=skipped)
+    return calibrate_views(views, size, spec, model=model, names=names, n_offered=n,
+                           skipped=skipped)

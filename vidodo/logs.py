@@ -126,12 +126,23 @@ def _refuse_infinite(arr, column, lines, where) -> None:
                          "such cell(s)); fix or blank those cells")
 
 
+def _fits_register(values, m: int) -> bool:
+    """Whether every reading fits a register of ``m`` values, signed or unsigned.
+
+    >>> _fits_register(np.array([0, 200, 255]), 256), _fits_register(np.array([-3, 300]), 256)
+    (True, False)
+    """
+    lo, hi = int(values.min()), int(values.max())
+    return (-(m // 2) <= lo and hi < m // 2) or (0 <= lo and hi < m)
+
+
 def counter_width_slip(values, bits: int):
     """The narrower counter width the logged counts wrap at, if not the declared one.
 
     A 16-bit counter logged under ``counter_bits = 32`` (or a wrapping counter declared
     as not wrapping) jumps by nearly +-2^16 (or +-2^32) where it wraps; those jumps
-    minus a whole multiple of the width are ordinary steps.
+    minus a whole multiple of the width are ordinary steps. Only widths whose register
+    holds every logged reading (signed or unsigned) are considered.
 
     Parameters
     ----------
@@ -154,6 +165,8 @@ def counter_width_slip(values, bits: int):
         if bits and b >= bits:
             break
         m = np.int64(1) << np.int64(b)
+        if not _fits_register(v, int(m)):  # a b-bit counter's readings fit b bits
+            continue
         big = (d > m // 2) | (d < -(m // 2))  # more than a b-bit counter can step
         n_big = int(np.count_nonzero(big))
         if not n_big or n_big > 0.05 * d.size:  # wraps are rare events

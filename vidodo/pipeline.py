@@ -218,6 +218,10 @@ class GradeSettings:
     """Pass/fail limits (none by default)."""
     events: EventSettings = field(default_factory=EventSettings)
     """Event detection thresholds."""
+    registrar: object = None
+    """How the floor is registered while tracking (a
+    :class:`~vidodo.registration.registrar.FloorRegistrar`: points, start tile, limits);
+    default: the automatic one for the field and camera."""
 
 
 @dataclass(frozen=True)
@@ -254,7 +258,7 @@ def _truth_parts(truth):
 
 
 def grade_tracks(truth, log, robot, settings: GradeSettings | None = None, *, odometry=None,
-                 inputs=None, field_profile=None) -> GradeResult:
+                 inputs=None, field=None) -> GradeResult:
     """Grade a run from a truth track and a log already read.
 
     The steps, in order: put the log on the video clock (:func:`_clock_step`), find the
@@ -278,7 +282,7 @@ def grade_tracks(truth, log, robot, settings: GradeSettings | None = None, *, od
         Odometry sources on the log clock; rebuilt from ``log`` when None.
     inputs : dict, optional
         File paths recorded in the summary.
-    field_profile : FieldProfile, optional
+    field : FieldProfile, optional
         Recorded in the summary (``field``) for the plots.
 
     Returns
@@ -310,7 +314,7 @@ def grade_tracks(truth, log, robot, settings: GradeSettings | None = None, *, od
                                  float(clock.sigma_s or 0.0))
               for name, p in covered.items()}
     result = _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn,
-                           inputs=inputs, field_profile=field_profile)
+                           inputs=inputs, field=field)
     return replace(result, summary={**result.summary,
                                     "timings_s": merged(tracked_s, times.as_dict())})
 
@@ -457,7 +461,7 @@ def _figure_sigmas(m, ref, vdf, k0, ta, qa, sig_rot, clock_sigma_s, kw):
 
 
 def _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn, *,
-                  inputs, field_profile) -> GradeResult:
+                  inputs, field) -> GradeResult:
     """Drift table, events table, verdict and summary.json content."""
     metrics = {n: g.metrics for n, g in graded.items() if g.metrics is not None}
     if not metrics:
@@ -491,9 +495,9 @@ def _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn,
                   "confidence": clock.confidence, "method": clock.method,
                   "source": clock.source, "rate": clock.rate, "ref_log_s": clock.ref_log_s},
         "truth": dict(quality),
-        "field": None if field_profile is None else {
-            "tiles_x": field_profile.tiles_x, "tiles_y": field_profile.tiles_y,
-            "tile_size_m": field_profile.tile_size_m},
+        "field": None if field is None else {
+            "tiles_x": field.tiles_x, "tiles_y": field.tiles_y,
+            "tile_size_m": field.tile_size_m},
         "sources": {n: {**{k: v for k, v in m.to_dict().items() if k != "warnings"},
                         "pass": passed[n]} for n, m in metrics.items()},
         "events": events_df.to_dict(orient="records"),
@@ -547,8 +551,8 @@ def _jsonable(obj):
     return obj
 
 
-def grade_run(video, log, robot, field_profile, camera=None, *, settings=None, track=None,
-              progress=None, registrar=None) -> GradeResult:
+def grade_run(video, log, robot, field, camera=None, *, settings=None, track=None,
+              progress=None) -> GradeResult:
     """Grade one run: video + log + profiles -> drift, events, verdict.
 
     Parameters
@@ -557,19 +561,16 @@ def grade_run(video, log, robot, field_profile, camera=None, *, settings=None, t
         The footage (not read when ``track`` is given).
     log : str, Path or LogData
         The robot's log CSV.
-    robot, field_profile : profile or path
+    robot, field : profile or path
         Robot and field profiles (TOML paths or loaded profiles).
     camera : CameraProfile or path, optional
         Lens profile; the tracker estimates one when absent.
     settings : GradeSettings, optional
-        Manual clock offset [s], tolerances, event thresholds.
+        Manual clock offset [s], tolerances, event thresholds, floor registrar.
     track : DataFrame or path, optional
         A truth track to reuse instead of tracking the video.
     progress : callable, optional
         Passed to the tracker.
-    registrar : FloorRegistrar, optional
-        How the floor is registered (points, start tile, limits); default: the
-        automatic one for the field and camera.
 
     Returns
     -------
@@ -583,20 +584,20 @@ def grade_run(video, log, robot, field_profile, camera=None, *, settings=None, t
     from .logs import LogData, read_log
 
     robot = _profile(robot, load_robot)
-    field_profile = _profile(field_profile, load_field)
+    field = _profile(field, load_field)
     camera = _profile(camera, load_camera)
     inputs = {"video": _abs(video),
               "log": _abs(getattr(log, "path", log)),
               "robot": _abs(robot.path) if robot.path else robot.name,
-              "field": _abs(field_profile.path) if field_profile else None,
+              "field": _abs(field.path) if field else None,
               "camera": _abs(camera.path) if camera is not None else None}
     if track is None:
         from .input_checks import camera_matches_video
         from .track import track_video
 
         camera_matches_video(camera, video)  # before a whole tracking pass
-        truth = track_video(video, robot, field_profile, camera, progress=progress,
-                            registrar=registrar)
+        truth = track_video(video, robot, field, camera, progress=progress,
+                            registrar=(settings or GradeSettings()).registrar)
     elif isinstance(track, pd.DataFrame):
         truth = track
         inputs["track"] = "given"
@@ -605,7 +606,7 @@ def grade_run(video, log, robot, field_profile, camera=None, *, settings=None, t
         inputs["track"] = _abs(track)
     logdata = log if isinstance(log, LogData) else read_log(log, robot)
     return grade_tracks(truth, logdata, robot, settings, inputs=inputs,
-                        field_profile=field_profile)
+                        field=field)
 
 
 def _abs(path):

@@ -62,6 +62,7 @@ __all__ = [
     "FitRun",
     "ProfileFit",
     "TOLERANCES",
+    "FitSettings",
     "fit_profile",
     "truth_increments",
     "write_profile",
@@ -220,7 +221,7 @@ class _Windows:
     dtheta: np.ndarray  # (W,) heading change [rad]
 
 
-def _windows(run: FitRun, window_s, margin_s, extra_exclude) -> _Windows:
+def _windows(run: FitRun, window_s, margin_s) -> _Windows:
     tr = run.truth
     for col in ("t_s", "x_m", "y_m", "heading_rad"):
         if col not in tr.columns:
@@ -237,7 +238,7 @@ def _windows(run: FitRun, window_s, margin_s, extra_exclude) -> _Windows:
     lo = lt[0] + run.offset_s + run.rate * (lt[0] - run.ref_log_s) + 0.05
     hi = lt[-1] + run.offset_s + run.rate * (lt[-1] - run.ref_log_s) - 0.05
     ok &= (t >= lo) & (t <= hi)
-    excl = [tuple(map(float, w)) for w in tuple(run.exclude_windows) + tuple(extra_exclude)]
+    excl = [tuple(map(float, w)) for w in run.exclude_windows]
     starts, ends = [], []
     i = None
     for j in range(len(t)):
@@ -507,31 +508,40 @@ def _sign_check(meas, pred, min_pred_sq):
 
 
 # ----------------------------------------------------------------------------- fit
-def fit_profile(runs, robot: RobotProfile, *, exclude_windows=None, window_s=0.4,
-                exclude_margin_s=0.25, fit_clock=True, fit_imu=True, tolerances=None,
-                max_iter=12) -> ProfileFit:
+@dataclass(frozen=True)
+class FitSettings:
+    """How the profile fit runs."""
+
+    window_s: float = 0.4
+    """Length of each fitting window [s]."""
+    exclude_margin_s: float = 0.25
+    """Margin added around every excluded interval (events) [s]."""
+    fit_clock: bool = True
+    """Fit a clock-offset correction and a log-clock rate error per run."""
+    fit_imu: bool = True
+    """Fit the IMU scale and per-run bias rate (when the log has IMU heading)."""
+    tolerances: dict | None = None
+    """Overrides of :data:`TOLERANCES` (wanted precision per kind of value)."""
+    max_iter: int = 12
+    """Reweighting iterations."""
+
+
+def fit_profile(runs, robot: RobotProfile, settings: FitSettings | None = None) -> ProfileFit:
     """Fit wheel radii, lever arms, IMU scale and bias, and clock terms to truth.
+
+    The steps: cut every run into windows outside its events (:func:`_fit_windows`),
+    check each encoder's and the IMU's sign against the truth (:func:`_sign_checks`),
+    solve (:func:`_solve_holding`), tabulate (:func:`_fit_table`) and carry the clock
+    corrections over (:func:`_fitted_clocks`).
 
     Parameters
     ----------
     runs : sequence of FitRun
-        Graded runs of the same robot.
+        Graded runs of the same robot; each run's ``exclude_windows`` are left out.
     robot : RobotProfile
         The profile the logs were read with (the one to correct).
-    exclude_windows : sequence of sequence of (float, float), optional
-        Per run, extra video-clock intervals to leave out [s].
-    window_s : float
-        Length of each fitting window [s].
-    exclude_margin_s : float
-        Margin added around every excluded interval [s].
-    fit_clock : bool
-        Fit a clock-offset correction and a log-clock rate error per run.
-    fit_imu : bool
-        Fit the IMU scale and per-run bias rate (when the log has IMU heading).
-    tolerances : dict, optional
-        Overrides of :data:`TOLERANCES`.
-    max_iter : int
-        Reweighting iterations.
+    settings : FitSettings, optional
+        Window length [s], margins [s], what to fit, wanted precision.
 
     Returns
     -------
@@ -544,45 +554,20 @@ def fit_profile(runs, robot: RobotProfile, *, exclude_windows=None, window_s=0.4
     MeasurementError
         Too few usable windows to fit anything.
     """
-    tol = {**TOLERANCES, **(tolerances or {})}
+    st = settings or FitSettings()
+    tol = {**TOLERANCES, **(st.tolerances or {})}
     runs = list(runs)
-    if not runs:
-        raise InputError("fit_profile: no runs given; pass at least one graded run")
-    names = [r.name for r in runs]
-    if len(set(names)) != len(names):
-        raise InputError(f"fit_profile: run names must be unique, got {names}")
-    extra = list(exclude_windows) if exclude_windows is not None else [()] * len(runs)
-    if len(extra) != len(runs):
-        raise InputError("fit_profile: exclude_windows needs one entry per run")
     warnings: list[str] = []
-
-    wins = []
-    for run, ex in zip(runs, extra, strict=True):
-        if "t_s" not in run.log.columns:
-            raise InputError(f"log of run {run.name!r}: missing column 't_s'")
-        wins.append(_windows(run, window_s, exclude_margin_s, ex))
-    n_win = {run.name: len(w.ta) for run, w in zip(runs, wins, strict=True)}
-    total = sum(n_win.values())
-    if total < 10:
-        raise MeasurementError(
-            f"fit_profile: only {total} usable {window_s} s windows outside events; "
-            "film a longer run with the marker in view"
-        )
-
-    # wheels with a ticks column in every run
+    wins, n_win = _fit_windows(runs, st)
     wheels = []
-    for w in robot.wheels:
+    for w in robot.wheels:  # wheels with a ticks column in every run
         col = f"ticks_{w.name}"
         if all(col in run.log.columns for run in runs):
             wheels.append(w)
         else:
             warnings.append(f"wheel {w.name}: no '{col}' column in every log; not fitted")
-    use_imu = fit_imu and robot.imu is not None and all(
+    use_imu = st.fit_imu and robot.imu is not None and all(
         "imu_heading_rad" in run.log.columns for run in runs)
-
-    # ---- sign check per wheel and the IMU, on the profile geometry
-    a0 = wheel_rows(wheels)
-    mpt = np.array([w.sign * w.metres_per_tick for w in wheels])
     rundata = []
     for run, win in zip(runs, wins, strict=True):
         lt = run.log["t_s"].to_numpy(float)
@@ -591,6 +576,74 @@ def fit_profile(runs, robot: RobotProfile, *, exclude_windows=None, window_s=0.4
         rundata.append(_RunData(run.name, win, lt, ticks, psi, float(run.offset_s),
                                 float(0.5 * (lt[0] + lt[-1])), float(run.rate),
                                 float(run.ref_log_s)))
+    signs = _sign_checks(robot, wheels, rundata, use_imu, warnings)
+    model = _Model(robot, signs.wheels, signs.metres_per_tick, rundata, signs.use_imu,
+                   st.fit_clock)
+    theta, cov, se, status, sig = _solve_holding(model, model.centre.copy(), tol, st.max_iter)
+    _held_value_warnings(model, signs.wheels, status, warnings)
+    noise = {w.name: float(sig[g]) for g, w in enumerate(signs.wheels)}
+    if signs.use_imu:
+        noise["imu"] = float(sig[len(signs.wheels)])
+    table, corrected = _fit_table(robot, model, _Solution(theta, se, cov, status),
+                                  signs, tol, warnings)
+    own = table[~table["parameter"].str.startswith("run ")  # the profile's values
+                & (table["kind"] != "sign")]
+    if len(own) and (own["identifiable"] == "no").all():
+        warnings.insert(0, _why_nothing_fitted(runs, sum(n_win.values()), st.window_s))
+    clocks = _fitted_clocks(runs, rundata, theta, se, status, warnings)
+    return ProfileFit(table=table, robot=robot, corrected_robot=corrected,
+                      inverted=signs.inverted, n_windows=n_win, noise=noise,
+                      covariance=cov, names=tuple(model.names), warnings=tuple(warnings),
+                      clocks=clocks)
+
+
+def _fit_windows(runs, st: FitSettings):
+    """Windows of every run outside its events; refuses too few."""
+    if not runs:
+        raise InputError("fit_profile: no runs given; pass at least one graded run")
+    names = [r.name for r in runs]
+    if len(set(names)) != len(names):
+        raise InputError(f"fit_profile: run names must be unique, got {names}")
+    wins = []
+    for run in runs:
+        if "t_s" not in run.log.columns:
+            raise InputError(f"log of run {run.name!r}: missing column 't_s'")
+        wins.append(_windows(run, st.window_s, st.exclude_margin_s))
+    n_win = {run.name: len(w.ta) for run, w in zip(runs, wins, strict=True)}
+    total = sum(n_win.values())
+    if total < 10:
+        raise MeasurementError(
+            f"fit_profile: only {total} usable {st.window_s} s windows outside events; "
+            "film a longer run with the marker in view"
+        )
+    return wins, n_win
+
+
+@dataclass(frozen=True)
+class _Signs:
+    """Sensors the fit uses after the sign check, signs corrected."""
+
+    wheels: list
+    metres_per_tick: np.ndarray
+    """Signed metres per count of each wheel in ``wheels`` [m]."""
+    use_imu: bool
+    imu_flip: float
+    inverted: tuple
+
+
+@dataclass(frozen=True)
+class _Solution:
+    theta: np.ndarray
+    se: np.ndarray
+    cov: np.ndarray
+    status: list
+
+
+def _sign_checks(robot, wheels, rundata, use_imu, warnings) -> _Signs:
+    """Each encoder's and the IMU's counts against the truth motion on the profile
+    geometry: flip inverted ones, drop those that do not follow it."""
+    a0 = wheel_rows(wheels)
+    mpt = np.array([w.sign * w.metres_per_tick for w in wheels])
     inverted = []
     flip = np.ones(len(wheels))
     usable = np.ones(len(wheels), bool)
@@ -624,34 +677,28 @@ def fit_profile(runs, robot: RobotProfile, *, exclude_windows=None, window_s=0.4
         for rd in rundata:
             rd.psi = imu_flip * rd.psi
     keep = [j for j in range(len(wheels)) if usable[j]]
-    fwheels = [wheels[j] for j in keep]
-    fmpt = mpt[keep] * flip[keep]
     for rd in rundata:
         rd.ticks = [rd.ticks[j] for j in keep]
-    if not fwheels and not use_imu:
+    if not keep and not use_imu:
         raise MeasurementError("fit_profile: no wheel or IMU follows the truth track; "
                                "check the profile's columns and wheel directions")
+    return _Signs([wheels[j] for j in keep], mpt[keep] * flip[keep], use_imu, imu_flip,
+                  tuple(inverted))
 
-    model = _Model(robot, fwheels, fmpt, rundata, use_imu, fit_clock)
-    theta0 = model.centre.copy()
-    theta, cov, se, status, sig = _solve_holding(model, theta0, tol, max_iter)
-    # a value held while its partner stays free: say what it was fitted under
-    for j, w in enumerate(fwheels):
+
+def _held_value_warnings(model, wheels, status, warnings) -> None:
+    """A value held while its partner stays free: say what it was fitted under."""
+    for j, w in enumerate(wheels):
         ik, il = model.i_k[j], model.i_l[j]
         for held, free_i, what in ((ik, il, "radius_m"), (il, ik, "its offset")):
             if status[held] == "no" and status[free_i] != "no":
                 other = "radius_m" if free_i == ik else "its offset"
                 warnings.append(f"wheel {w.name}: {other} fitted with {what} held at the "
                                 "profile value (these runs cannot separate the two)")
-    noise = {w.name: float(sig[g]) for g, w in enumerate(fwheels)}
-    if use_imu:
-        noise["imu"] = float(sig[len(fwheels)])
-    table, corrected = _tabulate(robot, model, theta, se, cov, status, inverted, imu_flip,
-                                 tol, warnings)
-    own = table[~table["parameter"].str.startswith("run ")  # the profile's values
-                & (table["kind"] != "sign")]
-    if len(own) and (own["identifiable"] == "no").all():
-        warnings.insert(0, _why_nothing_fitted(runs, total, window_s))
+
+
+def _fitted_clocks(runs, rundata, theta, se, status, warnings) -> dict:
+    """Per run: the clock with the fitted corrections, ``(offset_s, rate, ref_log_s)``."""
     for rd in rundata:
         if rd.i_rate >= 0 and status[rd.i_rate] == "yes":
             r = theta[rd.i_rate]
@@ -668,10 +715,7 @@ def fit_profile(runs, robot: RobotProfile, *, exclude_windows=None, window_s=0.4
             rate += theta[rd.i_rate]
             off += theta[rd.i_rate] * (run.ref_log_s - rd.t_mid)
         clocks[run.name] = (float(off), float(rate), float(run.ref_log_s))
-    return ProfileFit(table=table, robot=robot, corrected_robot=corrected,
-                      inverted=tuple(inverted), n_windows=n_win, noise=noise,
-                      covariance=cov, names=tuple(model.names), warnings=tuple(warnings),
-                      clocks=clocks)
+    return clocks
 
 
 def _why_nothing_fitted(runs, n_windows, window_s) -> str:
@@ -749,55 +793,99 @@ def _lever_display(w):
     return "lever_m", float(e[2]), 1.0, step
 
 
-def _tabulate(robot, model, theta, se, cov, status, inverted, imu_flip, tol, warnings):
-    rows = []
-    new_wheels = {w.name: w for w in robot.wheels}
+class _TableRows:
+    """The rows of :attr:`ProfileFit.table`, collected value by value."""
 
-    def row(parameter, kind, target, unit, prof, est, s, st, written, sugg_kind=None):
+    def __init__(self):
+        self.rows: list[dict] = []
+
+    def add(self, parameter, kind, target, unit, prof, est, s, st, written, sugg_kind=None):
         sugg = "" if st == "yes" else SUGGESTIONS[sugg_kind or kind]
-        rows.append(dict(parameter=parameter, kind=kind, target=target, unit=unit,
-                         profile=prof, estimate=est if st != "no" else float("nan"),
-                         std_error=s, change=(est - prof) if st != "no" else float("nan"),
-                         identifiable=st, written=written, suggestion=sugg))
+        self.rows.append(dict(parameter=parameter, kind=kind, target=target, unit=unit,
+                              profile=prof, estimate=est if st != "no" else float("nan"),
+                              std_error=s,
+                              change=(est - prof) if st != "no" else float("nan"),
+                              identifiable=st, written=written, suggestion=sugg))
 
-    def write_ok(i):
-        if status[i] == "yes":
-            return True
-        return status[i] == "weak" and abs(theta[i] - model.centre[i]) > 3 * se[i]
 
+def _fit_table(robot, model, sol: _Solution, signs: _Signs, tol, warnings):
+    """The table of every value (:attr:`ProfileFit.table`) and the corrected profile."""
+    out = _TableRows()
+    new_wheels = _wheel_values(robot, model, sol, signs, out)
+    _track_width_values(robot, model, sol, new_wheels, tol, out)
+    new_imu = _imu_values(robot, model, sol, signs, tol, out)
+    for rd in model.runs:
+        th, se, status = sol.theta, sol.se, sol.status
+        if rd.i_bias >= 0:
+            i = rd.i_bias
+            out.add(f"run {rd.name} imu bias_radps", "imu_bias", rd.name, "rad/s", 0.0,
+                    th[i], se[i], status[i], False)
+        if rd.i_delta >= 0:
+            i = rd.i_delta
+            out.add(f"run {rd.name} clock offset_s", "clock_offset", rd.name, "s",
+                    rd.offset_s, rd.offset_s + th[i], se[i], status[i], False)
+            i = rd.i_rate
+            out.add(f"run {rd.name} clock rate", "clock_rate", rd.name, "", 0.0, th[i],
+                    se[i], status[i], False)
+    for r in out.rows:
+        if r["identifiable"] == "no":
+            warnings.append(f"{r['parameter']}: not identifiable from these runs "
+                            f"(standard error {r['std_error']:.3g} {r['unit']}); "
+                            f"to fix it: {r['suggestion']}")
+    corrected = dataclasses.replace(
+        robot, wheels=tuple(new_wheels[w.name] for w in robot.wheels), imu=new_imu,
+        path=None)
+    return pd.DataFrame(out.rows), corrected
+
+
+def _worth_writing(model, sol: _Solution, i) -> bool:
+    """Identifiable, or weakly so but more than three standard errors off the profile."""
+    if sol.status[i] == "yes":
+        return True
+    return sol.status[i] == "weak" and abs(sol.theta[i] - model.centre[i]) > 3 * sol.se[i]
+
+
+def _wheel_values(robot, model, sol: _Solution, signs: _Signs, out: _TableRows) -> dict:
+    """Radius, lever arm and sign of every wheel; the corrected wheels by name."""
+    th, se, status = sol.theta, sol.se, sol.status
+    new_wheels = {w.name: w for w in robot.wheels}
     for j, w in enumerate(model.wheels):
         ik, il = model.i_k[j], model.i_l[j]
-        sign = -w.sign if w.name in inverted else w.sign
+        sign = -w.sign if w.name in signs.inverted else w.sign
         side = abs(wheel_rows([w])[0][0]) < 1e-9
-        r_est = w.radius_m * theta[ik]
-        wr = write_ok(ik)
-        row(f"wheel {w.name} radius_m", "radius", w.name, "m", w.radius_m, r_est,
-            w.radius_m * se[ik], status[ik], wr, "radius_side" if side else None)
+        r_est = w.radius_m * th[ik]
+        wr = _worth_writing(model, sol, ik)
+        out.add(f"wheel {w.name} radius_m", "radius", w.name, "m", w.radius_m, r_est,
+                w.radius_m * se[ik], status[ik], wr, "radius_side" if side else None)
         key, prof, dv, step = _lever_display(w)
-        lw = write_ok(il)
-        row(f"wheel {w.name} {key}", "lever", w.name, "m", prof, prof + dv * theta[il],
-            abs(dv) * se[il], status[il], lw)
-        row(f"wheel {w.name} sign", "sign", w.name, "", float(w.sign), float(sign), 0.0,
-            "yes", w.name in inverted)
+        lw = _worth_writing(model, sol, il)
+        out.add(f"wheel {w.name} {key}", "lever", w.name, "m", prof, prof + dv * th[il],
+                abs(dv) * se[il], status[il], lw)
+        out.add(f"wheel {w.name} sign", "sign", w.name, "", float(w.sign), float(sign), 0.0,
+                "yes", w.name in signs.inverted)
         changes = {"sign": sign}
         if wr:
             changes["radius_m"] = float(r_est)
         if lw:
-            changes["x_m"] = float(w.x_m + step[0] * theta[il])
-            changes["y_m"] = float(w.y_m + step[1] * theta[il])
+            changes["x_m"] = float(w.x_m + step[0] * th[il])
+            changes["y_m"] = float(w.y_m + step[1] * th[il])
         new_wheels[w.name] = dataclasses.replace(w, **changes)
     # wheels left out of the fit (no column, never moved, or not following the motion)
     fitted = {w.name for w in model.wheels}
+    nan = float("nan")
     for w in robot.wheels:
         if w.name in fitted:
             continue
         side = abs(wheel_rows([w])[0][0]) < 1e-9
         key, prof, _dv, _step = _lever_display(w)
-        nan = float("nan")
-        row(f"wheel {w.name} radius_m", "radius", w.name, "m", w.radius_m, nan, nan, "no",
-            False, "radius_side" if side else None)
-        row(f"wheel {w.name} {key}", "lever", w.name, "m", prof, nan, nan, "no", False)
-    # derived track width per source of forward-rolling wheels on both sides
+        out.add(f"wheel {w.name} radius_m", "radius", w.name, "m", w.radius_m, nan, nan,
+                "no", False, "radius_side" if side else None)
+        out.add(f"wheel {w.name} {key}", "lever", w.name, "m", prof, nan, nan, "no", False)
+    return new_wheels
+
+
+def _track_width_values(robot, model, sol: _Solution, new_wheels, tol, out) -> None:
+    """Derived track width per source of forward-rolling wheels on both sides."""
     seen = set()
     for src in robot.resolved_sources():
         idx = [j for j, w in enumerate(model.wheels) if w.name in src.wheels
@@ -807,7 +895,7 @@ def _tabulate(robot, model, theta, se, cov, status, inverted, imu_flip, tol, war
         if not left or not right or tuple(idx) in seen:
             continue
         seen.add(tuple(idx))
-        grad = np.zeros(len(theta))
+        grad = np.zeros(len(sol.theta))
         prof = (np.mean([model.wheels[j].y_m for j in left])
                 - np.mean([model.wheels[j].y_m for j in right]))
         est = prof
@@ -817,56 +905,41 @@ def _tabulate(robot, model, theta, se, cov, status, inverted, imu_flip, tol, war
                 ex = wheel_rows([model.wheels[j]])[0][0]
                 g = -sgn / ex / len(group)
                 grad[model.i_l[j]] += g
-                est += g * theta[model.i_l[j]]
-        held = any(status[model.i_l[j]] == "no" for j in left + right)
+                est += g * sol.theta[model.i_l[j]]
+        held = any(sol.status[model.i_l[j]] == "no" for j in left + right)
         if held:  # from the offsets' own errors before they were held (no correlation)
-            s = float(math.sqrt(np.nansum((grad * se) ** 2)))
+            s = float(math.sqrt(np.nansum((grad * sol.se) ** 2)))
         else:
-            s = float(math.sqrt(max(grad @ cov @ grad, 0.0)))
+            s = float(math.sqrt(max(grad @ sol.cov @ grad, 0.0)))
         st = "no" if held else _status([s], ["lever"], tol)[0]
         written = all(new_wheels[model.wheels[j].name].y_m != model.wheels[j].y_m
                       for j in left + right)
-        row(f"source {src.name} track_width_m", "lever", src.name, "m", prof, est, s, st,
-            written)
+        out.add(f"source {src.name} track_width_m", "lever", src.name, "m", prof, est, s, st,
+                written)
+
+
+def _imu_values(robot, model, sol: _Solution, signs: _Signs, tol, out: _TableRows):
+    """IMU scale, sign and bias; the corrected IMU."""
     new_imu = robot.imu
+    flipped = signs.imu_flip < 0
     if model.use_imu:
         ic = model.i_c
-        scale = robot.imu.scale * theta[ic]
-        iw = write_ok(ic)
-        row("imu scale", "imu_scale", "imu", "", robot.imu.scale, scale,
-            robot.imu.scale * se[ic], status[ic], iw)
-        sign = -robot.imu.sign if imu_flip < 0 else robot.imu.sign
-        row("imu sign", "sign", "imu", "", float(robot.imu.sign), float(sign), 0.0, "yes",
-            imu_flip < 0)
+        scale = robot.imu.scale * sol.theta[ic]
+        iw = _worth_writing(model, sol, ic)
+        out.add("imu scale", "imu_scale", "imu", "", robot.imu.scale, scale,
+                robot.imu.scale * sol.se[ic], sol.status[ic], iw)
+        sign = -robot.imu.sign if flipped else robot.imu.sign
+        out.add("imu sign", "sign", "imu", "", float(robot.imu.sign), float(sign), 0.0, "yes",
+                flipped)
         new_imu = dataclasses.replace(robot.imu, sign=sign,
                                       scale=float(scale) if iw else robot.imu.scale)
-        new_imu = _imu_bias_row(model, theta, se, tol, robot.imu, new_imu, row)
+        new_imu = _imu_bias_row(model, sol.theta, sol.se, tol, robot.imu, new_imu, out.add)
     elif robot.imu is not None:
         nan = float("nan")
-        row("imu scale", "imu_scale", "imu", "", robot.imu.scale, nan, nan, "no", False)
-        if imu_flip < 0:
+        out.add("imu scale", "imu_scale", "imu", "", robot.imu.scale, nan, nan, "no", False)
+        if flipped:
             new_imu = dataclasses.replace(robot.imu, sign=-robot.imu.sign)
-    for rd in model.runs:
-        if rd.i_bias >= 0:
-            i = rd.i_bias
-            row(f"run {rd.name} imu bias_radps", "imu_bias", rd.name, "rad/s", 0.0,
-                theta[i], se[i], status[i], False)
-        if rd.i_delta >= 0:
-            i = rd.i_delta
-            row(f"run {rd.name} clock offset_s", "clock_offset", rd.name, "s",
-                rd.offset_s, rd.offset_s + theta[i], se[i], status[i], False)
-            i = rd.i_rate
-            row(f"run {rd.name} clock rate", "clock_rate", rd.name, "", 0.0, theta[i],
-                se[i], status[i], False)
-    for r in rows:
-        if r["identifiable"] == "no":
-            warnings.append(f"{r['parameter']}: not identifiable from these runs "
-                            f"(standard error {r['std_error']:.3g} {r['unit']}); "
-                            f"to fix it: {r['suggestion']}")
-    corrected = dataclasses.replace(
-        robot, wheels=tuple(new_wheels[w.name] for w in robot.wheels), imu=new_imu,
-        path=None)
-    return pd.DataFrame(rows), corrected
+    return new_imu
 
 
 def _imu_bias_row(model, theta, se, tol, imu, new_imu, row):

@@ -29,7 +29,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["SmoothedSignal", "smooth_ca", "smooth_ca_signals", "find_breaks", "Q_GRID",
+__all__ = ["SmoothedSignal", "rts_smooth", "rts_smooth_signals", "find_breaks", "Q_GRID",
            "R_SCALE_GRID", "BREAK_MIN_GAIN"]
 
 Q_GRID = np.logspace(-3, 4, 15)
@@ -196,7 +196,7 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
     return loglik, nis, nu, xs, Ps
 
 
-def smooth_ca(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None, q_grid=Q_GRID,
+def rts_smooth(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None, q_grid=Q_GRID,
               r_scale_grid=R_SCALE_GRID, prior_rate=5.0, prior_accel=20.0, breaks=True):
     """Smooth one signal measured at irregular times and evaluate it at other times.
 
@@ -224,19 +224,19 @@ def smooth_ca(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None, q_grid=Q_G
     SmoothedSignal
     """
     z = np.asarray(z, dtype=float)
-    return smooth_ca_signals(t_meas_s, z[:, None], np.asarray(sigma_z, float)[:, None],
+    return rts_smooth_signals(t_meas_s, z[:, None], np.asarray(sigma_z, float)[:, None],
                              t_out_s, q=q, r_scale=r_scale, q_grid=q_grid,
                              r_scale_grid=r_scale_grid, prior_rate=prior_rate,
                              prior_accel=prior_accel, breaks=breaks)[0]
 
 
-def smooth_ca_signals(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None,
+def rts_smooth_signals(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None,
                       q_grid=Q_GRID, r_scale_grid=R_SCALE_GRID, prior_rate=5.0,
                       prior_accel=20.0, breaks=True):
     """Smooth S independent signals measured at the same times, in one batched pass.
 
     Each signal gets its own maximum-likelihood jerk density and variance factor, exactly
-    as :func:`smooth_ca` would give it; only the work is shared.
+    as :func:`rts_smooth` would give it; only the work is shared.
 
     Parameters
     ----------
@@ -247,7 +247,7 @@ def smooth_ca_signals(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None,
     t_out_s : array_like (N,)
         Output times [s].
     q, r_scale, q_grid, r_scale_grid, prior_rate, prior_accel, breaks
-        As in :func:`smooth_ca`, shared by all signals (breaks are found per signal).
+        As in :func:`rts_smooth`, shared by all signals (breaks are found per signal).
 
     Returns
     -------
@@ -259,9 +259,9 @@ def smooth_ca_signals(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None,
     vm = np.asarray(sigma_z, dtype=float) ** 2
     to = np.asarray(t_out_s, dtype=float)
     if tm.size == 0:
-        raise ValueError("smooth_ca: no measurements")
+        raise ValueError("rts_smooth: no measurements")
     if zm.ndim != 2 or zm.shape != vm.shape or zm.shape[0] != tm.size:
-        raise ValueError("smooth_ca_signals: z and sigma_z must be (M, S) with M times")
+        raise ValueError("rts_smooth_signals: z and sigma_z must be (M, S) with M times")
     n_sig = zm.shape[1]
     t = np.concatenate([tm, to])
     zz = np.vstack([zm, np.zeros((to.size, n_sig))])

@@ -507,70 +507,14 @@ def estimate_clock(truth_track, odometry, *, source=None, window_s=1.0, fit_rate
             "too little motion to find the clock offset: give it with --clock-offset-s"
         )
     warn = []
-    coarse = {}
-    scores = {}
-    prepared = {}
-    for name, df in odometry.items():
-        ts, ps = _poses(df)
-        ok = np.isfinite(ps).all(axis=1) & np.isfinite(ts)
-        ts, ps = ts[ok], ps[ok].copy()
-        if len(ts) < 10:
-            warn.append(f"source {name!r}: fewer than 10 samples, not used for sync")
-            continue
-        if np.any(np.diff(ts) <= 0):
-            raise InputError(f"odometry source {name!r}: t_s is not strictly increasing")
-        ps[:, 2] = np.unwrap(ps[:, 2])
-        nb = int((ts[-1] - ts[0]) / dt) + 1
-        sb, wb = _grid_signals(ts, ps, ts[0], nb, dt, max_gap_s)
-        if _moving_time(sb, wb, dt, 0.05, 0.2) < min_motion_s:
-            warn.append(f"source {name!r} reports almost no motion; not used for sync")
-            continue
-        shorter = min(tt[-1] - tt[0], ts[-1] - ts[0])
-        res = _coarse(tt, pt, ts, ps, dt, max(MIN_OVERLAP * shorter, 2.0), max_gap_s)
-        if res is None:
-            warn.append(f"source {name!r}: no lag with enough overlap")
-            continue
-        coarse[name] = res[0]
-        scores[name] = (res[1], res[2])
-        prepared[name] = (ts, ps)
+    coarse, scores, prepared = _coarse_offsets(tt, pt, odometry, dt, min_motion_s, max_gap_s,
+                                               warn)
     if not coarse:
         raise SyncError(
             "no odometry source overlaps the truth track with enough motion to find the "
             "clock offset; check that the log belongs to this video or give --clock-offset-s"
         )
-    # group sources whose coarse offsets agree within 0.1 s; the group with the most
-    # correlation in total wins (a slipping drive or a lifted pod stands apart)
-    groups = {n: [m for m in coarse if abs(coarse[m] - coarse[n]) <= 0.1] for n in coarse}
-    best = max(groups, key=lambda n: (sum(max(scores[m][0], 0) for m in groups[n]),
-                                      -source_preference(n)))
-    agree = groups[best]
-    med = float(np.median([coarse[n] for n in agree]))
-    for n in coarse:
-        if n not in agree:
-            warn.append(f"source {n!r}: coarse offset {coarse[n]:+.3f} s disagrees with the "
-                        f"others ({med:+.3f} s); not used for sync")
-    if source is not None:
-        if source not in coarse:
-            raise SyncError(f"source {source!r} cannot be used for sync; sources usable: "
-                            f"{sorted(coarse)}")
-        use = source
-    else:
-        pool = agree or list(coarse)
-        use = min(pool, key=lambda n: (source_preference(n), -scores[n][0]))
-    peak, second = scores[use]
-    confidence = float(max(0.0, min(1.0, peak)) * min(1.0, 2.0 * (1.0 - max(second, 0) / peak))
-                       ) if peak > 0 else 0.0
-    if peak < MIN_CORRELATION:
-        raise SyncError(
-            f"the motion in the log ({use!r}) does not match the motion in the video "
-            f"(best correlation {peak:.2f} < {MIN_CORRELATION}); check that the log belongs "
-            "to this video, or give --clock-offset-s"
-        )
-    if peak < 0.5:
-        warn.append(f"clock sync: weak correlation ({peak:.2f}) between truth and {use!r}")
-    if second > 0.9 * peak:
-        warn.append("clock sync: another offset more than 0.5 s away fits almost as well "
-                    "(repetitive motion); check the offset or give --clock-offset-s")
+    use, confidence = _choose_source(coarse, scores, source, warn)
     ts, ps = prepared[use]
     tv = ts + coarse[use]
     ov = _check_overlap(tt, tv, f"source {use!r}")
@@ -606,6 +550,76 @@ def estimate_clock(truth_track, odometry, *, source=None, window_s=1.0, fit_rate
     return ClockSync(offset_s=tau, sigma_s=sigma, confidence=confidence, method="auto",
                      source=use, rate=rate, ref_log_s=ref if rate else 0.0,
                      coarse_offset_s=dict(coarse), warnings=tuple(warn))
+
+
+def _coarse_offsets(tt, pt, odometry, dt, min_motion_s, max_gap_s, warn):
+    """Per usable source: the coarse offset [s], its correlation scores (peak, best
+    other peak more than 0.5 s away) and its poses on the log clock."""
+    coarse = {}
+    scores = {}
+    prepared = {}
+    for name, df in odometry.items():
+        ts, ps = _poses(df)
+        ok = np.isfinite(ps).all(axis=1) & np.isfinite(ts)
+        ts, ps = ts[ok], ps[ok].copy()
+        if len(ts) < 10:
+            warn.append(f"source {name!r}: fewer than 10 samples, not used for sync")
+            continue
+        if np.any(np.diff(ts) <= 0):
+            raise InputError(f"odometry source {name!r}: t_s is not strictly increasing")
+        ps[:, 2] = np.unwrap(ps[:, 2])
+        nb = int((ts[-1] - ts[0]) / dt) + 1
+        sb, wb = _grid_signals(ts, ps, ts[0], nb, dt, max_gap_s)
+        if _moving_time(sb, wb, dt, 0.05, 0.2) < min_motion_s:
+            warn.append(f"source {name!r} reports almost no motion; not used for sync")
+            continue
+        shorter = min(tt[-1] - tt[0], ts[-1] - ts[0])
+        res = _coarse(tt, pt, ts, ps, dt, max(MIN_OVERLAP * shorter, 2.0), max_gap_s)
+        if res is None:
+            warn.append(f"source {name!r}: no lag with enough overlap")
+            continue
+        coarse[name] = res[0]
+        scores[name] = (res[1], res[2])
+        prepared[name] = (ts, ps)
+    return coarse, scores, prepared
+
+
+def _choose_source(coarse, scores, source, warn):
+    """The source for the fine step and the confidence of its coarse peak (0..1)."""
+    # group sources whose coarse offsets agree within 0.1 s; the group with the most
+    # correlation in total wins (a slipping drive or a lifted pod stands apart)
+    groups = {n: [m for m in coarse if abs(coarse[m] - coarse[n]) <= 0.1] for n in coarse}
+    best = max(groups, key=lambda n: (sum(max(scores[m][0], 0) for m in groups[n]),
+                                      -source_preference(n)))
+    agree = groups[best]
+    med = float(np.median([coarse[n] for n in agree]))
+    for n in coarse:
+        if n not in agree:
+            warn.append(f"source {n!r}: coarse offset {coarse[n]:+.3f} s disagrees with the "
+                        f"others ({med:+.3f} s); not used for sync")
+    if source is not None:
+        if source not in coarse:
+            raise SyncError(f"source {source!r} cannot be used for sync; sources usable: "
+                            f"{sorted(coarse)}")
+        use = source
+    else:
+        pool = agree or list(coarse)
+        use = min(pool, key=lambda n: (source_preference(n), -scores[n][0]))
+    peak, second = scores[use]
+    confidence = float(max(0.0, min(1.0, peak)) * min(1.0, 2.0 * (1.0 - max(second, 0) / peak))
+                       ) if peak > 0 else 0.0
+    if peak < MIN_CORRELATION:
+        raise SyncError(
+            f"the motion in the log ({use!r}) does not match the motion in the video "
+            f"(best correlation {peak:.2f} < {MIN_CORRELATION}); check that the log belongs "
+            "to this video, or give --clock-offset-s"
+        )
+    if peak < 0.5:
+        warn.append(f"clock sync: weak correlation ({peak:.2f}) between truth and {use!r}")
+    if second > 0.9 * peak:
+        warn.append("clock sync: another offset more than 0.5 s away fits almost as well "
+                    "(repetitive motion); check the offset or give --clock-offset-s")
+    return use, confidence
 
 
 def _typical(df, col, default):

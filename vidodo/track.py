@@ -33,7 +33,7 @@ import pandas as pd
 from . import apriltag3
 from .errors import InputError, TrackingError
 from .profiles import marker_corners_local
-from .smooth import smooth_ca_signals
+from .smooth import rts_smooth_signals
 from .timings import StageTimes
 from .video import VideoReader, VideoTruncatedError, readout_fraction
 
@@ -620,7 +620,7 @@ class RegistrationPolicy:
 
 # ------------------------------------------------------------------ the tracking
 @dataclass
-class _Acc:
+class _FrameRecords:
     """Per-frame numbers gathered while streaming (no images)."""
 
     t: list = field(default_factory=list)
@@ -629,6 +629,7 @@ class _Acc:
     cell: list = field(default_factory=list)  # min cell width seen in the frame [px]
     reg_ok: list = field(default_factory=list)
     reg_rms_px: list = field(default_factory=list)
+    reg_pred_px: list = field(default_factory=list)
     reg_n: list = field(default_factory=list)
     reg_rms_m: list = field(default_factory=list)
     reg_fresh: list = field(default_factory=list)
@@ -720,12 +721,12 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
 
     Returns
     -------
-    _Acc
+    _FrameRecords
         Per-frame fixes and statistics (internal; see :func:`track_video`).
     """
     det = MarkerDetector(robot.markers, refine=refine, detector=detector)
     policy = RegistrationPolicy(registrar, field_profile, register_every)
-    acc = _Acc() if acc is None else acc
+    acc = _FrameRecords() if acc is None else acc
     acc.detector = det
     acc.policy = policy
     last = prev = None
@@ -754,6 +755,7 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
         acc.reg_rms_px.append(float(getattr(reg, "rms_px", np.nan)) if reg else np.nan)
         acc.reg_n.append(int(getattr(reg, "n_points", 0) or 0) if reg else 0)
         acc.reg_rms_m.append(float(getattr(reg, "rms_floor_m", np.nan)) if reg else np.nan)
+        acc.reg_pred_px.append(float(getattr(reg, "prediction_px", 0.0)) if reg else 0.0)
         acc.reg_fresh.append(fresh)
         fix = None
         frac = np.nan
@@ -1093,7 +1095,7 @@ def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, fresh_px
         rows = np.arange(a, b + 1)
         # Fresh corner noise goes through the smoother (averaged over frames) ...
         unit = cov_unit[m]
-        sx, sy, sh = smooth_ca_signals(
+        sx, sy, sh = rts_smooth_signals(
             t_meas[m], np.column_stack([x[m], y[m], th[m]]),
             fresh_px[m, None] * np.sqrt(np.diagonal(unit, axis1=1, axis2=2)), t[rows])
         fits.append((sx.q, sx.r_scale, sy.q, sy.r_scale, sh.q, sh.r_scale,
@@ -1179,6 +1181,10 @@ def _finish(acc, robot, video_info, timing, *, readout_s, readout_source, max_ga
     reg_n = np.maximum(np.asarray(acc.reg_n, float), REGISTRATION_PARAMS)
     reg_err = reg_px * np.sqrt(REGISTRATION_PARAMS / reg_n) * mpp
     reg_err = np.where(np.isfinite(reg_err), reg_err, np.asarray(acc.reg_rms_m, float))
+    # ... or, where larger, the error the registration showed at clicked points it was
+    # not fitted to (held out one at a time): it holds the lens and pose error the
+    # residuals alone do not show (an unmodelled lens is a systematic error).
+    reg_err = np.fmax(reg_err, np.asarray(acc.reg_pred_px, float) * mpp)
     segs = _segments(idx, t, max_gap_s)
     first = _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, fresh_px,
                     persistent_px, keep, corner_bias_px)
@@ -1417,7 +1423,7 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
         readout_s = float(readout_s)
         source = "given"
     warnings: list[str] = []
-    acc = _Acc()
+    acc = _FrameRecords()
     # Detection runs on small windows: OpenCV's own thread pool costs more than it gives
     # there and competes with the decoder's threads, so it is paused while tracking.
     threads = cv2.getNumThreads()

@@ -23,7 +23,7 @@ from .csvsafe import write_csv
 from .odometry import odometry_result
 from .outputs import staged_dir
 from .pipeline import GradeResult, GradeSettings, grade_tracks
-from .profile_fit import FitRun, ProfileFit, fit_profile, with_clock, write_profile
+from .profile_fit import FitRun, FitSettings, ProfileFit, fit_profile, with_clock, write_profile
 from .profiles import RobotProfile
 
 __all__ = ["TuneResult", "grade_on_run_clock", "anchored_drift", "event_windows",
@@ -101,7 +101,8 @@ def event_windows(run: FitRun, log, robot: RobotProfile) -> tuple:
                      strict=True))
 
 
-def fit_profile_with_events(runs, robot: RobotProfile, read_logs, **kwargs) -> ProfileFit:
+def fit_profile_with_events(runs, robot: RobotProfile, read_logs,
+                            settings: FitSettings | None = None) -> ProfileFit:
     """Fit twice: once without event windows, then leaving out the events found with
     the first corrected profile.
 
@@ -118,8 +119,8 @@ def fit_profile_with_events(runs, robot: RobotProfile, read_logs, **kwargs) -> P
     read_logs : callable
         ``read_logs(profile) -> list of LogData``, the runs' logs read with ``profile``
         (same order as ``runs``).
-    **kwargs
-        Passed to :func:`fit_profile`.
+    settings : FitSettings, optional
+        Passed to :func:`~vidodo.profile_fit.fit_profile`.
 
     Returns
     -------
@@ -128,7 +129,7 @@ def fit_profile_with_events(runs, robot: RobotProfile, read_logs, **kwargs) -> P
         include the first pass's clock corrections (the second pass starts from them).
     """
     runs = list(runs)
-    first = fit_profile(runs, robot, **kwargs)
+    first = fit_profile(runs, robot, settings)
     logs = read_logs(first.corrected_robot)
     # the first pass may have corrected the clock too: look for events on that clock
     runs = [with_clock(r, first.clocks.get(r.name)) for r in runs]
@@ -138,7 +139,7 @@ def fit_profile_with_events(runs, robot: RobotProfile, read_logs, **kwargs) -> P
         if ev:
             notes.append(f"run {run.name}: " + ", ".join(f"{a:.2f}-{b:.2f} s" for a, b in ev))
         runs2.append(dataclasses.replace(run, exclude_windows=tuple(run.exclude_windows) + ev))
-    second = fit_profile(runs2, robot, **kwargs)
+    second = fit_profile(runs2, robot, settings)
     if notes:
         second = dataclasses.replace(second, warnings=second.warnings + (
             "event windows left out (found with the first corrected profile): "
@@ -180,8 +181,8 @@ def drift_comparison(before: dict, after: dict, run_name: str = "") -> pd.DataFr
     return pd.DataFrame(rows)
 
 
-def tune_profile(runs, robot: RobotProfile, read_logs, *, window_s=0.4,
-                 fit_clock=True) -> TuneResult:
+def tune_profile(runs, robot: RobotProfile, read_logs,
+                 settings: FitSettings | None = None) -> TuneResult:
     """Fit the profile to the runs (two passes) and grade each run before and after.
 
     Parameters
@@ -192,10 +193,8 @@ def tune_profile(runs, robot: RobotProfile, read_logs, *, window_s=0.4,
         The profile to correct.
     read_logs : callable
         ``read_logs(profile) -> list of LogData`` in the order of ``runs``.
-    window_s : float
-        Length of each fitting window [s].
-    fit_clock : bool
-        Fit the clock offset and rate too.
+    settings : FitSettings, optional
+        Window length [s], whether to fit the clock, wanted precision.
 
     Returns
     -------
@@ -204,8 +203,7 @@ def tune_profile(runs, robot: RobotProfile, read_logs, *, window_s=0.4,
         difference between them.
     """
     runs = list(runs)
-    fit = fit_profile_with_events(runs, robot, read_logs, window_s=window_s,
-                                  fit_clock=fit_clock)
+    fit = fit_profile_with_events(runs, robot, read_logs, settings)
     logs_before, logs_after = read_logs(robot), read_logs(fit.corrected_robot)
     tables = []
     for run, before_log, after_log in zip(runs, logs_before, logs_after, strict=True):

@@ -8,7 +8,6 @@ seed and vidodo version are unchanged.
 from __future__ import annotations
 
 import json
-import shutil
 import time
 from pathlib import Path
 
@@ -30,10 +29,7 @@ def _ensure_run(args, out: Path, progress) -> Path:
     from vidodo.synth.scenario import load_scenario
     from vidodo.synth.simulate import run_cache_key, simulate_run
 
-    overrides = {}
-    if shutil.which("ffmpeg") is None:  # the OpenCV wheel alone writes MPEG-4 part 2
-        overrides["video.codec"] = "mpeg4"
-    scenario = load_scenario(args.scenario, **overrides)
+    scenario = load_scenario(args.scenario)
     key = run_cache_key(scenario, args.seed)
     run = out / "run"
     stamp = out / ".vidodo-run-cache"  # beside the run: the run folder holds only its set

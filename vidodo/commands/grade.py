@@ -128,8 +128,8 @@ def run(args) -> int:
             with progress_bar(desc="tracking", quiet=args.quiet) as bar:
                 result = grade_run(args.video, args.log, robot, field, camera,
                                    settings=GradeSettings(clock_offset_s=args.clock_offset_s,
-                                                          tolerances=tol),
-                                   track=args.track, progress=bar, registrar=registrar)
+                                                          tolerances=tol, registrar=registrar),
+                                   track=args.track, progress=bar)
         except RegistrationRefused as exc:  # the set is the preview alone
             registration_options.write_preview(exc, stage / "preview.png")
             refused = exc

@@ -67,8 +67,9 @@ def run(args) -> int:
     if args.square_mm is None or args.square_mm <= 0:
         raise InputError(f"--square-mm {args.square_mm}: must be positive")
     marker_m = args.marker_mm / 1000.0 if args.marker_mm else None
-    kw = dict(dictionary=args.charuco, marker_m=marker_m, fix_aspect=args.square_pixels,
-              zero_tangent=args.no_tangential)
+    kw = dict(dictionary=args.charuco, marker_m=marker_m,
+              model=lens.LensModel(fix_aspect=args.square_pixels,
+                                   zero_tangent=args.no_tangential))
     video = [p for p in args.inputs if p.suffix.lower() in VIDEO_SUFFIXES]
     if video:
         if len(args.inputs) != 1:

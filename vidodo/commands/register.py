@@ -133,6 +133,8 @@ def run(args) -> int:
                 w.writerow({k: _fmt(row[k]) for k in CSV_COLUMNS})
     for line in report_lines(ref, quality, camera):
         print(line)
+    if registrar.check_report is not None:
+        print(check_line(registrar.check_report.figures))
     print(f"wrote {out / 'preview.png'} and {out / 'registration.csv'}")
     return 0
 
@@ -143,6 +145,22 @@ def _fmt(v):
     if isinstance(v, bool | np.bool_):
         return "true" if v else "false"
     return v
+
+
+def check_line(figures: dict) -> str:
+    """The self-check's figures as one printed line."""
+    parts = []
+    if "supported" in figures:
+        parts.append(f"seams on {figures['supported']:.0%} of the {figures['edges']} tile "
+                     f"edges in view, {figures['offset_supported']:.0%} half a tile off")
+    if math.isfinite(figures.get("subset_disagreement_m", math.nan)):
+        parts.append(f"image halves agree within {1000 * figures['subset_disagreement_m']:.1f}"
+                     " mm")
+    if "holdout_rms_px" in figures:
+        parts.append(f"points held out one at a time: {figures['holdout_rms_px']:.2f} px RMS")
+    if "field_position" in figures:
+        parts.append(figures["field_position"])
+    return "self-check passed: " + ("; ".join(parts) if parts else "camera pose plausible")
 
 
 def report_lines(ref, quality, camera) -> list[str]:

@@ -11,7 +11,7 @@ import pandas as pd
 
 from ..errors import InputError
 from ..logs import read_log
-from ..profile_fit import FitRun
+from ..profile_fit import FitRun, FitSettings
 from ..profiles import load_robot
 from ..tuning import tune_profile, write_tuning
 from ._options import add_force, add_old_spelling, add_out
@@ -197,7 +197,8 @@ def run(args) -> int:
         logs = [read_log(s[1], robot) for s in specs]
         runs = [FitRun(log=lg.frame, **s[0]) for s, lg in zip(specs, logs, strict=True)]
         tuned = tune_profile(runs, robot, lambda prof: [read_log(s[1], prof) for s in specs],
-                             window_s=args.window_s, fit_clock=not args.no_clock)
+                             FitSettings(window_s=args.window_s,
+                                         fit_clock=not args.no_clock))
         fit, drift = tuned.fit, tuned.drift
         write_tuning(tuned, stage)
     for w in fit.warnings:

@@ -100,6 +100,11 @@ class FrameRegistration:
     """Rate of change of ``rvec`` while the frame is read, ndarray (3,) [rad/s]."""
     tvec_rate: np.ndarray | None = None
     """Rate of change of ``tvec`` while the frame is read, ndarray (3,) [m/s]."""
+    prediction_px: float = 0.0
+    """Error of the mapping at an image point it was not fitted to, measured by the
+    self-check on clicked points left out one at a time: the RMS held-out residual less
+    the fit's own residual (in quadrature) [px]; 0 when not measured. It holds the lens
+    and pose error that the fit's residuals alone do not show."""
 
     @property
     def rolling(self) -> bool:

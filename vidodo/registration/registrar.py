@@ -259,7 +259,7 @@ class FloorRegistrar:
                 "limit; the observations do not fit one floor plane - check them")
         reg = fit_to_registration(t_s, fit, used, extra)
         if self.settings.self_check:
-            self._self_check(frame_bgr, grey, reg, ignore)
+            reg = self._self_check(frame_bgr, grey, reg, ignore)
         self._set_reference(grey, reg, ignore)
         return reg
 
@@ -276,6 +276,8 @@ class FloorRegistrar:
         self.check_report = report
         if report.reason:
             selfcheck.refuse(report.reason, frame_bgr, reg, self.field)
+        pred = report.figures.get("prediction_px", math.nan)
+        return replace(reg, prediction_px=pred) if math.isfinite(pred) else reg
 
     def _set_reference(self, grey, reg, ignore):
         self.reference = reg
@@ -311,7 +313,11 @@ class FloorRegistrar:
                 if self._retry is not None and t_s < self._retry[0]:
                     return failed(t_s, f"no reference yet: {self._retry[1]}")
                 return self.register_reference(frame_bgr, t_s, mask)
-            return self._register_follow(frame_bgr, t_s, mask)
+            reg = self._register_follow(frame_bgr, t_s, mask)
+            if reg.ok and reg.prediction_px < self.reference.prediction_px:
+                # Later frames map through the reference's floor positions: its error stays.
+                reg = replace(reg, prediction_px=self.reference.prediction_px)
+            return reg
         except RegistrationRefused:
             raise
         except (CalibrationError, cv2.error, np.linalg.LinAlgError, ValueError) as exc:

@@ -37,7 +37,7 @@ from ..profiles import FieldProfile
 from .camera_fit import FitOptions, fit_camera
 from .frame import FrameRegistration
 from .grid import draw_registration
-from .grid.seams import SeamSearch, locate_seams
+from .grid.evidence import edge_rates, edge_samples, row_rates, search_half_width_px, tiles_end
 
 __all__ = ["CheckLimits", "CheckReport", "ReferenceFacts", "check_reference", "check_track",
            "place_track", "refuse", "seam_evidence"]
@@ -56,8 +56,13 @@ class CheckLimits:
     """The camera's approximate height, if the user gave it [m]."""
     camera_height_tolerance: float = 0.25
     """Relative tolerance on ``camera_height_m``."""
-    min_edge_support: float = 0.65
-    """Fewest predicted tile edges in view (as a fraction) on which a seam is found."""
+    min_edge_support: float = 0.3
+    """Fewest predicted tile edges in view (as a fraction of their image length) on which
+    a seam is found (far seams thinner than a pixel are not seen even on a right grid)."""
+    weak_support: float = 0.65
+    """Below this support, the lines half a tile off must show a seam on at most
+    :attr:`weak_offset_ratio` as much (weak evidence needs a clear contrast)."""
+    weak_offset_ratio: float = 0.2
     max_offset_ratio: float = 0.5
     """Most tile edges half a tile off that show a seam, as a fraction of the supported
     predicted edges."""
@@ -67,6 +72,9 @@ class CheckLimits:
     """Largest disagreement of the half-image fits at the corners in view [tiles]."""
     max_subset_m: float = 0.015
     """... but never refused below this [m]."""
+    max_subset_tiles_no_lens: float = 0.1
+    """The same without a lens profile: focal length and distortion estimated on the
+    seams leave each half's extrapolation less certain [tiles]."""
     max_holdout_tiles: float = 0.1
     """Largest error of a clicked point predicted from the others [tiles]."""
     max_marker_scale_error: float = 0.1
@@ -86,65 +94,6 @@ class CheckReport:
 
 
 # ------------------------------------------------------------------ seam evidence
-#: Half-width of the band searched for a seam across each predicted tile edge, and the
-#: distance from the prediction within which a found seam counts [px at 1280 x 720,
-#: scaled with the image diagonal]. A registration good to a few millimetres puts the
-#: seams within a pixel; a dip on grain or print lands anywhere in the band (chance
-#: about 1.2 / 6 per sample).
-SEARCH_PX = 6.0
-HIT_PX = 1.2
-
-def _edge_samples(field_profile: FieldProfile, offset, ring=0, per_edge=8, gap=0.15):
-    """Sample points on every tile side of the field (grown by ``ring`` tiles), shifted
-    across the side by ``offset`` tiles.
-
-    Returns (points (N, 2) [m], axis (N,), value (N,) [m], normal (N, 2), edge id (N,)).
-    """
-    s = field_profile.tile_size_m
-    nx, ny = field_profile.tiles_x, field_profile.tiles_y
-    t = np.linspace(gap, 1 - gap, per_edge)
-    pts, axis, val, nrm, eid = [], [], [], [], []
-    k = 0
-    for ax, n_lines, n_tiles in ((0, nx, ny), (1, ny, nx)):
-        for i in range(-ring, n_lines + ring + 1):
-            v = (i + offset) * s
-            for j in range(-ring, n_tiles + ring):
-                along = (j + t) * s
-                p = np.column_stack([np.full_like(along, v), along])
-                pts.append(p if ax == 0 else p[:, ::-1])
-                axis.append(np.full(per_edge, ax))
-                val.append(np.full(per_edge, v))
-                nrm.append(np.tile([1.0, 0.0] if ax == 0 else [0.0, 1.0], (per_edge, 1)))
-                eid.append(np.full(per_edge, k))
-                k += 1
-    return (np.vstack(pts), np.concatenate(axis), np.concatenate(val), np.vstack(nrm),
-            np.concatenate(eid))
-
-
-def _edge_rates(grey, reg, samples, tile_size_m, ignore, half_width_px):
-    """Per tile edge: samples examined and samples with a seam found where predicted.
-
-    The seam is looked for over a wide band (``half_width_px`` each side) but counts
-    only within :data:`HIT_PX` of the prediction: on tile grain, print or texture a dip
-    turns up anywhere in the band, a true seam where the registration puts it.
-    """
-    fl, axis, val, nrm, eid = samples
-    q, q_ax, q_val, looked, offset = locate_seams(
-        grey, reg, (fl, axis, val, nrm), tile_size_m, ignore=ignore,
-        search=SeamSearch(half_width_px=half_width_px))
-    with np.errstate(invalid="ignore"):
-        hit = np.abs(offset) <= HIT_PX * half_width_px / SEARCH_PX
-    n_e = int(eid.max()) + 1 if len(eid) else 0
-    n_looked = np.bincount(eid, looked, n_e)
-    n_hit = np.bincount(eid, hit, n_e)
-    n_any = np.bincount(eid, np.isfinite(offset), n_e)
-    return n_looked, n_hit, (q, q_ax, q_val), n_any
-
-
-def _half_width_px(shape):
-    return SEARCH_PX * float(np.clip(math.hypot(shape[1], shape[0]) / 1469.0, 0.5, 1.5))
-
-
 def seam_evidence(grey, field_profile: FieldProfile, reg: FrameRegistration, *, ignore=None):
     """Seam evidence on the predicted tile edges of the field and half a tile off.
 
@@ -156,23 +105,43 @@ def seam_evidence(grey, field_profile: FieldProfile, reg: FrameRegistration, *, 
         a tile off), ``on_rate`` / ``off_rate`` (fraction of samples with a seam), and
         ``samples`` (located seam pixels, axis, value: for the subset check).
     """
-    hw = _half_width_px(grey.shape)
+    hw = search_half_width_px(grey.shape)
     s = field_profile.tile_size_m
-    on = _edge_rates(grey, reg, _edge_samples(field_profile, 0.0), s, ignore, hw)
-    off_samples = _edge_samples(field_profile, 0.5)
+    on_samples = edge_samples(field_profile, 0.0)
+    on = edge_rates(grey, reg, on_samples, s, ignore, hw)
+    off_samples = edge_samples(field_profile, 0.5)
     # Half a tile off: only the lines inside the field (the last one is outside it).
     inside = np.all((off_samples[0] > 0) & (off_samples[0] < np.array(field_profile.size_m)),
                     axis=1)
-    off = _edge_rates(grey, reg, tuple(a[inside] for a in off_samples), s, ignore, hw)
+    off_samples = tuple(a[inside] for a in off_samples)
+    off = edge_rates(grey, reg, off_samples, s, ignore, hw)
     out = {}
-    for name, (n_looked, n_hit, _q, _any) in (("", on), ("offset_", off)):
+    for name, (n_looked, n_hit, _q, _any), smp in (("", on, on_samples),
+                                                    ("offset_", off, off_samples)):
         seen = n_looked >= 3
         frac = np.where(seen, n_hit / np.maximum(n_looked, 1), 0.0)
+        # Each edge weighted by its length in the picture: the floor area in view counts,
+        # not the number of far tiles whose seams are thinner than a pixel.
+        weight = _edge_lengths_px(reg, smp) * seen
         out[name + "edges"] = int(seen.sum())
-        out[name + "supported"] = float((frac[seen] >= 1 / 3).mean()) if seen.any() else 0.0
+        out[name + "supported"] = (float(weight @ (frac >= 1 / 3) / weight.sum())
+                                   if weight.sum() > 0 else 0.0)
         out[name + "rate"] = float(n_hit.sum() / max(n_looked.sum(), 1))
     out["samples"] = on[2]
     return out
+
+
+def _edge_lengths_px(reg, samples):
+    """Image length of each tile edge between its first and last sample [px]."""
+    fl, _axis, _val, _nrm, eid = samples
+    n_e = int(eid.max()) + 1 if len(eid) else 0
+    if n_e == 0:
+        return np.zeros(0)
+    first = np.clip(np.searchsorted(eid, np.arange(n_e)), 0, len(eid) - 1)
+    last = np.clip(np.searchsorted(eid, np.arange(n_e), side="right") - 1, 0, len(eid) - 1)
+    ends = reg.floor_to_image(np.vstack([fl[first], fl[last]]))
+    length = np.linalg.norm(ends[:n_e] - ends[n_e:], axis=1)
+    return np.nan_to_num(length, nan=0.0, posinf=0.0)
 
 
 # ------------------------------------------------------------------ field position
@@ -192,32 +161,10 @@ def field_position_known(grey, field_profile: FieldProfile, reg: FrameRegistrati
     (bool, str)
         Known in both directions, and a description of what was seen.
     """
-    s = field_profile.tile_size_m
-    hw = _half_width_px(grey.shape)
     nx, ny = field_profile.tiles_x, field_profile.tiles_y
-    lines = _edge_samples(field_profile, 0.0, ring=1, per_edge=10)
-    n_looked, n_hit, _q, _any = _edge_rates(grey, reg, lines, s, ignore, hw)
-    fl, axis, val, _nrm, eid = lines
-    line = np.round(val / s).astype(int)
-    row = np.floor(np.where(axis == 0, fl[:, 1], fl[:, 0]) / s).astype(int)
-    n_lines = np.where(axis == 0, nx, ny)
-    interior = (line >= 1) & (line <= n_lines - 1)
-
-    def rate(ax, r):
-        """Seams across the rows ``r`` of direction ``ax``: (looked, found rate)."""
-        sel = np.unique(eid[(axis == 1 - ax) & interior & (row == r)])
-        looked = n_looked[sel].sum()
-        return looked, n_hit[sel].sum() / max(looked, 1)
-
-    found = []
-    for ax, n in ((0, nx), (1, ny)):
-        fixed = False
-        for inside_row, outside_row in ((0, -1), (n - 1, n)):
-            l_in, r_in = rate(ax, inside_row)
-            l_out, r_out = rate(ax, outside_row)
-            if min(l_in, l_out) >= 10 and r_in >= 0.4 and r_out <= 0.25 * r_in:
-                fixed = True
-        found.append(fixed)
+    rates = row_rates(grey, field_profile, reg, 1, ignore=ignore)
+    found = [tiles_end(rates, ax, 0, -1) or tiles_end(rates, ax, n - 1, n)
+             for ax, n in ((0, nx), (1, ny))]
     seen = ("a field edge is in view and the tiles end there",
             "no field edge where the tiles end is in view")
     what = ", ".join(f"{'xy'[ax]}: {seen[0] if ok else seen[1]}" for ax, ok in enumerate(found))
@@ -287,15 +234,20 @@ def pose_problem(reg: FrameRegistration, image_size, limits: CheckLimits, *,
     return ""
 
 
-def holdout_problem(points, reg: FrameRegistration, image_size, tile_size_m,
-                    limits: CheckLimits) -> str:
-    """Why a clicked point disagrees with the others, or '' (each point predicted by a
-    pose fitted to all the others, with the intrinsics held)."""
+def holdout_errors(points, reg: FrameRegistration, image_size):
+    """Each clicked point predicted by a pose fitted to all the others (intrinsics held).
+
+    Returns
+    -------
+    (ndarray (N,), ndarray (N,))
+        Floor error [m] and image error [px] of each point; empty with fewer than 6.
+    """
     px, fl = (np.asarray(a, float).reshape(-1, 2) for a in points)
     if len(px) < 6:
-        return ""
+        return np.zeros(0), np.zeros(0)
     k, d = reg.camera_matrix, reg.dist_coeffs
-    worst, at = 0.0, -1
+    err = np.full(len(px), np.nan)
+    err_px = np.full(len(px), np.nan)
     for i in range(len(px)):
         rest = np.arange(len(px)) != i
         try:
@@ -305,11 +257,18 @@ def holdout_problem(points, reg: FrameRegistration, image_size, tile_size_m,
         except CalibrationError:
             continue
         one = FrameRegistration(0.0, True, k, d, fit.rvec, fit.tvec, 0.0, 0.0, 0, "")
-        err = float(np.linalg.norm(one.image_to_floor(px[i:i + 1])[0] - fl[i]))
-        if err > worst:
-            worst, at = err, i
-    if worst > limits.max_holdout_tiles * tile_size_m:
-        return (f"point {at + 1} (u {px[at, 0]:.0f}, v {px[at, 1]:.0f} px) is {worst:.3f} m "
+        err[i] = float(np.linalg.norm(one.image_to_floor(px[i:i + 1])[0] - fl[i]))
+        err_px[i] = float(np.linalg.norm(one.floor_to_image(fl[i:i + 1])[0] - px[i]))
+    return err, err_px
+
+
+def _holdout_problem(points, err, tile_size_m, limits: CheckLimits) -> str:
+    if not np.isfinite(err).any():
+        return ""
+    at = int(np.nanargmax(err))
+    if err[at] > limits.max_holdout_tiles * tile_size_m:
+        px = np.asarray(points[0], float).reshape(-1, 2)
+        return (f"point {at + 1} (u {px[at, 0]:.0f}, v {px[at, 1]:.0f} px) is {err[at]:.3f} m "
                 "from where the other points put it; check that row")
     return ""
 
@@ -347,8 +306,14 @@ def check_reference(grey, field_profile: FieldProfile, reg: FrameRegistration,
                "focal_px": float(reg.camera_matrix[0, 0])}
     reason = pose_problem(reg, (w, h), limits, lens_known=facts.lens_known)
     if not reason and facts.points is not None:
-        reason = holdout_problem(facts.points, reg, (w, h), field_profile.tile_size_m,
-                                 limits)
+        err, err_px = holdout_errors(facts.points, reg, (w, h))
+        if np.isfinite(err_px).any():
+            # Prediction error beyond the residual: held-out residuals carry the point's
+            # own noise plus the model's error at a point it did not see.
+            loo2 = float(np.nanmean(err_px ** 2))
+            figures["holdout_rms_px"] = math.sqrt(loo2)
+            figures["prediction_px"] = math.sqrt(max(loo2 - reg.rms_px ** 2, 0.0))
+        reason = _holdout_problem(facts.points, err, field_profile.tile_size_m, limits)
     if reason or not facts.method.startswith("grid"):
         return CheckReport(reason, figures)
     ev = seam_evidence(grey, field_profile, reg, ignore=ignore)
@@ -361,13 +326,16 @@ def check_reference(grey, field_profile: FieldProfile, reg: FrameRegistration,
         return CheckReport(
             f"seams show half a tile off the grid as often as on it ({ev['offset_supported']:.0%}"
             f" against {ev['supported']:.0%} of the edges)", figures)
-    if ev["supported"] < limits.min_edge_support:
+    if ev["supported"] < limits.min_edge_support or (
+            ev["supported"] < limits.weak_support
+            and ev["offset_supported"] > limits.weak_offset_ratio * ev["supported"]):
         return CheckReport(
             f"seams were found on only {ev['supported']:.0%} of the tile edges the grid "
-            "predicts", figures)
+            f"predicts ({ev['offset_supported']:.0%} half a tile off)", figures)
     sub = subset_disagreement_m((w, h), field_profile, reg, samples)
     figures["subset_disagreement_m"] = sub
-    limit = max(limits.max_subset_m, limits.max_subset_tiles * field_profile.tile_size_m)
+    tiles = limits.max_subset_tiles if facts.lens_known else limits.max_subset_tiles_no_lens
+    limit = max(limits.max_subset_m, tiles * field_profile.tile_size_m)
     if sub > limit:
         return CheckReport(
             f"the left/right and top/bottom halves of the image disagree by {1000 * sub:.0f} "

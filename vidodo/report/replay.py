@@ -13,7 +13,7 @@ The frame also carries a readout (time, error per source in the display unit) an
 events active at that moment, with their floor position marked.
 
 Frames are streamed: one is decoded (in a background thread), annotated and handed to
-the encoder (its own process) at a time; each frame's time is taken as it is decoded.
+the encoder at a time, with its time as it was decoded (one decoding pass).
 Cost (``benchmarks/replay_speed.py``): by default the replay is half the footage's size
 (:data:`DEFAULT_SCALE`; ``scale=1`` for full size) and encoded with a fast x264 preset
 (:data:`ENCODER_PRESET`); the floor is registered when the tracker would register it
@@ -24,7 +24,6 @@ Cost (``benchmarks/replay_speed.py``): by default the replay is half the footage
 from __future__ import annotations
 
 import math
-import shutil
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -43,6 +42,8 @@ __all__ = [
     "marker_points_m",
     "frame_overlay",
     "annotate_frame",
+    "ReplaySetup",
+    "ReplayStyle",
     "write_replay",
     "replay_from_grade",
 ]
@@ -390,15 +391,25 @@ def _replay_size(shape, scale: float) -> tuple[int, int]:
     return max(2, int(round(w * scale / 2)) * 2), max(2, int(round(h * scale / 2)) * 2)
 
 
-def _increasing(times: list) -> np.ndarray:
-    """Frame times made strictly increasing and not negative, as the encoder needs [s]."""
-    t = np.asarray(times, float)
-    if not t.size:
-        return t
-    for i in range(1, t.size):
-        if not t[i] > t[i - 1]:
-            t[i] = t[i - 1] + 1e-3
-    return t - min(0.0, t[0])
+class _Increasing:
+    """Frame times made strictly increasing and not negative, as the encoder needs, one
+    at a time as they are decoded [s] (a time not after the previous one becomes the
+    previous one + 1 ms; all are shifted so that the first is not negative)."""
+
+    def __init__(self):
+        self._first = self._prev = None
+
+    def __bool__(self) -> bool:
+        return self._prev is not None
+
+    def __call__(self, t_s: float) -> float:
+        t = float(t_s)
+        if self._prev is not None and not t > self._prev:
+            t = self._prev + 1e-3
+        if self._first is None:
+            self._first = t
+        self._prev = t
+        return t - min(0.0, self._first)
 
 
 def _register_fn(registration, field, camera):
@@ -429,10 +440,49 @@ def _register_fn(registration, field, camera):
     return register
 
 
-def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, out_path, *,
-                 robot=None, field=None, camera=None, sources: dict | None = None,
-                 registration=None, marker=None, units: str = "mm", trail_s: float = 3.0,
-                 codec: str = "h264", progress=None, scale: float | None = None) -> Path:
+@dataclass(frozen=True)
+class ReplaySetup:
+    """What the replay needs to know about the run besides its tables."""
+
+    robot: object = None
+    """RobotProfile: its first marker's offset and height place the rings; its box is
+    masked out of the floor registration."""
+    field: object = None
+    """FieldProfile; needed unless ``registration`` is given."""
+    camera: object = None
+    """CameraProfile (lens) for the floor registration."""
+    registration: object = None
+    """One FrameRegistration for every frame (fixed camera); a registrar (e.g. the one
+    the tracker used, which saves registering the first frame from scratch again) run
+    when :class:`vidodo.track.RegistrationPolicy` says so (as while tracking); or
+    ``f(frame_bgr, t_s, mask) -> FrameRegistration`` called on every frame. Default: a
+    new :class:`vidodo.registration.registrar.FloorRegistrar` for ``field`` and
+    ``camera``, run as a registrar."""
+    marker: object = None
+    """The Marker whose position is drawn (default: the robot's first marker; without
+    either, the robot's reference point on the floor)."""
+    sources: dict | None = None
+    """Source display name -> drift column prefix (default: every source in the
+    drift table)."""
+
+
+@dataclass(frozen=True)
+class ReplayStyle:
+    """How the replay looks."""
+
+    units: str = "mm"
+    """Display unit of the readout: 'mm', 'in' or 'm'."""
+    trail_s: float = 3.0
+    """Track length drawn behind each pose [s]."""
+    codec: str = "h264"
+    """Codec for :func:`vidodo.encode.write_video` ('h264' plays in browsers)."""
+    scale: float | None = None
+    """Replay size relative to the footage, in (0, 1]; default :data:`DEFAULT_SCALE`."""
+
+
+def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, out_path,
+                 setup: ReplaySetup | None = None, style: ReplayStyle | None = None, *,
+                 progress=None) -> Path:
     """Write the annotated replay of a run.
 
     Parameters
@@ -443,32 +493,10 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
         Grade outputs (DEVELOPERS.md, "Grade outputs").
     out_path : path
         The mp4 to write.
-    robot : RobotProfile, optional
-        Its first marker's offset and height place the rings; its box is masked out of
-        the floor registration.
-    field : FieldProfile
-        Needed unless ``registration`` is given.
-    camera : CameraProfile, optional
-        Lens profile for the floor registration.
-    sources : dict, optional
-        Source display name -> drift column prefix.
-    registration : FrameRegistration, FloorRegistrar or callable, optional
-        One registration for every frame (fixed camera); a registrar (e.g. the one the
-        tracker used, which saves registering the first frame from scratch again) run
-        when :class:`vidodo.track.RegistrationPolicy` says so (as while tracking); or
-        ``f(frame_bgr, t_s, mask) -> FrameRegistration`` called on every frame. Default:
-        a new :class:`vidodo.registration.registrar.FloorRegistrar` for ``field`` and
-        ``camera``, run as a registrar.
-    marker : Marker, optional
-        The marker whose position is drawn (default: the robot's first marker; without
-        either, the robot's reference point on the floor).
-    units : {'mm', 'in', 'm'}
-        Display unit of the readout.
-    trail_s : float
-        Track length drawn behind each pose [s].
-    codec : str
-        Codec for :func:`vidodo.encode.write_video` ('h264' plays in browsers); without
-        ffmpeg the file is written by OpenCV as MPEG-4 part 2.
+    setup : ReplaySetup, optional
+        Robot, field and camera profiles, or a registration; marker; sources.
+    style : ReplayStyle, optional
+        Display unit, trail length [s], codec, size.
     progress : callable, optional
         ``progress(done, total)`` per frame.
     scale : float, optional
@@ -481,15 +509,17 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
     """
     from ..video import VideoReader, VideoTruncatedError
 
+    setup, style = setup or ReplaySetup(), style or ReplayStyle()
+    robot, marker = setup.robot, setup.marker
     video_path, out_path = Path(video_path), Path(out_path)
-    sources = source_prefixes(drift) if sources is None else sources
+    sources = source_prefixes(drift) if setup.sources is None else setup.sources
     tracks = ReplayTracks.from_tables(drift, events, sources)
     colors = {n: _hex_to_bgr(c) for n, c in source_colors(sources).items()}
     if marker is None and robot is not None and robot.markers:
         marker = robot.markers[0]
-    register = _register_fn(registration, field, camera)
-    times: list[float] = []
-    scale = DEFAULT_SCALE if scale is None else float(scale)
+    register = _register_fn(setup.registration, setup.field, setup.camera)
+    times = _Increasing()
+    scale = DEFAULT_SCALE if style.scale is None else float(style.scale)
     _replay_size((2, 2), scale)  # a bad scale fails before anything is decoded
     steps = np.diff(tracks.t_s)
     gap = 0.6 * float(np.median(steps)) if steps.size else 0.05  # a row per frame
@@ -500,8 +530,8 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
             total = reader.info.frame_count or None
             try:
                 for index, t_s, frame in reader:
-                    times.append(t_s)
-                    yield annotated(index, t_s, frame)
+                    t_out = times(t_s)  # the encoder takes each frame's time with it
+                    yield annotated(index, t_s, frame), t_out
                     if progress is not None:
                         progress(index + 1, total)
             except VideoTruncatedError:
@@ -522,8 +552,8 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
         if (w, h) != (w0, h0):
             frame = cv2.resize(frame, (w, h), interpolation=cv2.INTER_AREA)
             reg = None if reg is None else _Resized(reg, w / w0, h / h0)
-        ov = frame_overlay(tracks, row, reg, marker=marker, trail_s=trail_s)
-        lines = readout_lines(tracks, row, t_s, colors, units)
+        ov = frame_overlay(tracks, row, reg, marker=marker, trail_s=style.trail_s)
+        lines = readout_lines(tracks, row, t_s, colors, style.units)
         if not getattr(reg, "ok", False):
             lines.append(("floor not registered in this frame", (0, 0, 255)))
         return annotate_frame(frame, ov, lines=lines, colors=colors)
@@ -531,8 +561,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
     from ..encode import write_video
 
     out_path.parent.mkdir(parents=True, exist_ok=True)
-    write_video(out_path, frames(), lambda: _increasing(times),
-                codec=codec if shutil.which("ffmpeg") else "mpeg4", crf=ENCODER_CRF,
+    write_video(out_path, frames(), codec=style.codec, crf=ENCODER_CRF,
                 preset=ENCODER_PRESET)
     return out_path
 
@@ -576,6 +605,7 @@ def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,
     field = load_field(field_path) if field_path is not None else data.field
     cam_path = find("camera", required=False)
     camera = load_camera(cam_path) if cam_path is not None else None
-    return write_replay(video, data.drift, data.events, out_path, robot=robot, field=field,
-                        camera=camera, sources=data.sources, registration=registration,
-                        units=units, progress=progress, scale=scale)
+    setup = ReplaySetup(robot=robot, field=field, camera=camera, registration=registration,
+                        sources=data.sources)
+    return write_replay(video, data.drift, data.events, out_path, setup,
+                        ReplayStyle(units=units, scale=scale), progress=progress)

@@ -58,7 +58,7 @@ from .render_robot import (
     shadow_corners,
 )
 
-__all__ = ["render_frames", "camera_rays", "floor_points"]
+__all__ = ["RenderSettings", "render_frames", "camera_rays", "floor_points"]
 
 MAX_BLOCK_SAMPLES = 1_500_000
 """Ray samples cast at once (bounds memory when the robot fills the picture)."""
@@ -488,12 +488,33 @@ def _coarse_grid(camera: CameraProfile) -> _CoarseGrid:
 
 
 # ---------------------------------------------------------------- public API
+@dataclass(frozen=True)
+class RenderSettings:
+    """Exposure, noise, seeds and sampling of the synthetic camera."""
+
+    exposure_s: float = 0.0
+    """Exposure time of each row [s] (0: no motion blur)."""
+    noise_sigma: float = 0.0
+    """Standard deviation of the sensor noise [grey levels]."""
+    seed: int = 0
+    """Seed of the sensor noise (frame ``i`` uses the generator seeded ``[seed, i]``)."""
+    floor_seed: int = 0
+    """Seed of the floor's tile colours and surface texture."""
+    samples_per_px: int | None = None
+    """Samples per pixel in the robot's region (space and exposure time). Default: 8,
+    raised with the motion blur length (one sample per ~0.75 px, at most 32)."""
+    floor_texel_m: float | None = None
+    """Floor texture resolution [m]; default from the finest floor footprint in view."""
+    quiet_modules: int = 1
+    """White border around each printed marker [modules]."""
+    contact_shadow: float = SHADOW_DEPTH
+    """Darkening of the floor at the chassis edge, fading over a few centimetres
+    (ambient occlusion under the robot); 0 for none."""
+
+
 def render_frames(field: FieldProfile, robot: RobotProfile, camera: CameraProfile, *,
                   frame_times_s, pose_at: Callable, camera_pose_at: Callable,
-                  exposure_s: float, noise_sigma: float, seed: int, floor_seed: int = 0,
-                  samples_per_px: int | None = None, floor_texel_m: float | None = None,
-                  quiet_modules: int = 1,
-                  contact_shadow: float = SHADOW_DEPTH) -> Iterator[np.ndarray]:
+                  settings: RenderSettings | None = None) -> Iterator[np.ndarray]:
     """Render the frames of a synthetic run, one at a time.
 
     Parameters
@@ -513,42 +534,28 @@ def render_frames(field: FieldProfile, robot: RobotProfile, camera: CameraProfil
         ``camera_pose_at(t float) -> (rvec, tvec)``: floor -> camera pose (OpenCV
         convention, ``X_cam = R X_floor + t``). Called at the top-row and bottom-row
         read times of each frame; rows in between are interpolated linearly.
-    exposure_s : float
-        Exposure time of each row [s] (0: no motion blur).
-    noise_sigma : float
-        Standard deviation of the sensor noise [grey levels].
-    seed : int
-        Seed of the sensor noise (frame ``i`` uses the generator seeded ``[seed, i]``).
-    floor_seed : int
-        Seed of the floor's tile colours and surface texture.
-    samples_per_px : int, optional
-        Samples per pixel in the robot's region (space and exposure time). Default:
-        8, raised with the motion blur length (one sample per ~0.75 px, at most 32).
-    floor_texel_m : float, optional
-        Floor texture resolution [m]; default from the finest floor footprint in view.
-    quiet_modules : int
-        White border around each printed marker [modules].
-    contact_shadow : float
-        Darkening of the floor at the chassis edge, fading over a few centimetres
-        (ambient occlusion under the robot); 0 for none.
+    settings : RenderSettings, optional
+        Exposure [s], noise [grey levels], seeds, sampling (default: no blur, no noise).
 
     Yields
     ------
     ndarray of shape (height_px, width_px, 3), uint8
         BGR frame.
     """
+    st = settings or RenderSettings()
     times = np.asarray(frame_times_s, dtype=float).ravel()
     if not np.all(np.isfinite(times)):
         raise InputError("render: frame_times_s must be finite")
-    if exposure_s < 0 or noise_sigma < 0:
+    if st.exposure_s < 0 or st.noise_sigma < 0:
         raise InputError("render: exposure_s and noise_sigma must not be negative")
-    if samples_per_px is not None and samples_per_px < 1:
+    if st.samples_per_px is not None and st.samples_per_px < 1:
         raise InputError("render: samples_per_px must be at least 1")
-    if seed < 0 or floor_seed < 0:
+    if st.seed < 0 or st.floor_seed < 0:
         raise InputError("render: seed and floor_seed must not be negative")
-    return _frames(field, robot, camera, times, pose_at, camera_pose_at, float(exposure_s),
-                   float(noise_sigma), int(seed), int(floor_seed), samples_per_px,
-                   floor_texel_m, quiet_modules, contact_shadow)
+    return _frames(field, robot, camera, times, pose_at, camera_pose_at,
+                   float(st.exposure_s), float(st.noise_sigma), int(st.seed),
+                   int(st.floor_seed), st.samples_per_px, st.floor_texel_m, st.quiet_modules,
+                   st.contact_shadow)
 
 
 def _checked_camera_pose(camera_pose_at, t):

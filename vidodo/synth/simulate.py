@@ -238,8 +238,10 @@ def _write_video(sc, seed, m: Motion, t_frames, cam_pose, path, progress):
 
     frames = render.render_frames(
         sc.field, sc.robot, sc.camera_profile(), frame_times_s=t_frames, pose_at=m.pose_at,
-        camera_pose_at=cam_pose, exposure_s=sc.video.exposure_s,
-        noise_sigma=sc.video.noise_sigma, seed=_render_seed(seed), floor_seed=sc.texture_seed)
+        camera_pose_at=cam_pose,
+        settings=render.RenderSettings(exposure_s=sc.video.exposure_s,
+                                       noise_sigma=sc.video.noise_sigma,
+                                       seed=_render_seed(seed), floor_seed=sc.texture_seed))
     total = len(t_frames)
     if progress is not None:
         progress(0, total)
