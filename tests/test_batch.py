@@ -92,6 +92,73 @@ def test_a_crashing_worker_fails_only_its_run(tmp_path):
     assert "worker process died" in recs[0]["error"]
 
 
+@pytest.fixture
+def local_cluster():
+    """A Dask cluster on this machine (two single-thread workers in this process,
+    loopback only), closed after the test."""
+    distributed = pytest.importorskip("distributed")
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
+                                  protocol="tcp", host="127.0.0.1",
+                                  dashboard_address=None) as cluster:
+        yield cluster
+
+
+def _comparable(records):
+    return [{k: v for k, v in r.items() if k != "seconds"} for r in records]
+
+
+def test_dask_backend_gives_the_local_results(tmp_path, local_cluster):
+    """The same records, table and exit code as the local pool; the bad run is reported
+    and the others graded (Dask's own LocalCluster is the reference scheduler)."""
+    runs = _fake_runs(tmp_path, N_RUNS, bad=(1,))
+    local = batch.grade_folders(runs, tmp_path, tmp_path / "out", {}, jobs=2,
+                                grade_fn=fake_grade)
+    seen = []
+    remote = batch.grade_folders(runs, tmp_path, tmp_path / "out", {}, grade_fn=fake_grade,
+                                 scheduler=local_cluster.scheduler_address,
+                                 on_done=lambda r: seen.append(r["run"]))
+    assert _comparable(remote) == _comparable(local)
+    assert sorted(seen) == sorted(r["run"] for r in local)
+    assert batch.exit_code_for(remote) == EXIT_PARTIAL
+    pd.testing.assert_frame_equal(batch.batch_table(remote).drop(columns="seconds"),
+                                  batch.batch_table(local).drop(columns="seconds"))
+
+
+def slow_grade(run_dir, out_dir, options):
+    """Stand-in taking a while, leaving a file when it ran to the end."""
+    import time
+
+    time.sleep(0.4)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    (out_dir / "done").write_text("")
+    return fake_grade(run_dir, out_dir, options)
+
+
+def test_dask_interrupt_cancels_the_tasks_not_done(tmp_path, local_cluster):
+    """Ctrl-C (KeyboardInterrupt) while waiting: the queued runs never start."""
+    import time
+
+    runs = _fake_runs(tmp_path, 8)
+
+    def interrupt(rec):
+        raise KeyboardInterrupt
+
+    with pytest.raises(KeyboardInterrupt):
+        batch.grade_folders(runs, tmp_path, tmp_path / "out", {}, grade_fn=slow_grade,
+                            scheduler=local_cluster.scheduler_address, on_done=interrupt)
+    time.sleep(2.0)  # long enough for all eight to finish had they not been cancelled
+    done = list((tmp_path / "out").rglob("done"))
+    assert 1 <= len(done) < len(runs)
+
+
+def test_dask_unreachable_scheduler_is_bad_input(tmp_path):
+    pytest.importorskip("distributed")
+    runs = _fake_runs(tmp_path, 1)
+    with pytest.raises(InputError, match="cannot connect"):
+        batch.grade_folders(runs, tmp_path, tmp_path / "out", {}, grade_fn=fake_grade,
+                            scheduler="tcp://127.0.0.1:9")
+
+
 def test_exit_codes():
     g = {"status": "graded"}
     f = {"status": "failed"}

@@ -103,3 +103,20 @@ def test_times_hold_to_the_90khz_clock(tmp_path):
     path = tmp_path / "long.mp4"
     write_video(path, (np.full((64, 96, 3), i % 255, np.uint8) for i in range(t.size)), t)
     assert np.abs(_ffprobe_times(path) - t).max() < 6e-6
+
+
+def test_times_with_the_frames(tmp_path):
+    """Times handed over with each frame, as while decoding footage, are written exactly
+    as the same times given up front (no frame is held back: each packet's time is known
+    before it is muxed)."""
+    rng = np.random.default_rng(1)
+    t = 0.21 + np.cumsum(rng.uniform(1 / 40, 1 / 20, 40))
+    path = tmp_path / "paired.mp4"
+    write_video(path, ((np.full((64, 96, 3), i * 5, np.uint8), t_s)
+                       for i, t_s in enumerate(t)))
+    assert np.abs(_ffprobe_times(path) - t).max() < 6e-6
+    with pytest.raises(InputError, match="frame 2 time"):
+        write_video(path, zip(_frames(3), [0.0, 0.1, 0.1], strict=True))
+    with pytest.raises(InputError, match="not a \\(frame, t_s\\) pair"):
+        write_video(tmp_path / "y.mp4", _frames(3))
+    assert list(tmp_path.iterdir()) == [path]

@@ -21,6 +21,7 @@ from vidodo.outputs import column_prefix
 from vidodo.pipeline import GradeSettings, Tolerances, grade_run, read_track_csv
 from vidodo.profiles import load_robot
 from vidodo.report.grade_files import write_outputs
+from vidodo.timings import STAGES
 
 SIGMA_M = 0.0015
 SIGMA_RAD = math.radians(0.3)
@@ -181,6 +182,9 @@ def test_grade_verb_exit_codes(rendered_run, tmp_path, capsys):
     assert "FAIL" in out and "verdict: fail" in out
     s = json.loads((tmp_path / "out" / "summary.json").read_text())
     assert s["verdict"] == "fail"
+    t = s["timings_s"]  # track given: no decoding; no footage: no replay
+    assert t["decode"] is None and t["replay"] is None
+    assert t["sync"] > 0 and t["events"] > 0 and t["pictures"] > 0
 
 
 def test_no_overlap_is_could_not_measure(rendered_run, tmp_path):
@@ -257,3 +261,7 @@ def test_grade_rendered_video_end_to_end(rendered_run, tmp_path):
     assert abs(float(res.clock.to_video(t_mid) - true_video_time(run, t_mid))) < 1 / 30
     write_outputs(res, tmp_path)
     assert (tmp_path / "drift.csv").is_file()
+    t = res.summary["timings_s"]
+    assert list(t)[:8] == list(STAGES)
+    assert all(t[k] > 0 for k in ("decode", "register", "detect", "smooth", "sync", "events"))
+    assert t["pictures"] is None and t["replay"] is None

@@ -87,7 +87,7 @@ def graded(handheld, tmp_path_factory):
     run = handheld
     common = [str(run / "video.mp4"), str(run / "log.csv"), "--robot", str(run / "robot.toml"),
               "--field", str(run / "field.toml"), "--camera", str(run / "camera.toml"),
-              "--quiet"]
+              "--replay-scale", "1", "--quiet"]  # full size: rings compared with the footage
     points = _points_csv(run, root / "points.csv")
     out = {}
     for name, extra in (("automatic", []), ("points", ["--points", str(points)])):

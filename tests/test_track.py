@@ -685,7 +685,7 @@ def test_registration_policy_still_moving_and_bumped():
     by hand drifts by pixels per second); the policy never sees the truth, only
     registrations."""
     from vidodo.profiles import FieldProfile
-    from vidodo.track import _RegistrationPolicy
+    from vidodo.track import RegistrationPolicy
 
     field = FieldProfile(6, 6, 0.6096)
     fps = 30.0
@@ -700,7 +700,7 @@ def test_registration_policy_still_moving_and_bumped():
                 return _ShiftedRegistration(shift(t_s))
 
         reg = Registrar()
-        policy = _RegistrationPolicy(reg, field)
+        policy = RegistrationPolicy(reg, field)
         for i, ts in enumerate(t):
             policy.update(None, i, ts)
         return np.array(reg.calls), policy

@@ -81,19 +81,26 @@ def grade_run_folder(run_dir, out_dir, *, tolerances=None, report=True, replay=T
     if missing:
         raise InputError(f"{run_dir}: missing {', '.join(missing)}; a run folder needs "
                          f"{', '.join(RUN_FILES)}")
+    from .profiles import load_camera, load_field
+    from .registration.registrar import FloorRegistrar
+
     cam = run_dir / "camera.toml"
+    field = load_field(run_dir / "field.toml")
+    camera = load_camera(cam) if cam.is_file() else None
+    registrar = FloorRegistrar(field, camera)  # handed on to the replay
     # one staged set: grade files, tune folder and pictures appear together or not at all
     with staged_dir(out_dir, inputs=(run_dir,), command="vidodo grade") as stage:
         result = grade_run(run_dir / "video.mp4", run_dir / "log.csv",
-                           run_dir / "robot.toml", run_dir / "field.toml",
-                           cam if cam.is_file() else None,
-                           settings=GradeSettings(tolerances=tolerances or Tolerances()),
+                           run_dir / "robot.toml", field, camera,
+                           settings=GradeSettings(tolerances=tolerances or Tolerances(),
+                                                  registrar=registrar),
                            progress=progress)
         write_outputs(result, stage)
         if tune:
             tune_from_grade(result, run_dir, stage / "tune")
         if report or replay:
-            write_report(stage, stage, replay=replay, units=units, progress=progress)
+            write_report(stage, stage, replay=replay, units=units, progress=progress,
+                         registrar=registrar)
     return result
 
 
@@ -139,7 +146,7 @@ def grade_one(run_dir, out_dir, options: dict) -> dict:
     run_dir, out_dir : path
     options : dict
         ``tol_pos_m``, ``tol_heading_rad`` (None for no tolerance), ``report`` (bool),
-        ``replay`` (bool), ``units``.
+        ``replay`` (bool), ``units``, ``replay_scale`` (None for the default).
 
     Returns
     -------
@@ -160,7 +167,8 @@ def grade_one(run_dir, out_dir, options: dict) -> dict:
             if options.get("report", True) or options.get("replay", False):
                 try:
                     write_report(stage, stage, replay=bool(options.get("replay")),
-                                 units=options.get("units", "mm"))
+                                 units=options.get("units", "mm"),
+                                 replay_scale=options.get("replay_scale"))
                 except VidodoError as exc:  # the grade stands; the pictures are extra
                     warnings.append(f"report not written: {exc}")
         return {"status": "graded", "exit_code": 4 if summary.get("verdict") == "fail" else 0,
@@ -184,8 +192,8 @@ def _one_line(exc) -> str:
 
 # ------------------------------------------------------------------ many runs
 def grade_folders(run_dirs, root, out_root, options: dict, *, jobs: int = 1,
-                  grade_fn=grade_one, on_done=None) -> list[dict]:
-    """Grade many run folders in worker processes.
+                  grade_fn=grade_one, on_done=None, scheduler=None) -> list[dict]:
+    """Grade many run folders in worker processes, or on a Dask cluster.
 
     Parameters
     ----------
@@ -203,6 +211,9 @@ def grade_folders(run_dirs, root, out_root, options: dict, *, jobs: int = 1,
         importable by name (it runs in a freshly started process).
     on_done : callable, optional
         ``on_done(record)`` after each run (for progress and printing).
+    scheduler : str or distributed.Client, optional
+        A Dask scheduler's address: the runs are tasks on its workers
+        (:mod:`vidodo.batch_dask`) instead of local processes; ``jobs`` is then unused.
 
     Returns
     -------
@@ -249,6 +260,12 @@ def grade_folders(run_dirs, root, out_root, options: dict, *, jobs: int = 1,
                 raise
         return lost
 
+    if scheduler is not None:
+        from .batch_dask import grade_folders_dask
+
+        grade_folders_dask(run_dirs, names, out_root, options, scheduler,
+                           grade_fn=grade_fn, finish=finish)
+        return [records[i] for i in range(len(run_dirs))]
     lost = attempt(pending, max(1, min(jobs, len(pending)))) if pending else []
     # a worker died (a crash in native code): retry the runs it took down one by one,
     # so only the run that crashes is reported as failed

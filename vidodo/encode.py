@@ -7,7 +7,9 @@ rate for rate control, without B-frames so that packets leave the encoder in
 presentation order, and stamps packet ``i`` with ``frame_times_s[i]`` on a 90 kHz
 clock before it is muxed. The MP4 muxer then writes the timing tables itself (one
 ``stts`` delta per frame, ISO/IEC 14496-12 sec. 8.6.1.2, and an edit list delaying the
-first frame to ``frame_times_s[0]``, sec. 8.6.6).
+first frame to ``frame_times_s[0]``, sec. 8.6.6). Packet ``i`` leaves the encoder only
+after frame ``i`` went in, so the times may also come one by one with the frames (pairs
+``(frame, t_s)``, as while decoding footage): each is known before its packet is muxed.
 
 Readers see these times through ffprobe's ``pts_time`` and OpenCV's
 ``CAP_PROP_POS_MSEC`` after ``read()``; OpenCV counts from the first frame, so it
@@ -18,6 +20,7 @@ most 5.6 us off).
 
 from __future__ import annotations
 
+import math
 import os
 from collections.abc import Iterable
 from fractions import Fraction
@@ -57,7 +60,30 @@ def _check_times(frame_times_s) -> np.ndarray:
     return t
 
 
-def write_video(path, frames: Iterable[np.ndarray], frame_times_s, *, codec="h264", crf=18,
+def _unpaired(pairs, ticks: list, path):
+    """The frames of ``(frame, t_s)`` pairs; each time is checked as :func:`_check_times`
+    checks a whole array and appended to ``ticks`` (90 kHz, rounded as there) before its
+    frame is handed on."""
+    prev = None
+    for i, item in enumerate(pairs):
+        if not isinstance(item, tuple) or len(item) != 2:
+            raise InputError(f"{path}: item {i} is not a (frame, t_s) pair; give the frame "
+                             "times with the frames or as frame_times_s")
+        frame, t_s = item
+        t_s = float(t_s)
+        if not math.isfinite(t_s) or (prev is None and t_s < 0):
+            raise InputError("write_video: frame_times_s must be finite and not negative")
+        if prev is not None and not t_s > prev:
+            raise InputError(
+                f"write_video: frame {i} time {t_s:.6f} s does not come after frame {i - 1} "
+                f"({prev:.6f} s); frame times must strictly increase"
+            )
+        ticks.append(int(np.round(np.float64(t_s) * TIMESCALE_HZ)))
+        prev = t_s
+        yield frame
+
+
+def write_video(path, frames: Iterable, frame_times_s=None, *, codec="h264", crf=18,
                 fps_nominal=30.0, preset="veryfast") -> None:
     """Encode BGR frames to an MP4 whose frame ``i`` is presented at ``frame_times_s[i]``.
 
@@ -68,10 +94,14 @@ def write_video(path, frames: Iterable[np.ndarray], frame_times_s, *, codec="h26
     ----------
     path : str or Path
         Output file (.mp4).
-    frames : iterable of ndarray of shape (H, W, 3), uint8
-        BGR frames, all the same size; H and W must be even.
-    frame_times_s : array_like of shape (N,)
-        Presentation time of each frame, strictly increasing, first >= 0 [s].
+    frames : iterable of ndarray of shape (H, W, 3), uint8, or of (frame, t_s) pairs
+        BGR frames, all the same size; H and W must be even. Without
+        ``frame_times_s``, each item is a pair ``(frame, t_s)``: the frame with its
+        presentation time [s] (for a stream whose times come with its frames, such as
+        one being decoded; only the times are kept, never the frames).
+    frame_times_s : array_like of shape (N,), optional
+        Presentation time of each frame, strictly increasing, first >= 0 [s]; None
+        when the times come with the frames.
     codec : {'h264', 'hevc', 'mpeg4'}
         Video codec (x264, x265, or FFmpeg's MPEG-4 part 2 encoder).
     crf : float
@@ -90,14 +120,20 @@ def write_video(path, frames: Iterable[np.ndarray], frame_times_s, *, codec="h26
     VidodoError
         The encoder failed (its message is included, on one line).
     """
-    t = _check_times(frame_times_s)
+    paired = frame_times_s is None
+    t = None if paired else _check_times(frame_times_s)
     codec = {"h265": "hevc", "x264": "h264", "x265": "hevc"}.get(codec, codec)
     if codec not in CODECS:
         raise InputError(f"write_video: codec {codec!r} unknown; use one of {sorted(CODECS)}")
     if not (fps_nominal > 0):
         raise InputError(f"write_video: fps_nominal must be positive, got {fps_nominal}")
     path = Path(path)
-    it = iter(frames)
+    if paired:
+        ticks = []  # filled while the frames are read: frame k's tick before it is encoded
+        it = _unpaired(frames, ticks, path)
+    else:
+        ticks = np.round(t * TIMESCALE_HZ).astype(np.int64)
+        it = iter(frames)
     try:
         first = next(it)
     except StopIteration:
@@ -105,13 +141,12 @@ def write_video(path, frames: Iterable[np.ndarray], frame_times_s, *, codec="h26
     h, w = _check_frame(first, 0, None, path)
     if h % 2 or w % 2:
         raise InputError(f"{path}: frame size {w}x{h} must be even for 4:2:0 video")
-    ticks = np.round(t * TIMESCALE_HZ).astype(np.int64)
     with atomic_file(path) as tmp:
         n = _encode(tmp, first, it, ticks, codec, (h, w),
                     _quality(codec, crf, preset), fps_nominal, path)
-        if n != t.size:
+        if n != len(ticks):
             raise InputError(
-                f"{path}: got {n} frames but {t.size} frame times; give one time per frame"
+                f"{path}: got {n} frames but {len(ticks)} frame times; give one time per frame"
             )
         _usual_mode(tmp)
 

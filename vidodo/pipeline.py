@@ -48,6 +48,7 @@ from .odometry import odometry_result, rim_travel
 from .profiles import FieldProfile, RobotProfile, load_camera, load_field, load_robot
 from .se2 import interpolate_poses
 from .sync import ClockSync, estimate_clock, manual_clock
+from .timings import StageTimes, merged
 
 __all__ = ["Tolerances", "GradeSettings", "GradeResult", "grade_run", "grade_tracks",
            "read_track_csv", "TRACK_COLUMNS"]
@@ -292,6 +293,8 @@ def grade_tracks(truth, log, robot, settings: GradeSettings | None = None, *, od
     GradeResult
     """
     settings = settings or GradeSettings()
+    times = StageTimes()
+    tracked_s = getattr(truth, "timings_s", None)
     truth, quality, warn = _truth_parts(truth)
     missing = [c for c in _REQUIRED if c not in truth.columns]
     if missing:
@@ -302,16 +305,21 @@ def grade_tracks(truth, log, robot, settings: GradeSettings | None = None, *, od
         od = odometry_result(log, robot)
         odometry = od.tracks
         warn += list(od.warnings)
-    clock = _clock_step(truth, odometry, settings.clock_offset_s, quality, warn)
+    with times.stage("sync"):
+        clock = _clock_step(truth, odometry, settings.clock_offset_s, quality, warn)
     ref = _reference_step(truth, warn)
-    video_tracks, covered = _video_clock_step(odometry, clock, ref, warn)
-    ev = _events_step(ref, log, robot, clock, {n: video_tracks[n] for n in covered},
-                      settings.events, warn)
+    with times.stage("sync"):
+        video_tracks, covered = _video_clock_step(odometry, clock, ref, warn)
+    with times.stage("events"):
+        ev = _events_step(ref, log, robot, clock, {n: video_tracks[n] for n in covered},
+                          settings.events, warn)
     graded = {name: _source_step(name, p, video_tracks[name], ref, ev.events, warn,
                                  float(clock.sigma_s or 0.0))
               for name, p in covered.items()}
-    return _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn,
-                         inputs=inputs, field=field)
+    result = _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn,
+                           inputs=inputs, field=field)
+    return replace(result, summary={**result.summary,
+                                    "timings_s": merged(tracked_s, times.as_dict())})
 
 
 def _clock_step(truth, odometry, clock_offset_s, quality, warn) -> ClockSync:

@@ -22,6 +22,7 @@ Only a few frames are held at once (see :class:`vidodo.video.VideoReader`).
 from __future__ import annotations
 
 import math
+import time
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field, replace
 
@@ -33,6 +34,7 @@ from . import apriltag3
 from .errors import InputError, TrackingError
 from .profiles import marker_corners_local
 from .smooth import rts_smooth_signals
+from .timings import StageTimes
 from .video import VideoReader, VideoTruncatedError, readout_fraction
 
 __all__ = [
@@ -41,6 +43,7 @@ __all__ = [
     "MarkerDetector",
     "PoseFix",
     "fit_pose",
+    "RegistrationPolicy",
     "track_frames",
     "track_video",
     "save_track_csv",
@@ -139,6 +142,9 @@ class TrackResult:
     registrations: pd.DataFrame | None = None
     """Per frame: t_s, ok, rms_px, rms_floor_m of the registration in effect, and
     ``fresh`` (registered on this very frame)."""
+    timings_s: dict = field(default_factory=dict)
+    """Seconds per stage (``decode``, ``register``, ``detect``, ``smooth``; see
+    :mod:`vidodo.timings`)."""
 
 
 # --------------------------------------------------------------------- detection
@@ -532,7 +538,7 @@ def fit_pose(detections, markers, registration) -> PoseFix | None:
 
 
 # ------------------------------------------------------------ registration policy
-class _RegistrationPolicy:
+class RegistrationPolicy:
     """Decides when to register the floor again and keeps the one in effect.
 
     ``every`` = int registers every that many frames. ``'auto'`` registers every frame
@@ -636,6 +642,7 @@ class _FrameRecords:
     upscaled: int = 0
     corner_frac: dict = field(default_factory=dict)  # frame index -> (N,) fractions
     predicted_cells: list = field(default_factory=list)
+    times: StageTimes = field(default_factory=StageTimes)
 
 
 def _roi(last, prev, frame_shape, gap_frames, side_frac=None, pad_px=None):
@@ -718,7 +725,7 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
         Per-frame fixes and statistics (internal; see :func:`track_video`).
     """
     det = MarkerDetector(robot.markers, refine=refine, detector=detector)
-    policy = _RegistrationPolicy(registrar, field_profile, register_every)
+    policy = RegistrationPolicy(registrar, field_profile, register_every)
     acc = _FrameRecords() if acc is None else acc
     acc.detector = det
     acc.policy = policy
@@ -734,9 +741,11 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
         index, t_s, frame = coming
         coming = next(stream, None)
         acc.t.append(float(t_s))
-        reg, fresh = policy.update(
-            frame, index, t_s,
-            lambda f=last_fix, shp=frame.shape: _robot_mask(robot, f, policy.current, shp))
+        with acc.times.stage("register"):
+            reg, fresh = policy.update(
+                frame, index, t_s,
+                lambda f=last_fix, shp=frame.shape: _robot_mask(robot, f, policy.current, shp))
+        t_detect = time.perf_counter()
         if fresh and not acc.predicted_cells:
             cells = _far_field_cells(reg, robot.markers, field_profile, det.cells_across)
             if cells is not None:
@@ -817,6 +826,7 @@ def track_frames(frames, robot, field_profile, registrar, *, video_info=None,
             gap = coming[0] - last_index
             det.prefetch(coming[2], _context_roi(last, prev, coming[2].shape, gap),
                          SHRINK_PER_FRAME * last_side if gap <= 3 else None)
+        acc.times.add("detect", time.perf_counter() - t_detect)
     return acc
 
 
@@ -1387,7 +1397,7 @@ def track_video(video_path, robot, field, camera=None, *, registrar=None, progre
     threaded : bool
         Decode in a background thread.
     register_every : 'auto' or int
-        Floor registration policy (see ``_RegistrationPolicy``).
+        Floor registration policy (see ``RegistrationPolicy``).
     max_speed_mps : float
         Detections implying a faster jump than this are rejected [m/s].
 
@@ -1473,6 +1483,7 @@ def _track_video(video_path, robot, field, camera, registrar, progress, refine, 
         except VideoTruncatedError as exc:
             truncated = exc
         timing = reader.timing()
+        acc.times.add("decode", reader.decode_s)
     kw = dict(readout_s=readout_s, readout_source=source, max_gap_s=max_gap_s,
               corner_sigma_px=corner_sigma_px, field_profile=field, warnings=warnings,
               corner_bias_px=corner_bias_px)
@@ -1491,7 +1502,9 @@ def _track_video(video_path, robot, field, camera, registrar, progress, refine, 
             "the camera moved and there is no camera profile: the lens is estimated from "
             "the tile seams of each view, good to about a centimetre on the floor; "
             "calibrate it once with 'vidodo lens' for millimetres")
-    return _finish(acc, robot, info, timing, **kw)
+    with acc.times.stage("smooth"):
+        result = _finish(acc, robot, info, timing, **kw)
+    return replace(result, timings_s=acc.times.as_dict())
 
 
 # ------------------------------------------------------------------------- files

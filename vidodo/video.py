@@ -26,6 +26,7 @@ import queue
 import shutil
 import subprocess
 import threading
+import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -463,6 +464,9 @@ class VideoReader:
         self._latest = -math.inf  # latest timestamp handed out [s]
         self._stop = threading.Event()
         self._thread = None
+        self.decode_s = 0.0
+        """Seconds the decoder has spent producing the frames read so far [s] (in the
+        background thread when threaded)."""
 
     # -- context manager -------------------------------------------------------
     def __enter__(self):
@@ -493,6 +497,7 @@ class VideoReader:
                 (t_ms, frame), self._held = self._held, None
                 yield t_ms + start_ms, cv2.LUT(frame, self._lut)
                 continue
+            t0 = time.perf_counter()
             ok, frame = cap.read()
             if not ok or frame is None:
                 return
@@ -502,6 +507,7 @@ class VideoReader:
                         f"{self.path}: frame {len(self._t)} changed its pixel format "
                         "mid-stream; re-encode the video (e.g. to H.264 yuv420p)")
                 frame = cv2.LUT(frame, self._lut)
+            self.decode_s += time.perf_counter() - t0
             yield cap.get(cv2.CAP_PROP_POS_MSEC) + start_ms, frame
 
     def _threaded(self):

@@ -42,3 +42,19 @@ _FORCE_HELP = {
 def add_force(parser, kind: str = "folder") -> None:
     """``--force``: write over what the output rules would refuse (never an input)."""
     parser.add_argument("--force", action="store_true", help=_FORCE_HELP[kind])
+
+
+def add_replay_scale(parser):
+    """``--replay-scale S``: replay size relative to the footage (None: the default of
+    :data:`vidodo.report.replay.DEFAULT_SCALE`, not imported here: it would load the
+    plotting library at every start)."""
+
+    def scale(text):
+        v = float(text)
+        if not 0.0 < v <= 1.0:
+            raise argparse.ArgumentTypeError(f"must be in (0, 1], got {text}")
+        return v
+
+    parser.add_argument("--replay-scale", type=scale, metavar="FRACTION", default=None,
+                        help="replay size relative to the footage (default: half; 1 for "
+                        "full resolution)")

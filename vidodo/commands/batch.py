@@ -20,7 +20,7 @@ import sys
 from pathlib import Path
 
 from ..errors import InputError
-from ._options import add_force, add_out, add_switch, add_units
+from ._options import add_force, add_out, add_replay_scale, add_switch, add_units
 
 NAME = "batch"
 HELP = "grade every run folder under a directory, in parallel; one table for all"
@@ -39,8 +39,12 @@ def add_arguments(parser):
     add_out(parser, "output folder", required=True)
     parser.add_argument("--jobs", type=int, default=None,
                         help="worker processes (default: number of CPUs)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help="grade on a Dask cluster instead (e.g. tcp://host:8786; needs "
+                        "pip install 'vidodo[dask]' and the same paths on every worker)")
     add_units(parser, "printed lines and plots")
-    add_switch(parser, "replay", False, "write each run's annotated replay (slow)")
+    add_switch(parser, "replay", False, "write each run's annotated replay")
+    add_replay_scale(parser)
     add_switch(parser, "report", True, "write each run's plots and HTML report")
     parser.add_argument("--tol-pos-m", type=float, metavar="M",
                         help="largest final position error that passes [m]")
@@ -94,13 +98,15 @@ def run(args) -> int:
     options = {"tol_pos_m": args.tol_pos_m,
                "tol_heading_rad": None if args.tol_heading_deg is None
                else math.radians(args.tol_heading_deg),
-               "report": args.report, "replay": args.replay, "units": args.units}
+               "report": args.report, "replay": args.replay, "units": args.units,
+               "replay_scale": args.replay_scale}
     # the whole batch is one staged set: every run's folder, batch.csv and the trend
     with staged_dir(out_root, inputs=runs, force=args.force,
                     command="vidodo batch") as stage:
         with progress_bar(len(runs), "batch", unit="run", quiet=args.quiet) as bar:
             records = grade_folders(runs, args.dir, stage, options, jobs=jobs,
-                                    on_done=lambda rec: bar.update(1))
+                                    on_done=lambda rec: bar.update(1),
+                                    scheduler=args.scheduler)
         for rec in records:  # where the run's folder will be once the set is in place
             rec["out"] = str(out_root / rec["run"])
         write_batch_outputs(records, stage, unit=args.units)

@@ -9,7 +9,7 @@ from pathlib import Path
 from ..errors import EXIT_OK, EXIT_TOLERANCE, InputError, RegistrationRefused, VidodoError
 from ..units import length_factor
 from . import registration_options
-from ._options import add_force, add_old_spelling, add_out, add_switch, add_units
+from ._options import add_force, add_old_spelling, add_out, add_replay_scale, add_switch, add_units
 
 NAME = "grade"
 HELP = "measure the run from the video, line up the log, report drift and events"
@@ -46,6 +46,7 @@ def add_arguments(parser):
     add_switch(parser, "replay", True, "write the annotated replay video")
     add_switch(parser, "grid", True, "draw the registered tile grid, faint, in the replay")
     add_force(parser)
+    add_replay_scale(parser)
 
 
 def _fmt(v, scale, digits=0, unit=""):
@@ -141,7 +142,7 @@ def run(args) -> int:
         else:
             write_outputs(result, stage)
             if args.report:
-                _pictures(args, stage)
+                _pictures(args, stage, registrar)
     if refused is not None:
         raise refused
     for w in result.warnings:
@@ -153,7 +154,7 @@ def run(args) -> int:
     return EXIT_TOLERANCE if result.verdict == "fail" else EXIT_OK
 
 
-def _pictures(args, stage) -> None:
+def _pictures(args, stage, registrar=None) -> None:
     """Plots, report and replay into the staging folder (they appear with the rest)."""
     from ..progress import progress_bar
     from ..report.build import write_report
@@ -165,4 +166,4 @@ def _pictures(args, stage) -> None:
               "(graded from --track)", file=sys.stderr)
     with progress_bar(desc="report", quiet=args.quiet) as bar:
         write_report(stage, stage, replay=replay, units=args.units, progress=bar,
-                     grid=args.grid)
+                     grid=args.grid, replay_scale=args.replay_scale, registrar=registrar)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ._options import add_force, add_out, add_switch, add_units
+from ._options import add_force, add_out, add_replay_scale, add_switch, add_units
 
 NAME = "report"
 HELP = "rebuild the plots and the one-file HTML report from a grade folder"
@@ -27,6 +27,7 @@ def add_arguments(parser):
                "write replay.mp4 (the footage with tracks drawn in)")
     add_switch(parser, "grid", True, "draw the registered tile grid, faint, in the replay")
     add_force(parser)
+    add_replay_scale(parser)
 
 
 def run(args) -> int:
@@ -45,7 +46,8 @@ def run(args) -> int:
                     carry_over=True, command="vidodo report") as stage, \
             progress_bar(None, "replay", quiet=args.quiet or not args.replay) as bar:
         written = write_report(args.grade_dir, stage, replay=args.replay, units=args.units,
-                               progress=bar, grid=args.grid)
+                               progress=bar, grid=args.grid,
+                               replay_scale=args.replay_scale)
     if not args.quiet:
         for p in written:
             print(Path(out) / p.name)

@@ -46,11 +46,17 @@ def project_rows(obj, pose, rates, dt, camera_matrix, dist_coeffs, bands=32):
     lo, hi = float(dt.min()), float(dt.max())
     edges = np.linspace(lo, hi + 1e-12, bands + 1)
     idx = np.clip(np.searchsorted(edges, dt, side="right") - 1, 0, bands - 1)
-    for b in np.unique(idx):
-        sel = idx == b
+    # the points of each band as one slice of a stable sort (in their own order, so the
+    # band means are the same sums as with a mask per band, at a fraction of the cost)
+    order = np.argsort(idx, kind="stable")
+    bounds = np.searchsorted(idx[order], np.arange(bands + 1))
+    rvec, tvec = np.asarray(rvec, float), np.asarray(tvec, float)
+    for b in range(bands):
+        sel = order[bounds[b]:bounds[b + 1]]
+        if not sel.size:
+            continue
         d_b = float(dt[sel].mean())
-        out[sel] = cv2.projectPoints(obj[sel], np.asarray(rvec, float) + d_b * rvec_rate,
-                                     np.asarray(tvec, float) + d_b * tvec_rate,
+        out[sel] = cv2.projectPoints(obj[sel], rvec + d_b * rvec_rate, tvec + d_b * tvec_rate,
                                      camera_matrix, dist_coeffs)[0].reshape(-1, 2)
     return out
 

@@ -14,6 +14,8 @@ from pathlib import Path
 import pandas as pd
 
 from ..errors import InputError, VidodoError
+from ..outputs import atomic_file
+from ..timings import StageTimes, merged
 from .page import write_html
 from .plots import source_prefixes, write_plots
 
@@ -186,7 +188,8 @@ def _registration(data):
 
 
 def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: str = "mm",
-                 progress=None, grid: bool = True) -> list[Path]:
+                 progress=None, grid: bool = True, replay_scale: float | None = None,
+                 registrar=None) -> list[Path]:
     """Write the plots, the HTML report and (optionally) the annotated replay.
 
     Parameters
@@ -206,6 +209,12 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
         ``progress(done, total)`` for the replay's frames.
     grid : bool
         Draw the registered tile grid, faint, on every frame of the replay.
+    replay_scale : float, optional
+        Size of the replay relative to the footage (default
+        :data:`vidodo.report.replay.DEFAULT_SCALE`; 1 for full resolution).
+    registrar : FloorRegistrar, optional
+        The registrar the tracker used on this footage: the replay follows the floor
+        from where tracking left it instead of registering from scratch.
 
     Returns
     -------
@@ -213,6 +222,8 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
         The files written: three PNGs (plus ``robot.png`` when the robot profile
         named in the summary can be read, and ``plan.png`` when also the footage and
         field can), ``report.html`` and, if asked, ``replay.mp4``.
+        When ``out_dir`` holds the grade's ``summary.json``, the seconds spent on the
+        pictures and the replay are added to its ``timings_s``.
 
     Raises
     ------
@@ -225,12 +236,14 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
     folder = _grade_folder_of(grade_result_or_dir, out_dir)
     data = load_grade_dir(folder)
     title = _run_title(data.summary)
-    pngs = write_plots(data.drift, data.events, out_dir, field=data.field,
-                       sources=data.sources, unit=units, title=title)
-    pngs.update(robot_picture(data.summary, data.folder, out_dir))
-    from ..plan_picture import plan_of_grade
+    times = StageTimes()
+    with times.stage("pictures"):
+        pngs = write_plots(data.drift, data.events, out_dir, field=data.field,
+                           sources=data.sources, unit=units, title=title)
+        pngs.update(robot_picture(data.summary, data.folder, out_dir))
+        from ..plan_picture import plan_of_grade
 
-    pngs.update(plan_of_grade(data.summary, data.folder, out_dir))
+        pngs.update(plan_of_grade(data.summary, data.folder, out_dir))
     written = list(pngs.values())
     extra = []
     failure = None
@@ -238,8 +251,10 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
         from .replay import replay_from_grade
 
         try:
-            path = replay_from_grade(data, out_dir / "replay.mp4", units=units,
-                                     progress=progress, grid=grid)
+            with times.stage("replay"):
+                path = replay_from_grade(data, out_dir / "replay.mp4", units=units,
+                                         progress=progress, scale=replay_scale,
+                                         registration=registrar, grid=grid)
         except VidodoError as exc:  # the report is still written, then the error raised
             failure = exc
             extra.append(f"replay.mp4 not written: {exc}")
@@ -248,11 +263,29 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
             extra.append(f"{path.name}: the footage with the truth track and every source "
                          "drawn in")
     images = {PLOT_CAPTIONS.get(k, k): p for k, p in pngs.items()}
-    html_path = write_html(out_dir / "report.html", data.summary, images, unit=units,
-                           title=f"vidodo report: {title}" if title else None,
-                           extra_files=extra, registration=_registration(data))
+    with times.stage("pictures"):
+        html_path = write_html(out_dir / "report.html", data.summary, images, unit=units,
+                               title=f"vidodo report: {title}" if title else None,
+                               extra_files=extra, registration=_registration(data))
     written.append(html_path)
+    _record_times(out_dir / "summary.json", times.as_dict())
     if failure is not None:
         raise failure
     return written
+
+
+def _record_times(summary_path: Path, table: dict) -> None:
+    """Add the report's stage times to the ``timings_s`` of ``summary_path`` (if the
+    grade's summary is there: the report may be written elsewhere)."""
+    if not summary_path.is_file():
+        return
+    try:
+        summary = json.loads(summary_path.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return  # not a summary this report may touch
+    if not isinstance(summary, dict):
+        return
+    summary["timings_s"] = merged(summary.get("timings_s"), table)
+    with atomic_file(summary_path) as tmp:
+        tmp.write_text(json.dumps(summary, indent=2, allow_nan=False), encoding="utf-8")
 

@@ -12,7 +12,13 @@ that source believed the marker was.
 The frame also carries a readout (time, error per source in the display unit) and the
 events active at that moment, with their floor position marked.
 
-Frames are streamed: one is decoded, annotated and handed to the encoder at a time.
+Frames are streamed: one is decoded (in a background thread), annotated and handed to
+the encoder at a time, with its time as it was decoded (one decoding pass).
+Cost (``benchmarks/replay_speed.py``): by default the replay is half the footage's size
+(:data:`DEFAULT_SCALE`; ``scale=1`` for full size) and encoded with a fast x264 preset
+(:data:`ENCODER_PRESET`); the floor is registered when the tracker would register it
+(every frame while the camera moves, once a second while it is still: the policy of
+:class:`vidodo.track.RegistrationPolicy`), not on every frame.
 """
 
 from __future__ import annotations
@@ -45,6 +51,14 @@ __all__ = [
     "grade_input",
 ]
 
+DEFAULT_SCALE = 0.5
+"""Replay size relative to the footage unless told otherwise (a 1080p clip gives a
+960x540 replay: rings and text are drawn for that size, the encoder has a quarter of the
+pixels)."""
+ENCODER_PRESET = "superfast"
+"""x264 speed preset of the replay (a review copy, not an archive)."""
+ENCODER_CRF = 23
+"""x264 constant rate factor of the replay (x264's own default)."""
 TRUTH_BGR = (0, 255, 0)
 """Colour of the truth marker ring and crosshair (pure green)."""
 TRUTH_TRAIL_BGR = (40, 160, 40)
@@ -391,25 +405,77 @@ def _robot_mask(shape, registration, pose, robot, margin_m=0.05):
     return mask.astype(bool)
 
 
-def _frame_times(path: Path) -> np.ndarray:
-    """Presentation time of every frame the frame reader hands out [s] (a decoding pass,
-    so that a truncated file gives the same count as the annotating pass)."""
-    from ..video import VideoReader, VideoTruncatedError
+class _Resized:
+    """A frame registration seen through an image resized by ``(sx, sy)`` (pixel centres
+    at integers on both sides: ``u' = (u + 0.5) sx - 0.5``)."""
 
-    t = []
-    with VideoReader(path, threaded=False, check_identical=False) as reader:
-        try:
-            for _, t_s, _ in reader:
-                t.append(t_s)
-        except VideoTruncatedError:
-            pass
-    if not t:
-        raise InputError(f"{path}: no frame could be decoded; re-copy the file")
-    t = np.asarray(t, float)
-    for i in range(1, t.size):  # the encoder needs strictly increasing times
-        if not t[i] > t[i - 1]:
-            t[i] = t[i - 1] + 1e-3
-    return t - min(0.0, t[0])
+    def __init__(self, registration, sx: float, sy: float):
+        self._reg = registration
+        self._s = np.array([sx, sy], float)
+
+    def floor_to_image(self, pts_m):
+        px = np.asarray(self._reg.floor_to_image(pts_m), float)
+        return (px + 0.5) * self._s - 0.5
+
+    def __getattr__(self, name):
+        return getattr(self._reg, name)
+
+
+def _replay_size(shape, scale: float) -> tuple[int, int]:
+    """(width, height) of the replay: even, at least 2 px [px]."""
+    if not (0.0 < scale <= 1.0):
+        raise InputError(f"replay: scale must be in (0, 1], got {scale}")
+    h, w = shape[:2]
+    return max(2, int(round(w * scale / 2)) * 2), max(2, int(round(h * scale / 2)) * 2)
+
+
+class _Increasing:
+    """Frame times made strictly increasing and not negative, as the encoder needs, one
+    at a time as they are decoded [s] (a time not after the previous one becomes the
+    previous one + 1 ms; all are shifted so that the first is not negative)."""
+
+    def __init__(self):
+        self._first = self._prev = None
+
+    def __bool__(self) -> bool:
+        return self._prev is not None
+
+    def __call__(self, t_s: float) -> float:
+        t = float(t_s)
+        if self._prev is not None and not t > self._prev:
+            t = self._prev + 1e-3
+        if self._first is None:
+            self._first = t
+        self._prev = t
+        return t - min(0.0, self._first)
+
+
+def _register_fn(registration, field, camera):
+    """``register(frame, t_s, mask_fn, index)`` -> the registration in effect for a frame
+    (see :func:`write_replay`, ``registration``)."""
+    if registration is None or hasattr(registration, "register"):
+        from ..track import RegistrationPolicy
+
+        if registration is None:
+            if field is None:
+                raise InputError("replay: needs the field profile (or a registration) to "
+                                 "map floor positions into the frames")
+            from ..registration.registrar import FloorRegistrar
+
+            registration = FloorRegistrar(field, camera)
+        policy = RegistrationPolicy(registration, field or registration.field)
+
+        def register(frame, t_s, mask_fn, index):
+            return policy.update(frame, index, t_s, mask_fn)[0]
+    elif callable(registration) and not hasattr(registration, "floor_to_image"):
+        def register(frame, t_s, mask_fn, index):
+            mask = mask_fn()
+            return registration(frame, t_s, mask) if mask is not None else \
+                registration(frame, t_s)
+    else:
+        def register(frame, t_s, mask_fn, index):
+            return registration
+    return register
 
 
 @dataclass(frozen=True)
@@ -424,10 +490,12 @@ class ReplaySetup:
     camera: object = None
     """CameraProfile (lens) for the floor registration."""
     registration: object = None
-    """One FrameRegistration for every frame (fixed camera), or ``f(frame_bgr, t_s,
-    mask) -> FrameRegistration``; default: a
-    :class:`vidodo.registration.registrar.FloorRegistrar` for ``field`` and ``camera``
-    run on every frame."""
+    """One FrameRegistration for every frame (fixed camera); a registrar (e.g. the one
+    the tracker used, which saves registering the first frame from scratch again) run
+    when :class:`vidodo.track.RegistrationPolicy` says so (as while tracking); or
+    ``f(frame_bgr, t_s, mask) -> FrameRegistration`` called on every frame. Default: a
+    new :class:`vidodo.registration.registrar.FloorRegistrar` for ``field`` and
+    ``camera``, run as a registrar."""
     marker: object = None
     """The Marker whose position is drawn (default: the robot's first marker; without
     either, the robot's reference point on the floor)."""
@@ -451,6 +519,8 @@ class ReplayStyle:
     grid: bool = True
     """Draw the registered tile grid and field outline, faint, on every frame (needs the
     field profile), so a wrong floor mapping shows at a glance."""
+    scale: float | None = None
+    """Replay size relative to the footage, in (0, 1]; default :data:`DEFAULT_SCALE`."""
 
 
 def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, out_path,
@@ -470,7 +540,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
         Robot, field and camera profiles, or a registration; marker; sources; readout
         time the track was made with.
     style : ReplayStyle, optional
-        Display unit, trail length [s], codec, tile grid on or off.
+        Display unit, trail length [s], codec, tile grid on or off, size.
     progress : callable, optional
         ``progress(done, total)`` per frame.
 
@@ -489,66 +559,61 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
     colors = {n: _hex_to_bgr(c) for n, c in source_colors(sources).items()}
     if marker is None and robot is not None and robot.markers:
         marker = robot.markers[0]
-    registration = setup.registration
-    if registration is None:
-        if setup.field is None:
-            raise InputError("replay: needs the field profile (or a registration) to map "
-                             "floor positions into the frames")
-        from ..registration.registrar import FloorRegistrar
-
-        registrar = FloorRegistrar(setup.field, setup.camera)
-        register = registrar.register
-    elif callable(registration) and not hasattr(registration, "floor_to_image"):
-        register = registration
-    else:
-        fixed = registration
-
-        def register(frame, t_s, mask=None):
-            return fixed
-
-    times = _frame_times(video_path)
-    gap = 0.6 * float(np.median(np.diff(times))) if times.size > 1 else 0.05
+    register = _register_fn(setup.registration, setup.field, setup.camera)
+    times = _Increasing()
+    scale = DEFAULT_SCALE if style.scale is None else float(style.scale)
+    _replay_size((2, 2), scale)  # a bad scale fails before anything is decoded
+    steps = np.diff(tracks.t_s)
+    gap = 0.6 * float(np.median(steps)) if steps.size else 0.05  # a row per frame
     state = {"reg": None, "pose": None}
 
     def frames():
         with VideoReader(video_path) as reader:
+            total = reader.info.frame_count or None
             try:
-                yield from annotated(reader)
+                for index, t_s, frame in reader:
+                    t_out = times(t_s)  # the encoder takes each frame's time with it
+                    yield annotated(index, t_s, frame), t_out
+                    if progress is not None:
+                        progress(index + 1, total)
             except VideoTruncatedError:
-                return  # every good frame was annotated; the encoder checks the count
+                if not times:
+                    raise  # nothing could be decoded: the message names the footage
+                return  # every good frame was annotated
 
-    def annotated(reader):
-        for index, t_s, frame in reader:
-            if index >= times.size:
-                break
-            mask = (_robot_mask(frame.shape, state["reg"], state["pose"], robot)
+    def annotated(index, t_s, frame):
+        def mask_fn():
+            return (_robot_mask(frame.shape, state["reg"], state["pose"], robot)
                     if robot is not None else None)
-            reg = register(frame, t_s, mask) if mask is not None else register(frame, t_s)
-            row = tracks.row_at(t_s, max_gap_s=gap)
-            state["reg"] = reg if getattr(reg, "ok", False) else state["reg"]
-            state["pose"] = tracks.truth[row] if row is not None else state["pose"]
-            ov = frame_overlay(tracks, row, reg, marker=marker, trail_s=style.trail_s,
-                               readout_s=setup.readout_s, height_px=frame.shape[0])
-            lines = readout_lines(tracks, row, t_s, colors, style.units)
-            if not getattr(reg, "ok", False):
-                lines.append(("floor not registered in this frame", (0, 0, 255)))
-            base = frame
-            if style.grid and setup.field is not None and getattr(reg, "ok", False):
-                base = draw_grid_overlay(frame.copy(), reg, setup.field, alpha=0.35)
-            img = annotate_frame(base, ov, lines=lines, colors=colors)
-            if progress is not None:
-                progress(index + 1, times.size)
-            yield img[: img.shape[0] // 2 * 2, : img.shape[1] // 2 * 2]
+
+        reg = register(frame, t_s, mask_fn, index)
+        row = tracks.row_at(t_s, max_gap_s=gap)
+        state["reg"] = reg if getattr(reg, "ok", False) else state["reg"]
+        state["pose"] = tracks.truth[row] if row is not None else state["pose"]
+        (h0, w0), (w, h) = frame.shape[:2], _replay_size(frame.shape, scale)
+        if (w, h) != (w0, h0):
+            frame = cv2.resize(frame, (w, h), interpolation=cv2.INTER_AREA)
+            reg = None if reg is None else _Resized(reg, w / w0, h / h0)
+        ov = frame_overlay(tracks, row, reg, marker=marker, trail_s=style.trail_s,
+                           readout_s=setup.readout_s, height_px=frame.shape[0])
+        lines = readout_lines(tracks, row, t_s, colors, style.units)
+        if not getattr(reg, "ok", False):
+            lines.append(("floor not registered in this frame", (0, 0, 255)))
+        if style.grid and setup.field is not None and getattr(reg, "ok", False):
+            frame = draw_grid_overlay(frame.copy(), reg, setup.field, alpha=0.35)
+        return annotate_frame(frame, ov, lines=lines, colors=colors)
 
     from ..encode import write_video
 
     out_path.parent.mkdir(parents=True, exist_ok=True)
-    write_video(out_path, frames(), times, codec=style.codec)
+    write_video(out_path, frames(), codec=style.codec, crf=ENCODER_CRF,
+                preset=ENCODER_PRESET)
     return out_path
 
 
 def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,
-                      registration=None, grid: bool = True) -> Path:
+                      registration=None, grid: bool = True,
+                      scale: float | None = None) -> Path:
     """Write the replay for a :class:`vidodo.report.build.GradeData`.
 
     The footage and profiles are the ones named in ``summary['inputs']`` (``video``,
@@ -578,13 +643,14 @@ def replay_from_grade(data, out_path, *, units: str = "mm", progress=None,
     cam_path = find("camera", required=False)
     camera = load_camera(cam_path) if cam_path is not None else None
     readout = 0.0
-    if registration is None:
+    recorded = data.folder is not None and (Path(data.folder) / "track.floor.csv").is_file()
+    if registration is None or recorded:  # the registrations the track was made with win
         registration, readout = grade_registration(data.folder, field, camera,
                                                    inputs.get("points"))
     setup = ReplaySetup(robot=robot, field=field, camera=camera, registration=registration,
                         sources=data.sources, readout_s=readout)
     return write_replay(video, data.drift, data.events, out_path, setup,
-                        ReplayStyle(units=units, grid=grid), progress=progress)
+                        ReplayStyle(units=units, grid=grid, scale=scale), progress=progress)
 
 
 
@@ -619,7 +685,8 @@ def grade_registration(folder, field, camera=None, points=None):
     measured with), ``register(frame, t_s, mask=None)`` returns the one in effect at
     ``t_s``, and ``readout_s`` is the rolling-shutter readout the track used. Without
     it, a new :class:`vidodo.registration.registrar.FloorRegistrar` (with the grade's
-    points CSV when it had one) registers every frame, and ``readout_s`` is 0.
+    points CSV when it had one), which the replay runs on the tracker's schedule, and
+    ``readout_s`` is 0.
     """
     from ..floor_poses import read_floor_poses
     from ..registration.frame import failed
@@ -635,4 +702,4 @@ def grade_registration(folder, field, camera=None, points=None):
 
         return register, poses.detection_readout_s
     pts = points if isinstance(points, str) and Path(points).is_file() else None
-    return FloorRegistrar(field, camera, points_csv=pts).register, 0.0
+    return FloorRegistrar(field, camera, points_csv=pts), 0.0

@@ -1,0 +1,115 @@
+"""Whole ``vidodo grade`` (tracking, grading, plots, HTML report, replay) against plain
+OpenCV decoding of the same clip, side by side, as whole processes.
+
+For each clip and ``--repeat`` times, alternating: (a) a process decoding every frame
+with ``cv2.VideoCapture.read`` and (b) ``vidodo grade`` with the report and the replay
+(process start included). Printed: both wall times (best of the repeats and the spread),
+the ratio (target <= 4 for a tripod 1080p clip), the ``timings_s`` table of the grade's
+``summary.json`` and the grade's peak resident memory (target < 500 MB for a 3-minute
+clip: ``--long`` also grades the clip looped to about 3 minutes with ffmpeg).
+``--track-only`` times ``vidodo track`` instead (target <= 1.5 tripod, <= 3 hand-held).
+
+Usage: ``.venv/bin/python benchmarks/grade_speed.py [--scenario fullhd60] [--repeat 3]
+[--long] [--track-only] [--replay-scale 1]``
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from _runs import rendered  # noqa: E402
+
+DECODE = r"""
+import sys, cv2
+cap = cv2.VideoCapture(sys.argv[1]); n = 0
+while cap.read()[0]:
+    n += 1
+print(n)
+"""
+
+HANDHELD_1080P = {"video.width_px": 1920, "video.height_px": 1080}
+
+
+def _child(cmd) -> tuple[float, float]:
+    """Wall time [s] and peak resident memory [MB] of one child process."""
+    before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    t0 = time.perf_counter()
+    done = subprocess.run(cmd, capture_output=True, text=True)
+    wall = time.perf_counter() - t0
+    if done.returncode not in (0, 4):
+        print(f"  (exit {done.returncode}: {done.stderr.strip().splitlines()[-1:]})")
+    peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    return wall, (peak if peak > before else float("nan")) / 1024
+
+
+def _grade_cmd(run, video, out, args):
+    exe = [sys.executable, "-m", "vidodo.cli_main"]
+    common = ["--robot", str(run / "robot.toml"), "--field", str(run / "field.toml"),
+              "--camera", str(run / "camera.toml"), "--quiet"]
+    if args.track_only:
+        return [*exe, "track", str(video), *common, "-o", str(out / "track.csv")]
+    extra = [] if args.replay_scale is None else ["--replay-scale", str(args.replay_scale)]
+    return [*exe, "grade", str(video), str(run / "log.csv"), *common, "-o", str(out),
+            *extra]
+
+
+def measure(run, video, args, label):
+    dec, grd, mem = [], [], []
+    timings = None
+    with tempfile.TemporaryDirectory(prefix="vidodo-grade-speed-") as tmp:
+        for k in range(args.repeat):
+            dec.append(_child([sys.executable, "-c", DECODE, str(video)])[0])
+            out = Path(tmp) / f"g{k}"
+            out.mkdir()
+            wall, peak = _child(_grade_cmd(run, video, out, args))
+            grd.append(wall)
+            mem.append(peak)
+            s = out / "summary.json"
+            if s.is_file():
+                timings = json.loads(s.read_text())["timings_s"]
+    ratios = [g / d for g, d in zip(grd, dec, strict=True)]
+    what = "track" if args.track_only else "grade"
+    print(f"{label}: decode {min(dec):.1f} s [{min(dec):.1f}-{max(dec):.1f}], {what} "
+          f"{min(grd):.1f} s [{min(grd):.1f}-{max(grd):.1f}]; ratio per pair "
+          f"{', '.join(f'{r:.2f}' for r in ratios)}; peak memory {max(mem):.0f} MB")
+    if timings:
+        print("  timings_s: " + ", ".join(f"{k} {v:.2f}" for k, v in timings.items()
+                                         if v is not None))
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--scenario", default="fullhd60")
+    ap.add_argument("--handheld-1080p", action="store_true",
+                    help="the mecanum-handheld scenario at 1920x1080")
+    ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--long", action="store_true")
+    ap.add_argument("--track-only", action="store_true")
+    ap.add_argument("--replay-scale", type=float, default=None)
+    args = ap.parse_args(argv)
+    if args.handheld_1080p:
+        run = rendered("mecanum-handheld", **HANDHELD_1080P)
+    else:
+        run = rendered(args.scenario)
+    video = run / "video.mp4"
+    measure(run, video, args, f"{run.name} ({video.stat().st_size / 1e6:.0f} MB)")
+    if args.long:
+        long_video = run / "long.mp4"
+        if not long_video.exists():
+            subprocess.run(["ffmpeg", "-loglevel", "error", "-y", "-stream_loop", "20",
+                            "-i", str(video), "-t", "180", "-c", "copy", str(long_video)],
+                           check=True)
+        args.repeat = 1
+        measure(run, long_video, args, "3-minute loop")
+
+
+if __name__ == "__main__":
+    main()
