@@ -477,3 +477,100 @@ def test_negative_imu_scale_names_the_sign(run, tmp_path, capsys):
     edit(run / "robot.toml", "scale = 1.0", "scale = -1.0")
     check(capsys, grade_argv(run, tmp_path / "o"), 2, r"\[imu\]: key 'scale' = -1 is "
           r"negative; set sign = -1", run)
+
+
+# ------------------------------------------------------------------ single-file outputs
+def _users_png(path):
+    """A PNG vidodo did not write (no vidodo text chunk)."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from matplotlib.figure import Figure
+
+    Figure(figsize=(1, 1)).savefig(path, format="png")
+
+
+def test_picture_over_a_users_png_is_refused(run, tmp_path, capsys):
+    _users_png(run / "mine.png")
+    check(capsys, ["picture", run / "robot.toml", "--out", run / "mine.png"], 2,
+          r"mine\.png: exists and was not written by vidodo", run)
+    check(capsys, ["picture", run / "robot.toml", "--out", run / "robot.toml", "--force"],
+          2, r"robot\.toml: is an input of this command", run)
+    out = tmp_path / "pic.png"
+    assert main(["picture", str(run / "robot.toml"), "--out", str(out)]) == 0
+    before = snapshot(out)
+    check(capsys, ["picture", run / "robot.toml", "--out", out], 0, None, run)
+    assert main(["picture", str(run / "robot.toml"), "--out", str(run / "mine.png"),
+                 "--force"]) == 0
+    assert snapshot(out) == before  # the same profile draws the same picture
+
+
+def test_new_robot_picture_over_a_users_png_is_refused(run, tmp_path, capsys):
+    answers = tmp_path / "answers.toml"
+    answers.write_text("")
+    _users_png(tmp_path / "robot.png")
+    check(capsys, ["new-robot", "--answers", answers, "--out", tmp_path / "robot.toml"], 2,
+          r"robot\.png: exists and was not written by vidodo", tmp_path)
+    assert not (tmp_path / "robot.toml").exists()
+    assert main(["new-robot", "--answers", str(answers), "--out",
+                 str(tmp_path / "robot.toml"), "--force"]) == 0
+    # now both are vidodo's: written again without --force
+    assert main(["new-robot", "--answers", str(answers), "--out",
+                 str(tmp_path / "robot.toml")]) == 0
+    capsys.readouterr()
+
+
+def test_pick_over_a_users_page_is_refused(run, tmp_path, capsys, monkeypatch):
+    from vidodo import picker
+
+    monkeypatch.setattr(picker, "picker_frames", lambda *a, **k: ["frame"])
+    monkeypatch.setattr(picker, "build_page", lambda frames, field, title="":
+                        picker.PAGE_SIGNATURE.decode() + "\n<html></html>\n")
+    page = run / "video-pick.html"
+    page.write_text("<!DOCTYPE html>\n<html><body>my notes</body></html>\n")
+    check(capsys, ["pick", run / "video.mp4", "--field", run / "field.toml"], 2,
+          r"video-pick\.html: exists and was not written by vidodo", run)
+    check(capsys, ["pick", run / "video.mp4", "--field", run / "field.toml", "--out",
+                   run / "field.toml", "--force"], 2,
+          r"field\.toml: is an input of this command", run)
+    assert main(["pick", str(run / "video.mp4"), "--field", str(run / "field.toml"),
+                 "--force", "--quiet"]) == 0
+    assert page.read_bytes().startswith(picker.PAGE_SIGNATURE)
+    assert main(["pick", str(run / "video.mp4"), "--field", str(run / "field.toml"),
+                 "--quiet"]) == 0  # its own page is replaced without --force
+
+
+def test_failed_run_in_a_batch_leaves_no_partial_grade_folder(run, tmp_path, capsys):
+    """The run's video is not a video: the run fails; its grade folder never appears."""
+    root = tmp_path / "season"
+    shutil.copytree(run, root / "r1")
+    out = tmp_path / "out"
+    before = snapshot(root)
+    assert main(["batch", str(root), "--out", str(out), "--jobs", "1"]) == 3
+    err = [ln for ln in capsys.readouterr().err.splitlines() if ln.strip()]
+    assert err and re.search(r"r1: ", err[0]), err
+    assert snapshot(root) == before
+    names = {p.name for p in out.iterdir()}
+    assert "r1" not in names
+    assert not [p for p in out.rglob("*") if ".partial-" in p.name
+                or p.name.endswith(".vidodo-lock")]
+    assert set(json.loads((out / MANIFEST).read_text())["files"]) == names - {MANIFEST}
+
+
+@pytest.mark.parametrize("which", ["log", "track"])
+def test_one_usable_sample_names_the_file(run, tmp_path, capsys, which):
+    """A log (or truth track) cut to its header and one row: exit 2, the first line
+    names that file, and the grade folder is never written."""
+    name = "log.csv" if which == "log" else "track.csv"
+    lines = (run / name).read_text().splitlines()
+    (run / name).write_text("\n".join(lines[:2]) + "\n")
+    out = tmp_path / "g"
+    if which == "log":
+        check(capsys, grade_argv(run, out), 2, r"log\.csv: fewer than two samples", run,
+              out)
+    else:  # a measuring-stage error (exit 3), given the file names by the command
+        check(capsys, grade_argv(run, out), 3,
+              r"track\.csv.*: truth track has only 1 usable samples", run, out)
+    check(capsys, ["odometry", run / "log.csv", "--robot", run / "robot.toml", "--out",
+                   tmp_path / "odo.csv"], 0 if which == "track" else 2,
+          None if which == "track" else r"log\.csv: fewer than two samples", run)

@@ -360,7 +360,7 @@ def _merge(stage: Path, target: Path, files, old_set, inputs) -> None:
 
 
 # ---------------------------------------------------------------------- one file
-def check_file_target(path, *, inputs=(), force=False, signature: bytes | None = None):
+def check_file_target(path, *, inputs=(), force=False, signature=None):
     """Refuse an output file that is a folder, an input, or a file vidodo did not write.
 
     See :func:`atomic_file` for the parameters; call it before long work so a mistake
@@ -373,17 +373,20 @@ def check_file_target(path, *, inputs=(), force=False, signature: bytes | None =
         raise OutputError(f"{path}: is an input of this command; write to another file")
     if path.exists() and signature is not None and not force:
         try:
-            with open(path, "rb") as fh:
-                head = fh.read(len(signature))
+            if callable(signature):
+                ours = bool(signature(path))
+            else:
+                with open(path, "rb") as fh:
+                    ours = fh.read(len(signature)) == signature
         except OSError as exc:
             raise OutputError(_os_message(exc, path)) from None
-        if head != signature:
+        if not ours:
             raise OutputError(f"{path}: exists and was not written by vidodo; choose "
                               "another file name, or add --force to replace it")
 
 
 @contextlib.contextmanager
-def atomic_file(path, *, inputs=(), force=False, signature: bytes | None = None):
+def atomic_file(path, *, inputs=(), force=False, signature=None):
     """Yield a temporary path; rename it to ``path`` only if the block succeeds.
 
     Parameters
@@ -394,10 +397,12 @@ def atomic_file(path, *, inputs=(), force=False, signature: bytes | None = None)
         Never replaced, even with ``force``.
     force : bool
         Replace an existing file that does not start with ``signature``.
-    signature : bytes, optional
-        The first bytes of every file this command writes (e.g. its CSV header); an
-        existing file that does not start with them is refused unless ``force``.
-        Without a signature an existing file is replaced (library use).
+    signature : bytes or callable, optional
+        The first bytes of every file this command writes (e.g. its CSV header), or a
+        function ``f(path) -> bool`` telling a file vidodo wrote (a PNG carrying
+        vidodo's text chunk, :func:`vidodo.robot_picture.is_vidodo_png`); an existing
+        file that does not match is refused unless ``force``. Without a signature an
+        existing file is replaced (library use).
 
     Raises
     ------

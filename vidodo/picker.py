@@ -180,7 +180,7 @@ def build_page(frames, field: FieldProfile, *, title: str = "vidodo corner picke
     data = json.dumps(_page_data(frames, field, title), separators=(",", ":"))
     data = data.replace("</", "<\\/")
     return "\n".join([
-        "<!DOCTYPE html>",
+        PAGE_SIGNATURE.decode("ascii"),
         '<html lang="en"><head><meta charset="utf-8">',
         f'<meta http-equiv="Content-Security-Policy" content="{_CSP}">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
@@ -194,14 +194,27 @@ def build_page(frames, field: FieldProfile, *, title: str = "vidodo corner picke
     ]) + "\n"
 
 
-def write_picker(video_path, field: FieldProfile, out_path, *, at_s: float | None = None,
-                 settings: PickerSettings | None = None) -> Path:
-    """Write the picker page for a video; returns ``out_path``."""
-    from .outputs import atomic_file
+PAGE_SIGNATURE = b"<!DOCTYPE html>\n<!-- corner picker page written by `vidodo pick` -->"
+"""First bytes of every picker page (an existing file without them is not replaced)."""
 
+
+def write_picker(video_path, field: FieldProfile, out_path, *, at_s: float | None = None,
+                 settings: PickerSettings | None = None, inputs=(),
+                 force: bool = False) -> Path:
+    """Write the picker page for a video; returns ``out_path``.
+
+    An existing ``out_path`` that is an input, or a file this function did not write
+    (:data:`PAGE_SIGNATURE`), is refused (``OutputError``) unless ``force``; an input
+    never is replaced.
+    """
+    from .outputs import atomic_file, check_file_target
+
+    inputs = (video_path, *inputs)
+    check_file_target(out_path, inputs=inputs, force=force, signature=PAGE_SIGNATURE)
     frames = picker_frames(video_path, field, at_s=at_s, settings=settings)
     page = build_page(frames, field, title=f"vidodo corner picker: {Path(video_path).name}")
     out_path = Path(out_path)
-    with atomic_file(out_path) as tmp:
+    with atomic_file(out_path, inputs=inputs, force=force,
+                     signature=PAGE_SIGNATURE) as tmp:
         Path(tmp).write_text(page, encoding="utf-8")
     return out_path

@@ -283,6 +283,25 @@ def robot_figure(robot: RobotProfile, *, title: str = "") -> Figure:
 
 def write_robot_picture(robot: RobotProfile, path) -> Path:
     """Write :func:`robot_figure` as a PNG and return its path."""
-    from .report.plots import save_figure
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    robot_figure(robot).savefig(path, format="png", metadata={PNG_KEY: PNG_TEXT})
+    return path
 
-    return save_figure(robot_figure(robot), path)
+
+PNG_KEY = "vidodo"
+"""Keyword of the PNG text chunk (``tEXt``) every robot picture carries."""
+PNG_TEXT = "robot picture"
+"""Text of that chunk; together they tell a picture vidodo wrote from a user's PNG."""
+_PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
+
+
+def is_vidodo_png(path) -> bool:
+    """True if ``path`` is a PNG carrying vidodo's text chunk (written by this module).
+
+    Only the chunks before the image data are read (text chunks precede ``IDAT``).
+    """
+    mark = b"tEXt" + PNG_KEY.encode() + b"\0" + PNG_TEXT.encode()
+    with open(path, "rb") as fh:
+        head = fh.read(1 << 16)
+    return head.startswith(_PNG_MAGIC) and mark in head.split(b"IDAT", 1)[0]

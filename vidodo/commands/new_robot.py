@@ -60,6 +60,7 @@ def _ask(q):
 
 def run(args) -> int:
     """Ask (or read the answers), write the profile and its picture."""
+    from ..errors import InputError
     from ..outputs import atomic_file
     from ..profiles import load_robot, read_toml
     from ..robot_picture import write_robot_picture
@@ -70,8 +71,15 @@ def run(args) -> int:
             print(f"{q.key} = {q.default!r}   # {q.text}")
         return 0
     from ..outputs import check_file_target
+    from ..robot_picture import is_vidodo_png
 
+    picture = args.picture or args.out.with_suffix(".png")
     check_file_target(args.out, inputs=(args.answers,), force=args.force, signature=SIGNATURE)
+    if picture.absolute() == args.out.absolute():
+        raise InputError(f"{picture}: given for both the profile and its picture; "
+                         "choose another --picture")
+    check_file_target(picture, inputs=(args.answers, args.out), force=args.force,
+                      signature=is_vidodo_png)
     if args.answers is not None:
         given, _ = read_toml(args.answers)
         answers = complete_answers(given, str(args.answers))
@@ -80,12 +88,12 @@ def run(args) -> int:
         while (q := next_question(answers)) is not None:
             answers[q.key] = _ask(q)
     text = profile_text(answers)
-    picture = args.picture or args.out.with_suffix(".png")
     with atomic_file(args.out, inputs=(args.answers,), force=args.force,
                      signature=SIGNATURE) as tmp:
         tmp.write_text(text, encoding="utf-8")
         robot = load_robot(tmp)  # what is written must load
-        with atomic_file(picture) as ptmp:
+        with atomic_file(picture, inputs=(args.answers,), force=args.force,
+                         signature=is_vidodo_png) as ptmp:
             write_robot_picture(robot, ptmp)
     print(f"wrote {args.out} and {picture} (open the picture: front up, arrows where "
           "the counts rise)")

@@ -5,7 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from ..profiles import load_field
-from ._options import add_out
+from ._options import add_force, add_out
 
 NAME = "pick"
 HELP = "write a page for clicking tile corners; it saves the points CSV that --points reads"
@@ -28,6 +28,7 @@ def add_arguments(parser):
                         help="show the frame at this time (default: the first frame, the "
                         "one --points registers)")
     add_out(parser, "page to write (default: <video name>-pick.html beside it)", default=None)
+    add_force(parser, "file")
 
 
 def run(args) -> int:
@@ -39,7 +40,8 @@ def run(args) -> int:
         raise InputError("--at must be a time in seconds, 0 or more")
     field = load_field(args.field)
     out = args.out or args.video.with_name(args.video.stem + "-pick.html")
-    path = write_picker(args.video, field, out, at_s=args.at)
+    path = write_picker(args.video, field, out, at_s=args.at, inputs=(args.field,),
+                        force=args.force)
     if not args.quiet:
         print(f"open {path} in a browser, click tile corners, type four floor positions, "
               "Save; then pass the CSV with --points")
