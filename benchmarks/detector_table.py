@@ -24,7 +24,7 @@ Usage: ``.venv/bin/python benchmarks/detector_table.py [--renders 40]``
 from __future__ import annotations
 
 import argparse
-import re
+import sys
 from pathlib import Path
 
 import cv2
@@ -33,6 +33,9 @@ import numpy as np
 from vidodo import apriltag3
 from vidodo.profiles import Marker
 from vidodo.track import DEFAULT_REFINE, MarkerDetector
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+from test_realphotos import real_tags  # noqa: E402  (the tests' real-photo loader)
 
 PHOTOS = Path(__file__).resolve().parents[2] / "shared" / "realdata" / "apriltag-photos"
 FAMILY = "DICT_APRILTAG_36h11"
@@ -85,24 +88,6 @@ def render_tag(rng, side_px):
     img = np.clip(np.rint(img), 0, 255).astype(np.uint8)
     ok, enc = cv2.imencode(".jpg", img, [cv2.IMWRITE_JPEG_QUALITY, 90])
     return cv2.imdecode(enc, cv2.IMREAD_GRAYSCALE), corners, tag_id
-
-
-def real_tags():
-    """(image with other tags greyed, reference corners in OpenCV convention) per tag."""
-    for jpg in sorted(PHOTOS.glob("*.jpg")):
-        img = cv2.imread(str(jpg), cv2.IMREAD_GRAYSCALE)
-        refs = []
-        for line in jpg.with_suffix(".txt").read_text().splitlines():
-            nums = [float(v) for v in re.findall(r"-?\d+\.?\d*", line)]
-            refs.append(np.array(nums[1:9]).reshape(4, 2) - 0.5)  # AprilTag -> OpenCV
-        for k, ref in enumerate(refs):
-            im = img.copy()
-            for o, other in enumerate(refs):
-                if o != k:
-                    c0 = other.mean(0)
-                    cv2.fillConvexPoly(im, np.rint(c0 + (other - c0) * 0.9).astype(np.int32),
-                                       128)
-            yield im, ref
 
 
 def measure(cases, centre_only):

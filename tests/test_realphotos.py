@@ -35,14 +35,15 @@ def _side(c):
     return float(np.sqrt(0.5 * abs(a[0] * b[1] - a[1] * b[0])))
 
 
-def _tags():
-    out = []
+def real_tags():
+    """(image with the other tags greyed out, reference corners in OpenCV's pixel
+    convention) for every tag of the photos (also used by benchmarks/detector_table.py)."""
     for jpg in sorted(PHOTOS.glob("*.jpg")):
         img = cv2.imread(str(jpg), cv2.IMREAD_GRAYSCALE)
         refs = []
         for line in jpg.with_suffix(".txt").read_text().splitlines():
             nums = [float(v) for v in re.findall(r"-?\d+\.?\d*", line)]
-            refs.append(np.array(nums[1:9]).reshape(4, 2) - 0.5)
+            refs.append(np.array(nums[1:9]).reshape(4, 2) - 0.5)  # AprilTag -> OpenCV
         for k, ref in enumerate(refs):
             im = img.copy()
             for o, other in enumerate(refs):
@@ -50,12 +51,19 @@ def _tags():
                     c0 = other.mean(0)
                     cv2.fillConvexPoly(im, np.rint(c0 + (other - c0) * 0.9).astype(np.int32),
                                        128)
-            pad = 0.2 * _side(ref) + 8.0
-            lo = np.floor(ref.min(0) - pad).astype(int)
-            hi = np.ceil(ref.max(0) + pad).astype(int)
-            roi = (max(lo[0], 0), max(lo[1], 0), min(hi[0], im.shape[1]),
-                   min(hi[1], im.shape[0]))
-            out.append((im, roi, ref))
+            yield im, ref
+
+
+def _tags():
+    """Each tag with the tracker's search window around it."""
+    out = []
+    for im, ref in real_tags():
+        pad = 0.2 * _side(ref) + 8.0
+        lo = np.floor(ref.min(0) - pad).astype(int)
+        hi = np.ceil(ref.max(0) + pad).astype(int)
+        roi = (max(lo[0], 0), max(lo[1], 0), min(hi[0], im.shape[1]),
+               min(hi[1], im.shape[0]))
+        out.append((im, roi, ref))
     return out
 
 
@@ -70,7 +78,7 @@ def _run(detector, refine=DEFAULT_REFINE):
 
 
 def test_default_refinement_matches_the_reference_on_real_photos():
-    """Issue 15 acceptance: with OpenCV's detector and the default refinement, the tag
+    """With OpenCV's detector and the default refinement, the tag
     centre is within 0.1 px of the reference on average, and every tag of >= 4 px per
     cell is found (measured: 0.05 px over 25 tags; all 16 of >= 3 px per cell)."""
     found, cells = _run("opencv")
