@@ -30,9 +30,9 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from vidodo import apriltag3
 from vidodo.profiles import Marker
-from vidodo.track import DEFAULT_REFINE, MarkerDetector
+from vidodo.tracking import apriltag3
+from vidodo.tracking.detector import DEFAULT_REFINE, MarkerDetector
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 from test_realphotos import real_tags  # noqa: E402  (the tests' real-photo loader)

@@ -122,7 +122,7 @@ def _tracked(run, camera, reuse):
     """The tracker's truth track of a run, kept beside it for re-analysis."""
     from vidodo.pipeline import read_track_csv
     from vidodo.profiles import load_camera, load_field
-    from vidodo.track import track_video
+    from vidodo.tracking.tracker import track_video
 
     path = run / ("track_camera.csv" if camera else "track.csv")
     if reuse and path.is_file():

@@ -49,7 +49,7 @@ from vidodo.planner import (  # noqa: E402
 )
 from vidodo.profiles import load_camera, load_field, load_robot  # noqa: E402
 from vidodo.registration.registrar import FloorRegistrar  # noqa: E402
-from vidodo.track import track_video  # noqa: E402
+from vidodo.tracking.tracker import track_video  # noqa: E402
 
 # camera position (x, y, z) and aim (x, y) [m], horizontal field of view [deg]; all on the
 # near side (y < 0) so the field profile's origin_hint stays true. Invented placements.

@@ -28,10 +28,10 @@ import pandas as pd
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _runs import rendered  # noqa: E402
 
-from vidodo import smooth  # noqa: E402
 from vidodo.profiles import load_camera, load_field, load_robot  # noqa: E402
 from vidodo.registration.registrar import FloorRegistrar  # noqa: E402
-from vidodo.track import track_video  # noqa: E402
+from vidodo.tracking import smooth  # noqa: E402
+from vidodo.tracking.tracker import track_video  # noqa: E402
 
 
 def _track(run, breaks):
@@ -44,7 +44,7 @@ def _track(run, breaks):
         k["breaks"] = breaks
         return original(*a, **k)
 
-    with mock.patch("vidodo.track.rts_smooth_signals", patched):
+    with mock.patch("vidodo.tracking.finish.rts_smooth_signals", patched):
         res = track_video(run / "video.mp4", robot, field, camera,
                           registrar=FloorRegistrar(field, camera))
     return res.track

@@ -30,7 +30,8 @@ from _runs import rendered  # noqa: E402
 
 from vidodo.profiles import load_camera, load_field, load_robot  # noqa: E402
 from vidodo.registration.registrar import FloorRegistrar  # noqa: E402
-from vidodo.track import track_video  # noqa: E402
+from vidodo.tracking.settings import TrackSettings  # noqa: E402
+from vidodo.tracking.tracker import track_video  # noqa: E402
 
 TARGETS = {"default": (2.0, 4.0, 0.3), "mecanum-handheld": (4.0, None, None)}
 
@@ -41,7 +42,7 @@ def evaluate(run: Path, **options):
     camera = load_camera(run / "camera.toml")
     t0 = time.perf_counter()
     res = track_video(run / "video.mp4", robot, field, camera,
-                      registrar=FloorRegistrar(field, camera), **options)
+                      TrackSettings(**options), registrar=FloorRegistrar(field, camera))
     wall = time.perf_counter() - t0
     truth = pd.read_csv(run / "truth" / "truth.csv")
     tr = res.track

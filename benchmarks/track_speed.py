@@ -28,7 +28,7 @@ CHILD = r"""
 import json, sys, time
 from vidodo.profiles import load_camera, load_field, load_robot
 from vidodo.registration.registrar import FloorRegistrar
-from vidodo.track import track_video
+from vidodo.tracking.tracker import track_video
 run, video = sys.argv[1], sys.argv[2]
 robot = load_robot(run + "/robot.toml"); field = load_field(run + "/field.toml")
 camera = load_camera(run + "/camera.toml")

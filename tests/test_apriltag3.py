@@ -1,4 +1,4 @@
-"""vidodo.apriltag3: the AprilTag 3 library as a detector, corner order and convention.
+"""vidodo.tracking.apriltag3: the AprilTag 3 library as a detector, corner order and convention.
 
 Reference: an OpenCV-generated tag (``cv2.aruco.generateImageMarker``) drawn at 4 px a
 module with its black square's corners known exactly; OpenCV's own detector (no
@@ -9,10 +9,10 @@ import cv2
 import numpy as np
 import pytest
 
-from vidodo import apriltag3
 from vidodo.errors import InputError
 from vidodo.profiles import Marker
-from vidodo.track import MarkerDetector
+from vidodo.tracking import apriltag3
+from vidodo.tracking.detector import MarkerDetector
 
 pytestmark = pytest.mark.skipif(not apriltag3.available(), reason="needs pupil-apriltags")
 

@@ -7,7 +7,7 @@ import argparse
 import pytest
 
 from vidodo.cli_main import build_parser
-from vidodo.track import REFINE_METHODS
+from vidodo.tracking.detector import REFINE_METHODS
 from vidodo.units import LENGTH_UNITS
 
 

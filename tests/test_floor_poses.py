@@ -1,4 +1,4 @@
-"""Registrations saved beside a track and read back (vidodo.floor_poses).
+"""Registrations saved beside a track and read back (vidodo.tracking.floor_poses).
 
 Reference: OpenCV's ``cv2.projectPoints`` with the camera written, so the saved file is
 checked against the projection it must reproduce, not against itself.
@@ -12,14 +12,14 @@ import pytest
 from numpy.testing import assert_allclose
 
 from vidodo.errors import InputError
-from vidodo.floor_poses import (
+from vidodo.registration.frame import FrameRegistration, failed
+from vidodo.tracking.floor_poses import (
     FloorPoses,
     RecordingRegistrar,
     floor_poses_path,
     read_floor_poses,
     write_floor_poses,
 )
-from vidodo.registration.frame import FrameRegistration, failed
 
 K = np.array([[800.0, 0, 639.5], [0, 800.0, 359.5], [0, 0, 1]])
 DIST = np.array([0.06, -0.12, 0.0005, -0.0004, 0.02])

@@ -19,9 +19,9 @@ import cv2
 import numpy as np
 import pytest
 
-from vidodo import apriltag3
 from vidodo.profiles import Marker
-from vidodo.track import DEFAULT_REFINE, MarkerDetector
+from vidodo.tracking import apriltag3
+from vidodo.tracking.detector import DEFAULT_REFINE, MarkerDetector
 
 PHOTOS = Path(__file__).resolve().parents[2] / "shared" / "realdata" / "apriltag-photos"
 TAG = Marker(id=0, family="DICT_APRILTAG_36h11", size_m=0.1)

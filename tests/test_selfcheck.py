@@ -247,13 +247,13 @@ def test_pose_problem_limits():
 def test_grade_refusal_writes_only_the_preview(tmp_path, monkeypatch, capsys):
     """A refusal during tracking (marker size, path outside the field) ends ``grade``
     with exit 3 and the preview alone in the output folder."""
-    import vidodo.track
+    import vidodo.tracking.tracker
 
     def refusing(*_a, **_k):
         raise RegistrationRefused("the robot's marker measures 158% of its size",
                                   np.zeros((36, 64, 3), np.uint8))
 
-    monkeypatch.setattr(vidodo.track, "track_video", refusing)
+    monkeypatch.setattr(vidodo.tracking.tracker, "track_video", refusing)
     video = tmp_path / "run.mp4"
     video.write_bytes(b"\x00")
     log = tmp_path / "log.csv"

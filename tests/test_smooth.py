@@ -1,4 +1,4 @@
-"""Tests of vidodo.smooth (Rauch-Tung-Striebel, constant-acceleration model).
+"""Tests of vidodo.tracking.smooth (Rauch-Tung-Striebel, constant-acceleration model).
 
 References: with vanishing process noise the constant-acceleration model is a quadratic
 in time, so the smoother must equal weighted least squares of a quadratic
@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from vidodo.smooth import rts_smooth
+from vidodo.tracking.smooth import rts_smooth
 
 
 def test_no_process_noise_equals_quadratic_least_squares():
@@ -82,7 +82,7 @@ def test_measurement_variance_scaled_by_innovation_consistency():
 def test_batched_signals_equal_one_at_a_time():
     """Several signals smoothed in one batch: each equals its own rts_smooth (whose
     accuracy the polyfit and coverage checks above tie to references)."""
-    from vidodo.smooth import rts_smooth_signals
+    from vidodo.tracking.smooth import rts_smooth_signals
 
     rng = np.random.default_rng(21)  # seed fixed for reproducibility
     t = np.sort(rng.uniform(0.0, 3.0, 90))

@@ -1,4 +1,4 @@
-"""Tests of vidodo.track: detection, floor pose, time, gaps, uncertainty, bad input.
+"""Tests of vidodo.tracking: detection, floor pose, time, gaps, uncertainty, bad input.
 
 Frames are synthesised here with OpenCV alone (independent of vidodo's renderer): a
 marker image from ``cv2.aruco.generateImageMarker`` is warped onto a grey floor through
@@ -23,18 +23,14 @@ import pytest
 from vidodo.errors import TrackingError
 from vidodo.profiles import FieldProfile, Marker, RobotProfile
 from vidodo.synth.motion import look_at_pose
-from vidodo.track import (
-    TRACK_COLUMNS,
-    Detection,
-    MarkerDetector,
-    estimate_corner_noise,
-    fit_pose,
-    load_track_csv,
-    save_track_csv,
-    track_frames,
-    track_video,
-)
-from vidodo.track import _finish as finish_track
+from vidodo.tracking.detector import Detection, MarkerDetector
+from vidodo.tracking.finish import finish_track
+from vidodo.tracking.frame_loop import track_frames
+from vidodo.tracking.noise import estimate_corner_noise
+from vidodo.tracking.pose_fit import fit_pose
+from vidodo.tracking.result import TRACK_COLUMNS, load_track_csv, save_track_csv
+from vidodo.tracking.settings import TrackSettings
+from vidodo.tracking.tracker import track_video
 from vidodo.video import VideoTruncatedError
 
 W, H = 640, 480
@@ -292,8 +288,8 @@ def test_wrong_ids_ignored_and_listed():
     acc = track_frames(frames, _robot([TAG]), FIELD, StandInRegistrar())
     assert all(f is None for f in acc.fix)
     with pytest.raises(TrackingError, match=r"DICT_APRILTAG_36h11:7"):
-        finish_track(acc, _robot([TAG]), None, None, readout_s=0.0, readout_source="none",
-                     max_gap_s=0.25, corner_sigma_px=None, field_profile=FIELD, warnings=[])
+        finish_track(acc, _robot([TAG]), FIELD, TrackSettings(readout_s=0.0),
+                     readout_source="none")
 
 
 # ---------------------------------------------------------------- whole tracking
@@ -311,10 +307,9 @@ def _sequence(markers, n=45, fps=30.0, hidden=None, seed=1):
 
 def _track(markers, frames, **kw):
     robot = _robot(markers)
-    acc = track_frames(iter(frames), robot, FIELD, StandInRegistrar(), **kw)
-    return finish_track(acc, robot, None, None, readout_s=0.0, readout_source="given",
-                        max_gap_s=0.25, corner_sigma_px=None, field_profile=FIELD,
-                        warnings=[])
+    settings = TrackSettings(readout_s=0.0, **kw)
+    acc = track_frames(iter(frames), robot, FIELD, StandInRegistrar(), settings)
+    return finish_track(acc, robot, FIELD, settings, readout_source="given")
 
 
 @pytest.fixture(scope="module")
@@ -417,9 +412,8 @@ def test_rolling_shutter_correction():
     results = {}
     for ro in (0.0, readout):
         acc = track_frames(iter(frames), robot, FIELD, StandInRegistrar())
-        results[ro] = finish_track(acc, robot, None, None, readout_s=ro,
-                                   readout_source="given", max_gap_s=0.25,
-                                   corner_sigma_px=None, field_profile=FIELD, warnings=[])
+        results[ro] = finish_track(acc, robot, FIELD, TrackSettings(readout_s=ro),
+                                   readout_source="given")
     e = {ro: np.hypot(r.track.x_m - truth_frame[:, 0], r.track.y_m - truth_frame[:, 1])[3:-3]
          for ro, r in results.items()}
     assert np.sqrt(np.mean(e[readout] ** 2)) < 0.5 * np.sqrt(np.mean(e[0.0] ** 2))
@@ -554,9 +548,8 @@ def test_readout_estimated_from_marker_shear():
     robot = _robot([TAG])
     acc = track_frames(iter(frames), robot, FIELD, StandInRegistrar())
     warnings = []
-    res = finish_track(acc, robot, None, None, readout_s=0.0, readout_source="none",
-                       max_gap_s=0.25, corner_sigma_px=None, field_profile=FIELD,
-                       warnings=warnings)
+    res = finish_track(acc, robot, FIELD, TrackSettings(readout_s=0.0),
+                       readout_source="none", warnings=warnings)
     q = res.quality
     assert q["readout_source"] == "estimated"
     assert abs(q["readout_estimate_s"] - readout) < max(3 * q["readout_estimate_sigma_s"], 0.01)
@@ -653,7 +646,7 @@ def test_local_noise_follows_a_change_of_corner_noise():
     there is 50% (> 2 sigma) and the correlation is only checked to exceed 0.45. The
     first half is white, where the run's 0.2 is kept as the floor.
     """
-    from vidodo.track import CornerNoise, local_corner_noise
+    from vidodo.tracking.noise import CornerNoise, local_corner_noise
 
     fixes = _noisy_fixes(0.1, 0.0, 0.0, n=200, seed=11)[:100]
     fixes += _noisy_fixes(0.0, 0.3, 0.7, n=200, seed=12)[100:]
@@ -685,7 +678,7 @@ def test_registration_policy_still_moving_and_bumped():
     by hand drifts by pixels per second); the policy never sees the truth, only
     registrations."""
     from vidodo.profiles import FieldProfile
-    from vidodo.track import RegistrationPolicy
+    from vidodo.tracking.registration_policy import RegistrationPolicy
 
     field = FieldProfile(6, 6, 0.6096)
     fps = 30.0

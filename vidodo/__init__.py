@@ -9,7 +9,8 @@ grade a run                :func:`grade_run` (video + log + profiles -> :class:`
 grade from a truth track   :func:`grade_tracks`, :func:`read_track_csv`
 settings                   :class:`GradeSettings`, :class:`Tolerances`
 load profiles              :func:`load_robot`, :func:`load_field`, :func:`load_camera`
-track a video              :func:`track_video` (the truth track with its 1-sigma)
+track a video              :func:`track_video` (the truth track with its 1-sigma),
+                           :class:`TrackSettings`
 read a log                 :func:`read_log`
 rebuild odometry           :func:`odometry_result`
 fit a profile              :class:`FitRun`, :func:`fit_profile`, :func:`tune_profile`
@@ -41,7 +42,8 @@ _HOME = {
     "load_robot": "profiles",
     "load_field": "profiles",
     "load_camera": "profiles",
-    "track_video": "track",
+    "track_video": "tracking.tracker",
+    "TrackSettings": "tracking.settings",
     "read_log": "logs",
     "odometry_result": "odometry",
     "FitRun": "profile_fit",

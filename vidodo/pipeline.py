@@ -130,7 +130,7 @@ class GradeResult:
     passed: dict = field(default_factory=dict)
     """Per source: True, False or None (no tolerance)."""
     floor_poses: object = None
-    """:class:`~vidodo.floor_poses.FloorPoses` the truth track was measured with (written
+    """:class:`~vidodo.tracking.floor_poses.FloorPoses` the truth track was measured with (written
     as ``track.floor.csv``), or None when not known."""
 
     @property
@@ -254,7 +254,7 @@ class _SourceGrade:
 
 def _truth_parts(truth):
     """A truth DataFrame, its quality figures and warnings from a DataFrame or a
-    :class:`~vidodo.track.TrackResult`."""
+    :class:`~vidodo.tracking.result.TrackResult`."""
     if isinstance(truth, pd.DataFrame):
         return truth, {}, []
     return truth.track, dict(truth.quality), list(truth.warnings)
@@ -615,9 +615,9 @@ def grade_run(video, log, robot, field, camera=None, *, settings=None, track=Non
 
 def _track_recorded(video, robot, field, camera, registrar, progress):
     """Track the video, keeping the floor registrations the track was measured with."""
-    from .floor_poses import FloorPoses, RecordingRegistrar
     from .registration.registrar import FloorRegistrar
-    from .track import track_video
+    from .tracking.floor_poses import FloorPoses, RecordingRegistrar
+    from .tracking.tracker import track_video
 
     recorder = RecordingRegistrar(registrar if registrar is not None
                                   else FloorRegistrar(field, camera))
@@ -629,7 +629,7 @@ def _track_recorded(video, robot, field, camera, registrar, progress):
 
 def _sibling_floor_poses(track):
     """The registrations saved beside a track CSV, or None when there are none."""
-    from .floor_poses import floor_poses_path, read_floor_poses
+    from .tracking.floor_poses import floor_poses_path, read_floor_poses
 
     p = floor_poses_path(track)
     return read_floor_poses(p) if p.is_file() else None

@@ -136,9 +136,9 @@ def registration_summary(data, *, max_width_px: int = 960) -> RegistrationSummar
     max_width_px : int
         Widest picture [px]; larger frames are shrunk.
     """
-    from .floor_poses import read_floor_poses
     from .profiles import load_camera, load_field
     from .report.replay import grade_input
+    from .tracking.floor_poses import read_floor_poses
 
     folder = None if data.folder is None else Path(data.folder)
     poses_path = None if folder is None else folder / "track.floor.csv"

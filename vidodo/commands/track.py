@@ -33,7 +33,7 @@ def add_arguments(parser):
     parser.add_argument("--robot", type=Path, required=True, help="robot profile (TOML)")
     parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
     parser.add_argument("--camera", type=Path, help="camera profile (TOML): lens, readout")
-    from ..track import REFINE_METHODS
+    from ..tracking.detector import REFINE_METHODS
 
     add_out(parser, "track CSV to write", required=True)
     add_force(parser, "file")
@@ -75,7 +75,7 @@ FLOOR_SIGNATURE = b"t_s,ok,method,"
 
 
 def _targets(args):
-    from ..floor_poses import floor_poses_path
+    from ..tracking.floor_poses import floor_poses_path
 
     out = Path(args.out)
     return ((out, TRACK_SIGNATURE), (out.with_suffix(".quality.json"), QUALITY_SIGNATURE),
@@ -87,8 +87,8 @@ def _inputs(args):
 
 
 def _write(result, out: Path, args=None, registrations=()):
-    from ..floor_poses import floor_poses_path, write_floor_poses
-    from ..track import save_track_csv
+    from ..tracking.floor_poses import floor_poses_path, write_floor_poses
+    from ..tracking.result import save_track_csv
 
     kw = {} if args is None else dict(inputs=_inputs(args), force=args.force)
     with atomic_file(out, signature=TRACK_SIGNATURE, **kw) as tmp:
@@ -105,10 +105,11 @@ def _write(result, out: Path, args=None, registrations=()):
 
 def run(args) -> int:
     """Track, write the CSV (also the part before a truncation), report."""
-    from ..floor_poses import RecordingRegistrar
     from ..input_checks import camera_matches_video
     from ..outputs import check_file_target
-    from ..track import track_video
+    from ..tracking.floor_poses import RecordingRegistrar
+    from ..tracking.settings import TrackSettings
+    from ..tracking.tracker import track_video
     from ..video import VideoTruncatedError
 
     for path, sig in _targets(args):
@@ -122,9 +123,10 @@ def run(args) -> int:
     readout = None if args.readout_ms is None else args.readout_ms / 1000.0
     try:
         with Progress(desc="tracking", quiet=args.quiet) as bar:
-            result = track_video(args.video, robot, field, camera, registrar=registrar,
-                                 progress=bar, refine=args.refine, readout_s=readout,
-                                 max_gap_s=args.max_gap_s, detector=args.detector)
+            settings = TrackSettings(refine=args.refine, detector=args.detector,
+                                     readout_s=readout, max_gap_s=args.max_gap_s)
+            result = track_video(args.video, robot, field, camera, settings,
+                                 registrar=registrar, progress=bar)
     except RegistrationRefused as exc:
         registration_options.write_preview(exc, args.out.with_suffix(".preview.png"))
         raise

@@ -116,7 +116,7 @@ def write_outputs(result, out_dir, *, write_track=True) -> list[Path]:
             names.append("track.csv")
             poses = getattr(result, "floor_poses", None)
             if poses is not None and len(poses):
-                from ..floor_poses import write_floor_poses
+                from ..tracking.floor_poses import write_floor_poses
 
                 write_floor_poses(poses.registrations, stage / "track.floor.csv",
                                   detection_readout_s=poses.detection_readout_s)

@@ -18,7 +18,7 @@ Cost (``benchmarks/replay_speed.py``): by default the replay is half the footage
 (:data:`DEFAULT_SCALE`; ``scale=1`` for full size) and encoded with a fast x264 preset
 (:data:`ENCODER_PRESET`); the floor is registered when the tracker would register it
 (every frame while the camera moves, once a second while it is still: the policy of
-:class:`vidodo.track.RegistrationPolicy`), not on every frame.
+:class:`vidodo.tracking.registration_policy.RegistrationPolicy`), not on every frame.
 """
 
 from __future__ import annotations
@@ -454,7 +454,7 @@ def _register_fn(registration, field, camera):
     """``register(frame, t_s, mask_fn, index)`` -> the registration in effect for a frame
     (see :func:`write_replay`, ``registration``)."""
     if registration is None or hasattr(registration, "register"):
-        from ..track import RegistrationPolicy
+        from ..tracking.registration_policy import RegistrationPolicy
 
         if registration is None:
             if field is None:
@@ -492,7 +492,8 @@ class ReplaySetup:
     registration: object = None
     """One FrameRegistration for every frame (fixed camera); a registrar (e.g. the one
     the tracker used, which saves registering the first frame from scratch again) run
-    when :class:`vidodo.track.RegistrationPolicy` says so (as while tracking); or
+    when :class:`vidodo.tracking.registration_policy.RegistrationPolicy` says so (as
+    while tracking); or
     ``f(frame_bgr, t_s, mask) -> FrameRegistration`` called on every frame. Default: a
     new :class:`vidodo.registration.registrar.FloorRegistrar` for ``field`` and
     ``camera``, run as a registrar."""
@@ -688,9 +689,9 @@ def grade_registration(folder, field, camera=None, points=None):
     points CSV when it had one), which the replay runs on the tracker's schedule, and
     ``readout_s`` is 0.
     """
-    from ..floor_poses import read_floor_poses
     from ..registration.frame import failed
     from ..registration.registrar import FloorRegistrar
+    from ..tracking.floor_poses import read_floor_poses
 
     path = None if folder is None else Path(folder) / "track.floor.csv"
     if path is not None and path.is_file():

@@ -4,7 +4,7 @@ OpenCV's ArUco module needs about 3 px per marker cell to find a tag; the AprilT
 library (Krogius et al., IROS 2019), reached through the ``pupil-apriltags`` wrapper,
 still finds tags of 36h11 at about 1.6 px per cell (real photos, ``benchmarks/
 detector_table.py``). Far-side detection decides how large a field one phone covers,
-so :class:`vidodo.track.MarkerDetector` calls this library where OpenCV finds nothing
+so :class:`vidodo.tracking.detector.MarkerDetector` calls this library where OpenCV finds nothing
 (``detector='auto'``, the default, when the library is installed) or always
 (``detector='apriltag3'``). Only AprilTag families are covered: OpenCV's
 ``DICT_APRILTAG_16h5``, ``25h9`` and ``36h11`` are the library's ``tag16h5``,

@@ -27,7 +27,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .errors import InputError
+from ..errors import InputError
 
 __all__ = ["RecordingRegistrar", "FloorPoses", "write_floor_poses", "read_floor_poses",
            "floor_poses_path"]
@@ -127,7 +127,7 @@ class FloorPoses:
 
 
 def _frame_registration(row, dist_cols):
-    from .registration.frame import FrameRegistration
+    from ..registration.frame import FrameRegistration
 
     k = np.array([[row["fx_px"], 0.0, row["cx_px"]], [0.0, row["fy_px"], row["cy_px"]],
                   [0.0, 0.0, 1.0]])

@@ -1,0 +1,75 @@
+"""The truth track's result and its CSV file."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import pandas as pd
+
+from ..errors import InputError
+
+__all__ = ["TRACK_COLUMNS", "REGISTRATION_COLUMNS", "TrackResult", "save_track_csv",
+           "load_track_csv"]
+
+TRACK_COLUMNS = [
+    "t_s", "x_m", "y_m", "heading_rad", "sigma_xy_m", "sigma_heading_rad", "vx_mps",
+    "vy_mps", "speed_mps", "omega_radps", "ax_mps2", "ay_mps2", "detected", "interpolated",
+]
+REGISTRATION_COLUMNS = ["t_s", "ok", "rms_px", "rms_floor_m", "fresh"]
+
+
+# ----------------------------------------------------------------------- results
+@dataclass(frozen=True)
+class TrackResult:
+    """The truth track of one video and how far to trust it."""
+
+    track: pd.DataFrame
+    """One row per video frame, columns :data:`TRACK_COLUMNS` (SI units, floor frame;
+    ``sigma_xy_m`` is the RMS of the position error magnitude: the smoother's
+    uncertainty from the fresh part of the corner noise, plus the persistent part (both
+    estimated from the rigid fits' residuals, over the run by
+    :func:`estimate_corner_noise` and around each frame by :func:`local_corner_noise`,
+    and scaled per signal by the smoother's innovation likelihood), an optional common
+    shift of all corners (``corner_bias_px`` per axis) and the registration's
+    prediction error, carried to the floor at the marker's image scale;
+    ``sigma_heading_rad`` likewise from the fresh and persistent corner noise)."""
+    quality: dict
+    """Frames, detection fraction, marker cell size [px], gaps, dropped/duplicated
+    frames, registration statistics, readout time [s], corner noise [px]."""
+    warnings: list = field(default_factory=list)
+    """Plain-language warnings about anything that makes the track less certain."""
+    registrations: pd.DataFrame | None = None
+    """Per frame: t_s, ok, rms_px, rms_floor_m of the registration in effect, and
+    ``fresh`` (registered on this very frame)."""
+    timings_s: dict = field(default_factory=dict)
+    """Seconds per stage (``decode``, ``register``, ``detect``, ``smooth``; see
+    :mod:`vidodo.timings`)."""
+
+
+
+# ------------------------------------------------------------------------- files
+def save_track_csv(result, path):
+    """Write the truth track as CSV (columns :data:`TRACK_COLUMNS`, SI units)."""
+    track = result.track if isinstance(result, TrackResult) else result
+    track.to_csv(path, index=False, columns=TRACK_COLUMNS, float_format="%.9g")
+
+
+def load_track_csv(path) -> pd.DataFrame:
+    """Read a truth track written by :func:`save_track_csv`.
+
+    Raises
+    ------
+    InputError
+        If the file is missing or a column is absent.
+    """
+    try:
+        df = pd.read_csv(path)
+    except FileNotFoundError:
+        raise InputError(f"{path}: track file not found; run 'vidodo track' first") from None
+    missing = [c for c in TRACK_COLUMNS if c not in df.columns]
+    if missing:
+        raise InputError(f"{path}: column '{missing[0]}' missing; is this a vidodo track CSV?")
+    for c in ("detected", "interpolated"):
+        df[c] = df[c].astype(str).str.lower().isin(("true", "1"))
+    return df[TRACK_COLUMNS]
+
