@@ -510,7 +510,8 @@ def test_new_robot_picture_over_a_users_png_is_refused(run, tmp_path, capsys):
     answers.write_text("")
     _users_png(tmp_path / "robot.png")
     check(capsys, ["new-robot", "--answers", answers, "--out", tmp_path / "robot.toml"], 2,
-          r"robot\.png: exists and was not written by vidodo", tmp_path)
+          r"robot\.png: exists and was not written by vidodo \(or by a version before "
+          r"its pictures carried vidodo's mark\); add --force to overwrite it", tmp_path)
     assert not (tmp_path / "robot.toml").exists()
     assert main(["new-robot", "--answers", str(answers), "--out",
                  str(tmp_path / "robot.toml"), "--force"]) == 0
@@ -570,7 +571,7 @@ def test_one_usable_sample_names_the_file(run, tmp_path, capsys, which):
               out)
     else:  # a measuring-stage error (exit 3), given the file names by the command
         check(capsys, grade_argv(run, out), 3,
-              r"track\.csv.*: truth track has only 1 usable samples", run, out)
+              r"track\.csv.*: truth track has only 1 usable sample;", run, out)
     check(capsys, ["odometry", run / "log.csv", "--robot", run / "robot.toml", "--out",
                    tmp_path / "odo.csv"], 0 if which == "track" else 2,
           None if which == "track" else r"log\.csv: fewer than two samples", run)

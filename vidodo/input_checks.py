@@ -60,7 +60,7 @@ def camera_matches_video(camera, video_path) -> None:
 def with_file_names(exc: Exception, paths) -> Exception:
     """``exc`` with the input files put in front of its message if it names none of them.
 
-    Errors from the measuring stages ("only 1 usable samples") do not know which files
+    Errors from the measuring stages ("only 1 usable sample") do not know which files
     they came from; the command does.
     """
     names = [str(p) for p in paths if p is not None]

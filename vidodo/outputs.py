@@ -380,9 +380,13 @@ def check_file_target(path, *, inputs=(), force=False, signature=None):
                     ours = fh.read(len(signature)) == signature
         except OSError as exc:
             raise OutputError(_os_message(exc, path)) from None
+        if not ours and callable(signature):  # a PNG: older vidodo ones lack the mark
+            raise OutputError(f"{path}: exists and was not written by vidodo (or by a "
+                              "version before its pictures carried vidodo's mark); add "
+                              "--force to overwrite it, or choose another file name")
         if not ours:
             raise OutputError(f"{path}: exists and was not written by vidodo; choose "
-                              "another file name, or add --force to replace it")
+                              "another file name, or add --force to overwrite it")
 
 
 @contextlib.contextmanager

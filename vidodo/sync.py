@@ -495,7 +495,8 @@ def estimate_clock(truth_track, odometry, *, source=None, window_s=1.0, fit_rate
         raise SyncError("no odometry source to synchronise; check the robot profile")
     tt, pt = _usable_truth(truth_track)
     if len(tt) < 10:
-        raise SyncError(f"truth track has only {len(tt)} usable samples; nothing to line up")
+        raise SyncError(f"truth track has only {len(tt)} usable "
+                        f"sample{'' if len(tt) == 1 else 's'}; nothing to line up")
     sig_xy = _typical(truth_track, "sigma_xy_m", 0.002)
     sig_h = _typical(truth_track, "sigma_heading_rad", math.radians(0.5))
     # motion in the truth track
