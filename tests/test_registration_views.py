@@ -117,13 +117,13 @@ def test_replay_ring_on_true_marker(graded, handheld, path):
             assert centre is not None, f"{path}: no truth ring near the marker in frame {i}"
             errs.append(math.hypot(*(centre - exp)))
     assert len(errs) >= 8
-    # Target 1 px in every sampled frame. The automatic path measured 1.01 px in one frame
-    # of 12 (median 0.36 px) once the footage was encoded through PyAV: its registration is
-    # re-made per hand-held frame from the seams, so it is allowed 1.1 px until that is
-    # improved; the points and track paths reuse the registrations the track was made with.
-    limit_px = 1.1 if path == "automatic" else 1.0
+    # 1 px in every sampled frame (issue 16). The ring is placed within 0.15 px of the
+    # true marker; what moved the measured centre up to 1 px was the video's colour: the
+    # anti-aliased ring's edges over the black-and-white marker, through the
+    # half-resolution colour planes of the encoding, pulled the green pixels sideways. The
+    # ring has a dark halo since (replay._ring).
     assert float(np.median(errs)) <= 0.6, (path, np.round(errs, 2))
-    assert max(errs) <= limit_px, (path, np.round(errs, 2))
+    assert max(errs) <= 1.0, (path, np.round(errs, 2))
 
 
 def test_report_registration_section_shows_the_grid(browser, graded, handheld):  # noqa: F811

@@ -13,13 +13,16 @@ and a pixel or two wide, so each candidate is located from the seams themselves:
    line directions, weighted by line strength.
 3. Each line is sampled across every pixel along +-``half_px`` (the crossing itself
    left out), the cross-sections averaged in a few groups per arm, the seam centre
-   located in each group's mean profile, and a straight line fitted to the centres
-   (total least squares). Lens distortion bends a seam by far less than a pixel over
-   so short a span. The last pass models the profile as a line plus a brightness step
-   on the same centre (neighbouring tiles differ in brightness, which would otherwise
-   pull the centre towards the darker tile).
-4. The candidate is the intersection of the two lines; candidates whose lines are too
-   short, too noisy or meet far from the start are dropped.
+   located in each group's mean profile (parabola vertex), and a straight line fitted
+   to the centres (total least squares); the two lines give a rough crossing.
+4. Last, each seam is followed along whole tile edges, up to the next rough crossing on
+   it (or ``long_half_px``), in groups of ``group_px``: each group's centre comes from a
+   model of the profile as a line plus a brightness step on the same centre
+   (neighbouring tiles differ in brightness, which would otherwise pull the centre
+   towards the darker tile); the fit grows outwards from the crossing while the groups
+   agree and is a quadratic where the seam measurably bends (lens distortion), so no
+   camera profile is needed. The candidate is where the two curves cross; candidates
+   whose seams are too short, too noisy or meet far from the start are dropped.
 """
 
 from __future__ import annotations
@@ -30,7 +33,8 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-__all__ = ["CornerSettings", "line_strength", "refine_crossing", "corner_candidates"]
+__all__ = ["CornerSettings", "line_strength", "refine_crossing", "polish_crossing",
+           "corner_candidates"]
 
 
 @dataclass(frozen=True)
@@ -64,6 +68,13 @@ class CornerSettings:
     """Largest distance between the start and the located crossing [px]."""
     min_angle_deg: float = 20.0
     """Smallest angle between the two lines [deg]."""
+    long_half_px: float = 110.0
+    """Longest arm of each seam sampled in the last pass, when no other candidate on
+    the seam stops it sooner [px]."""
+    group_px: float = 10.0
+    """Length of seam averaged into one cross-section in the last pass [px]."""
+    min_groups: int = 6
+    """Fewest groups (both arms together) the last pass fits a seam to."""
 
 
 def _hessian(grey, sigma_px):
@@ -120,15 +131,14 @@ def _directions(strength, angle, p, half, min_angle_rad):
     return [(i + 0.5) * np.pi / bins for i in (i1, i2)]
 
 
-def _fit_line(img, p, theta, cfg: CornerSettings, precise=False):
+def _fit_line(img, p, theta, cfg: CornerSettings):
     """Fit one seam through about ``p`` at angle ``theta``: (point, direction, rms) or None.
 
     The cross-sections of each arm are averaged in ``cfg.chunks`` groups (a faint seam
-    on a grainy floor is located by its mean profile, not by single sections). While the
-    line is found, each group's centre is the vertex of the parabola through the
-    extreme of the mean profile and its neighbours 0.5 px either side; with ``precise``
-    a last pass models the seam and the brightness step across it
-    (:func:`_line_centres`).
+    on a grainy floor is located by its mean profile, not by single sections); each
+    group's centre is the vertex of the parabola through the extreme of the mean
+    profile and its neighbours 0.5 px either side (:func:`polish_crossing` then locates
+    the seam precisely).
     """
     d = np.array([math.cos(theta), math.sin(theta)])
     centre = np.asarray(p, float)
@@ -140,8 +150,7 @@ def _fit_line(img, p, theta, cfg: CornerSettings, precise=False):
     sizes = np.array([g.size for g in groups], float)
     across = np.arange(-cfg.across_px, cfg.across_px + 1e-9, 0.25)
     fit = None
-    passes = 3 if precise else 2
-    for k in range(passes):
+    for _ in range(2):
         n = np.array([-d[1], d[0]])
         pts = centre + along[:, None] * d
         grid = pts[:, None, :] + across[None, :, None] * n
@@ -150,7 +159,7 @@ def _fit_line(img, p, theta, cfg: CornerSettings, precise=False):
         mean = np.add.reduceat(prof, starts, axis=0) / sizes[:, None]
         if not np.all(np.isfinite(mean)):
             return None
-        off = _line_centres(across, mean) if k == 2 else _quick_centres(across, mean)
+        off = _quick_centres(across, mean)
         if off is None:
             return None
         samples = centre + at[:, None] * d + off[:, None] * n
@@ -183,9 +192,9 @@ def _quick_centres(across, mean):
     return across[k] + 0.25 * (y0 - y2) / den
 
 
-def _line_centres(across, profiles, widths_px=(0.5, 0.7, 1.0, 1.4, 2.0), reach_px=2.5,
+def _line_centres(across, profiles, widths_px=(0.5, 0.7, 1.0, 1.4, 2.0), reach_px=1.0,
                   step_px=0.05):
-    """Centre of a thin line in each cross-section profile, (G,) [px] or None.
+    """Centre of a thin line in each cross-section profile, (G,) [px] (NaN where none).
 
     The tiles on the two sides of a seam often differ in brightness, and that step
     pulls the darkest point of the blurred profile towards the darker tile. So each
@@ -229,7 +238,7 @@ def _line_centres(across, profiles, widths_px=(0.5, 0.7, 1.0, 1.4, 2.0), reach_p
         better = ok & (y1 < best)
         best = np.where(better, y1, best)
         centre = np.where(better, m_best, centre)
-    return None if not np.all(np.isfinite(centre)) else centre
+    return centre
 
 
 def _line_through(samples):
@@ -249,7 +258,30 @@ def _intersect(q1, d1, q2, d2):
     return q1 + s[0] * d1
 
 
-def refine_crossing(img, strength, angle, p, cfg: CornerSettings | None = None, dirs=None):
+def _seam_lines(img, strength, angle, p, cfg: CornerSettings, dirs=None):
+    """The two seams through about ``p`` on short arms: (crossing, d1, d2) or None."""
+    if dirs is None:
+        dirs = _directions(strength, angle, p, cfg.half_px * 0.6,
+                           math.radians(cfg.min_angle_deg))
+    if dirs is None:
+        return None
+    lines = []
+    for theta in dirs:
+        fit = _fit_line(img, p, theta, cfg)
+        if fit is None or fit[2] > cfg.max_rms_px:
+            return None
+        lines.append(fit)
+    (q1, d1, _), (q2, d2, _) = lines
+    if abs(float(d1[0] * d2[1] - d1[1] * d2[0])) < math.sin(math.radians(cfg.min_angle_deg)):
+        return None
+    x = _intersect(q1, d1, q2, d2)
+    if x is None or np.linalg.norm(x - np.asarray(p, float)) > cfg.max_shift_px:
+        return None
+    return x, d1, d2
+
+
+def refine_crossing(img, strength, angle, p, cfg: CornerSettings | None = None, dirs=None,
+                    others=None):
     """Locate the seam crossing nearest ``p`` to a fraction of a pixel.
 
     Parameters
@@ -263,6 +295,9 @@ def refine_crossing(img, strength, angle, p, cfg: CornerSettings | None = None, 
     dirs : (float, float), optional
         Directions of the two seams [rad]; default from the line directions around
         ``p``.
+    others : ndarray (M, 2), optional
+        Other crossings [px]: a seam is followed up to the next one on it (default: up
+        to ``cfg.long_half_px``).
 
     Returns
     -------
@@ -270,33 +305,187 @@ def refine_crossing(img, strength, angle, p, cfg: CornerSettings | None = None, 
         The crossing [px], or None when two straight seams are not found there.
     """
     cfg = cfg or CornerSettings()
-    if dirs is None:
-        dirs = _directions(strength, angle, p, cfg.half_px * 0.6,
-                           math.radians(cfg.min_angle_deg))
-    if dirs is None:
+    found = _seam_lines(img, strength, angle, p, cfg, dirs)
+    if found is None:
         return None
-    lines = []
-    for theta in dirs:
-        fit = _fit_line(img, p, theta, cfg)
-        if fit is None or fit[2] > cfg.max_rms_px:
-            return None
-        lines.append(fit)
-    if _intersect(lines[0][0], lines[0][1], lines[1][0], lines[1][1]) is None:
-        return None
-    precise = []
-    for q, d, _ in lines:
-        fit = _fit_line(img, q, math.atan2(d[1], d[0]), cfg, precise=True)
-        if fit is None or fit[2] > cfg.max_rms_px:
-            return None
-        precise.append(fit)
-    lines = precise
-    (q1, d1, _), (q2, d2, _) = lines
-    if abs(float(d1[0] * d2[1] - d1[1] * d2[0])) < math.sin(math.radians(cfg.min_angle_deg)):
-        return None
-    x = _intersect(q1, d1, q2, d2)
+    x = polish_crossing(img, *found, others=others, cfg=cfg)
     if x is None or np.linalg.norm(x - np.asarray(p, float)) > cfg.max_shift_px:
         return None
     return x
+
+
+def _arm_reach(x, d, d_other, others, cfg: CornerSettings):
+    """How far the seam through ``x`` along ``d`` is followed: (back_px, ahead_px).
+
+    Up to ``cfg.long_half_px``, or short of the next crossing on the seam (where the
+    other seam there enters the cross-sections).
+    """
+    back = ahead = cfg.long_half_px
+    if others is None or len(others) == 0:
+        return back, ahead
+    n = np.array([-d[1], d[0]])
+    rel = np.asarray(others, float) - x
+    along, off = rel @ d, np.abs(rel @ n)
+    on = (off < np.maximum(3.0, 0.1 * np.abs(along))) & (np.abs(along) > 2 * cfg.gap_px)
+    sin_a = max(abs(float(d[0] * d_other[1] - d[1] * d_other[0])), 0.2)
+    stop = cfg.gap_px + cfg.across_px * math.sqrt(1 - sin_a ** 2) / sin_a + 1.0
+    if np.any(on & (along > 0)):
+        ahead = min(ahead, float(np.min(along[on & (along > 0)])) - stop)
+    if np.any(on & (along < 0)):
+        back = min(back, float(np.min(-along[on & (along < 0)])) - stop)
+    return back, ahead
+
+
+def _group_centres(img, x, d, reach, cfg: CornerSettings):
+    """Seam centre in groups of cross-sections along both arms from ``x``.
+
+    Returns
+    -------
+    (ndarray (G,), ndarray (G,)) or None
+        Position of each group along ``d`` and the seam centre across it [px]; groups
+        reaching out of the frame are left out.
+    """
+    n = np.array([-d[1], d[0]])
+    m = max(int(round(cfg.group_px)), 1)
+    arms = []
+    for sign, length in zip((-1.0, 1.0), reach, strict=True):
+        k = int((length - cfg.gap_px) // m)
+        if k > 0:
+            arms.append(sign * (cfg.gap_px + np.arange(k * m, dtype=float)).reshape(k, m))
+    if not arms:
+        return None
+    along = np.vstack(arms)  # (G, m)
+    across = np.arange(-cfg.across_px, cfg.across_px + 1e-9, 0.25)
+    grid = (x + along[..., None] * d)[:, :, None, :] + across[None, None, :, None] * n
+    prof = cv2.remap(img, grid[..., 0].reshape(-1, across.size).astype(np.float32),
+                     grid[..., 1].reshape(-1, across.size).astype(np.float32),
+                     cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=np.nan)
+    mean = prof.reshape(along.shape[0], m, across.size).mean(axis=1)
+    inside = np.all(np.isfinite(mean), axis=1)
+    if inside.sum() < cfg.min_groups:
+        return None
+    off = _line_centres(across, mean[inside])
+    found = np.isfinite(off)
+    if found.sum() < cfg.min_groups:
+        return None
+    return along[inside][found].mean(axis=1), off[found]
+
+
+def _poly_fit(at, off, two_arms, f_min=9.0):
+    """Least-squares ``(c2, c1, c0)``: a straight line, or a quadratic when both arms are
+    there and the bend lowers the residual significantly (F statistic of the extra
+    term above ``f_min``, about 3 standard deviations)."""
+    ones = np.ones_like(at)
+    lin = np.column_stack([np.zeros_like(at), at, ones])
+    coef = np.linalg.lstsq(lin, off, rcond=None)[0]
+    if not two_arms or at.size < 6:
+        return coef
+    quad = np.linalg.lstsq(np.vander(at, 3), off, rcond=None)[0]
+    rss_lin = float(np.sum((off - lin @ coef) ** 2))
+    rss_quad = float(np.sum((off - np.vander(at, 3) @ quad) ** 2))
+    if (rss_lin - rss_quad) > f_min * max(rss_quad, 1e-12) / (at.size - 3):
+        return quad
+    return coef
+
+
+def _seam_curve(at, off, cfg: CornerSettings, near_px=30.0, tol_px=0.3):
+    """Seam centre across the line as a function of the position along it.
+
+    The fit grows outwards from the crossing: first the groups within ``near_px`` (a
+    straight line), then each further group in turn while it lies within ``tol_px``
+    (or 3 RMS) of the curve so far; an arm ends at its first group that does not (the
+    seam ends at the field edge, or something covers it). The curve is a straight line,
+    or a quadratic where the seam measurably bends (a straight seam seen through a lens
+    bends; over one tile edge the bend is close to a parabola), see :func:`_poly_fit`.
+
+    Returns
+    -------
+    (ndarray (3,), float) or None
+        Coefficients ``(c2, c1, c0)`` of ``off = c2 at^2 + c1 at + c0`` and the RMS of
+        the groups used about it [px].
+    """
+    order = np.argsort(np.abs(at))
+    keep = np.abs(at) <= near_px
+    if keep.sum() < 3:
+        keep = np.zeros(at.size, bool)
+        keep[order[:3]] = True
+    coef = _poly_fit(at[keep], off[keep], False)
+    ended = set()
+    for k in order:
+        if keep[k] or np.sign(at[k]) in ended:
+            continue
+        resid = off[keep] - np.polyval(coef, at[keep])
+        rms = float(np.sqrt(np.mean(resid ** 2)))
+        if abs(off[k] - np.polyval(coef, at[k])) > max(tol_px, 3 * rms):
+            ended.add(np.sign(at[k]))
+            continue
+        keep[k] = True
+        both = np.sum(keep & (at < 0)) >= 3 and np.sum(keep & (at > 0)) >= 3
+        coef = _poly_fit(at[keep], off[keep], both)
+    if keep.sum() < cfg.min_groups:
+        return None
+    resid = off[keep] - np.polyval(coef, at[keep])
+    return coef, float(np.sqrt(np.mean(resid ** 2)))
+
+
+def _cross_curves(x, d1, c1, d2, c2):
+    """Where two seams ``x + s d + off(s) n`` cross (Newton from ``x``), or None."""
+    n1, n2 = np.array([-d1[1], d1[0]]), np.array([-d2[1], d2[0]])
+    s = np.zeros(2)
+    for _ in range(10):
+        p1 = x + s[0] * d1 + np.polyval(c1, s[0]) * n1
+        p2 = x + s[1] * d2 + np.polyval(c2, s[1]) * n2
+        jac = np.column_stack([d1 + np.polyval(np.polyder(c1), s[0]) * n1,
+                               -(d2 + np.polyval(np.polyder(c2), s[1]) * n2)])
+        if abs(np.linalg.det(jac)) < 1e-6:
+            return None
+        step = np.linalg.solve(jac, p2 - p1)
+        s += step
+        if np.max(np.abs(step)) < 1e-6:
+            break
+    return x + s[0] * d1 + np.polyval(c1, s[0]) * n1
+
+
+def polish_crossing(img, x, d1, d2, *, others=None, cfg: CornerSettings | None = None):
+    """Locate a seam crossing precisely from the seams along whole tile edges.
+
+    Each seam is followed both ways from the rough crossing ``x`` up to the next
+    crossing on it (``others``) or ``cfg.long_half_px``; its cross-sections are
+    averaged in groups of ``cfg.group_px``, the seam centre of each group located with
+    the brightness step across it modelled (:func:`_line_centres`), and a quadratic
+    (:func:`_seam_curve`) fitted to the centres. The crossing is where the two curves
+    meet.
+
+    Parameters
+    ----------
+    img : ndarray (H, W) float32
+        The frame in grey, blurred by ``cfg.sigma_px``.
+    x : array_like (2,)
+        Rough crossing [px].
+    d1, d2 : array_like (2,)
+        Unit directions of the two seams.
+    others : ndarray (M, 2), optional
+        Other crossings [px].
+
+    Returns
+    -------
+    ndarray (2,) or None
+        The crossing [px], or None when a seam is not found or is not smooth.
+    """
+    cfg = cfg or CornerSettings()
+    x = np.asarray(x, float)
+    d1, d2 = (np.asarray(d, float) / np.linalg.norm(d) for d in (d1, d2))
+    curves = []
+    for d, d_other in ((d1, d2), (d2, d1)):
+        groups = _group_centres(img, x, d, _arm_reach(x, d, d_other, others, cfg), cfg)
+        fit = None if groups is None else _seam_curve(*groups, cfg)
+        if fit is None or fit[1] > cfg.max_rms_px:
+            return None
+        curves.append(fit[0])
+    out = _cross_curves(x, d1, curves[0], d2, curves[1])
+    if out is None or np.linalg.norm(out - x) > cfg.max_shift_px:
+        return None
+    return out
 
 
 def _crossing_seeds(strength, cfg: CornerSettings):
@@ -365,17 +554,26 @@ def corner_candidates(grey, cfg: CornerSettings | None = None):
     start = _crossing_seeds(strength, cfg)
     if start is None:
         return np.zeros((0, 2))
-    out = np.zeros((0, 2))
+    rough = []
     for row in start:
         p = row[:2]
-        if len(out) and np.min(np.sum((out - p) ** 2, axis=1)) < cfg.min_distance_px ** 2:
+        if rough and np.min(np.sum((np.array([r[0] for r in rough]) - p) ** 2, axis=1)) \
+                < cfg.min_distance_px ** 2:
             continue  # a crossing already found here
-        x = refine_crossing(img, strength, angle, p, cfg, dirs=(row[2], row[3]))
-        if x is None:
+        found = _seam_lines(img, strength, angle, p, cfg, dirs=(row[2], row[3]))
+        if found is not None:
+            rough.append(found)
+    if not rough:
+        return np.zeros((0, 2))
+    xs = np.array([r[0] for r in rough])
+    out = np.zeros((0, 2))
+    for k, (x, d1, d2) in enumerate(rough):
+        fine = polish_crossing(img, x, d1, d2, others=np.delete(xs, k, axis=0), cfg=cfg)
+        if fine is None:
             continue
-        if len(out) and np.min(np.sum((out - x) ** 2, axis=1)) < (cfg.min_distance_px / 2) ** 2:
+        if len(out) and np.min(np.sum((out - fine) ** 2, axis=1)) < (cfg.min_distance_px / 2) ** 2:
             continue
-        out = np.vstack([out, x])
+        out = np.vstack([out, fine])
         if len(out) >= cfg.max_candidates:
             break
     return out

@@ -64,6 +64,7 @@ TRUTH_BGR = (0, 255, 0)
 TRUTH_TRAIL_BGR = (40, 160, 40)
 """Colour of the truth track already driven."""
 _HEADING_BGR = (255, 255, 255)
+_HALO_BGR = (0, 0, 0)
 _PANEL_BGR = (20, 20, 20)
 
 
@@ -280,14 +281,21 @@ def _polyline(img, pts, color, thickness):
         cv2.polylines(img, [arr], False, color, thickness, cv2.LINE_AA, shift=4)
 
 
-def _ring(img, p, radius, color, thickness, cross=False):
-    cv2.circle(img, _pt(p), int(radius * 16), color, thickness, cv2.LINE_AA, shift=4)
-    if cross:
-        r = radius * 0.55
-        for d in ((r, 0), (0, r)):
-            a = (p[0] - d[0], p[1] - d[1])
-            b = (p[0] + d[0], p[1] + d[1])
-            cv2.line(img, _pt(a), _pt(b), color, max(1, thickness - 1), cv2.LINE_AA, shift=4)
+def _ring(img, p, radius, color, thickness, cross=False, halo=None):
+    """A ring (and crosshair) at ``p``; ``halo``: a colour drawn 2 px wider underneath, so
+    the ring's edges blend with one known colour whatever the floor or robot under it
+    (the ring's centre then survives anti-aliasing and the video's half-resolution
+    colour planes without a pull towards the brighter or more colourful side)."""
+    layers = ([(halo, 2)] if halo is not None else []) + [(color, 0)]
+    for c, extra in layers:
+        cv2.circle(img, _pt(p), int(radius * 16), c, thickness + extra, cv2.LINE_AA, shift=4)
+        if cross:
+            r = radius * 0.55
+            for d in ((r, 0), (0, r)):
+                a = (p[0] - d[0], p[1] - d[1])
+                b = (p[0] + d[0], p[1] + d[1])
+                cv2.line(img, _pt(a), _pt(b), c, max(1, thickness - 1) + extra, cv2.LINE_AA,
+                         shift=4)
 
 
 def annotate_frame(frame_bgr, overlay: dict, *, lines=(), colors: dict | None = None,
@@ -349,7 +357,7 @@ def annotate_frame(frame_bgr, overlay: dict, *, lines=(), colors: dict | None = 
         tip = overlay.get("truth_tip_px")
         if _finite_px(tip):
             cv2.line(img, _pt(tp), _pt(tip), _HEADING_BGR, thick, cv2.LINE_AA, shift=4)
-        _ring(img, tp, radius, TRUTH_BGR, thick + 1, cross=True)
+        _ring(img, tp, radius, TRUTH_BGR, thick + 1, cross=True, halo=_HALO_BGR)
     return img
 
 
