@@ -27,6 +27,7 @@ and a pixel or two wide, so each candidate is located from the seams themselves:
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -192,6 +193,27 @@ def _quick_centres(across, mean):
     return across[k] + 0.25 * (y0 - y2) / den
 
 
+@functools.lru_cache(maxsize=8)
+def _seam_tables(first_px, spacing_px, n_s, step_px, widths_px):
+    """What :func:`_line_centres` needs for every centre and width, independent of the
+    profiles: the centres ``ms`` (M,), an orthonormal basis ``q0`` (S, 2) of the constant
+    and the slope, and per width the step and line columns with ``q0`` projected out,
+    as (S, 2 M), and their 2 x 2 normal matrices (M, 2, 2)."""
+    from scipy.special import erf
+
+    across = first_px + spacing_px * np.arange(n_s)
+    ms = np.arange(across[0] + 1.0, across[-1] - 1.0 + 1e-9, step_px)
+    q0 = np.linalg.qr(np.column_stack([np.ones(n_s), across]))[0]
+    tables = []
+    for w in widths_px:
+        x = across[None, :] - ms[:, None]  # (M, S)
+        cols = np.stack([erf(x / (w * math.sqrt(2))), np.exp(-0.5 * (x / w) ** 2)], axis=-1)
+        cols = cols - np.einsum("sk,mkj->msj", q0, np.einsum("sk,msj->mkj", q0, cols))
+        ata = np.einsum("msi,msj->mij", cols, cols) + 1e-9 * np.eye(2)
+        tables.append((np.ascontiguousarray(cols.transpose(1, 0, 2).reshape(n_s, -1)), ata))
+    return ms, q0, tables
+
+
 def _line_centres(across, profiles, widths_px=(0.5, 0.7, 1.0, 1.4, 2.0), reach_px=1.0,
                   step_px=0.05):
     """Centre of a thin line in each cross-section profile, (G,) [px] (NaN where none).
@@ -200,41 +222,48 @@ def _line_centres(across, profiles, widths_px=(0.5, 0.7, 1.0, 1.4, 2.0), reach_p
     pulls the darkest point of the blurred profile towards the darker tile. So each
     profile is modelled as ``a + b x + c step(x - m) + d line(x - m)`` (a Gaussian line
     of width ``w`` and an error-function step of the same width, both centred on the
-    seam ``m``), linear in ``a..d`` for fixed ``m, w``: the centre is the ``m`` (on a
-    ``step_px`` grid near the profile's extreme, refined by a parabola through the
-    residuals) and ``w`` with the smallest residual.
+    seam ``m``), linear in ``a..d`` for fixed ``m, w``. The line must have the
+    profile's polarity; where the best fit's has not, the best with it has no line at
+    all (``d = 0``: a plain edge between two tiles). The centre is the ``m`` (on a
+    ``step_px`` grid within ``reach_px`` of the profile's extreme or of its steepest
+    slope, refined by a parabola through the residuals) and ``w`` with the smallest
+    residual.
+
+    The residual for every ``m`` at once: with ``a, b`` projected out (their columns do
+    not depend on ``m``), what is left is a 2 x 2 least-squares problem per ``m``.
     """
-    from scipy.special import erf
 
     prof = np.asarray(profiles, float)
-    g = prof.shape[0]
+    g, n_s = prof.shape
+    rows = np.arange(g)
     detr = prof - (prof[:, :1] + (prof[:, -1:] - prof[:, :1])
-                   * np.linspace(0.0, 1.0, across.size)[None, :])
+                   * np.linspace(0.0, 1.0, n_s)[None, :])
     sign = -1.0 if np.sum(np.min(detr, axis=1)) < -np.sum(np.max(detr, axis=1)) else 1.0
-    m0 = across[np.argmax(sign * detr, axis=1)]
-    grid = np.arange(-reach_px, reach_px + 1e-9, step_px)
+    # starts: the extreme (a thin line) and the steepest slope (a plain edge)
+    starts = np.column_stack([across[np.argmax(sign * detr, axis=1)],
+                              across[np.argmax(np.abs(np.gradient(prof, axis=1)), axis=1)]])
+    ms, q0, tables = _seam_tables(float(across[0]), float(across[1] - across[0]), n_s,
+                                  float(step_px), tuple(widths_px))
+    allowed = np.any(np.abs(ms[None, None, :] - starts[:, :, None]) <= reach_px + 1e-9,
+                     axis=1)  # (G, M)
+    resid = prof - (prof @ q0) @ q0.T
+    rr = np.sum(resid ** 2, axis=1)[:, None]
     best = np.full(g, np.inf)
     centre = np.full(g, np.nan)
-    for w in widths_px:
-        m = m0[:, None] + grid[None, :]  # (G, M)
-        x = across[None, None, :] - m[..., None]  # (G, M, S)
-        cols = [np.ones_like(x), np.broadcast_to(across, x.shape), erf(x / (w * math.sqrt(2))),
-                np.exp(-0.5 * (x / w) ** 2)]
-        a = np.stack(cols, axis=-1)  # (G, M, S, 4)
-        ata = np.einsum("gmsi,gmsj->gmij", a, a) + 1e-9 * np.eye(4)
-        atb = np.einsum("gmsi,gs->gmi", a, prof)
-        coef = np.linalg.solve(ata, atb[..., None])[..., 0]
-        sse = np.sum((np.einsum("gmsi,gmi->gms", a, coef) - prof[:, None, :]) ** 2, axis=2)
-        # the line must have the polarity found above
-        sse = np.where(sign * coef[..., 3] > 0, sse, 1e30)
+    for cols, ata in tables:
+        atb = (resid @ cols).reshape(g, ms.size, 2)  # (G, M, 2)
+        coef = np.linalg.solve(ata[None], atb[..., None])[..., 0]
+        sse = np.where(sign * coef[..., 1] > 0, rr - np.sum(atb * coef, axis=2),
+                       rr - atb[..., 0] ** 2 / ata[None, :, 0, 0])
+        sse = np.where(allowed, sse, np.inf)
         k = np.argmin(sse, axis=1)
-        rows = np.arange(g)
-        kk = np.clip(k, 1, grid.size - 2)
+        kk = np.clip(k, 1, ms.size - 2)
         y0, y1, y2 = sse[rows, kk - 1], sse[rows, kk], sse[rows, kk + 1]
-        den = y0 - 2 * y1 + y2
-        ok = (y1 < 1e29) & (den > 0) & (k == kk)
+        with np.errstate(invalid="ignore"):  # inf at the edges of the allowed range
+            den = y0 - 2 * y1 + y2
+        ok = np.isfinite(y0) & np.isfinite(y2) & (den > 0) & (k == kk)
         frac = np.where(ok, 0.5 * (y0 - y2) / np.where(ok, den, 1.0), 0.0)
-        m_best = m0 + grid[kk] + np.clip(frac, -1, 1) * step_px
+        m_best = ms[kk] + np.clip(frac, -1, 1) * step_px
         better = ok & (y1 < best)
         best = np.where(better, y1, best)
         centre = np.where(better, m_best, centre)
@@ -346,7 +375,8 @@ def _group_centres(img, x, d, reach, cfg: CornerSettings):
         reaching out of the frame are left out.
     """
     n = np.array([-d[1], d[0]])
-    m = max(int(round(cfg.group_px)), 1)
+    # groups of group_px, shorter on short arms (small tiles): three per arm if it can
+    m = int(np.clip((min(reach) - cfg.gap_px) // 3, 2, max(2, round(cfg.group_px))))
     arms = []
     for sign, length in zip((-1.0, 1.0), reach, strict=True):
         k = int((length - cfg.gap_px) // m)

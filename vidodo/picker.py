@@ -70,12 +70,19 @@ class PickerFrame:
 
 
 def frame_for_picker(frame_bgr, t_s: float, field: FieldProfile,
-                     settings: PickerSettings | None = None) -> PickerFrame:
-    """Candidates and fiducials of one frame, and the frame as JPEG."""
+                     settings: PickerSettings | None = None, grey=None) -> PickerFrame:
+    """Candidates and fiducials of one frame, and the frame as JPEG.
+
+    ``grey``: the frame's grey levels if known otherwise (the video's own luma plane,
+    full resolution, where the colour planes have half of it); default from the
+    colour frame.
+    """
     from .registration.floor_markers import detect_floor_markers
 
     settings = settings or PickerSettings()
-    grey = frame_bgr if frame_bgr.ndim == 2 else cv2.cvtColor(frame_bgr, cv2.COLOR_BGR2GRAY)
+    if grey is None:
+        grey = frame_bgr if frame_bgr.ndim == 2 else cv2.cvtColor(frame_bgr,
+                                                                  cv2.COLOR_BGR2GRAY)
     cand = corner_candidates(grey, settings.corners)
     fids = []
     if field.floor_markers:
@@ -98,13 +105,19 @@ def _view_shift_px(a, b) -> float:
     return math.hypot(dx, dy)
 
 
-def _read_frames(video_path, times_s):
-    """The first frame at or after each wanted time: list of (t_s, frame_bgr)."""
+def _read_frames(video_path, times_s, grey=False):
+    """The first frame at or after each wanted time: list of (t_s, frame_bgr), or with
+    ``grey`` (t_s, frame_grey) from the stream's luma plane where the reader can.
+
+    ``times_s`` may also be a function ``f(VideoInfo) -> times`` (one opening of the
+    video for both).
+    """
     from .video import VideoReader, VideoTruncatedError
 
-    want = sorted(times_s)
     got = []
-    with VideoReader(video_path, threaded=False, check_identical=False) as reader:
+    with VideoReader(video_path, threaded=False, check_identical=False,
+                     grey=grey) as reader:
+        want = sorted(times_s(reader.info) if callable(times_s) else times_s)
         try:
             for _, t_s, frame in reader:
                 while want and t_s >= want[0] - 1e-6:
@@ -127,19 +140,18 @@ def picker_frames(video_path, field: FieldProfile, *, at_s: float | None = None,
     InputError
         When the video has no frame at ``at_s``.
     """
-    from .video import VideoReader
-
     settings = settings or PickerSettings()
     path = Path(video_path)
     if not path.is_file():
         raise InputError(f"{path}: file not found; check the video path")
-    with VideoReader(path, threaded=False, check_identical=False) as reader:
-        info = reader.info
     start = 0.0 if at_s is None else float(at_s)
-    fps = info.nominal_fps if info.nominal_fps and info.nominal_fps > 0 else 30.0
-    end = info.frame_count / fps if info.frame_count else start
-    extra = settings.extra_frames
-    times = [start] + [start + (end - start) * (k + 1) / (extra + 1) for k in range(extra)]
+
+    def times(info):
+        fps = info.nominal_fps if info.nominal_fps and info.nominal_fps > 0 else 30.0
+        end = info.frame_count / fps if info.frame_count else start
+        extra = settings.extra_frames
+        return [start] + [start + (end - start) * (k + 1) / (extra + 1) for k in range(extra)]
+
     frames = _read_frames(path, times)
     if not frames:
         raise InputError(f"{path}: no frame at {start:.3f} s (the video is shorter); "
@@ -149,7 +161,15 @@ def picker_frames(video_path, field: FieldProfile, *, at_s: float | None = None,
                         interpolation=cv2.INTER_AREA) for _, f in frames]
     moving = any(2.0 * _view_shift_px(small[0], s) > settings.moved_px for s in small[1:])
     chosen = frames if moving else [first]
-    return [frame_for_picker(f, t, field, settings) for t, f in chosen]
+    # candidates from the luma plane the camera encoded (full resolution; grey made
+    # from the colour frame mixes in the half-resolution colour planes wherever the
+    # decoder's colour matrix is not the encoder's)
+    greys = _read_frames(path, [t for t, _ in chosen], grey=True)
+    greys = [g if g.ndim == 2 else None for _, g in greys]
+    if len(greys) != len(chosen):
+        greys = [None] * len(chosen)
+    return [frame_for_picker(f, t, field, settings, grey=g)
+            for (t, f), g in zip(chosen, greys, strict=True)]
 
 
 def _asset(name: str) -> str:
