@@ -30,7 +30,8 @@ field corners in view and seams visible to the eye (criterion:
 
 Run: ``.venv/bin/python benchmarks/registration_robustness.py [--seeds 0-239|1,2,5]
 [--limit N] [--jobs 1] [--lens scene|always|never] [--csv /tmp/robustness.csv]
-[--truth-points] [--from-csv FILE]``; ``--truth-points`` registers from the true pixels
+[--truth-points] [--cache DIR] [--from-csv FILE]``; ``--cache`` keeps the rendered
+scenes (pickles) for the next run; ``--truth-points`` registers from the true pixels
 of the corners in view instead (a check of the scoring itself); ``--from-csv`` prints
 the table of an earlier run.
 
@@ -77,6 +78,7 @@ import argparse
 import contextlib
 import csv
 import io
+import pickle
 import sys
 import tempfile
 import time
@@ -174,16 +176,35 @@ def _register(picture: Path, folder: Path, with_lens: bool, points=None):
     return code, (lines[-1] if lines else ""), (_CAPTURED[0] if _CAPTURED else None)
 
 
-def score_scene(seed: int, lens: str = "scene", truth_points: bool = False) -> dict:
+def _rendered(seed: int, cache: Path | None):
+    """The scene of ``seed``, from ``cache`` (a folder of pickles) when rendered before."""
+    if cache is None:
+        return scenes.render_scene(seed)
+    path = Path(cache) / f"scene-{seed}.pkl"
+    if path.exists():
+        with open(path, "rb") as fh:
+            return pickle.load(fh)
+    scene = scenes.render_scene(seed)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_suffix(".part")
+    with open(tmp, "wb") as fh:
+        pickle.dump(scene, fh)
+    tmp.replace(path)
+    return scene
+
+
+def score_scene(seed: int, lens: str = "scene", truth_points: bool = False,
+                cache: Path | None = None) -> dict:
     """Render, register and class one scene.
 
     ``truth_points``: register from the true pixels of the corners in view (``--points``)
     instead of the automatic grid: a check of the benchmark's scoring, which must class
-    nearly every scene with enough corners correct.
+    nearly every scene with enough corners correct. ``cache``: a folder keeping the
+    rendered scenes between runs (rendering takes most of a run's time).
     """
     _install_spy()
     t0 = time.perf_counter()
-    scene = scenes.render_scene(seed)
+    scene = _rendered(seed, cache)
     t1 = time.perf_counter()
     with_lens = lens == "always" or (lens == "scene" and scene.spec.lens_profile)
     with tempfile.TemporaryDirectory(prefix=f"scene{seed}-") as tmp:
@@ -268,6 +289,8 @@ def main(argv=None) -> int:
                     "registration_robustness.csv", help="per-scene results")
     ap.add_argument("--truth-points", action="store_true",
                     help="check of the scoring: register from the true corner pixels")
+    ap.add_argument("--cache", type=Path, default=None,
+                    help="folder keeping rendered scenes between runs (rendered once)")
     ap.add_argument("--from-csv", type=Path, default=None,
                     help="print the table of an earlier run's CSV (nothing is run)")
     args = ap.parse_args(argv)
@@ -293,12 +316,14 @@ def _run(args):
         if args.jobs > 1:
             with ProcessPoolExecutor(args.jobs) as pool:
                 results = pool.map(score_scene, seeds, [args.lens] * len(seeds),
-                                   [args.truth_points] * len(seeds))
+                                   [args.truth_points] * len(seeds),
+                                   [args.cache] * len(seeds))
                 for r in results:
                     rows.append(_log(w, fh, r))
         else:
             for s in seeds:
-                rows.append(_log(w, fh, score_scene(s, args.lens, args.truth_points)))
+                rows.append(_log(w, fh, score_scene(s, args.lens, args.truth_points,
+                                                     args.cache)))
     return rows
 
 

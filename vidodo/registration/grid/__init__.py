@@ -21,10 +21,10 @@ Steps (no markers, no clicks):
 """
 
 from .draw import draw_registration
-from .lattice import CORNER_NAMES
+from .lattice import CORNER_NAMES, TILING_CONTINUES
 from .seams import MAX_MM_PER_PX, SeamSearch, locate_seams, refine_fit, seam_samples
 from .search import LATTICE_DIAG_PX, GridResult, find_grid
 
 __all__ = ["GridResult", "find_grid", "refine_fit", "seam_samples", "draw_registration",
            "SeamSearch", "locate_seams",
-           "CORNER_NAMES", "LATTICE_DIAG_PX", "MAX_MM_PER_PX"]
+           "CORNER_NAMES", "LATTICE_DIAG_PX", "MAX_MM_PER_PX", "TILING_CONTINUES"]
