@@ -271,8 +271,9 @@ def _hits(fams: _Families, img, shape):
     h, w = shape
     inside = ((img[..., 0] >= 0) & (img[..., 0] <= w - 1) & (img[..., 1] >= 0)
               & (img[..., 1] <= h - 1) & np.all(np.isfinite(img), axis=-1))
-    ui = np.clip(np.nan_to_num(img[..., 0]).round().astype(int), 0, w - 1)
-    vi = np.clip(np.nan_to_num(img[..., 1]).round().astype(int), 0, h - 1)
+    # Clipped before the cast: points near the horizon map far outside the frame.
+    ui = np.clip(np.nan_to_num(img[..., 0], nan=0.0), 0, w - 1).round().astype(int)
+    vi = np.clip(np.nan_to_num(img[..., 1], nan=0.0), 0, h - 1).round().astype(int)
     along = np.gradient(img, axis=-2)
     expected = np.arctan2(along[..., 1], along[..., 0])
     diff = np.abs(np.angle(np.exp(2j * (fams.line_angle[vi, ui] - expected)))) / 2
