@@ -236,7 +236,7 @@ class FloorRegistrar:
             used = "points"
         if init_fit is None:  # the automatic grid
             g = grid.find_grid(grey, self.field, camera=self.camera, ignore=ignore,
-                               detectors=self._detectors)
+                               detectors=self._detectors, frame_bgr=frame_bgr)
             self.grid_result = g
             fit = g.fit
             used = "grid"
@@ -273,11 +273,27 @@ class FloorRegistrar:
                                 and self.grid_result.origin_from == "floor marker"))
         report = selfcheck.check_reference(grey, self.field, reg, facts,
                                            limits=self.settings.limits, ignore=ignore)
+        report = self._tiling_beyond(report, facts)
         self.check_report = report
         if report.reason:
             selfcheck.refuse(report.reason, frame_bgr, reg, self.field)
         pred = report.figures.get("prediction_px", math.nan)
         return replace(reg, prediction_px=pred) if math.isfinite(pred) else reg
+
+    def _tiling_beyond(self, report, facts):
+        """The grid saw more tiles than the field has (the tiling continues beyond it):
+        where the tiles end is then no evidence of where the field ends, so its place
+        in the tiling is unknown, whatever the seams at the field's edges show."""
+        g = self.grid_result
+        if (report.reason or not report.field_position_known or g is None
+                or facts.position_fixed or grid.TILING_CONTINUES not in g.warnings):
+            return report
+        if facts.relative_ok:
+            return replace(report, field_position_known=False)
+        return replace(report, reason=(
+            "the field's place in the tile pattern cannot be told (" + grid.TILING_CONTINUES
+            + "): a grid shifted by whole tiles fits as well; give the start tile "
+            "(--start-tile)"))
 
     def _set_reference(self, grey, reg, ignore):
         self.reference = reg

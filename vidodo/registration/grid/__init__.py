@@ -2,18 +2,25 @@
 
 Steps (no markers, no clicks):
 
-1. Line segments (LSD, von Gioi et al., IEEE PAMI 32(4), 2010) are grouped by the two
-   vanishing points of the seam families, each found by RANSAC over segment pairs and
-   refined by least squares.
+1. Line segments (LSD, von Gioi et al., IEEE PAMI 32(4), 2010; also on the frame's
+   main colour axis, so that tiles of equal brightness but different colour show their
+   edges) are grouped by the two vanishing points of the seam families, each found by
+   RANSAC over segment pairs and refined by least squares; when one of the two shows
+   no periodic lattice, a third direction is tried with each.
 2. The line through both vanishing points (the floor's horizon) is sent to infinity;
    in that affinely rectified frame each family is a set of parallel, equally spaced
    lines (an affine map keeps ratios along parallel lines; Hartley & Zisserman,
-   *Multiple View Geometry*, 2nd ed., section 2.7). The spacing and phase of each
-   family come from the strongest periodic component of the segment positions.
-3. The field is the window of ``tiles_x + 1`` by ``tiles_y + 1`` lattice lines with the
-   most seam evidence; its corner named by ``origin_hint`` (as seen from the camera) or
-   the one that puts a visible floor fiducial where the profile says becomes the
-   origin, with x and y right-handed (z up).
+   *Multiple View Geometry*, 2nd ed., section 2.7). Spacing and phase of each family
+   come from a matched filter over the dense seam evidence across it (teeth on seams
+   against points half a spacing off), refined as a 1-D projective map of the line
+   index (:mod:`.periodic`); this needs only part of the field in view.
+3. The field's ``tiles_x + 1`` by ``tiles_y + 1`` lines are placed among the lattice
+   lines where the tiling visibly ends (else by a guess of whole tiles, which the
+   self-check refuses unless the caller fixes it); windows of whole-field combs (the
+   field's line count, most seam evidence) are candidates too. The corner named by
+   ``origin_hint`` (as seen from the camera) or the one that puts a visible floor
+   fiducial where the profile says becomes the origin, with x and y right-handed
+   (z up).
 4. The lattice corners give a first camera fit; :func:`refine_fit` then samples the
    image across every seam, locates the seam to a fraction of a pixel, and fits pose,
    focal length and radial distortion to all seam samples (a seam must be straight on
@@ -21,10 +28,10 @@ Steps (no markers, no clicks):
 """
 
 from .draw import draw_registration
-from .lattice import CORNER_NAMES
+from .lattice import CORNER_NAMES, TILING_CONTINUES
 from .seams import MAX_MM_PER_PX, SeamSearch, locate_seams, refine_fit, seam_samples
 from .search import LATTICE_DIAG_PX, GridResult, find_grid
 
 __all__ = ["GridResult", "find_grid", "refine_fit", "seam_samples", "draw_registration",
            "SeamSearch", "locate_seams",
-           "CORNER_NAMES", "LATTICE_DIAG_PX", "MAX_MM_PER_PX"]
+           "CORNER_NAMES", "LATTICE_DIAG_PX", "MAX_MM_PER_PX", "TILING_CONTINUES"]

@@ -11,12 +11,17 @@ import numpy as np
 
 from ...errors import CalibrationError
 from ...profiles import FieldProfile
-from .segments import find_segments, find_vp
+from .periodic import family_period, lattice_lines, line_rho, tiling_continues, window_starts
+from .segments import find_segments, find_vp, same_direction
 
-__all__ = ["CORNER_NAMES", "initial_lattice", "orient", "homography_from_lattice", "distort"]
+__all__ = ["CORNER_NAMES", "TILING_CONTINUES", "initial_lattice", "orient",
+           "homography_from_lattice", "distort"]
 
 
 CORNER_NAMES = ("near-left", "near-right", "far-right", "far-left")
+TILING_CONTINUES = ("more tile seams are in view than the field has tiles: the tiles continue "
+                    "beyond the field, and the field's place in them cannot be told from the "
+                    "seams")
 
 
 def _best_combs(rhos, cover, speed, n_teeth, p_min, p_max, min_gap_px=8.0, keep=6):
@@ -128,11 +133,11 @@ class _Families:
     n_segments: int
 
 
-def _families(grey, camera, ignore, rng) -> _Families:
+def _families(grey, camera, ignore, rng, colour=None) -> _Families:
     """Segments, the two vanishing points, each family's lines after rectification, and
     the dense seam evidence across each family."""
     h, w = grey.shape
-    seg, (evidence, line_angle) = find_segments(grey, ignore)
+    seg, (evidence, line_angle) = find_segments(grey, ignore, colour=colour)
     if camera is not None and len(seg):
         k, d = camera.matrix, camera.dist_coeffs
         seg = cv2.undistortPoints(seg.reshape(-1, 1, 2), k, d, P=k).reshape(-1, 4)
@@ -154,6 +159,44 @@ def _families(grey, camera, ignore, rng) -> _Families:
                                "floor at an angle that shows both")
     in2 = np.zeros(len(cseg), bool)
     in2[np.nonzero(rest)[0][in2r]] = True
+    ctx = dict(cseg=cseg, scale=scale, centre=centre, camera=camera, evidence=evidence,
+               line_angle=line_angle, shape=(h, w))
+    best = _rectified(ctx, (vp1, in1), (vp2, in2))
+    score = _lattice_score(best)
+    if score > 0:
+        return best
+    # The two strongest directions need not be the tiles' (wall tops, tape, print): a
+    # third direction is tried with each, and the pair whose both families show a
+    # periodic lattice wins.
+    rest3 = rest.copy()
+    rest3[np.nonzero(rest)[0][in2r]] = False
+    vp3, in3r = find_vp(cseg[rest3], np.zeros(2), rng, tol, exclude=vp1)
+    if vp3 is None or in3r.sum() < 3 or same_direction(vp3, vp2, np.zeros(2)):
+        return best
+    in3 = np.zeros(len(cseg), bool)
+    in3[np.nonzero(rest3)[0][in3r]] = True
+    for pair in (((vp1, in1), (vp3, in3)), ((vp2, in2), (vp3, in3))):
+        other = _rectified(ctx, *pair)
+        sc = _lattice_score(other)
+        if sc > score:
+            best, score = other, sc
+    return best
+
+
+def _lattice_score(fams: _Families) -> float:
+    """The weaker family's periodicity score (0 when one shows no lattice)."""
+    scores = []
+    for f in fams.fam:
+        per = family_period(f)
+        scores.append(per[0][2] if per else 0.0)
+    return float(min(scores))
+
+
+def _rectified(ctx, fam1, fam2) -> _Families:
+    """The two families of vanishing points ``fam1``, ``fam2`` ((vp, inlier mask) each)
+    in the affinely rectified floor, with their dense seam evidence."""
+    cseg, scale, centre, camera = ctx["cseg"], ctx["scale"], ctx["centre"], ctx["camera"]
+    (vp1, in1), (vp2, in2) = fam1, fam2
     rect = _rectifier(vp1, vp2)
     fam = []
     for inl in (in1, in2):
@@ -181,11 +224,14 @@ def _families(grey, camera, ignore, rng) -> _Families:
             img = distort(img, camera.matrix, camera.dist_coeffs)
         return img
 
-    fams = _Families(fam, to_image, evidence, line_angle, int(in1.sum() + in2.sum()))
+    fams = _Families(fam, to_image, ctx["evidence"], ctx["line_angle"],
+                     int(in1.sum() + in2.sum()))
     mids = _apply(rect, (cseg[:, :2] + cseg[:, 2:]) / 2)
     for f in fam:
-        _family_cover(fams, f, mids, (h, w))
+        _family_cover(fams, f, mids, ctx["shape"])
     return fams
+
+
 
 
 def _family_cover(fams: _Families, f, mids, shape):
@@ -196,14 +242,17 @@ def _family_cover(fams: _Families, f, mids, shape):
     t = (mids - f["ref"]) @ f["dir"]
     ts = np.linspace(np.percentile(t, 1), np.percentile(t, 99), 200)
     lo, hi = np.percentile(f["pos"], [0.5, 99.5])
-    pad = 0.15 * (hi - lo)
-    rhos = np.linspace(lo - pad, hi + pad, 900)
+    # Sampled 35 % beyond the seams found (where the tiling may be seen to end); the
+    # whole-field combs look only 15 % beyond.
+    pad = 0.35 * (hi - lo)
+    rhos = np.linspace(lo - pad, hi + pad, 1200)
     pts = (f["ref"][None, None, :] + rhos[:, None, None] * f["normal"][None, None, :]
            + ts[None, :, None] * f["dir"][None, None, :])
     img = to_image(pts.reshape(-1, 2)).reshape(len(rhos), len(ts), 2)
     inside, hit = _hits(fams, img, shape)
     n_in = inside.sum(axis=1)
-    cover = np.where(n_in >= 0.2 * len(ts), hit.sum(axis=1) / np.maximum(n_in, 1), 0.0)
+    seen = n_in >= 0.2 * len(ts)
+    cover = np.where(seen, hit.sum(axis=1) / np.maximum(n_in, 1), 0.0)
     # Image pixels per unit of rho (near the horizon many rho map to one image line).
     across = np.linalg.norm(np.gradient(img, rhos, axis=0), axis=-1)
     across = np.where(inside, across, np.nan)
@@ -211,7 +260,9 @@ def _family_cover(fams: _Families, f, mids, shape):
     speed = np.where(inside.any(axis=1), np.sort(across, axis=1)[
         np.arange(len(rhos)), np.maximum(inside.sum(axis=1) // 2, 0)], 0.0)
     f["rhos"], f["cover"], f["speed"] = rhos, cover, np.nan_to_num(speed, posinf=0.0)
+    f["seen"] = seen
     f["extent"] = hi - lo
+    f["comb"] = np.abs(rhos - (lo + hi) / 2) <= (hi - lo) * 0.65
 
 
 def _hits(fams: _Families, img, shape):
@@ -220,8 +271,9 @@ def _hits(fams: _Families, img, shape):
     h, w = shape
     inside = ((img[..., 0] >= 0) & (img[..., 0] <= w - 1) & (img[..., 1] >= 0)
               & (img[..., 1] <= h - 1) & np.all(np.isfinite(img), axis=-1))
-    ui = np.clip(np.nan_to_num(img[..., 0]).round().astype(int), 0, w - 1)
-    vi = np.clip(np.nan_to_num(img[..., 1]).round().astype(int), 0, h - 1)
+    # Clipped before the cast: points near the horizon map far outside the frame.
+    ui = np.clip(np.nan_to_num(img[..., 0], nan=0.0), 0, w - 1).round().astype(int)
+    vi = np.clip(np.nan_to_num(img[..., 1], nan=0.0), 0, h - 1).round().astype(int)
     along = np.gradient(img, axis=-2)
     expected = np.arctan2(along[..., 1], along[..., 0])
     diff = np.abs(np.angle(np.exp(2j * (fams.line_angle[vi, ui] - expected)))) / 2
@@ -248,16 +300,81 @@ def _span_cover(fams: _Families, shape, f_a, teeth_a, f_b, teeth_b):
     return float(np.mean(vals))
 
 
-def initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidates=3):
+def _periodic_lattices(fams: _Families, field: FieldProfile, shape):
+    """Candidate field windows from each family's spacing and phase (:mod:`.periodic`):
+    also when only part of the field is in view.
+
+    Returns
+    -------
+    list of (ndarray (tiles_x+1, tiles_y+1, 2), list of str, ndarray bool)
+        Image positions of the window's corners, warnings, and which corners are on
+        lattice lines with seam evidence in view (the ones to fit to).
+    """
+    lines = []
+    for f in fams.fam:
+        per_f = []
+        for period, phase, _score in family_period(f)[:2]:
+            ln = lattice_lines(f, period, phase)
+            if ln is not None:
+                per_f.append(ln)
+        lines.append(per_f)
+    h, w = shape
+    out = []
+    for assign in ((0, 1), (1, 0)):
+        fx, fy = fams.fam[assign[0]], fams.fam[assign[1]]
+        a_mat = np.vstack([fx["normal"], fy["normal"]])
+        for lx in lines[assign[0]][:1]:
+            for ly in lines[assign[1]][:1]:
+                for kx in window_starts(lx, field.tiles_x):
+                    for ky in window_starts(ly, field.tiles_y):
+                        ii = kx + np.arange(field.tiles_x + 1)
+                        jj = ky + np.arange(field.tiles_y + 1)
+                        rx, ry = line_rho(lx, ii), line_rho(ly, jj)
+                        rr = np.stack(np.meshgrid(rx, ry, indexing="ij"), axis=-1)
+                        rect = np.linalg.solve(a_mat, rr.reshape(-1, 2).T).T + fx["ref"]
+                        img = fams.to_image(rect).reshape(len(ii), len(jj), 2)
+                        vis = ((ii >= lx["k_lo"]) & (ii <= lx["k_hi"]))[:, None] & (
+                            (jj >= ly["k_lo"]) & (jj <= ly["k_hi"]))[None, :]
+                        vis &= np.all(np.isfinite(img), axis=-1) & (img[..., 0] >= 0) & (
+                            img[..., 0] <= w - 1) & (img[..., 1] >= 0) & (img[..., 1] <= h - 1)
+                        warn = []
+                        if (tiling_continues(lx, field.tiles_x)
+                                or tiling_continues(ly, field.tiles_y)):
+                            warn.append(TILING_CONTINUES)
+                        if vis.sum() >= 4:
+                            out.append((img, warn, vis))
+    return out
+
+
+def initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidates=3,
+                    colour=None):
     """Candidate field windows: image positions of every lattice corner (first guesses).
 
     Returns
     -------
-    (list of (ndarray (tiles_x+1, tiles_y+1, 2), list of str), int)
-        Candidates best first with their warnings, and the number of seam segments.
+    (list of (ndarray (tiles_x+1, tiles_y+1, 2), list of str, ndarray bool or None), int)
+        Candidates with their warnings and the corners to fit to (None: all), and the
+        number of seam segments. The periodic lattice's windows come first, then the
+        windows of whole-field combs. ``colour``: the frame on its main colour axis
+        (:func:`.segments.colour_contrast`), whose edges count as seam evidence too.
     """
-    fams = _families(grey, camera, ignore, rng)
-    fam, shape = fams.fam, grey.shape
+    fams = _families(grey, camera, ignore, rng, colour)
+    cands = _periodic_lattices(fams, field, grey.shape)
+    try:
+        combs = _comb_lattices(fams, field, grey.shape, n_candidates)
+    except CalibrationError:
+        if not cands:
+            raise
+        combs = []
+    for lat, warn in combs:
+        if not any(_same_lattice(lat, other[0]) for other in cands):
+            cands.append((lat, warn, None))
+    return cands, fams.n_segments
+
+
+def _comb_lattices(fams: _Families, field: FieldProfile, shape, n_candidates):
+    """Candidate field windows from combs of the field's line count (whole field in view)."""
+    fam = fams.fam
     n_max = max(field.tiles_x, field.tiles_y)
     n_min = min(field.tiles_x, field.tiles_y)
     # The field in each family: a comb of n+1 equally spaced lines (spacing and start
@@ -266,7 +383,8 @@ def initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidates
     combs = {}
     for fi, f in enumerate(fam):
         for n in {field.tiles_x, field.tiles_y}:
-            combs[fi, n] = _best_combs(f["rhos"], f["cover"], f["speed"], n + 1,
+            sel = f["comb"]
+            combs[fi, n] = _best_combs(f["rhos"][sel], f["cover"][sel], f["speed"][sel], n + 1,
                                        f["extent"] / (2.5 * n_max + 2),
                                        f["extent"] / max(n_min - 1, 1) * 1.3)
 
@@ -300,9 +418,7 @@ def initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidates
             lattices.append(lat)
     if not lattices:
         raise errors[0]
-    return lattices, fams.n_segments
-
-
+    return lattices
 
 
 def _same_lattice(a, b, tol_px=3.0):

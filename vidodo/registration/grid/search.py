@@ -15,6 +15,7 @@ from ..camera_fit import FitOptions, check_correspondences, fit_camera
 from ..floor_markers import detect_floor_markers
 from .lattice import CORNER_NAMES, homography_from_lattice, initial_lattice, orient
 from .seams import refine_fit
+from .segments import colour_contrast
 
 __all__ = ["GridResult", "find_grid", "LATTICE_DIAG_PX"]
 
@@ -41,8 +42,13 @@ class GridResult:
 
 
 
-def _fit_lattice(grey, field, lat_img, camera, ignore, marker_px, marker_fl, warnings):
-    """Orient one candidate lattice, fit the camera to its corners, refine on the seams."""
+def _fit_lattice(grey, field, lattice, camera, ignore, marker_px, marker_fl):
+    """Orient one candidate lattice, fit the camera to its corners, refine on the seams.
+
+    ``lattice``: (corner pixels (tiles_x+1, tiles_y+1, 2), warnings, corners to fit to
+    (bool, same shape but the last axis) or None for all in or near the frame).
+    """
+    lat_img, warnings, use = lattice[0], list(lattice[1]), lattice[2]
 
     h, w = grey.shape
     candidates = [field.origin_hint]
@@ -76,8 +82,11 @@ def _fit_lattice(grey, field, lat_img, camera, ignore, marker_px, marker_fl, war
                         "origin choice; check its x_m, y_m")
     pts_img = lat_img.reshape(-1, 2)
     pts_fl = floor.reshape(-1, 2)
-    inside = ((pts_img[:, 0] > -0.5 * w) & (pts_img[:, 0] < 1.5 * w)
-              & (pts_img[:, 1] > -0.5 * h) & (pts_img[:, 1] < 1.5 * h))
+    if use is not None:
+        inside = np.asarray(use, bool).reshape(-1)
+    else:
+        inside = ((pts_img[:, 0] > -0.5 * w) & (pts_img[:, 0] < 1.5 * w)
+                  & (pts_img[:, 1] > -0.5 * h) & (pts_img[:, 1] < 1.5 * h))
     check_correspondences(pts_img[inside], pts_fl[inside], where="grid corners")
     fit0 = fit_camera((w, h), points=(pts_img[inside], pts_fl[inside]), camera=camera,
                       options=FitOptions(fit_k1=False))
@@ -99,7 +108,7 @@ def _scaled_camera(camera: CameraProfile | None, sx, sy):
         cx_px=(camera.cx_px + 0.5) * sx - 0.5, cy_px=(camera.cy_px + 0.5) * sy - 0.5)
 
 
-def _initial_lattice_scaled(grey, field, camera, ignore, rng):
+def _initial_lattice_scaled(grey, field, camera, ignore, rng, colour=None):
     """:func:`initial_lattice` on a copy shrunk to :data:`LATTICE_DIAG_PX` when the
     frame is larger (area averaging); the corners come back in full-size pixels.
 
@@ -110,7 +119,7 @@ def _initial_lattice_scaled(grey, field, camera, ignore, rng):
     h, w = grey.shape
     shrink = LATTICE_DIAG_PX / math.hypot(w, h)
     if shrink > 0.9:
-        return initial_lattice(grey, field, camera, ignore, rng)
+        return initial_lattice(grey, field, camera, ignore, rng, colour=colour)
     ws, hs = max(int(round(w * shrink)), 1), max(int(round(h * shrink)), 1)
     sx, sy = ws / w, hs / h
     small = cv2.resize(grey, (ws, hs), interpolation=cv2.INTER_AREA)
@@ -118,14 +127,16 @@ def _initial_lattice_scaled(grey, field, camera, ignore, rng):
     if ignore is not None:  # a shrunk pixel is ignored when any part of it was
         ig_small = cv2.resize(np.asarray(ignore, np.uint8) * 255, (ws, hs),
                               interpolation=cv2.INTER_AREA) > 0
+    if colour is not None:
+        colour = cv2.resize(colour, (ws, hs), interpolation=cv2.INTER_AREA)
     cands, n_seg = initial_lattice(small, field, _scaled_camera(camera, sx, sy), ig_small,
-                                    rng)
+                                    rng, colour=colour)
     scale = np.array([sx, sy])
-    return [((lat + 0.5) / scale - 0.5, warn) for lat, warn in cands], n_seg
+    return [((lat + 0.5) / scale - 0.5, warn, use) for lat, warn, use in cands], n_seg
 
 
 def find_grid(grey, field: FieldProfile, *, camera: CameraProfile | None = None, ignore=None,
-              detectors=None, seed=0) -> GridResult:
+              detectors=None, seed=0, frame_bgr=None) -> GridResult:
     """Register a frame from the tile grid alone.
 
     Parameters
@@ -140,6 +151,9 @@ def find_grid(grey, field: FieldProfile, *, camera: CameraProfile | None = None,
         Pixels to ignore (the robot).
     seed : int
         RANSAC seed (vanishing points).
+    frame_bgr : ndarray of shape (H, W, 3), uint8, optional
+        The colour frame: edges between tiles of different colour but equal brightness
+        count as seams in the lattice search (:func:`.segments.colour_contrast`).
 
     Returns
     -------
@@ -153,17 +167,18 @@ def find_grid(grey, field: FieldProfile, *, camera: CameraProfile | None = None,
     """
 
     rng = np.random.default_rng(seed)
-    candidates, n_seg = _initial_lattice_scaled(grey, field, camera, ignore, rng)
+    colour = colour_contrast(frame_bgr)
+    candidates, n_seg = _initial_lattice_scaled(grey, field, camera, ignore, rng, colour)
     marker_px = marker_fl = None
     if field.floor_markers:
         marker_px, marker_fl, _seen = detect_floor_markers(grey, field, detectors=detectors,
                                                            ignore=ignore)
     results = []
     errors = []
-    for lat_img, lat_warnings in candidates:
+    for lattice in candidates:
         try:
-            results.append(_fit_lattice(grey, field, lat_img, camera, ignore, marker_px,
-                                        marker_fl, list(lat_warnings)))
+            results.append(_fit_lattice(grey, field, lattice, camera, ignore, marker_px,
+                                        marker_fl))
         except CalibrationError as exc:
             errors.append(exc)
     if not results:

@@ -7,7 +7,8 @@ import math
 import cv2
 import numpy as np
 
-__all__ = ["ridge_strength", "find_segments", "hom_lines", "find_vp", "same_direction"]
+__all__ = ["ridge_strength", "colour_contrast", "find_segments", "hom_lines", "find_vp",
+           "same_direction"]
 
 
 def ridge_strength(grey, sigma_px=1.5):
@@ -28,35 +29,83 @@ def ridge_strength(grey, sigma_px=1.5):
     return np.maximum(l_big - 2 * l_small, 0)
 
 
-def find_segments(grey, ignore=None, min_len_px=None):
-    """Straight segments: thin seams (Hough on ridge strength) and strong edges (LSD)."""
+def colour_contrast(frame_bgr, max_luma_weight=0.9):
+    """The frame projected on its strongest colour axis, when that is not brightness.
+
+    Tiles of alternating colours can have nearly the same brightness (red and green):
+    their edges vanish in a grey image but not along the main axis of the frame's
+    colour spread (first principal component of the CIE L*a*b* pixels, the idea of
+    PCA decolourisation; Gonzalez & Woods, *Digital Image Processing*, 3rd ed.,
+    section 11.4). Returns None for a grey frame or when that axis is mostly L*
+    (the grey image shows the same edges).
+
+    Returns
+    -------
+    ndarray of shape (H, W), uint8, or None
+    """
+    if frame_bgr is None or frame_bgr.ndim != 3:
+        return None
+    lab = cv2.cvtColor(frame_bgr, cv2.COLOR_BGR2LAB).astype(np.float32)
+    flat = lab.reshape(-1, 3)
+    sample = flat[:: max(len(flat) // 50000, 1)]
+    mean = sample.mean(axis=0)
+    _val, vec = np.linalg.eigh(np.cov((sample - mean).T))
+    axis = vec[:, -1]
+    if abs(axis[0]) >= max_luma_weight:
+        return None
+    proj = (lab - mean) @ axis
+    lo, hi = np.percentile(proj[:: 7, :: 7], [0.5, 99.5])
+    if hi - lo < 1e-6:
+        return None
+    return np.clip((proj - lo) / (hi - lo) * 255.0, 0, 255).astype(np.uint8)
+
+
+def _gradient(img):
+    g = cv2.GaussianBlur(img, (0, 0), 1.0)
+    return cv2.magnitude(cv2.Sobel(g, cv2.CV_32F, 1, 0), cv2.Sobel(g, cv2.CV_32F, 0, 1))
+
+
+def find_segments(grey, ignore=None, min_len_px=None, colour=None):
+    """Straight segments: thin seams (Hough on ridge strength) and strong edges (LSD),
+    the edges also in ``colour`` (:func:`colour_contrast`) when given."""
     h, w = grey.shape
     min_len = min_len_px or max(12.0, 0.012 * math.hypot(w, h))
     ridge = ridge_strength(grey)
     binary = (ridge > max(np.percentile(ridge, 96), 1e-3)).astype(np.uint8) * 255
     if ignore is not None:
         binary[np.asarray(ignore, bool)] = 0
-    g = cv2.GaussianBlur(grey, (0, 0), 1.0)
-    grad = cv2.magnitude(cv2.Sobel(g, cv2.CV_32F, 1, 0), cv2.Sobel(g, cv2.CV_32F, 0, 1))
+    grad = _gradient(grey)
     evidence = (binary > 0) | (grad > np.percentile(grad, 96))
+    if colour is not None:
+        grad_c = _gradient(colour)
+        evidence |= grad_c > np.percentile(grad_c, 96)
     evidence = cv2.dilate(evidence.astype(np.uint8), np.ones((5, 5), np.uint8)) > 0
     # Local line direction from the structure tensor (Bigun & Granlund, 1987): the
     # dominant gradient direction is across a line or an edge; the line runs across it.
-    gx = cv2.Sobel(g, cv2.CV_32F, 1, 0)
-    gy = cv2.Sobel(g, cv2.CV_32F, 0, 1)
-    jxx = cv2.GaussianBlur(gx * gx, (0, 0), 2.5)
-    jyy = cv2.GaussianBlur(gy * gy, (0, 0), 2.5)
-    jxy = cv2.GaussianBlur(gx * gy, (0, 0), 2.5)
+    # With a colour channel its tensor is added (each normalised by its gradient level).
+    jxx = jyy = jxy = 0.0
+    for img, level in ((grey, 1.0), (colour, None)):
+        if img is None:
+            continue
+        gi = cv2.GaussianBlur(img, (0, 0), 1.0)
+        gx = cv2.Sobel(gi, cv2.CV_32F, 1, 0)
+        gy = cv2.Sobel(gi, cv2.CV_32F, 0, 1)
+        if level is None:  # the colour channel weighs as much as the grey one
+            level = float(np.percentile(grad, 96) / max(np.percentile(grad_c, 96), 1e-6))
+        jxx = jxx + cv2.GaussianBlur(gx * gx, (0, 0), 2.5) * level ** 2
+        jyy = jyy + cv2.GaussianBlur(gy * gy, (0, 0), 2.5) * level ** 2
+        jxy = jxy + cv2.GaussianBlur(gx * gy, (0, 0), 2.5) * level ** 2
     line_angle = 0.5 * np.arctan2(2 * jxy, jxx - jyy) + np.pi / 2
     hp = cv2.HoughLinesP(binary, 1, np.pi / 360, 40, minLineLength=0.04 * max(h, w),
                          maxLineGap=6)
     parts = [np.zeros((0, 4))] if hp is None else [hp.reshape(-1, 4).astype(np.float64)]
     lsd = cv2.createLineSegmentDetector(cv2.LSD_REFINE_STD)
-    lines = lsd.detect(grey)[0]
-    if lines is not None:
-        seg = lines.reshape(-1, 4).astype(np.float64)
-        length = np.hypot(seg[:, 2] - seg[:, 0], seg[:, 3] - seg[:, 1])
-        parts.append(seg[length >= 2 * min_len])
+    for img in (grey,) if colour is None else (grey, colour):
+        lines = lsd.detect(img)[0]
+        if lines is not None:
+            seg = lines.reshape(-1, 4).astype(np.float64)
+            length = np.hypot(seg[:, 2] - seg[:, 0], seg[:, 3] - seg[:, 1])
+            parts.append(seg[length >= 2 * min_len])
     seg = np.vstack(parts)
     if ignore is not None and len(seg):
         mid = (seg[:, :2] + seg[:, 2:]) / 2
