@@ -15,7 +15,9 @@ sub-pixel residual. The checks here use what the fit did not:
   whole fit does;
 * **field position**: a lattice that is right but shifted by whole tiles matches every
   seam; the field's place in the tiling is known only where a field edge is in view and
-  the tiling visibly ends there, or from floor markers, clicked points or a start tile;
+  the tiling visibly ends there, or from floor markers or a start tile (clicked points'
+  floor positions may be counted from any visible corner: they fix the lattice, and the
+  field's place only where the tiles visibly end at the field edges they imply);
 * **held-out points**: each clicked point predicted from the others;
 * after tracking (:func:`check_track`): the marker's measured size against the robot
   profile, and the truth path against the field outline.
@@ -314,6 +316,13 @@ def check_reference(grey, field_profile: FieldProfile, reg: FrameRegistration,
             figures["holdout_rms_px"] = math.sqrt(loo2)
             figures["prediction_px"] = math.sqrt(max(loo2 - reg.rms_px ** 2, 0.0))
         reason = _holdout_problem(facts.points, err, field_profile.tile_size_m, limits)
+        if not reason:
+            # Clicked floor positions may be counted from any visible corner (the picker
+            # and --points allow it): they fix the lattice, and the field's place only
+            # where a field edge in view shows the tiles ending where they put it.
+            known, what = field_position_known(grey, field_profile, reg, ignore=ignore)
+            figures["field_position"] = what
+            return CheckReport("", figures, known)
     if reason or not facts.method.startswith("grid"):
         return CheckReport(reason, figures)
     ev = seam_evidence(grey, field_profile, reg, ignore=ignore)
