@@ -10,8 +10,9 @@ share of samples with error <= 2 sigma, and the same for heading. Target 90-98 %
 Clicked points are made from the renderer's true camera at the reference (first) frame:
 ``--clicks`` tile corners in view (spread over the view, farthest-point order), each at its
 true pixel plus Gaussian click noise of ``--click-px`` per axis (0.5 px by default, an
-invented figure for careful clicks in a zoomed view). Only this script reads the truth
-files; the tracker never does.
+invented figure for careful clicks in a zoomed view); the "picker" path then snaps each
+click to the nearest tile-corner candidate within 3 px, as the picker page does. Only
+this script reads the truth files; the tracker never does.
 
 Run (niced; renders are cached under ``.cache/bench``):
 ``nice -n 10 .venv/bin/python benchmarks/sigma_coverage.py [--runs default,mecanum-handheld]
@@ -35,10 +36,12 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from _runs import rendered  # noqa: E402
 from registration_accuracy import true_corner_pixels, true_poses  # noqa: E402
 
+from vidodo.corner_candidates import corner_candidates  # noqa: E402
 from vidodo.errors import VidodoError  # noqa: E402
 from vidodo.profiles import load_camera, load_field, load_robot  # noqa: E402
 from vidodo.registration.registrar import FloorRegistrar  # noqa: E402
 from vidodo.track import track_video  # noqa: E402
+from vidodo.video import VideoReader  # noqa: E402
 
 
 def spread_order(px: np.ndarray) -> np.ndarray:
@@ -57,11 +60,13 @@ def spread_order(px: np.ndarray) -> np.ndarray:
 
 
 def clicked_points(run: Path, n_clicks: int, click_px: float, seed: int, *,
-                   relative_to=None, margin_px: float = 12.0) -> pd.DataFrame:
+                   relative_to=None, margin_px: float = 12.0, snap_px=None) -> pd.DataFrame:
     """Tile corners in view of the first frame as a user would click them.
 
     ``relative_to``: a floor corner (x, y) [m] subtracted from every floor position
     (points typed relative to a visible corner, as the picker lets one do).
+    ``snap_px``: move each click to the nearest tile-corner candidate of the frame within
+    this distance, as the picker page does (:func:`vidodo.corner_candidates`).
     """
     field = load_field(run / "field.toml")
     cam = load_camera(run / "camera.toml")
@@ -73,9 +78,24 @@ def clicked_points(run: Path, n_clicks: int, click_px: float, seed: int, *,
     pick = spread_order(px)[:n_clicks]
     rng = np.random.default_rng(1000 + seed)
     clicked = px[pick] + rng.normal(0.0, click_px, size=(len(pick), 2))
+    if snap_px:
+        clicked = snapped(run, clicked, snap_px)
     floor = corners[pick] - (np.zeros(2) if relative_to is None else np.asarray(relative_to))
     return pd.DataFrame({"u_px": clicked[:, 0], "v_px": clicked[:, 1],
                          "x_m": floor[:, 0], "y_m": floor[:, 1]})
+
+
+def snapped(run: Path, clicks: np.ndarray, snap_px: float) -> np.ndarray:
+    """Each click moved to the nearest corner candidate within ``snap_px`` [px]."""
+    with VideoReader(run / "video.mp4", threaded=False) as reader:
+        frame = next(iter(reader))[2]
+    cand = corner_candidates(frame)
+    out = clicks.copy()
+    for k, c in enumerate(clicks):
+        d = np.hypot(*(cand - c).T) if len(cand) else np.array([np.inf])
+        if d.min() <= snap_px:
+            out[k] = cand[int(np.argmin(d))]
+    return out
 
 
 def coverage(run: Path, *, lens: bool, points_csv=None):
@@ -112,7 +132,9 @@ def main(argv=None):
     ap.add_argument("--runs", default="default,mecanum-handheld")
     ap.add_argument("--seeds", default="0")
     ap.add_argument("--seconds", type=float, default=8.0, help="run length to render [s]")
-    ap.add_argument("--paths", default="auto,points", help="registration paths to measure")
+    ap.add_argument("--paths", default="auto,points,picker",
+                    help="registration paths to measure: auto (tile grid), points (clicks "
+                         "as clicked), picker (clicks snapped to corner candidates)")
     ap.add_argument("--lens", choices=("both", "yes", "no"), default="both")
     ap.add_argument("--clicks", type=int, default=12, help="tile corners clicked")
     ap.add_argument("--click-px", type=float, default=0.5,
@@ -126,9 +148,10 @@ def main(argv=None):
                 run = rendered(name, seed, **{"video.max_duration_s": args.seconds})
                 for path in args.paths.split(","):
                     csv = None
-                    if path == "points":
-                        csv = Path(tmp) / f"{name}-{seed}.csv"
-                        clicked_points(run, args.clicks, args.click_px, seed).to_csv(
+                    if path in ("points", "picker"):
+                        csv = Path(tmp) / f"{name}-{seed}-{path}.csv"
+                        clicked_points(run, args.clicks, args.click_px, seed,
+                                       snap_px=3.0 if path == "picker" else None).to_csv(
                             csv, index=False)
                     for lens in lenses:
                         label = (f"{name} seed {seed}, {path}, "

@@ -303,3 +303,37 @@ def test_grade_and_track_take_points_start_tile_and_camera_height(tmp_path):
     args.start_tile = "6,0"
     with pytest.raises(Exception, match="--start-tile: tile \\(6, 0\\) is outside"):
         registration_options.registrar_from_args(args, FIELD, None)
+
+
+@pytest.mark.slow
+def test_small_handheld_view_with_floor_markers_is_refused_when_wrong(rendered_run):
+    """The hand-held scenario at 640 x 360 with its true lens: floor markers sharpened on
+    the seams land off the tiles (checked here against the renderer's true camera: more
+    than 5 mm RMS at the tile corners in view), and the self-check refuses it, naming
+    the image size. At 1280 x 720 the same registration passes (benchmark:
+    ``registration_accuracy.py``)."""
+    from vidodo.profiles import load_camera, load_field
+    from vidodo.registration.registrar import FloorRegistrar, RegistrarSettings
+    from vidodo.video import VideoReader
+
+    run = rendered_run("mecanum-handheld", 0, video__max_duration_s=0.5)
+    field, cam = load_field(run / "field.toml"), load_camera(run / "camera.toml")
+    with VideoReader(run / "video.mp4", threaded=False) as reader:
+        _, t_s, frame = next(iter(reader))
+    poses = pd.read_csv(run / "truth" / "camera_poses.csv")
+    k = int(np.argmin(np.abs(poses["t_s"].to_numpy() - t_s)))
+    rvec = poses.loc[k, ["rvec_0", "rvec_1", "rvec_2"]].to_numpy(float)
+    tvec = poses.loc[k, ["tvec_0_m", "tvec_1_m", "tvec_2_m"]].to_numpy(float)
+    corners = field.tile_corners_m()
+    px = cv2.projectPoints(np.column_stack([corners, np.zeros(len(corners))]), rvec, tvec,
+                           cam.matrix, cam.dist_coeffs)[0].reshape(-1, 2)
+    inside = ((px[:, 0] > 0) & (px[:, 0] < cam.width_px) & (px[:, 1] > 0)
+              & (px[:, 1] < cam.height_px))
+    unchecked = FloorRegistrar(field, cam, settings=RegistrarSettings(self_check=False))
+    reg = unchecked.register_reference(frame, t_s)
+    err = reg.image_to_floor(px[inside]) - corners[inside]
+    assert np.sqrt(np.mean(np.sum(err ** 2, axis=1))) > 0.005
+    with pytest.raises(RegistrationRefused, match=r"seams were found on only .* at 640 x "
+                                                  r"360 px") as exc:
+        FloorRegistrar(field, cam).register_reference(frame, t_s)
+    assert str(exc.value).startswith(PREFIX)
