@@ -157,6 +157,26 @@ def test_refused_clicked_point_off_by_a_tile(still, tmp_path, capsys):
                       "--points", str(pts)], out, "point 11")
 
 
+def test_refused_clicks_the_seams_pull_away_from(still, tmp_path, capsys):
+    """Clicks consistent among themselves (each predicted well by the others) but made on
+    a view 25 mm off the one filmed (as if the camera was nudged after the clicked frame):
+    the tile seams move the fit away from every click, and the check refuses."""
+    d, rvec, tvec = still
+    corners = FIELD.tile_corners_m()
+    rv, tv = _shifted(rvec, tvec, 0.02, 0.015)
+    px = cv2.projectPoints(np.column_stack([corners, np.zeros(len(corners))]), rv, tv,
+                           CAM.matrix, CAM.dist_coeffs)[0].reshape(-1, 2)
+    rows = ["u_px,v_px,x_m,y_m"] + [f"{u:.3f},{v:.3f},{x:.3f},{y:.3f}"
+                                    for (u, v), (x, y) in zip(px, corners, strict=True)]
+    pts = tmp_path / "points.csv"
+    pts.write_text("\n".join(rows) + "\n")
+    out = tmp_path / "res" / "out"
+    out.parent.mkdir()
+    _refused(capsys, [str(d / "floor.png"), "--field", str(_field_toml(d, 6, 0.6)),
+                      "--points", str(pts)], out,
+             "px RMS from the registration fitted to them and the tile seams")
+
+
 # ------------------------------------------------------------- unit checks
 def test_seam_evidence_separates_true_and_half_offset_lines(still):
     d, rvec, tvec = still

@@ -19,7 +19,8 @@ sub-pixel residual. The checks here use what the fit did not:
   the tiling visibly ends there, or from floor markers or a start tile (clicked points'
   floor positions may be counted from any visible corner: they fix the lattice, and the
   field's place only where the tiles visibly end at the field edges they imply);
-* **held-out points**: each clicked point predicted from the others;
+* **held-out points**: each clicked point predicted from the others, and all of them
+  near the final registration (the seams must not pull it off the clicks);
 * after tracking (:func:`check_track`): the marker's measured size against the robot
   profile, and the truth path against the field outline.
 
@@ -88,6 +89,10 @@ class CheckLimits:
     seams leave each half's extrapolation less certain [tiles]."""
     max_holdout_tiles: float = 0.1
     """Largest error of a clicked point predicted from the others [tiles]."""
+    max_click_rms_px: float = 3.0
+    """Largest RMS distance of the clicked points from the final registration [px]: a
+    careful click lands within about a pixel of a seam crossing (from memory), so more
+    means the seams pulled the fit off the clicks or the points are inconsistent."""
     max_marker_scale_error: float = 0.1
     """Largest relative error of the marker's measured size against the profile."""
     max_outside_fraction: float = 0.2
@@ -325,6 +330,13 @@ def check_reference(grey, field_profile: FieldProfile, reg: FrameRegistration,
             figures["holdout_rms_px"] = math.sqrt(loo2)
             figures["prediction_px"] = math.sqrt(max(loo2 - reg.rms_px ** 2, 0.0))
         reason = _holdout_problem(facts.points, err, field_profile.tile_size_m, limits)
+        px, fl = (np.asarray(a, float).reshape(-1, 2) for a in facts.points)
+        click_px = float(np.sqrt(np.mean(np.sum((reg.floor_to_image(fl) - px) ** 2, axis=1))))
+        figures["click_rms_px"] = click_px
+        if not reason and not click_px <= limits.max_click_rms_px:
+            reason = (f"the clicked points lie {click_px:.1f} px RMS from the registration "
+                      f"fitted to them and the tile seams (a click is good to about a pixel)"
+                      f"; check the points{'' if facts.lens_known else ' or give a lens profile'}")
         if not reason:
             # Clicked floor positions may be counted from any visible corner (the picker
             # and --points allow it): they fix the lattice, and the field's place only
