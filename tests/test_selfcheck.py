@@ -140,13 +140,13 @@ def test_refused_image_halves_disagree(still, tmp_path, monkeypatch, capsys):
              tmp_path / "out", "halves of the image disagree by 80 mm")
 
 
-def test_refused_clicked_point_off_by_a_tile(still, tmp_path, capsys):
-    d, rvec, tvec = still
+def _refused_points(capsys, still, tmp_path, rvec, tvec, floor, reason_part):
+    """``register --points`` with the tile corners seen from (rvec, tvec) labelled
+    ``floor``: refused with ``reason_part``."""
+    d = still[0]
     corners = FIELD.tile_corners_m()
     px = cv2.projectPoints(np.column_stack([corners, np.zeros(len(corners))]), rvec, tvec,
                            CAM.matrix, CAM.dist_coeffs)[0].reshape(-1, 2)
-    floor = corners.copy()
-    floor[10, 0] += 0.6  # point 11 labelled one tile off
     rows = ["u_px,v_px,x_m,y_m"] + [f"{u:.3f},{v:.3f},{x:.3f},{y:.3f}"
                                     for (u, v), (x, y) in zip(px, floor, strict=True)]
     pts = tmp_path / "points.csv"
@@ -154,27 +154,24 @@ def test_refused_clicked_point_off_by_a_tile(still, tmp_path, capsys):
     out = tmp_path / "res" / "out"
     out.parent.mkdir()
     _refused(capsys, [str(d / "floor.png"), "--field", str(_field_toml(d, 6, 0.6)),
-                      "--points", str(pts)], out, "point 11")
+                      "--points", str(pts)], out, reason_part)
+
+
+def test_refused_clicked_point_off_by_a_tile(still, tmp_path, capsys):
+    _, rvec, tvec = still
+    floor = FIELD.tile_corners_m().copy()
+    floor[10, 0] += 0.6  # point 11 labelled one tile off
+    _refused_points(capsys, still, tmp_path, rvec, tvec, floor, "point 11")
 
 
 def test_refused_clicks_the_seams_pull_away_from(still, tmp_path, capsys):
     """Clicks consistent among themselves (each predicted well by the others) but made on
     a view 25 mm off the one filmed (as if the camera was nudged after the clicked frame):
     the tile seams move the fit away from every click, and the check refuses."""
-    d, rvec, tvec = still
-    corners = FIELD.tile_corners_m()
+    _, rvec, tvec = still
     rv, tv = _shifted(rvec, tvec, 0.02, 0.015)
-    px = cv2.projectPoints(np.column_stack([corners, np.zeros(len(corners))]), rv, tv,
-                           CAM.matrix, CAM.dist_coeffs)[0].reshape(-1, 2)
-    rows = ["u_px,v_px,x_m,y_m"] + [f"{u:.3f},{v:.3f},{x:.3f},{y:.3f}"
-                                    for (u, v), (x, y) in zip(px, corners, strict=True)]
-    pts = tmp_path / "points.csv"
-    pts.write_text("\n".join(rows) + "\n")
-    out = tmp_path / "res" / "out"
-    out.parent.mkdir()
-    _refused(capsys, [str(d / "floor.png"), "--field", str(_field_toml(d, 6, 0.6)),
-                      "--points", str(pts)], out,
-             "px RMS from the registration fitted to them and the tile seams")
+    _refused_points(capsys, still, tmp_path, rv, tv, FIELD.tile_corners_m(),
+                    "px RMS from the registration fitted to them and the tile seams")
 
 
 # ------------------------------------------------------------- unit checks
