@@ -140,13 +140,13 @@ def test_refused_image_halves_disagree(still, tmp_path, monkeypatch, capsys):
              tmp_path / "out", "halves of the image disagree by 80 mm")
 
 
-def test_refused_clicked_point_off_by_a_tile(still, tmp_path, capsys):
-    d, rvec, tvec = still
+def _refused_points(capsys, still, tmp_path, rvec, tvec, floor, reason_part):
+    """``register --points`` with the tile corners seen from (rvec, tvec) labelled
+    ``floor``: refused with ``reason_part``."""
+    d = still[0]
     corners = FIELD.tile_corners_m()
     px = cv2.projectPoints(np.column_stack([corners, np.zeros(len(corners))]), rvec, tvec,
                            CAM.matrix, CAM.dist_coeffs)[0].reshape(-1, 2)
-    floor = corners.copy()
-    floor[10, 0] += 0.6  # point 11 labelled one tile off
     rows = ["u_px,v_px,x_m,y_m"] + [f"{u:.3f},{v:.3f},{x:.3f},{y:.3f}"
                                     for (u, v), (x, y) in zip(px, floor, strict=True)]
     pts = tmp_path / "points.csv"
@@ -154,7 +154,24 @@ def test_refused_clicked_point_off_by_a_tile(still, tmp_path, capsys):
     out = tmp_path / "res" / "out"
     out.parent.mkdir()
     _refused(capsys, [str(d / "floor.png"), "--field", str(_field_toml(d, 6, 0.6)),
-                      "--points", str(pts)], out, "point 11")
+                      "--points", str(pts)], out, reason_part)
+
+
+def test_refused_clicked_point_off_by_a_tile(still, tmp_path, capsys):
+    _, rvec, tvec = still
+    floor = FIELD.tile_corners_m().copy()
+    floor[10, 0] += 0.6  # point 11 labelled one tile off
+    _refused_points(capsys, still, tmp_path, rvec, tvec, floor, "point 11")
+
+
+def test_refused_clicks_the_seams_pull_away_from(still, tmp_path, capsys):
+    """Clicks consistent among themselves (each predicted well by the others) but made on
+    a view 25 mm off the one filmed (as if the camera was nudged after the clicked frame):
+    the tile seams move the fit away from every click, and the check refuses."""
+    _, rvec, tvec = still
+    rv, tv = _shifted(rvec, tvec, 0.02, 0.015)
+    _refused_points(capsys, still, tmp_path, rv, tv, FIELD.tile_corners_m(),
+                    "px RMS from the registration fitted to them and the tile seams")
 
 
 # ------------------------------------------------------------- unit checks
@@ -303,3 +320,37 @@ def test_grade_and_track_take_points_start_tile_and_camera_height(tmp_path):
     args.start_tile = "6,0"
     with pytest.raises(Exception, match="--start-tile: tile \\(6, 0\\) is outside"):
         registration_options.registrar_from_args(args, FIELD, None)
+
+
+@pytest.mark.slow
+def test_small_handheld_view_with_floor_markers_is_refused_when_wrong(rendered_run):
+    """The hand-held scenario at 640 x 360 with its true lens: floor markers sharpened on
+    the seams land off the tiles (checked here against the renderer's true camera: more
+    than 5 mm RMS at the tile corners in view), and the self-check refuses it, naming
+    the image size. At 1280 x 720 the same registration passes (benchmark:
+    ``registration_accuracy.py``)."""
+    from vidodo.profiles import load_camera, load_field
+    from vidodo.registration.registrar import FloorRegistrar, RegistrarSettings
+    from vidodo.video import VideoReader
+
+    run = rendered_run("mecanum-handheld", 0, video__max_duration_s=0.5)
+    field, cam = load_field(run / "field.toml"), load_camera(run / "camera.toml")
+    with VideoReader(run / "video.mp4", threaded=False) as reader:
+        _, t_s, frame = next(iter(reader))
+    poses = pd.read_csv(run / "truth" / "camera_poses.csv")
+    k = int(np.argmin(np.abs(poses["t_s"].to_numpy() - t_s)))
+    rvec = poses.loc[k, ["rvec_0", "rvec_1", "rvec_2"]].to_numpy(float)
+    tvec = poses.loc[k, ["tvec_0_m", "tvec_1_m", "tvec_2_m"]].to_numpy(float)
+    corners = field.tile_corners_m()
+    px = cv2.projectPoints(np.column_stack([corners, np.zeros(len(corners))]), rvec, tvec,
+                           cam.matrix, cam.dist_coeffs)[0].reshape(-1, 2)
+    inside = ((px[:, 0] > 0) & (px[:, 0] < cam.width_px) & (px[:, 1] > 0)
+              & (px[:, 1] < cam.height_px))
+    unchecked = FloorRegistrar(field, cam, settings=RegistrarSettings(self_check=False))
+    reg = unchecked.register_reference(frame, t_s)
+    err = reg.image_to_floor(px[inside]) - corners[inside]
+    assert np.sqrt(np.mean(np.sum(err ** 2, axis=1))) > 0.005
+    with pytest.raises(RegistrationRefused, match=r"seams were found on only .* at 640 x "
+                                                  r"360 px") as exc:
+        FloorRegistrar(field, cam).register_reference(frame, t_s)
+    assert str(exc.value).startswith(PREFIX)

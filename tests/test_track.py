@@ -418,6 +418,16 @@ def test_rolling_shutter_correction():
          for ro, r in results.items()}
     assert np.sqrt(np.mean(e[readout] ** 2)) < 0.5 * np.sqrt(np.mean(e[0.0] ** 2))
     assert np.sqrt(np.mean(e[readout] ** 2)) < 0.002
+    # Readout unknown (no camera profile): the lag stays, and the 1-sigma carries it
+    # (speed x row fraction x the readout's uncertainty): the samples lie within 2 sigma
+    # (2-D Gaussian with sigma the radial RMS: about 98 %, common practice). Assuming
+    # the readout right instead, the same lag lies outside.
+    acc = track_frames(iter(frames), robot, FIELD, StandInRegistrar())
+    unknown = finish_track(acc, robot, FIELD, TrackSettings(readout_s=0.0),
+                           readout_source="none").track
+    err = np.hypot(unknown.x_m - truth_frame[:, 0], unknown.y_m - truth_frame[:, 1])[3:-3]
+    assert np.mean(err <= 2 * unknown.sigma_xy_m.to_numpy()[3:-3]) >= 0.9
+    assert np.mean(e[0.0] <= 2 * results[0.0].track.sigma_xy_m.to_numpy()[3:-3]) < 0.5
 
 
 def test_csv_round_trip(tmp_path, single_tag_run):

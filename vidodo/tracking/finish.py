@@ -28,6 +28,10 @@ __all__ = ["finish_track", "MIN_CELL_PX"]
 REGISTRATION_PARAMS = 8
 """Parameters a floor registration fits: camera pose (6) plus up to two lens terms."""
 
+UNKNOWN_READOUT_MAX_S = 0.030
+"""Longest sensor readout of a phone's video mode assumed when none is known [s] (a
+phone's readout is 10-30 ms, from memory; the warning without one says so)."""
+
 MIN_CELL_PX = 3.0
 """Marker cell width (square root of the marker's image area / cells across) below
 which detection becomes unreliable [px] (common practice; with motion blur, markers of
@@ -154,6 +158,7 @@ def finish_track(records, robot, field_profile, settings=None, *, readout_source
     if readout.refit:
         first = _smooth_run(run, t[idx] + frac * readout.readout_s, noise_parts, noise)
     out, interpolated, fits = first
+    _add_timing_sigma(out, np.interp(np.arange(n), idx, frac), readout_sigma_s(readout))
     gaps = _long_gaps(run.segs, t, n)
     # Heading continuous across long gaps: keep each segment's unwrapped value.
     out["speed_mps"] = np.hypot(out["vx_mps"], out["vy_mps"])
@@ -291,6 +296,40 @@ def _readout(acc, run, first, sigma_px, readout_s, readout_source):
     if readout_source == "none" and usable:
         return _Readout(est, "estimated", est, est_sigma, est_frames, usable, True)
     return _Readout(readout_s, readout_source, est, est_sigma, est_frames, usable, False)
+
+
+def readout_sigma_s(readout) -> float:
+    """How far the readout time used may be off [s] (1-sigma).
+
+    From a camera profile or the command line: taken as right (0; the marker shear
+    warns when it disagrees). Estimated from the marker shear: that estimate's sigma.
+    Unknown (none used): detections are timed as if read at the frame time, off by the
+    true readout: a phone's readout of up to :data:`UNKNOWN_READOUT_MAX_S` (RMS of a
+    uniform spread over 0 to that), or the shear estimate (its value and sigma) where
+    that says more (an estimate too uncertain to be used is not trusted to say less).
+    """
+    if readout.source == "estimated":
+        return float(readout.sigma_s)
+    if readout.source != "none":
+        return 0.0
+    prior = UNKNOWN_READOUT_MAX_S / math.sqrt(3.0)
+    est, sigma = readout.estimate_s, readout.sigma_s
+    if math.isfinite(est) and math.isfinite(sigma):
+        return max(prior, math.hypot(min(max(est, 0.0), UNKNOWN_READOUT_MAX_S), sigma))
+    return prior
+
+
+def _add_timing_sigma(out, frac, sigma_readout_s):
+    """Add to the 1-sigma the timing error of each sample: read a fraction ``frac`` of
+    the readout after the frame time, a readout off by ``sigma_readout_s`` moves the
+    position by speed x frac x that, the heading by turn rate x frac x that."""
+    if not sigma_readout_s > 0:
+        return
+    dt = np.nan_to_num(frac) * sigma_readout_s
+    speed = np.hypot(out["vx_mps"], out["vy_mps"])
+    out["sigma_xy_m"] = np.hypot(out["sigma_xy_m"], speed * dt)
+    out["sigma_heading_rad"] = np.hypot(out["sigma_heading_rad"],
+                                        np.abs(out["omega_radps"]) * dt)
 
 
 def _long_gaps(segs, t, n):
