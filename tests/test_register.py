@@ -264,7 +264,7 @@ def test_feature_reregistration_recovers_graffiti_homography():
     fs = cv2.FileStorage(str(data / "H1to3p.xml"), cv2.FILE_STORAGE_READ)
     h_true = fs.getNode("H13").mat()
     fs.release()
-    m = floor_features.match_homography(a, b, detector="sift")
+    m = floor_features.match_homography(a, b, floor_features.MatchSettings("sift"))
     assert m.H is not None, m.reason
     r = floor_features.refine_homography(a, b, m.H)
     assert r.H is not None, r.reason
