@@ -29,13 +29,20 @@ from vidodo.registration.frame import FrameRegistration
 PREFIX = "the floor could not be registered reliably: "
 
 
+def write_still_floor(folder):
+    """``folder/floor.png``: the tiled floor seen from the tripod pose of ``test_grid``;
+    returns that pose (rvec, tvec)."""
+    tex, org = tile_texture(FIELD)
+    rvec, tvec = tripod_pose()
+    cv2.imwrite(str(folder / "floor.png"), render_view(tex, org, CAM, rvec, tvec,
+                                                       supersample=1))
+    return rvec, tvec
+
+
 @pytest.fixture(scope="module")
 def still(tmp_path_factory):
     d = tmp_path_factory.mktemp("selfcheck")
-    tex, org = tile_texture(FIELD)
-    rvec, tvec = tripod_pose()
-    cv2.imwrite(str(d / "floor.png"), render_view(tex, org, CAM, rvec, tvec, supersample=1))
-    return d, rvec, tvec
+    return (d, *write_still_floor(d))
 
 
 def _field_toml(folder, tiles, size_m):
