@@ -534,12 +534,13 @@ def _load_profile(path, tables, build, check):
 
 
 def load_robot(path) -> RobotProfile:
-    """Read a robot profile (TOML).
+    """Read a robot profile (TOML): size, markers, wheels, IMU, odometry sources, log.
 
     Parameters
     ----------
     path : str or Path
-        The TOML file; every key carries its unit (``radius_m``, ``direction_deg``).
+        Tables [robot], [log], [[marker]], [[wheel]], optionally [imu] and [[source]];
+        every key carries its unit (``radius_m``, ``direction_deg``).
 
     Returns
     -------
@@ -549,13 +550,14 @@ def load_robot(path) -> RobotProfile:
     Raises
     ------
     InputError
-        Naming the file, the table and the key that is missing or wrong.
+        Naming the file, the table and the key that is missing or wrong; also for two
+        wheels of one name, or a source naming a wheel or IMU the profile lacks.
     """
     return _load_profile(path, ROBOT_TABLES, _robot_from_toml, "check_robot")
 
 
 def _robot_from_toml(data, p, where) -> RobotProfile:
-    """The profile from the read TOML of ``p`` (``where`` names it in messages)."""
+    """:func:`load_robot` after reading: the tables of ``data`` into a RobotProfile."""
     robot = TomlTable(data.get("robot", {}), f"{where} [robot]")
     log = TomlTable(data.get("log", {}), f"{where} [log]")
     markers = tuple(_marker(t, Marker) for t in _list_of_tables(data, "marker", where))
@@ -622,12 +624,13 @@ def _robot_from_toml(data, p, where) -> RobotProfile:
 
 
 def load_field(path) -> FieldProfile:
-    """Read a field profile (TOML).
+    """Read a field profile (TOML): the tiled floor and its fiducials.
 
     Parameters
     ----------
     path : str or Path
-        The TOML file; every key carries its unit (``radius_m``, ``direction_deg``).
+        Table [floor] (tile counts, ``tile_size_m``, origin hint, start tile), optionally
+        [[floor_marker]] tables.
 
     Returns
     -------
@@ -637,13 +640,14 @@ def load_field(path) -> FieldProfile:
     Raises
     ------
     InputError
-        Naming the file, the table and the key that is missing or wrong.
+        Naming the file and the key that is missing or wrong, or a start tile outside
+        the field.
     """
     return _load_profile(path, FIELD_TABLES, _field_from_toml, "check_field")
 
 
 def _field_from_toml(data, p, where) -> FieldProfile:
-    """The profile from the read TOML of ``p`` (``where`` names it in messages)."""
+    """:func:`load_field` after reading: [floor] and [[floor_marker]] of ``data``."""
     floor = TomlTable(data.get("floor", {}), f"{where} [floor]")
     tiles_x = floor.get("tiles_x", int)
     tiles_y = floor.get("tiles_y", int)
@@ -690,12 +694,13 @@ def parse_start_tile(value, tiles_x, tiles_y, where) -> tuple[int, int]:
 
 
 def load_camera(path) -> CameraProfile:
-    """Read a camera profile (TOML).
+    """Read a camera profile (TOML), as ``vidodo lens`` writes it.
 
     Parameters
     ----------
     path : str or Path
-        The TOML file; every key carries its unit (``radius_m``, ``direction_deg``).
+        Table [camera]: image size and intrinsics in pixels (``fx_px``...), OpenCV
+        ``distortion`` terms, rolling-shutter ``readout_s``.
 
     Returns
     -------
@@ -711,7 +716,7 @@ def load_camera(path) -> CameraProfile:
 
 
 def _camera_from_toml(data, p, where) -> CameraProfile:
-    """The profile from the read TOML of ``p`` (``where`` names it in messages)."""
+    """:func:`load_camera` after reading: [camera] of ``data``."""
     t = TomlTable(data.get("camera", {}), f"{where} [camera]")
     dist = t.data.get("distortion", [0.0, 0.0, 0.0, 0.0, 0.0])
     if not isinstance(dist, list) or not all(
