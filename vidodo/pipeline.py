@@ -28,6 +28,7 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
+from .csvsafe import read_csv_checked
 from .drift_sigma import DriftInputs, derived_sigmas, figure_sigmas
 from .errors import InputError, MeasurementError
 from .events import EventSettings, active_kinds, detect_events, events_frame
@@ -161,12 +162,7 @@ def read_track_csv(path) -> pd.DataFrame:
         File missing, or a required column absent.
     """
     p = Path(path)
-    try:
-        df = pd.read_csv(p)
-    except FileNotFoundError:
-        raise InputError(f"{p}: file not found; check the --track path") from None
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
-        raise InputError(f"{p}: not a readable CSV ({exc}); give a track.csv") from None
+    df = read_csv_checked(p, "check the --track path", "give a track.csv")
     missing = [c for c in _REQUIRED if c not in df.columns]
     if missing:
         raise InputError(f"{p}: missing column(s) {missing}; give a track written by "
