@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import re
 import shutil
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -175,7 +176,7 @@ def test_refused_registration_is_a_failed_check(monkeypatch):
     checklist line with what to do, never a crash."""
     from vidodo import preflight_video
     from vidodo.errors import RegistrationRefused
-    from vidodo.profiles import FieldProfile
+    from vidodo.profiles import FieldProfile, load_robot
     from vidodo.registration import registrar
 
     def refuse(self, frame, t_s, mask=None):
@@ -183,6 +184,9 @@ def test_refused_registration_is_a_failed_check(monkeypatch):
 
     monkeypatch.setattr(registrar.FloorRegistrar, "register", refuse)
     frames = [(0.0, np.zeros((360, 640, 3), np.uint8))]
-    reg, check = preflight_video._register(frames, FieldProfile(6, 6, 0.6096), None)
-    assert reg is None and check.status == "fail"
+    robot = load_robot(Path(__file__).resolve().parents[1] / "fixtures" / "robot_tank.toml")
+    checks = {c.name: c for c in preflight_video.video_checks(
+        frames, robot, FieldProfile(6, 6, 0.6096), None, None, None)}
+    check = checks["floor registration"]
+    assert check.status == "fail" and "measurable" not in checks
     assert "registered reliably" in check.detail and check.todo
