@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import re
 import shutil
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -51,31 +52,22 @@ def test_correct_log_passes(small, tmp_path):
     assert res.status == "pass", [(c.name, c.detail) for c in res.checks]
 
 
-def test_swapped_wheel_sign_is_named(small, tmp_path):
+@pytest.mark.parametrize(("edits", "check", "todo"), [
+    ([("right", "sign", "1")], "encoder directions",
+     "sign of wheel 'right' is backwards: set sign = -1"),
+    ([("pod_left", "column", '"pod_right_ticks"'), ("pod_right", "column", '"pod_left_ticks"')],
+     "encoder directions", "columns of wheels 'pod_left' and 'pod_right' are swapped"),
+    ([("pod_left", "counter_bits", "16")], "counter width", "counter_bits = 32 for 'pod_left'"),
+], ids=["wheel sign backwards", "columns swapped", "counter declared too narrow"])
+def test_profile_fault_is_named(small, tmp_path, edits, check, todo):
+    """A robot profile that disagrees with its log in one way fails exactly one check,
+    whose advice names the wheel and the fix."""
     d = _copy(small, tmp_path)
-    _edit_wheel(d / "robot.toml", "right", "sign", "1")
+    for wheel, key, value in edits:
+        _edit_wheel(d / "robot.toml", wheel, key, value)
     fails = _failed(preflight(d / "robot.toml", d / "field.toml", d / "log.csv"))
-    assert list(fails) == ["encoder directions"]
-    assert "sign of wheel 'right' is backwards: set sign = -1" in fails[
-        "encoder directions"].todo
-
-
-def test_swapped_columns_are_named(small, tmp_path):
-    d = _copy(small, tmp_path)
-    _edit_wheel(d / "robot.toml", "pod_left", "column", '"pod_right_ticks"')
-    _edit_wheel(d / "robot.toml", "pod_right", "column", '"pod_left_ticks"')
-    fails = _failed(preflight(d / "robot.toml", d / "field.toml", d / "log.csv"))
-    assert list(fails) == ["encoder directions"]
-    assert "columns of wheels 'pod_left' and 'pod_right' are swapped" in fails[
-        "encoder directions"].todo
-
-
-def test_counter_declared_too_narrow_is_named(small, tmp_path):
-    d = _copy(small, tmp_path)
-    _edit_wheel(d / "robot.toml", "pod_left", "counter_bits", "16")
-    fails = _failed(preflight(d / "robot.toml", d / "field.toml", d / "log.csv"))
-    assert list(fails) == ["counter width"]
-    assert "counter_bits = 32 for 'pod_left'" in fails["counter width"].todo
+    assert list(fails) == [check]
+    assert todo in fails[check].todo
 
 
 def test_counter_wrapping_narrower_than_declared_is_named(small, tmp_path):
@@ -184,7 +176,7 @@ def test_refused_registration_is_a_failed_check(monkeypatch):
     checklist line with what to do, never a crash."""
     from vidodo import preflight_video
     from vidodo.errors import RegistrationRefused
-    from vidodo.profiles import FieldProfile
+    from vidodo.profiles import FieldProfile, load_robot
     from vidodo.registration import registrar
 
     def refuse(self, frame, t_s, mask=None):
@@ -192,6 +184,9 @@ def test_refused_registration_is_a_failed_check(monkeypatch):
 
     monkeypatch.setattr(registrar.FloorRegistrar, "register", refuse)
     frames = [(0.0, np.zeros((360, 640, 3), np.uint8))]
-    reg, check = preflight_video._register(frames, FieldProfile(6, 6, 0.6096), None)
-    assert reg is None and check.status == "fail"
+    robot = load_robot(Path(__file__).resolve().parents[1] / "fixtures" / "robot_tank.toml")
+    checks = {c.name: c for c in preflight_video.video_checks(
+        frames, robot, FieldProfile(6, 6, 0.6096), None, None, None)}
+    check = checks["floor registration"]
+    assert check.status == "fail" and "measurable" not in checks
     assert "registered reliably" in check.detail and check.todo

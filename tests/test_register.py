@@ -21,6 +21,7 @@ from test_grid import (
     tripod_pose,
 )
 from test_lens import opencv_data
+from test_selfcheck import write_still_floor
 
 from vidodo import floor_features
 from vidodo.errors import CalibrationError, InputError
@@ -264,7 +265,7 @@ def test_feature_reregistration_recovers_graffiti_homography():
     fs = cv2.FileStorage(str(data / "H1to3p.xml"), cv2.FILE_STORAGE_READ)
     h_true = fs.getNode("H13").mat()
     fs.release()
-    m = floor_features.match_homography(a, b, detector="sift")
+    m = floor_features.match_homography(a, b, floor_features.MatchSettings("sift"))
     assert m.H is not None, m.reason
     r = floor_features.refine_homography(a, b, m.H)
     assert r.H is not None, r.reason
@@ -282,9 +283,7 @@ FIELD_TOML = "[floor]\ntiles_x = 6\ntiles_y = 6\ntile_size_m = 0.6\norigin_hint 
 @pytest.fixture(scope="module")
 def still(tmp_path_factory):
     d = tmp_path_factory.mktemp("still")
-    tex, org = tile_texture(FIELD)
-    rvec, tvec = tripod_pose()
-    cv2.imwrite(str(d / "floor.png"), render_view(tex, org, CAM, rvec, tvec, supersample=1))
+    write_still_floor(d)
     (d / "field.toml").write_text(FIELD_TOML)
     return d
 

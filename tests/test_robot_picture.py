@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+from dataclasses import replace
 from pathlib import Path
 
 import cv2
@@ -13,7 +14,6 @@ from test_report_page import browser  # noqa: F401  (the headless browser fixtur
 
 from vidodo.profiles import Wheel, load_robot
 from vidodo.robot_picture import (
-    _wheel_glyph,
     body_to_page,
     robot_figure,
     robot_layout,
@@ -21,6 +21,12 @@ from vidodo.robot_picture import (
 )
 
 FIXTURES = Path(__file__).resolve().parents[1] / "fixtures"
+
+
+def _wheel_glyph(wheel):
+    """The wheel as the picture draws it: the layout of a fixture robot with only it."""
+    robot = replace(load_robot(FIXTURES / "robot_tank.toml"), wheels=(wheel,))
+    return robot_layout(robot).wheels[0]
 
 
 def test_page_is_the_body_frame_turned_front_up():

@@ -29,13 +29,20 @@ from vidodo.registration.frame import FrameRegistration
 PREFIX = "the floor could not be registered reliably: "
 
 
+def write_still_floor(folder):
+    """``folder/floor.png``: the tiled floor seen from the tripod pose of ``test_grid``;
+    returns that pose (rvec, tvec)."""
+    tex, org = tile_texture(FIELD)
+    rvec, tvec = tripod_pose()
+    cv2.imwrite(str(folder / "floor.png"), render_view(tex, org, CAM, rvec, tvec,
+                                                       supersample=1))
+    return rvec, tvec
+
+
 @pytest.fixture(scope="module")
 def still(tmp_path_factory):
     d = tmp_path_factory.mktemp("selfcheck")
-    tex, org = tile_texture(FIELD)
-    rvec, tvec = tripod_pose()
-    cv2.imwrite(str(d / "floor.png"), render_view(tex, org, CAM, rvec, tvec, supersample=1))
-    return d, rvec, tvec
+    return (d, *write_still_floor(d))
 
 
 def _field_toml(folder, tiles, size_m):
@@ -108,28 +115,21 @@ def test_refused_implausible_focal_length(still, tmp_path, monkeypatch, capsys):
              tmp_path / "out", "focal length is 0.12 x the image size")
 
 
-def test_refused_grid_off_the_seams(still, tmp_path, monkeypatch, capsys):
+@pytest.mark.parametrize(("shift_m", "tiles", "tile_m", "reason"), [
+    ((0.2, 0.15), 6, 0.6, "seams were found on only"),
+    # A 3 x 3 field of 1.2 m tiles on the 0.6 m tiling: every predicted edge is a seam,
+    # but so is every line half a tile off.
+    (None, 3, 1.2, "half a tile off the grid as often as on it"),
+    # A 4 x 4 field inside the 6 x 6 tiling: the tiles continue past every edge.
+    ((0.6, 0.6), 4, 0.6, "field's place in the tile pattern cannot be told"),
+], ids=["grid off the seams", "twice the tile size", "field place in the tiling unknown"])
+def test_refused_grid_against_the_seams(still, tmp_path, monkeypatch, capsys, shift_m, tiles,
+                                        tile_m, reason):
+    """A grid that does not lie on the tile seams the picture shows is refused."""
     d, rvec, tvec = still
-    _fake_grid(monkeypatch, *_shifted(rvec, tvec, 0.2, 0.15))
-    _refused(capsys, [str(d / "floor.png"), "--field", str(_field_toml(d, 6, 0.6))],
-             tmp_path / "out", "seams were found on only")
-
-
-def test_refused_grid_of_twice_the_tile_size(still, tmp_path, monkeypatch, capsys):
-    """A 3 x 3 field of 1.2 m tiles on the 0.6 m tiling: every predicted edge is a seam,
-    but so is every line half a tile off."""
-    d, rvec, tvec = still
-    _fake_grid(monkeypatch, rvec, tvec)
-    _refused(capsys, [str(d / "floor.png"), "--field", str(_field_toml(d, 3, 1.2))],
-             tmp_path / "out", "half a tile off the grid as often as on it")
-
-
-def test_refused_field_place_in_the_tiling_unknown(still, tmp_path, monkeypatch, capsys):
-    """A 4 x 4 field inside the 6 x 6 tiling: the tiles continue past every edge."""
-    d, rvec, tvec = still
-    _fake_grid(monkeypatch, *_shifted(rvec, tvec, 0.6, 0.6))
-    _refused(capsys, [str(d / "floor.png"), "--field", str(_field_toml(d, 4, 0.6))],
-             tmp_path / "out", "field's place in the tile pattern cannot be told")
+    _fake_grid(monkeypatch, *(_shifted(rvec, tvec, *shift_m) if shift_m else (rvec, tvec)))
+    _refused(capsys, [str(d / "floor.png"), "--field", str(_field_toml(d, tiles, tile_m))],
+             tmp_path / "out", reason)
 
 
 def test_refused_image_halves_disagree(still, tmp_path, monkeypatch, capsys):

@@ -18,8 +18,8 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-__all__ = ["HomographyMatch", "match_homography", "refine_homography", "FloorPatchTracker",
-           "to_grey"]
+__all__ = ["HomographyMatch", "MatchSettings", "match_homography", "refine_homography",
+           "FloorPatchTracker", "to_grey"]
 
 
 def to_grey(frame):
@@ -45,6 +45,22 @@ class HomographyMatch:
     """Why it failed (empty on success)."""
 
 
+@dataclass(frozen=True)
+class MatchSettings:
+    """Options of :func:`match_homography`."""
+
+    detector: str = "sift"
+    """Keypoint detector and descriptor: 'sift' or 'orb'."""
+    max_features: int = 4000
+    """Keypoints kept per image."""
+    ratio: float = 0.75
+    """Lowe's ratio-test threshold."""
+    ransac_px: float = 3.0
+    """RANSAC inlier threshold [px]."""
+    min_inliers: int = 15
+    """Fewer inliers than this is a failure."""
+
+
 def _mask_u8(mask, shape):
     """OpenCV detection mask (255 = use) from a boolean 'ignore these pixels' mask."""
     if mask is None:
@@ -55,30 +71,27 @@ def _mask_u8(mask, shape):
     return np.where(m.astype(bool), 0, 255).astype(np.uint8)
 
 
-def match_homography(image_a, image_b, *, ignore_a=None, ignore_b=None, detector="sift",
-                     max_features=4000, ratio=0.75, ransac_px=3.0, min_inliers=15):
+def match_homography(image_a, image_b, settings=None, *, ignore_a=None, ignore_b=None):
     """Homography from image A to image B by feature matching and RANSAC.
 
     Parameters
     ----------
     image_a, image_b : ndarray
         BGR or grey images.
+    settings : MatchSettings, optional
+        Detector ('sift' or 'orb'), keypoints per image, Lowe's ratio, RANSAC threshold
+        [px], fewest inliers.
     ignore_a, ignore_b : ndarray of bool, optional
         Pixels to ignore (True), e.g. the robot or everything off the floor.
-    detector : {'sift', 'orb'}
-        Keypoint detector and descriptor.
-    ratio : float
-        Lowe's ratio-test threshold.
-    ransac_px : float
-        RANSAC inlier threshold [px].
-    min_inliers : int
-        Fewer inliers than this is a failure.
 
     Returns
     -------
     HomographyMatch
         Never raises for poor images; failure is ``H is None`` with a reason.
     """
+    st = MatchSettings() if settings is None else settings
+    detector, max_features, ratio = st.detector, st.max_features, st.ratio
+    ransac_px, min_inliers = st.ransac_px, st.min_inliers
     ga, gb = to_grey(image_a), to_grey(image_b)
     if detector == "sift":
         det = cv2.SIFT_create(nfeatures=max_features)

@@ -42,6 +42,7 @@ __all__ = [
     "transform_poses",
     "anchor_poses",
     "anchor_heading_from_travel",
+    "TravelStretch",
     "local_pose",
     "path_length",
     "motion_start_index",
@@ -195,12 +196,25 @@ def anchor_poses(poses, source_pose, truth_pose):
     return np.column_stack([qx + rx, qy + ry, p[:, 2] + dh])
 
 
-def anchor_heading_from_travel(t_s, truth_poses, anchored_poses, k0, *, length_m=1.0,
-                               max_s=2.0, sigma_m=None, corr_samples=5, t_stop_s=None):
+@dataclass(frozen=True)
+class TravelStretch:
+    """The first stretch of travel :func:`anchor_heading_from_travel` uses."""
+
+    length_m: float = 1.0
+    """Truth path length of the stretch [m]."""
+    max_s: float = 2.0
+    """Longest duration of the stretch [s]."""
+    corr_samples: int = 5
+    """Samples over which truth errors are taken as correlated (a smoothed track)."""
+
+
+def anchor_heading_from_travel(t_s, truth_poses, anchored_poses, k0, *, sigma_m=None,
+                               t_stop_s=None, stretch=None):
     """Heading correction at the anchor from the first stretch of travel.
 
     A marker's heading is often less certain than its position. Over the first
-    ``length_m`` of truth path after sample ``k0`` (at most ``max_s``), the rotation about
+    ``stretch.length_m`` of truth path after sample ``k0`` (at most ``stretch.max_s``),
+    the rotation about
     the anchor point that best lays the anchored source's positions onto the truth's
     (least squares, Umeyama 1991 with the translation fixed) is a second measurement of
     the start heading; odometry over so short a stretch has hardly drifted.
@@ -214,10 +228,11 @@ def anchor_heading_from_travel(t_s, truth_poses, anchored_poses, k0, *, length_m
         Anchor sample.
     sigma_m : float, optional
         Truth position 1-sigma [m]; 2 mm when not given.
-    corr_samples : int
-        Samples over which truth errors are taken as correlated (a smoothed track).
     t_stop_s : float, optional
         End the stretch here (e.g. before the first slip or lift event) [s].
+    stretch : TravelStretch, optional
+        Length, longest duration and correlated samples of the stretch (defaults: 1 m,
+        2 s, 5 samples).
 
     Returns
     -------
@@ -225,6 +240,8 @@ def anchor_heading_from_travel(t_s, truth_poses, anchored_poses, k0, *, length_m
         ``(dheading_rad, sigma_rad)``, or ``(None, None)`` when the stretch is too short
         (under 0.2 m) or too few samples.
     """
+    stretch = TravelStretch() if stretch is None else stretch
+    length_m, max_s, corr_samples = stretch.length_m, stretch.max_s, stretch.corr_samples
     t = np.asarray(t_s, dtype=float)
     q = np.asarray(truth_poses, dtype=float).reshape(-1, 3)
     p = np.asarray(anchored_poses, dtype=float).reshape(-1, 3)

@@ -27,16 +27,19 @@ import contextlib
 import errno
 import fcntl
 import json
+import math
 import os
 import re
 import shutil
 import tempfile
 from pathlib import Path
 
+import numpy as np
+
 from .errors import InputError
 
 __all__ = ["staged_dir", "atomic_file", "check_target", "check_file_target", "OutputError",
-           "MANIFEST", "owned_files", "column_prefix"]
+           "MANIFEST", "owned_files", "column_prefix", "jsonable"]
 
 MANIFEST = ".vidodo-manifest.json"
 """Name of the manifest every output folder carries (JSON: ``files``, ``written_by``)."""
@@ -437,6 +440,22 @@ def atomic_file(path, *, inputs=(), force=False, signature=None):
         with contextlib.suppress(FileNotFoundError):
             os.unlink(tmp)
         raise OutputError(_os_message(exc, path)) from None
+
+
+def jsonable(obj):
+    """``obj`` made plain for JSON: dict keys as text, tuples as lists, NumPy scalars as
+    Python numbers, NaN and infinities as None (JSON null), paths as text."""
+    if isinstance(obj, dict):
+        return {str(k): jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [jsonable(v) for v in obj]
+    if isinstance(obj, np.generic):
+        obj = obj.item()
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    if isinstance(obj, Path):
+        return str(obj)
+    return obj
 
 
 def column_prefix(name: str) -> str:

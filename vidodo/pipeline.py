@@ -28,6 +28,7 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
+from .csvsafe import read_csv_checked
 from .drift_sigma import DriftInputs, derived_sigmas, figure_sigmas
 from .errors import InputError, MeasurementError
 from .events import EventSettings, active_kinds, detect_events, events_frame
@@ -45,6 +46,7 @@ from .metrics import (
     umeyama,
 )
 from .odometry import odometry_result, rim_travel
+from .outputs import jsonable
 from .profiles import FieldProfile, RobotProfile, load_camera, load_field, load_robot
 from .se2 import interpolate_poses
 from .sync import ClockSync, estimate_clock, manual_clock
@@ -160,12 +162,7 @@ def read_track_csv(path) -> pd.DataFrame:
         File missing, or a required column absent.
     """
     p = Path(path)
-    try:
-        df = pd.read_csv(p)
-    except FileNotFoundError:
-        raise InputError(f"{p}: file not found; check the --track path") from None
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
-        raise InputError(f"{p}: not a readable CSV ({exc}); give a track.csv") from None
+    df = read_csv_checked(p, "check the --track path", "give a track.csv")
     missing = [c for c in _REQUIRED if c not in df.columns]
     if missing:
         raise InputError(f"{p}: missing column(s) {missing}; give a track written by "
@@ -513,7 +510,7 @@ def _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn,
                        best_fit={n: g.best_fit for n, g in graded.items()
                                  if g.best_fit is not None},
                        anchor=anchor, metrics=metrics, drift=drift, events=events_df,
-                       event_list=ev.events, tolerances=tol, summary=_jsonable(summary),
+                       event_list=ev.events, tolerances=tol, summary=jsonable(summary),
                        warnings=tuple(warn), passed=passed)
 
 
@@ -538,20 +535,6 @@ def _unwrap_nan(h):
     ok = np.isfinite(h)
     out[ok] = np.unwrap(h[ok])
     return out
-
-
-def _jsonable(obj):
-    if isinstance(obj, dict):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, np.generic):
-        obj = obj.item()
-    if isinstance(obj, float) and not math.isfinite(obj):
-        return None
-    if isinstance(obj, Path):
-        return str(obj)
-    return obj
 
 
 def grade_run(video, log, robot, field, camera=None, *, settings=None, track=None,

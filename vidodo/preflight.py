@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 
 from .checklist import STATUSES, Check
+from .csvsafe import read_csv_checked
 from .errors import InputError
 from .profiles import TIME_UNITS_S, RobotProfile, load_camera, load_field, load_robot
 
@@ -70,13 +71,8 @@ def _load(kind, loader, path):
 
 
 def _read_table(path) -> pd.DataFrame:
-    try:
-        raw = pd.read_csv(path, sep=None, engine="python", skipinitialspace=True)
-    except FileNotFoundError:
-        raise InputError(f"{path}: file not found; check the path") from None
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
-        raise InputError(f"{path}: not a readable CSV ({str(exc).splitlines()[0]}); "
-                         "save it as plain CSV") from None
+    raw = read_csv_checked(path, "check the path", "save it as plain CSV", sep=None,
+                           engine="python", skipinitialspace=True)
     raw.columns = [str(c).strip().lstrip("\ufeff") for c in raw.columns]
     return raw
 

@@ -799,7 +799,10 @@ class _TableRows:
     def __init__(self):
         self.rows: list[dict] = []
 
-    def add(self, parameter, kind, target, unit, prof, est, s, st, written, sugg_kind=None):
+    def add(self, parameter, kind, target, unit, prof, fit, written, sugg_kind=None):
+        """One row: ``fit`` is (estimate, standard error, identifiable 'yes'/'weak'/'no')
+        in the unit of ``prof``, the profile's value."""
+        est, s, st = fit
         sugg = "" if st == "yes" else SUGGESTIONS[sugg_kind or kind]
         self.rows.append(dict(parameter=parameter, kind=kind, target=target, unit=unit,
                               profile=prof, estimate=est if st != "no" else float("nan"),
@@ -819,14 +822,14 @@ def _fit_table(robot, model, sol: _Solution, signs: _Signs, tol, warnings):
         if rd.i_bias >= 0:
             i = rd.i_bias
             out.add(f"run {rd.name} imu bias_radps", "imu_bias", rd.name, "rad/s", 0.0,
-                    th[i], se[i], status[i], False)
+                    (th[i], se[i], status[i]), False)
         if rd.i_delta >= 0:
             i = rd.i_delta
             out.add(f"run {rd.name} clock offset_s", "clock_offset", rd.name, "s",
-                    rd.offset_s, rd.offset_s + th[i], se[i], status[i], False)
+                    rd.offset_s, (rd.offset_s + th[i], se[i], status[i]), False)
             i = rd.i_rate
-            out.add(f"run {rd.name} clock rate", "clock_rate", rd.name, "", 0.0, th[i],
-                    se[i], status[i], False)
+            out.add(f"run {rd.name} clock rate", "clock_rate", rd.name, "", 0.0,
+                    (th[i], se[i], status[i]), False)
     for r in out.rows:
         if r["identifiable"] == "no":
             warnings.append(f"{r['parameter']}: not identifiable from these runs "
@@ -855,14 +858,14 @@ def _wheel_values(robot, model, sol: _Solution, signs: _Signs, out: _TableRows) 
         side = abs(wheel_rows([w])[0][0]) < 1e-9
         r_est = w.radius_m * th[ik]
         wr = _worth_writing(model, sol, ik)
-        out.add(f"wheel {w.name} radius_m", "radius", w.name, "m", w.radius_m, r_est,
-                w.radius_m * se[ik], status[ik], wr, "radius_side" if side else None)
+        out.add(f"wheel {w.name} radius_m", "radius", w.name, "m", w.radius_m,
+                (r_est, w.radius_m * se[ik], status[ik]), wr, "radius_side" if side else None)
         key, prof, dv, step = _lever_display(w)
         lw = _worth_writing(model, sol, il)
-        out.add(f"wheel {w.name} {key}", "lever", w.name, "m", prof, prof + dv * th[il],
-                abs(dv) * se[il], status[il], lw)
-        out.add(f"wheel {w.name} sign", "sign", w.name, "", float(w.sign), float(sign), 0.0,
-                "yes", w.name in signs.inverted)
+        out.add(f"wheel {w.name} {key}", "lever", w.name, "m", prof,
+                (prof + dv * th[il], abs(dv) * se[il], status[il]), lw)
+        out.add(f"wheel {w.name} sign", "sign", w.name, "", float(w.sign),
+                (float(sign), 0.0, "yes"), w.name in signs.inverted)
         changes = {"sign": sign}
         if wr:
             changes["radius_m"] = float(r_est)
@@ -878,9 +881,9 @@ def _wheel_values(robot, model, sol: _Solution, signs: _Signs, out: _TableRows) 
             continue
         side = abs(wheel_rows([w])[0][0]) < 1e-9
         key, prof, _dv, _step = _lever_display(w)
-        out.add(f"wheel {w.name} radius_m", "radius", w.name, "m", w.radius_m, nan, nan,
-                "no", False, "radius_side" if side else None)
-        out.add(f"wheel {w.name} {key}", "lever", w.name, "m", prof, nan, nan, "no", False)
+        out.add(f"wheel {w.name} radius_m", "radius", w.name, "m", w.radius_m,
+                (nan, nan, "no"), False, "radius_side" if side else None)
+        out.add(f"wheel {w.name} {key}", "lever", w.name, "m", prof, (nan, nan, "no"), False)
     return new_wheels
 
 
@@ -914,7 +917,7 @@ def _track_width_values(robot, model, sol: _Solution, new_wheels, tol, out) -> N
         st = "no" if held else _status([s], ["lever"], tol)[0]
         written = all(new_wheels[model.wheels[j].name].y_m != model.wheels[j].y_m
                       for j in left + right)
-        out.add(f"source {src.name} track_width_m", "lever", src.name, "m", prof, est, s, st,
+        out.add(f"source {src.name} track_width_m", "lever", src.name, "m", prof, (est, s, st),
                 written)
 
 
@@ -926,17 +929,17 @@ def _imu_values(robot, model, sol: _Solution, signs: _Signs, tol, out: _TableRow
         ic = model.i_c
         scale = robot.imu.scale * sol.theta[ic]
         iw = _worth_writing(model, sol, ic)
-        out.add("imu scale", "imu_scale", "imu", "", robot.imu.scale, scale,
-                robot.imu.scale * sol.se[ic], sol.status[ic], iw)
+        out.add("imu scale", "imu_scale", "imu", "", robot.imu.scale,
+                (scale, robot.imu.scale * sol.se[ic], sol.status[ic]), iw)
         sign = -robot.imu.sign if flipped else robot.imu.sign
-        out.add("imu sign", "sign", "imu", "", float(robot.imu.sign), float(sign), 0.0, "yes",
+        out.add("imu sign", "sign", "imu", "", float(robot.imu.sign), (float(sign), 0.0, "yes"),
                 flipped)
         new_imu = dataclasses.replace(robot.imu, sign=sign,
                                       scale=float(scale) if iw else robot.imu.scale)
         new_imu = _imu_bias_row(model, sol.theta, sol.se, tol, robot.imu, new_imu, out.add)
     elif robot.imu is not None:
         nan = float("nan")
-        out.add("imu scale", "imu_scale", "imu", "", robot.imu.scale, nan, nan, "no", False)
+        out.add("imu scale", "imu_scale", "imu", "", robot.imu.scale, (nan, nan, "no"), False)
         if flipped:
             new_imu = dataclasses.replace(robot.imu, sign=-robot.imu.sign)
     return new_imu
@@ -956,7 +959,7 @@ def _imu_bias_row(model, theta, se, tol, imu, new_imu, row):
     # written as the other values are (write_ok): identifiable, or weakly so but more
     # than 3 standard errors from the profile's figure
     ok = st == "yes" or (st == "weak" and abs(est - imu.bias_radps) > 3 * sd)
-    row("imu bias_radps", "imu_bias", "imu", "rad/s", imu.bias_radps, est, sd, st, ok)
+    row("imu bias_radps", "imu_bias", "imu", "rad/s", imu.bias_radps, (est, sd, st), ok)
     return dataclasses.replace(new_imu, bias_radps=float(est)) if ok else new_imu
 
 

@@ -518,13 +518,29 @@ def _wheel(t: TomlTable) -> Wheel:
     )
 
 
+def _load_profile(path, tables, build, check):
+    """Read a profile (TOML): unknown tables refused, the profile made by
+    ``build(data, path, where)``, unknown keys refused, the values checked by
+    ``vidodo.plausible.<check>``."""
+    data, p = read_toml(path)
+    where = str(p)
+    reject_unknown_tables(data, where, tables)
+    prof = build(data, p, where)
+    reject_unknown_keys(data, where)
+    from . import plausible
+
+    getattr(plausible, check)(prof)
+    return prof
+
+
 def load_robot(path) -> RobotProfile:
-    """Read a robot profile (TOML).
+    """Read a robot profile (TOML): size, markers, wheels, IMU, odometry sources, log.
 
     Parameters
     ----------
     path : str or Path
-        The TOML file; every key carries its unit (``radius_m``, ``direction_deg``).
+        Tables [robot], [log], [[marker]], [[wheel]], optionally [imu] and [[source]];
+        every key carries its unit (``radius_m``, ``direction_deg``).
 
     Returns
     -------
@@ -534,11 +550,14 @@ def load_robot(path) -> RobotProfile:
     Raises
     ------
     InputError
-        Naming the file, the table and the key that is missing or wrong.
+        Naming the file, the table and the key that is missing or wrong; also for two
+        wheels of one name, or a source naming a wheel or IMU the profile lacks.
     """
-    data, p = read_toml(path)
-    where = str(p)
-    reject_unknown_tables(data, where, ROBOT_TABLES)
+    return _load_profile(path, ROBOT_TABLES, _robot_from_toml, "check_robot")
+
+
+def _robot_from_toml(data, p, where) -> RobotProfile:
+    """:func:`load_robot` after reading: the tables of ``data`` into a RobotProfile."""
     robot = TomlTable(data.get("robot", {}), f"{where} [robot]")
     log = TomlTable(data.get("log", {}), f"{where} [log]")
     markers = tuple(_marker(t, Marker) for t in _list_of_tables(data, "marker", where))
@@ -588,7 +607,7 @@ def load_robot(path) -> RobotProfile:
         )
         if sources[-1].heading == "imu" and imu is None:
             raise InputError(f"{t.where}: heading = 'imu' but the profile has no [imu] table")
-    prof = RobotProfile(
+    return RobotProfile(
         name=robot.get("name", str, p.stem),
         length_m=robot.positive("length_m", 0.45),
         width_m=robot.positive("width_m", 0.45),
@@ -602,20 +621,16 @@ def load_robot(path) -> RobotProfile:
         sources=tuple(sources),
         path=p,
     )
-    reject_unknown_keys(data, where)
-    from .plausible import check_robot
-
-    check_robot(prof)
-    return prof
 
 
 def load_field(path) -> FieldProfile:
-    """Read a field profile (TOML).
+    """Read a field profile (TOML): the tiled floor and its fiducials.
 
     Parameters
     ----------
     path : str or Path
-        The TOML file; every key carries its unit (``radius_m``, ``direction_deg``).
+        Table [floor] (tile counts, ``tile_size_m``, origin hint, start tile), optionally
+        [[floor_marker]] tables.
 
     Returns
     -------
@@ -625,11 +640,14 @@ def load_field(path) -> FieldProfile:
     Raises
     ------
     InputError
-        Naming the file, the table and the key that is missing or wrong.
+        Naming the file and the key that is missing or wrong, or a start tile outside
+        the field.
     """
-    data, p = read_toml(path)
-    where = str(p)
-    reject_unknown_tables(data, where, FIELD_TABLES)
+    return _load_profile(path, FIELD_TABLES, _field_from_toml, "check_field")
+
+
+def _field_from_toml(data, p, where) -> FieldProfile:
+    """:func:`load_field` after reading: [floor] and [[floor_marker]] of ``data``."""
     floor = TomlTable(data.get("floor", {}), f"{where} [floor]")
     tiles_x = floor.get("tiles_x", int)
     tiles_y = floor.get("tiles_y", int)
@@ -641,7 +659,7 @@ def load_field(path) -> FieldProfile:
     start = floor.data.get("start_tile")
     if start is not None:
         start = parse_start_tile(start, tiles_x, tiles_y, f"{where} [floor] start_tile")
-    prof = FieldProfile(
+    return FieldProfile(
         tiles_x=tiles_x,
         tiles_y=tiles_y,
         tile_size_m=floor.positive("tile_size_m"),
@@ -652,11 +670,6 @@ def load_field(path) -> FieldProfile:
         path=p,
         start_tile=start,
     )
-    reject_unknown_keys(data, where)
-    from .plausible import check_field
-
-    check_field(prof)
-    return prof
 
 
 def parse_start_tile(value, tiles_x, tiles_y, where) -> tuple[int, int]:
@@ -681,12 +694,13 @@ def parse_start_tile(value, tiles_x, tiles_y, where) -> tuple[int, int]:
 
 
 def load_camera(path) -> CameraProfile:
-    """Read a camera profile (TOML).
+    """Read a camera profile (TOML), as ``vidodo lens`` writes it.
 
     Parameters
     ----------
     path : str or Path
-        The TOML file; every key carries its unit (``radius_m``, ``direction_deg``).
+        Table [camera]: image size and intrinsics in pixels (``fx_px``...), OpenCV
+        ``distortion`` terms, rolling-shutter ``readout_s``.
 
     Returns
     -------
@@ -698,18 +712,21 @@ def load_camera(path) -> CameraProfile:
     InputError
         Naming the file and the key that is missing or wrong.
     """
-    data, p = read_toml(path)
-    reject_unknown_tables(data, str(p), CAMERA_TABLES)
-    t = TomlTable(data.get("camera", {}), f"{p} [camera]")
+    return _load_profile(path, CAMERA_TABLES, _camera_from_toml, "check_camera")
+
+
+def _camera_from_toml(data, p, where) -> CameraProfile:
+    """:func:`load_camera` after reading: [camera] of ``data``."""
+    t = TomlTable(data.get("camera", {}), f"{where} [camera]")
     dist = t.data.get("distortion", [0.0, 0.0, 0.0, 0.0, 0.0])
     if not isinstance(dist, list) or not all(
         isinstance(v, int | float) and not isinstance(v, bool) for v in dist
     ) or len(dist) not in (4, 5, 8, 12, 14):
         raise InputError(
-            f"{p} [camera]: 'distortion' must be a list of 4, 5, 8, 12 or 14 numbers "
+            f"{where} [camera]: 'distortion' must be a list of 4, 5, 8, 12 or 14 numbers "
             "(k1, k2, p1, p2[, k3, ...], OpenCV order)"
         )
-    prof = CameraProfile(
+    return CameraProfile(
         width_px=t.get("width_px", int),
         height_px=t.get("height_px", int),
         fx_px=t.positive("fx_px"),
@@ -720,11 +737,6 @@ def load_camera(path) -> CameraProfile:
         readout_s=t.get("readout_s", float, 0.0),
         path=p,
     )
-    reject_unknown_keys(data, str(p))
-    from .plausible import check_camera
-
-    check_camera(prof)
-    return prof
 
 
 # ------------------------------------------------------------------------- writing

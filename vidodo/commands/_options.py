@@ -11,6 +11,18 @@ def add_out(parser, help_text, **kwargs):
     parser.add_argument("-o", "--out", type=kwargs.pop("type", Path), help=help_text, **kwargs)
 
 
+_PROFILE_HELP = {"robot": "robot profile (TOML)", "field": "field profile (TOML)",
+                 "camera": "camera profile (TOML)"}
+
+
+def add_profile(parser, kind, help_text=None, *, required=None):
+    """``--robot``, ``--field`` or ``--camera``: the path of a profile (TOML); robot and
+    field are required unless ``required=False``, the camera is optional."""
+    parser.add_argument(f"--{kind}", type=Path,
+                        required=kind != "camera" if required is None else required,
+                        help=help_text or _PROFILE_HELP[kind])
+
+
 def add_units(parser, what="printed figures and plots"):
     """``--units``: display length unit, choices from :data:`vidodo.units.LENGTH_UNITS`."""
     from ..units import LENGTH_UNITS

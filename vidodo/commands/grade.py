@@ -9,7 +9,15 @@ from pathlib import Path
 from ..errors import EXIT_OK, EXIT_TOLERANCE, InputError, RegistrationRefused, VidodoError
 from ..units import length_factor
 from . import registration_options
-from ._options import add_force, add_old_spelling, add_out, add_replay_scale, add_switch, add_units
+from ._options import (
+    add_force,
+    add_old_spelling,
+    add_out,
+    add_profile,
+    add_replay_scale,
+    add_switch,
+    add_units,
+)
 
 NAME = "grade"
 HELP = "measure the run from the video, line up the log, report drift and events"
@@ -27,9 +35,9 @@ def add_arguments(parser):
     """Options of the verb."""
     parser.add_argument("video", type=Path, help="the footage of the run")
     parser.add_argument("log", type=Path, help="the robot's log CSV")
-    parser.add_argument("--robot", type=Path, required=True, help="robot profile (TOML)")
-    parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
-    parser.add_argument("--camera", type=Path, help="camera profile (TOML), if calibrated")
+    add_profile(parser, "robot")
+    add_profile(parser, "field")
+    add_profile(parser, "camera", "camera profile (TOML), if calibrated")
     parser.add_argument("--track", type=Path,
                         help="reuse this truth track (track.csv) instead of tracking the video")
     registration_options.add_arguments(parser)

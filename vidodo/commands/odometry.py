@@ -12,7 +12,7 @@ from ..logs import read_log
 from ..odometry import TRACK_COLUMNS, odometry_result
 from ..outputs import atomic_file, column_prefix
 from ..profiles import load_robot
-from ._options import add_force, add_out
+from ._options import add_force, add_out, add_profile
 
 NAME = "odometry"
 HELP = "read a robot log and write the pose track of every odometry source"
@@ -27,7 +27,7 @@ DESCRIPTION = (
 def add_arguments(parser):
     """Options of the verb."""
     parser.add_argument("log", type=Path, help="robot log CSV")
-    parser.add_argument("--robot", type=Path, required=True, help="robot profile (TOML)")
+    add_profile(parser, "robot")
     add_out(parser, "pose tracks CSV to write", required=True)
     add_force(parser, "file")
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from ..profiles import load_field
-from ._options import add_force, add_out
+from ._options import add_force, add_out, add_profile
 
 NAME = "pick"
 HELP = "write a page for clicking tile corners; it saves the points CSV that --points reads"
@@ -23,7 +23,7 @@ DESCRIPTION = (
 def add_arguments(parser):
     """Options of the verb."""
     parser.add_argument("video", type=Path, help="the footage")
-    parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
+    add_profile(parser, "field")
     parser.add_argument("--at", type=float, metavar="SECONDS", default=None,
                         help="show the frame at this time (default: the first frame, the "
                         "one --points registers)")

@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-from ._options import add_force
+from ._options import add_force, add_profile
 
 NAME = "plan"
 HELP = "plan the camera: expected error and marker size over the field for a placement"
@@ -34,7 +34,7 @@ def _numbers(text, n, name):
 
 def add_arguments(parser):
     """Options of the verb."""
-    parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
+    add_profile(parser, "field")
     parser.add_argument("--robot", type=Path, default=None,
                         help="robot profile: its first marker's size, height and family")
     parser.add_argument("--marker-mm", type=float, default=None,

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from ._options import add_profile
+
 NAME = "preflight"
 HELP = "quick checklist before grading: profiles, log, encoder signs, marker, floor"
 DESCRIPTION = (
@@ -19,10 +21,10 @@ DESCRIPTION = (
 def add_arguments(parser):
     """Options of the verb."""
     parser.add_argument("log", type=Path, help="robot log CSV")
-    parser.add_argument("--robot", type=Path, required=True, help="robot profile (TOML)")
-    parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
+    add_profile(parser, "robot")
+    add_profile(parser, "field")
     parser.add_argument("--video", type=Path, default=None, help="the run's video")
-    parser.add_argument("--camera", type=Path, default=None, help="camera profile (TOML)")
+    add_profile(parser, "camera")
     parser.add_argument("--first-s", type=float, default=3.0,
                         help="seconds of video to look at (default 3)")
 

@@ -18,6 +18,7 @@ from ..registration import grid
 from ..registration.registrar import METHODS, FloorRegistrar, RegistrarSettings, summarise
 from ..registration.selfcheck import CheckLimits
 from . import registration_options
+from ._options import add_profile
 
 NAME = "register"
 HELP = "check the floor registration of a video; write a grid preview and per-frame errors"
@@ -36,9 +37,8 @@ CSV_COLUMNS = ("t_s", "ok", "method", "rms_px", "rms_floor_mm", "n_points", "foc
 
 def add_arguments(parser):
     parser.add_argument("video", type=Path, help="the video (or one still image) to check")
-    parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
-    parser.add_argument("--camera", type=Path, default=None,
-                        help="camera profile from 'vidodo lens' (default: estimate)")
+    add_profile(parser, "field")
+    add_profile(parser, "camera", "camera profile from 'vidodo lens' (default: estimate)")
     parser.add_argument("--method", choices=METHODS, default="auto",
                         help="reference registration: floor markers, points CSV or the "
                              "automatic tile grid (auto: markers if seen, else grid)")

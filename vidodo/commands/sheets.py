@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ._options import add_force
+from ._options import add_force, add_profile
 
 NAME = "sheets"
 HELP = "write printable sheets at true scale (PDF + PNG, A4 and US Letter)"
@@ -30,9 +30,9 @@ def _ids(text):
 
 def add_arguments(parser):
     """Options of the verb."""
-    parser.add_argument("--robot", type=Path, default=None, help="robot profile (TOML)")
-    parser.add_argument("--field", type=Path, default=None,
-                        help="field profile: its [[floor_marker]] tables are printed")
+    add_profile(parser, "robot", required=False)
+    add_profile(parser, "field", "field profile: its [[floor_marker]] tables are printed",
+                required=False)
     parser.add_argument("--floor-ids", default="",
                         help="also print these floor marker ids, e.g. 0,1,2,3")
     parser.add_argument("--floor-family", default="DICT_4X4_50",

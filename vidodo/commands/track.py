@@ -9,11 +9,11 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import RegistrationRefused
-from ..outputs import atomic_file
+from ..outputs import atomic_file, jsonable
 from ..profiles import load_camera, load_field, load_robot
 from ..progress import Progress
 from . import registration_options
-from ._options import add_force, add_out
+from ._options import add_force, add_out, add_profile
 
 NAME = "track"
 HELP = "measure the robot's floor pose in every frame of a video (the truth track)"
@@ -30,9 +30,9 @@ DESCRIPTION = (
 def add_arguments(parser):
     """Options of the verb."""
     parser.add_argument("video", type=Path, help="the footage (MP4, MOV, ...)")
-    parser.add_argument("--robot", type=Path, required=True, help="robot profile (TOML)")
-    parser.add_argument("--field", type=Path, required=True, help="field profile (TOML)")
-    parser.add_argument("--camera", type=Path, help="camera profile (TOML): lens, readout")
+    add_profile(parser, "robot")
+    add_profile(parser, "field")
+    add_profile(parser, "camera", "camera profile (TOML): lens, readout")
     from ..tracking.detector import REFINE_METHODS
 
     add_out(parser, "track CSV to write", required=True)
@@ -52,18 +52,7 @@ def add_arguments(parser):
 
 
 def _quality_json(result) -> str:
-    def plain(v):
-        if isinstance(v, dict):
-            return {str(k): plain(x) for k, x in v.items()}
-        if isinstance(v, list | tuple):
-            return [plain(x) for x in v]
-        if isinstance(v, np.generic):
-            return v.item()
-        if isinstance(v, float) and not np.isfinite(v):
-            return None
-        return v
-
-    return json.dumps({"quality": plain(result.quality), "warnings": result.warnings},
+    return json.dumps({"quality": jsonable(result.quality), "warnings": result.warnings},
                       indent=2)
 
 

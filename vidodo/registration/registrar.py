@@ -595,8 +595,9 @@ class FloorRegistrar:
                 except CalibrationError:
                     pass
         usable_ref = floor_usable(ref, self.field, grey.shape)
-        m = floor_features.match_homography(self.reference_grey, grey, ignore_a=~usable_ref,
-                                            ignore_b=ignore, detector="orb")
+        m = floor_features.match_homography(self.reference_grey, grey,
+                                            floor_features.MatchSettings(detector="orb"),
+                                            ignore_a=~usable_ref, ignore_b=ignore)
         if m.H is None:
             return None
         m = floor_features.refine_homography(self.reference_grey, grey, m.H,

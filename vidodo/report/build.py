@@ -13,6 +13,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from ..csvsafe import read_csv_checked
 from ..errors import InputError, VidodoError
 from ..outputs import atomic_file
 from ..timings import StageTimes, merged
@@ -57,13 +58,8 @@ class GradeData:
 
 
 def _read_csv(path: Path) -> pd.DataFrame:
-    try:
-        return pd.read_csv(path, keep_default_na=True)
-    except FileNotFoundError:
-        raise InputError(f"{path}: file not found; run `vidodo grade --out "
-                         f"{path.parent}` first") from None
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
-        raise InputError(f"{path}: not a readable CSV ({exc}); grade the run again") from None
+    return read_csv_checked(path, f"run `vidodo grade --out {path.parent}` first",
+                            "grade the run again", keep_default_na=True)
 
 
 def field_from_summary(summary: dict, folder: Path | None = None):

@@ -27,6 +27,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..csvsafe import read_csv_checked
 from ..errors import InputError
 
 __all__ = ["RecordingRegistrar", "FloorPoses", "write_floor_poses", "read_floor_poses",
@@ -154,12 +155,7 @@ def read_floor_poses(path) -> FloorPoses:
         Unreadable file or a missing column (naming it).
     """
     p = Path(path)
-    try:
-        df = pd.read_csv(p)
-    except FileNotFoundError:
-        raise InputError(f"{p}: file not found; track the video again") from None
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
-        raise InputError(f"{p}: not a readable CSV ({exc}); track the video again") from None
+    df = read_csv_checked(p, "track the video again", "track the video again")
     need = ["t_s", "ok", "method", "rms_px", "rms_floor_m", "n_points", "fx_px", "fy_px",
             "cx_px", "cy_px", "readout_s", "detection_readout_s"] + \
         [f"rvec_{i}" for i in range(3)] + [f"tvec_{i}_m" for i in range(3)] + \
