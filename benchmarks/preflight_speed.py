@@ -12,6 +12,7 @@ Usage: ``.venv/bin/python benchmarks/preflight_speed.py [--repeat 2]``
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import time
 from pathlib import Path
@@ -52,7 +53,8 @@ def main(argv=None):
         t0 = time.perf_counter()
         n = decode_all(run / "video.mp4")
         best_dec = min(best_dec, time.perf_counter() - t0)
-    print(f"1920x1080 clip, {n} frames")
+    print(f"1920x1080 clip, {n} frames; load average {os.getloadavg()[0]:.1f} on "
+          f"{os.cpu_count()} cores")
     for label, t, r in (("preflight without a lens profile", best_pf, res),
                         ("preflight with the lens profile", best_lens, res_lens)):
         print(f"{label}: {t:.2f} s, ratio to plain decoding {t / best_dec:.2f} (status "

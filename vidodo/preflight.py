@@ -19,6 +19,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from threadpoolctl import threadpool_limits
 
 from .checklist import STATUSES, Check
 from .csvsafe import read_csv_checked
@@ -269,7 +270,22 @@ def preflight(robot_path, field_path, log_path, video_path=None, camera_path=Non
     Returns
     -------
     PreflightResult
+
+    Notes
+    -----
+    Runs with one BLAS thread: the small least-squares fits of the floor registration
+    gain nothing from more, and on a loaded machine OpenBLAS's waiting threads made each
+    of their SVDs a hundred times slower (measured: 0.3 ms alone, 30-130 ms under load,
+    ``benchmarks/preflight_speed.py``).
     """
+    import scipy.linalg  # noqa: F401  (loads SciPy's own BLAS, so that the limit reaches it)
+
+    with threadpool_limits(limits=1, user_api="blas"):
+        return _preflight(robot_path, field_path, log_path, video_path, camera_path,
+                          settings)
+
+
+def _preflight(robot_path, field_path, log_path, video_path, camera_path, settings):
     robot, c_robot = _load("robot", load_robot, robot_path)
     fld, c_field = _load("field", load_field, field_path)
     checks = [c_robot, c_field]
