@@ -143,6 +143,25 @@ def stream_start_s(path):
     exe = shutil.which("ffprobe")
     if exe is None:
         return None
+    p = Path(path)
+    try:
+        st = p.stat()
+        key = (str(p.resolve()), st.st_size, st.st_mtime_ns)
+    except OSError:
+        key = None
+    if key is not None and key in _START_S:  # each file is probed once per process
+        return _START_S[key]
+    start = _ffprobe_start_s(exe, p)
+    if key is not None and start is not None:
+        _START_S.clear()  # one entry is enough: a run reads one video
+        _START_S[key] = start
+    return start
+
+
+_START_S: dict = {}  # (resolved path, size, mtime) -> start time [s]
+
+
+def _ffprobe_start_s(exe, path):
     try:
         out = subprocess.run(
             [exe, "-v", "error", "-select_streams", "v:0", "-show_entries",
@@ -422,6 +441,10 @@ class VideoReader:
     decoder_threads : int, optional
         Threads of the decoder itself (OpenCV's default: one per core). A caller that
         keeps the other cores busy gains by 1: the same frames at less total work.
+    ahead_mb : float, optional
+        When threaded, let the decoder run up to this many megabytes of frames ahead of
+        the caller (at least ``queue_frames``): a caller whose work comes in bursts (a
+        costly first frame) then finds the frames decoded meanwhile waiting for it.
 
     Notes
     -----
@@ -437,7 +460,7 @@ class VideoReader:
     """
 
     def __init__(self, path, *, threaded=True, queue_frames=4, check_identical=True,
-                 grey=False, decoder_threads=None):
+                 grey=False, decoder_threads=None, ahead_mb=None):
         self.path = Path(path)
         self._cap = _open(self.path, threads=decoder_threads)
         self.info = _info(self._cap, self.path)
@@ -457,6 +480,10 @@ class VideoReader:
         (see :func:`luma_lut`); otherwise they are BGR."""
         self.threaded = bool(threaded)
         self.queue_frames = max(1, int(queue_frames))
+        if ahead_mb is not None:
+            frame_bytes = self.info.width_px * self.info.height_px * (1 if self.grey else 3)
+            self.queue_frames = max(self.queue_frames,
+                                    int(ahead_mb * 1e6 // max(frame_bytes, 1)))
         self.check_identical = check_identical
         self._t: list[float] = []
         self._identical: list[bool] = []
