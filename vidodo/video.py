@@ -608,6 +608,52 @@ class VideoReader:
                 t_last_s=t_last,
             )
 
+    def frames_at(self, times_s, *, tol_s=1e-4) -> dict:
+        """The first frame at or after each of ``times_s``, reading forward from here.
+
+        Frames in between are decoded but not converted or copied out (OpenCV's
+        ``grab``), a fraction of the work of reading them; frame times are those the
+        iterator gives. Stops at the last wanted frame or the end of the stream
+        (without the truncation check).
+
+        Parameters
+        ----------
+        times_s : iterable of float
+            Wanted times [s].
+        tol_s : float
+            A frame this much before a wanted time counts as at it [s].
+
+        Returns
+        -------
+        dict
+            ``{wanted_t_s: (t_s, frame)}`` for every wanted time a frame was found for.
+        """
+        if self._cap is None:
+            raise InputError(f"{self.path}: reader already closed; open the video again")
+        want = sorted(set(float(t) for t in times_s))
+        got = {}
+        start_ms = 1000.0 * self.info.start_s
+        while want:
+            if self._held is not None:
+                (t_ms, frame), self._held = self._held, None
+                t_s, wanted = (t_ms + start_ms) / 1000.0, True
+            else:
+                if not self._cap.grab():
+                    break
+                t_s = (self._cap.get(cv2.CAP_PROP_POS_MSEC) + start_ms) / 1000.0
+                wanted = t_s >= want[0] - tol_s
+                frame = self._cap.retrieve()[1] if wanted else None
+                if wanted and frame is None:
+                    break
+            self._t.append(t_s)
+            if not wanted or t_s < want[0] - tol_s:
+                continue
+            if self._lut is not None:
+                frame = cv2.LUT(frame, self._lut)
+            while want and t_s >= want[0] - tol_s:
+                got[want.pop(0)] = (t_s, frame)
+        return got
+
     @property
     def last_frame_repeated(self) -> bool:
         """True if the frame just handed out repeats the one before it: the same image
