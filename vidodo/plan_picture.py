@@ -82,7 +82,7 @@ def write_plan_png(plan: PlanMap, fld, marker, path, *, title: str = "") -> Path
 def _tracked_registration(folder, video):
     """The track's first good registration (``track.floor.csv`` in ``folder``) and the
     footage's frame size ``(w, h)`` [px]; ``(None, (0, 0))`` without one."""
-    from .floor_poses import read_floor_poses
+    from .tracking.floor_poses import read_floor_poses
     from .video import probe_video
 
     path = None if folder is None else Path(folder) / "track.floor.csv"
