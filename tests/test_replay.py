@@ -266,3 +266,36 @@ def test_missing_footage_still_writes_the_report(tmp_path):
     page = (folder / "report.html").read_text()
     assert "replay.mp4 not written" in page
     assert (folder / "field_map.png").is_file()
+
+
+def test_interrupt_while_plotting_stops_the_replay(tmp_path, monkeypatch):
+    """The replay runs on its own thread beside the plots; an interrupt in the plots stops
+    it at its next frame and write_report re-raises the interrupt with no thread left."""
+    import threading
+    import time
+
+    from test_plots import make_grade_dir  # sibling test module
+
+    from vidodo.report import build, replay
+
+    frames_done = []
+
+    def endless_replay(data, path, *, progress=None, **_options):
+        for i in range(100000):  # frames until stopped
+            time.sleep(0.001)
+            progress(i + 1, None)
+            frames_done.append(i)
+        return path
+
+    def plots_interrupted(*_a, **_k):
+        while not frames_done:  # the replay is under way
+            time.sleep(0.001)
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(replay, "replay_from_grade", endless_replay)
+    monkeypatch.setattr(build, "write_plots", plots_interrupted)
+    folder = make_grade_dir(tmp_path / "grade")
+    with pytest.raises(KeyboardInterrupt):
+        build.write_report(folder, folder, replay=True)
+    assert 0 < len(frames_done) < 100000
+    assert not any(t.name == "vidodo-replay" for t in threading.enumerate())

@@ -223,3 +223,23 @@ def test_luma_used_only_where_the_stream_allows(tmp_path, codec, pix_fmt, ext, u
         frames = [f for _i, _t, f in reader]
         assert reader.grey == usable
     assert len(frames) == 5 and all(f.ndim == (2 if usable else 3) for f in frames)
+
+
+@pytest.mark.parametrize("grey", [False, True])
+def test_frames_at_equals_reading_every_frame(vfr_clip, tmp_path, grey):
+    """frames_at (frames in between only grabbed) gives the same frames and the same
+    container times (ffprobe's pts_time, 1.5 s on here) as reading every frame."""
+    path = tmp_path / "late.mp4"
+    _ffmpeg("-itsoffset", "1.5", "-i", str(vfr_clip), "-c", "copy", str(path))
+    with VideoReader(path, threaded=False, grey=grey) as reader:
+        every = [(t, f) for _i, t, f in reader]
+    times = [t for t, _f in every]
+    truth = _ffprobe_pts(path)
+    wanted = [times[0], times[21] - 0.004, times[45], times[-1], times[-1] + 1.0]
+    with VideoReader(path, threaded=False, grey=grey) as reader:
+        got = reader.frames_at(wanted)
+    assert sorted(got) == sorted(wanted[:4])  # nothing after the last frame
+    for want, k in zip(wanted[:4], [0, 21, 45, len(every) - 1], strict=True):
+        t, frame = got[want]
+        assert t == times[k] and abs(t - truth[k]) < 1e-3
+        assert np.array_equal(frame, every[k][1])

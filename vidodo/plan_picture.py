@@ -79,12 +79,29 @@ def write_plan_png(plan: PlanMap, fld, marker, path, *, title: str = "") -> Path
     return save_figure(plan_figure(plan, fld, marker, title=title), path)
 
 
+def _tracked_registration(folder, video):
+    """The track's first good registration (``track.floor.csv`` in ``folder``) and the
+    footage's frame size ``(w, h)`` [px]; ``(None, (0, 0))`` without one."""
+    from .tracking.floor_poses import read_floor_poses
+    from .video import probe_video
+
+    path = None if folder is None else Path(folder) / "track.floor.csv"
+    if path is None or not path.is_file():
+        return None, (0, 0)
+    reg = next((r for r in read_floor_poses(path).registrations if r.ok), None)
+    if reg is None:
+        return None, (0, 0)
+    info = probe_video(video)
+    return reg, (info.width_px, info.height_px)
+
+
 def plan_of_grade(summary: dict, folder, out_dir) -> dict[str, Path]:
     """``{'plan': plan.png}``: the planner's map for the camera of a graded run.
 
-    The camera's pose and lens come from registering the footage's first frame
-    (``summary.inputs.video``, ``field``, ``camera``), the corner noise and the
-    registration's size from the track's quality in the summary. Empty when any of
+    The camera's pose and lens come from the first registration the track was measured
+    with (``track.floor.csv`` in ``folder``), or else from registering the footage's
+    first frame (``summary.inputs.video``, ``field``, ``camera``); the corner noise and
+    the registration's size from the track's quality in the summary. Empty when any of
     these cannot be had (the report is written without the map).
     """
     import math
@@ -115,18 +132,22 @@ def plan_of_grade(summary: dict, folder, out_dir) -> dict[str, Path]:
         return {}
     try:
         robot, fld = load_robot(robot_p), load_field(field_p)
-        camera = load_camera(path("camera")) if path("camera") else None
-        cap = cv2.VideoCapture(str(video))
-        ok, frame = cap.read()
-        cap.release()
-        if not ok or not robot.markers:
+        if not robot.markers:
             return {}
-        reg = FloorRegistrar(fld, camera).register(frame, 0.0)
+        reg, (w, h) = _tracked_registration(folder, video)
+        if reg is None:
+            camera = load_camera(path("camera")) if path("camera") else None
+            cap = cv2.VideoCapture(str(video))
+            ok, frame = cap.read()
+            cap.release()
+            if not ok:
+                return {}
+            reg = FloorRegistrar(fld, camera).register(frame, 0.0)
+            h, w = frame.shape[:2]
     except (VidodoError, cv2.error, OSError):
         return {}
     if not reg.ok:
         return {}
-    h, w = frame.shape[:2]
     view = CameraView(np.asarray(reg.camera_matrix, float), np.asarray(reg.dist_coeffs, float),
                       np.asarray(reg.rvec, float).ravel(), np.asarray(reg.tvec, float).ravel(),
                       w, h)

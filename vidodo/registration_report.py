@@ -99,20 +99,10 @@ def _pick_times(regs):
 
 def _frames_at(video, times):
     """Frames at (or just after) each wanted time: {wanted_t: (t_s, frame)}."""
-    from .video import VideoReader, VideoTruncatedError
+    from .video import VideoReader
 
-    want = sorted(set(times))
-    got = {}
     with VideoReader(video, threaded=False, check_identical=False) as reader:
-        try:
-            for _, t_s, frame in reader:
-                while want and t_s >= want[0] - 1e-4:
-                    got[want.pop(0)] = (t_s, frame)
-                if not want:
-                    break
-        except VideoTruncatedError:
-            pass
-    return got
+        return reader.frames_at(times)  # frames in between only decoded, not converted
 
 
 def _picture(frame, reg, field, max_width_px):

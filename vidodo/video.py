@@ -143,6 +143,25 @@ def stream_start_s(path):
     exe = shutil.which("ffprobe")
     if exe is None:
         return None
+    p = Path(path)
+    try:
+        st = p.stat()
+        key = (str(p.resolve()), st.st_size, st.st_mtime_ns)
+    except OSError:
+        key = None
+    if key is not None and key in _START_S:  # each file is probed once per process
+        return _START_S[key]
+    start = _ffprobe_start_s(exe, p)
+    if key is not None and start is not None:
+        _START_S.clear()  # one entry is enough: a run reads one video
+        _START_S[key] = start
+    return start
+
+
+_START_S: dict = {}  # (resolved path, size, mtime) -> start time [s]
+
+
+def _ffprobe_start_s(exe, path):
     try:
         out = subprocess.run(
             [exe, "-v", "error", "-select_streams", "v:0", "-show_entries",
@@ -422,6 +441,10 @@ class VideoReader:
     decoder_threads : int, optional
         Threads of the decoder itself (OpenCV's default: one per core). A caller that
         keeps the other cores busy gains by 1: the same frames at less total work.
+    ahead_mb : float, optional
+        When threaded, let the decoder run up to this many megabytes of frames ahead of
+        the caller (at least ``queue_frames``): a caller whose work comes in bursts (a
+        costly first frame) then finds the frames decoded meanwhile waiting for it.
 
     Notes
     -----
@@ -437,7 +460,7 @@ class VideoReader:
     """
 
     def __init__(self, path, *, threaded=True, queue_frames=4, check_identical=True,
-                 grey=False, decoder_threads=None):
+                 grey=False, decoder_threads=None, ahead_mb=None):
         self.path = Path(path)
         self._cap = _open(self.path, threads=decoder_threads)
         self.info = _info(self._cap, self.path)
@@ -457,6 +480,10 @@ class VideoReader:
         (see :func:`luma_lut`); otherwise they are BGR."""
         self.threaded = bool(threaded)
         self.queue_frames = max(1, int(queue_frames))
+        if ahead_mb is not None:
+            frame_bytes = self.info.width_px * self.info.height_px * (1 if self.grey else 3)
+            self.queue_frames = max(self.queue_frames,
+                                    int(ahead_mb * 1e6 // max(frame_bytes, 1)))
         self.check_identical = check_identical
         self._t: list[float] = []
         self._identical: list[bool] = []
@@ -580,6 +607,52 @@ class VideoReader:
                 frames_read=n,
                 t_last_s=t_last,
             )
+
+    def frames_at(self, times_s, *, tol_s=1e-4) -> dict:
+        """The first frame at or after each of ``times_s``, reading forward from here.
+
+        Frames in between are decoded but not converted or copied out (OpenCV's
+        ``grab``), a fraction of the work of reading them; frame times are those the
+        iterator gives. Stops at the last wanted frame or the end of the stream
+        (without the truncation check).
+
+        Parameters
+        ----------
+        times_s : iterable of float
+            Wanted times [s].
+        tol_s : float
+            A frame this much before a wanted time counts as at it [s].
+
+        Returns
+        -------
+        dict
+            ``{wanted_t_s: (t_s, frame)}`` for every wanted time a frame was found for.
+        """
+        if self._cap is None:
+            raise InputError(f"{self.path}: reader already closed; open the video again")
+        want = sorted(set(float(t) for t in times_s))
+        got = {}
+        start_ms = 1000.0 * self.info.start_s
+        while want:
+            if self._held is not None:
+                (t_ms, frame), self._held = self._held, None
+                t_s, wanted = (t_ms + start_ms) / 1000.0, True
+            else:
+                if not self._cap.grab():
+                    break
+                t_s = (self._cap.get(cv2.CAP_PROP_POS_MSEC) + start_ms) / 1000.0
+                wanted = t_s >= want[0] - tol_s
+                frame = self._cap.retrieve()[1] if wanted else None
+                if wanted and frame is None:
+                    break
+            self._t.append(t_s)
+            if not wanted or t_s < want[0] - tol_s:
+                continue
+            if self._lut is not None:
+                frame = cv2.LUT(frame, self._lut)
+            while want and t_s >= want[0] - tol_s:
+                got[want.pop(0)] = (t_s, frame)
+        return got
 
     @property
     def last_frame_repeated(self) -> bool:

@@ -16,6 +16,7 @@ import cv2
 import numpy as np
 
 from ..profiles import FieldProfile
+from . import projection
 
 __all__ = ["FrameRegistration", "failed", "project_rows", "field_polygon_px",
            "floor_usable", "NAN3"]
@@ -29,8 +30,10 @@ def project_rows(obj, pose, rates, dt, camera_matrix, dist_coeffs, bands=32):
     ``pose`` is ``(rvec, tvec)`` [rad, m] and ``rates`` is ``(rvec_rate, tvec_rate)``
     [rad/s, m/s].
 
-    Points are grouped into ``bands`` equal slices of ``dt`` (one ``cv2.projectPoints``
-    call each); the pose inside a slice is that of its mean ``dt``.
+    Points are grouped into ``bands`` equal slices of ``dt``; the pose inside a slice is
+    that of its mean ``dt``. The bands are projected together in numpy
+    (:func:`.projection.project_many`, OpenCV's arithmetic); a tilted-sensor lens model
+    takes one ``cv2.projectPoints`` call per band.
 
     Returns
     -------
@@ -46,18 +49,23 @@ def project_rows(obj, pose, rates, dt, camera_matrix, dist_coeffs, bands=32):
     lo, hi = float(dt.min()), float(dt.max())
     edges = np.linspace(lo, hi + 1e-12, bands + 1)
     idx = np.clip(np.searchsorted(edges, dt, side="right") - 1, 0, bands - 1)
-    # the points of each band as one slice of a stable sort (in their own order, so the
-    # band means are the same sums as with a mask per band, at a fraction of the cost)
-    order = np.argsort(idx, kind="stable")
-    bounds = np.searchsorted(idx[order], np.arange(bands + 1))
-    rvec, tvec = np.asarray(rvec, float), np.asarray(tvec, float)
-    for b in range(bands):
-        sel = order[bounds[b]:bounds[b + 1]]
-        if not sel.size:
-            continue
-        d_b = float(dt[sel].mean())
-        out[sel] = cv2.projectPoints(obj[sel], rvec + d_b * rvec_rate, tvec + d_b * tvec_rate,
-                                     camera_matrix, dist_coeffs)[0].reshape(-1, 2)
+    count = np.bincount(idx, minlength=bands)
+    # each band's mean as numpy sums a slice (pairwise), over the band's points in their
+    # own order: the same poses to the last bit as one projectPoints call per band
+    in_order = dt[np.argsort(idx, kind="stable")]
+    bounds = np.concatenate([[0], np.cumsum(count)])
+    d_b = np.array([in_order[a:b].mean() if b > a else 0.0
+                    for a, b in zip(bounds[:-1], bounds[1:], strict=True)])
+    rvec, tvec = np.asarray(rvec, float).ravel(), np.asarray(tvec, float).ravel()
+    rv_b = rvec + d_b[:, None] * np.asarray(rvec_rate, float).ravel()
+    tv_b = tvec + d_b[:, None] * np.asarray(tvec_rate, float).ravel()
+    if projection.supported(dist_coeffs):
+        return projection.project_many(obj, projection.rodrigues_many(rv_b)[idx], tv_b[idx],
+                                       camera_matrix, dist_coeffs)
+    for b in np.flatnonzero(count):
+        sel = idx == b
+        out[sel] = cv2.projectPoints(obj[sel], rv_b[b], tv_b[b], camera_matrix,
+                                     dist_coeffs)[0].reshape(-1, 2)
     return out
 
 
@@ -161,13 +169,10 @@ class FrameRegistration:
         rays_cam = np.column_stack([norm, np.ones(len(norm))])
         h = np.broadcast_to(np.asarray(height_m, float), (len(pts),))[good]
         if self.rolling:
-            dt = self._row_dt(pts[good, 1])
-            rays = np.empty_like(rays_cam)
-            c = np.empty((len(dt), 3))
-            for i, d in enumerate(dt):  # each row its own pose
-                r = cv2.Rodrigues(np.asarray(self.rvec, float) + d * self.rvec_rate)[0]
-                rays[i] = rays_cam[i] @ r
-                c[i] = -r.T @ (np.asarray(self.tvec, float) + d * self.tvec_rate)
+            dt = self._row_dt(pts[good, 1])[:, None]  # each row its own pose
+            r = projection.rodrigues_many(np.asarray(self.rvec, float) + dt * self.rvec_rate)
+            rays = np.einsum("ni,nij->nj", rays_cam, r)
+            c = -np.einsum("nji,nj->ni", r, np.asarray(self.tvec, float) + dt * self.tvec_rate)
         else:
             rays = rays_cam @ self.rotation  # R.T @ ray
             c = np.broadcast_to(self.camera_centre_m, (len(rays), 3))

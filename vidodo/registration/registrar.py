@@ -38,6 +38,7 @@ frame's own error does not stay in every later frame.
 from __future__ import annotations
 
 import math
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field, replace
 
 import cv2
@@ -355,10 +356,18 @@ class FloorRegistrar:
                           ref.dist_coeffs)
         last = self._last if self._last is not None and self._last.ok else ref
         tr = self._tracker
-        # Cheap check first: the view has not moved since the last registered frame.
+        # Cheap check first: the view has not moved since the last registered frame. It
+        # runs on a second thread while the corners are tracked (OpenCV releases the GIL
+        # in both), whose result is dropped when the view has not moved.
         prev_px = tr.ref_px if last is ref else self._last_found
-        if prev_px is not None and tr.is_unmoved(grey, prev_px,
-                                                 tolerance_px=self.static_tolerance_px):
+        still = None if prev_px is None else _still_pool().submit(
+            tr.is_unmoved, grey, prev_px, tolerance_px=self.static_tolerance_px)
+        try:
+            found, ok = self._track_corners(grey, last, ignore)
+            failure = None
+        except Exception as exc:  # noqa: BLE001 - raised below unless the view is still
+            failure = exc
+        if still is not None and still.result():
             reg = replace(last, t_s=float(t_s), method="static", rvec_rate=None,
                           tvec_rate=None)
             self._last = reg
@@ -367,13 +376,8 @@ class FloorRegistrar:
                                  np.asarray(last.tvec, float))
             self._global_hist = [self._global_prev]
             return reg
-        # Predicted map reference pixels -> this frame, from the last registration.
-        pred = last.floor_to_image(self._floor_ref)
-        ok_pred = np.all(np.isfinite(pred), axis=1)
-        h_guess = None
-        if last is not ref and ok_pred.sum() >= 8:
-            h_guess, _ = cv2.findHomography(tr.ref_px[ok_pred], pred[ok_pred], 0)
-        found, ok = tr.locate(grey, h_guess, ignore=ignore)
+        if failure is not None:
+            raise failure
         ok &= np.all(np.isfinite(self._floor_ref), axis=1)
         source = "tracked"
         if ok.sum() < self.min_tracked:
@@ -415,6 +419,17 @@ class FloorRegistrar:
             self._anchor_t = float(t_s)
             self._anchor_on_seams(grey, reg, ignore)
         return reg
+
+    def _track_corners(self, grey, last, ignore):
+        """The reference corners found in ``grey`` (see ``FloorPatchTracker.locate``),
+        starting from where the last registration predicts them."""
+        tr = self._tracker
+        pred = last.floor_to_image(self._floor_ref)
+        ok_pred = np.all(np.isfinite(pred), axis=1)
+        h_guess = None
+        if last is not self.reference and ok_pred.sum() >= 8:
+            h_guess, _ = cv2.findHomography(tr.ref_px[ok_pred], pred[ok_pred], 0)
+        return tr.locate(grey, h_guess, ignore=ignore)
 
     def _anchor_start(self, t_s):
         """Start the running mean of the tracked corners' floor positions."""
@@ -612,6 +627,16 @@ class FloorRegistrar:
         except CalibrationError:
             return None
         return fit_to_registration(t_s, fit, "features")
+
+
+_POOL: list = []
+
+
+def _still_pool() -> ThreadPoolExecutor:
+    """One worker thread for the still-view checks of every registrar (made on first use)."""
+    if not _POOL:
+        _POOL.append(ThreadPoolExecutor(max_workers=1, thread_name_prefix="vidodo-still"))
+    return _POOL[0]
 
 
 @dataclass(frozen=True)

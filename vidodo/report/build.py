@@ -8,6 +8,8 @@ files back, so the pictures show exactly the figures the files hold.
 from __future__ import annotations
 
 import json
+import threading
+import time
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -233,24 +235,29 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
     data = load_grade_dir(folder)
     title = _run_title(data.summary)
     times = StageTimes()
-    with times.stage("pictures"):
-        pngs = write_plots(data.drift, data.events, out_dir, field=data.field,
-                           sources=data.sources, unit=units, title=title)
-        pngs.update(robot_picture(data.summary, data.folder, out_dir))
-        from ..plan_picture import plan_of_grade
+    job = None
+    if replay:  # on a second thread while the plots are drawn (see _ReplayJob)
+        job = _ReplayJob(data, out_dir / "replay.mp4", times, progress,
+                         dict(units=units, scale=replay_scale, registration=registrar,
+                              grid=grid))
+    try:
+        with times.stage("pictures"):
+            pngs = write_plots(data.drift, data.events, out_dir, field=data.field,
+                               sources=data.sources, unit=units, title=title)
+            pngs.update(robot_picture(data.summary, data.folder, out_dir))
+            from ..plan_picture import plan_of_grade
 
-        pngs.update(plan_of_grade(data.summary, data.folder, out_dir))
+            pngs.update(plan_of_grade(data.summary, data.folder, out_dir))
+    except BaseException:
+        if job is not None:
+            job.stop()
+        raise
     written = list(pngs.values())
     extra = []
     failure = None
-    if replay:
-        from .replay import replay_from_grade
-
+    if job is not None:
         try:
-            with times.stage("replay"):
-                path = replay_from_grade(data, out_dir / "replay.mp4", units=units,
-                                         progress=progress, scale=replay_scale,
-                                         registration=registrar, grid=grid)
+            path = job.result()
         except VidodoError as exc:  # the report is still written, then the error raised
             failure = exc
             extra.append(f"replay.mp4 not written: {exc}")
@@ -268,6 +275,58 @@ def write_report(grade_result_or_dir, out_dir, *, replay: bool = True, units: st
     if failure is not None:
         raise failure
     return written
+
+
+class _ReplayStopped(Exception):
+    """Raised in the replay's thread to stop it at the next frame."""
+
+
+class _ReplayJob:
+    """The replay written on a thread of its own, beside the plots.
+
+    Decoding, drawing and encoding the replay spend most of their time in OpenCV and
+    FFmpeg, which release the GIL, so the plots (Python and Matplotlib) are drawn on the
+    other core meanwhile. :meth:`stop` ends it at the next frame (an interrupt of the
+    main thread); :meth:`result` waits and returns its path or raises its error.
+    """
+
+    def __init__(self, data, path, times, progress, options):
+        self._stop = threading.Event()
+        self._outcome: list = []
+
+        def step(done, total):
+            if self._stop.is_set():
+                raise _ReplayStopped
+            if progress is not None:
+                progress(done, total)
+
+        def work():
+            from .replay import replay_from_grade
+
+            t0 = time.perf_counter()
+            try:
+                self._outcome.append(replay_from_grade(data, path, progress=step,
+                                                       **options))
+            except BaseException as exc:  # noqa: BLE001 - handed to result()
+                self._outcome.append(exc)
+            finally:
+                times.add("replay", time.perf_counter() - t0)
+
+        self._thread = threading.Thread(target=work, name="vidodo-replay", daemon=True)
+        self._thread.start()
+
+    def stop(self):
+        """Ask the replay to stop and wait until it has."""
+        self._stop.set()
+        self._thread.join()
+
+    def result(self):
+        """The replay's path, once written; its exception if it failed."""
+        self._thread.join()
+        outcome = self._outcome[0]
+        if isinstance(outcome, BaseException):
+            raise outcome
+        return outcome
 
 
 def _record_times(summary_path: Path, table: dict) -> None:

@@ -19,7 +19,12 @@ from .frame_loop import FrameRecords, _track_into
 from .result import TrackResult
 from .settings import TrackSettings
 
-__all__ = ["track_video"]
+__all__ = ["track_video", "AHEAD_MB"]
+
+#: Decoded frames the decoder may hold ahead of the frame loop [MB]: while the first
+#: frame is registered from scratch (a second or more for the automatic grid), about a
+#: second of 1080p60 grey frames is decoded meanwhile instead of waiting.
+AHEAD_MB = 128
 
 
 def track_video(video_path, robot, field, camera=None, settings=None, *, registrar=None,
@@ -118,7 +123,7 @@ def _track_video(video_path, robot, field, camera, registrar, progress, settings
     truncated = None
     threaded = settings.threaded
     with VideoReader(video_path, threaded=threaded, grey=True,
-                     decoder_threads=1 if threaded else None) as reader:
+                     decoder_threads=1 if threaded else None, ahead_mb=AHEAD_MB) as reader:
         info = reader.info
         _video_warnings(info, camera, warnings)
         try:
