@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from dataclasses import replace
 from pathlib import Path
 from unittest import mock
 
@@ -40,9 +41,9 @@ def _track(run, breaks):
     camera = load_camera(run / "camera.toml")
     original = smooth.rts_smooth_signals
 
-    def patched(*a, **k):
-        k["breaks"] = breaks
-        return original(*a, **k)
+    def patched(t_meas_s, z, sigma_z, t_out_s, settings=None):
+        settings = replace(settings or smooth.SmoothSettings(), breaks=breaks)
+        return original(t_meas_s, z, sigma_z, t_out_s, settings)
 
     with mock.patch("vidodo.tracking.finish.rts_smooth_signals", patched):
         res = track_video(run / "video.mp4", robot, field, camera,

@@ -10,6 +10,7 @@ from scipy.linalg import orthogonal_procrustes
 
 from vidodo.errors import MeasurementError
 from vidodo.metrics import (
+    MetricSettings,
     anchor_heading_from_travel,
     anchor_poses,
     ate,
@@ -198,7 +199,7 @@ def test_source_metrics_hand_built():
     h = 0.01 * t
     p = np.column_stack([t * np.cos(h), t * np.sin(h), h])
     s = path_length(q[:, :2])
-    m = source_metrics(t, q, p, s, name="x")
+    m = source_metrics(t, q, p, s, MetricSettings(name="x"))
     final = math.hypot(2 * math.cos(0.02) - 2, 2 * math.sin(0.02))
     assert m.final_err_m == pytest.approx(final, rel=1e-12)
     assert m.drift_pct == pytest.approx(100 * final / 2.0, rel=1e-12)
@@ -264,5 +265,5 @@ def test_similarity_scale_diagnostic():
     q = np.column_stack([np.sin(t), 1 - np.cos(t) + 0.2 * t, t])
     p = q.copy()
     p[:, :2] = (q[:, :2] - q[0, :2]) * 1.02 + q[0, :2]
-    m = source_metrics(t, q, p, path_length(q[:, :2]), name="x")
+    m = source_metrics(t, q, p, path_length(q[:, :2]), MetricSettings(name="x"))
     assert m.best_fit_scale == pytest.approx(1 / 1.02, rel=1e-9)

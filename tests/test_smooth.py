@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from vidodo.tracking.smooth import rts_smooth
+from vidodo.tracking.smooth import SmoothSettings, rts_smooth
 
 
 def test_no_process_noise_equals_quadratic_least_squares():
@@ -20,8 +20,8 @@ def test_no_process_noise_equals_quadratic_least_squares():
     t = np.sort(rng.uniform(0.0, 4.0, 120))
     z = 0.4 * t**2 - 1.1 * t + 0.3 + rng.normal(0.0, 0.01, t.size)
     t_out = np.linspace(0.2, 3.8, 25)
-    s = rts_smooth(t, z, np.full(t.size, 0.01), t_out, q=1e-14, r_scale=1.0,
-                  prior_rate=1e4, prior_accel=1e4)
+    s = rts_smooth(t, z, np.full(t.size, 0.01), t_out,
+                   SmoothSettings(q=1e-14, r_scale=1.0, prior_rate=1e4, prior_accel=1e4))
     c = np.polyfit(t, z, 2)
     np.testing.assert_allclose(s.value, np.polyval(c, t_out), atol=1e-6)
     np.testing.assert_allclose(s.rate, np.polyval(np.polyder(c), t_out), atol=1e-5)
@@ -50,7 +50,8 @@ def test_output_order_and_ties():
     """Outputs come back in the order asked, also when they coincide with measurements."""
     t = np.array([0.0, 0.1, 0.2, 0.3])
     z = np.array([1.0, 1.1, 1.2, 1.3])
-    s = rts_smooth(t, z, np.full(4, 1e-4), np.array([0.3, 0.0, 0.15]), q=1.0, r_scale=1.0)
+    s = rts_smooth(t, z, np.full(4, 1e-4), np.array([0.3, 0.0, 0.15]),
+                   SmoothSettings(q=1.0, r_scale=1.0))
     np.testing.assert_allclose(s.value, [1.3, 1.0, 1.15], atol=1e-3)
     with pytest.raises(ValueError, match="no measurements"):
         rts_smooth([], [], [], [0.0])
@@ -131,7 +132,7 @@ def test_sudden_stop_followed_within_two_sigma(v_mps):
         assert any(abs(b - 2.0) <= 0.07 for b in s.breaks_s)
         ratios += list(np.abs(s.value - x)[near] / s.sigma_value[near])
         assert abs(s.rate[np.searchsorted(t, 2.1 + v_mps / 200.0)]) < 0.02
-        held = rts_smooth(t, z, np.full(t.size, 1e-3), t, breaks=False)
+        held = rts_smooth(t, z, np.full(t.size, 1e-3), t, SmoothSettings(breaks=False))
         held_ratios.append(np.max(np.abs(held.value - x)[near] / held.sigma_value[near]))
     assert np.mean(np.array(ratios) <= 2.0) >= 0.9
     assert np.median(held_ratios) > 4.0
@@ -144,6 +145,6 @@ def test_smooth_motion_gets_no_break():
     t = np.arange(0.0, 6.0, 1 / 30)
     z = 0.5 * np.sin(1.3 * t) + rng.normal(0.0, 1e-3, t.size)
     s = rts_smooth(t, z, np.full(t.size, 1e-3), t)
-    held = rts_smooth(t, z, np.full(t.size, 1e-3), t, breaks=False)
+    held = rts_smooth(t, z, np.full(t.size, 1e-3), t, SmoothSettings(breaks=False))
     assert s.breaks_s == ()
     np.testing.assert_allclose(s.value, held.value, atol=1e-12)

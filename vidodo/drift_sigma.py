@@ -28,7 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import MeasurementError
-from .metrics import anchor_poses, source_metrics
+from .metrics import MetricSettings, anchor_poses, source_metrics
 
 __all__ = ["DriftInputs", "FIGURES", "CORRELATION_S", "figure_sigmas", "derived_sigmas"]
 
@@ -69,8 +69,8 @@ class DriftInputs:
     """Its 1-sigma: position [m] and heading [rad]."""
     clock_sigma_s: float
     """1-sigma of the clock offset [s]."""
-    metric_kwargs: dict
-    """Keyword arguments of :func:`vidodo.metrics.source_metrics` as used."""
+    metric_settings: MetricSettings
+    """Settings of :func:`vidodo.metrics.source_metrics` as used."""
 
 
 def _gauss_markov(t, rng, n, tau):
@@ -116,7 +116,7 @@ def figure_sigmas(inp: DriftInputs, *, draws=DRAWS, seed=0) -> dict:
             sa_xy / np.sqrt(2.0), sa_xy / np.sqrt(2.0), sa_h)
         a = anchor_poses(p, pa, qa)
         try:
-            m = source_metrics(t, qd, a, inp.cum_length_m, **inp.metric_kwargs)
+            m = source_metrics(t, qd, a, inp.cum_length_m, inp.metric_settings)
         except MeasurementError:
             continue
         for f in FIGURES:

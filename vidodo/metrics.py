@@ -55,6 +55,7 @@ __all__ = [
     "sigma_key",
     "RPE_PAIRS_RULE",
     "ate",
+    "MetricSettings",
     "source_metrics",
     "drift_table",
     "column_prefix",
@@ -592,9 +593,30 @@ class SourceMetrics:
         return out
 
 
-def source_metrics(t_s, truth_poses, anchored_poses, cum_length_m, *, sigma_heading_rad=0.0,
-                   sigma_m=0.0, min_path_m=0.25, min_turn_rad=math.pi / 2, rpe_delta_m=0.5,
-                   rpe_delta_s=1.0, name="source") -> SourceMetrics:
+@dataclass(frozen=True)
+class MetricSettings:
+    """How :func:`source_metrics` measures one source."""
+
+    sigma_heading_rad: float = 0.0
+    """Typical truth heading 1-sigma [rad]: turning is accumulated only in steps of at
+    least 3 sigma, so heading noise of a still robot does not count as turns."""
+    sigma_m: float = 0.0
+    """Typical truth position 1-sigma [m]; the final error is taken against the truth
+    pose averaged (or fitted) over +-0.3 s (:func:`local_pose`)."""
+    min_path_m: float = 0.25
+    """Below this path length drift in percent is not reported [m]."""
+    min_turn_rad: float = math.pi / 2
+    """Below this total turning heading drift per turn is not reported [rad]."""
+    rpe_delta_m: float = 0.5
+    """RPE distance delta [m]."""
+    rpe_delta_s: float = 1.0
+    """RPE time delta [s]."""
+    name: str = "source"
+    """The source's name, for messages."""
+
+
+def source_metrics(t_s, truth_poses, anchored_poses, cum_length_m,
+                   settings=MetricSettings()) -> SourceMetrics:
     """Compute every per-source figure from anchored poses on the truth time grid.
 
     Parameters
@@ -605,21 +627,16 @@ def source_metrics(t_s, truth_poses, anchored_poses, cum_length_m, *, sigma_head
         Truth and anchored source poses (NaN where missing).
     cum_length_m : ndarray of shape (N,)
         Truth path length (see :func:`path_length`) [m].
-    sigma_m : float
-        Typical truth position 1-sigma [m]; the final error is taken against the
-        truth pose averaged (or fitted) over +-0.3 s (:func:`local_pose`).
-    sigma_heading_rad : float
-        Typical truth heading 1-sigma [rad]: turning is accumulated only in steps of
-        at least 3 sigma, so heading noise of a still robot does not count as turns.
-    min_path_m : float
-        Below this path length drift in percent is not reported [m].
-    min_turn_rad : float
-        Below this total turning heading drift per turn is not reported [rad].
+    settings : MetricSettings
+        Truth sigmas, reporting thresholds, RPE deltas, the source's name.
 
     Returns
     -------
     SourceMetrics
     """
+    c = settings
+    name, sigma_m, rpe_delta_m, rpe_delta_s = c.name, c.sigma_m, c.rpe_delta_m, c.rpe_delta_s
+    min_path_m, min_turn_rad = c.min_path_m, c.min_turn_rad
     t = np.asarray(t_s, dtype=float)
     q = np.asarray(truth_poses, dtype=float).reshape(-1, 3)
     p = np.asarray(anchored_poses, dtype=float).reshape(-1, 3)
@@ -663,7 +680,7 @@ def source_metrics(t_s, truth_poses, anchored_poses, cum_length_m, *, sigma_head
         drift = 100.0 * final_err / plen
     else:
         warn.append(f"{name}: drift % not measured (truth path {plen:.2f} m < {min_path_m} m)")
-    turned = _gated_turn(sub_q[:, 2], 3.0 * sigma_heading_rad)
+    turned = _gated_turn(sub_q[:, 2], 3.0 * c.sigma_heading_rad)
     per_turn = None
     if turned >= min_turn_rad:
         per_turn = math.degrees(final_herr) / (turned / (2.0 * math.pi))

@@ -34,6 +34,7 @@ from .errors import InputError, MeasurementError
 from .events import EventSettings, active_kinds, detect_events, events_frame
 from .metrics import (
     RPE_PAIRS_RULE,
+    MetricSettings,
     SourceMetrics,
     anchor_heading_from_travel,
     anchor_poses,
@@ -425,9 +426,9 @@ def _source_step(name, p, vdf, ref, events, warn, clock_sigma_s=0.0) -> _SourceG
                    "travel_sigma_rad": float(sig_rot), "weight": float(w)}
     anchored = pd.DataFrame({"t_s": t, "x_m": a[:, 0], "y_m": a[:, 1],
                              "heading_rad": a[:, 2]})
-    kw = dict(sigma_heading_rad=ref.sigma_heading_rad, sigma_m=sxy, name=name)
+    kw = MetricSettings(sigma_heading_rad=ref.sigma_heading_rad, sigma_m=sxy, name=name)
     try:
-        m = source_metrics(t, q, a, ref.path_m, **kw)
+        m = source_metrics(t, q, a, ref.path_m, kw)
     except MeasurementError as exc:
         warn.append(str(exc))
         return _SourceGrade(anchored, None, None, heading)
@@ -457,7 +458,7 @@ def _figure_sigmas(m, ref, vdf, k0, ta, qa, sig_rot, clock_sigma_s, kw):
         t_s=ref.t, truth_poses=ref.q, sigma_xy_m=sxy_all,
         sigma_heading_rad=ref.sigma_heading_each, cum_length_m=ref.path_m,
         source_at=_shifted_source(ref.t, vdf, ta), anchor_pose=tuple(qa),
-        anchor_sigma=(sa_xy, sa_h), clock_sigma_s=clock_sigma_s, metric_kwargs=kw)))
+        anchor_sigma=(sa_xy, sa_h), clock_sigma_s=clock_sigma_s, metric_settings=kw)))
 
 
 def _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn, *,

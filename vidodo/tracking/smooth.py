@@ -29,8 +29,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["SmoothedSignal", "rts_smooth", "rts_smooth_signals", "find_breaks", "Q_GRID",
-           "R_SCALE_GRID", "BREAK_MIN_GAIN"]
+__all__ = ["SmoothedSignal", "SmoothSettings", "rts_smooth", "rts_smooth_signals",
+           "find_breaks", "Q_GRID", "R_SCALE_GRID", "BREAK_MIN_GAIN"]
 
 Q_GRID = np.logspace(-3, 4, 15)
 """Default jerk spectral densities tried [unit^2/s^5]."""
@@ -57,6 +57,28 @@ BREAK_ROUNDS = 4
 
 BREAK_FLAG = 3.0
 """A window sum of normalised innovations beyond this many sigma flags a candidate."""
+
+
+@dataclass(frozen=True)
+class SmoothSettings:
+    """How :func:`rts_smooth` and :func:`rts_smooth_signals` model a signal."""
+
+    q: float | None = None
+    """Fixed jerk spectral density [unit^2/s^5]; None: chosen by maximum likelihood over
+    ``q_grid``."""
+    r_scale: float | None = None
+    """Fixed factor on the measurement variances; None: chosen over ``r_scale_grid``."""
+    q_grid: tuple = tuple(Q_GRID)
+    """Jerk densities tried [unit^2/s^5]."""
+    r_scale_grid: tuple = tuple(R_SCALE_GRID)
+    """Measurement-variance factors tried."""
+    prior_rate: float = 5.0
+    """1-sigma of the initial rate [unit/s]; also the rate variance released at a
+    model break."""
+    prior_accel: float = 20.0
+    """1-sigma of the initial acceleration [unit/s^2]; also released at a break."""
+    breaks: bool = True
+    """Let the model break at sudden changes (:func:`find_breaks`)."""
 
 
 @dataclass(frozen=True)
@@ -196,8 +218,7 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
     return loglik, nis, nu, xs, Ps
 
 
-def rts_smooth(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None, q_grid=Q_GRID,
-              r_scale_grid=R_SCALE_GRID, prior_rate=5.0, prior_accel=20.0, breaks=True):
+def rts_smooth(t_meas_s, z, sigma_z, t_out_s, settings=SmoothSettings()):
     """Smooth one signal measured at irregular times and evaluate it at other times.
 
     Parameters
@@ -210,14 +231,8 @@ def rts_smooth(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None, q_grid=Q_
         1-sigma of each measurement [unit].
     t_out_s : array_like (N,)
         Times at which to report the smoothed signal [s].
-    q, r_scale : float, optional
-        Fix the jerk density [unit^2/s^5] or the measurement-variance factor instead of
-        choosing them by maximum likelihood over ``q_grid`` x ``r_scale_grid``.
-    prior_rate, prior_accel : float
-        1-sigma of the initial rate [unit/s] and acceleration [unit/s^2]; also the
-        variance released at a model break.
-    breaks : bool
-        Let the model break at sudden changes (:func:`find_breaks`).
+    settings : SmoothSettings
+        Fixed or searched model parameters, priors, model breaks.
 
     Returns
     -------
@@ -225,14 +240,10 @@ def rts_smooth(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None, q_grid=Q_
     """
     z = np.asarray(z, dtype=float)
     return rts_smooth_signals(t_meas_s, z[:, None], np.asarray(sigma_z, float)[:, None],
-                             t_out_s, q=q, r_scale=r_scale, q_grid=q_grid,
-                             r_scale_grid=r_scale_grid, prior_rate=prior_rate,
-                             prior_accel=prior_accel, breaks=breaks)[0]
+                              t_out_s, settings)[0]
 
 
-def rts_smooth_signals(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None,
-                      q_grid=Q_GRID, r_scale_grid=R_SCALE_GRID, prior_rate=5.0,
-                      prior_accel=20.0, breaks=True):
+def rts_smooth_signals(t_meas_s, z, sigma_z, t_out_s, settings=SmoothSettings()):
     """Smooth S independent signals measured at the same times, in one batched pass.
 
     Each signal gets its own maximum-likelihood jerk density and variance factor, exactly
@@ -246,7 +257,7 @@ def rts_smooth_signals(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None,
         Measurements and their 1-sigma [unit of each signal].
     t_out_s : array_like (N,)
         Output times [s].
-    q, r_scale, q_grid, r_scale_grid, prior_rate, prior_accel, breaks
+    settings : SmoothSettings
         As in :func:`rts_smooth`, shared by all signals (breaks are found per signal).
 
     Returns
@@ -269,13 +280,15 @@ def rts_smooth_signals(t_meas_s, z, sigma_z, t_out_s, *, q=None, r_scale=None,
     meas = np.concatenate([np.ones(tm.size, bool), np.zeros(to.size, bool)])
     order = np.lexsort((~meas, t))  # measurements first when times tie
     t, zz, vv, meas = t[order], zz[order], vv[order], meas[order]
-    qs = np.atleast_1d(q_grid if q is None else q).astype(float)
-    rs = np.atleast_1d(r_scale_grid if r_scale is None else r_scale).astype(float)
+    cfg = settings
+    prior_rate, prior_accel = cfg.prior_rate, cfg.prior_accel
+    qs = np.atleast_1d(cfg.q_grid if cfg.q is None else cfg.q).astype(float)
+    rs = np.atleast_1d(cfg.r_scale_grid if cfg.r_scale is None else cfg.r_scale).astype(float)
     priors = (prior_rate, prior_accel)
     tz = (t[meas], zz[meas], vv[meas])
     q_best, r_best = _grid_ml(tz, qs, rs, priors, None)
     jump_m = np.zeros((tm.size, n_sig), bool)
-    if breaks and tm.size > 4 * BREAK_WINDOW:
+    if cfg.breaks and tm.size > 4 * BREAK_WINDOW:
         jump_m = find_breaks(*tz, q_best, r_best, prior_rate=prior_rate,
                              prior_accel=prior_accel)
         if jump_m.any():  # the rest of the run, freed from the events, may want less q
