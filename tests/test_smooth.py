@@ -112,10 +112,7 @@ def _stop_track(v_mps, decel_mps2, rng, t_stop_s=2.0):
     return t, x, x + rng.normal(0.0, 1e-3, t.size)
 
 
-@pytest.mark.parametrize("v_mps", [0.3, 0.8, pytest.param(1.5, marks=pytest.mark.xfail(
-    reason="known gap: at 1.5 m/s the stop falls inside a 33 ms step and the first sample "
-    "after the break is 2-3.5 sigma off in about a quarter of the draws (the break is "
-    "placed at the step's start; the instant within the step is not modelled)"))])
+@pytest.mark.parametrize("v_mps", [0.3, 0.8, 1.5])
 def test_sudden_stop_followed_within_two_sigma(v_mps):
     """A hit that stops the body within a frame (200 m/s^2), 10 noise draws: with model
     breaks a break is placed at the stop, the smoothed position at the samples around

@@ -17,10 +17,13 @@ model rounds the stop off, overshoots and reads speed after the robot stood stil
 the model may *break* (:func:`find_breaks`): where the forward filter's normalised
 innovations drift to one side over a few samples (a manoeuvre, Bar-Shalom, Li &
 Kirubarajan 2001, sec. 11.2), the break instant is located by maximum likelihood over
-the nearby samples, and the rate and acceleration are released there (their variance
-reset to the priors, the position kept: a velocity jump, Willsky & Jones, IEEE TAC
-21(1):108, 1976). A break is kept only if it raises the log-likelihood by more than
-:data:`BREAK_MIN_GAIN`, so a run without such events is smoothed exactly as before.
+the nearby samples, and the model restarts there: position, rate and acceleration are
+released to the priors (a jump in the state, Willsky & Jones, IEEE TAC 21(1):108,
+1976), so the two sides are smoothed as separate runs. A change within a step cannot be
+placed inside it; times in the step get the mixture of both sides' estimates with its
+variance (:func:`_break_mixture`). A break is kept only if it raises the log-likelihood
+by more than :data:`BREAK_MIN_GAIN`, so a run without such events is smoothed exactly
+as before.
 """
 
 from __future__ import annotations
@@ -143,8 +146,10 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
     q, r_scale : ndarray (B,)
         Model parameters of the B parallel filters.
     jump : ndarray of bool (T, B), optional
-        Where True, the rate and acceleration variances are raised by the priors' at
-        the start of the step to that event (a model break somewhere in the step).
+        Where True, the model restarts at the start of the step to that event (a model
+        break somewhere in the step): the rate and acceleration variances are raised by
+        the priors', the position variance by the prior rate's over the step between
+        the measurements around it.
 
     Returns
     -------
@@ -173,11 +178,15 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
         Fs = np.empty((T, 3, 3))
     dts = np.diff(t, prepend=t[0])
     F_all, Q_all = _transition(dts, np.ones(T))
+    if jump is not None:
+        pos_var = (prior_rate * _break_step(t, is_meas)) ** 2
     for k in range(T):
         if jump is not None and jump[k].any():
-            # released at the start of the step: the unknown instant of the change
-            # within the step reaches the position through F
+            # a restart at the start of the step: position, rate and acceleration
+            # released (the position by what the prior rate covers over the step), so
+            # the two sides are tied only through the priors
             P = P.copy()
+            P[:, 0, 0] += jump[k] * pos_var[k]
             P[:, 1, 1] += jump[k] * prior_rate**2
             P[:, 2, 2] += jump[k] * prior_accel**2
         if dts[k] > 0:
@@ -216,6 +225,17 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
         xs[k] = xf[k] + np.einsum("bij,bj->bi", C, xs[k + 1] - xp_all[k + 1])
         Ps[k] = Pf[k] + C @ (Ps[k + 1] - Ppn) @ C.transpose(0, 2, 1)
     return loglik, nis, nu, xs, Ps
+
+
+def _break_step(t, is_meas):
+    """Time between the measurements before and at-or-after each event [s] (the
+    step a break at that event falls in)."""
+    tm = t[is_meas]
+    i = np.searchsorted(tm, t, side="left")
+    nxt = tm[np.minimum(i, tm.size - 1)]
+    prv = tm[np.maximum(np.searchsorted(tm, t, side="left") - 1, 0)]
+    step = nxt - prv
+    return np.where(step > 0, step, np.median(np.diff(tm)) if tm.size > 1 else 1.0)
 
 
 def rts_smooth(t_meas_s, z, sigma_z, t_out_s, settings=SmoothSettings()):
@@ -307,15 +327,14 @@ def rts_smooth_signals(t_meas_s, z, sigma_z, t_out_s, settings=SmoothSettings())
     where = np.empty(order.size, dtype=int)
     where[order] = np.arange(order.size)
     out_pos = where[tm.size:]
-    extra = _break_instant_variance(t, meas, jump_m, xs)
+    vr, vr_var = _break_mixture(t, meas, jump_m, xs, Ps, q_best)
     out = []
     for s in range(n_sig):
         x = xs[out_pos, s]
-        P = Ps[out_pos, s]
         out.append(SmoothedSignal(
-            value=x[:, 0], rate=x[:, 1], accel=x[:, 2],
-            sigma_value=np.sqrt(np.maximum(P[:, 0, 0], 0.0) + extra[out_pos, s]),
-            sigma_rate=np.sqrt(np.maximum(P[:, 1, 1], 0.0)),
+            value=vr[out_pos, s, 0], rate=vr[out_pos, s, 1], accel=x[:, 2],
+            sigma_value=np.sqrt(vr_var[out_pos, s, 0]),
+            sigma_rate=np.sqrt(vr_var[out_pos, s, 1]),
             q=float(q_best[s]), r_scale=float(r_best[s]), nis_mean=float(nis[s]) / tm.size,
             innovation_lag1=_lag1(nu[meas, s]),
             breaks_s=tuple(float(v) for v in t[meas][jump_m[:, s]]),
@@ -323,33 +342,45 @@ def rts_smooth_signals(t_meas_s, z, sigma_z, t_out_s, settings=SmoothSettings())
     return out
 
 
-def _break_instant_variance(t, meas, jump_m, xs):
-    """Variance from not knowing when, within a break's step, the change happened.
+def _break_mixture(t, meas, jump_m, xs, Ps, q):
+    """Value, rate and their variances at the events inside each break's step.
 
-    Between the measurements at t_k and t_k+1 the smoother moves linearly, but a rate
-    change of dv at an unknown instant (uniform in the step) leaves the true value off
-    that line by ``dv dt (min(s, u) - u s)`` at ``s = (t - t_k) / dt``; its mean square
-    over the instant is ``dv^2 dt^2 s^2 (1 - s)^2 / 3`` (integrating over u, s
-    fixed). Added at the events inside a break's step; zero at the measurements.
+    The model restarts at the start of a break's step, so the smoother gives the events
+    in the step the *after* side's estimate, extrapolated back. The change happened at
+    an unknown instant in the step, taken as uniform: an event a fraction ``u`` into
+    the step lies after it with probability ``u``. Its estimate is the mixture of the
+    after side's and of the before side's (the smoothed state at the measurement
+    before the step, propagated by the model), with the mixture's variance: the
+    weighted variances plus ``u (1 - u)`` times the squared gap between the sides
+    (so the sigma near a break grows with what is not known, rather than hiding it).
 
     Returns
     -------
-    ndarray (T, S)
-        Extra variance per merged event and signal [unit^2].
+    xs, var : ndarray (T, S, 2)
+        Value and rate, and their variances, per merged event and signal.
     """
-    extra = np.zeros((t.size, jump_m.shape[1]))
+    out = xs[:, :, :2].copy()
+    var = np.stack([Ps[:, :, 0, 0], Ps[:, :, 1, 1]], axis=-1).copy()
     pos = np.flatnonzero(meas)
     for r, s in zip(*np.nonzero(jump_m), strict=True):
         if r == 0:
             continue
         a, b = pos[r - 1], pos[r]
-        dt = t[b] - t[a]
-        if b - a < 2 or dt <= 0:
+        if b - a < 2 or t[b] <= t[a]:
             continue
-        dv = xs[b, s, 1] - xs[a, s, 1]
-        u = (t[a + 1:b] - t[a]) / dt
-        extra[a + 1:b, s] += dv**2 * dt**2 * u**2 * (1.0 - u) ** 2 / 3.0
-    return extra
+        ev = np.arange(a + 1, b)
+        h = t[ev] - t[a]
+        F, Q = _transition(h, np.full(h.size, q[s]))
+        before = F @ xs[a, s]
+        Pb = F @ Ps[a, s] @ F.transpose(0, 2, 1) + Q
+        u = (h / (t[b] - t[a]))[:, None]
+        after = xs[ev, s, :2]
+        va = var[ev, s]
+        vb = np.stack([Pb[:, 0, 0], Pb[:, 1, 1]], axis=-1)
+        gap = after - before[:, :2]
+        out[ev, s] = u * after + (1.0 - u) * before[:, :2]
+        var[ev, s] = u * va + (1.0 - u) * vb + u * (1.0 - u) * gap**2
+    return out, np.maximum(var, 0.0)
 
 
 def _grid_ml(tz, qs, rs, priors, jump_m):
