@@ -458,7 +458,8 @@ def _figure_sigmas(m, ref, vdf, k0, ta, qa, sig_rot, clock_sigma_s, kw):
         t_s=ref.t, truth_poses=ref.q, sigma_xy_m=sxy_all,
         sigma_heading_rad=ref.sigma_heading_each, cum_length_m=ref.path_m,
         source_at=_shifted_source(ref.t, vdf, ta), anchor_pose=tuple(qa),
-        anchor_sigma=(sa_xy, sa_h), clock_sigma_s=clock_sigma_s, metric_settings=kw)))
+        anchor_sigma=(sa_xy, sa_h), clock_sigma_s=clock_sigma_s, metric_settings=kw),
+        measured=m.max_err_m))
 
 
 def _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn, *,
