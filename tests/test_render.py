@@ -348,13 +348,13 @@ def test_motion_blur_centred_on_mid_exposure(k):
     profile symmetric about the edge's mid-exposure place (closed form: the blur is the
     step convolved with a box centred there), so the centroid of its gradient lies
     there. Pixels as the renderer samples them (its sub-pixel offsets and exposure
-    times, :func:`vidodo.synth.render._sample_pattern`), 4 speeds (1-8 px per
+    times, :func:`vidodo.synth.render.sample_pattern`), 4 speeds (1-8 px per
     exposure): averaged over 40 sub-pixel places of the edge (one place alone is off
     by the samples' quantisation) within 0.02 px. A pattern that tied offsets to times
     put it 0.1 px off and made a moving marker read about 1 ms early."""
-    from vidodo.synth.render import _sample_pattern
+    from vidodo.synth.render import sample_pattern
 
-    offs, frac = _sample_pattern(k)
+    offs, frac = sample_pattern(k)
     assert frac.min() >= -0.5 and frac.max() <= 0.5
     u = np.arange(-20, 21).astype(float)
     for v in (1.0, 2.0, 4.0, 8.0):

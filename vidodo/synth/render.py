@@ -222,7 +222,7 @@ def floor_points(camera: CameraProfile, rvec, tvec):
 
 
 # ---------------------------------------------------------------- robot per frame
-def _sample_pattern(k: int):
+def sample_pattern(k: int):
     """Sub-pixel offsets (k, 2) [px] and exposure fractions (k,) in [-0.5, 0.5].
 
     The samples come in pairs mirrored through the pixel centre and the row's
@@ -316,7 +316,7 @@ def _draw_robot(frame, parts, rays, cam, camera, t_frame, pose_at, exposure_s, k
     if k_samples is None:
         blur_px = _blur_px(parts, pose_at, t_frame, exposure_s, cam_poses[0], camera)
         k_samples = int(np.clip(4 * math.ceil(blur_px / 3.0), MIN_SAMPLES, 32))
-    offs, frac = _sample_pattern(k_samples)
+    offs, frac = sample_pattern(k_samples)
     # bounded memory: blocks of rows with at most MAX_BLOCK_SAMPLES ray samples each
     step = max(1, MAX_BLOCK_SAMPLES // (len(frac) * (c1 - c0)))
     drawn = False

@@ -7,12 +7,18 @@ from dataclasses import dataclass
 
 import cv2
 import numpy as np
+from scipy.stats import median_abs_deviation
 
 from ...profiles import CameraProfile, FieldProfile
 from ..camera_fit import FitOptions, fit_camera
 from ..frame import FrameRegistration
 
 __all__ = ["seam_samples", "locate_seams", "SeamSearch", "refine_fit", "MAX_MM_PER_PX"]
+
+
+def _zero_centre(values, axis):
+    """Centre of :func:`median_abs_deviation` for residuals already taken about a median."""
+    return np.zeros(np.delete(values.shape, axis))
 
 
 #: Seams seen coarser than this across (floor millimetres per pixel) are not used.
@@ -227,8 +233,10 @@ def _locate(prof, reach, bg_px, min_contrast):
     nb = int(round(bg_px / step))
     left = np.median(prof[:, :nb], axis=1)
     right = np.median(prof[:, -nb:], axis=1)
-    noise = 1.4826 * np.median(np.abs(np.concatenate(
-        [prof[:, :nb] - left[:, None], prof[:, -nb:] - right[:, None]], axis=1)), axis=1)
+    # Robust sigma of the background about each side's own median (MAD about zero).
+    noise = median_abs_deviation(np.concatenate(
+        [prof[:, :nb] - left[:, None], prof[:, -nb:] - right[:, None]], axis=1),
+        axis=1, center=_zero_centre, scale="normal")
     search = prof[:, nb:-nb]
     t_s = ts[nb:-nb]
     rows = np.arange(len(prof))
