@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import resource
 import subprocess
 import sys
 import tempfile
@@ -38,16 +37,26 @@ print(n)
 HANDHELD_1080P = {"video.width_px": 1920, "video.height_px": 1080}
 
 
+# Each measured command runs under its own small parent process, whose RUSAGE_CHILDREN
+# peak is that command's alone (this process's counter keeps the largest child so far,
+# e.g. the renderer's, and cannot see a later, smaller peak).
+_PEAK_WRAPPER = (
+    "import resource, subprocess, sys; r = subprocess.run(sys.argv[1:]); "
+    "print(resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss, file=sys.stderr); "
+    "sys.exit(r.returncode)"
+)
+
+
 def _child(cmd) -> tuple[float, float]:
     """Wall time [s] and peak resident memory [MB] of one child process."""
-    before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
     t0 = time.perf_counter()
-    done = subprocess.run(cmd, capture_output=True, text=True)
+    done = subprocess.run([sys.executable, "-c", _PEAK_WRAPPER, *map(str, cmd)],
+                          capture_output=True, text=True)
     wall = time.perf_counter() - t0
+    lines = done.stderr.strip().splitlines()
     if done.returncode not in (0, 4):
-        print(f"  (exit {done.returncode}: {done.stderr.strip().splitlines()[-1:]})")
-    peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
-    return wall, (peak if peak > before else float("nan")) / 1024
+        print(f"  (exit {done.returncode}: {lines[-2:-1]})")
+    return wall, float(lines[-1]) / 1024
 
 
 def _grade_cmd(run, video, out, args):

@@ -16,16 +16,10 @@ import io
 import tokenize
 from pathlib import Path
 
-import pytest
-
 PKG = Path(__file__).resolve().parents[1] / "vidodo"
 
 MAX_CODE_LINES = 100
 MAX_PUBLIC_PARAMS = 8
-
-PENDING: set[str] = set()
-"""Public functions still over the parameter limit: another branch gives them settings
-dataclasses; the owner empties this set when merging it."""
 
 _SKIP = {tokenize.COMMENT, tokenize.NL, tokenize.NEWLINE, tokenize.INDENT, tokenize.DEDENT,
          tokenize.ENDMARKER}
@@ -105,15 +99,7 @@ def test_no_public_function_over_8_parameters():
     """No public function or method of the library takes more than 8 parameters."""
     wide = [f"{rel}:{node.lineno} {node.name} ({n} parameters)"
             for rel, _, node in _functions()
-            if not node.name.startswith("_") and node.name not in PENDING
+            if not node.name.startswith("_")
             and (n := len(parameters(node))) > MAX_PUBLIC_PARAMS]
     assert not wide, (f"public functions over {MAX_PUBLIC_PARAMS} parameters (use a frozen "
                       f"settings dataclass): {wide}")
-
-
-@pytest.mark.parametrize("name", sorted(PENDING))
-def test_pending_names_are_still_over_the_limit(name):
-    """Each pending exception names a public function still over the limit, so the set
-    cannot go stale silently: once it is fixed this fails and the entry goes."""
-    counts = [len(parameters(node)) for _, _, node in _functions() if node.name == name]
-    assert counts and max(counts) > MAX_PUBLIC_PARAMS
