@@ -61,6 +61,9 @@ BREAK_ROUNDS = 4
 BREAK_FLAG = 3.0
 """A window sum of normalised innovations beyond this many sigma flags a candidate."""
 
+BREAK_TRIAL_COLUMNS = 256
+"""Trial breaks filtered side by side in one batch (bounds the memory of long runs)."""
+
 
 @dataclass(frozen=True)
 class SmoothSettings:
@@ -446,13 +449,10 @@ def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0):
                                 cols.append((s, n_run, tuple(range(pos, pos + span))))
         if not cols:
             break
-        sig = np.array([c[0] for c in cols])
-        trial = jump[:, sig].copy()
-        for col, c in enumerate(cols):
-            trial[list(c[2]), col] = True
-        ll_c, _, _, _, _ = _run(t_s, z[:, sig], var_z[:, sig], ones, q[sig], r_scale[sig],
-                                prior_rate, prior_accel, smooth=False, jump=trial)
-        gain = ll_c - ll[sig]
+        gain = np.concatenate([
+            _trial_gain(t_s, z, var_z, jump, ll, cols[i:i + BREAK_TRIAL_COLUMNS],
+                        (q, r_scale, prior_rate, prior_accel))
+            for i in range(0, len(cols), BREAK_TRIAL_COLUMNS)])
         best: dict = {}
         for c, gval in zip(cols, gain, strict=True):
             key = c[:2]
@@ -465,6 +465,22 @@ def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0):
         ll, _, nu, _, _ = _run(t_s, z, var_z, ones, q, r_scale, prior_rate, prior_accel,
                                smooth=False, jump=jump)
     return jump
+
+
+def _trial_gain(t_s, z, var_z, jump, ll, cols, model):
+    """Log-likelihood gain of each trial break in ``cols`` over the current ``jump``.
+
+    The trials run as parallel filters over the whole run, a batch of at most
+    :data:`BREAK_TRIAL_COLUMNS` at a time, so memory stays bounded on long runs.
+    """
+    q, r_scale, prior_rate, prior_accel = model
+    sig = np.array([c[0] for c in cols])
+    trial = jump[:, sig].copy()
+    for col, c in enumerate(cols):
+        trial[list(c[2]), col] = True
+    ll_c, _, _, _, _ = _run(t_s, z[:, sig], var_z[:, sig], np.ones(t_s.size, bool), q[sig],
+                            r_scale[sig], prior_rate, prior_accel, smooth=False, jump=trial)
+    return ll_c - ll[sig]
 
 
 def _flagged_starts(flags):
