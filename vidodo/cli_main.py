@@ -23,6 +23,7 @@ os.environ.setdefault("OPENCV_LOG_LEVEL", "ERROR")
 os.environ.setdefault("OPENCV_FFMPEG_LOGLEVEL", "-8")
 
 from . import __version__, commands  # noqa: E402
+from .blas_threads import one_blas_thread  # noqa: E402
 from .errors import EXIT_INTERNAL, EXIT_INTERRUPTED, Interrupted, VidodoError  # noqa: E402
 
 
@@ -102,7 +103,7 @@ def main(argv=None) -> int:
     if args.debug:
         os.environ["OPENCV_LOG_LEVEL"] = "INFO"
     try:
-        with _termination_handled():
+        with _termination_handled(), one_blas_thread():
             return int(args._run(args) or 0)
     except VidodoError as exc:
         if args.debug:

@@ -19,8 +19,8 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from threadpoolctl import threadpool_limits
 
+from .blas_threads import one_blas_thread
 from .checklist import STATUSES, Check
 from .csvsafe import read_csv_checked
 from .errors import InputError
@@ -273,14 +273,10 @@ def preflight(robot_path, field_path, log_path, video_path=None, camera_path=Non
 
     Notes
     -----
-    Runs with one BLAS thread: the small least-squares fits of the floor registration
-    gain nothing from more, and on a loaded machine OpenBLAS's waiting threads made each
-    of their SVDs a hundred times slower (measured: 0.3 ms alone, 30-130 ms under load,
-    ``benchmarks/preflight_speed.py``).
+    Runs with one BLAS thread (:func:`vidodo.blas_threads.one_blas_thread`), also when
+    called from Python.
     """
-    import scipy.linalg  # noqa: F401  (loads SciPy's own BLAS, so that the limit reaches it)
-
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         return _preflight(robot_path, field_path, log_path, video_path, camera_path,
                           settings)
 
