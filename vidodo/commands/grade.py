@@ -63,6 +63,15 @@ def _fmt(v, scale, digits=0, unit=""):
     return f"{v * scale:.{digits}f}{unit}"
 
 
+def _fig(m, name, scale, digits=0, unit=""):
+    """A source's figure with its 1-sigma (``12 +-0.3 mm``) when the metrics carry one."""
+    text = _fmt(getattr(m, name), scale, digits, unit)
+    sig = (m.sigma or {}).get(name)
+    if text == "n/a" or sig is None or not math.isfinite(sig):
+        return text
+    return f"{_fmt(getattr(m, name), scale, digits)} +-{_fmt(sig, scale, max(digits, 1), unit)}"
+
+
 def verdict_lines(result, *, units="mm"):
     """The short terminal verdict, one line per source plus events and clock."""
     k = length_factor(units)
@@ -80,11 +89,11 @@ def verdict_lines(result, *, units="mm"):
         p = result.passed.get(name)
         mark = "PASS" if p else ("FAIL" if p is False else "    ")
         lines.append(
-            f"{mark} {name:<14} final {_fmt(m.final_err_m, k, dig, ' ' + units)}"
-            f" / {_fmt(m.final_heading_err_rad, 180 / math.pi, 1, ' deg')}"
-            f"  drift {_fmt(m.drift_pct, 1, 1, ' %')}"
-            f"  ATE {_fmt(m.ate_rmse_m, k, dig, ' ' + units)}"
-            f"  max {_fmt(m.max_err_m, k, dig, ' ' + units)} at "
+            f"{mark} {name:<14} final {_fig(m, 'final_err_m', k, dig, ' ' + units)}"
+            f" / {_fig(m, 'final_heading_err_rad', 180 / math.pi, 1, ' deg')}"
+            f"  drift {_fig(m, 'drift_pct', 1, 1, ' %')}"
+            f"  ATE {_fig(m, 'ate_rmse_m', k, dig, ' ' + units)}"
+            f"  max {_fig(m, 'max_err_m', k, dig, ' ' + units)} at "
             f"{_fmt(m.max_err_t_s, 1, 1, ' s')}")
     n = len(result.event_list)
     if n:
