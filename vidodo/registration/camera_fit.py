@@ -20,6 +20,7 @@ from scipy.optimize import least_squares
 from ..errors import CalibrationError, InputError
 from ..profiles import CameraProfile
 from .frame import FrameRegistration
+from .uncertainty import cluster_covariance, pose_covariance
 
 __all__ = ["read_points_csv", "check_correspondences", "focal_from_homography",
            "pose_from_homography", "CameraFit", "FitOptions", "fit_camera", "pose_fit_points",
@@ -267,6 +268,15 @@ class _Observations:
             floor_res = fl[np.arange(len(fl)), ax] - self.seam_val[self.keep_seam]
         return (np.concatenate(out) if out else np.zeros(0)), floor_res
 
+    def groups(self):
+        """Group of each kept observation: every point its own, the samples of one
+        seam line (axis and value) one group (see ``uncertainty.cluster_covariance``)."""
+        n_pts = int(self.keep_pts.sum())
+        seam = self.seam_axis[self.keep_seam] * 1e6 + np.round(
+            self.seam_val[self.keep_seam], 6)
+        _, seam_id = np.unique(seam, return_inverse=True)
+        return np.concatenate([np.arange(n_pts), n_pts + seam_id.ravel()]).astype(int)
+
     def drop_outliers(self, res, limit_px):
         n_pts = len(self.pts_px)
         e = np.hypot(*res.reshape(-1, 2).T)
@@ -318,15 +328,6 @@ def _free_terms(camera, options: FitOptions, n_seam, focal_ok):
     return tuple(n for n, on in (("focal", focal), ("k1", k1), ("k2", k2)) if on)
 
 
-def _covariance(jac, res, n_free):
-    """Parameter covariance ``s^2 (J'J)^-1`` with ``s^2`` the residual variance per
-    degree of freedom (common practice for least squares), or None when singular."""
-    dof = max(len(res) - n_free, 1)
-    s2 = float(res @ res) / dof
-    try:
-        return np.linalg.inv(jac.T @ jac) * s2
-    except np.linalg.LinAlgError:
-        return None
 
 
 def fit_camera(image_size, *, points=None, seams=None, camera: CameraProfile | None = None,
@@ -425,7 +426,9 @@ def _finish_fit(obs, model, sol, free, warnings):
         raise CalibrationError(
             "the fit puts the camera below the floor: the floor coordinates are mirrored "
             "(x and y swapped, or one axis reversed); fix the points or the origin")
-    cov = _covariance(sol.jac, res, len(sol.x)) if len(res) == sol.jac.shape[0] else None
+    cov = None
+    if len(res) == sol.jac.shape[0]:
+        cov = cluster_covariance(sol.jac, res, np.repeat(obs.groups(), 2), len(sol.x))
     return CameraFit(k, d, np.asarray(rv, float).copy(), np.asarray(tv, float).copy(),
                      rms_px, rms_fl, int(obs.keep_pts.sum() + obs.keep_seam.sum()),
                      np.concatenate([obs.keep_pts, obs.keep_seam]), tuple(warnings), cov,
@@ -472,13 +475,20 @@ def pose_fit_points(px, fl, camera_matrix, dist_coeffs, pose0, *, outlier_px=3.0
         raise CalibrationError("the pose fit puts the camera below the floor (mirrored)")
     back = _ray_floor(_undistort(px[keep], camera_matrix, dist_coeffs), r, tv)
     rms_fl = float(np.sqrt(np.mean(np.sum((back - fl[keep]) ** 2, axis=1))))
+    # The pose's covariance from the kept points' residuals (OpenCV's derivatives of the
+    # projection with respect to rvec and tvec, its first six columns).
+    proj, dproj = cv2.projectPoints(obj[keep], rv, tv, camera_matrix, dist_coeffs)
+    cov = pose_covariance(dproj[:, :6], (proj.reshape(-1, 2) - px[keep]).ravel(), 6)
     return CameraFit(np.asarray(camera_matrix, float), np.asarray(dist_coeffs, float), rv, tv,
-                     float(np.sqrt(np.mean(err[keep] ** 2))), rms_fl, int(keep.sum()), keep)
+                     float(np.sqrt(np.mean(err[keep] ** 2))), rms_fl, int(keep.sum()), keep,
+                     covariance=cov)
 
 
 def fit_to_registration(t_s, fit: CameraFit, method, extra_warnings=()):
     return FrameRegistration(float(t_s), True, fit.camera_matrix, fit.dist_coeffs,
                              fit.rvec, fit.tvec, fit.rms_px, fit.rms_floor_m, fit.n_points,
-                             method, "", tuple(fit.warnings) + tuple(extra_warnings))
+                             method, "", tuple(fit.warnings) + tuple(extra_warnings),
+                             param_cov=fit.covariance,
+                             param_names=fit.free if fit.covariance is not None else ())
 
 

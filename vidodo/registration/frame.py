@@ -113,6 +113,19 @@ class FrameRegistration:
     self-check on clicked points left out one at a time: the RMS held-out residual less
     the fit's own residual (in quadrature) [px]; 0 when not measured. It holds the lens
     and pose error that the fit's residuals alone do not show."""
+    param_cov: np.ndarray | None = None
+    """Covariance of the fitted parameters ``param_names`` (the fit's own, from its
+    residuals), ndarray (P, P); None when not known (see
+    :mod:`vidodo.registration.uncertainty`)."""
+    param_names: tuple[str, ...] = ()
+    """Parameters ``param_cov`` covers, in order: 'rvec', 'tvec' (three each), 'focal'
+    (log focal length), 'k1', 'k2'."""
+    tied_to: FrameRegistration | None = None
+    """A frame registered from floor positions mapped through an earlier registration
+    (tracked corners) carries that one's error as well: the registration they came from."""
+    tied_share: float = 0.0
+    """Share of ``tied_to``'s parameter variance still in the floor positions (1 from the
+    reference alone, 1 / n when averaged over n independent seam fits) [-]."""
 
     @property
     def rolling(self) -> bool:

@@ -261,6 +261,8 @@ class FloorRegistrar:
         reg = fit_to_registration(t_s, fit, used, extra)
         if self.settings.self_check:
             reg = self._self_check(frame_bgr, grey, reg, ignore)
+            if used == "points+seams":
+                reg = self._seam_prediction(reg, init_fit)
         self._set_reference(grey, reg, ignore)
         return reg
 
@@ -280,6 +282,26 @@ class FloorRegistrar:
             selfcheck.refuse(report.reason, frame_bgr, reg, self.field)
         pred = report.figures.get("prediction_px", math.nan)
         return replace(reg, prediction_px=pred) if math.isfinite(pred) else reg
+
+    def _seam_prediction(self, reg, points_fit):
+        """The seam-refined registration's error at the clicked points, click noise removed.
+
+        The seam fit did not use the clicks, so each click's residual against it is the
+        click's own error plus the mapping's: mean squares add. The click noise comes
+        from the points-only fit: its residual sum of squares over ``2n - p`` degrees of
+        freedom estimates the variance per axis (Draper & Smith, *Applied Regression
+        Analysis*, 3rd ed., section 2.6), ``2 s^2`` per click. The held-out figure of
+        the self-check (a pose fitted to the other clicks) holds the click noise too,
+        which this registration does not carry.
+        """
+        report = self.check_report
+        click_px = float(report.figures.get("click_rms_px", math.nan)) if report else math.nan
+        n = len(self.points[0])
+        p = 6 + len(points_fit.free) - 2
+        if not math.isfinite(click_px) or 2 * n <= p:
+            return reg
+        noise2 = 2.0 * n * points_fit.rms_px ** 2 / (2 * n - p)
+        return replace(reg, prediction_px=math.sqrt(max(click_px ** 2 - noise2, 0.0)))
 
     def _tiling_beyond(self, report, facts):
         """The grid saw more tiles than the field has (the tiling continues beyond it):
@@ -405,7 +427,7 @@ class FloorRegistrar:
                     source += "+seams"
             except CalibrationError:
                 pass
-        reg = fit_to_registration(t_s, fit, source, ())
+        reg = self._tied(fit_to_registration(t_s, fit, source, ()))
         if reg.rms_px > self.max_rms_px:
             return failed(t_s, f"{source}: residual {reg.rms_px:.2f} px RMS above the "
                           f"{self.max_rms_px} px limit", ref.camera_matrix, ref.dist_coeffs)
@@ -626,7 +648,15 @@ class FloorRegistrar:
             fit = self._pose_fit(grey.shape, pred[good], self._floor_ref[good], ref)
         except CalibrationError:
             return None
-        return fit_to_registration(t_s, fit, "features")
+        return self._tied(fit_to_registration(t_s, fit, "features"))
+
+    def _tied(self, reg):
+        """A frame fitted to the tracked corners' floor positions keeps their error: the
+        reference's, averaged over the seam fits of later frames (independent fits, so
+        the variance of the mean of n falls as 1 / n; n averaged over the corners)."""
+        n = self._anchor_n[np.all(np.isfinite(self._floor_ref), axis=1)]
+        share = 1.0 / max(float(n.mean()), 1.0) if n.size else 1.0
+        return replace(reg, tied_to=self.reference, tied_share=share)
 
 
 _POOL: list = []

@@ -18,7 +18,14 @@ import numpy as np
 import pandas as pd
 
 from ..errors import TrackingError
-from .noise import CornerNoise, estimate_corner_noise, estimate_readout, local_corner_noise
+from .noise import (
+    CornerNoise,
+    estimate_corner_noise,
+    estimate_readout,
+    local_corner_noise,
+    readout_block_sigma,
+    readout_terms,
+)
 from .result import REGISTRATION_COLUMNS, TRACK_COLUMNS, TrackResult
 from .settings import TrackSettings
 from .smooth import rts_smooth_signals
@@ -148,9 +155,9 @@ def finish_track(records, robot, field_profile, settings=None, *, readout_source
     idx = np.flatnonzero(ok)
     fixes = [acc.fix[i] for i in idx]
     noise, noise_parts = _corner_noise(fixes, idx, settings.corner_sigma_px)
-    mpp, reg_err = _registration_error(acc, fixes, idx, n)
+    mpp, reg_err, reg_heading = _registration_error(acc, fixes, idx, n)
     run = _Run(t, idx, ok, _segments(idx, t, settings.max_gap_s), fixes, reg_err, mpp,
-               settings.corner_bias_px)
+               settings.corner_bias_px, reg_heading)
     readout_s = float(settings.readout_s or 0.0)
     frac = np.nan_to_num(np.asarray(acc.frac, float)[idx])
     first = _smooth_run(run, t[idx] + frac * readout_s, noise_parts, noise)
@@ -199,6 +206,7 @@ class _Run:
     reg_err: np.ndarray
     mpp: np.ndarray
     corner_bias_px: float
+    reg_heading: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -255,21 +263,31 @@ def _corner_noise(fixes, idx, corner_sigma_px):
 
 
 def _registration_error(acc, fixes, idx, n):
-    """Floor metres per pixel at the robot, and the registration's error there [m]."""
-    # Registration error at the robot: a least-squares fit of p parameters to n
-    # observations with residual sigma predicts with mean variance sigma^2 p / n (the
-    # trace of the hat matrix; e.g. Draper & Smith, Applied Regression Analysis, 3rd
-    # ed., section 8.1). Carried to the floor through the image scale at the marker.
+    """Floor metres per pixel at the robot, and the registration's error there.
+
+    Returns ``(mpp, reg_err, reg_heading)``: [m/px], radial RMS [m] and heading [rad].
+    """
     mpp = np.interp(np.arange(n), idx, [f.m_per_px for f in fixes])
+    # The registration's own parameter error carried through the pose fit
+    # (registration_error.registration_pose_cov), where the registration has a
+    # covariance; else its mean prediction error: a least-squares fit of p parameters
+    # to n observations with residual sigma predicts with mean variance sigma^2 p / n
+    # (the trace of the hat matrix; e.g. Draper & Smith, Applied Regression Analysis,
+    # 3rd ed., section 8.1), carried to the floor through the image scale at the marker.
+    cov = np.array([acc.reg_cov.get(int(i), np.full((3, 3), np.nan)) for i in idx])
+    var_xy = np.interp(np.arange(n), idx, cov[:, 0, 0] + cov[:, 1, 1])
+    var_h = np.interp(np.arange(n), idx, cov[:, 2, 2])
     reg_px = np.asarray(acc.reg_rms_px, float)
     reg_n = np.maximum(np.asarray(acc.reg_n, float), REGISTRATION_PARAMS)
     reg_err = reg_px * np.sqrt(REGISTRATION_PARAMS / reg_n) * mpp
     reg_err = np.where(np.isfinite(reg_err), reg_err, np.asarray(acc.reg_rms_m, float))
+    known = np.isfinite(var_xy) & (var_xy > 0)
+    reg_err = np.where(known, np.sqrt(np.where(known, var_xy, 0.0)), reg_err)
     # ... or, where larger, the error the registration showed at clicked points it was
-    # not fitted to (held out one at a time): it holds the lens and pose error the
-    # residuals alone do not show (an unmodelled lens is a systematic error).
+    # not fitted to: it holds the lens and pose error its covariance does not (an
+    # unmodelled lens is a systematic error).
     reg_err = np.fmax(reg_err, np.asarray(acc.reg_pred_px, float) * mpp)
-    return mpp, reg_err
+    return mpp, reg_err, np.sqrt(np.where(np.isfinite(var_h), var_h, 0.0))
 
 
 def _smooth_run(run, t_meas, noise_parts, noise):
@@ -280,22 +298,31 @@ def _smooth_run(run, t_meas, noise_parts, noise):
     th = np.unwrap(np.array([f.heading_rad for f in fixes]))
     cov_unit = np.array([f.cov_unit for f in fixes])
     fresh_px, persistent_px, _ = noise_parts
-    return _smooth(run.t, run.idx, run.ok, run.segs, t_meas, x, y, th, cov_unit, run.reg_err,
-                   run.mpp, fresh_px, persistent_px, 1.0 - noise.lag1_corr,
-                   run.corner_bias_px)
+    out, interpolated, fits = _smooth(run.t, run.idx, run.ok, run.segs, t_meas, x, y, th,
+                                      cov_unit, run.reg_err, run.mpp, fresh_px,
+                                      persistent_px, 1.0 - noise.lag1_corr,
+                                      run.corner_bias_px)
+    # The registration's heading error, like its position error, is the same in
+    # neighbouring frames: added per sample, not smoothed.
+    out["sigma_heading_rad"] = np.hypot(out["sigma_heading_rad"], run.reg_heading)
+    return out, interpolated, fits
 
 
 def _readout(acc, run, first, sigma_px, readout_s, readout_source):
     """The readout estimated from the marker shear, and whether it replaces none."""
     idx = run.idx
-    est, est_sigma, est_frames = estimate_readout(
-        run.fixes, [acc.corner_frac.get(int(i), np.zeros(0)) for i in idx],
-        first["vx_mps"][idx], first["vy_mps"][idx], first["omega_radps"][idx], sigma_px)
+    motion = (run.fixes, [acc.corner_frac.get(int(i), np.zeros(0)) for i in idx],
+              first["vx_mps"][idx], first["vy_mps"][idx], first["omega_radps"][idx])
+    est, est_sigma, est_frames = estimate_readout(*motion, sigma_px)
     usable = (math.isfinite(est) and est_sigma < 0.004 and est > 3 * est_sigma
               and est < 0.1)
+    # The estimate's spread over blocks of frames, where larger than the regression's
+    # own sigma, is how far it may be off (the choice to use it stays with the latter).
+    spread = readout_block_sigma(*readout_terms(*motion))
+    honest = float(np.fmax(est_sigma, spread))
     if readout_source == "none" and usable:
-        return _Readout(est, "estimated", est, est_sigma, est_frames, usable, True)
-    return _Readout(readout_s, readout_source, est, est_sigma, est_frames, usable, False)
+        return _Readout(est, "estimated", est, honest, est_frames, usable, True)
+    return _Readout(readout_s, readout_source, est, honest, est_frames, usable, False)
 
 
 def readout_sigma_s(readout) -> float:

@@ -17,6 +17,7 @@ from ..timings import StageTimes
 from ..video import readout_fraction
 from .detector import MarkerDetector, _area
 from .pose_fit import PoseFix, fit_pose
+from .registration_error import registration_pose_cov
 from .registration_policy import RegistrationPolicy
 from .settings import TrackSettings
 
@@ -62,6 +63,8 @@ class FrameRecords:
     unrefined: int = 0
     upscaled: int = 0
     corner_frac: dict = field(default_factory=dict)  # frame index -> (N,) fractions
+    reg_cov: dict = field(default_factory=dict)  # frame index -> (3, 3) pose covariance
+    # from the registration's own error (registration_error.registration_pose_cov)
     predicted_cells: list = field(default_factory=list)
     times: StageTimes = field(default_factory=StageTimes)
 
@@ -283,6 +286,7 @@ def _frame_fix(acc, frame, index, t_s, reg, robot, settings, video_info, last):
         cfrac = allc[:, 1] / h
     frac = float(np.mean(cfrac))
     acc.corner_frac[index] = np.asarray(cfrac, float)
+    acc.reg_cov[index] = registration_pose_cov(fix, dets, robot.markers, reg)
     cell = min(math.sqrt(_area(d.corners_px)) / det.cells_across(d.marker_index)
                for d in dets)
     last.cell = cell

@@ -7,8 +7,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["estimate_readout", "CornerNoise", "estimate_corner_noise", "local_corner_noise",
-           "LOCAL_NOISE_HALF_WINDOW"]
+__all__ = ["estimate_readout", "readout_terms", "readout_block_sigma", "CornerNoise",
+           "estimate_corner_noise", "local_corner_noise", "LOCAL_NOISE_HALF_WINDOW"]
 
 LOCAL_NOISE_HALF_WINDOW = 15
 """Fits on each side pooled for the local corner noise: with one marker (5 degrees of
@@ -22,6 +22,39 @@ MIN_NOISE_PAIRS = 20
 """Pairs of consecutive detections needed before the split of the corner noise into a
 frame-to-frame persistent and a fresh part is trusted; with fewer, all of it is taken as
 persistent (the cautious side: the smoother cannot average it away)."""
+
+
+def readout_terms(fixes, corner_frac, vx, vy, omega, *, min_speed_mps=0.05):
+    """Each moving frame's share of the readout regression of :func:`estimate_readout`.
+
+    Returns
+    -------
+    num, den : ndarray (K,)
+        Per frame used, in order: the weighted products of predicted shear and residual
+        (num) and of the shear with itself (den); the estimate is ``sum num / sum den``.
+    """
+    num, den = [], []
+    for f, cf, u, v, w in zip(fixes, corner_frac, vx, vy, omega, strict=True):
+        if f.floor_m is None or not np.isfinite(u) or math.hypot(u, v) < min_speed_mps:
+            continue
+        rel = f.floor_m - (f.x_m, f.y_m)
+        vel = np.column_stack([u - w * rel[:, 1], v + w * rel[:, 0]])
+        g = vel * (cf - cf.mean())[:, None]
+        A, W = f.jac, f.weight
+        info = np.einsum("nji,njk,nkl->il", A, W, A)
+        try:
+            inv = np.linalg.inv(info)
+        except np.linalg.LinAlgError:
+            continue
+
+        def perp(vec, A=A, W=W, inv=inv):
+            coef = inv @ np.einsum("nji,njk,nk->i", A, W, vec)
+            return vec - np.einsum("nij,j->ni", A, coef)
+
+        gp, dp = perp(g), perp(f.resid_m)
+        num.append(float(np.einsum("ni,nij,nj->", gp, W, dp)))
+        den.append(float(np.einsum("ni,nij,nj->", gp, W, gp)))
+    return np.array(num), np.array(den)
 
 
 def estimate_readout(fixes, corner_frac, vx, vy, omega, sigma_px, *, min_speed_mps=0.05):
@@ -48,33 +81,48 @@ def estimate_readout(fixes, corner_frac, vx, vy, omega, sigma_px, *, min_speed_m
     -------
     tuple of float
         ``(readout_s, sigma_s, frames_used)``; NaN when no frame moved enough.
+        ``sigma_s`` is the regression's own, for independent corner noise; see
+        :func:`readout_block_sigma` for one that is not.
     """
-    num = den = 0.0
-    used = 0
-    for f, cf, u, v, w in zip(fixes, corner_frac, vx, vy, omega, strict=True):
-        if f.floor_m is None or not np.isfinite(u) or math.hypot(u, v) < min_speed_mps:
-            continue
-        rel = f.floor_m - (f.x_m, f.y_m)
-        vel = np.column_stack([u - w * rel[:, 1], v + w * rel[:, 0]])
-        g = vel * (cf - cf.mean())[:, None]
-        A, W = f.jac, f.weight
-        info = np.einsum("nji,njk,nkl->il", A, W, A)
-        try:
-            inv = np.linalg.inv(info)
-        except np.linalg.LinAlgError:
-            continue
+    num, den = readout_terms(fixes, corner_frac, vx, vy, omega, min_speed_mps=min_speed_mps)
+    total = float(den.sum())
+    if total <= 0:
+        return float("nan"), float("nan"), len(den)
+    return float(num.sum()) / total, sigma_px / math.sqrt(total), len(den)
 
-        def perp(vec, A=A, W=W, inv=inv):
-            coef = inv @ np.einsum("nji,njk,nk->i", A, W, vec)
-            return vec - np.einsum("nij,j->ni", A, coef)
 
-        gp, dp = perp(g), perp(f.resid_m)
-        num += float(np.einsum("ni,nij,nj->", gp, W, dp))
-        den += float(np.einsum("ni,nij,nj->", gp, W, gp))
-        used += 1
-    if den <= 0:
-        return float("nan"), float("nan"), used
-    return num / den, sigma_px / math.sqrt(den), used
+READOUT_BLOCKS = 10
+"""Blocks of consecutive moving frames for :func:`readout_block_sigma`."""
+
+
+def readout_block_sigma(num, den, blocks=READOUT_BLOCKS):
+    """1-sigma of the readout estimate from its spread over blocks of frames [s].
+
+    The regression's own sigma assumes the corner noise independent from frame to
+    frame and the shear model exact. Neither need hold: the noise persists between
+    frames, and whatever else shears the marker (an inexact lens, blur) is taken for
+    readout. The delete-a-block jackknife (Kunsch, Annals of Statistics 17(3):1217,
+    1989) measures the estimate's spread over blocks of consecutive frames, which holds
+    both: ``(B - 1) / B * sum_b (r_(-b) - mean)^2``, ``r_(-b)`` the estimate without
+    block b.
+
+    Returns
+    -------
+    float
+        NaN with fewer than 2 frames per block or a block-less estimate undefined.
+    """
+    num, den = np.asarray(num, float), np.asarray(den, float)
+    b = int(blocks)
+    if b < 2 or len(num) < 2 * b:
+        return float("nan")
+    edges = np.linspace(0, len(num), b + 1).astype(int)
+    n_b = np.add.reduceat(num, edges[:-1])
+    d_b = np.add.reduceat(den, edges[:-1])
+    rest = d_b.sum() - d_b
+    if np.any(rest <= 0):
+        return float("nan")
+    loo = (n_b.sum() - n_b) / rest
+    return float(math.sqrt((b - 1) / b * np.sum((loo - loo.mean()) ** 2)))
 
 
 @dataclass(frozen=True)

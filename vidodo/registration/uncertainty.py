@@ -1,0 +1,165 @@
+"""How far a registration's own parameter error moves a floor point mapped through it.
+
+A camera fit (:func:`~vidodo.registration.camera_fit.fit_camera`) gives the covariance
+``C`` of its parameters (pose, and the freed lens terms). A pixel mapped to the floor
+through the fitted model moves with the parameters; to first order its floor
+covariance is ``J C J^T``, ``J`` the derivative of the floor point with respect to the
+parameters (the linear propagation of covariance: JCGM 100:2008, *Guide to the
+expression of uncertainty in measurement*, section 5.1.2; Hartley & Zisserman,
+*Multiple View Geometry*, 2nd ed., section 5.2.1). ``J`` is taken by central
+differences of :meth:`FrameRegistration.image_to_floor`, so the rolling-shutter rows
+and the raised plane of a marker are mapped exactly as the tracker maps them.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import replace
+
+import numpy as np
+
+__all__ = ["pose_covariance", "cluster_covariance", "floor_point_covariance", "PARAM_STEP"]
+
+PARAM_STEP = {"rvec": 1e-5, "tvec": 1e-5, "focal": 1e-5, "k1": 1e-5, "k2": 1e-5}
+"""Central-difference step per parameter kind [rad, m, log focal, -, -]: small against
+any parameter's 1-sigma of interest, large against float64 rounding of the mapping."""
+
+
+def _expand(names):
+    """Parameter names one per entry: 'rvec' and 'tvec' stand for three each."""
+    out = []
+    for n in names:
+        out += [(n, k) for k in range(3)] if n in ("rvec", "tvec") else [(n, 0)]
+    return out
+
+
+def _moved(reg, name, k, step):
+    """``reg`` with one parameter moved by ``step``."""
+    if name in ("rvec", "tvec"):
+        v = np.asarray(getattr(reg, name), float).copy()
+        v[k] += step
+        return replace(reg, **{name: v})
+    if name == "focal":
+        cam = np.asarray(reg.camera_matrix, float).copy()
+        cam[0, 0] *= math.exp(step)
+        cam[1, 1] *= math.exp(step)
+        return replace(reg, camera_matrix=cam)
+    dist = np.asarray(reg.dist_coeffs, float).ravel().copy()
+    dist[0 if name == "k1" else 1] += step
+    return replace(reg, dist_coeffs=dist)
+
+
+def pose_covariance(jac, res, n_params):
+    """Least-squares parameter covariance ``s^2 (J^T J)^-1``, ``s^2 = r^T r / (n - p)``.
+
+    The covariance of a Gauss-Newton fit with the residual variance estimated from the
+    fit itself (common practice; e.g. Draper & Smith, *Applied Regression Analysis*,
+    3rd ed., section 2.6 for the linear case).
+
+    Parameters
+    ----------
+    jac : ndarray (n, p)
+        Derivative of the residuals with respect to the parameters.
+    res : ndarray (n,)
+        Residuals at the solution.
+    n_params : int
+        Parameters fitted (p).
+
+    Returns
+    -------
+    ndarray (p, p) or None
+        None when ``J^T J`` is singular or there is no residual degree of freedom.
+    """
+    jac = np.asarray(jac, float)
+    res = np.asarray(res, float).ravel()
+    dof = len(res) - int(n_params)
+    if dof <= 0:
+        return None
+    try:
+        return np.linalg.inv(jac.T @ jac) * (float(res @ res) / dof)
+    except np.linalg.LinAlgError:
+        return None
+
+
+def cluster_covariance(jac, res, groups, n_params):
+    """Parameter covariance when residuals within a group share an error.
+
+    Samples along one tile seam share that seam's error (its found position is offset
+    the same way along its length), so they are not independent and ``s^2 (J^T J)^-1``
+    counts each seam as hundreds of independent measurements. The cluster-robust
+    ("sandwich") covariance ``B M B`` with ``B = (J^T J)^-1`` and
+    ``M = sum_g (J_g^T r_g)(J_g^T r_g)^T`` over the groups g allows any correlation
+    within a group (Liang & Zeger, Biometrika 73(1):13, 1986), scaled by
+    ``G / (G - 1)`` for few groups (Cameron & Miller, J. Human Resources 50(2):317,
+    2015, section II.C). It is never taken below the independent one.
+
+    Parameters
+    ----------
+    jac : ndarray (n, p)
+    res : ndarray (n,)
+    groups : ndarray (n,) of int
+        Group of each residual.
+    n_params : int
+
+    Returns
+    -------
+    ndarray (p, p) or None
+        As :func:`pose_covariance` when there are at most ``p`` groups.
+    """
+    iid = pose_covariance(jac, res, n_params)
+    groups = np.asarray(groups).ravel()
+    uniq, inv = np.unique(groups, return_inverse=True)
+    g = len(uniq)
+    if iid is None or g <= int(n_params):
+        return iid
+    jac = np.asarray(jac, float)
+    score = np.zeros((g, jac.shape[1]))
+    np.add.at(score, inv, jac * np.asarray(res, float).ravel()[:, None])
+    bread = np.linalg.inv(jac.T @ jac)
+    sandwich = bread @ (score.T @ score) @ bread * (g / (g - 1.0))
+    # the larger of the two in every direction: the sandwich where it is larger, else iid
+    return sandwich if np.all(np.linalg.eigvalsh(sandwich - iid) >= 0) else \
+        _larger(iid, sandwich)
+
+
+def _larger(a, b):
+    """The covariance that is at least ``a`` and ``b`` in every direction along the
+    eigenvectors of ``a^-1 b`` (simultaneous diagonalisation, each factor the larger)."""
+    la = np.linalg.cholesky(a)
+    li = np.linalg.inv(la)
+    w, v = np.linalg.eigh(li @ b @ li.T)
+    return la @ v @ np.diag(np.maximum(w, 1.0)) @ v.T @ la.T
+
+
+def floor_point_covariance(reg, points_px, height_m=0.0):
+    """Floor covariance of pixels mapped through ``reg`` from its parameter covariance.
+
+    Parameters
+    ----------
+    reg : FrameRegistration
+        With ``param_cov`` (P, P) over ``param_names`` (see
+        :attr:`FrameRegistration.param_names`).
+    points_px : array_like (N, 2)
+        Distorted pixels [px].
+    height_m : float
+        Height of the plane the pixels are mapped onto [m].
+
+    Returns
+    -------
+    cov : ndarray (N, 2, 2)
+        Covariance of each floor point [m^2]; zeros when ``reg`` has no covariance.
+    jac : ndarray (N, 2, P)
+        Derivative of each floor point with respect to the parameters [m per unit].
+    """
+    pts = np.asarray(points_px, float).reshape(-1, 2)
+    cov = getattr(reg, "param_cov", None)
+    names = _expand(getattr(reg, "param_names", ()))
+    if cov is None or not names or len(names) != np.shape(cov)[0]:
+        return np.zeros((len(pts), 2, 2)), np.zeros((len(pts), 2, 0))
+    jac = np.empty((len(pts), 2, len(names)))
+    for j, (name, k) in enumerate(names):
+        h = PARAM_STEP[name]
+        plus = _moved(reg, name, k, h).image_to_floor(pts, height_m)
+        minus = _moved(reg, name, k, -h).image_to_floor(pts, height_m)
+        jac[:, :, j] = (plus - minus) / (2.0 * h)
+    return np.einsum("nip,pq,njq->nij", jac, np.asarray(cov, float), jac), jac
