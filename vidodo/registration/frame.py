@@ -112,7 +112,9 @@ class FrameRegistration:
     """Error of the mapping at an image point it was not fitted to, measured by the
     self-check on clicked points left out one at a time: the RMS held-out residual less
     the fit's own residual (in quadrature) [px]; 0 when not measured. It holds the lens
-    and pose error that the fit's residuals alone do not show."""
+    and pose error that the fit's residuals alone do not show. For a fit refined on the
+    tile seams (which did not use the clicks): the clicks' RMS residual against it less
+    the click noise (from the points-only fit's residuals)."""
     param_cov: np.ndarray | None = None
     """Covariance of the fitted parameters ``param_names`` (the fit's own, from its
     residuals), ndarray (P, P); None when not known (see
