@@ -180,6 +180,8 @@ def main(argv=None):
                         except VidodoError as exc:
                             print(f"{label}: refused/failed: {exc}", flush=True)
                             continue
+                        r["case"] = (f"{name}, {path}, "
+                                     f"{'lens profile' if lens else 'no lens profile'}")
                         rows.append(r)
                         print(f"{label} ({r['method']}, {r['samples']} samples, "
                               f"{r['wall_s']:.0f} s): error RMS {r['rms_mm']:.2f} mm, p95 "
@@ -188,9 +190,22 @@ def main(argv=None):
                               f"heading {100 * r['cover_heading']:.1f} % (target 90-98 %)",
                               flush=True)
     if rows:
-        print(f"\nposition coverage over {len(rows)} cases: "
-              f"{100 * min(r['cover_xy'] for r in rows):.1f}-"
-              f"{100 * max(r['cover_xy'] for r in rows):.1f} %")
+        print_summary(rows)
+
+
+def print_summary(rows):
+    """Per case over the seeds: coverage mean, spread (SD) and range; median sigma; RMS."""
+    print("\nper case over seeds: within 2 sigma, mean +- SD (min-max) [%]; median sigma, "
+          "error RMS [mm]")
+    df = pd.DataFrame(rows)
+    for case, g in df.groupby("case", sort=False):
+        pos, head = 100 * g["cover_xy"], 100 * g["cover_heading"]
+        print(f"{case} ({len(g)} seeds): position {pos.mean():.0f} +- {pos.std(ddof=0):.0f} "
+              f"({pos.min():.0f}-{pos.max():.0f}), heading {head.mean():.0f} +- "
+              f"{head.std(ddof=0):.0f} ({head.min():.0f}-{head.max():.0f}); sigma "
+              f"{g['sigma_mm'].median():.2f}, error RMS {g['rms_mm'].median():.2f}")
+    print(f"position coverage over {len(rows)} runs: {100 * df['cover_xy'].min():.1f}-"
+          f"{100 * df['cover_xy'].max():.1f} %")
 
 
 if __name__ == "__main__":

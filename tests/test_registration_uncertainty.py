@@ -21,7 +21,7 @@ from vidodo.registration.uncertainty import (
 from vidodo.tracking.detector import Detection
 from vidodo.tracking.noise import readout_block_sigma
 from vidodo.tracking.pose_fit import fit_pose
-from vidodo.tracking.registration_error import registration_pose_cov
+from vidodo.tracking.registration_error import registration_pose_cov, view_rate
 
 K = np.array([[900.0, 0, 639.5], [0, 900.0, 359.5], [0, 0, 1]])
 TAG = Marker(family="DICT_4X4_50", id=3, size_m=0.15, x_m=0.0, y_m=0.0, z_m=0.2,
@@ -212,3 +212,18 @@ def test_readout_block_sigma_matches_monte_carlo():
     assert np.sqrt(np.mean(np.square(jack))) == pytest.approx(np.std(est), rel=0.2)
     assert 0.01 / math.sqrt(n) < 0.5 * np.std(est)
     assert math.isnan(readout_block_sigma(np.ones(5), np.ones(5)))
+
+
+def test_view_rate_of_a_gliding_camera():
+    """A camera looking straight down, gliding along floor x at 0.3 m/s: the floor point
+    under any pixel moves at 0.3 m/s along x (closed form: the ray moves with the camera);
+    a still camera (the same registration) gives zero."""
+    a = _nadir()
+    # camera frame x = floor x for this nadir camera, and tvec = -R c: moving the centre
+    # by +dx moves tvec_x by -dx
+    b = FrameRegistration(0.1, True, K, np.zeros(5), a.rvec, a.tvec - (0.03, 0, 0), 0, 0, 0,
+                          "")
+    rate = view_rate(b, (a, 0.0), 0.1, (200.0, 600.0), 0.2)
+    assert rate == pytest.approx([0.3, 0.0], abs=1e-9)
+    assert view_rate(a, (a, 0.0), 0.1, (200.0, 600.0), 0.2) == pytest.approx([0, 0])
+    assert view_rate(b, (a, -1.0), 0.1, (200.0, 600.0), 0.2) == pytest.approx([0, 0])

@@ -11,7 +11,7 @@ the warnings.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import cv2
 import numpy as np
@@ -165,7 +165,8 @@ def finish_track(records, robot, field_profile, settings=None, *, readout_source
     if readout.refit:
         first = _smooth_run(run, t[idx] + frac * readout.readout_s, noise_parts, noise)
     out, interpolated, fits = first
-    _add_timing_sigma(out, np.interp(np.arange(n), idx, frac), readout_sigma_s(readout))
+    _add_timing_sigma(out, np.interp(np.arange(n), idx, frac), readout_sigma_s(readout),
+                      _view_timing(acc, idx, n, frac, readout))
     gaps = _long_gaps(run.segs, t, n)
     # Heading continuous across long gaps: keep each segment's unwrapped value.
     out["speed_mps"] = np.hypot(out["vx_mps"], out["vy_mps"])
@@ -346,15 +347,41 @@ def readout_sigma_s(readout) -> float:
     return prior
 
 
-def _add_timing_sigma(out, frac, sigma_readout_s):
+def _view_timing(acc, idx, n, frac, readout):
+    """Per frame, the floor displacement per second of readout error from the camera's
+    own motion [m/s], (n, 2).
+
+    A registration of a moving camera without a known readout (none in the camera
+    profile: the registrar then fits one pose per frame, for the instant the floor
+    corners it used were read, about mid-frame) places a marker read a fraction ``f`` of
+    the readout after the frame start with the floor as it was ``(f - 1/2)`` readouts
+    earlier: off by the view's rate (``registration_error.view_rate``) times that. The
+    readout's uncertainty is the unknown one's (:func:`readout_sigma_s` for none known)
+    whether or not the track was retimed by an estimate: the registration was not.
+    """
+    if readout.source not in ("none", "estimated"):
+        return np.zeros((n, 2))
+    rate = np.array([acc.view_rate.get(int(i), np.zeros(2)) for i in idx]).reshape(-1, 2)
+    lever = (frac - 0.5)[:, None] * rate
+    sigma = readout_sigma_s(replace(readout, source="none"))
+    return np.column_stack([np.interp(np.arange(n), idx, lever[:, k]) * sigma
+                            for k in (0, 1)])
+
+
+def _add_timing_sigma(out, frac, sigma_readout_s, view=None):
     """Add to the 1-sigma the timing error of each sample: read a fraction ``frac`` of
     the readout after the frame time, a readout off by ``sigma_readout_s`` moves the
-    position by speed x frac x that, the heading by turn rate x frac x that."""
-    if not sigma_readout_s > 0:
+    position by velocity x frac x that, the heading by turn rate x frac x that; plus
+    ``view`` (n, 2) [m], the camera's own motion over its readout error (see
+    :func:`_view_timing`; in quadrature: the two readout errors differ when the track
+    was retimed by an estimate and the registration was not)."""
+    view = np.zeros((len(frac), 2)) if view is None else np.nan_to_num(view)
+    if not sigma_readout_s > 0 and not np.any(view):
         return
     dt = np.nan_to_num(frac) * sigma_readout_s
     speed = np.hypot(out["vx_mps"], out["vy_mps"])
-    out["sigma_xy_m"] = np.hypot(out["sigma_xy_m"], speed * dt)
+    out["sigma_xy_m"] = np.sqrt(out["sigma_xy_m"] ** 2 + np.nan_to_num(speed * dt) ** 2
+                                + np.sum(view ** 2, axis=1))
     out["sigma_heading_rad"] = np.hypot(out["sigma_heading_rad"],
                                         np.abs(out["omega_radps"]) * dt)
 

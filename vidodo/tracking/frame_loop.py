@@ -17,7 +17,7 @@ from ..timings import StageTimes
 from ..video import readout_fraction
 from .detector import MarkerDetector, _area
 from .pose_fit import PoseFix, fit_pose
-from .registration_error import registration_pose_cov
+from .registration_error import registration_pose_cov, view_rate
 from .registration_policy import RegistrationPolicy
 from .settings import TrackSettings
 
@@ -65,6 +65,9 @@ class FrameRecords:
     corner_frac: dict = field(default_factory=dict)  # frame index -> (N,) fractions
     reg_cov: dict = field(default_factory=dict)  # frame index -> (3, 3) pose covariance
     # from the registration's own error (registration_error.registration_pose_cov)
+    view_rate: dict = field(default_factory=dict)  # frame index -> (2,) [m/s]: how fast
+    # the floor point under the marker's pixel moves with the camera (0 when still)
+    last_reg: tuple = (None, math.nan)  # the registration of the previous frame, its time
     predicted_cells: list = field(default_factory=list)
     times: StageTimes = field(default_factory=StageTimes)
 
@@ -196,6 +199,7 @@ def _track_into(acc, frames, robot, field_profile, registrar, settings, video_in
         elif reg is not None:
             fix, frac, cell, nm = _frame_fix(acc, frame, index, t_s, reg, robot, settings,
                                              video_info, last)
+        acc.last_reg = (reg, float(t_s))
         acc.fix.append(fix)
         acc.frac.append(frac)
         acc.cell.append(cell)
@@ -287,6 +291,8 @@ def _frame_fix(acc, frame, index, t_s, reg, robot, settings, video_info, last):
     frac = float(np.mean(cfrac))
     acc.corner_frac[index] = np.asarray(cfrac, float)
     acc.reg_cov[index] = registration_pose_cov(fix, dets, robot.markers, reg)
+    acc.view_rate[index] = view_rate(reg, acc.last_reg, t_s, allc.mean(axis=0),
+                                     robot.markers[dets[0].marker_index].z_m)
     cell = min(math.sqrt(_area(d.corners_px)) / det.cells_across(d.marker_index)
                for d in dets)
     last.cell = cell

@@ -18,7 +18,10 @@ import numpy as np
 
 from ..registration.uncertainty import floor_point_covariance
 
-__all__ = ["registration_pose_cov"]
+__all__ = ["registration_pose_cov", "view_rate", "VIEW_RATE_MAX_DT_S"]
+
+VIEW_RATE_MAX_DT_S = 0.2
+"""Longest step between two registrations differenced for :func:`view_rate` [s]."""
 
 
 def _gain_cov(fix, corners, heights, reg):
@@ -67,3 +70,35 @@ def registration_pose_cov(fix, detections, markers, reg):
                 for a, b, z in zip(at[:-1], at[1:], heights, strict=True)]
         out = out + float(reg.tied_share) * _gain_cov(fix, seen, heights, tied)
     return out
+
+
+def view_rate(reg, previous, t_s, pixel_px, height_m):
+    """How fast the floor point seen at one pixel moves with the camera [m/s], (2,).
+
+    The pixel mapped through this frame's registration and the previous frame's, the
+    difference over their time step: zero for a still camera (the same registration).
+    A hand-held camera's registration holds for one instant of the frame; a marker read
+    earlier or later in the rolling-shutter readout sees the floor moved by this rate
+    times the time between (see ``finish._add_timing_sigma``).
+
+    Parameters
+    ----------
+    reg : FrameRegistration
+    previous : (FrameRegistration or None, float)
+        The previous frame's registration and its time [s].
+    t_s : float
+    pixel_px : array_like (2,)
+    height_m : float
+
+    Returns
+    -------
+    ndarray (2,)
+        Zeros without a previous registration within :data:`VIEW_RATE_MAX_DT_S`.
+    """
+    prev, t_prev = previous
+    dt = float(t_s) - float(t_prev)
+    if prev is None or prev is reg or not 0 < dt <= VIEW_RATE_MAX_DT_S:
+        return np.zeros(2)
+    px = np.asarray(pixel_px, float).reshape(1, 2)
+    move = (reg.image_to_floor(px, height_m) - prev.image_to_floor(px, height_m))[0] / dt
+    return move if np.all(np.isfinite(move)) else np.zeros(2)
