@@ -72,6 +72,9 @@ ANCHOR_MIN_SAMPLES = 40
 #: Moving frames right after the reference that are all used for seam fits (the mean of
 #: the floor positions is least certain then); later ones every ``anchor_every_s``.
 ANCHOR_EAGER = 6
+#: Anchors whose disagreement with the tracked pose makes a tracked frame's prediction
+#: error (about 2 s at one anchor every 0.25 s): recent, as tracked corners drift.
+ANCHOR_GAPS_KEPT = 8
 #: Frames whose one-pose fits give the rolling-shutter rate, and their time span [s].
 #: Two (this frame and the last): a line through more frames is less noisy but lags,
 #: and on the rendered hand-held runs the lag cost more than the noise.
@@ -179,6 +182,7 @@ class FloorRegistrar:
         self._anchor_sum = self._anchor_n = None
         self._anchor_t = -math.inf
         self._anchor_tries = 0
+        self._anchor_gaps = []  # tracked vs seam-fit disagreement of recent anchors [px]
         self._retry = None  # (t_s, reason) of the next reference attempt after a failure
         self._rate = None  # (rvec_rate, tvec_rate) of the last moving frame
         self._global_prev = None  # (t_s, rvec, tvec) one-pose fit of the last frame
@@ -503,8 +507,10 @@ class FloorRegistrar:
         seam_reg = replace(reg, rvec=fit.rvec, tvec=fit.tvec)
         px = reg.floor_to_image(self._floor_ref)
         shift = seam_reg.floor_to_image(self._floor_ref) - px
-        if not np.sqrt(np.nanmean(np.sum(shift ** 2, axis=1))) <= self.max_rms_px:
+        gap_px = float(np.sqrt(np.nanmean(np.sum(shift ** 2, axis=1))))
+        if not gap_px <= self.max_rms_px:
             return
+        self._anchor_gaps = (self._anchor_gaps + [gap_px])[-ANCHOR_GAPS_KEPT:]
         moved = seam_reg.image_to_floor(px)
         ok = np.all(np.isfinite(moved), axis=1)
         self._anchor_sum[ok] += moved[ok]
@@ -656,7 +662,14 @@ class FloorRegistrar:
         the variance of the mean of n falls as 1 / n; n averaged over the corners)."""
         n = self._anchor_n[np.all(np.isfinite(self._floor_ref), axis=1)]
         share = 1.0 / max(float(n.mean()), 1.0) if n.size else 1.0
-        return replace(reg, tied_to=self.reference, tied_share=share)
+        # The tracked pose against the seam fits of recent frames (evidence it was not
+        # fitted to): their RMS disagreement holds what the tracked corners share and
+        # the fit's residuals cannot show (corners drifting together, floor positions
+        # off), and the seam fit's own error.
+        gaps = np.asarray(self._anchor_gaps, float)
+        pred = float(np.sqrt(np.mean(gaps ** 2))) if gaps.size else 0.0
+        return replace(reg, tied_to=self.reference, tied_share=share,
+                       prediction_px=max(reg.prediction_px, pred))
 
 
 _POOL: list = []
