@@ -30,9 +30,11 @@ class TrackResult:
     estimated from the rigid fits' residuals, over the run by
     :func:`estimate_corner_noise` and around each frame by :func:`local_corner_noise`,
     and scaled per signal by the smoother's innovation likelihood), an optional common
-    shift of all corners (``corner_bias_px`` per axis) and the registration's
-    prediction error, carried to the floor at the marker's image scale;
-    ``sigma_heading_rad`` likewise from the fresh and persistent corner noise)."""
+    shift of all corners (``corner_bias_px`` per axis), the registration's own error
+    (its parameter covariance carried through the pose fit, or where larger its
+    prediction error at evidence it did not use, at the marker's image scale) and the
+    readout's timing error; ``sigma_heading_rad`` likewise from the fresh and
+    persistent corner noise, the registration's covariance and the turn rate)."""
     quality: dict
     """Frames, detection fraction, marker cell size [px], gaps, dropped/duplicated
     frames, registration statistics, readout time [s], corner noise [px]."""
