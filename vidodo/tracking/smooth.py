@@ -64,6 +64,13 @@ BREAK_FLAG = 3.0
 BREAK_TRIAL_COLUMNS = 256
 """Trial breaks filtered side by side in one batch (bounds the memory of long runs)."""
 
+BREAK_REJOIN_TOL = 1e-6
+"""A trial break's filter stops once its state equals the baseline filter's to this
+fraction of the baseline's 1-sigma (mean) and of its variances (covariance): both
+filters then see the same data from the same state, so the rest of the run changes the
+likelihood difference by a negligible amount (about this fraction of a nat per
+innovation, and falling as the filters forget)."""
+
 
 @dataclass(frozen=True)
 class SmoothSettings:
@@ -135,7 +142,7 @@ def _transition(dt, q):
 
 
 def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
-         jump=None):
+         jump=None, filtered=False):
     """Filter (and smooth) B parallel models over one event sequence.
 
     Parameters
@@ -154,12 +161,20 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
         the priors', the position variance by the prior rate's over the step between
         the measurements around it.
 
+    filtered : bool
+        Return the forward filter's states after each event (and its log-likelihood
+        per event) in place of the smoothed ones (the break search's baseline).
+
     Returns
     -------
     loglik : ndarray (B,)
+        Log-likelihood [nats]; per event, (T, B), when ``filtered``.
     nis : ndarray (B,)
         Sum of the normalised innovations squared.
-    xs, Ps : ndarray (T, B, 3), (T, B, 3, 3) when ``smooth``
+    nu : ndarray (T, B)
+        Normalised innovations (NaN where no measurement).
+    xs, Ps : ndarray (T, B, 3), (T, B, 3, 3)
+        Smoothed (``smooth``) or filtered (``filtered``) states; None otherwise.
     """
     T = t.size
     B = q.size
@@ -173,7 +188,9 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
     loglik = np.zeros(B)
     nis = np.zeros(B)
     nu = np.full((T, B), np.nan)  # normalised innovations y / sqrt(S)
-    if smooth:
+    ll_k = np.zeros((T, B)) if filtered else None
+    keep = smooth or filtered
+    if keep:
         xf = np.empty((T, B, 3))
         Pf = np.empty((T, B, 3, 3))
         xp_all = np.empty((T, B, 3))
@@ -185,13 +202,7 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
         pos_var = (prior_rate * _break_step(t, is_meas)) ** 2
     for k in range(T):
         if jump is not None and jump[k].any():
-            # a restart at the start of the step: position, rate and acceleration
-            # released (the position by what the prior rate covers over the step), so
-            # the two sides are tied only through the priors
-            P = P.copy()
-            P[:, 0, 0] += jump[k] * pos_var[k]
-            P[:, 1, 1] += jump[k] * prior_rate**2
-            P[:, 2, 2] += jump[k] * prior_accel**2
+            P = _release(P, jump[k], pos_var[k], prior_rate, prior_accel)
         if dts[k] > 0:
             F = F_all[k]
             x = x @ F.T
@@ -201,19 +212,16 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
             Pp_all[k] = P
             Fs[k] = F_all[k]
         if is_meas[k]:
-            r = var_z[k] * r_scale
-            S = P[:, 0, 0] + r
-            y = z[k] - x[:, 0]
-            K = P[:, :, 0] / S[:, None]
-            x = x + K * y[:, None]
-            P = P - K[:, :, None] * P[:, 0, :][:, None, :]
-            P = 0.5 * (P + P.transpose(0, 2, 1))
-            loglik -= 0.5 * (np.log(2 * np.pi * S) + y * y / S)
-            nis += y * y / S
-            nu[k] = y / np.sqrt(S)
-        if smooth:
+            x, P, ll, nu[k] = _update(x, P, z[k], var_z[k] * r_scale)
+            loglik += ll
+            nis += nu[k] ** 2
+            if filtered:
+                ll_k[k] = ll
+        if keep:
             xf[k] = x
             Pf[k] = P
+    if filtered:
+        return ll_k, nis, nu, xf, Pf
     if not smooth:
         return loglik, nis, nu, None, None
     xs = np.empty_like(xf)
@@ -228,6 +236,31 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
         xs[k] = xf[k] + np.einsum("bij,bj->bi", C, xs[k + 1] - xp_all[k + 1])
         Ps[k] = Pf[k] + C @ (Ps[k + 1] - Ppn) @ C.transpose(0, 2, 1)
     return loglik, nis, nu, xs, Ps
+
+
+def _release(P, jump, pos_var, prior_rate, prior_accel):
+    """Covariances (B, 3, 3) after a restart where ``jump`` (B,) is True: position, rate
+    and acceleration released (the position by what the prior rate covers over the
+    step, ``pos_var``), so the two sides are tied only through the priors."""
+    P = P.copy()
+    P[:, 0, 0] += jump * pos_var
+    P[:, 1, 1] += jump * prior_rate**2
+    P[:, 2, 2] += jump * prior_accel**2
+    return P
+
+
+def _update(x, P, z, r):
+    """Kalman update of B states (B, 3), (B, 3, 3) by a measurement of the value.
+
+    Returns the updated state and covariance, the log-likelihood of the measurement
+    [nats] and its normalised innovation y / sqrt(S), each (B,)."""
+    S = P[:, 0, 0] + r
+    y = z - x[:, 0]
+    K = P[:, :, 0] / S[:, None]
+    x = x + K * y[:, None]
+    P = P - K[:, :, None] * P[:, 0, :][:, None, :]
+    P = 0.5 * (P + P.transpose(0, 2, 1))
+    return x, P, -0.5 * (np.log(2 * np.pi * S) + y * y / S), y / np.sqrt(S)
 
 
 def _break_step(t, is_meas):
@@ -432,13 +465,13 @@ def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0):
     m, n_sig = z.shape
     ones = np.ones(m, bool)
     w = BREAK_WINDOW
+    model = (q, r_scale, prior_rate, prior_accel)
     jump = np.zeros((m, n_sig), bool)
-    ll, _, nu, _, _ = _run(t_s, z, var_z, ones, q, r_scale, prior_rate, prior_accel,
-                           smooth=False, jump=jump)
+    base = _run(t_s, z, var_z, ones, *model, smooth=False, jump=jump, filtered=True)
     for _round in range(BREAK_ROUNDS):
-        cols = []  # (signal, stretch, position)
+        cols = []  # (signal, stretch, positions)
         for s in range(n_sig):
-            u = np.nan_to_num(nu[:, s])
+            u = np.nan_to_num(base[2][:, s])
             score = np.abs(np.convolve(u, np.ones(w), "valid")) / np.sqrt(w)
             for n_run, i0 in enumerate(_flagged_starts(score > BREAK_FLAG)):
                 for pos in range(max(i0 - w, 1), min(i0 + 2 * w, m)):
@@ -450,8 +483,7 @@ def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0):
         if not cols:
             break
         gain = np.concatenate([
-            _trial_gain(t_s, z, var_z, jump, ll, cols[i:i + BREAK_TRIAL_COLUMNS],
-                        (q, r_scale, prior_rate, prior_accel))
+            _trial_gain(t_s, z, var_z, jump, base, cols[i:i + BREAK_TRIAL_COLUMNS], model)
             for i in range(0, len(cols), BREAK_TRIAL_COLUMNS)])
         best: dict = {}
         for c, gval in zip(cols, gain, strict=True):
@@ -462,25 +494,60 @@ def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0):
             break
         for (s, _n), (_g, pos) in best.items():
             jump[list(pos), s] = True
-        ll, _, nu, _, _ = _run(t_s, z, var_z, ones, q, r_scale, prior_rate, prior_accel,
-                               smooth=False, jump=jump)
+        base = _run(t_s, z, var_z, ones, *model, smooth=False, jump=jump, filtered=True)
     return jump
 
 
-def _trial_gain(t_s, z, var_z, jump, ll, cols, model):
+def _trial_gain(t_s, z, var_z, jump, base, cols, model):
     """Log-likelihood gain of each trial break in ``cols`` over the current ``jump``.
 
-    The trials run as parallel filters over the whole run, a batch of at most
-    :data:`BREAK_TRIAL_COLUMNS` at a time, so memory stays bounded on long runs.
+    A trial filter equals the baseline (``base``: :func:`_run` with ``filtered``) up to
+    the measurement before its first break, so each starts from the baseline's state
+    there and runs forward only until its state has rejoined the baseline's
+    (:func:`_rejoined`): from then on both filters see the same data from the same
+    state, and the rest of the run adds nothing to the difference. The gain is the
+    difference of the two log-likelihoods over that window. A batch holds at most
+    :data:`BREAK_TRIAL_COLUMNS` trials.
     """
     q, r_scale, prior_rate, prior_accel = model
+    ll_k, _, _, xf, Pf = base
+    m = t_s.size
     sig = np.array([c[0] for c in cols])
+    first = np.array([c[2][0] for c in cols])
+    last = np.array([c[2][-1] for c in cols])
     trial = jump[:, sig].copy()
     for col, c in enumerate(cols):
         trial[list(c[2]), col] = True
-    ll_c, _, _, _, _ = _run(t_s, z[:, sig], var_z[:, sig], np.ones(t_s.size, bool), q[sig],
-                            r_scale[sig], prior_rate, prior_accel, smooth=False, jump=trial)
-    return ll_c - ll[sig]
+    F_all, Q_all = _transition(np.diff(t_s, prepend=t_s[0]), np.ones(m))
+    pos_var = (prior_rate * _break_step(t_s, np.ones(m, bool))) ** 2
+    x, P = xf[first - 1, sig], Pf[first - 1, sig]
+    gain = np.zeros(sig.size)
+    k = first.copy()
+    live = np.arange(sig.size)  # trials still running
+    while live.size:
+        i, s = k[live], sig[live]
+        xl, Pl = x[live], _release(P[live], trial[i, live], pos_var[i], prior_rate,
+                                   prior_accel)
+        F = F_all[i]
+        xl = (F @ xl[:, :, None])[:, :, 0]
+        Pl = F @ Pl @ F.transpose(0, 2, 1) + q[s, None, None] * Q_all[i]
+        xl, Pl, ll, _ = _update(xl, Pl, z[i, s], var_z[i, s] * r_scale[s])
+        x[live], P[live] = xl, Pl
+        gain[live] += ll - ll_k[i, s]
+        done = (i + 1 >= m) | ((i >= last[live]) & _rejoined(xl, Pl, xf[i, s], Pf[i, s]))
+        k[live] += 1
+        live = live[~done]
+    return gain
+
+
+def _rejoined(x, P, xb, Pb, tol=BREAK_REJOIN_TOL):
+    """Whether trial states (B, 3), (B, 3, 3) equal the baseline's to ``tol``: every
+    mean component within ``tol`` of the baseline's 1-sigma, every covariance entry
+    within ``tol`` of sqrt(Pb_ii Pb_jj)."""
+    sd = np.sqrt(np.maximum(np.diagonal(Pb, axis1=1, axis2=2), 1e-300))
+    dx = np.abs(x - xb) / sd
+    dP = np.abs(P - Pb) / (sd[:, :, None] * sd[:, None, :])
+    return (dx.max(axis=1) < tol) & (dP.max(axis=(1, 2)) < tol)
 
 
 def _flagged_starts(flags):
