@@ -58,7 +58,7 @@ def whole_run_gain(t_s, z, var_z, jump, base, cols, model):
     sig = np.array([c[0] for c in cols])
     trial = jump[:, sig].copy()
     for col, c in enumerate(cols):
-        trial[list(c[2]), col] = True
+        trial[list(c[2]), col] = c[3]
     ll_c, _, _, _, _ = smooth._run(t_s, z[:, sig], var_z[:, sig], np.ones(t_s.size, bool),
                                    q[sig], r_scale[sig], prior_rate, prior_accel,
                                    smooth=False, jump=trial)

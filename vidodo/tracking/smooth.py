@@ -17,13 +17,18 @@ model rounds the stop off, overshoots and reads speed after the robot stood stil
 the model may *break* (:func:`find_breaks`): where the forward filter's normalised
 innovations drift to one side over a few samples (a manoeuvre, Bar-Shalom, Li &
 Kirubarajan 2001, sec. 11.2), the break instant is located by maximum likelihood over
-the nearby samples, and the model restarts there: position, rate and acceleration are
-released to the priors (a jump in the state, Willsky & Jones, IEEE TAC 21(1):108,
-1976), so the two sides are smoothed as separate runs. A change within a step cannot be
-placed inside it; times in the step get the mixture of both sides' estimates with its
-variance (:func:`_break_mixture`). A break is kept only if it raises the log-likelihood
-by more than :data:`BREAK_MIN_GAIN`, so a run without such events is smoothed exactly
-as before.
+the nearby samples, and the model breaks there (a jump in the state, Willsky & Jones,
+IEEE TAC 21(1):108, 1976). Two kinds are tried: a *restart* (a hit or a stall within
+one step: value, rate and acceleration released by what a change of up to twice the
+speed can do, so the two sides are smoothed nearly as separate runs) and an
+*acceleration change* (alone, or as a ramp: a pair of them, the start and end of a
+braking or a drive-off at constant acceleration, value and rate continuous). A change
+within a step cannot be placed inside it; times in the step get the mixture of both
+sides' estimates with its variance (:func:`_break_mixture`); where rival placements
+explain the data nearly as well, the estimate is their likelihood-weighted average
+(:func:`_average_rivals`). A break is kept only if it raises the log-likelihood by more
+than :data:`BREAK_MIN_GAIN`, so a run without such events is smoothed exactly as
+before.
 """
 
 from __future__ import annotations
@@ -51,15 +56,32 @@ Raftery (JASA 90:773, 1995)."""
 BREAK_WINDOW = 5
 """Samples over which the normalised innovations are summed to flag a manoeuvre."""
 
-BREAK_MAX_STEPS = 4
-"""Longest change tried as one break, in steps between samples (a stall from 1.5 m/s at
-15 m/s^2 takes 0.1 s: three frames at 30 fps, touching up to four steps)."""
+BREAK_RAMP_STEPS = 8
+"""Longest ramp tried as one pair of acceleration changes, in steps between samples
+(0.27 s at 30 fps: a stall from 1.5 m/s at 15 m/s^2 takes 0.1 s, a drive-off to
+0.8 m/s at 3 m/s^2 0.27 s)."""
+
+BREAK_RIVAL_NATS = 4.6
+"""Rival placements of a break within this many nats of the kept one's gain (posterior
+odds above 1 %) are averaged with it (:func:`_average_rivals`)."""
+
+BREAK_RIVAL_MARGIN = 30
+"""Measurements either side of a break over which its rival placements are smoothed
+(1 s at 30 fps, several times the filter's memory at the densities fitted to robot
+runs)."""
 
 BREAK_ROUNDS = 4
 """Rounds of the break search (each may add one break per flagged stretch)."""
 
 BREAK_FLAG = 3.0
 """A window sum of normalised innovations beyond this many sigma flags a candidate."""
+
+RESTART = 1
+"""Break kind: the whole state restarts (value, rate and acceleration released, see
+:func:`_release`): a hit or a stall within a step."""
+ACCEL_CHANGE = 2
+"""Break kind: only the acceleration is released (a jerk impulse): the start or end of
+a hard braking or a motor's ramp, where the path and the speed stay continuous."""
 
 BREAK_TRIAL_COLUMNS = 256
 """Trial breaks filtered side by side in one batch (bounds the memory of long runs)."""
@@ -86,8 +108,7 @@ class SmoothSettings:
     r_scale_grid: tuple = tuple(R_SCALE_GRID)
     """Measurement-variance factors tried."""
     prior_rate: float = 5.0
-    """1-sigma of the initial rate [unit/s]; also the rate variance released at a
-    model break."""
+    """1-sigma of the initial rate [unit/s]."""
     prior_accel: float = 20.0
     """1-sigma of the initial acceleration [unit/s^2]; also released at a break."""
     breaks: bool = True
@@ -155,11 +176,10 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
     is_meas : ndarray of bool (T,)
     q, r_scale : ndarray (B,)
         Model parameters of the B parallel filters.
-    jump : ndarray of bool (T, B), optional
-        Where True, the model restarts at the start of the step to that event (a model
-        break somewhere in the step): the rate and acceleration variances are raised by
-        the priors', the position variance by the prior rate's over the step between
-        the measurements around it.
+    jump : ndarray of int (T, B), optional
+        A model break at the start of the step to that event (somewhere in the step
+        between the measurements around it), :data:`RESTART` or
+        :data:`ACCEL_CHANGE` (see :func:`_release`); 0: none.
 
     filtered : bool
         Return the forward filter's states after each event (and its log-likelihood
@@ -199,10 +219,10 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
     dts = np.diff(t, prepend=t[0])
     F_all, Q_all = _transition(dts, np.ones(T))
     if jump is not None:
-        pos_var = (prior_rate * _break_step(t, is_meas)) ** 2
+        step = _break_step(t, is_meas)
     for k in range(T):
         if jump is not None and jump[k].any():
-            P = _release(P, jump[k], pos_var[k], prior_rate, prior_accel)
+            P = _release(x, P, jump[k], step[k], prior_accel)
         if dts[k] > 0:
             F = F_all[k]
             x = x @ F.T
@@ -238,14 +258,24 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
     return loglik, nis, nu, xs, Ps
 
 
-def _release(P, jump, pos_var, prior_rate, prior_accel):
-    """Covariances (B, 3, 3) after a restart where ``jump`` (B,) is True: position, rate
-    and acceleration released (the position by what the prior rate covers over the
-    step, ``pos_var``), so the two sides are tied only through the priors."""
+def _release(x, P, jump, step, prior_accel):
+    """Covariances (B, 3, 3) after the breaks ``jump`` (B,) (0: none) at the start of a
+    step of ``step`` seconds, for states ``x`` (B, 3).
+
+    A restart (a hit or a stall at an unknown instant in the step) changes the rate by
+    up to about twice its value (a stop, or a bounce back): the rate variance is raised
+    by (2 rate)^2 plus its own variance, the value's by that times the step squared
+    (where in the step the change came is unknown), the acceleration's by the prior's.
+    The two sides are then tied only loosely. An acceleration change (the ends of a
+    braking or a drive-off at constant acceleration) releases the acceleration alone:
+    value and rate stay continuous.
+    """
     P = P.copy()
-    P[:, 0, 0] += jump * pos_var
-    P[:, 1, 1] += jump * prior_rate**2
-    P[:, 2, 2] += jump * prior_accel**2
+    restart = jump == RESTART
+    dv_var = restart * (4.0 * x[:, 1] ** 2 + P[:, 1, 1])
+    P[:, 0, 0] += dv_var * step**2
+    P[:, 1, 1] += dv_var
+    P[:, 2, 2] += (jump > 0) * prior_accel**2
     return P
 
 
@@ -343,27 +373,22 @@ def rts_smooth_signals(t_meas_s, z, sigma_z, t_out_s, settings=SmoothSettings())
     priors = (prior_rate, prior_accel)
     tz = (t[meas], zz[meas], vv[meas])
     q_best, r_best = _grid_ml(tz, qs, rs, priors, None)
-    jump_m = np.zeros((tm.size, n_sig), bool)
+    jump_m = np.zeros((tm.size, n_sig), np.int8)
+    alts = []
     if cfg.breaks and tm.size > 4 * BREAK_WINDOW:
-        jump_m = find_breaks(*tz, q_best, r_best, prior_rate=prior_rate,
-                             prior_accel=prior_accel)
+        jump_m, alts = _search_breaks(*tz, (q_best, r_best, *priors))
         if jump_m.any():  # the rest of the run, freed from the events, may want less q
             q_best, r_best = _grid_ml(tz, qs, rs, priors, jump_m)
-            jump_m = find_breaks(*tz, q_best, r_best, prior_rate=prior_rate,
-                                 prior_accel=prior_accel)
-    # a break before measurement m is released right after measurement m - 1, so that
-    # output times between the two already see it
-    jump = np.zeros((t.size, n_sig), bool)
-    pos_m = np.flatnonzero(meas)
-    rows = np.flatnonzero(jump_m.any(axis=1))
-    for r in rows:
-        jump[pos_m[r - 1] + 1 if r > 0 else pos_m[r]] |= jump_m[r]
-    _, nis, nu, xs, Ps = _run(t, zz, vv, meas, q_best, r_best, prior_rate, prior_accel,
-                              smooth=True, jump=jump)
+            jump_m, alts = _search_breaks(*tz, (q_best, r_best, *priors))
+    ev = (t, zz, vv, meas)
+    _, nis, nu, xs, Ps = _run(t, zz, vv, meas, q_best, r_best, *priors, smooth=True,
+                              jump=_event_jumps(meas, jump_m))
     where = np.empty(order.size, dtype=int)
     where[order] = np.arange(order.size)
     out_pos = where[tm.size:]
     vr, vr_var = _break_mixture(t, meas, jump_m, xs, Ps, q_best)
+    for alt in alts:
+        _average_rivals(ev, jump_m, alt, (q_best, r_best, *priors), vr, vr_var)
     out = []
     for s in range(n_sig):
         x = xs[out_pos, s]
@@ -373,9 +398,68 @@ def rts_smooth_signals(t_meas_s, z, sigma_z, t_out_s, settings=SmoothSettings())
             sigma_rate=np.sqrt(vr_var[out_pos, s, 1]),
             q=float(q_best[s]), r_scale=float(r_best[s]), nis_mean=float(nis[s]) / tm.size,
             innovation_lag1=_lag1(nu[meas, s]),
-            breaks_s=tuple(float(v) for v in t[meas][jump_m[:, s]]),
+            breaks_s=tuple(float(v) for v in t[meas][jump_m[:, s] > 0]),
         ))
     return out
+
+
+def _event_jumps(meas, jump_m):
+    """Breaks per merged event (T, B) from breaks per measurement (M, B): a break before
+    measurement m is released right after measurement m - 1, so that output times
+    between the two already see it."""
+    jump = np.zeros((meas.size, jump_m.shape[1]), np.int8)
+    pos_m = np.flatnonzero(meas)
+    for r in np.flatnonzero(jump_m.any(axis=1)):
+        at = pos_m[r - 1] + 1 if r > 0 else pos_m[r]
+        jump[at] = np.maximum(jump[at], jump_m[r])
+    return jump
+
+
+def _average_rivals(ev, jump_m, alt, model, vr, vr_var):
+    """Average a kept break with its rivals, weighted by their likelihoods (in place).
+
+    Where the change lies (which step, one restart or a ramp) is itself uncertain
+    when rival placements explain the data nearly as well: the estimate near the break
+    is the average over the placements, each weighted by exp(gain) (their posterior
+    odds under equal prior odds, Hoeting et al., Statist. Sci. 14(4):382, 1999), with
+    the mixture's variance. Each placement is smoothed over :data:`BREAK_RIVAL_MARGIN`
+    measurements either side of the break only; its difference from the kept
+    placement over that stretch, smoothed the same way, is added to the whole run's
+    estimate.
+    """
+    t, zz, vv, meas = ev
+    s, rows, kind, g_best, rivals = alt
+    if not rivals:
+        return
+    q, r_scale, prior_rate, prior_accel = model
+    pos_m = np.flatnonzero(meas)
+    lo_m = max(min(min(r[0]) for r in rivals + [(rows,)]) - BREAK_RIVAL_MARGIN, 0)
+    hi_m = min(max(max(r[0]) for r in rivals + [(rows,)]) + BREAK_RIVAL_MARGIN,
+               pos_m.size - 1)
+    lo, hi = pos_m[lo_m], pos_m[hi_m] + 1
+    local = jump_m[lo_m:hi_m + 1, s]
+    cols = [local.copy()]
+    for r_rows, r_kind, _g in rivals:
+        c = local.copy()
+        c[np.asarray(rows) - lo_m] = 0
+        c[np.asarray(r_rows) - lo_m] = r_kind
+        cols.append(c)
+    jm = np.column_stack(cols)
+    b = jm.shape[1]
+    tl, ml = t[lo:hi], meas[lo:hi]
+    zl = np.repeat(zz[lo:hi, s:s + 1], b, axis=1)
+    vl = np.repeat(vv[lo:hi, s:s + 1], b, axis=1)
+    _, _, _, xl, Pl = _run(tl, zl, vl, ml, np.full(b, q[s]), np.full(b, r_scale[s]),
+                           prior_rate, prior_accel, smooth=True, jump=_event_jumps(ml, jm))
+    mean_l, var_l = _break_mixture(tl, ml, jm, xl, Pl, np.full(b, q[s]))
+    gains = np.array([g_best] + [g for _r, _k, g in rivals])
+    w = np.exp(gains - gains.max())
+    w /= w.sum()
+    m_i = vr[lo:hi, s][:, None, :] + mean_l - mean_l[:, :1]  # (T, B, 2)
+    v_i = np.maximum(vr_var[lo:hi, s][:, None, :] + var_l - var_l[:, :1], 0.0)
+    mean = np.einsum("b,tbk->tk", w, m_i)
+    vr_var[lo:hi, s] = np.einsum("b,tbk->tk", w, v_i + (m_i - mean[:, None, :]) ** 2)
+    vr[lo:hi, s] = mean
 
 
 def _break_mixture(t, meas, jump_m, xs, Ps, q):
@@ -442,11 +526,11 @@ def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0):
 
     The forward filter's normalised innovations are summed over :data:`BREAK_WINDOW`
     samples; a sum beyond :data:`BREAK_FLAG` sigma flags a manoeuvre. Around the start
-    of each flagged stretch every instant is tried as a break (rate and acceleration
-    released, see :func:`_run`); the one of highest likelihood is kept if it gains more
-    than :data:`BREAK_MIN_GAIN`; a change spread over two steps (a stall that takes a frame or
-    two) is tried as a break in each of its steps (up to :data:`BREAK_MAX_STEPS`).
-    Repeated until nothing is gained (at most :data:`BREAK_ROUNDS` times).
+    of each flagged stretch every instant is tried as a restart, as an acceleration
+    change and as the start of a ramp (:func:`_trials`, :func:`_release`); the one of
+    highest likelihood is kept if it gains more than :data:`BREAK_MIN_GAIN`. Repeated
+    until nothing is gained (at most :data:`BREAK_ROUNDS` times). ``prior_rate`` is
+    not used (kept for callers).
 
     Parameters
     ----------
@@ -459,14 +543,22 @@ def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0):
 
     Returns
     -------
-    ndarray of bool (M, S)
-        True at the measurement before which the model breaks.
+    ndarray of int8 (M, S)
+        At the measurement before which the model breaks: :data:`RESTART` or
+        :data:`ACCEL_CHANGE`; 0 elsewhere.
     """
+    return _search_breaks(t_s, z, var_z, (q, r_scale, prior_rate, prior_accel))[0]
+
+
+def _search_breaks(t_s, z, var_z, model):
+    """:func:`find_breaks` with, for each break kept, its rivals: the other trials of
+    its stretch within :data:`BREAK_RIVAL_NATS` of its gain."""
+    q, r_scale, prior_rate, prior_accel = model
     m, n_sig = z.shape
     ones = np.ones(m, bool)
     w = BREAK_WINDOW
-    model = (q, r_scale, prior_rate, prior_accel)
-    jump = np.zeros((m, n_sig), bool)
+    jump = np.zeros((m, n_sig), np.int8)
+    alts = []  # per break kept: signal, rows, kind, gain, rivals (rows, kind, gain)
     base = _run(t_s, z, var_z, ones, *model, smooth=False, jump=jump, filtered=True)
     for _round in range(BREAK_ROUNDS):
         cols = []  # (signal, stretch, positions)
@@ -476,10 +568,7 @@ def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0):
             for n_run, i0 in enumerate(_flagged_starts(score > BREAK_FLAG)):
                 for pos in range(max(i0 - w, 1), min(i0 + 2 * w, m)):
                     if not jump[pos, s]:
-                        # a change over one step, or spread over a few (a stall)
-                        for span in range(1, BREAK_MAX_STEPS + 1):
-                            if pos + span <= m:
-                                cols.append((s, n_run, tuple(range(pos, pos + span))))
+                        cols += [(s, n_run, rows, kind) for rows, kind in _trials(pos, m)]
         if not cols:
             break
         gain = np.concatenate([
@@ -489,13 +578,19 @@ def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0):
         for c, gval in zip(cols, gain, strict=True):
             key = c[:2]
             if gval > BREAK_MIN_GAIN and gval > best.get(key, (-np.inf, 0))[0]:
-                best[key] = (gval, c[2])
+                best[key] = (gval, c[2:])
         if not best:
             break
-        for (s, _n), (_g, pos) in best.items():
-            jump[list(pos), s] = True
+        for (s, n_run), (g_best, (pos, kind)) in best.items():
+            if jump[pos[0], s]:
+                continue  # the same break kept for an overlapping stretch
+            jump[list(pos), s] = kind
+            rivals = [(c[2], c[3], gval) for c, gval in zip(cols, gain, strict=True)
+                      if c[:2] == (s, n_run) and gval >= g_best - BREAK_RIVAL_NATS
+                      and c[2:] != (pos, kind)]
+            alts.append((s, pos, kind, g_best, rivals))
         base = _run(t_s, z, var_z, ones, *model, smooth=False, jump=jump, filtered=True)
-    return jump
+    return jump, alts
 
 
 def _trial_gain(t_s, z, var_z, jump, base, cols, model):
@@ -517,17 +612,17 @@ def _trial_gain(t_s, z, var_z, jump, base, cols, model):
     last = np.array([c[2][-1] for c in cols])
     trial = jump[:, sig].copy()
     for col, c in enumerate(cols):
-        trial[list(c[2]), col] = True
+        trial[list(c[2]), col] = c[3]
     F_all, Q_all = _transition(np.diff(t_s, prepend=t_s[0]), np.ones(m))
-    pos_var = (prior_rate * _break_step(t_s, np.ones(m, bool))) ** 2
+    step = _break_step(t_s, np.ones(m, bool))
     x, P = xf[first - 1, sig], Pf[first - 1, sig]
     gain = np.zeros(sig.size)
     k = first.copy()
     live = np.arange(sig.size)  # trials still running
     while live.size:
         i, s = k[live], sig[live]
-        xl, Pl = x[live], _release(P[live], trial[i, live], pos_var[i], prior_rate,
-                                   prior_accel)
+        xl = x[live]
+        Pl = _release(xl, P[live], trial[i, live], step[i], prior_accel)
         F = F_all[i]
         xl = (F @ xl[:, :, None])[:, :, 0]
         Pl = F @ Pl @ F.transpose(0, 2, 1) + q[s, None, None] * Q_all[i]
@@ -548,6 +643,20 @@ def _rejoined(x, P, xb, Pb, tol=BREAK_REJOIN_TOL):
     dx = np.abs(x - xb) / sd
     dP = np.abs(P - Pb) / (sd[:, :, None] * sd[:, None, :])
     return (dx.max(axis=1) < tol) & (dP.max(axis=(1, 2)) < tol)
+
+
+def _trials(pos, m):
+    """The trial breaks starting at measurement ``pos`` of ``m``: (rows, kind) pairs.
+
+    A restart within the step (a hit, or a stall that takes less than a frame); an
+    acceleration change alone (the start of a braking or a drive-off), or a ramp: one
+    at ``pos`` and one up to :data:`BREAK_RAMP_STEPS` steps later (a braking or
+    drive-off at constant acceleration from its start to its end).
+    """
+    out = [((pos,), RESTART), ((pos,), ACCEL_CHANGE)]
+    out += [((pos, pos + k), ACCEL_CHANGE)
+            for k in range(1, min(BREAK_RAMP_STEPS, m - pos - 1) + 1)]
+    return out
 
 
 def _flagged_starts(flags):
