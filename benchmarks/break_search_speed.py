@@ -52,26 +52,14 @@ def stop_series(seconds, rng, fps=30.0, period_s=4.5):
     return t, np.column_stack(cols), np.column_stack(sig)
 
 
-def whole_run_gain(t_s, z, var_z, jump, base, cols, model):
-    """Every trial break filtered over the whole run (the reference)."""
-    q, r_scale, prior_rate, prior_accel = model
-    sig = np.array([c[0] for c in cols])
-    trial = jump[:, sig].copy()
-    for col, c in enumerate(cols):
-        trial[list(c[2]), col] = c[3]
-    ll_c, _, _, _, _ = smooth._run(t_s, z[:, sig], var_z[:, sig], np.ones(t_s.size, bool),
-                                   q[sig], r_scale[sig], prior_rate, prior_accel,
-                                   smooth=False, jump=trial)
-    return ll_c - base[0][:, sig].sum(axis=0)
-
-
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--seconds", type=float, default=180.0)
     args = ap.parse_args(argv)
     t, z, s = stop_series(args.seconds, np.random.default_rng(0))
     results, times = {}, {}
-    for name, gain in (("windowed", smooth._trial_gain), ("whole run", whole_run_gain)):
+    for name, gain in (("windowed", smooth._trial_gain),
+                       ("whole run", smooth._trial_gain_whole_run)):
         with mock.patch.object(smooth, "_trial_gain", gain):
             t0 = time.process_time()
             results[name] = smooth.rts_smooth_signals(t, z, s, t)

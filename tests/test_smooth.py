@@ -147,22 +147,6 @@ def test_smooth_motion_gets_no_break():
     np.testing.assert_allclose(s.value, held.value, atol=1e-12)
 
 
-def _whole_run_gain(t_s, z, var_z, jump, base, cols, model):
-    """Reference for the break search: each trial break filtered over the whole run
-    (the log-likelihood gain by its definition, the search before the windows)."""
-    from vidodo.tracking import smooth
-
-    q, r_scale, prior_rate, prior_accel = model
-    sig = np.array([c[0] for c in cols])
-    trial = jump[:, sig].copy()
-    for col, c in enumerate(cols):
-        trial[list(c[2]), col] = c[3]
-    ll, _, _, _, _ = smooth._run(t_s, z[:, sig], var_z[:, sig], np.ones(t_s.size, bool),
-                                 q[sig], r_scale[sig], prior_rate, prior_accel,
-                                 smooth=False, jump=trial)
-    return ll - base[0][:, sig].sum(axis=0)
-
-
 def test_windowed_break_search_equals_whole_run_search():
     """Trial breaks evaluated over a window until they rejoin the baseline filter place
     the same breaks, and give the same track to rounding, as trials filtered over the
@@ -183,7 +167,7 @@ def test_windowed_break_search_equals_whole_run_search():
     sig = np.full(z.shape, 1e-3)
     z = z + rng.normal(0.0, 1e-3, z.shape)
     windowed = smooth.rts_smooth_signals(t, z, sig, t)
-    with mock.patch.object(smooth, "_trial_gain", _whole_run_gain):
+    with mock.patch.object(smooth, "_trial_gain", smooth._trial_gain_whole_run):
         whole = smooth.rts_smooth_signals(t, z, sig, t)
     assert len(windowed[0].breaks_s) >= 4
     for a, b in zip(windowed, whole, strict=True):

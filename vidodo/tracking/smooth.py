@@ -635,6 +635,20 @@ def _trial_gain(t_s, z, var_z, jump, base, cols, model):
     return gain
 
 
+def _trial_gain_whole_run(t_s, z, var_z, jump, base, cols, model):
+    """:func:`_trial_gain` by its definition: each trial filtered over the whole run
+    (the search before the windows; the reference of the tests and of
+    ``benchmarks/break_search_speed.py``)."""
+    q, r_scale, prior_rate, prior_accel = model
+    sig = np.array([c[0] for c in cols])
+    trial = jump[:, sig].copy()
+    for col, c in enumerate(cols):
+        trial[list(c[2]), col] = c[3]
+    ll, _, _, _, _ = _run(t_s, z[:, sig], var_z[:, sig], np.ones(t_s.size, bool), q[sig],
+                          r_scale[sig], prior_rate, prior_accel, smooth=False, jump=trial)
+    return ll - base[0][:, sig].sum(axis=0)
+
+
 def _rejoined(x, P, xb, Pb, tol=BREAK_REJOIN_TOL):
     """Whether trial states (B, 3), (B, 3, 3) equal the baseline's to ``tol``: every
     mean component within ``tol`` of the baseline's 1-sigma, every covariance entry
