@@ -17,7 +17,8 @@ import numpy as np
 from ..errors import InputError
 from . import apriltag3
 
-__all__ = ["DEFAULT_REFINE", "DETECTORS", "REFINE_METHODS", "Detection", "MarkerDetector"]
+__all__ = ["DEFAULT_REFINE", "DETECTORS", "REFINE_BIAS_PX", "REFINE_METHODS", "Detection",
+           "MarkerDetector", "refine_bias_sigma_px"]
 
 DEFAULT_REFINE = "apriltag"
 """Default corner refinement, chosen on real photos and renders together (DEVELOPERS.md,
@@ -36,9 +37,32 @@ REFINE_METHODS = {
     "hybrid": cv2.aruco.CORNER_REFINE_APRILTAG,
 }
 
+REFINE_BIAS_PX = {"apriltag": 0.09}
+"""Largest shift common to all four corners of a marker that a refinement method makes
+[px per image axis], where it makes one. OpenCV's AprilTag refinement (after the -0.5 px
+change of convention) puts the corners of a tag with sharp, unblurred edges about
+0.09 px up and left of their true place, 0.06 px at 0.5 px of blur, none from about
+1.5 px of blur up; 'hybrid', 'subpix' and the AprilTag 3 library show no such shift
+(within 0.01 px). Measured on a tag drawn with exact pixel-area coverage, independent of
+the project's renderer (``tests/test_corner_bias.py``). The tracker cannot see the
+blur-dependent part (a common shift leaves no fit residual), so it is carried as
+uncertainty, :func:`refine_bias_sigma_px`."""
+
 MIN_PERIMETER_RATE = 0.01
 """Smallest marker outline examined in a whole-frame search, as a fraction of the
 image's larger side (OpenCV's default 0.03 misses a 10 cm tag across a 1080p field)."""
+
+
+def refine_bias_sigma_px(refine: str) -> float:
+    """1-sigma per image axis of the common corner shift of refinement ``refine`` [px]:
+    the shift lies between 0 and :data:`REFINE_BIAS_PX` depending on the edges'
+    blur, which the tracker does not know; the RMS of a uniform spread over that range
+    is ``max / sqrt(3)``.
+
+    >>> round(refine_bias_sigma_px("apriltag"), 3), refine_bias_sigma_px("hybrid")
+    (0.052, 0.0)
+    """
+    return REFINE_BIAS_PX.get(refine, 0.0) / 3.0 ** 0.5
 
 
 # --------------------------------------------------------------------- detection

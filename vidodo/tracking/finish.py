@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import TrackingError
+from .detector import refine_bias_sigma_px
 from .noise import (
     CornerNoise,
     estimate_corner_noise,
@@ -157,7 +158,7 @@ def finish_track(records, robot, field_profile, settings=None, *, readout_source
     noise, noise_parts = _corner_noise(fixes, idx, settings.corner_sigma_px)
     mpp, reg_err, reg_heading = _registration_error(acc, fixes, idx, n)
     run = _Run(t, idx, ok, _segments(idx, t, settings.max_gap_s), fixes, reg_err, mpp,
-               settings.corner_bias_px, reg_heading)
+               _corner_bias_px(settings), reg_heading)
     readout_s = float(settings.readout_s or 0.0)
     frac = np.nan_to_num(np.asarray(acc.frac, float)[idx])
     first = _smooth_run(run, t[idx] + frac * readout_s, noise_parts, noise)
@@ -291,6 +292,14 @@ def _registration_error(acc, fixes, idx, n):
     return mpp, reg_err, np.sqrt(np.where(np.isfinite(var_h), var_h, 0.0))
 
 
+def _corner_bias_px(settings) -> float:
+    """The common corner shift's 1-sigma the track carries [px]: the given one, else
+    the refinement's own."""
+    if settings.corner_bias_px is not None:
+        return float(settings.corner_bias_px)
+    return refine_bias_sigma_px(settings.refine)
+
+
 def _smooth_run(run, t_meas, noise_parts, noise):
     """:func:`_smooth` of the run's fixes measured at ``t_meas``."""
     fixes = run.fixes
@@ -418,7 +427,7 @@ def _quality(acc, run, noise, readout, settings, gaps, interpolated, fits, seen,
         "corner_sigma_px": noise.sigma_px,
         "corner_sigma_source": "given" if settings.corner_sigma_px is not None
         else "fit residuals",
-        "corner_bias_px": settings.corner_bias_px,
+        "corner_bias_px": _corner_bias_px(settings),
         "corner_fresh_px": noise.fresh_px,
         "corner_persistent_px": noise.persistent_px,
         "corner_lag1_corr": noise.lag1_corr,

@@ -38,10 +38,11 @@ class TrackSettings:
     """Corner noise [px]; None: estimated from the fit residuals of the run. Either way
     it is split into a fresh and a persistent part by the residuals' frame-to-frame
     correlation (:func:`~vidodo.tracking.noise.estimate_corner_noise`)."""
-    corner_bias_px: float = 0.0
+    corner_bias_px: float | None = None
     """1-sigma of a shift common to all corners of a marker (blur, sampling, print),
     which fit residuals cannot reveal; it is not averaged down by the smoother [px].
-    Default 0: nothing is added that the footage itself does not show (a value such as
-    0.1 px suits markers printed or mounted with visible defects)."""
+    None: the refinement's own (:func:`~vidodo.tracking.detector.refine_bias_sigma_px`,
+    0.052 px for 'apriltag', 0 for the others); a larger value suits markers printed or
+    mounted with visible defects."""
     threaded: bool = True
     """Decode in a background thread."""
