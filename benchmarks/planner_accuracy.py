@@ -54,6 +54,7 @@ from vidodo.planner import (  # noqa: E402
 )
 from vidodo.profiles import load_camera, load_field, load_robot  # noqa: E402
 from vidodo.registration.registrar import FloorRegistrar  # noqa: E402
+from vidodo.tracking.finish import quality_readout_sigma_s  # noqa: E402
 from vidodo.tracking.tracker import track_video  # noqa: E402
 
 # camera position (x, y, z) and aim (x, y) [m], horizontal field of view [deg]; all on the
@@ -69,10 +70,26 @@ PLACEMENTS = [
 FACTOR = 1.5
 
 
-def _overrides(i):
+SETUP_JITTER_M = 0.05
+"""Each seed sets the placement up again: camera position and aim moved by up to this
+much [m] (uniform, invented), so that sub-pixel phases differ between the seeds."""
+REST_S = 3.0
+"""The robot stands still this long before it starts and after it stops [s], so that
+the cells at rest gather samples."""
+
+
+def _overrides(i, seed):
+    """Scenario overrides of placement ``i``, seed ``seed``: its own floor texture, the
+    camera set up again (:data:`SETUP_JITTER_M`), the marker turned by 90 deg per seed on
+    the robot (so the same bits do not always face the same way), longer rests."""
     (x, y, z), (lx, ly), hfov = PLACEMENTS[i]
-    return {"camera.x_m": x, "camera.y_m": y, "camera.z_m": z, "camera.look_at_x_m": lx,
-            "camera.look_at_y_m": ly, "camera.look_at_z_m": 0.0, "camera.hfov_deg": hfov}
+    dx, dy, dz, dlx, dly = np.random.default_rng([i, seed]).uniform(
+        -SETUP_JITTER_M, SETUP_JITTER_M, 5)
+    return {"field.texture_seed": seed, "camera.x_m": x + dx, "camera.y_m": y + dy,
+            "camera.z_m": z + dz, "camera.look_at_x_m": lx + dlx,
+            "camera.look_at_y_m": ly + dly, "camera.look_at_z_m": 0.0, "camera.hfov_deg": hfov,
+            "marker.0.yaw_deg": -90.0 + 90.0 * (seed % 4), "video.lead_in_s": REST_S,
+            "video.tail_s": REST_S}
 
 
 def _view(run, cam):
@@ -165,8 +182,8 @@ MOVING_MPS = 0.02
 correlated over very different times, so each gets its own correlation time [m/s]."""
 
 
-def _samples(run, seed, settings):
-    """Per detected sample: tile, squared error per axis, squared prediction parts."""
+def _raw(run, seed):
+    """Track one run; per sample: truth, error, detection, speed (no model yet)."""
     robot, fld, cam = (load_robot(run / "robot.toml"), load_field(run / "field.toml"),
                        load_camera(run / "camera.toml"))
     view = _view(run, cam)
@@ -176,32 +193,54 @@ def _samples(run, seed, settings):
     res = track_video(run / "video.mp4", robot, fld, cam, registrar=registrar)
     wall = time.perf_counter() - t0
     tr, truth = res.track, pd.read_csv(run / "truth" / "truth.csv")
-    sigma_px = res.quality["corner_sigma_px"]
     reg = registrar.reference
     xy = truth[["x_m", "y_m"]].to_numpy(float)
-    marker = robot.markers[0]
-    p_fix, cell, _ = predict_at(xy, marker, view, sigma_px)
-    reg_px = registration_term_px(replace(settings, registration_px=reg.rms_px,
-                                          registration_points=reg.n_points))
-    pred, _, _ = predict_at(xy, marker, view, sigma_px, reg_px)
-    use = (tr["detected"].to_numpy(bool) & ~_excluded(truth["t_s"].to_numpy(), run)
-           & (np.nan_to_num(cell) >= settings.min_cell_px))
-    ex, ey = (tr["x_m"] - truth["x_m"]).to_numpy(), (tr["y_m"] - truth["y_m"]).to_numpy()
     t_s = truth["t_s"].to_numpy(float)
-    speed = np.hypot(np.gradient(xy[:, 0], t_s), np.gradient(xy[:, 1], t_s))
-    moving = speed > MOVING_MPS
+    rerr, ref = _registration_error(run, seed, fld, cam, view, xy, robot.markers[0].z_m)
+    raw = pd.DataFrame({
+        "t_s": t_s, "x_m": xy[:, 0], "y_m": xy[:, 1],
+        "ex": (tr["x_m"] - truth["x_m"]).to_numpy(), "ey": (tr["y_m"] - truth["y_m"]).to_numpy(),
+        "rx": rerr[:, 0], "ry": rerr[:, 1],
+        "speed": np.hypot(np.gradient(xy[:, 0], t_s), np.gradient(xy[:, 1], t_s)),
+        "detected": tr["detected"].to_numpy(bool),
+        "excluded": _excluded(t_s, run), "t2": tr["sigma_xy_m"].to_numpy(float) ** 2 / 2})
+    info = {"quality": res.quality, "sigma_px": res.quality["corner_sigma_px"], "wall_s": wall,
+            "clicked": n_clicked, "reg_rms_px": reg.rms_px, "reg_n": reg.n_points,
+            "reg_pred_px": float(ref.prediction_px),
+            "reg": f"{reg.method} {reg.rms_px:.2f} px on {reg.n_points}"}
+    return raw, info, (robot, fld, view)
+
+
+def _samples(raw, info, ctx, settings):
+    """Per compared sample: tile, squared error per axis, squared prediction parts."""
+    robot, fld, view = ctx
+    xy = raw[["x_m", "y_m"]].to_numpy(float)
+    marker = robot.markers[0]
+    sigma_px = info["sigma_px"]
+    p_fix, cell, _ = predict_at(xy, marker, view, sigma_px)
+    reg_px = registration_term_px(replace(settings, registration_px=info["reg_rms_px"],
+                                          registration_points=info["reg_n"]))
+    pred, _, _ = predict_at(xy, marker, view, sigma_px, reg_px,
+                            speed_mps=raw["speed"].to_numpy(),
+                            readout_sigma_s=quality_readout_sigma_s(info["quality"]))
+    use = (raw["detected"].to_numpy(bool) & ~raw["excluded"].to_numpy(bool)
+           & (np.nan_to_num(cell) >= settings.min_cell_px))
+    ex, ey = raw["ex"].to_numpy(), raw["ey"].to_numpy()
+    moving = raw["speed"].to_numpy() > MOVING_MPS
     z = np.concatenate([ex / pred, ey / pred])
     tau = {m: _corr_time(np.where(np.tile(use & (moving == m), 2), z, np.nan))
            for m in (True, False)}
     tile = fld.tile_size_m
+    cx, cy = ex - raw["rx"].to_numpy(), ey - raw["ry"].to_numpy()
     df = pd.DataFrame({"ix": (xy[:, 0] // tile).astype(int), "iy": (xy[:, 1] // tile).astype(int),
                        "ex": ex, "ey": ey, "e2": (ex**2 + ey**2) / 2, "p2": pred**2,
-                       "f2": p_fix**2, "t2": tr["sigma_xy_m"].to_numpy(float) ** 2 / 2,
-                       "speed": speed, "cell_px": cell,
+                       "f2": p_fix**2, "t2": raw["t2"].to_numpy(),
+                       "r2": (raw["rx"] ** 2 + raw["ry"] ** 2).to_numpy() / 2,
+                       "c2": (cx**2 + cy**2) / 2, "rx": raw["rx"].to_numpy(),
+                       "ry": raw["ry"].to_numpy(), "cx": cx, "cy": cy,
+                       "speed": raw["speed"].to_numpy(), "cell_px": cell,
                        "tau": np.where(moving, tau[True], tau[False])})[use]
-    info = {"sigma_px": sigma_px, "wall_s": wall, "tau": tau, "clicked": n_clicked,
-            "reg": f"{reg.method} {reg.rms_px:.2f} px on {reg.n_points}"}
-    return df, info, (robot, fld, view)
+    return df, tau
 
 
 P_SAMPLING = 0.99
@@ -222,7 +261,8 @@ def needed_dof(factor=FACTOR, p=P_SAMPLING):
 
 
 def _registration_error(run, seed, fld, cam, view, xy_m, z_m):
-    """Error the run's floor registration alone puts into a marker position [m], (N, 2).
+    """Error the run's floor registration alone puts into a marker position [m], (N, 2),
+    and that registration.
 
     The registration is made again on the first frame from the same user points (the
     tracker's reference); a marker at each true position and height is projected with
@@ -245,50 +285,70 @@ def _registration_error(run, seed, fld, cam, view, xy_m, z_m):
     centre = -rot.T @ np.asarray(reg.tvec, float).reshape(3)
     d = np.column_stack([ray, np.ones(len(ray))]) @ rot  # rows: R^T [u, v, 1]
     s = (z_m - centre[2]) / d[:, 2]
-    return centre[:2] + s[:, None] * d[:, :2] - xy_m
+    return centre[:2] + s[:, None] * d[:, :2] - xy_m, reg
 
 
-def _cell_dof(part):
+def seed_correlation(df, cols):
+    """Correlation between the seeds of one placement of the errors ``cols`` per cell:
+    sum over cells and axes of the products of two different seeds' cell means, over
+    the sum of the squares (taken about zero: an error the seeds share is what it
+    finds), clipped to [0, 1]. 0: the seeds are independent draws; 1: copies."""
+    means = df.groupby(["ix", "iy", "seed"])[list(cols)].mean()
+    cross = square = 0.0
+    for _, part in means.groupby(level=["ix", "iy"]):
+        m = part.to_numpy()
+        if len(m) < 2:
+            continue
+        cross += float((m.sum(axis=0) ** 2 - (m**2).sum(axis=0)).sum())
+        square += float((len(m) - 1) * (m**2).sum())
+    return float(np.clip(cross / square, 0.0, 1.0)) if square > 0 else 1.0
+
+
+def _cell_dof(part, rho_fix, rho_reg):
     """Effective degrees of freedom of one cell's pooled mean square (Welch-Satterthwaite,
-    Satterthwaite 1946): the corner-noise part has ``n / tau`` per run and axis (tau the
-    run's correlation time in samples, moving and at rest apart), the registration part
-    one draw per placement and axis (every frame of a run uses the same registration, and
-    the seeds of a placement share the scene and the snapped clicks)."""
+    Satterthwaite 1946) and of its corner part alone.
+
+    Each seed's run gives the corner part ``n / tau`` draws per axis (tau the run's
+    correlation time in samples, moving and at rest apart) and the registration part one
+    draw per axis (every frame of a run uses the same registration). The seeds are not
+    independent (same path, same placement): with their correlation rho
+    (:func:`seed_correlation`), S seeds count as ``S / (1 + (S - 1) rho)`` (the design
+    effect of correlated clusters, Kish, *Survey Sampling*, 1965, section 5.4).
+    """
+    seeds = part["seed"].nunique()
     f2, r2 = part["f2"].mean(), max(part["p2"].mean() - part["f2"].mean(), 0.0)
-    k_fix = float(2 * (1.0 / part["tau"]).sum())
-    k_reg = 2.0  # the seeds share the scene and most clicks: one registration draw
-    return (f2 + r2) ** 2 / (f2**2 / k_fix + r2**2 / k_reg)
+    k_fix = float(2 * (1.0 / part["tau"]).sum()) / (1 + (seeds - 1) * rho_fix)
+    k_reg = 2.0 * seeds / (1 + (seeds - 1) * rho_reg)
+    return (f2 + r2) ** 2 / (f2**2 / k_fix + r2**2 / k_reg), k_fix
 
 
 def evaluate(i, seeds, settings, cache=None):
     """Cells compared for placement ``i``, pooled over ``seeds`` (independent noise)."""
     frames, infos = [], []
     for seed in seeds:
-        run = rendered("default", seed, **_overrides(i))
+        run = rendered("default", seed, **_overrides(i, seed))
         hit = None if cache is None else cache / f"{run.name}.pkl"
         if hit is not None and hit.exists():
-            df, info, ctx = pd.read_pickle(hit)
+            raw, info, ctx = pd.read_pickle(hit)
         else:
-            df, info, ctx = _samples(run, seed, settings)
+            raw, info, ctx = _raw(run, seed)
             if hit is not None:
                 cache.mkdir(parents=True, exist_ok=True)
-                pd.to_pickle((df, info, ctx), hit)
-        robot, fld, view = ctx
-        truth = pd.read_csv(run / "truth" / "truth.csv").loc[df.index]
-        rerr = _registration_error(run, seed, fld, load_camera(run / "camera.toml"), view,
-                                   truth[["x_m", "y_m"]].to_numpy(float), robot.markers[0].z_m)
-        cx, cy = df["ex"] - rerr[:, 0], df["ey"] - rerr[:, 1]
-        frames.append(df.assign(seed=seed, r2=(rerr**2).sum(axis=1) / 2,
-                                c2=(cx**2 + cy**2) / 2))
-        infos.append(info)
+                pd.to_pickle((raw, info, ctx), hit)
+        df, tau = _samples(raw, info, ctx, settings)
+        frames.append(df.assign(seed=seed))
+        infos.append(dict(info, tau=tau))
     df = pd.concat(frames)
+    rho = (seed_correlation(df, ("cx", "cy")), seed_correlation(df, ("rx", "ry")))
+    for info in infos:
+        info["rho"] = rho
     rows = []
     for (ix, iy), part in df.groupby(["ix", "iy"]):
-        rows.append({"ix": ix, "iy": iy, "n": len(part), "dof": _cell_dof(part),
+        dof, dof_fix = _cell_dof(part, *rho)
+        rows.append({"ix": ix, "iy": iy, "n": len(part), "dof": dof, "dof_fix": dof_fix,
                      "meas": np.sqrt(part["e2"].mean()), "pred": np.sqrt(part["p2"].mean()),
                      "fix": np.sqrt(part["f2"].mean()), "track": np.sqrt(part["t2"].mean()),
-                     "reg": np.sqrt(part["r2"].mean()), "rest": np.sqrt(part["c2"].mean()),
-                     "dof_fix": float(2 * (1.0 / part["tau"]).sum())})
+                     "reg": np.sqrt(part["r2"].mean()), "rest": np.sqrt(part["c2"].mean())})
     g = pd.DataFrame(rows).set_index(["ix", "iy"])
     g["ratio"] = g["pred"] / g["meas"]
     g["track_ratio"] = g["track"] / g["meas"]
@@ -324,6 +384,8 @@ def _print_placement(i, g, infos, k_min):
         print(f"    first seed: {v['reg']}, {v['clicked']}, corner noise {v['sigma_px']:.3f} "
               f"px, tau {v['tau'][True]:.0f} samples moving, {v['tau'][False]:.0f} at rest, "
               f"tracked in {v['wall_s']:.0f} s")
+        print(f"    correlation between the seeds: corner part {v['rho'][0]:.2f}, "
+              f"registration {v['rho'][1]:.2f}")
     for label, part, col in (("planner (corners + registration) vs measured", ok, "ratio"),
                              ("corners alone vs measured minus the registration's own "
                               "error", okf, "fix_ratio")):

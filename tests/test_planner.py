@@ -82,7 +82,8 @@ def test_out_of_view_and_behind():
 
 def test_plan_map_flags_small_cells():
     cam = ProposedCamera(1.83, -1.8, 2.4, 1.83, 1.5, 1280, 720, 68.0)
-    m = plan_map(FIELD, MARKER, cam, PlanSettings(min_cell_px=4.0))
+    # readout known (no timing term): the corner noise alone, through the geometry
+    m = plan_map(FIELD, MARKER, cam, PlanSettings(min_cell_px=4.0, readout_sigma_s=0.0))
     assert m.in_view.any() and not m.all_detectable
     small = m.in_view & ~m.detectable
     assert np.all(m.cell_px[small] < 4.0) and np.all(m.cell_px[m.detectable] >= 4.0)
@@ -139,3 +140,23 @@ def test_registration_term_straight_down():
     sigma, _, _ = predict_at(np.array([[1.0, 1.0]]), MARKER, view, 0.4, reg)
     D = 2.26 - 0.26
     assert sigma[0] == pytest.approx(math.hypot(0.4 * D / 2000, reg * D / 1000), rel=1e-4)
+
+
+def test_timing_term_straight_down():
+    """The track's timing term (DEVELOPERS.md "How the 1-sigma is built"): a detection
+    read a fraction ``v / height`` of the readout after the frame time (rolling shutter,
+    common practice), with the readout off by sigma_t, is off by speed * frac * sigma_t
+    along the motion, i.e. / sqrt(2) per axis for a random direction; the marker's row
+    from OpenCV's projectPoints, not the planner's projection."""
+    view = _down(2.26)
+    xy = np.array([[1.0, 1.3]])
+    still, _, _ = predict_at(xy, MARKER, view, 0.4)
+    moving, _, _ = predict_at(xy, MARKER, view, 0.4, speed_mps=0.8, readout_sigma_s=0.01)
+    img, _ = cv2.projectPoints(np.array([[1.0, 1.3, MARKER.z_m]]), view.rvec, view.tvec,
+                               view.camera_matrix, view.dist_coeffs)
+    frac = img.reshape(2)[1] / view.height_px
+    assert 0.0 < frac < 0.5  # +y is up the image for this camera
+    extra = 0.8 * frac * 0.01 / math.sqrt(2)
+    assert moving[0] == pytest.approx(math.hypot(still[0], extra), rel=1e-3)
+    known, _, _ = predict_at(xy, MARKER, view, 0.4, speed_mps=0.8, readout_sigma_s=0.0)
+    assert known[0] == pytest.approx(still[0], rel=1e-12)

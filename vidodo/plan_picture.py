@@ -50,8 +50,18 @@ def _panel(ax, plan: PlanMap, fld, values, label, cmap, title):
     ax.figure.colorbar(im, ax=ax, label=label, shrink=0.8)
 
 
-def plan_figure(plan: PlanMap, fld, marker, *, title: str = "") -> Figure:
-    """Two panels: expected 1-sigma error [mm] and marker cell size [px]."""
+def timing_note(settings) -> str:
+    """The map's line on the motion it assumes (the timing term's speed and readout)."""
+    if not settings.readout_sigma_s > 0:
+        return "readout time known: no rolling-shutter timing term"
+    return (f"assumes a drive speed of {settings.speed_mps:.2f} m/s (rolling-shutter "
+            f"timing, readout uncertain by {settings.readout_sigma_s * 1000:.0f} ms)")
+
+
+def plan_figure(plan: PlanMap, fld, marker, *, title: str = "", settings=None) -> Figure:
+    """Two panels: expected 1-sigma error [mm] and marker cell size [px]; with
+    ``settings`` (:class:`~vidodo.planner.PlanSettings`) the title states the motion the
+    error assumes (:func:`timing_note`)."""
     fig = Figure(figsize=(12.0, 5.8), dpi=110)
     FigureCanvasAgg(fig)
     a1, a2 = fig.subplots(1, 2)
@@ -67,16 +77,18 @@ def plan_figure(plan: PlanMap, fld, marker, *, title: str = "") -> Figure:
     fig.suptitle(title or (f"placement plan: marker {marker.size_m * 1000:.0f} mm at "
                            f"{marker.z_m * 1000:.0f} mm; detectable on "
                            f"{100 * det.mean():.0f}% of the field, worst 1-sigma "
-                           f"{worst:.1f} mm"), fontsize=10)
+                           f"{worst:.1f} mm")
+                 + ("" if settings is None else "\n" + timing_note(settings)), fontsize=10)
     fig.tight_layout()
     return fig
 
 
-def write_plan_png(plan: PlanMap, fld, marker, path, *, title: str = "") -> Path:
+def write_plan_png(plan: PlanMap, fld, marker, path, *, title: str = "",
+                   settings=None) -> Path:
     """Write :func:`plan_figure` as a PNG and return its path."""
     from .report.plots import save_figure
 
-    return save_figure(plan_figure(plan, fld, marker, title=title), path)
+    return save_figure(plan_figure(plan, fld, marker, title=title, settings=settings), path)
 
 
 def _tracked_registration(folder, video):
@@ -112,6 +124,7 @@ def plan_of_grade(summary: dict, folder, out_dir) -> dict[str, Path]:
     from .planner import CameraView, PlanSettings, plan_map
     from .profiles import load_camera, load_field, load_robot
     from .registration.registrar import FloorRegistrar
+    from .tracking.finish import quality_readout_sigma_s
 
     inputs = summary.get("inputs") or {}
     quality = summary.get("truth") or {}
@@ -153,8 +166,10 @@ def plan_of_grade(summary: dict, folder, out_dir) -> dict[str, Path]:
                       w, h)
     settings = PlanSettings(sigma_corner_px=float(sigma_px), registration_px=reg.rms_px,
                             registration_points=reg.n_points,
-                            margin_m=min(robot.length_m, robot.width_m) / 2)
+                            margin_m=min(robot.length_m, robot.width_m) / 2,
+                            readout_sigma_s=quality_readout_sigma_s(quality))
     plan = plan_map(fld, robot.markers[0], view, settings)
     return {"plan": write_plan_png(plan, fld, robot.markers[0], Path(out_dir) / "plan.png",
                                    title=f"this run's camera: expected 1-sigma (corner noise "
-                                         f"{sigma_px:.2f} px) and marker cell size")}
+                                         f"{sigma_px:.2f} px) and marker cell size",
+                                   settings=settings)}

@@ -12,6 +12,11 @@ the field. From that projection follow
   camera geometry by the Jacobian of the corners' pixels with respect to the marker's
   floor pose (x, y, heading), ``cov = sigma_px^2 (J^T J)^-1``; the position 1-sigma is
   ``sqrt(trace(cov_xy) / 2)`` (per axis, RMS of the two);
+* the timing term of the same model: a detection timed off by ``dt`` moves the
+  position by ``speed * dt``; the track's ``dt`` is the row fraction of the marker in
+  the image times how far the rolling-shutter readout may be off (0 when the camera
+  profile gives it, else a phone's readout of up to 30 ms); the planner takes the
+  speed as an assumed typical drive speed (:attr:`PlanSettings.speed_mps`);
 * the part of the field out of view.
 
 :func:`plan_map` computes the map; :func:`suggest` searches the lowest camera height and
@@ -28,6 +33,11 @@ import numpy as np
 
 from .errors import InputError
 from .profiles import marker_corners_local
+from .tracking.finish import UNKNOWN_READOUT_MAX_S
+
+UNKNOWN_READOUT_SIGMA_S = UNKNOWN_READOUT_MAX_S / math.sqrt(3.0)
+"""The track's readout uncertainty when none is known: a readout anywhere from 0 to
+``UNKNOWN_READOUT_MAX_S`` (RMS of a uniform spread) [s]."""
 
 __all__ = ["marker_cells_across", "marker_cell_px", "ProposedCamera", "CameraView", "view_of",
            "PlanSettings", "PlanMap", "camera_pose", "plan_map", "predict_at", "suggest",
@@ -208,6 +218,13 @@ class PlanSettings:
     """Points the registration was fitted to (``n_points``)."""
     margin_m: float = 0.0
     """Keep the marker this far inside the field edges [m] (half the robot)."""
+    speed_mps: float = 0.5
+    """Typical drive speed the timing term assumes [m/s] (an assumption, set it to the
+    robot's usual speed; the map's title states it)."""
+    readout_sigma_s: float = UNKNOWN_READOUT_SIGMA_S
+    """How far the rolling-shutter readout the track uses may be off [s] (1-sigma): 0
+    when the camera profile gives ``readout_s``; the default is the track's for an
+    unknown readout."""
 
 
 @dataclass(frozen=True)
@@ -255,7 +272,9 @@ def plan_map(fld, marker, cam, settings: PlanSettings = PlanSettings()) -> PlanM
     xx, yy = np.meshgrid(gx, gy)
     xy = np.column_stack([xx.ravel(), yy.ravel()])
     sigma, cell, in_view = predict_at(xy, marker, cam, settings.sigma_corner_px,
-                                      registration_term_px(settings))
+                                      registration_term_px(settings),
+                                      speed_mps=settings.speed_mps,
+                                      readout_sigma_s=settings.readout_sigma_s)
     shape = xx.shape
     det = in_view & (np.nan_to_num(cell) >= settings.min_cell_px)
     return PlanMap(gx, gy, sigma.reshape(shape), cell.reshape(shape),
@@ -279,20 +298,25 @@ def registration_term_px(settings: PlanSettings) -> float:
     return settings.registration_px * math.sqrt(REGISTRATION_PARAMS / n)
 
 
-def _metres_per_px(xy, z_m, v):
-    """Floor metres per image px at each point (RMS over the two axes) [m/px]."""
+def _floor_jacobian(xy, z_m, v):
+    """d(image px) / d(floor x, y) of a point at height ``z_m`` [px/m], (N, 2, 2)."""
     step = 1e-4
     pts = []
     for d in ((step, 0.0), (-step, 0.0), (0.0, step), (0.0, -step)):
         q = np.column_stack([xy + d, np.full(len(xy), z_m)])
         pts.append(_project(q[:, None, :], v.rvec, v.tvec, v.camera_matrix,
                             v.dist_coeffs)[:, 0])
-    J = np.stack([(pts[0] - pts[1]) / (2 * step), (pts[2] - pts[3]) / (2 * step)], axis=2)
-    inv = np.linalg.pinv(J)  # d floor / d px, (N, 2, 2)
+    return np.stack([(pts[0] - pts[1]) / (2 * step), (pts[2] - pts[3]) / (2 * step)], axis=2)
+
+
+def _metres_per_px(xy, z_m, v):
+    """Floor metres per image px at each point (RMS over the two axes) [m/px]."""
+    inv = np.linalg.pinv(_floor_jacobian(xy, z_m, v))  # d floor / d px, (N, 2, 2)
     return np.sqrt(np.einsum("nij,nij->n", inv, inv) / 2)
 
 
-def predict_at(xy_m, marker, cam, sigma_corner_px, registration_px=0.0):
+def predict_at(xy_m, marker, cam, sigma_corner_px, registration_px=0.0, *, speed_mps=0.0,
+               readout_sigma_s=0.0):
     """Expected 1-sigma position error per axis, cell size and visibility at points.
 
     Parameters
@@ -306,6 +330,12 @@ def predict_at(xy_m, marker, cam, sigma_corner_px, registration_px=0.0):
     registration_px : float
         The registration's prediction error [px] (:func:`registration_term_px`), added
         in quadrature through the floor metres per px at the point.
+    speed_mps : float or ndarray of shape (N,)
+        The robot's speed at the points [m/s].
+    readout_sigma_s : float
+        How far the readout time may be off [s]: adds the track's timing term, ``speed
+        x row fraction x readout_sigma_s`` along the motion (per axis: / sqrt(2), the
+        direction of travel taken as random).
 
     Returns
     -------
@@ -331,6 +361,10 @@ def predict_at(xy_m, marker, cam, sigma_corner_px, registration_px=0.0):
     var = np.maximum((cov[:, 0, 0] + cov[:, 1, 1]) / 2, 0.0)
     if registration_px > 0:
         var = var + (registration_px * _metres_per_px(xy, marker.z_m, v)) ** 2
+    if readout_sigma_s > 0:
+        centre = img.mean(axis=1)
+        frac = np.clip(centre[:, 1] / v.height_px, 0.0, 1.0)
+        var = var + (np.asarray(speed_mps, float) * frac * readout_sigma_s) ** 2 / 2
     sigma = np.sqrt(var)
     return np.where(in_view, sigma, np.nan), np.where(in_view, cell, np.nan), in_view
 

@@ -59,6 +59,9 @@ def add_arguments(parser):
                              "with --registration-points adds the registration's error")
     parser.add_argument("--registration-points", type=int, default=0,
                         help="points of that registration (n_points)")
+    parser.add_argument("--speed-mps", type=float, default=0.5,
+                        help="typical drive speed the rolling-shutter timing term assumes "
+                             "[m/s] (default 0.5; the map's title states it)")
     parser.add_argument("--min-cell-px", type=float, default=4.0,
                         help="smallest marker cell that detects [px] (default 4)")
     parser.add_argument("-o", "--out", type=Path, required=True, help="folder to write into")
@@ -110,6 +113,16 @@ def _camera(args):
     return ProposedCamera(x, y, z, lx, ly, w, h, args.hfov_deg)
 
 
+def _readout_sigma_s(args):
+    """The track's readout uncertainty: 0 with a lens profile that gives ``readout_s``."""
+    from ..planner import UNKNOWN_READOUT_SIGMA_S
+    from ..profiles import load_camera
+
+    if args.lens is not None and load_camera(args.lens).readout_s > 0:
+        return 0.0
+    return UNKNOWN_READOUT_SIGMA_S
+
+
 def run(args) -> int:
     """Compute the map and the suggestions, write plan.png and plan.json."""
     import numpy as np
@@ -125,10 +138,13 @@ def run(args) -> int:
     cam = _camera(args)
     if args.corner_noise_px <= 0 or args.min_cell_px <= 0:
         raise InputError("--corner-noise-px and --min-cell-px must be positive")
+    if not args.speed_mps >= 0:
+        raise InputError("--speed-mps must not be negative")
     settings = PlanSettings(sigma_corner_px=args.corner_noise_px,
                             min_cell_px=args.min_cell_px, margin_m=margin,
                             registration_px=max(args.registration_px, 0.0),
-                            registration_points=max(args.registration_points, 0))
+                            registration_points=max(args.registration_points, 0),
+                            speed_mps=args.speed_mps, readout_sigma_s=_readout_sigma_s(args))
     plan = plan_map(fld, marker, cam, settings)
     sug = suggest(fld, marker, cam, settings)
     det = plan.detectable
@@ -145,11 +161,13 @@ def run(args) -> int:
                      "registration_px": settings.registration_px,
                      "registration_points": settings.registration_points,
                      "min_cell_px": args.min_cell_px, "grid_m": settings.grid_m,
+                     "speed_mps": settings.speed_mps,
+                     "readout_sigma_s": settings.readout_sigma_s,
                      "margin_m": margin},
     }
     with staged_dir(args.out, inputs=(args.field, args.robot, args.lens), force=args.force,
                     command="vidodo plan") as stage:
-        write_plan_png(plan, fld, marker, stage / "plan.png")
+        write_plan_png(plan, fld, marker, stage / "plan.png", settings=settings)
         (stage / "plan.json").write_text(json.dumps(summary, indent=2) + "\n")
     print(f"marker detectable on {100 * det.mean():.0f}% of the field, in view on "
           f"{100 * plan.in_view.mean():.0f}%")

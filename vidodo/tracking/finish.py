@@ -31,7 +31,8 @@ from .result import REGISTRATION_COLUMNS, TRACK_COLUMNS, TrackResult
 from .settings import TrackSettings
 from .smooth import rts_smooth_signals
 
-__all__ = ["finish_track", "MIN_CELL_PX"]
+__all__ = ["finish_track", "MIN_CELL_PX", "UNKNOWN_READOUT_MAX_S", "readout_sigma_s",
+           "quality_readout_sigma_s"]
 
 REGISTRATION_PARAMS = 8
 """Parameters a floor registration fits: camera pose (6) plus up to two lens terms."""
@@ -354,6 +355,18 @@ def readout_sigma_s(readout) -> float:
     if math.isfinite(est) and math.isfinite(sigma):
         return max(prior, math.hypot(min(max(est, 0.0), UNKNOWN_READOUT_MAX_S), sigma))
     return prior
+
+
+def quality_readout_sigma_s(quality) -> float:
+    """:func:`readout_sigma_s` of a finished track, from its quality record (the
+    ``readout_*`` entries of :attr:`TrackResult.quality`) [s]."""
+    def number(key):
+        v = quality.get(key)
+        return float(v) if isinstance(v, int | float) else math.nan
+
+    return readout_sigma_s(_Readout(number("readout_s"), str(quality.get("readout_source", "none")),
+                                    number("readout_estimate_s"),
+                                    number("readout_estimate_sigma_s"), 0, False, False))
 
 
 def _view_timing(acc, idx, n, frac, readout):
