@@ -1,8 +1,11 @@
 """Placement planner against rendered runs: predicted vs measured error per field cell.
 
-For each camera placement the default scenario is rendered (1280x720) with a few seeds
-(independent image noise, same path). The floor is registered the way a user would when
-the automatic registration is refused: points at the visible tile corners as the picker
+For each camera placement the default scenario is rendered (1280x720) with several
+seeds. A seed is a new setup of the same placement, not only new image noise: its own
+floor texture, the camera moved by up to 5 cm and re-aimed (:data:`SETUP_JITTER_M`), the
+marker turned on the robot by a multiple of 90 deg; the robot rests 3 s before and after
+the path (:data:`REST_S`). The floor is registered the way a user would when the
+automatic registration is refused: points at the visible tile corners as the picker
 page produces them (:func:`_user_points`; the registrar then refines them on the seams),
 so that what is compared is the planner's model, not the automatic registration's
 self-check. Each run is tracked with `track_video`, and the planner's expected 1-sigma
@@ -10,22 +13,28 @@ position error (per axis) is computed at the true marker positions, from the cam
 true lens and pose, the corner noise the tracker measured in that run
 (``quality["corner_sigma_px"]``: the same number the track's own 1-sigma starts from),
 plus the registration term of the same model (RMS and point count of the run's
-reference registration). Samples within an impact or shove (and 0.5 s after) are left
-out: there the smoother's motion model, not corner noise, sets the error.
+reference registration) and its timing term (the robot's speed at the sample; zero
+here: the camera profile gives the readout time). Samples within an impact or shove
+(and 0.5 s after) are left out: there the smoother's motion model, not corner noise,
+sets the error.
 
 Cells are the floor tiles. A cell's measured RMS (track minus truth, per axis, pooled
 over the seeds) has its own sampling scatter: the errors of one run are correlated
-over tau samples (its integrated autocorrelation time), and the registration's error is
-one draw per run. A cell is compared only when its effective degrees of freedom
-(Welch-Satterthwaite over the two parts, :func:`_cell_dof`) reach :func:`needed_dof`,
-the fewest for which sampling alone keeps a correct prediction within x1.5 with
-probability 0.99 (chi-square); the others are listed as "too few".
+over tau samples (its integrated autocorrelation time, moving and at rest apart), the
+registration's error is one draw per run, and the seeds share the path, so their
+errors are correlated too (measured per placement: :func:`seed_correlation`; S seeds
+count as ``S / (1 + (S - 1) rho)``). A cell is compared only when its effective degrees
+of freedom (Welch-Satterthwaite over the two parts, :func:`_cell_dof`) reach
+:func:`needed_dof`, the fewest for which sampling alone keeps a correct prediction
+within x1.5 with probability 0.99 (chi-square); the others are listed as "too few".
 
 Pass: on at least 5 placements every compared cell within a factor of 1.5
 (``pred / meas`` in [1/1.5, 1.5]). Only this script reads the truth files.
 
+RESULTS
+
 Usage: ``.venv/bin/python benchmarks/planner_accuracy.py [--placements 0,1,2,3,4,5]
-[--seeds 0,1] [--cache DIR] [--map plan.png]``
+[--seeds 0,1,2,3,4,5] [--cache DIR] [--map plan.png]``
 """
 
 from __future__ import annotations
@@ -304,21 +313,24 @@ def seed_correlation(df, cols):
     return float(np.clip(cross / square, 0.0, 1.0)) if square > 0 else 1.0
 
 
-def _cell_dof(part, rho_fix, rho_reg):
+def _cell_dof(part, rho):
     """Effective degrees of freedom of one cell's pooled mean square (Welch-Satterthwaite,
     Satterthwaite 1946) and of its corner part alone.
 
     Each seed's run gives the corner part ``n / tau`` draws per axis (tau the run's
     correlation time in samples, moving and at rest apart) and the registration part one
     draw per axis (every frame of a run uses the same registration). The seeds are not
-    independent (same path, same placement): with their correlation rho
-    (:func:`seed_correlation`), S seeds count as ``S / (1 + (S - 1) rho)`` (the design
-    effect of correlated clusters, Kish, *Survey Sampling*, 1965, section 5.4).
+    independent (same path, same placement): with their correlation (``rho``: corner
+    part moving, at rest, registration; :func:`seed_correlation`), S seeds count as
+    ``S / (1 + (S - 1) rho)`` (the design effect of correlated clusters, Kish, *Survey
+    Sampling*, 1965, section 5.4).
     """
     seeds = part["seed"].nunique()
     f2, r2 = part["f2"].mean(), max(part["p2"].mean() - part["f2"].mean(), 0.0)
-    k_fix = float(2 * (1.0 / part["tau"]).sum()) / (1 + (seeds - 1) * rho_fix)
-    k_reg = 2.0 * seeds / (1 + (seeds - 1) * rho_reg)
+    moving = part["speed"] > MOVING_MPS
+    k_fix = sum(float(2 * (1.0 / part["tau"][m]).sum()) / (1 + (seeds - 1) * r)
+                for m, r in ((moving, rho[0]), (~moving, rho[1])))
+    k_reg = 2.0 * seeds / (1 + (seeds - 1) * rho[2])
     return (f2 + r2) ** 2 / (f2**2 / k_fix + r2**2 / k_reg), k_fix
 
 
@@ -339,12 +351,14 @@ def evaluate(i, seeds, settings, cache=None):
         frames.append(df.assign(seed=seed))
         infos.append(dict(info, tau=tau))
     df = pd.concat(frames)
-    rho = (seed_correlation(df, ("cx", "cy")), seed_correlation(df, ("rx", "ry")))
+    moving = df["speed"] > MOVING_MPS
+    rho = (seed_correlation(df[moving], ("cx", "cy")), seed_correlation(df[~moving], ("cx", "cy")),
+           seed_correlation(df, ("rx", "ry")))
     for info in infos:
         info["rho"] = rho
     rows = []
     for (ix, iy), part in df.groupby(["ix", "iy"]):
-        dof, dof_fix = _cell_dof(part, *rho)
+        dof, dof_fix = _cell_dof(part, rho)
         rows.append({"ix": ix, "iy": iy, "n": len(part), "dof": dof, "dof_fix": dof_fix,
                      "meas": np.sqrt(part["e2"].mean()), "pred": np.sqrt(part["p2"].mean()),
                      "fix": np.sqrt(part["f2"].mean()), "track": np.sqrt(part["t2"].mean()),
@@ -384,8 +398,8 @@ def _print_placement(i, g, infos, k_min):
         print(f"    first seed: {v['reg']}, {v['clicked']}, corner noise {v['sigma_px']:.3f} "
               f"px, tau {v['tau'][True]:.0f} samples moving, {v['tau'][False]:.0f} at rest, "
               f"tracked in {v['wall_s']:.0f} s")
-        print(f"    correlation between the seeds: corner part {v['rho'][0]:.2f}, "
-              f"registration {v['rho'][1]:.2f}")
+        print(f"    correlation between the seeds: corner part {v['rho'][0]:.2f} moving, "
+              f"{v['rho'][1]:.2f} at rest; registration {v['rho'][2]:.2f}")
     for label, part, col in (("planner (corners + registration) vs measured", ok, "ratio"),
                              ("corners alone vs measured minus the registration's own "
                               "error", okf, "fix_ratio")):
@@ -406,8 +420,8 @@ def _print_placement(i, g, infos, k_min):
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--placements", default=",".join(str(i) for i in range(len(PLACEMENTS))))
-    ap.add_argument("--seeds", default="0,1",
-                    help="seeds per placement, pooled per cell (default 0,1)")
+    ap.add_argument("--seeds", default="0,1,2,3,4,5",
+                    help="seeds per placement, pooled per cell (default 0-5)")
     ap.add_argument("--cache", type=Path, default=None,
                     help="keep each run's tracked samples here and reuse them")
     ap.add_argument("--map", type=Path, default=None,
@@ -437,9 +451,10 @@ def main(argv=None):
         if args.map is not None and i == placements[0]:
             from vidodo.plan_picture import write_plan_png
 
-            m = plan_map(fld, robot.markers[0], view, PlanSettings(
-                sigma_corner_px=float(np.mean([v["sigma_px"] for v in infos]))))
-            write_plan_png(m, fld, robot.markers[0], args.map)
+            mset = PlanSettings(sigma_corner_px=float(np.mean([v["sigma_px"] for v in infos])),
+                                readout_sigma_s=quality_readout_sigma_s(infos[0]["quality"]))
+            m = plan_map(fld, robot.markers[0], view, mset)
+            write_plan_png(m, fld, robot.markers[0], args.map, settings=mset)
     _print_speed(pd.concat(samples))
     met = {}
     for label, tables, col in (
