@@ -160,3 +160,17 @@ def test_timing_term_straight_down():
     assert moving[0] == pytest.approx(math.hypot(still[0], extra), rel=1e-3)
     known, _, _ = predict_at(xy, MARKER, view, 0.4, speed_mps=0.8, readout_sigma_s=0.0)
     assert known[0] == pytest.approx(still[0], rel=1e-12)
+
+
+def test_corner_bias_term_straight_down():
+    """A shift common to all four corners of b px moves the marker's image by b px, so
+    its position by b * D / f on the floor (pinhole looking down, common practice); the
+    map adds it in quadrature, as the track does with its ``corner_bias_px``."""
+    view = _down(2.26)
+    D = 2.26 - 0.26
+    base = plan_map(FIELD, MARKER, view, PlanSettings(readout_sigma_s=0.0, grid_m=0.5))
+    biased = plan_map(FIELD, MARKER, view, PlanSettings(readout_sigma_s=0.0, grid_m=0.5,
+                                                        corner_bias_px=0.2))
+    j, i = np.argmin(np.abs(base.y_m - 1.0)), np.argmin(np.abs(base.x_m - 1.0))
+    assert biased.sigma_xy_m[j, i] == pytest.approx(
+        math.hypot(base.sigma_xy_m[j, i], 0.2 * D / 1000), rel=1e-4)

@@ -218,6 +218,9 @@ class PlanSettings:
     """Points the registration was fitted to (``n_points``)."""
     margin_m: float = 0.0
     """Keep the marker this far inside the field edges [m] (half the robot)."""
+    corner_bias_px: float = 0.0
+    """1-sigma of a shift common to all corners of the marker [px], the track's
+    ``corner_bias_px`` (fit residuals cannot show it; 0 as in the track unless known)."""
     speed_mps: float = 0.5
     """Typical drive speed the timing term assumes [m/s] (an assumption, set it to the
     robot's usual speed; the map's title states it)."""
@@ -271,8 +274,8 @@ def plan_map(fld, marker, cam, settings: PlanSettings = PlanSettings()) -> PlanM
     gy = np.arange(m, sy - m + 1e-9, settings.grid_m)
     xx, yy = np.meshgrid(gx, gy)
     xy = np.column_stack([xx.ravel(), yy.ravel()])
-    sigma, cell, in_view = predict_at(xy, marker, cam, settings.sigma_corner_px,
-                                      registration_term_px(settings),
+    reg_px = math.hypot(registration_term_px(settings), settings.corner_bias_px)
+    sigma, cell, in_view = predict_at(xy, marker, cam, settings.sigma_corner_px, reg_px,
                                       speed_mps=settings.speed_mps,
                                       readout_sigma_s=settings.readout_sigma_s)
     shape = xx.shape
@@ -328,8 +331,9 @@ def predict_at(xy_m, marker, cam, sigma_corner_px, registration_px=0.0, *, speed
     sigma_corner_px : float
         1-sigma corner noise per image coordinate [px].
     registration_px : float
-        The registration's prediction error [px] (:func:`registration_term_px`), added
-        in quadrature through the floor metres per px at the point.
+        The registration's prediction error [px] (:func:`registration_term_px`; with a
+        common corner shift, its hypot with ``corner_bias_px``), added in quadrature
+        through the floor metres per px at the point.
     speed_mps : float or ndarray of shape (N,)
         The robot's speed at the points [m/s].
     readout_sigma_s : float
