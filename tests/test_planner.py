@@ -168,7 +168,8 @@ def test_corner_bias_term_straight_down():
     map adds it in quadrature, as the track does with its ``corner_bias_px``."""
     view = _down(2.26)
     D = 2.26 - 0.26
-    base = plan_map(FIELD, MARKER, view, PlanSettings(readout_sigma_s=0.0, grid_m=0.5))
+    base = plan_map(FIELD, MARKER, view, PlanSettings(readout_sigma_s=0.0, grid_m=0.5,
+                                                      corner_bias_px=0.0))
     biased = plan_map(FIELD, MARKER, view, PlanSettings(readout_sigma_s=0.0, grid_m=0.5,
                                                         corner_bias_px=0.2))
     j, i = np.argmin(np.abs(base.y_m - 1.0)), np.argmin(np.abs(base.x_m - 1.0))

@@ -33,6 +33,7 @@ import numpy as np
 
 from .errors import InputError
 from .profiles import marker_corners_local
+from .tracking.detector import DEFAULT_REFINE, refine_bias_sigma_px
 from .tracking.finish import UNKNOWN_READOUT_MAX_S
 
 UNKNOWN_READOUT_SIGMA_S = UNKNOWN_READOUT_MAX_S / math.sqrt(3.0)
@@ -218,9 +219,10 @@ class PlanSettings:
     """Points the registration was fitted to (``n_points``)."""
     margin_m: float = 0.0
     """Keep the marker this far inside the field edges [m] (half the robot)."""
-    corner_bias_px: float = 0.0
+    corner_bias_px: float = refine_bias_sigma_px(DEFAULT_REFINE)
     """1-sigma of a shift common to all corners of the marker [px], the track's
-    ``corner_bias_px`` (fit residuals cannot show it; 0 as in the track unless known)."""
+    ``corner_bias_px`` (fit residuals cannot show it): by default the default corner
+    refinement's own, as in the track."""
     speed_mps: float = 0.5
     """Typical drive speed the timing term assumes [m/s] (an assumption, set it to the
     robot's usual speed; the map's title states it)."""
