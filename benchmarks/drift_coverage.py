@@ -4,13 +4,60 @@ Each run is graded as a user would (video tracked, clock found from the motion);
 same run is then graded again from the renderer's true track (its sigma set to zero)
 with the true clock offset and rate. The second grade's figures are the "true" ones.
 Printed: per figure (final, max, ATE, RPE over distance and time, final heading error)
-the share of (run, source) pairs whose graded figure lies within 2 of its reported
-1-sigma of the true one (target 90-98 %), and the median ratio |error| / sigma.
+and for the clock offset the share of (run, source) pairs whose graded figure lies
+within 2 of its reported 1-sigma of the true one (target 90-98 %), its exact binomial
+95 % interval over runs (the sources of one run share the truth's error, so they are
+not independent samples), and the median ratio |error| / sigma (0.67 for an honest
+normal 1-sigma; well below 0.5 means the sigma is over-stated).
 
-Only this script reads the truth files; the grader never does.
+Only this script reads the truth files; the grader never does. Tracks are pickled
+beside the cached render (keyed by the tracking and registration sources), so a second
+run only grades.
 
-Usage: ``.venv/bin/python benchmarks/drift_coverage.py [--seeds 0-19] [--scenario
-tank-tripod]``
+Measured (tank-tripod, 2 sources per run; before -> after issue 15's drift-sigma
+changes: the start heading from travel counts the truth's place-bound error, a
+standing robot's track error held over the stop). "fixed": seeds 0-19, the scenario's
+camera; "moved": ``--vary-camera``, seeds 0-28 (seed 29's view was refused: the
+field's place in the tile pattern could not be told):
+
+=================  ===============================  ===============================
+figure             fixed camera, 20 runs            moved camera, 29 runs
+                   2-sigma share [95 %]; median     2-sigma share [95 %]; median
+=================  ===============================  ===============================
+final heading      35 -> 80 % [56, 94]; 2.37->1.67  72 -> 76 % [56, 90]; 0.79->0.73
+final position     83 -> 100 % [83, 100]; 0.62->0.18 97 -> 100 % [88, 100]; 0.51->0.38
+ATE                100 -> 100 %; 0.32 -> 0.26       100 -> 100 %; 0.25 -> 0.20
+largest error      100 -> 100 %; 0.02 -> 0.03       100 -> 100 %; 0.02 -> 0.04
+RPE 0.5 m          100 -> 100 %; 0.11 -> 0.10       100 -> 100 %; 0.07 -> 0.07
+RPE 1 s            100 -> 100 %; 0.17 -> 0.13       100 -> 100 %; 0.08 -> 0.08
+all drift figures  86 -> 97 %                       95 -> 96 %
+clock offset       100 % [83, 100]; 0.89            100 % [88, 100]; 0.78
+=================  ===============================  ===============================
+
+Clock: errors +0.17..+0.33 ms (fixed camera, all positive: one scene's timing bias) and
+-0.15..+0.66 ms (moved camera) against claimed 1-sigma 0.21-0.39 and 0.12-0.72 ms.
+
+What is left, and why (both are the truth track's sigma, not this propagation):
+
+* Final heading: the graded error follows the truth's heading error where the robot
+  ends standing (0.2-0.6 deg in the misses) while the track claims 0.06-0.3 deg there
+  (last 0.3 s: fixed camera median error 0.28 deg against 0.10 deg, 30 % within 2
+  sigma; moved camera 75 %). A marker's rotation bias at a place is common to all its
+  corners, so the rigid fit's residuals that set the track's sigma cannot show it.
+  The anchor heading, combined with the first travel's, was within 0.12 deg.
+* ATE, RPE and the largest error are over-stated: at the impact the smoother's break
+  steps give 5 samples a 1-sigma of 26-48 mm (the same to 0.1 mm in every seed: the
+  released priors, not the data) where the track is 0.6-2.7 mm off; the draws there
+  dominate these figures. With those samples' sigma held to 3 times the local median
+  (a diagnostic only) the medians become ATE 1.11, RPE 0.50 / 0.66, largest error 0.18
+  (fixed camera). The final position's and the largest error's sigma are mostly the
+  anchor heading's (0.1 deg over 2-3 m); in the fixed scene the truth's start heading
+  error and the travel's have opposite signs in every seed, so the combined anchor is
+  better than its sigma there.
+
+Usage (niced; renders and tracks cached under ``.cache/bench``):
+``nice -n 10 .venv/bin/python benchmarks/drift_coverage.py [--seeds 0-39]
+[--scenario tank-tripod] [--vary-camera] [--csv rows.csv] [--from-csv rows.csv]``
 """
 
 from __future__ import annotations
