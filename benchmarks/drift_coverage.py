@@ -4,33 +4,109 @@ Each run is graded as a user would (video tracked, clock found from the motion);
 same run is then graded again from the renderer's true track (its sigma set to zero)
 with the true clock offset and rate. The second grade's figures are the "true" ones.
 Printed: per figure (final, max, ATE, RPE over distance and time, final heading error)
-the share of (run, source) pairs whose graded figure lies within 2 of its reported
-1-sigma of the true one (target 90-98 %), and the median ratio |error| / sigma.
+and for the clock offset the share of (run, source) pairs whose graded figure lies
+within 2 of its reported 1-sigma of the true one (target 90-98 %), its exact binomial
+95 % interval over runs (the sources of one run share the truth's error, so they are
+not independent samples), and the median ratio |error| / sigma (0.67 for an honest
+normal 1-sigma; well below 0.5 means the sigma is over-stated).
 
-Only this script reads the truth files; the grader never does.
+Only this script reads the truth files; the grader never does. Tracks are pickled
+beside the cached render (keyed by the tracking and registration sources), so a second
+run only grades.
 
-Usage: ``.venv/bin/python benchmarks/drift_coverage.py [--seeds 0-19] [--scenario
-tank-tripod]``
+Measured (tank-tripod, 2 sources per run; before -> after issue 15's drift-sigma
+changes: the start heading from travel counts the truth's place-bound error, a
+standing robot's track error held over the stop). "fixed": seeds 0-19, the scenario's
+camera; "moved": ``--vary-camera``, seeds 0-28 (seed 29's view was refused: the
+field's place in the tile pattern could not be told):
+
+=================  ===============================  ===============================
+figure             fixed camera, 20 runs            moved camera, 29 runs
+                   2-sigma share [95 %]; median     2-sigma share [95 %]; median
+=================  ===============================  ===============================
+final heading      35 -> 80 % [56, 94]; 2.37->1.67  72 -> 76 % [56, 90]; 0.79->0.73
+final position     83 -> 100 % [83, 100]; 0.62->0.18 97 -> 100 % [88, 100]; 0.51->0.38
+ATE                100 -> 100 %; 0.32 -> 0.26       100 -> 100 %; 0.25 -> 0.20
+largest error      100 -> 100 %; 0.02 -> 0.03       100 -> 100 %; 0.02 -> 0.04
+RPE 0.5 m          100 -> 100 %; 0.11 -> 0.10       100 -> 100 %; 0.07 -> 0.07
+RPE 1 s            100 -> 100 %; 0.17 -> 0.13       100 -> 100 %; 0.08 -> 0.08
+all drift figures  86 -> 97 %                       95 -> 96 %
+clock offset       100 % [83, 100]; 0.89            100 % [88, 100]; 0.78
+=================  ===============================  ===============================
+
+Clock: errors +0.17..+0.33 ms (fixed camera, all positive: one scene's timing bias) and
+-0.15..+0.66 ms (moved camera) against claimed 1-sigma 0.21-0.39 and 0.12-0.72 ms.
+
+What is left, and why (both are the truth track's sigma, not this propagation):
+
+* Final heading: the graded error follows the truth's heading error where the robot
+  ends standing (0.2-0.6 deg in the misses) while the track claims 0.06-0.3 deg there
+  (last 0.3 s: fixed camera median error 0.28 deg against 0.10 deg, 30 % within 2
+  sigma; moved camera 75 %). A marker's rotation bias at a place is common to all its
+  corners, so the rigid fit's residuals that set the track's sigma cannot show it.
+  The anchor heading, combined with the first travel's, was within 0.12 deg.
+* ATE, RPE and the largest error are over-stated: at the impact the smoother's break
+  steps give 5 samples a 1-sigma of 26-48 mm (the same to 0.1 mm in every seed: the
+  released priors, not the data) where the track is 0.6-2.7 mm off; the draws there
+  dominate these figures. With those samples' sigma held to 3 times the local median
+  (a diagnostic only) the medians become ATE 1.11, RPE 0.50 / 0.66, largest error 0.18
+  (fixed camera). The final position's and the largest error's sigma are mostly the
+  anchor heading's (0.1 deg over 2-3 m); in the fixed scene the truth's start heading
+  error and the travel's have opposite signs in every seed, so the combined anchor is
+  better than its sigma there.
+
+Usage (niced; renders and tracks cached under ``.cache/bench``):
+``nice -n 10 .venv/bin/python benchmarks/drift_coverage.py [--seeds 0-39]
+[--scenario tank-tripod] [--vary-camera] [--csv rows.csv] [--from-csv rows.csv]``
 """
 
 from __future__ import annotations
 
 import argparse
+import hashlib
 import json
+import pickle
 import sys
 from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _runs import rendered  # noqa: E402
 
 from vidodo.drift_sigma import FIGURES  # noqa: E402
+from vidodo.errors import VidodoError  # noqa: E402
 from vidodo.logs import read_log  # noqa: E402
-from vidodo.pipeline import GradeSettings, grade_run, grade_tracks  # noqa: E402
-from vidodo.profiles import load_robot  # noqa: E402
+from vidodo.pipeline import GradeSettings, grade_tracks  # noqa: E402
+from vidodo.profiles import load_camera, load_robot  # noqa: E402
+
+
+def _tracked(run):
+    """The tracker's result for ``run``, pickled beside the render and reused while
+    the tracking and registration code is unchanged (the grading is what this
+    benchmark studies; tracking a clip takes minutes)."""
+    pkg = Path(__file__).resolve().parents[1] / "vidodo"
+    src = sorted([*pkg.glob("tracking/*.py"), *pkg.glob("registration/**/*.py"),
+                  pkg / "video.py", pkg / "lens.py"])
+    key = hashlib.sha256(b"".join(f.read_bytes() for f in src)).hexdigest()[:12]
+    hit = run / f"track-{key}.pkl"
+    if hit.exists():
+        with hit.open("rb") as fh:
+            return pickle.load(fh)
+    from vidodo.pipeline import _track_recorded
+    from vidodo.profiles import load_field
+
+    tres, _ = _track_recorded(run / "video.mp4", load_robot(run / "robot.toml"),
+                              load_field(run / "field.toml"),
+                              load_camera(run / "camera.toml"), None, None)
+    for old in run.glob("track-*.pkl"):
+        old.unlink()
+    with hit.open("wb") as fh:
+        pickle.dump(tres, fh)
+    return tres
 
 
 def _true_grade(run, graded):
@@ -52,51 +128,115 @@ def _true_grade(run, graded):
                         GradeSettings(clock_offset_s=off))
 
 
+def camera_overrides(scenario, seed):
+    """Overrides moving the camera by a seed's draw: x, y, height and the point looked
+    at each up to +-0.3 m (uniform) from the scenario's own. Runs of one scenario share
+    its camera and path, so the truth's errors tied to the place in the image repeat
+    from seed to seed; a coverage over such runs counts one error many times."""
+    from vidodo.synth.scenario import load_scenario
+
+    cam = load_scenario(scenario).data["camera"]
+    rng = np.random.default_rng([seed, 15])
+    keys = ("x_m", "y_m", "z_m", "look_at_x_m", "look_at_y_m")
+    return {f"camera.{k}": round(float(cam[k]) + float(rng.uniform(-0.3, 0.3)), 4)
+            for k in keys}
+
+
+def _clock_row(g, run):
+    """The clock's error at the log's median time against the scenario's [s], and its
+    claimed 1-sigma."""
+    clk = json.loads((run / "truth" / "meta.json").read_text())["log_clock"]
+    tl = float(np.median(g.odometry[next(iter(g.odometry))]["t_s"]))  # video times
+    tl_log = g.clock.to_log(tl) if hasattr(g.clock, "to_log") else tl - g.clock.offset_s
+    true_v = tl_log / (1.0 + float(clk.get("rate_error", 0.0))) + float(clk["offset_s"])
+    return float(g.clock.to_video(np.array([tl_log]))[0]) - true_v, g.clock.sigma_s
+
+
+def run_rows(run, seed):
+    """``(seed, source, figure, error, sigma)`` rows of one rendered run (the clock's
+    as source ``"clock"``, figure ``"clock_offset_s"``)."""
+    robot = load_robot(run / "robot.toml")
+    g = grade_tracks(_tracked(run), read_log(run / "log.csv", robot), robot)
+    t = _true_grade(run, g)
+    err, sig = _clock_row(g, run)
+    rows = [(seed, "clock", "clock_offset_s", err, sig)] if sig else []
+    for name, m in g.metrics.items():
+        if name not in t.metrics:
+            continue
+        for f in FIGURES:
+            v, s, ref = getattr(m, f), (m.sigma or {}).get(f), getattr(t.metrics[name], f)
+            if v is None or s is None or ref is None or not s > 0:
+                continue
+            err = v - ref
+            if f.endswith("_rad"):
+                err = (err + np.pi) % (2 * np.pi) - np.pi
+            rows.append((seed, name, f, err, s))
+    return rows
+
+
+def clopper_pearson(k, n, level=0.95):
+    """Exact binomial interval of a share ``k / n`` (Clopper & Pearson, Biometrika
+    26:404, 1934), as (low, high)."""
+    a = 1.0 - level
+    lo = stats.beta.ppf(a / 2, k, n - k + 1) if k > 0 else 0.0
+    hi = stats.beta.ppf(1 - a / 2, k + 1, n - k) if k < n else 1.0
+    return float(lo), float(hi)
+
+
+def summary(df):
+    """Lines of the coverage table: per figure the share within 2 sigma, its 95 %
+    interval, the median |error| / sigma and the counts."""
+    df = df.assign(ratio=np.abs(df.err) / df.sigma)
+    runs = df.seed.nunique()
+    out = [f"== {runs} runs: share within 2 sigma (target 90-98 %), its 95 % interval "
+           "(Clopper-Pearson over runs: the sources of one run share the truth's error), "
+           "median |error| / sigma (0.67 for an honest normal sigma)"]
+    groups = [*df[df.source != "clock"].groupby("figure"), ("all drift figures",
+                                                          df[df.source != "clock"]),
+              ("clock offset", df[df.source == "clock"])]
+    for f, d in groups:
+        if not len(d):
+            continue
+        share = float(np.mean(d.ratio <= 2))
+        n = d.seed.nunique()
+        lo, hi = clopper_pearson(round(share * n), n)
+        out.append(f"  {f:24s} {100 * share:5.1f} %  [{100 * lo:3.0f}, {100 * hi:3.0f}] %"
+                   f"  median {d.ratio.median():.2f}  (n = {len(d)} over {n} runs)")
+    ck = df[df.source == "clock"]
+    if len(ck):
+        out.append("  clock errors [ms]: " + ", ".join(f"{1e3 * e:+.2f}" for e in ck.err)
+                   + "; sigmas [ms]: " + ", ".join(f"{1e3 * s:.2f}" for s in ck.sigma))
+    return out
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--seeds", default="0-19")
+    ap.add_argument("--seeds", default="0-39")
     ap.add_argument("--scenario", default="tank-tripod")
+    ap.add_argument("--vary-camera", action="store_true",
+                    help="move the camera by each seed's draw (see camera_overrides)")
+    ap.add_argument("--csv", help="also write the rows (seed, source, figure, err, "
+                    "sigma) here")
+    ap.add_argument("--from-csv", help="summarise rows written by --csv; nothing run")
     args = ap.parse_args(argv)
+    if args.from_csv:
+        print("\n".join(summary(pd.read_csv(args.from_csv))))
+        return
     lo, _, hi = args.seeds.partition("-")
-    seeds = range(int(lo), int(hi or lo) + 1)
-    rows, clocks = [], []
-    for seed in seeds:
-        run = rendered(args.scenario, seed)
-        g = grade_run(run / "video.mp4", run / "log.csv", run / "robot.toml",
-                      run / "field.toml", run / "camera.toml")
-        t = _true_grade(run, g)
-        clk = json.loads((run / "truth" / "meta.json").read_text())["log_clock"]
-        tl = float(np.median(g.odometry[next(iter(g.odometry))]["t_s"]))  # video times
-        tl_log = g.clock.to_log(tl) if hasattr(g.clock, "to_log") else tl - g.clock.offset_s
-        true_v = tl_log / (1.0 + float(clk.get("rate_error", 0.0))) + float(clk["offset_s"])
-        clocks.append((float(g.clock.to_video(np.array([tl_log]))[0]) - true_v,
-                       g.clock.sigma_s))
-        for name, m in g.metrics.items():
-            if name not in t.metrics:
-                continue
-            for f in FIGURES:
-                v, s, ref = getattr(m, f), (m.sigma or {}).get(f), getattr(t.metrics[name], f)
-                if v is None or s is None or ref is None or not s > 0:
-                    continue
-                err = v - ref
-                if f.endswith("_rad"):
-                    err = (err + np.pi) % (2 * np.pi) - np.pi
-                rows.append((seed, name, f, err, s))
-        print(f"seed {seed}: {len(g.metrics)} sources graded", flush=True)
+    rows = []
+    for seed in range(int(lo), int(hi or lo) + 1):
+        over = camera_overrides(args.scenario, seed) if args.vary_camera else {}
+        try:
+            new = run_rows(rendered(args.scenario, seed, **over), seed)
+        except VidodoError as exc:  # e.g. a moved camera that no longer sees the field
+            print(f"seed {seed}: not graded ({exc})", flush=True)
+            continue
+        rows += new
+        print(f"seed {seed}: {len({r[1] for r in new}) - 1} sources graded", flush=True)
     df = pd.DataFrame(rows, columns=["seed", "source", "figure", "err", "sigma"])
-    df["ratio"] = np.abs(df.err) / df.sigma
-    print(f"\n== {len(set(df.seed))} runs, {len(df)} figures: share within 2 sigma "
-          "(target 90-98 %), median |error| / sigma")
-    for f, d in df.groupby("figure"):
-        print(f"  {f:24s} {100 * np.mean(d.ratio <= 2):5.1f} %  median {d.ratio.median():.2f}"
-              f"  (n = {len(d)})")
-    print(f"  {'all figures':24s} {100 * np.mean(df.ratio <= 2):5.1f} %")
-    ck = [(e, s) for e, s in clocks if s]
-    if ck:
-        r = np.array([abs(e) / s for e, s in ck])
-        print(f"  {'clock offset':24s} {100 * np.mean(r <= 2):5.1f} %  median {np.median(r):.2f}"
-              f"  (n = {len(r)}; errors {', '.join(f'{1e3 * e:+.2f}' for e, _ in ck)} ms, "
-              f"sigmas {', '.join(f'{1e3 * s:.2f}' for _, s in ck)} ms)")
+    if args.csv:
+        df.to_csv(args.csv, index=False)
+    print("\n" + "\n".join(summary(df)))
 
 
 if __name__ == "__main__":

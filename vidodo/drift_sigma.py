@@ -10,7 +10,11 @@ Monte Carlo method"): each draw perturbs
 * the truth track by its 1-sigma per sample (``sigma_xy_m`` split equally over x and
   y, ``sigma_heading_rad``), correlated in time as a first-order Gauss-Markov process
   with :data:`CORRELATION_S` (the smoothed track's errors persist over neighbouring
-  frames; fully independent draws would average away under the final pose's local fit),
+  frames; fully independent draws would average away under the final pose's local fit);
+  the clock of that process runs only while the robot moves (:func:`moving_steps`): a
+  standing robot shows the camera the same marker at the same place, and the smoother
+  has already averaged its frames, so its error stays for the whole stop (the final
+  pose, averaged over a stop, keeps the 1-sigma of one sample, as the anchor does),
 * the anchor pose (where the source is placed on the truth) by its own sigma,
 * the clock offset by the clock's sigma (the source is sampled that much earlier or
   later),
@@ -45,7 +49,8 @@ import numpy as np
 from .errors import MeasurementError
 from .metrics import MetricSettings, anchor_poses, source_metrics
 
-__all__ = ["DriftInputs", "FIGURES", "CORRELATION_S", "figure_sigmas", "derived_sigmas"]
+__all__ = ["DriftInputs", "FIGURES", "CORRELATION_S", "figure_sigmas", "derived_sigmas",
+           "moving_steps"]
 
 FIGURES = ("ate_rmse_m", "rpe_path_rmse_m", "rpe_time_rmse_m", "final_err_m",
            "final_heading_err_rad", "max_err_m")
@@ -88,11 +93,27 @@ class DriftInputs:
     """Settings of :func:`vidodo.metrics.source_metrics` as used."""
 
 
-def _gauss_markov(t, rng, n, tau):
-    """Unit-variance first-order Gauss-Markov draws, ndarray (N, n), on times ``t``."""
+def moving_steps(poses, cum_length_m, sigma_heading_rad):
+    """Whether the robot moved between each sample and the one before, ndarray (N,) of
+    bool (False for the first): the truth's path length grew (steps under its noise gate
+    are held back, :func:`vidodo.metrics.path_length`) or its heading changed by at
+    least 3 of its 1-sigma (the gate of the turn count)."""
+    s = np.asarray(cum_length_m, float)
+    h = np.asarray(poses, float)[:, 2]
+    sh = np.nan_to_num(np.asarray(sigma_heading_rad, float))
+    out = np.zeros(s.size, bool)
+    out[1:] = (np.diff(s) > 0) | ~(np.abs(np.diff(h)) < 3.0 * sh[1:])
+    return out
+
+
+def _gauss_markov(t, rng, n, tau, moving=None):
+    """Unit-variance first-order Gauss-Markov draws, ndarray (N, n), on times ``t``;
+    with ``moving`` (N,) bool, time passes only over the steps marked True."""
     out = np.empty((t.size, n))
     out[0] = rng.standard_normal(n)
     dt = np.diff(t, prepend=t[0])
+    if moving is not None:
+        dt = np.where(moving, dt, 0.0)
     rho = np.exp(-np.nan_to_num(dt, nan=0.0) / tau)
     for k in range(1, t.size):
         out[k] = rho[k] * out[k - 1] + np.sqrt(1.0 - rho[k] ** 2) * rng.standard_normal(n)
@@ -140,9 +161,10 @@ def _draw_figures(inp: DriftInputs, rng, draws, *, truth_only):
     sh = np.nan_to_num(np.asarray(inp.sigma_heading_rad, float))
     sa_xy, sa_h = (0.0, 0.0) if truth_only else inp.anchor_sigma
     sc = 0.0 if truth_only else inp.clock_sigma_s
+    moving = moving_steps(q, inp.cum_length_m, sh)
     values = {f: [] for f in FIGURES}
     for _ in range(draws):
-        noise = _gauss_markov(t, rng, 3, CORRELATION_S)
+        noise = _gauss_markov(t, rng, 3, CORRELATION_S, moving)
         qd = q + noise * np.column_stack([sxy, sxy, sh])
         dt = float(rng.normal(0.0, sc)) if sc > 0 else 0.0
         p, pa = inp.source_at(dt)

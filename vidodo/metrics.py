@@ -220,6 +220,18 @@ def anchor_heading_from_travel(t_s, truth_poses, anchored_poses, k0, *, sigma_m=
     (least squares, Umeyama 1991 with the translation fixed) is a second measurement of
     the start heading; odometry over so short a stretch has hardly drifted.
 
+    Its 1-sigma has two parts, added in quadrature. The truth's fresh noise averages
+    over the stretch's samples (independent in blocks of ``stretch.corr_samples``):
+    ``sigma / rms(d) * sqrt(corr_samples / n)``. The errors that belong to the place in
+    the image (the floor registration's, the marker's perspective and lens errors) do
+    not: over a stretch of a metre they change little from sample to sample, yet the
+    anchor point's error and the stretch's differ. To first order the fitted rotation
+    moves by ``(e_stretch - e_anchor) x sum(d) / sum(|d|^2)`` (``d`` the truth's
+    displacements from the anchor, the cross product in the plane); with the two
+    errors independent, each with its own 1-sigma per axis (``sigma / sqrt 2``, the
+    track's sigma being the radial RMS), that term is
+    ``sqrt(s_a^2 + s_stretch^2) / sqrt(2) * |sum(d)| / sum(|d|^2)``.
+
     Parameters
     ----------
     t_s : ndarray of shape (N,)
@@ -227,8 +239,9 @@ def anchor_heading_from_travel(t_s, truth_poses, anchored_poses, k0, *, sigma_m=
         Truth and the source anchored at sample ``k0``.
     k0 : int
         Anchor sample.
-    sigma_m : float, optional
-        Truth position 1-sigma [m]; 2 mm when not given.
+    sigma_m : float or ndarray of shape (N,), optional
+        Truth position 1-sigma (radial RMS), one value or per sample [m]; 2 mm when
+        not given.
     t_stop_s : float, optional
         End the stretch here (e.g. before the first slip or lift event) [s].
     stretch : TravelStretch, optional
@@ -264,12 +277,17 @@ def anchor_heading_from_travel(t_s, truth_poses, anchored_poses, k0, *, sigma_m=
     cross = float(np.sum(dp[:, 0] * dq[:, 1] - dp[:, 1] * dq[:, 0]))
     dot = float(np.sum(dp[:, 0] * dq[:, 0] + dp[:, 1] * dq[:, 1]))
     dh = math.atan2(cross, dot)
-    sig = 0.002 if sigma_m is None else float(sigma_m)
     rms = float(np.sqrt(np.mean(np.sum(dp**2, axis=1))))
     if rms < 1e-6:  # the source did not move over the stretch: no heading from it
         return None, None
-    sigma = sig / rms * math.sqrt(corr_samples / idx.size)
-    return dh, sigma
+    sig = np.broadcast_to(np.asarray(0.002 if sigma_m is None else sigma_m, dtype=float),
+                          t.shape)
+    s_stretch = float(np.sqrt(np.nanmean(sig[idx] ** 2)))
+    s_anchor = float(sig[k0]) if np.isfinite(sig[k0]) else s_stretch
+    fresh = s_stretch / rms * math.sqrt(corr_samples / idx.size)
+    lever = float(np.hypot(*dq.sum(axis=0)) / np.sum(dq**2))
+    place = math.hypot(s_anchor, s_stretch) / math.sqrt(2.0) * lever
+    return dh, math.hypot(fresh, place)
 
 
 def local_pose(t_s, poses, t0_s, sigma_m, *, half_s=0.3):

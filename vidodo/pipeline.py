@@ -410,7 +410,8 @@ def _source_step(name, p, vdf, ref, events, warn, clock_sigma_s=0.0) -> _SourceG
     k0 = int(np.searchsorted(t, ta))
     later = [e.t_start_s for e in events if e.t_start_s > ta]
     dh, sig_rot = anchor_heading_from_travel(
-        t, q, a, k0, sigma_m=sxy, t_stop_s=min(later) - 0.05 if later else None)
+        t, q, a, k0, sigma_m=_filled(ref.frame["sigma_xy_m"].to_numpy(float), sxy),
+        t_stop_s=min(later) - 0.05 if later else None)
     heading = None
     if dh is not None:
         # the truth heading at the start and the heading implied by the first
@@ -443,6 +444,11 @@ def _source_step(name, p, vdf, ref, events, warn, clock_sigma_s=0.0) -> _SourceG
     except MeasurementError:
         best = None
     return _SourceGrade(anchored, m, best, heading)
+
+
+def _filled(values, typical):
+    """Per-sample values with the missing ones (NaN) replaced by ``typical``."""
+    return np.where(np.isfinite(values), values, typical)
 
 
 def _figure_sigmas(m, ref, vdf, k0, ta, qa, sig_rot, clock_sigma_s, kw):
