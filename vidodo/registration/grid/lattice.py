@@ -19,9 +19,6 @@ __all__ = ["CORNER_NAMES", "TILING_CONTINUES", "initial_lattice", "orient",
            "homography_from_lattice", "distort"]
 
 
-#: Most vanishing points (seam directions) tried in pairs when the two strongest
-#: directions show no periodic lattice (wall tops, tape, print and robots add others).
-MAX_DIRECTIONS = 5
 #: Most line positions sampled across one family (bins of about one image pixel).
 MAX_BINS = 20000
 #: The line positions searched are those of seam evidence where the lines are at least
@@ -184,37 +181,22 @@ def _families(grey, camera, ignore, rng, colour=None) -> _Families:
     score = _lattice_score(best)
     if score > 0:
         return best
-    # The two strongest directions need not be the tiles' (wall tops, tape, print): more
-    # directions are found on the segments left over, and of every pair of them the one
-    # whose weaker family shows the clearest periodic lattice wins.
-    found = [(vp1, in1), (vp2, in2)]
-    _more_directions(cseg, rng, tol, found)
-    for i in range(len(found)):
-        for j in range(i + 1, len(found)):
-            if (i, j) == (0, 1):
-                continue
-            other = _rectified(ctx, found[i], found[j])
-            sc = _lattice_score(other)
-            if sc > score:
-                best, score = other, sc
+    # The two strongest directions need not be the tiles' (wall tops, tape, print): a
+    # third direction is tried with each, and the pair whose both families show a
+    # periodic lattice wins.
+    rest3 = rest.copy()
+    rest3[np.nonzero(rest)[0][in2r]] = False
+    vp3, in3r = find_vp(cseg[rest3], np.zeros(2), rng, tol, exclude=vp1)
+    if vp3 is None or in3r.sum() < 3 or same_direction(vp3, vp2, np.zeros(2)):
+        return best
+    in3 = np.zeros(len(cseg), bool)
+    in3[np.nonzero(rest3)[0][in3r]] = True
+    for pair in (((vp1, in1), (vp3, in3)), ((vp2, in2), (vp3, in3))):
+        other = _rectified(ctx, *pair)
+        sc = _lattice_score(other)
+        if sc > score:
+            best, score = other, sc
     return best
-
-
-def _more_directions(cseg, rng, tol, found, n_max=MAX_DIRECTIONS):
-    """Append to ``found`` ((vp, inlier mask) pairs) further vanishing points of the
-    segments no earlier one explains, each in a new direction, up to ``n_max`` in all."""
-    left = ~np.any([inl for _vp, inl in found], axis=0)
-    for _ in range(2 * n_max):
-        if len(found) >= n_max or left.sum() < 6:
-            return
-        vp, inl_r = find_vp(cseg[left], np.zeros(2), rng, tol, exclude=found[0][0])
-        if vp is None or inl_r.sum() < 3:
-            return
-        inl = np.zeros(len(cseg), bool)
-        inl[np.nonzero(left)[0][inl_r]] = True
-        left &= ~inl
-        if not any(same_direction(vp, other, np.zeros(2)) for other, _i in found):
-            found.append((vp, inl))
 
 
 def _lattice_score(fams: _Families) -> float:
