@@ -102,9 +102,10 @@ predicted edges, 9 field place not fixed by the view, 8 collinear grid corners,
 6 implausible camera height, 9 orientation against the tile counts.
 
 Seam evidence per image pixel (issue 12 follow-up, 2026-12-03, all 240 seeds,
-``--cache``, ``--jobs 1``, lens as each scene says). Before: the periodic lattice
-above (seeds 0-114 from that run, 115-239 run the same day on the main branch). After (measured before the rebase onto the registration uncertainty work): the
-dense seam evidence across each family accumulated over the image's pixels
+``--cache``, ``--jobs 1``, lens as each scene says). Before: the periodic lattice above
+(seeds 0-114 from that run, 115-239 run the same day on the main branch). After
+(measured before the rebase onto the registration uncertainty work): the dense seam
+evidence across each family accumulated over the image's pixels
 (``vidodo/registration/grid/cover.py``) instead of sampled along lines of the rectified
 floor, whose stretch near a misplaced horizon left most line positions unsampled (one
 family "not visible" although its seams were found), and the self-check refusing a
