@@ -9,6 +9,7 @@ given a wrong lens): the check must refuse it from the picture alone.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import cv2
@@ -21,7 +22,7 @@ from test_profiles import ROBOT
 from vidodo.cli_main import main
 from vidodo.errors import EXIT_MEASURE, REFUSAL_HINT, RegistrationRefused
 from vidodo.outputs import MANIFEST
-from vidodo.profiles import FieldProfile
+from vidodo.profiles import FieldProfile, camera_to_dict, dump_toml
 from vidodo.registration import grid, selfcheck
 from vidodo.registration.camera_fit import CameraFit
 from vidodo.registration.frame import FrameRegistration
@@ -138,6 +139,25 @@ def test_refused_image_halves_disagree(still, tmp_path, monkeypatch, capsys):
     monkeypatch.setattr(selfcheck, "subset_disagreement_m", lambda *a: 0.08)
     _refused(capsys, [str(d / "floor.png"), "--field", str(_field_toml(d, 6, 0.6))],
              tmp_path / "out", "halves of the image disagree by 80 mm")
+
+
+def test_refused_small_picture_without_lens_profile(tmp_path, monkeypatch, capsys):
+    """Under 1280 px without a lens profile the lens rests on the seams alone: refused;
+    the same picture with its lens profile passes (the check is about the lens)."""
+    cam = dataclasses.replace(CAM, width_px=960, height_px=540, fx_px=750.0, fy_px=750.0,
+                              cx_px=481.0, cy_px=268.0)
+    tex, org = tile_texture(FIELD)
+    rvec, tvec = tripod_pose()
+    cv2.imwrite(str(tmp_path / "small.png"), render_view(tex, org, cam, rvec, tvec,
+                                                         supersample=1))
+    _fake_grid(monkeypatch, rvec, tvec, k=cam.matrix, dist=cam.dist_coeffs)
+    field = _field_toml(tmp_path, 6, 0.6)
+    _refused(capsys, [str(tmp_path / "small.png"), "--field", str(field)],
+             tmp_path / "out", "without a lens profile the lens is estimated on the tile seams")
+    (tmp_path / "camera.toml").write_text(dump_toml(camera_to_dict(cam)))
+    code = main(["register", str(tmp_path / "small.png"), "--field", str(field), "--camera",
+                 str(tmp_path / "camera.toml"), "-o", str(tmp_path / "ok"), "--quiet"])
+    assert code == 0, capsys.readouterr().err
 
 
 def _refused_points(capsys, still, tmp_path, rvec, tvec, floor, reason_part):

@@ -13,7 +13,10 @@ Steps (no markers, no clicks):
    *Multiple View Geometry*, 2nd ed., section 2.7). Spacing and phase of each family
    come from a matched filter over the dense seam evidence across it (teeth on seams
    against points half a spacing off), refined as a 1-D projective map of the line
-   index (:mod:`.periodic`); this needs only part of the field in view.
+   index (:mod:`.periodic`); this needs only part of the field in view. The dense
+   evidence is accumulated over the image's pixels, each binned by its line position
+   (:mod:`.cover`), so that lines near the camera and near the horizon are sampled
+   alike.
 3. The field's ``tiles_x + 1`` by ``tiles_y + 1`` lines are placed among the lattice
    lines where the tiling visibly ends (else by a guess of whole tiles, which the
    self-check refuses unless the caller fixes it); windows of whole-field combs (the

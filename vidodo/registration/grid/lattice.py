@@ -11,12 +11,21 @@ import numpy as np
 
 from ...errors import CalibrationError
 from ...profiles import FieldProfile
+from .cover import MIN_LINE_PX, family_cover, family_rho, pixel_grid
 from .periodic import family_period, lattice_lines, line_rho, tiling_continues, window_starts
 from .segments import find_segments, find_vp, same_direction
 
 __all__ = ["CORNER_NAMES", "TILING_CONTINUES", "initial_lattice", "orient",
            "homography_from_lattice", "distort"]
 
+
+#: Most line positions sampled across one family (bins of about one image pixel).
+MAX_BINS = 20000
+#: The line positions searched are those of seam evidence where the lines are at least
+#: this share as far apart in the image as where they are farthest apart (nearest the
+#: camera): farther off, the tiles shrink below a few pixels, and a misplaced horizon
+#: (vanishing points a little off) stretches the rectified floor without bound.
+NEAR_SHARE = 0.05
 
 CORNER_NAMES = ("near-left", "near-right", "far-right", "far-left")
 TILING_CONTINUES = ("more tile seams are in view than the field has tiles: the tiles continue "
@@ -36,6 +45,12 @@ def _best_combs(rhos, cover, speed, n_teeth, p_min, p_max, min_gap_px=8.0, keep=
     list of (period, start, mean evidence under the teeth)
         The ``keep`` best distinct combs, best first.
     """
+    factor = -(-len(rhos) // 1200)
+    if factor > 1:  # the combs' search needs no finer bins than 1200 across
+        n = len(rhos) // factor * factor
+        rhos = rhos[:n].reshape(-1, factor).mean(axis=1)
+        cover = cover[:n].reshape(-1, factor).max(axis=1)
+        speed = speed[:n].reshape(-1, factor).mean(axis=1)
     step = rhos[1] - rhos[0]
     # Tolerate a tooth landing a bin or two off a line (curvature, rounding).
     c = cv2.dilate(cover.astype(np.float32).reshape(1, -1), np.ones((1, 5), np.uint8)).ravel()
@@ -160,7 +175,8 @@ def _families(grey, camera, ignore, rng, colour=None) -> _Families:
     in2 = np.zeros(len(cseg), bool)
     in2[np.nonzero(rest)[0][in2r]] = True
     ctx = dict(cseg=cseg, scale=scale, centre=centre, camera=camera, evidence=evidence,
-               line_angle=line_angle, shape=(h, w))
+               line_angle=line_angle, shape=(h, w),
+               grid=pixel_grid((h, w), camera, centre, scale, ignore))
     best = _rectified(ctx, (vp1, in1), (vp2, in2))
     score = _lattice_score(best)
     if score > 0:
@@ -226,41 +242,41 @@ def _rectified(ctx, fam1, fam2) -> _Families:
 
     fams = _Families(fam, to_image, ctx["evidence"], ctx["line_angle"],
                      int(in1.sum() + in2.sum()))
-    mids = _apply(rect, (cseg[:, :2] + cseg[:, 2:]) / 2)
+    # The floor's side of the horizon: where the two families' segments lie.
+    mids = (cseg[in1 | in2, :2] + cseg[in1 | in2, 2:]) / 2
+    side = mids @ rect[2, :2] + rect[2, 2]
+    floor_sign = 1.0 if np.sum(np.sign(side)) >= 0 else -1.0
     for f in fam:
-        _family_cover(fams, f, mids, ctx["shape"])
+        _family_cover(fams, f, ctx, rect, floor_sign)
     return fams
 
 
 
 
-def _family_cover(fams: _Families, f, mids, shape):
+def _family_cover(fams: _Families, f, ctx, rect, floor_sign):
     """Dense seam evidence across one family (into ``f``): for every line position rho
     (in the rectified frame) the fraction of its visible length lying on a thin line or
-    a strong edge in the image, and image pixels per unit of rho."""
-    to_image = fams.to_image
-    t = (mids - f["ref"]) @ f["dir"]
-    ts = np.linspace(np.percentile(t, 1), np.percentile(t, 99), 200)
-    lo, hi = np.percentile(f["pos"], [0.5, 99.5])
-    # Sampled 35 % beyond the seams found (where the tiling may be seen to end); the
-    # whole-field combs look only 15 % beyond.
+    a strong edge running along it, and image pixels per unit of rho
+    (:func:`.cover.family_cover`)."""
+    per_pixel = family_rho(ctx["grid"], rect, f, fams.evidence, fams.line_angle,
+                           floor_sign)
+    rho, grad, ok, hit = per_pixel
+    # The range of line positions: where this family's seam evidence lies, counted per
+    # image pixel (a few segments near the horizon, where rho runs away, do not set it).
+    px_per_rho = float(np.percentile(1.0 / grad[ok], 99)) if ok.any() else 1.0
+    near = hit & (1.0 / np.where(grad > 0, grad, np.inf) >= NEAR_SHARE * px_per_rho)
+    lo, hi = np.percentile(rho[near], [1, 99]) if near.sum() >= 50 else np.percentile(
+        f["pos"], [0.5, 99.5])
+    # Sampled 35 % beyond (where the tiling may be seen to end); the whole-field combs
+    # look only 15 % beyond. Bins about one image pixel wide where the lines are
+    # farthest apart in the image (near the camera); near the horizon a bin spans
+    # several lines, which are too close there to be told apart anyway.
     pad = 0.35 * (hi - lo)
-    rhos = np.linspace(lo - pad, hi + pad, 1200)
-    pts = (f["ref"][None, None, :] + rhos[:, None, None] * f["normal"][None, None, :]
-           + ts[None, :, None] * f["dir"][None, None, :])
-    img = to_image(pts.reshape(-1, 2)).reshape(len(rhos), len(ts), 2)
-    inside, hit = _hits(fams, img, shape)
-    n_in = inside.sum(axis=1)
-    seen = n_in >= 0.2 * len(ts)
-    cover = np.where(seen, hit.sum(axis=1) / np.maximum(n_in, 1), 0.0)
-    # Image pixels per unit of rho (near the horizon many rho map to one image line).
-    across = np.linalg.norm(np.gradient(img, rhos, axis=0), axis=-1)
-    across = np.where(inside, across, np.nan)
-    across = np.where(np.isfinite(across), across, np.inf)
-    speed = np.where(inside.any(axis=1), np.sort(across, axis=1)[
-        np.arange(len(rhos)), np.maximum(inside.sum(axis=1) // 2, 0)], 0.0)
-    f["rhos"], f["cover"], f["speed"] = rhos, cover, np.nan_to_num(speed, posinf=0.0)
-    f["seen"] = seen
+    n_bins = int(np.clip((hi - lo + 2 * pad) * px_per_rho, 1200, MAX_BINS))
+    rhos = np.linspace(lo - pad, hi + pad, n_bins)
+    cover, length, speed = family_cover(per_pixel, rhos)
+    f["rhos"], f["cover"], f["speed"] = rhos, cover, speed
+    f["seen"] = length >= MIN_LINE_PX
     f["extent"] = hi - lo
     f["comb"] = np.abs(rhos - (lo + hi) / 2) <= (hi - lo) * 0.65
 
