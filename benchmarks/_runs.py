@@ -32,3 +32,23 @@ def rendered(name: str, seed: int = 0, **overrides) -> Path:
     simulate_run(sc, seed, folder)
     (folder / ".complete").write_text(key)
     return folder
+
+
+def looped(name: str, seconds: float, seed: int = 0, **overrides) -> Path:
+    """Scenario ``name`` driven round again and again, cut to ``seconds`` of video.
+
+    Each lap is the scenario's own path, then a drive back to the start and a turn to
+    the start heading; faults stay in the first lap. For benchmarks that need clips
+    of the lengths users film (the 9 s ``fullhd60`` run is mostly fixed costs).
+    """
+    from vidodo.profiles import read_toml
+    from vidodo.synth.scenario import _locate
+
+    data, _ = read_toml(_locate(name))
+    robot = data.get("robot", {})
+    back = [{"kind": "drive", "x_m": robot.get("start_x_m", 0.0),
+             "y_m": robot.get("start_y_m", 0.0)},
+            {"kind": "turn", "heading_deg": robot.get("start_heading_deg", 0.0)}]
+    laps = max(int(seconds / 4.0), 1)  # a lap lasts well over 4 s
+    return rendered(name, seed, segment=(list(data["segment"]) + back) * laps,
+                    **{"video.max_duration_s": float(seconds)}, **overrides)

@@ -76,21 +76,24 @@ def _roi(last, prev, frame_shape, gap_frames, side_frac=None, pad_px=None):
     """Search window around the corners predicted from the last two detections."""
     if last is None:
         return None
-    pred = last
     if prev is not None and prev.shape != last.shape:
         prev = None
-    if prev is not None and gap_frames <= 3:
-        pred = last + (last - prev) * gap_frames
-    side = float(np.max(np.ptp(last, axis=0)))
-    step = 0.0 if prev is None else float(np.max(np.abs(last - prev)))
+    # Called two or three times a frame on a handful of corners: few NumPy calls.
+    lo, hi = last.min(axis=0), last.max(axis=0)
+    side = float((hi - lo).max())
+    step = 0.0
+    if prev is not None:
+        moved = last - prev
+        step = float(np.abs(moved).max())
+        if gap_frames <= 3:
+            pred = last + moved * gap_frames
+            lo, hi = np.minimum(lo, pred.min(axis=0)), np.maximum(hi, pred.max(axis=0))
     side_frac = WINDOW_SIDE_FRAC if side_frac is None else side_frac
     pad_px = WINDOW_PAD_PX if pad_px is None else pad_px
     margin = side_frac * side + pad_px + 1.5 * step * gap_frames
-    lo = np.floor(np.min(np.vstack([pred, last]), axis=0) - margin).astype(int)
-    hi = np.ceil(np.max(np.vstack([pred, last]), axis=0) + margin).astype(int)
     h, w = frame_shape[:2]
-    u0, v0 = max(lo[0], 0), max(lo[1], 0)
-    u1, v1 = min(hi[0], w), min(hi[1], h)
+    u0, v0 = max(math.floor(lo[0] - margin), 0), max(math.floor(lo[1] - margin), 0)
+    u1, v1 = min(math.ceil(hi[0] + margin), w), min(math.ceil(hi[1] + margin), h)
     if u1 - u0 < 16 or v1 - v0 < 16 or (u1 - u0) * (v1 - v0) > 0.5 * w * h:
         return None
     return (int(u0), int(v0), int(u1), int(v1))
@@ -206,7 +209,8 @@ def _track_into(acc, frames, robot, field_profile, registrar, settings, video_in
         acc.n_markers.append(nm)
         if progress is not None:
             progress(index + 1, total)
-        if settings.window and coming is not None and last.corners is not None:
+        if settings.window and coming is not None and last.corners is not None \
+                and det.refine == "hybrid":
             # Start the next frame's SUBPIX pass while this thread moves on.
             gap = coming[0] - last.index
             det.prefetch(coming[2], _context_roi(last.corners, last.prev, coming[2].shape, gap),
@@ -238,7 +242,8 @@ def _find_markers(acc, frame, index, last, window):
     if roi is not None:
         acc.window_searches += 1
         least = SHRINK_PER_FRAME * last.side if index - last.index <= 3 else None
-        wide = _context_roi(last.corners, last.prev, frame.shape, index - last.index)
+        wide = (_context_roi(last.corners, last.prev, frame.shape, index - last.index)
+                if det.refine == "hybrid" else None)  # only its SUBPIX pass uses it
         dets = det.detect(frame, roi, min_side_px=least, context_roi=wide)
         if not dets and last.cell < 4.0:  # small marker: try a 2x enlarged window
             dets = det.detect(frame, roi, upscale=2, min_side_px=least, context_roi=wide)
