@@ -40,9 +40,12 @@ def grid_polylines_px(reg, field, samples: int = 48):
     t = np.linspace(0.0, 1.0, samples)[:, None]
     out = [(np.asarray(a) + t * (np.asarray(b) - np.asarray(a)), border)
            for a, b, border in ends]
+    # every seam in one projection, then cut back into lines
+    px_all = np.asarray(reg.floor_to_image(np.vstack([pts for pts, _ in out])),
+                        float).reshape(-1, 2)
     lines = []
-    for pts, border in out:
-        px = np.asarray(reg.floor_to_image(pts), float).reshape(-1, 2)
+    for k, (_pts, border) in enumerate(out):
+        px = px_all[k * samples:(k + 1) * samples]
         good = np.all(np.isfinite(px), axis=1) & np.all(np.abs(px) < 1e5, axis=1)
         if good.sum() >= 2:
             lines.append((px[good], border))
@@ -50,13 +53,17 @@ def grid_polylines_px(reg, field, samples: int = 48):
 
 
 def draw_grid_overlay(img, reg, field, *, alpha: float = 0.35, thickness: int = 1,
-                      colour=GRID_BGR, outline_colour=OUTLINE_BGR, scale: float = 1.0):
+                      colour=GRID_BGR, outline_colour=OUTLINE_BGR, scale: float = 1.0,
+                      lines=None):
     """Draw the registered grid on ``img`` in place (blended by ``alpha``); returns it.
 
     ``scale`` is the size of ``img`` relative to the frame ``reg`` belongs to (for a
-    shrunken copy); pixel centres stay at integers.
+    shrunken copy); pixel centres stay at integers. ``lines``: the polylines of
+    :func:`grid_polylines_px` for ``reg`` when the caller kept them (a replay draws the
+    same registration on many frames).
     """
-    lines = [((px + 0.5) * scale - 0.5, border) for px, border in grid_polylines_px(reg, field)]
+    lines = grid_polylines_px(reg, field) if lines is None else lines
+    lines = [((px + 0.5) * scale - 0.5, border) for px, border in lines]
     if not lines:
         return img
     layer = img.copy() if alpha < 1.0 else img

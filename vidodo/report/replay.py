@@ -32,7 +32,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from ..grid_overlay import draw_grid_overlay
+from ..grid_overlay import draw_grid_overlay, grid_polylines_px
 from ..units import format_length
 from .plots import EVENT_STYLE, source_colors, source_prefixes
 
@@ -171,19 +171,26 @@ def _pose_after(tracks: ReplayTracks, poses, row: int, dt_s: float):
                      np.interp(t, ts, head)])
 
 
-def _seen_pose(tracks, poses, row, registration, marker, readout_s, height_px):
-    """The pose at the moment the rows showing it were read (rolling shutter): the row
-    of the marker's projection gives the delay after the frame time, iterated twice."""
-    pose = poses[row]
+def _seen_poses(tracks, poses_list, row, registration, marker, readout_s, height_px):
+    """Each track's pose at the moment the rows showing it were read (rolling shutter):
+    the row of the marker's projection gives the delay after the frame time, iterated
+    twice; every track's marker projected in one call per iteration. (S, 3)."""
+    out = np.array([poses[row] for poses in poses_list], float).reshape(-1, 3)
     if not readout_s or not height_px:
-        return pose
+        return out
+    active = np.ones(len(out), bool)
     for _ in range(2):
-        px = _project(registration, marker_points_m(pose[None], marker))[0]
-        if not np.all(np.isfinite(px)):
-            return pose
-        dt = float(np.clip(px[1] / height_px, 0.0, 1.0)) * readout_s
-        pose = _pose_after(tracks, poses, row, dt)
-    return pose
+        idx = np.nonzero(active)[0]
+        if not len(idx):
+            break
+        px = _project(registration, marker_points_m(out[idx], marker))
+        for k, p in zip(idx, px, strict=True):
+            if not np.all(np.isfinite(p)):
+                active[k] = False  # keeps the pose of the last good step
+                continue
+            dt = float(np.clip(p[1] / height_px, 0.0, 1.0)) * readout_s
+            out[k] = _pose_after(tracks, poses_list[k], row, dt)
+    return out
 
 
 def frame_overlay(tracks: ReplayTracks, row: int | None, registration, *, marker=None,
@@ -222,33 +229,37 @@ def frame_overlay(tracks: ReplayTracks, row: int | None, registration, *, marker
            "sources": {}, "events": []}
     if registration is None or not getattr(registration, "ok", False):
         return out
-    if row is not None:
-        t_now = tracks.t_s[row]
-        lo = int(np.searchsorted(tracks.t_s, t_now - trail_s))
-        for name, poses in [("__truth__", tracks.truth), *tracks.sources.items()]:
-            cur = _seen_pose(tracks, poses, row, registration, marker, readout_s,
-                             height_px)[None]
-            pts = marker_points_m(cur, marker)
-            tip = pts.copy()
-            tip[:, 0] += heading_len_m * np.cos(cur[:, 2])
-            tip[:, 1] += heading_len_m * np.sin(cur[:, 2])
-            trail = marker_points_m(poses[lo:row + 1], marker)
-            trail = trail[np.all(np.isfinite(trail), axis=1)]
-            px = _project(registration, pts)[0]
-            tip_px = _project(registration, tip)[0]
-            trail_px = _project(registration, trail)
-            if name == "__truth__":
-                out["truth_px"], out["truth_tip_px"] = px, tip_px
-                out["truth_trail_px"] = trail_px
-            else:
-                out["sources"][name] = {"px": px, "tip_px": tip_px, "trail_px": trail_px}
-        for num, kind, t0, t1, ex, ey in tracks.events:
-            if t_now < t0:
-                continue
-            active = t0 - 0.25 <= t_now <= t1 + 0.75
-            px = (_project(registration, np.array([[ex, ey, 0.0]]))[0]
-                  if math.isfinite(ex) and math.isfinite(ey) else None)
-            out["events"].append((num, kind, px, active))
+    if row is None:
+        return out
+    t_now = tracks.t_s[row]
+    lo = int(np.searchsorted(tracks.t_s, t_now - trail_s))
+    named = [("__truth__", tracks.truth), *tracks.sources.items()]
+    cur = _seen_poses(tracks, [poses for _, poses in named], row, registration, marker,
+                      readout_s, height_px)
+    pts = marker_points_m(cur, marker)
+    tip = pts.copy()
+    tip[:, 0] += heading_len_m * np.cos(cur[:, 2])
+    tip[:, 1] += heading_len_m * np.sin(cur[:, 2])
+    trails = [marker_points_m(poses[lo:row + 1], marker) for _, poses in named]
+    trails = [tr[np.all(np.isfinite(tr), axis=1)] for tr in trails]
+    shown = [ev for ev in tracks.events if t_now >= ev[2]]
+    spots = np.array([[ev[4], ev[5], 0.0] for ev in shown], float).reshape(-1, 3)
+    # everything in one projection (each point is mapped on its own: the same pixels)
+    px_all = _project(registration, np.vstack([pts, tip, *trails, spots]))
+    n = len(named)
+    px, tip_px = px_all[:n], px_all[n:2 * n]
+    cuts = np.cumsum([2 * n] + [len(tr) for tr in trails])
+    for k, (name, _poses) in enumerate(named):
+        trail_px = px_all[cuts[k]:cuts[k + 1]]
+        if name == "__truth__":
+            out["truth_px"], out["truth_tip_px"] = px[k], tip_px[k]
+            out["truth_trail_px"] = trail_px
+        else:
+            out["sources"][name] = {"px": px[k], "tip_px": tip_px[k], "trail_px": trail_px}
+    for (num, kind, t0, t1, ex, ey), spot_px in zip(shown, px_all[cuts[-1]:], strict=True):
+        active = t0 - 0.25 <= t_now <= t1 + 0.75
+        found = spot_px if math.isfinite(ex) and math.isfinite(ey) else None
+        out["events"].append((num, kind, found, active))
     return out
 
 
@@ -477,6 +488,8 @@ def _register_fn(registration, field, camera):
             return policy.update(frame, index, t_s, mask_fn)[0]
     elif callable(registration) and not hasattr(registration, "floor_to_image"):
         def register(frame, t_s, mask_fn, index):
+            if not getattr(registration, "takes_mask", True):  # recorded: no mask needed
+                return registration(frame, t_s)
             mask = mask_fn()
             return registration(frame, t_s, mask) if mask is not None else \
                 registration(frame, t_s)
@@ -595,7 +608,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
             return (_robot_mask(frame.shape, state["reg"], state["pose"], robot)
                     if robot is not None else None)
 
-        reg = register(frame, t_s, mask_fn, index)
+        reg = base = register(frame, t_s, mask_fn, index)
         row = tracks.row_at(t_s, max_gap_s=gap)
         state["reg"] = reg if getattr(reg, "ok", False) else state["reg"]
         state["pose"] = tracks.truth[row] if row is not None else state["pose"]
@@ -609,7 +622,10 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
         if not getattr(reg, "ok", False):
             lines.append(("floor not registered in this frame", (0, 0, 255)))
         if style.grid and setup.field is not None and getattr(reg, "ok", False):
-            frame = draw_grid_overlay(frame.copy(), reg, setup.field, alpha=0.35)
+            if state.get("grid_of") is not base:  # a registration holds for many frames
+                state["grid_of"], state["grid"] = base, grid_polylines_px(reg, setup.field)
+            frame = draw_grid_overlay(frame.copy(), reg, setup.field, alpha=0.35,
+                                      lines=state["grid"])
         return annotate_frame(frame, ov, lines=lines, colors=colors)
 
     from ..encode import write_video
@@ -709,6 +725,7 @@ def grade_registration(folder, field, camera=None, points=None):
             reg = poses.at(t_s)
             return reg if reg is not None else failed(t_s, "not registered when tracked")
 
+        register.takes_mask = False  # looked up by time: the robot's pixels do not matter
         return register, poses.detection_readout_s
     pts = points if isinstance(points, str) and Path(points).is_file() else None
     return FloorRegistrar(field, camera, points_csv=pts), 0.0
