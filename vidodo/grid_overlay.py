@@ -12,7 +12,8 @@ from __future__ import annotations
 import cv2
 import numpy as np
 
-__all__ = ["GRID_BGR", "OUTLINE_BGR", "grid_polylines_px", "draw_grid_overlay"]
+__all__ = ["GRID_BGR", "OUTLINE_BGR", "grid_polylines_px", "draw_grid_overlay",
+           "draw_grid_lines"]
 
 GRID_BGR = (255, 0, 255)
 """Colour of the tile seams drawn (magenta: rare on floors and robots)."""
@@ -53,16 +54,21 @@ def grid_polylines_px(reg, field, samples: int = 48):
 
 
 def draw_grid_overlay(img, reg, field, *, alpha: float = 0.35, thickness: int = 1,
-                      colour=GRID_BGR, outline_colour=OUTLINE_BGR, scale: float = 1.0,
-                      lines=None):
+                      colour=GRID_BGR, outline_colour=OUTLINE_BGR, scale: float = 1.0):
     """Draw the registered grid on ``img`` in place (blended by ``alpha``); returns it.
 
     ``scale`` is the size of ``img`` relative to the frame ``reg`` belongs to (for a
-    shrunken copy); pixel centres stay at integers. ``lines``: the polylines of
-    :func:`grid_polylines_px` for ``reg`` when the caller kept them (a replay draws the
-    same registration on many frames).
+    shrunken copy); pixel centres stay at integers.
     """
-    lines = grid_polylines_px(reg, field) if lines is None else lines
+    return draw_grid_lines(img, grid_polylines_px(reg, field), alpha=alpha,
+                           thickness=thickness, colour=colour,
+                           outline_colour=outline_colour, scale=scale)
+
+
+def draw_grid_lines(img, lines, *, alpha: float = 0.35, thickness: int = 1,
+                    colour=GRID_BGR, outline_colour=OUTLINE_BGR, scale: float = 1.0):
+    """:func:`draw_grid_overlay` with the polylines of :func:`grid_polylines_px` given
+    (a replay draws the same registration's grid on many frames)."""
     lines = [((px + 0.5) * scale - 0.5, border) for px, border in lines]
     if not lines:
         return img

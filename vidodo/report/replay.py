@@ -32,7 +32,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from ..grid_overlay import draw_grid_overlay, grid_polylines_px
+from ..grid_overlay import draw_grid_lines, grid_polylines_px
 from ..units import format_length
 from .plots import EVENT_STYLE, source_colors, source_prefixes
 
@@ -624,8 +624,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
         if style.grid and setup.field is not None and getattr(reg, "ok", False):
             if state.get("grid_of") is not base:  # a registration holds for many frames
                 state["grid_of"], state["grid"] = base, grid_polylines_px(reg, setup.field)
-            frame = draw_grid_overlay(frame.copy(), reg, setup.field, alpha=0.35,
-                                      lines=state["grid"])
+            frame = draw_grid_lines(frame.copy(), state["grid"], alpha=0.35)
         return annotate_frame(frame, ov, lines=lines, colors=colors)
 
     from ..encode import write_video
