@@ -102,8 +102,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 from scipy.special import ndtri
-from scipy.stats import median_abs_deviation
 
+from .robust import median_abs_deviation
 from .se2 import interpolate_poses, log_increment, relative_pose, wrap_angle
 from .wheels import wheel_rows
 

@@ -50,11 +50,11 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 from scipy.optimize import least_squares
-from scipy.stats import median_abs_deviation
 
 from .errors import InputError, MeasurementError
 from .outputs import atomic_file
 from .profiles import RobotProfile, dump_toml, robot_to_dict
+from .robust import median_abs_deviation
 from .se2 import log_increment, relative_pose
 from .wheels import wheel_rows
 

@@ -7,9 +7,9 @@ from dataclasses import dataclass
 
 import cv2
 import numpy as np
-from scipy.stats import median_abs_deviation
 
 from ...profiles import CameraProfile, FieldProfile
+from ...robust import median_abs_deviation
 from ..camera_fit import FitOptions, fit_camera
 from ..frame import FrameRegistration
 
