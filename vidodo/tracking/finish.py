@@ -27,6 +27,7 @@ from .noise import (
     readout_block_sigma,
     readout_terms,
 )
+from .registration_error import registration_pose_covs
 from .result import REGISTRATION_COLUMNS, TRACK_COLUMNS, TrackResult
 from .settings import TrackSettings
 from .smooth import rts_smooth_signals
@@ -272,12 +273,15 @@ def _registration_error(acc, fixes, idx, n):
     """
     mpp = np.interp(np.arange(n), idx, [f.m_per_px for f in fixes])
     # The registration's own parameter error carried through the pose fit
-    # (registration_error.registration_pose_cov), where the registration has a
+    # (registration_error.registration_pose_covs), where the registration has a
     # covariance; else its mean prediction error: a least-squares fit of p parameters
     # to n observations with residual sigma predicts with mean variance sigma^2 p / n
     # (the trace of the hat matrix; e.g. Draper & Smith, Applied Regression Analysis,
     # 3rd ed., section 8.1), carried to the floor through the image scale at the marker.
-    cov = np.array([acc.reg_cov.get(int(i), np.full((3, 3), np.nan)) for i in idx])
+    held = [int(i) for i in idx if int(i) in acc.reg_inputs]
+    by_frame = dict(zip(held, registration_pose_covs([acc.reg_inputs[i] for i in held]),
+                        strict=True))
+    cov = np.array([by_frame.get(int(i), np.full((3, 3), np.nan)) for i in idx])
     var_xy = np.interp(np.arange(n), idx, cov[:, 0, 0] + cov[:, 1, 1])
     var_h = np.interp(np.arange(n), idx, cov[:, 2, 2])
     reg_px = np.asarray(acc.reg_rms_px, float)

@@ -17,7 +17,7 @@ from ..timings import StageTimes
 from ..video import readout_fraction
 from .detector import MarkerDetector, _area
 from .pose_fit import PoseFix, fit_pose
-from .registration_error import registration_pose_cov, view_rate
+from .registration_error import view_rate
 from .registration_policy import RegistrationPolicy
 from .settings import TrackSettings
 
@@ -63,8 +63,9 @@ class FrameRecords:
     unrefined: int = 0
     upscaled: int = 0
     corner_frac: dict = field(default_factory=dict)  # frame index -> (N,) fractions
-    reg_cov: dict = field(default_factory=dict)  # frame index -> (3, 3) pose covariance
-    # from the registration's own error (registration_error.registration_pose_cov)
+    reg_inputs: dict = field(default_factory=dict)  # frame index -> (fix, corners,
+    # heights, registration): what registration_error.registration_pose_covs needs, for
+    # all frames at once when the track is finished (off the per-frame path)
     view_rate: dict = field(default_factory=dict)  # frame index -> (2,) [m/s]: how fast
     # the floor point under the marker's pixel moves with the camera (0 when still)
     last_reg: tuple = (None, math.nan)  # the registration of the previous frame, its time
@@ -295,7 +296,8 @@ def _frame_fix(acc, frame, index, t_s, reg, robot, settings, video_info, last):
         cfrac = allc[:, 1] / h
     frac = float(np.mean(cfrac))
     acc.corner_frac[index] = np.asarray(cfrac, float)
-    acc.reg_cov[index] = registration_pose_cov(fix, dets, robot.markers, reg)
+    acc.reg_inputs[index] = (fix, [d.corners_px for d in dets],
+                             [robot.markers[d.marker_index].z_m for d in dets], reg)
     acc.view_rate[index] = view_rate(reg, acc.last_reg, t_s, allc.mean(axis=0),
                                      robot.markers[dets[0].marker_index].z_m)
     cell = min(math.sqrt(_area(d.corners_px)) / det.cells_across(d.marker_index)

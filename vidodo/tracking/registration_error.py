@@ -18,24 +18,68 @@ import numpy as np
 
 from ..registration.uncertainty import floor_point_covariance
 
-__all__ = ["registration_pose_cov", "view_rate", "VIEW_RATE_MAX_DT_S"]
+__all__ = ["registration_pose_cov", "registration_pose_covs", "view_rate",
+           "VIEW_RATE_MAX_DT_S"]
 
 VIEW_RATE_MAX_DT_S = 0.2
 """Longest step between two registrations differenced for :func:`view_rate` [s]."""
 
 
-def _gain_cov(fix, corners, heights, reg):
-    """``G C G^T`` for the corners (pixels in ``reg``'s image) at their heights."""
+def _jacobians(requests):
+    """Floor-point derivatives for many ``(reg, [corners], [heights])`` requests, each
+    as one (N, 2, P) array over its corners in order. The pixels of all requests that
+    share a registration and a height are mapped in one call (a fixed camera's frames
+    share one registration; mapping them frame by frame cost 1.5 ms a frame)."""
+    groups = {}
+    for r, (reg, corners, heights) in enumerate(requests):
+        for s, (c, z) in enumerate(zip(corners, heights, strict=True)):
+            groups.setdefault((id(reg), float(z)), (reg, []))[1].append((r, s, c))
+    out = [[None] * len(req[1]) for req in requests]
+    for (_, z), (reg, parts) in groups.items():
+        jac = floor_point_covariance(reg, np.concatenate([c for _, _, c in parts]), z)[1]
+        at = np.cumsum([0] + [len(c) for _, _, c in parts])
+        for (r, s, _), a, b in zip(parts, at[:-1], at[1:], strict=True):
+            out[r][s] = jac[a:b]
+    return [np.concatenate(o) if o else np.zeros((0, 2, 0)) for o in out]
+
+
+def _through_fit(fix, jac, reg):
+    """``G C G^T``: the registration's parameter covariance through the rigid fit."""
     cov = getattr(reg, "param_cov", None)
     if cov is None:
         return np.zeros((3, 3))
-    jac = np.concatenate([floor_point_covariance(reg, c, z)[1]
-                          for c, z in zip(corners, heights, strict=True)])
     if not np.all(np.isfinite(jac)):
         return np.full((3, 3), np.nan)
     a = fix.jac
     g = np.linalg.solve(np.einsum("nji,njk->ik", a, a), np.einsum("nji,njp->ip", a, jac))
     return g @ np.asarray(cov, float) @ g.T
+
+
+def registration_pose_covs(frames):
+    """:func:`registration_pose_cov` of many frames at once, ``(fix, corners, heights,
+    reg)`` each (``corners``: one (4, 2) array [px] per detection the fit used, in its
+    order; ``heights``: their markers' heights [m]); a list of (3, 3) arrays."""
+    own, tied, tied_at = [], [], []
+    for k, (fix, corners, heights, reg) in enumerate(frames):
+        own.append((reg, corners, heights))
+        earlier = getattr(reg, "tied_to", None)
+        if earlier is not None and getattr(reg, "tied_share", 0.0) > 0:
+            # The same floor corners as the earlier registration saw them.
+            floor = np.asarray(fix.floor_m, float)
+            at = np.cumsum([0] + [len(c) for c in corners])
+            seen = [earlier.floor_to_image(np.column_stack([floor[a:b], np.full(b - a, z)]))
+                    for a, b, z in zip(at[:-1], at[1:], heights, strict=True)]
+            tied.append((earlier, seen, heights))
+            tied_at.append(k)
+    jac_own = _jacobians(own)
+    jac_tied = dict(zip(tied_at, _jacobians(tied), strict=True))
+    out = []
+    for k, (fix, _c, _h, reg) in enumerate(frames):
+        cov = _through_fit(fix, jac_own[k], reg)
+        if k in jac_tied:
+            cov = cov + float(reg.tied_share) * _through_fit(fix, jac_tied[k], reg.tied_to)
+        out.append(cov)
+    return out
 
 
 def registration_pose_cov(fix, detections, markers, reg):
@@ -60,16 +104,7 @@ def registration_pose_cov(fix, detections, markers, reg):
     """
     corners = [np.asarray(d.corners_px, float) for d in detections]
     heights = [markers[d.marker_index].z_m for d in detections]
-    out = _gain_cov(fix, corners, heights, reg)
-    tied = getattr(reg, "tied_to", None)
-    if tied is not None and getattr(reg, "tied_share", 0.0) > 0:
-        # The same floor corners as the earlier registration saw them.
-        floor = np.asarray(fix.floor_m, float)
-        at = np.cumsum([0] + [len(c) for c in corners])
-        seen = [tied.floor_to_image(np.column_stack([floor[a:b], np.full(b - a, z)]))
-                for a, b, z in zip(at[:-1], at[1:], heights, strict=True)]
-        out = out + float(reg.tied_share) * _gain_cov(fix, seen, heights, tied)
-    return out
+    return registration_pose_covs([(fix, corners, heights, reg)])[0]
 
 
 def view_rate(reg, previous, t_s, pixel_px, height_m):
