@@ -22,9 +22,9 @@ from .detector import refine_bias_sigma_px
 from .noise import (
     CornerNoise,
     estimate_corner_noise,
-    estimate_readout,
     local_corner_noise,
     readout_block_sigma,
+    readout_from_terms,
     readout_terms,
 )
 from .registration_error import registration_pose_covs
@@ -328,12 +328,13 @@ def _readout(acc, run, first, sigma_px, readout_s, readout_source):
     idx = run.idx
     motion = (run.fixes, [acc.corner_frac.get(int(i), np.zeros(0)) for i in idx],
               first["vx_mps"][idx], first["vy_mps"][idx], first["omega_radps"][idx])
-    est, est_sigma, est_frames = estimate_readout(*motion, sigma_px)
+    terms = readout_terms(*motion)  # per moving frame, used twice below
+    est, est_sigma, est_frames = readout_from_terms(*terms, sigma_px)
     usable = (math.isfinite(est) and est_sigma < 0.004 and est > 3 * est_sigma
               and est < 0.1)
     # The estimate's spread over blocks of frames, where larger than the regression's
     # own sigma, is how far it may be off (the choice to use it stays with the latter).
-    spread = readout_block_sigma(*readout_terms(*motion))
+    spread = readout_block_sigma(*terms)
     honest = float(np.fmax(est_sigma, spread))
     if readout_source == "none" and usable:
         return _Readout(est, "estimated", est, honest, est_frames, usable, True)

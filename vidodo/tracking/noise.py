@@ -7,8 +7,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["estimate_readout", "readout_terms", "readout_block_sigma", "CornerNoise",
-           "estimate_corner_noise", "local_corner_noise", "LOCAL_NOISE_HALF_WINDOW"]
+__all__ = ["estimate_readout", "readout_terms", "readout_from_terms", "readout_block_sigma",
+           "CornerNoise", "estimate_corner_noise", "local_corner_noise", "LOCAL_NOISE_HALF_WINDOW"]
 
 LOCAL_NOISE_HALF_WINDOW = 15
 """Fits on each side pooled for the local corner noise: with one marker (5 degrees of
@@ -84,11 +84,17 @@ def estimate_readout(fixes, corner_frac, vx, vy, omega, sigma_px, *, min_speed_m
         ``sigma_s`` is the regression's own, for independent corner noise; see
         :func:`readout_block_sigma` for one that is not.
     """
-    num, den = readout_terms(fixes, corner_frac, vx, vy, omega, min_speed_mps=min_speed_mps)
-    total = float(den.sum())
+    terms = readout_terms(fixes, corner_frac, vx, vy, omega, min_speed_mps=min_speed_mps)
+    return readout_from_terms(*terms, sigma_px)
+
+
+def readout_from_terms(num, den, sigma_px):
+    """:func:`estimate_readout` from its per-frame terms (:func:`readout_terms`):
+    ``(readout_s, sigma_s, frames_used)``."""
+    total = float(np.sum(den))
     if total <= 0:
         return float("nan"), float("nan"), len(den)
-    return float(num.sum()) / total, sigma_px / math.sqrt(total), len(den)
+    return float(np.sum(num)) / total, sigma_px / math.sqrt(total), len(den)
 
 
 READOUT_BLOCKS = 10

@@ -529,8 +529,10 @@ def find_breaks(t_s, z, var_z, q, r_scale, *, prior_rate=5.0, prior_accel=20.0):
     of each flagged stretch every instant is tried as a restart, as an acceleration
     change and as the start of a ramp (:func:`_trials`, :func:`_release`); the one of
     highest likelihood is kept if it gains more than :data:`BREAK_MIN_GAIN`. Repeated
-    until nothing is gained (at most :data:`BREAK_ROUNDS` times). ``prior_rate`` is
-    not used (kept for callers).
+    until nothing is gained (at most :data:`BREAK_ROUNDS` times). ``prior_rate`` and
+    ``prior_accel`` are the filter's initial 1-sigma of rate and acceleration
+    (:class:`SmoothSettings`); a restart releases the rate by the state's own speed
+    instead (:func:`_release`).
 
     Parameters
     ----------
