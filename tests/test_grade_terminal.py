@@ -26,6 +26,13 @@ def test_figures_carry_their_sigma():
     assert "max 46 +-1.1 mm at 7.5 s" in line
 
 
+def test_small_sigma_keeps_a_significant_digit():
+    """A 1-sigma below the figure's last digit is printed to its first significant
+    digit (0.004 %), never as "+-0.0", which would read as exact."""
+    line = verdict_lines(_result({"drift_pct": 0.004}))[1]
+    assert "drift 1.2 +-0.004 %" in line
+
+
 def test_figures_without_sigma_are_plain():
     """A source whose sigma could not be propagated shows the bare figure, never a made-up
     one."""

@@ -69,7 +69,11 @@ def _fig(m, name, scale, digits=0, unit=""):
     sig = (m.sigma or {}).get(name)
     if text == "n/a" or sig is None or not math.isfinite(sig):
         return text
-    return f"{_fmt(getattr(m, name), scale, digits)} +-{_fmt(sig, scale, max(digits, 1), unit)}"
+    # more digits where the sigma would round to zero (a "+-0.0" would read as exact)
+    s, sig_digits = abs(sig * scale), max(digits, 1)
+    if 0 < s < 0.5 * 10.0**-sig_digits:
+        sig_digits = min(4, -math.floor(math.log10(s)))
+    return f"{_fmt(getattr(m, name), scale, digits)} +-{_fmt(sig, scale, sig_digits, unit)}"
 
 
 def verdict_lines(result, *, units="mm"):
