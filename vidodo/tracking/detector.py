@@ -17,8 +17,8 @@ import numpy as np
 from ..errors import InputError
 from . import apriltag3
 
-__all__ = ["DEFAULT_REFINE", "DETECTORS", "REFINE_BIAS_PX", "REFINE_METHODS", "Detection",
-           "MarkerDetector", "refine_bias_sigma_px"]
+__all__ = ["DEFAULT_REFINE", "DETECTORS", "REFINE_BIAS_PX", "REFINE_METHODS",
+           "ROTATION_EXCESS", "Detection", "MarkerDetector", "refine_bias_sigma_px"]
 
 DEFAULT_REFINE = "apriltag"
 """Default corner refinement, chosen on real photos and renders together (DEVELOPERS.md,
@@ -47,6 +47,22 @@ change of convention) puts the corners of a tag with sharp, unblurred edges abou
 the project's renderer (``tests/test_corner_bias.py``). The tracker cannot see the
 blur-dependent part (a common shift leaves no fit residual), so it is carried as
 uncertainty, :func:`refine_bias_sigma_px`."""
+
+ROTATION_EXCESS = 1.5
+"""How much larger the rotation of a refined corner outline is than the rigid fit's
+residuals imply (ratio of 1-sigmas) [-]. The refinement fits a line to each edge; what
+biases it (the sub-pixel place of the edge, the tag's own black and white cells a cell
+width inside the border, blur) moves the points along one edge together, so the
+errors of the four corners are not independent and their share that turns the whole
+outline is larger than independent corner noise of the residuals' size would give.
+Measured on tags drawn with exact pixel-area coverage, independent of the project's
+renderer, 3-8 px per cell, sharp to 1 px blur, random turn and foreshortening (OpenCV's
+AprilTag refinement): 1.3 (1.5 at 5-8 px per cell, 1.7 with 1 px of blur, about 1 from
+8 px per cell up, where the turn is below 0.03 degrees);
+``tests/test_corner_bias.py`` guards it. A standing robot keeps its outline's error
+for the whole stop, so the persistent part of the heading noise is carried this much
+larger (:func:`vidodo.tracking.finish.finish_track`); measured for 'apriltag' (and
+'hybrid', which keeps its shape), assumed for the other methods."""
 
 MIN_PERIMETER_RATE = 0.01
 """Smallest marker outline examined in a whole-frame search, as a fraction of the

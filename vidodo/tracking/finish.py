@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import TrackingError
-from .detector import refine_bias_sigma_px
+from .detector import ROTATION_EXCESS, refine_bias_sigma_px
 from .noise import (
     CornerNoise,
     estimate_corner_noise,
@@ -109,7 +109,9 @@ def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, fresh_px
         reg_var = np.nan_to_num(reg_err[rows]) ** 2 + 2.0 * (corner_bias_px * mpp[rows]) ** 2
         out["sigma_xy_m"][rows] = np.sqrt(sx.sigma_value**2 + sy.sigma_value**2 + vx + vy
                                           + reg_var)
-        hv = max(1.0, sh.r_scale * keep) * np.interp(rows, idx[m], pv[2])
+        # The heading's persistent part turns the whole outline, which the residuals
+        # understate (detector.ROTATION_EXCESS); the larger excess of the two is kept.
+        hv = max(ROTATION_EXCESS**2, sh.r_scale * keep) * np.interp(rows, idx[m], pv[2])
         out["sigma_heading_rad"][rows] = np.sqrt(sh.sigma_value**2 + hv)
         interpolated[rows] = ~ok[rows]
     return out, interpolated, fits
