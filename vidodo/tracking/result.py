@@ -34,7 +34,9 @@ class TrackResult:
     (its parameter covariance carried through the pose fit, or where larger its
     prediction error at evidence it did not use, at the marker's image scale) and the
     readout's timing error; ``sigma_heading_rad`` likewise from the fresh and
-    persistent corner noise, the registration's covariance and the turn rate)."""
+    persistent corner noise (the persistent part times
+    :data:`~vidodo.tracking.detector.ROTATION_EXCESS`), the registration's covariance
+    and the turn rate)."""
     quality: dict
     """Frames, detection fraction, marker cell size [px], gaps, dropped/duplicated
     frames, registration statistics, readout time [s], corner noise [px]."""
