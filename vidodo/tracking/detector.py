@@ -17,7 +17,7 @@ import numpy as np
 from ..errors import InputError
 from . import apriltag3
 
-__all__ = ["DEFAULT_REFINE", "DETECTORS", "REFINE_BIAS_PX", "REFINE_METHODS",
+__all__ = ["DEFAULT_REFINE", "DETECTORS", "PIXEL_LOCK_PX", "REFINE_BIAS_PX", "REFINE_METHODS",
            "ROTATION_EXCESS", "Detection", "MarkerDetector", "refine_bias_sigma_px"]
 
 DEFAULT_REFINE = "apriltag"
@@ -63,6 +63,16 @@ AprilTag refinement): 1.3 (1.5 at 5-8 px per cell, 1.7 with 1 px of blur, about 
 for the whole stop, so the persistent part of the heading noise is carried this much
 larger (:func:`vidodo.tracking.finish.finish_track`); measured for 'apriltag' (and
 'hybrid', which keeps its shape), assumed for the other methods."""
+
+PIXEL_LOCK_PX = {"apriltag": 0.2, "subpix": 0.06, "hybrid": 0.06}
+"""RMS of the shift common to all four corners of a marker whose edges run exactly along
+the pixel rows and columns, over the edges' sub-pixel phases [px per image axis]
+(pixel locking, :mod:`vidodo.tracking.pixel_lock`). Measured on 55 px tags drawn with
+exact pixel-area coverage, independent of the project's renderer
+(``tests/test_corner_bias.py``): OpenCV's AprilTag refinement 0.19 px sharp or blurred
+by 0.7 px, 0.11 px with the edges turned 0.5 deg, 0.01 px at 2 deg; SUBPIX (and
+'hybrid', which takes SUBPIX's centre) 0.06 px. Methods not listed are not measured
+and carry none."""
 
 MIN_PERIMETER_RATE = 0.01
 """Smallest marker outline examined in a whole-frame search, as a fraction of the

@@ -27,6 +27,7 @@ from .noise import (
     readout_from_terms,
     readout_terms,
 )
+from .pixel_lock import lock_attenuation, lock_floor_vars
 from .registration_error import registration_pose_covs
 from .result import REGISTRATION_COLUMNS, TRACK_COLUMNS, TrackResult
 from .settings import TrackSettings
@@ -67,13 +68,17 @@ def _segments(detected_idx, t, max_gap_s):
     return segs
 
 
-def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, fresh_px,
-            persistent_px, keep, corner_bias_px):
+def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, common, fresh_px,
+            persistent_px, keep):
     """Smooth each segment of detections onto its frame times; NaN elsewhere.
 
     ``fresh_px`` and ``persistent_px`` are the corner noise parts of each fix [px];
-    ``keep`` is the run's 1 - lag-1 correlation.
+    ``keep`` is the run's 1 - lag-1 correlation; ``common`` per frame the floor
+    variance [m^2] of the markers' common corner shift from the refinement's bias, that
+    of their pixel locking (u, v) and the markers' image motion (u, v) [px per frame]
+    (:func:`_lock_var`).
     """
+    bias_var, lock_var, step_px = common
     n = t.size
     out = {c: np.full(n, np.nan) for c in TRACK_COLUMNS}
     out["t_s"] = t
@@ -106,7 +111,10 @@ def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, mpp, fresh_px
         pv = persistent_px[m] ** 2 * np.diagonal(unit, axis1=1, axis2=2).T  # (3, M)
         vx = max(1.0, sx.r_scale * keep) * np.interp(rows, idx[m], pv[0])
         vy = max(1.0, sy.r_scale * keep) * np.interp(rows, idx[m], pv[1])
-        reg_var = np.nan_to_num(reg_err[rows]) ** 2 + 2.0 * (corner_bias_px * mpp[rows]) ** 2
+        reg_var = (np.nan_to_num(reg_err[rows]) ** 2 + bias_var[rows]
+                   + np.sum(lock_var[rows] * _lock_share(
+                       sx, sy, np.sqrt(unit), fresh_px[m],
+                       np.interp(rows, idx[m], np.arange(m.sum())), step_px[rows]), axis=1))
         out["sigma_xy_m"][rows] = np.sqrt(sx.sigma_value**2 + sy.sigma_value**2 + vx + vy
                                           + reg_var)
         # The heading's persistent part turns the whole outline, which the residuals
@@ -161,8 +169,10 @@ def finish_track(records, robot, field_profile, settings=None, *, readout_source
     fixes = [acc.fix[i] for i in idx]
     noise, noise_parts = _corner_noise(fixes, idx, settings.corner_sigma_px)
     mpp, reg_err, reg_heading = _registration_error(acc, fixes, idx, n)
+    common = (2.0 * (_corner_bias_px(settings) * mpp) ** 2,
+              *_lock_var(acc, idx, n, settings.refine))
     run = _Run(t, idx, ok, _segments(idx, t, settings.max_gap_s), fixes, reg_err, mpp,
-               _corner_bias_px(settings), reg_heading)
+               common, reg_heading)
     readout_s = float(settings.readout_s or 0.0)
     frac = np.nan_to_num(np.asarray(acc.frac, float)[idx])
     first = _smooth_run(run, t[idx] + frac * readout_s, noise_parts, noise)
@@ -211,7 +221,7 @@ class _Run:
     fixes: list
     reg_err: np.ndarray
     mpp: np.ndarray
-    corner_bias_px: float
+    common: tuple
     reg_heading: np.ndarray
 
 
@@ -299,6 +309,60 @@ def _registration_error(acc, fixes, idx, n):
     return mpp, reg_err, np.sqrt(np.where(np.isfinite(var_h), var_h, 0.0))
 
 
+def _lock_var(acc, idx, n, refine):
+    """Per frame, the floor variance of the markers' pixel locking of u and of v [m^2]
+    (:mod:`vidodo.tracking.pixel_lock`) and the markers' image motion along u and v
+    [px per frame] (mean corner, between detections); both (n, 2), interpolated
+    between detections."""
+    held = [int(i) for i in idx if int(i) in acc.reg_inputs]
+    if not held:
+        return np.zeros((n, 2)), np.zeros((n, 2))
+    inputs = [acc.reg_inputs[i] for i in held]
+    frames = [(reg, corners, heights) for _fix, corners, heights, reg in inputs]
+    mid = np.array([np.vstack(corners).mean(axis=0) for _f, corners, _h, _r in inputs])
+    step = np.zeros((len(held), 2))
+    if len(held) > 1:
+        step[1:] = np.abs(np.diff(mid, axis=0)) / np.diff(held)[:, None]
+        step[0] = step[1]
+    grid = np.arange(n)
+    lock = lock_floor_vars(frames, refine)
+    return (np.column_stack([np.interp(grid, held, lock[:, k]) for k in (0, 1)]),
+            np.column_stack([np.interp(grid, held, step[:, k]) for k in (0, 1)]))
+
+
+def _lock_share(sx, sy, unit_sd, fresh_px, pos, step_px):
+    """Share of the pixel-locking variance of u and of v a smoothed sample keeps [-].
+
+    Locking of v changes with the marker's sub-pixel place in v (of u, in u): a marker
+    that moves that way lets the smoother average it over the frames it spans, as an
+    edge averages it over the phases it crosses (``lock_attenuation`` of the image
+    motion over the smoother's window). The window in frames is the ratio of a
+    fix's measurement variance to the smoothed variance (``n`` equal measurements
+    averaged have ``1 / n`` of the variance), at least 1.
+
+    Parameters
+    ----------
+    sx, sy : SmoothedSignal
+    unit_sd : ndarray (M, 3, 3)
+        Square root of the fixes' unit covariances (diagonal used).
+    fresh_px : ndarray (M,)
+    pos : ndarray (R,)
+        Each sample's place among the fixes (fractional index).
+    step_px : ndarray (R, 2)
+        Image motion along u and v [px per frame].
+
+    Returns
+    -------
+    ndarray (R, 2)
+    """
+    meas = (sx.r_scale * (fresh_px * unit_sd[:, 0, 0]) ** 2
+            + sy.r_scale * (fresh_px * unit_sd[:, 1, 1]) ** 2)
+    smoothed = sx.sigma_value ** 2 + sy.sigma_value ** 2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        frames = np.maximum(np.interp(pos, np.arange(len(meas)), meas) / smoothed, 1.0)
+    return np.nan_to_num(lock_attenuation(step_px * frames[:, None]), nan=1.0) ** 2
+
+
 def _corner_bias_px(settings) -> float:
     """The common corner shift's 1-sigma the track carries [px]: the given one, else
     the refinement's own."""
@@ -316,9 +380,8 @@ def _smooth_run(run, t_meas, noise_parts, noise):
     cov_unit = np.array([f.cov_unit for f in fixes])
     fresh_px, persistent_px, _ = noise_parts
     out, interpolated, fits = _smooth(run.t, run.idx, run.ok, run.segs, t_meas, x, y, th,
-                                      cov_unit, run.reg_err, run.mpp, fresh_px,
-                                      persistent_px, 1.0 - noise.lag1_corr,
-                                      run.corner_bias_px)
+                                      cov_unit, run.reg_err, run.common, fresh_px,
+                                      persistent_px, 1.0 - noise.lag1_corr)
     # The registration's heading error, like its position error, is the same in
     # neighbouring frames: added per sample, not smoothed.
     out["sigma_heading_rad"] = np.hypot(out["sigma_heading_rad"], run.reg_heading)

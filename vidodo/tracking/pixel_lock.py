@@ -1,0 +1,129 @@
+"""Pixel locking: a marker whose edges run along the pixel rows or columns is found
+shifted as a whole by an amount that depends on where its edges fall within a pixel.
+
+A quad detector places each edge by fitting a line to its edge pixels. The error of
+each pixel's edge position is a periodic function of the edge's sub-pixel phase (the
+"peak locking" of sub-pixel estimators, Westerweel, Meas. Sci. Technol. 8:1379, 1997).
+An oblique edge crosses many phases along its length and the line fit averages the error
+away; an edge along a pixel row keeps one phase and keeps the whole error. All four
+corners of a square marker then move together, which leaves no residual in the rigid fit
+and persists while the robot stands still. Its size is a property of the detector,
+measured on tags drawn by exact pixel-area coverage
+(:data:`~vidodo.tracking.detector.PIXEL_LOCK_PX`, ``tests/test_corner_bias.py``).
+
+Averaging a periodic error of period 1 px over an edge whose phase drifts by ``s`` px
+along its length leaves, of the first harmonic, ``|sinc(s)|`` of its amplitude; the
+envelope ``min(1, 1 / (pi s))`` (:func:`lock_attenuation`) bounds that for every ``s``.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .detector import PIXEL_LOCK_PX
+
+__all__ = ["lock_attenuation", "lock_sigma_px", "lock_floor_vars"]
+
+FLOOR_STEP_PX = 0.5
+"""Central-difference step of the image-to-floor mapping [px]."""
+
+
+def lock_attenuation(span_px):
+    """Share of the locking error left after averaging along an edge [-].
+
+    Parameters
+    ----------
+    span_px : array_like
+        How far the edge drifts across the pixel grid over its length [px] (its extent
+        along the axis it nearly follows the other way, e.g. ``|dv|`` of a nearly
+        horizontal edge).
+
+    Returns
+    -------
+    ndarray
+        ``min(1, 1 / (pi * span))``: the envelope of ``|sinc(span)|``.
+
+    >>> [round(float(a), 3) for a in lock_attenuation([0.0, 0.2, 1.0, 4.0])]
+    [1.0, 1.0, 0.318, 0.08]
+    """
+    s = np.abs(np.asarray(span_px, float))
+    with np.errstate(divide="ignore"):
+        return np.minimum(1.0, 1.0 / (math.pi * s))
+
+
+def lock_sigma_px(corners_px, refine: str) -> np.ndarray:
+    """1-sigma of the marker's common shift from pixel locking, per image axis [px].
+
+    Parameters
+    ----------
+    corners_px : array_like (4, 2)
+        The marker's corners in order around it [px].
+    refine : str
+        The corner refinement (:data:`~vidodo.tracking.detector.PIXEL_LOCK_PX`).
+
+    Returns
+    -------
+    ndarray (2,)
+        ``(sigma_u, sigma_v)``: the locking amplitude times the mean attenuation of the
+        edges that set that coordinate (the nearly vertical ones for ``u``, the nearly
+        horizontal ones for ``v``). The two edges of a pair are taken to lock alike
+        (a marker an integer number of pixels across does): their errors add up, not
+        average down. Zero for a refinement without a measured locking.
+    """
+    amp = PIXEL_LOCK_PX.get(refine, 0.0)
+    c = np.asarray(corners_px, float).reshape(-1, 2)
+    if amp <= 0 or len(c) != 4:
+        return np.zeros(2)
+    d = np.roll(c, -1, axis=0) - c  # the four edges
+    du, dv = np.abs(d[:, 0]), np.abs(d[:, 1])
+    horizontal = du >= dv
+    out = np.zeros(2)
+    for axis, sel, span in ((0, ~horizontal, du), (1, horizontal, dv)):
+        if sel.any():
+            out[axis] = amp * float(np.mean(lock_attenuation(span[sel])))
+    return out
+
+
+def lock_floor_vars(frames, refine: str) -> np.ndarray:
+    """Floor variance of the robot's position from its markers' pixel locking [m^2].
+
+    Each marker's ``(sigma_u, sigma_v)`` (:func:`lock_sigma_px`) is carried to its own
+    plane through the frame's image-to-floor mapping at the marker's centre (central
+    differences of ``reg.image_to_floor``); markers lock independently and the position
+    is about their mean, so the variances add and divide by the count squared. Pixels
+    of frames that share a registration and a height are mapped in one call.
+
+    Parameters
+    ----------
+    frames : list of (FrameRegistration, list of (4, 2) corners [px], list of heights [m])
+    refine : str
+
+    Returns
+    -------
+    ndarray (len(frames), 2)
+        Per frame, the floor variance (x plus y) [m^2] from the locking of the image's
+        u coordinate (the nearly vertical edges) and from that of v; 0 without locking.
+    """
+    out = np.zeros((len(frames), 2))
+    groups = {}
+    h = FLOOR_STEP_PX
+    steps = np.array([[h, 0.0], [-h, 0.0], [0.0, h], [0.0, -h]])
+    for f, (reg, corners, heights) in enumerate(frames):
+        n = len(corners)
+        for c, z in zip(corners, heights, strict=True):
+            sig = lock_sigma_px(c, refine)
+            if np.any(sig > 0):
+                mid = np.asarray(c, float).reshape(-1, 2).mean(axis=0)
+                groups.setdefault((id(reg), float(z)), (reg, []))[1].append(
+                    (f, sig / n, mid + steps))
+    for (_, z), (reg, parts) in groups.items():
+        fl = reg.image_to_floor(np.concatenate([p for _, _, p in parts]), z).reshape(-1, 4, 2)
+        jac_u = (fl[:, 0] - fl[:, 1]) / (2 * h)
+        jac_v = (fl[:, 2] - fl[:, 3]) / (2 * h)
+        sig = np.array([s for _, s, _ in parts])
+        var = np.column_stack([sig[:, 0] ** 2 * np.sum(jac_u**2, axis=1),
+                               sig[:, 1] ** 2 * np.sum(jac_v**2, axis=1)])
+        np.add.at(out, [f for f, _, _ in parts], np.nan_to_num(var))
+    return out
