@@ -169,6 +169,7 @@ def coverage(run: Path, *, lens: bool, points_csv=None):
         "p95_mm": 1e3 * float(np.percentile(e[ok], 95)),
         "sigma_mm": 1e3 * float(np.median(sig)),
         "cover_xy": float(np.mean(e[ok] <= 2 * sig)),
+        "z_rms": float(np.sqrt(np.mean((e[ok] / sig) ** 2))),
         "cover_heading": float(np.mean(np.abs(dh[ok])
                                        <= 2 * tr.sigma_heading_rad.to_numpy()[ok])),
         "method": registrar.reference.method if registrar.reference is not None else "-",
@@ -215,7 +216,8 @@ def main(argv=None):
                         rows.append(r)
                         print(f"{label} ({r['method']}, {r['samples']} samples, "
                               f"{r['wall_s']:.0f} s): error RMS {r['rms_mm']:.2f} mm, p95 "
-                              f"{r['p95_mm']:.2f} mm, median sigma {r['sigma_mm']:.2f} mm; "
+                              f"{r['p95_mm']:.2f} mm, median sigma {r['sigma_mm']:.2f} mm, "
+                              f"RMS of error / sigma {r['z_rms']:.2f}; "
                               f"within 2 sigma: position {100 * r['cover_xy']:.1f} %, "
                               f"heading {100 * r['cover_heading']:.1f} % (target 90-98 %)",
                               flush=True)
@@ -233,7 +235,8 @@ def print_summary(rows):
         print(f"{case} ({len(g)} seeds): position {pos.mean():.0f} +- {pos.std(ddof=0):.0f} "
               f"({pos.min():.0f}-{pos.max():.0f}), heading {head.mean():.0f} +- "
               f"{head.std(ddof=0):.0f} ({head.min():.0f}-{head.max():.0f}); sigma "
-              f"{g['sigma_mm'].median():.2f}, error RMS {g['rms_mm'].median():.2f}")
+              f"{g['sigma_mm'].median():.2f}, error RMS {g['rms_mm'].median():.2f}, "
+              f"RMS of error / sigma {g['z_rms'].min():.2f}-{g['z_rms'].max():.2f}")
     print(f"position coverage over {len(rows)} runs: {100 * df['cover_xy'].min():.1f}-"
           f"{100 * df['cover_xy'].max():.1f} %")
 

@@ -113,7 +113,7 @@ def _smooth(t, idx, ok, segs, t_meas, x, y, th, cov_unit, reg_err, common, fresh
         vy = max(1.0, sy.r_scale * keep) * np.interp(rows, idx[m], pv[1])
         reg_var = (np.nan_to_num(reg_err[rows]) ** 2 + bias_var[rows]
                    + np.sum(lock_var[rows] * _lock_share(
-                       sx, sy, np.sqrt(unit), fresh_px[m],
+                       sx, sy, np.sqrt(np.diagonal(unit, axis1=1, axis2=2)), fresh_px[m],
                        np.interp(rows, idx[m], np.arange(m.sum())), step_px[rows]), axis=1))
         out["sigma_xy_m"][rows] = np.sqrt(sx.sigma_value**2 + sy.sigma_value**2 + vx + vy
                                           + reg_var)
@@ -343,8 +343,8 @@ def _lock_share(sx, sy, unit_sd, fresh_px, pos, step_px):
     Parameters
     ----------
     sx, sy : SmoothedSignal
-    unit_sd : ndarray (M, 3, 3)
-        Square root of the fixes' unit covariances (diagonal used).
+    unit_sd : ndarray (M, 3)
+        Square root of the diagonal of the fixes' unit covariances.
     fresh_px : ndarray (M,)
     pos : ndarray (R,)
         Each sample's place among the fixes (fractional index).
@@ -355,8 +355,8 @@ def _lock_share(sx, sy, unit_sd, fresh_px, pos, step_px):
     -------
     ndarray (R, 2)
     """
-    meas = (sx.r_scale * (fresh_px * unit_sd[:, 0, 0]) ** 2
-            + sy.r_scale * (fresh_px * unit_sd[:, 1, 1]) ** 2)
+    meas = (sx.r_scale * (fresh_px * unit_sd[:, 0]) ** 2
+            + sy.r_scale * (fresh_px * unit_sd[:, 1]) ** 2)
     smoothed = sx.sigma_value ** 2 + sy.sigma_value ** 2
     with np.errstate(divide="ignore", invalid="ignore"):
         frames = np.maximum(np.interp(pos, np.arange(len(meas)), meas) / smoothed, 1.0)
