@@ -60,6 +60,7 @@ from .camera_fit import (
 from .floor_markers import detect_floor_markers
 from .frame import FrameRegistration, failed, floor_usable, project_rows
 from .selfcheck import CheckLimits
+from .uncertainty import held_out_excess_px
 
 __all__ = ["FloorRegistrar", "RegistrarSettings", "RegistrationQuality", "summarise", "METHODS"]
 
@@ -296,16 +297,14 @@ class FloorRegistrar:
         freedom estimates the variance per axis (Draper & Smith, *Applied Regression
         Analysis*, 3rd ed., section 2.6), ``2 s^2`` per click. The held-out figure of
         the self-check (a pose fitted to the other clicks) holds the click noise too,
-        which this registration does not carry.
+        which this registration does not carry. The difference is kept only where the
+        clicks show it beyond its own noise (``uncertainty.held_out_excess_px``).
         """
         report = self.check_report
         click_px = float(report.figures.get("click_rms_px", math.nan)) if report else math.nan
-        n = len(self.points[0])
-        p = 6 + len(points_fit.free) - 2
-        if not math.isfinite(click_px) or 2 * n <= p:
-            return reg
-        noise2 = 2.0 * n * points_fit.rms_px ** 2 / (2 * n - p)
-        return replace(reg, prediction_px=math.sqrt(max(click_px ** 2 - noise2, 0.0)))
+        pred = held_out_excess_px(click_px, points_fit.rms_px, len(self.points[0]),
+                                  6 + len(points_fit.free) - 2)
+        return replace(reg, prediction_px=pred) if math.isfinite(pred) else reg
 
     def _tiling_beyond(self, report, facts):
         """The grid saw more tiles than the field has (the tiling continues beyond it):

@@ -13,12 +13,14 @@ and the raised plane of a marker are mapped exactly as the tracker maps them.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import replace
 
 import numpy as np
 
-__all__ = ["pose_covariance", "cluster_covariance", "floor_point_covariance", "PARAM_STEP"]
+__all__ = ["pose_covariance", "cluster_covariance", "floor_point_covariance", "PARAM_STEP",
+           "held_out_excess_px", "HELD_OUT_LEVEL"]
 
 PARAM_STEP = {"rvec": 1e-5, "tvec": 1e-5, "focal": 1e-5, "k1": 1e-5, "k2": 1e-5}
 """Central-difference step per parameter kind [rad, m, log focal, -, -]: small against
@@ -163,3 +165,56 @@ def floor_point_covariance(reg, points_px, height_m=0.0):
         minus = _moved(reg, name, k, -h).image_to_floor(pts, height_m)
         jac[:, :, j] = (plus - minus) / (2.0 * h)
     return np.einsum("nip,pq,njq->nij", jac, np.asarray(cov, float), jac), jac
+
+
+HELD_OUT_LEVEL = 0.95
+"""Confidence with which the clicks must show an error beyond their noise before it
+overrides a registration's covariance (one-sided; common practice)."""
+
+
+@functools.lru_cache(maxsize=64)
+def _f_point(level: float, dof_num: int, dof_den: int) -> float:
+    """The ``level`` point of Fisher's F distribution (SciPy, imported on first use)."""
+    from scipy.stats import f as fisher_f
+
+    return float(fisher_f.ppf(level, dof_num, dof_den))
+
+
+def held_out_excess_px(click_rms_px: float, fit_rms_px: float, n: int, p: int) -> float:
+    """A registration's error at clicked points it did not use, beyond the click noise,
+    where the clicks show one [px]; 0 where they do not.
+
+    The clicks' mean squared residual against the registration, ``c^2``, is the click
+    noise (``2 s^2`` per click, ``s^2`` per axis) plus the mapping's own error ``m^2``;
+    the noise is estimated from the fit to the clicks alone, ``2 n r^2 / (2n - p)``
+    with ``r`` its RMS residual. Without a mapping error both are scaled chi-square
+    variates with 2n and 2n - p degrees of freedom (Draper & Smith, *Applied Regression
+    Analysis*, 3rd ed., section 2.6), so their ratio follows Fisher's F(2n, 2n - p)
+    (the lack-of-fit F test, ibid. section 2.1). The difference ``c^2 - noise``
+    estimates ``m^2`` and is taken only where the ratio exceeds the F distribution's
+    :data:`HELD_OUT_LEVEL` point: a plain difference, taken wherever it is larger than
+    the covariance's figure, is biased up when a dozen clicks make it noisier than the
+    error it measures.
+
+    Parameters
+    ----------
+    click_rms_px : float
+        RMS distance of the clicks from the registration (2-D) [px].
+    fit_rms_px : float
+        RMS residual (2-D) of the fit to the clicks alone [px].
+    n : int
+        Clicks.
+    p : int
+        Parameters of the clicks-only fit.
+
+    Returns
+    -------
+    float
+        ``sqrt(c^2 - noise)`` where significant, else 0; NaN when not defined.
+    """
+    if not (math.isfinite(click_rms_px) and math.isfinite(fit_rms_px)) or 2 * n <= p:
+        return math.nan
+    noise2 = 2.0 * n * fit_rms_px ** 2 / (2 * n - p)
+    excess2 = click_rms_px ** 2 - noise2
+    crit = _f_point(HELD_OUT_LEVEL, 2 * int(n), 2 * int(n) - int(p))
+    return math.sqrt(excess2) if click_rms_px ** 2 > crit * noise2 else 0.0
