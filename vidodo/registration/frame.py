@@ -116,7 +116,8 @@ class FrameRegistration:
     the fit's own residual (in quadrature) [px]; 0 when not measured. It holds the lens
     and pose error that the fit's residuals alone do not show. For a fit refined on the
     tile seams (which did not use the clicks): the clicks' RMS residual against it less
-    the click noise (from the points-only fit's residuals)."""
+    the click noise (from the points-only fit's residuals), where an F test shows it
+    (:func:`~vidodo.registration.uncertainty.held_out_excess_px`), else 0."""
     param_cov: np.ndarray | None = None
     """Covariance of the fitted parameters ``param_names`` (the fit's own, from its
     residuals), ndarray (P, P); None when not known (see
