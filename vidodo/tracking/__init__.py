@@ -11,7 +11,8 @@ time plus the rolling-shutter delay of the rows it sits in.
 After the video (:mod:`.finish`): the corner noise is estimated from the fit residuals of
 the whole run (:mod:`.noise`), and a Rauch-Tung-Striebel smoother (:mod:`.smooth`) turns
 the detections into position, velocity and acceleration at every frame time, with a
-1-sigma that adds the registration error. Short gaps are bridged and flagged, long gaps
+1-sigma that adds the registration error and the detector's pixel locking
+(:mod:`.pixel_lock`). Short gaps are bridged and flagged, long gaps
 left NaN. The rolling-shutter readout time is also estimated from the shear it leaves in
 the markers of moving frames; it is used when the camera profile gives none.
 

@@ -30,7 +30,9 @@ class TrackResult:
     estimated from the rigid fits' residuals, over the run by
     :func:`estimate_corner_noise` and around each frame by :func:`local_corner_noise`,
     and scaled per signal by the smoother's innovation likelihood), an optional common
-    shift of all corners (``corner_bias_px`` per axis), the registration's own error
+    shift of all corners (``corner_bias_px`` per axis), the detector's pixel locking
+    where the marker's edges run along the pixel grid and it holds its sub-pixel place
+    (:mod:`~vidodo.tracking.pixel_lock`), the registration's own error
     (its parameter covariance carried through the pose fit, or where larger its
     prediction error at evidence it did not use, at the marker's image scale) and the
     readout's timing error; ``sigma_heading_rad`` likewise from the fresh and
