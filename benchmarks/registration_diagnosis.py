@@ -56,13 +56,15 @@ from vidodo.synth import scenes  # noqa: E402
 
 STAGES = ("families", "directions", "spacing", "window", "fit", "orientation", "selfcheck",
           "wrong_passed", "correct")
-COLUMNS = ("seed", "stage", "exit_code", "rms_mm", "fit_rms_mm", "height_m", "true_height_m",
-           "n_corners", "lens_profile", "detail", "message")
+COLUMNS = ("seed", "class", "stage", "subset", "exit_code", "rms_mm", "fit_rms_mm", "height_m",
+           "true_height_m", "n_corners", "lens_profile", "detail", "message")
 _REC: dict = {}
-#: A family's vanishing point counts as right within this angle, seen from the floor
-#: part of the picture [deg] (over a 10-tile line 0.5 deg moves its end by under a
-#: tenth of a tile).
-VP_TOL_DEG = 0.5
+#: A family's vanishing point counts as grossly wrong beyond this angle, seen from the
+#: floor part of the picture [deg]: the spacing fit (a projective model of the line
+#: index) and the seam refinement absorb smaller errors (registrations within 2 mm
+#: came from first vanishing points 2-3 deg off); a smaller error that matters shows
+#: in the spacing stage.
+VP_TOL_DEG = 3.0
 
 
 def _install_recorders():
@@ -284,6 +286,9 @@ def diagnose(seed: int, cache, lens="scene") -> dict:
            "message": message if code != 0 else "",
            "subset": len(scene.corners) >= 12 and scene.seams_visible}
     row["stage"], row["detail"] = _first_stage(scene, shrink, code, fit_rms, fit_lat)
+    # The class as registration_robustness.py scores it.
+    row["class"] = ("refused" if code == 3 else "correct" if code == 0 and rms <= rb.CORRECT_MM
+                    else "wrong")
     return row
 
 
@@ -328,7 +333,7 @@ def _first_stage(scene, shrink, code, fit_rms, fit_lat):
     # Which candidates' fits succeeded: recorder args hold the lattice.
     target = cands[0][right][0]
     fitted_ok = any(a[2][0].shape == target.shape
-                    and np.allclose((a[2][0] + 0.5) * shrink - 0.5, target, atol=0.05)
+                    and np.allclose((a[2][0] + 0.5) * shrink - 0.5, target, atol=1.0)
                     for a, _out in fits)
     if not fitted_ok:
         return "fit", "right window not fitted: " + "; ".join(str(e)[:60] for e in errs)
@@ -381,6 +386,9 @@ def stage_table(rows) -> list[str]:
         n_sub = sum(r["stage"] == st and r["subset"] for r in rows)
         out.append(f"{st:<24}{n_all:>6}{n_sub:>8}")
     out.append(f"{'total':<24}{len(rows):>6}{sum(r['subset'] for r in rows):>8}")
+    for kind in ("correct", "refused", "wrong"):
+        out.append(f"{'class ' + kind:<24}{sum(r['class'] == kind for r in rows):>6}"
+                   f"{sum(r['class'] == kind and r['subset'] for r in rows):>8}")
     return out
 
 

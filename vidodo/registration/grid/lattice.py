@@ -164,38 +164,134 @@ def _families(grey, camera, ignore, rng, colour=None) -> _Families:
     centre = np.array([w / 2.0, h / 2.0])
     cseg = np.column_stack([(seg[:, :2] - centre) * scale, (seg[:, 2:] - centre) * scale])
     tol = math.radians(1.5)
-    vp1, in1 = find_vp(cseg, np.zeros(2), rng, tol)
-    if vp1 is None or in1.sum() < 3:
+    vps = _directions(cseg, rng, tol)
+    if not vps:
         raise CalibrationError("grid: no family of parallel tile seams found")
-    rest = ~in1
-    vp2, in2r = find_vp(cseg[rest], np.zeros(2), rng, tol, exclude=vp1)
-    if vp2 is None or in2r.sum() < 3:
+    if len(vps) < 2:
         raise CalibrationError("grid: only one direction of tile seams found; film the "
                                "floor at an angle that shows both")
-    in2 = np.zeros(len(cseg), bool)
-    in2[np.nonzero(rest)[0][in2r]] = True
     ctx = dict(cseg=cseg, scale=scale, centre=centre, camera=camera, evidence=evidence,
                line_angle=line_angle, shape=(h, w),
                grid=pixel_grid((h, w), camera, centre, scale, ignore))
-    best = _rectified(ctx, (vp1, in1), (vp2, in2))
-    score = _lattice_score(best)
-    if score > 0:
-        return best
-    # The two strongest directions need not be the tiles' (wall tops, tape, print): a
-    # third direction is tried with each, and the pair whose both families show a
-    # periodic lattice wins.
-    rest3 = rest.copy()
-    rest3[np.nonzero(rest)[0][in2r]] = False
-    vp3, in3r = find_vp(cseg[rest3], np.zeros(2), rng, tol, exclude=vp1)
-    if vp3 is None or in3r.sum() < 3 or same_direction(vp3, vp2, np.zeros(2)):
-        return best
-    in3 = np.zeros(len(cseg), bool)
-    in3[np.nonzero(rest3)[0][in3r]] = True
-    for pair in (((vp1, in1), (vp3, in3)), ((vp2, in2), (vp3, in3))):
-        other = _rectified(ctx, *pair)
-        sc = _lattice_score(other)
+    # The two strongest directions need not be the tiles' (wall tops, tape, print,
+    # teeth): the pairs of directions are tried strongest first, only those whose two
+    # directions can be perpendicular on the floor (:func:`_perpendicular_deviation`),
+    # and the first pair whose both families show a periodic lattice wins.
+    pairs = [(i, j) for i in range(len(vps)) for j in range(i + 1, len(vps))]
+    pairs.sort(key=lambda ij: -min(vps[ij[0]][2], vps[ij[1]][2]))
+    fits = [ij for ij in pairs
+            if _perpendicular_deviation(vps[ij[0]][0], vps[ij[1]][0], ctx) <= PERPENDICULAR_DEG
+            and _below_horizon(cseg, vps[ij[0]], vps[ij[1]]) >= BELOW_HORIZON_SHARE]
+    best, score = None, -math.inf
+    for i, j in fits[:MAX_PAIRS]:
+        fams = _rectified(ctx, vps[i][:2], vps[j][:2])
+        sc = _lattice_score(fams)
         if sc > score:
-            best, score = other, sc
+            best, score = fams, sc
+        if sc > 0:
+            break
+    if best is None:  # no pair can be perpendicular: the strongest (the checks refuse)
+        best = _rectified(ctx, vps[0][:2], vps[1][:2])
+    return best
+
+
+#: Most seam directions (vanishing points) looked for in a frame.
+MAX_DIRECTIONS = 5
+#: Most pairs of directions whose lattice is evaluated.
+MAX_PAIRS = 4
+#: Largest deviation from perpendicular of a pair of seam directions on the floor [deg]:
+#: the first vanishing points are a degree or two off (registrations within 2 mm came
+#: from pairs 1-2 deg off perpendicular, ``benchmarks/registration_diagnosis.py``).
+PERPENDICULAR_DEG = 4.0
+#: Focal lengths a lens has, over the larger image side (the self-check's
+#: :attr:`vidodo.registration.selfcheck.CheckLimits.focal_range`).
+FOCAL_RANGE = (0.25, 4.0)
+
+
+#: Least share of both families' segment length on one side of the line through
+#: their vanishing points: the floor's horizon, which no floor seam crosses (a
+#: vertical direction, perpendicular to every floor direction too, gives a line
+#: through the floor instead).
+BELOW_HORIZON_SHARE = 0.95
+
+
+def _below_horizon(cseg, dir_a, dir_b) -> float:
+    """Share of the two families' segment length on the majority side of the line
+    through their vanishing points (``dir_a``, ``dir_b``: :func:`_directions` items)."""
+    horizon = np.cross(dir_a[0], dir_b[0])
+    inl = dir_a[1] | dir_b[1]
+    seg = cseg[inl]
+    if not len(seg) or np.linalg.norm(horizon[:2]) < 1e-12 * abs(horizon[2]):
+        return 1.0  # both at infinity: the horizon is the line at infinity
+    length = np.hypot(seg[:, 2] - seg[:, 0], seg[:, 3] - seg[:, 1])
+    side = np.sign(seg[:, :2] @ horizon[:2] + horizon[2]) + np.sign(
+        seg[:, 2:] @ horizon[:2] + horizon[2])
+    pos, neg = length[side > 0].sum(), length[side < 0].sum()
+    return float(max(pos, neg) / max(length.sum(), 1e-300))
+
+
+def _directions(cseg, rng, tol):
+    """Up to :data:`MAX_DIRECTIONS` distinct vanishing points, strongest first.
+
+    Returns
+    -------
+    list of (vp, inlier mask over ``cseg``, total inlier length)
+    """
+    length = np.hypot(cseg[:, 2] - cseg[:, 0], cseg[:, 3] - cseg[:, 1])
+    rest = np.ones(len(cseg), bool)
+    out = []
+    for _ in range(MAX_DIRECTIONS):
+        if rest.sum() < 4:
+            break
+        exclude = out[0][0] if out else None
+        vp, inl_r = find_vp(cseg[rest], np.zeros(2), rng, tol, exclude=exclude)
+        if vp is None or inl_r.sum() < 3:
+            break
+        inl = np.zeros(len(cseg), bool)
+        inl[np.nonzero(rest)[0][inl_r]] = True
+        rest &= ~inl
+        if any(same_direction(vp, o[0], np.zeros(2)) for o in out):
+            continue
+        out.append((vp, inl, float(length[inl].sum())))
+    return out
+
+
+def _perpendicular_deviation(vp_a, vp_b, ctx) -> float:
+    """How far from perpendicular the floor directions of two vanishing points must be
+    [deg], at best over the focal lengths a lens has.
+
+    Two vanishing points ``v1``, ``v2`` of perpendicular floor lines satisfy
+    ``v1^T K^-T K^-1 v2 = 0`` (the image of the absolute conic; Hartley & Zisserman,
+    *Multiple View Geometry*, 2nd ed., section 8.6). With the lens known, ``K`` is
+    fixed; without it the principal point is taken at the image centre with square
+    pixels and the focal length ranges over :data:`FOCAL_RANGE`.
+    """
+    scale, centre = ctx["scale"], ctx["centre"]
+    # Conditioned coordinates -> (undistorted) pixels.
+    to_px = np.array([[1 / scale, 0.0, centre[0]], [0.0, 1 / scale, centre[1]], [0, 0, 1.0]])
+    a, b = to_px @ np.asarray(vp_a, float), to_px @ np.asarray(vp_b, float)
+    camera = ctx["camera"]
+    if camera is not None:
+        kinv = np.linalg.inv(camera.matrix)
+        focal_kinvs = [kinv]
+    else:
+        h, w = ctx["shape"]
+        lo, hi = np.asarray(FOCAL_RANGE) * max(h, w)
+        # The focal length making them perpendicular (if any), else the range's ends:
+        # (pa . pb) + f^2 wa wb = 0 with pa, pb relative to the principal point.
+        pa = a[:2] - centre * a[2]
+        pb = b[:2] - centre * b[2]
+        f2 = -(pa @ pb) / (a[2] * b[2]) if abs(a[2] * b[2]) > 1e-300 else -1.0
+        focal = [lo, hi] + ([math.sqrt(f2)] if lo * lo <= f2 <= hi * hi else [])
+        focal_kinvs = []
+        for f in focal:
+            focal_kinvs.append(np.array([[1 / f, 0, -centre[0] / f],
+                                         [0, 1 / f, -centre[1] / f], [0, 0, 1.0]]))
+    best = 90.0
+    for kinv in focal_kinvs:
+        ra, rb = kinv @ a, kinv @ b
+        cos = abs(ra @ rb) / max(np.linalg.norm(ra) * np.linalg.norm(rb), 1e-300)
+        best = min(best, 90.0 - math.degrees(math.acos(min(cos, 1.0))))
     return best
 
 

@@ -37,6 +37,12 @@ ON_SHARE = 0.35
 #: The best spacing's score must exceed this share of the best other spacing that is
 #: not a multiple or an integer fraction of it (those score high on any lattice).
 CLEAR_WIN = 0.9
+#: Spacings within this ratio of one another (or of 2, 3, 1/2, 1/3 times it) are the
+#: same score peak: with the vanishing points a degree or two off the line spacing
+#: varies across the rectified floor, and the peak of the score over the spacing
+#: widens (the best and a second spacing 9-10 % apart scored within 1 % on scenes
+#: whose registration was right, ``benchmarks/registration_diagnosis.py``).
+SAME_PEAK = 0.15
 
 
 def _usable(f, period):
@@ -94,7 +100,7 @@ def family_period(f, n_periods=400, n_phases=64):
     for cand in out:
         if cand[2] <= 0:
             break
-        if any(abs(cand[0] / p - 1) < 0.08 for p, _ph, _s in kept):
+        if any(abs(cand[0] / p - 1) < SAME_PEAK for p, _ph, _s in kept):
             continue
         kept.append(cand)
         if len(kept) >= 3:
@@ -105,7 +111,7 @@ def family_period(f, n_periods=400, n_phases=64):
     return [] if rival else kept
 
 
-def _harmonic(ratio, tol=0.08):
+def _harmonic(ratio, tol=SAME_PEAK):
     """Whether two spacings are the same or one is 2 or 3 times the other."""
     return any(abs(ratio / m - 1) < tol for m in (1, 2, 3, 1 / 2, 1 / 3))
 
