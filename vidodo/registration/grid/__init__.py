@@ -4,9 +4,13 @@ Steps (no markers, no clicks):
 
 1. Line segments (LSD, von Gioi et al., IEEE PAMI 32(4), 2010; also on the frame's
    main colour axis, so that tiles of equal brightness but different colour show their
-   edges) are grouped by the two vanishing points of the seam families, each found by
-   RANSAC over segment pairs and refined by least squares; when one of the two shows
-   no periodic lattice, a third direction is tried with each.
+   edges) are grouped by vanishing points, each found by RANSAC over segment pairs and
+   refined by least squares (up to five directions, strongest first). Pairs of them
+   are tried strongest first, only those that can be perpendicular on the floor (the
+   image of the absolute conic with the lens, or some focal length a lens has without
+   it) and have all their segments on one side of the line through both (the floor's
+   horizon; a vertical direction is perpendicular to the floor's too); the first pair
+   whose both families show a periodic lattice wins.
 2. The line through both vanishing points (the floor's horizon) is sent to infinity;
    in that affinely rectified frame each family is a set of parallel, equally spaced
    lines (an affine map keeps ratios along parallel lines; Hartley & Zisserman,
