@@ -120,3 +120,29 @@ def test_times_with_the_frames(tmp_path):
     with pytest.raises(InputError, match="not a \\(frame, t_s\\) pair"):
         write_video(tmp_path / "y.mp4", _frames(3))
     assert list(tmp_path.iterdir()) == [path]
+
+
+def test_i420_frames_decode_to_the_same_picture(tmp_path):
+    """An I420 frame (OpenCV's BGR-to-I420 conversion) encoded losslessly decodes
+    (OpenCV) to the source picture about as well as the same BGR frame through the
+    encoder's own conversion: the same BT.601 limited-range matrix (the luma agrees to
+    a level), the colour planes averaged a little differently (on strongly coloured
+    texture both lose 3-4 levels to 4:2:0); a wrong shape is refused."""
+    rng = np.random.default_rng(5)
+    base = cv2.GaussianBlur(rng.integers(0, 256, (96, 160, 3), np.uint8), (0, 0), 3)
+    base = cv2.normalize(base, None, 20, 235, cv2.NORM_MINMAX)
+    t = np.arange(3) / 30.0
+    write_video(tmp_path / "bgr.mp4", [base] * 3, t, crf=0)
+    write_video(tmp_path / "i420.mp4", [cv2.cvtColor(base, cv2.COLOR_BGR2YUV_I420)] * 3, t,
+                crf=0)
+    _, a = _opencv_times(tmp_path / "bgr.mp4")
+    _, b = _opencv_times(tmp_path / "i420.mp4")
+    assert len(a) == len(b) == 3
+    err_own = np.abs(a[0].astype(int) - base).mean()
+    err_i420 = np.abs(b[0].astype(int) - base).mean()
+    assert err_i420 < err_own + 1.0 and err_i420 < 5.0
+    grey = [cv2.cvtColor(x, cv2.COLOR_BGR2GRAY).astype(int) for x in (a[0], b[0])]
+    assert np.abs(grey[0] - grey[1]).mean() < 1.0
+    with pytest.raises(InputError, match="frame 1 is"):
+        write_video(tmp_path / "x.mp4", [cv2.cvtColor(base, cv2.COLOR_BGR2YUV_I420),
+                                         base[:48]], t[:2])

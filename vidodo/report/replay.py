@@ -32,7 +32,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from ..grid_overlay import draw_grid_lines, grid_polylines_px
+from ..grid_overlay import grid_layer, grid_polylines_px
 from ..units import format_length
 from .plots import EVENT_STYLE, source_colors, source_prefixes
 
@@ -595,7 +595,10 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
             try:
                 for index, t_s, frame in reader:
                     t_out = times(t_s)  # the encoder takes each frame's time with it
-                    yield annotated(index, t_s, frame), t_out
+                    # handed over as I420: OpenCV's conversion costs a tenth of the
+                    # encoder's own (same BT.601 limited range; encode.write_video)
+                    yield cv2.cvtColor(annotated(index, t_s, frame),
+                                       cv2.COLOR_BGR2YUV_I420), t_out
                     if progress is not None:
                         progress(index + 1, total)
             except VideoTruncatedError:
@@ -613,6 +616,7 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
         state["reg"] = reg if getattr(reg, "ok", False) else state["reg"]
         state["pose"] = tracks.truth[row] if row is not None else state["pose"]
         (h0, w0), (w, h) = frame.shape[:2], _replay_size(frame.shape, scale)
+        resized_from = frame  # the decoder's frame: drawn on a copy (the reader keeps it)
         if (w, h) != (w0, h0):
             frame = cv2.resize(frame, (w, h), interpolation=cv2.INTER_AREA)
             reg = None if reg is None else _Resized(reg, w / w0, h / h0)
@@ -623,8 +627,9 @@ def write_replay(video_path, drift: pd.DataFrame, events: pd.DataFrame | None, o
             lines.append(("floor not registered in this frame", (0, 0, 255)))
         if style.grid and setup.field is not None and getattr(reg, "ok", False):
             if state.get("grid_of") is not base:  # a registration holds for many frames
-                state["grid_of"], state["grid"] = base, grid_polylines_px(reg, setup.field)
-            frame = draw_grid_lines(frame.copy(), state["grid"], alpha=0.35)
+                state["grid_of"], state["grid"] = base, grid_layer(
+                    grid_polylines_px(reg, setup.field), frame.shape, alpha=0.35)
+            frame = state["grid"].draw(frame if frame is not resized_from else frame.copy())
         return annotate_frame(frame, ov, lines=lines, colors=colors)
 
     from ..encode import write_video
