@@ -6,6 +6,7 @@ presentation time and the rotation tag; clips are made with Debian's ``ffmpeg``.
 
 from __future__ import annotations
 
+import math
 import shutil
 import subprocess
 
@@ -225,10 +226,12 @@ def test_luma_used_only_where_the_stream_allows(tmp_path, codec, pix_fmt, ext, u
     assert len(frames) == 5 and all(f.ndim == (2 if usable else 3) for f in frames)
 
 
+@pytest.mark.parametrize("seek_after_s", [math.inf, 0.3])
 @pytest.mark.parametrize("grey", [False, True])
-def test_frames_at_equals_reading_every_frame(vfr_clip, tmp_path, grey):
-    """frames_at (frames in between only grabbed) gives the same frames and the same
-    container times (ffprobe's pts_time, 1.5 s on here) as reading every frame."""
+def test_frames_at_equals_reading_every_frame(vfr_clip, tmp_path, grey, seek_after_s):
+    """frames_at (frames in between only grabbed, or sought to on this variable-rate
+    clip) gives the same frames and the same container times (ffprobe's pts_time, 1.5 s
+    on here) as reading every frame."""
     path = tmp_path / "late.mp4"
     _ffmpeg("-itsoffset", "1.5", "-i", str(vfr_clip), "-c", "copy", str(path))
     with VideoReader(path, threaded=False, grey=grey) as reader:
@@ -237,9 +240,35 @@ def test_frames_at_equals_reading_every_frame(vfr_clip, tmp_path, grey):
     truth = _ffprobe_pts(path)
     wanted = [times[0], times[21] - 0.004, times[45], times[-1], times[-1] + 1.0]
     with VideoReader(path, threaded=False, grey=grey) as reader:
-        got = reader.frames_at(wanted)
+        got = reader.frames_at(wanted, seek_after_s=seek_after_s, seek_lead_s=0.1)
     assert sorted(got) == sorted(wanted[:4])  # nothing after the last frame
     for want, k in zip(wanted[:4], [0, 21, 45, len(every) - 1], strict=True):
         t, frame = got[want]
         assert t == times[k] and abs(t - truth[k]) < 1e-3
         assert np.array_equal(frame, every[k][1])
+
+
+def test_frames_at_undoes_a_seek_that_lands_late(vfr_clip):
+    """A seek that lands after the wanted frame (a stream whose times the seek misjudges:
+    here every seek is pushed 1 s further) is undone by reading from the start: the
+    same frames as reading every frame."""
+    with VideoReader(vfr_clip, threaded=False) as reader:
+        every = [(t, f) for _i, t, f in reader]
+    wanted = [every[5][0], every[50][0]]
+
+    class Late:
+        def __init__(self, cap):
+            self.cap = cap
+
+        def set(self, prop, value):
+            return self.cap.set(prop, value + 1000.0)
+
+        def __getattr__(self, name):
+            return getattr(self.cap, name)
+
+    with VideoReader(vfr_clip, threaded=False) as reader:
+        reader._cap = Late(reader._cap)
+        got = reader.frames_at(wanted, seek_after_s=0.3, seek_lead_s=0.1)
+        assert not isinstance(reader._cap, Late)  # reopened without seeking
+    assert [got[w][0] for w in wanted] == wanted
+    assert np.array_equal(got[wanted[1]][1], every[50][1])
