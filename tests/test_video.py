@@ -206,6 +206,28 @@ def test_luma_frames_match_colour_grey(vfr_clip):
         assert np.sqrt(np.mean(diff**2)) < 2.0 and abs(np.mean(diff)) < 0.5
 
 
+@pytest.mark.parametrize("threaded", [False, True])
+def test_raw_luma_mapped_by_its_table_equals_grey_frames(vfr_clip, threaded):
+    """``luma_raw``: the planes as decoded, which ``raw_lut`` maps to exactly the grey
+    frames the reader otherwise hands out (the first one, read by the probe, too), at
+    the same times; without ``grey`` there is no table."""
+    import cv2
+
+    with VideoReader(vfr_clip, grey=True, threaded=threaded) as reader:
+        assert reader.raw_lut is None
+        grey = [(t, f) for _i, t, f in reader]
+    with VideoReader(vfr_clip, grey=True, luma_raw=True, threaded=threaded) as reader:
+        lut = reader.raw_lut
+        assert lut is not None and lut.shape == (256,) and lut.dtype == np.uint8
+        raw = [(t, f) for _i, t, f in reader]
+    assert len(raw) == len(grey)
+    assert not np.array_equal(raw[0][1], grey[0][1])  # limited-range luma is mapped
+    for (tr, fr), (tg, fg) in zip(raw, grey, strict=True):
+        assert tr == tg and np.array_equal(cv2.LUT(fr, lut), fg)
+    with VideoReader(vfr_clip, luma_raw=True) as reader:
+        assert reader.raw_lut is None
+
+
 @pytest.mark.parametrize("codec,pix_fmt,ext,usable", [
     ("libx264", "yuvj420p", "mp4", True),     # full-range luma: near-identity table
     ("libx264", "yuv420p10le", "mp4", False),  # 10-bit: not an 8-bit plane

@@ -183,6 +183,9 @@ class MarkerDetector:
         """Every (family, id) seen so far with its frame count, robot's or not."""
         self._sized: dict[tuple[str, str, int], object] = {}
         self._prefetched = None  # (frame, roi, least, futures, origin), see prefetch
+        self.lut = None
+        """Look-up table mapping the frames' pixels to the grey levels detected on
+        (``VideoReader.raw_lut``), applied to each window only; None: frames as given."""
 
     def _sized_detector(self, kind, family, min_perimeter_px, image_px):
         """A copy of a detector that skips outlines shorter than ``min_perimeter_px``.
@@ -231,7 +234,7 @@ class MarkerDetector:
 
     def _submit_subpix(self, frame, roi, least, k):
         """Start the SUBPIX pass of every family on the side thread."""
-        img, origin = _window(frame, roi, k)
+        img, origin = _window(frame, roi, k, self.lut)
         futures = {}
         for family in self._detectors:
             sub = self._sized_detector("subpix", family, least, max(img.shape[:2]))
@@ -288,7 +291,7 @@ class MarkerDetector:
             At most one per robot marker (the largest if an ID appears twice).
         """
         k = max(int(upscale), 1)
-        img, (u0, v0) = _window(frame, roi, k)
+        img, (u0, v0) = _window(frame, roi, k, self.lut)
         found: dict[int, np.ndarray] = {}
         shift = 0.0 if coarse else self._shift
         least = 4.0 * float(min_side_px) * k if min_side_px else 0.0
@@ -346,14 +349,16 @@ class MarkerDetector:
         return own
 
 
-def _window(frame, roi, k):
-    """Grey crop of ``frame`` inside ``roi`` (whole frame if None), enlarged ``k`` times;
-    returns it with the crop's origin (u0, v0) [px]."""
+def _window(frame, roi, k, lut=None):
+    """Grey crop of ``frame`` inside ``roi`` (whole frame if None), mapped by ``lut`` (if
+    given), enlarged ``k`` times; returns it with the crop's origin (u0, v0) [px]."""
     u0 = v0 = 0
     img = frame
     if roi is not None:
         u0, v0, u1, v1 = roi
         img = frame[v0:v1, u0:u1]
+    if lut is not None:
+        img = cv2.LUT(img, lut)
     if img.ndim == 3:
         img = cv2.cvtColor(img, cv2.COLOR_BGR2GRAY)
     if k > 1:

@@ -180,6 +180,9 @@ def _track_into(acc, frames, robot, field_profile, registrar, settings, video_in
     """:func:`track_frames` into the given records (kept when the stream breaks off)."""
     settings = TrackSettings() if settings is None else settings
     det = MarkerDetector(robot.markers, refine=settings.refine, detector=settings.detector)
+    # A reader handing out raw luma (VideoReader(luma_raw=True)): its grey mapping is
+    # applied to the detection windows and to the frames registered, nowhere else.
+    lut = det.lut = getattr(frames, "raw_lut", None)
     policy = RegistrationPolicy(registrar, field_profile, settings.register_every)
     acc.detector = det
     acc.policy = policy
@@ -192,8 +195,10 @@ def _track_into(acc, frames, robot, field_profile, registrar, settings, video_in
         coming = next(stream, None)
         acc.t.append(float(t_s))
         with acc.times.stage("register"):
+            seen = cv2.LUT(frame, lut) if lut is not None and policy.due(index, t_s) \
+                else frame
             reg, fresh = policy.update(
-                frame, index, t_s,
+                seen, index, t_s,
                 lambda f=last.fix, shp=frame.shape: _robot_mask(robot, f, policy.current, shp))
         t_detect = time.perf_counter()
         _record_registration(acc, reg, fresh, robot, field_profile)

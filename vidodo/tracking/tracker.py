@@ -122,7 +122,7 @@ def _track_video(video_path, robot, field, camera, registrar, progress, settings
     acc = FrameRecords()
     truncated = None
     threaded = settings.threaded
-    with VideoReader(video_path, threaded=threaded, grey=True,
+    with VideoReader(video_path, threaded=threaded, grey=True, luma_raw=True,
                      decoder_threads=1 if threaded else None, ahead_mb=AHEAD_MB) as reader:
         info = reader.info
         _video_warnings(info, camera, warnings)
