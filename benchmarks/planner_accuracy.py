@@ -87,9 +87,8 @@ from vidodo.errors import RegistrationRefused  # noqa: E402
 from vidodo.planner import (  # noqa: E402
     CameraView,
     PlanSettings,
+    error_parts,
     plan_map,
-    predict_at,
-    registration_term_px,
 )
 from vidodo.profiles import load_camera, load_field, load_robot  # noqa: E402
 from vidodo.registration.registrar import FloorRegistrar  # noqa: E402
@@ -112,23 +111,73 @@ FACTOR = 1.5
 SETUP_JITTER_M = 0.05
 """Each seed sets the placement up again: camera position and aim moved by up to this
 much [m] (uniform, invented), so that sub-pixel phases differ between the seeds."""
-REST_S = 3.0
-"""The robot stands still this long before it starts and after it stops [s], so that
-the cells at rest gather samples."""
+REST_S = 1.5
+"""The robot stands still this long at each of its two stops [s]: at rest its error
+holds for about that long (the persistent part of the corner noise), so each stop
+gives about one draw per axis, and the seeds' many short stops give the cells at rest
+their degrees of freedom."""
+STOP_TILES = [
+    ((1, 1), (2, 2)),
+    ((1, 1), (2, 1)),
+    ((1, 1), (2, 2)),
+    ((1, 1), (2, 2)),
+    ((1, 1), (2, 1)),
+    ((1, 1), (2, 2)),
+]
+"""Tiles (ix, iy) the robot stops in, per placement: neighbouring interior tiles (short
+legs, short runs) where the planner's view map has the marker in view with cells of at
+least 4.5 px 0.25 m around the tile centre (chosen once from the map's geometry, not
+its error model)."""
+STOP_SPREAD_M = 0.15
+"""Each seed stops up to this far from the tile centre, per axis (uniform) [m]."""
+VIA_SPREAD_M = 0.25
+"""Each leg between stops bends through a point up to this far sideways of its middle
+(uniform) [m]: every seed drives its own path."""
+
+
+def _interior(p, fld_m=6 * 0.6096):
+    return np.clip(p, 0.45, fld_m - 0.45)
+
+
+def _path(i, seed):
+    """Start pose and segments of placement ``i``, seed ``seed``: its stops, one in
+    each of :data:`STOP_TILES` (a spot and heading of the seed's own), joined by legs
+    bent through a point of the seed's own; :data:`REST_S` at each stop."""
+    rng = np.random.default_rng([i, seed, 1])
+    tile = 0.6096
+    stops = [_interior((np.array(t) + 0.5) * tile
+                       + rng.uniform(-STOP_SPREAD_M, STOP_SPREAD_M, 2))
+             for t in STOP_TILES[i]]
+    heads = rng.uniform(-180.0, 180.0, len(stops))
+    segs = []
+    for a, b, h in zip(stops[:-1], stops[1:], heads[1:], strict=True):
+        d = b - a
+        side = np.array([-d[1], d[0]]) / max(np.linalg.norm(d), 1e-9)
+        via = _interior((a + b) / 2 + side * rng.uniform(-VIA_SPREAD_M, VIA_SPREAD_M))
+        segs += [{"kind": "drive", "x_m": float(via[0]), "y_m": float(via[1])},
+                 {"kind": "drive", "x_m": float(b[0]), "y_m": float(b[1])},
+                 {"kind": "turn", "heading_deg": float(h)}]
+        if len(segs) < 3 * (len(stops) - 1):
+            segs.append({"kind": "wait", "duration_s": REST_S})
+    return stops[0], float(heads[0]), segs
 
 
 def _overrides(i, seed):
     """Scenario overrides of placement ``i``, seed ``seed``: its own floor texture, the
     camera set up again (:data:`SETUP_JITTER_M`), the marker turned by 90 deg per seed on
-    the robot (so the same bits do not always face the same way), longer rests."""
+    the robot (so the same bits do not always face the same way), its own path, stops
+    and headings (:func:`_path`), no faults."""
     (x, y, z), (lx, ly), hfov = PLACEMENTS[i]
     dx, dy, dz, dlx, dly = np.random.default_rng([i, seed]).uniform(
         -SETUP_JITTER_M, SETUP_JITTER_M, 5)
+    start, heading, segs = _path(i, seed)
     return {"field.texture_seed": seed, "camera.x_m": x + dx, "camera.y_m": y + dy,
             "camera.z_m": z + dz, "camera.look_at_x_m": lx + dlx,
             "camera.look_at_y_m": ly + dly, "camera.look_at_z_m": 0.0, "camera.hfov_deg": hfov,
             "marker.0.yaw_deg": -90.0 + 90.0 * (seed % 4), "video.lead_in_s": REST_S,
-            "video.tail_s": REST_S}
+            "video.tail_s": REST_S, "robot.start_x_m": float(start[0]),
+            "robot.start_y_m": float(start[1]), "robot.start_heading_deg": heading,
+            "segment": segs, "fault": None}
 
 
 def _view(run, cam):
@@ -250,8 +299,19 @@ def _raw(run, seed):
     info = {"quality": res.quality, "sigma_px": res.quality["corner_sigma_px"], "wall_s": wall,
             "clicked": n_clicked, "reg_rms_px": reg.rms_px, "reg_n": reg.n_points,
             "reg_pred_px": float(ref.prediction_px),
-            "reg": f"{reg.method} {reg.rms_px:.2f} px on {reg.n_points}"}
+            "reg": f"{reg.method} {reg.rms_px:.2f} px on {reg.n_points}", "reference": reg}
     return raw, info, (robot, fld, view)
+
+
+def _run_settings(info, settings):
+    """The planner's settings for one run: the corner noise the tracker measured in it,
+    its reference registration (parameter covariance, residual, held-out prediction
+    error), the common corner shift and readout uncertainty the track carried."""
+    q = info["quality"]
+    return replace(settings, sigma_corner_px=float(info["sigma_px"]),
+                   registration=info["reference"],
+                   corner_bias_px=float(q.get("corner_bias_px", settings.corner_bias_px)),
+                   readout_sigma_s=quality_readout_sigma_s(q))
 
 
 def _samples(raw, info, ctx, settings):
@@ -259,14 +319,9 @@ def _samples(raw, info, ctx, settings):
     robot, fld, view = ctx
     xy = raw[["x_m", "y_m"]].to_numpy(float)
     marker = robot.markers[0]
-    sigma_px = info["sigma_px"]
-    p_fix, cell, _ = predict_at(xy, marker, view, sigma_px)
-    reg_px = np.hypot(registration_term_px(replace(settings, registration_px=info["reg_rms_px"],
-                                                   registration_points=info["reg_n"])),
-                      settings.corner_bias_px)  # as plan_map combines them
-    pred, _, _ = predict_at(xy, marker, view, sigma_px, reg_px,
-                            speed_mps=raw["speed"].to_numpy(),
-                            readout_sigma_s=quality_readout_sigma_s(info["quality"]))
+    parts = error_parts(xy, marker, view, _run_settings(info, settings),
+                        speed_mps=raw["speed"].to_numpy())
+    p_fix, cell, pred = parts.corners_m, parts.cell_px, parts.sigma_xy_m
     use = (raw["detected"].to_numpy(bool) & ~raw["excluded"].to_numpy(bool)
            & (np.nan_to_num(cell) >= settings.min_cell_px))
     ex, ey = raw["ex"].to_numpy(), raw["ey"].to_numpy()
@@ -369,19 +424,25 @@ def _cell_dof(part, rho):
     return (f2 + r2) ** 2 / (f2**2 / k_fix + r2**2 / k_reg), k_fix
 
 
+def tracked(i, seed, cache=None):
+    """Render (or reuse) placement ``i``, seed ``seed`` and track it (or reuse the tracked
+    samples kept in ``cache``): ``(raw, info, ctx)`` of :func:`_raw`."""
+    run = rendered("default", seed, **_overrides(i, seed))
+    hit = None if cache is None else cache / f"{run.name}.pkl"
+    if hit is not None and hit.exists():
+        return pd.read_pickle(hit)
+    out = _raw(run, seed)
+    if hit is not None:
+        cache.mkdir(parents=True, exist_ok=True)
+        pd.to_pickle(out, hit)
+    return out
+
+
 def evaluate(i, seeds, settings, cache=None):
     """Cells compared for placement ``i``, pooled over ``seeds`` (independent noise)."""
     frames, infos = [], []
     for seed in seeds:
-        run = rendered("default", seed, **_overrides(i, seed))
-        hit = None if cache is None else cache / f"{run.name}.pkl"
-        if hit is not None and hit.exists():
-            raw, info, ctx = pd.read_pickle(hit)
-        else:
-            raw, info, ctx = _raw(run, seed)
-            if hit is not None:
-                cache.mkdir(parents=True, exist_ok=True)
-                pd.to_pickle((raw, info, ctx), hit)
+        raw, info, ctx = tracked(i, seed, cache)
         df, tau = _samples(raw, info, ctx, settings)
         frames.append(df.assign(seed=seed))
         infos.append(dict(info, tau=tau))
@@ -488,8 +549,7 @@ def main(argv=None):
         if args.map is not None and i == placements[0]:
             from vidodo.plan_picture import write_plan_png
 
-            mset = PlanSettings(sigma_corner_px=float(np.mean([v["sigma_px"] for v in infos])),
-                                readout_sigma_s=quality_readout_sigma_s(infos[0]["quality"]))
+            mset = replace(_run_settings(infos[0], settings), speed_mps=0.5)
             m = plan_map(fld, robot.markers[0], view, mset)
             write_plan_png(m, fld, robot.markers[0], args.map, settings=mset)
     _print_speed(pd.concat(samples))

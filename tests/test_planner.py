@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+from dataclasses import replace
 
 import cv2
 import numpy as np
@@ -24,6 +25,11 @@ FIELD = FieldProfile(6, 6, 0.6096)
 MARKER = Marker(id=7, family="DICT_4X4_50", size_m=0.2, z_m=0.26)
 
 
+def _corners_only(sigma_px):
+    """Settings with the corner-noise term alone (no common shift, readout known)."""
+    return PlanSettings(sigma_corner_px=sigma_px, corner_bias_px=0.0, readout_sigma_s=0.0)
+
+
 def _down(height_m, f_px=1000.0):
     """A camera looking straight down at the floor's (1, 1) from ``height_m``."""
     R = np.diag([1.0, -1.0, -1.0])  # camera x = floor x, camera y = -floor y, z down
@@ -38,7 +44,7 @@ def test_straight_down_closed_form():
     the centre of four corners each with noise sigma per axis has sigma / 2 per axis in
     px, i.e. sigma * D / (2 f) on the floor (mean of four independent values)."""
     view = _down(2.26)
-    sigma, cell, in_view = predict_at(np.array([[1.0, 1.0]]), MARKER, view, 0.4)
+    sigma, cell, in_view = predict_at(np.array([[1.0, 1.0]]), MARKER, view, _corners_only(0.4))
     D = 2.26 - 0.26
     assert in_view[0]
     assert cell[0] == pytest.approx(1000 * 0.2 / D / 6, rel=1e-6)
@@ -57,7 +63,7 @@ def test_error_matches_monte_carlo_with_opencv_back_projection():
     centre = -R.T @ tvec
     rng = np.random.default_rng(1)
     for xy in ([1.0, 0.8], [2.9, 3.2]):
-        sigma, _, _ = predict_at(np.array([xy]), MARKER, cam, 0.3)
+        sigma, _, _ = predict_at(np.array([xy]), MARKER, cam, _corners_only(0.3))
         s = MARKER.size_m / 2
         corners = np.array([[-s, s], [s, s], [s, -s], [-s, -s]]) + xy
         obj = np.column_stack([corners, np.full(4, MARKER.z_m)])
@@ -75,7 +81,7 @@ def test_error_matches_monte_carlo_with_opencv_back_projection():
 def test_out_of_view_and_behind():
     cam = ProposedCamera(1.83, -1.8, 1.0, 1.83, 0.5, 1280, 720, 40.0)
     _, cell, in_view = predict_at(np.array([[1.83, 0.5], [1.83, -3.0], [5.0, 3.6]]), MARKER,
-                                  cam, 0.3)
+                                  cam, _corners_only(0.3))
     assert in_view.tolist() == [True, False, False]
     assert np.isnan(cell[1:]).all()
 
@@ -98,8 +104,6 @@ def test_suggested_marker_is_the_smallest_that_works():
     settings = PlanSettings(margin_m=0.2)
     sug = suggest(FIELD, MARKER, cam, settings)
     assert sug.smallest_marker_m is not None
-    from dataclasses import replace
-
     coarse = replace(settings, grid_m=0.1)
     ok = plan_map(FIELD, replace(MARKER, size_m=sug.smallest_marker_m), cam, coarse)
     assert ok.detectable[ok.in_view].all()
@@ -127,21 +131,6 @@ def test_plan_verb(tmp_path, capsys):
     assert not (tmp_path / "bad").exists()
 
 
-def test_registration_term_straight_down():
-    """The registration's mean prediction error rms * sqrt(p / n) (trace of the hat
-    matrix, Draper & Smith, Applied Regression Analysis, 3rd ed., sec. 8.1; p = 8 for a
-    homography) adds in quadrature through D / f metres per px (pinhole, looking down)."""
-    from vidodo.planner import registration_term_px
-
-    reg = registration_term_px(PlanSettings(registration_px=0.5, registration_points=200))
-    assert reg == pytest.approx(0.5 * math.sqrt(8 / 200))
-    assert registration_term_px(PlanSettings()) == 0.0
-    view = _down(2.26)
-    sigma, _, _ = predict_at(np.array([[1.0, 1.0]]), MARKER, view, 0.4, reg)
-    D = 2.26 - 0.26
-    assert sigma[0] == pytest.approx(math.hypot(0.4 * D / 2000, reg * D / 1000), rel=1e-4)
-
-
 def test_timing_term_straight_down():
     """The track's timing term (DEVELOPERS.md "How the 1-sigma is built"): a detection
     read a fraction ``v / height`` of the readout after the frame time (rolling shutter,
@@ -150,15 +139,16 @@ def test_timing_term_straight_down():
     from OpenCV's projectPoints, not the planner's projection."""
     view = _down(2.26)
     xy = np.array([[1.0, 1.3]])
-    still, _, _ = predict_at(xy, MARKER, view, 0.4)
-    moving, _, _ = predict_at(xy, MARKER, view, 0.4, speed_mps=0.8, readout_sigma_s=0.01)
+    still, _, _ = predict_at(xy, MARKER, view, _corners_only(0.4))
+    moving, _, _ = predict_at(xy, MARKER, view, replace(_corners_only(0.4), readout_sigma_s=0.01),
+                              speed_mps=0.8)
     img, _ = cv2.projectPoints(np.array([[1.0, 1.3, MARKER.z_m]]), view.rvec, view.tvec,
                                view.camera_matrix, view.dist_coeffs)
     frac = img.reshape(2)[1] / view.height_px
     assert 0.0 < frac < 0.5  # +y is up the image for this camera
     extra = 0.8 * frac * 0.01 / math.sqrt(2)
     assert moving[0] == pytest.approx(math.hypot(still[0], extra), rel=1e-3)
-    known, _, _ = predict_at(xy, MARKER, view, 0.4, speed_mps=0.8, readout_sigma_s=0.0)
+    known, _, _ = predict_at(xy, MARKER, view, _corners_only(0.4), speed_mps=0.8)
     assert known[0] == pytest.approx(still[0], rel=1e-12)
 
 
@@ -175,3 +165,59 @@ def test_corner_bias_term_straight_down():
     j, i = np.argmin(np.abs(base.y_m - 1.0)), np.argmin(np.abs(base.x_m - 1.0))
     assert biased.sigma_xy_m[j, i] == pytest.approx(
         math.hypot(base.sigma_xy_m[j, i], 0.2 * D / 1000), rel=1e-4)
+
+
+def test_registration_term_matches_monte_carlo_with_opencv():
+    """The registration's parameter covariance through the pose fit (the track's term,
+    ``registration_error.registration_pose_covs``; linear propagation, JCGM 100:2008
+    section 5.1.2) against drawing the camera pose from that covariance: the marker's
+    corner pixels (OpenCV projectPoints with the true pose) back-projected with each
+    drawn pose onto the marker plane (OpenCV undistortPoints, ray and plane), the centre
+    the mean of the four corners; the spread over 4000 draws within 5 %."""
+    from vidodo.planner import error_parts, view_of
+    from vidodo.registration.frame import FrameRegistration
+
+    cam = ProposedCamera(1.83, -1.8, 2.4, 1.83, 1.5, 1280, 720, 68.0,
+                         dist=(0.05, -0.11, 0.0, 0.0, 0.03))
+    view = view_of(cam)
+    cov = np.diag([2e-3, 1e-3, 1e-3, 4e-3, 3e-3, 5e-3]) ** 2
+    given = FrameRegistration(0.0, True, view.camera_matrix, view.dist_coeffs, view.rvec,
+                              view.tvec, 0.0, float("nan"), 100, "points", param_cov=cov,
+                              param_names=("rvec", "tvec"))
+    settings = replace(_corners_only(0.3), registration=given)
+    rng = np.random.default_rng(2)
+    for xy in ([1.0, 0.8], [2.9, 3.2]):
+        parts = error_parts(np.array([xy]), MARKER, cam, settings)
+        s = MARKER.size_m / 2
+        obj = np.column_stack([np.array([[-s, s], [s, s], [s, -s], [-s, -s]]) + xy,
+                               np.full(4, MARKER.z_m)])
+        img, _ = cv2.projectPoints(obj, view.rvec, view.tvec, cam.matrix, np.asarray(cam.dist))
+        norm = cv2.undistortPoints(img, cam.matrix, np.asarray(cam.dist)).reshape(-1, 2)
+        centres = []
+        for d in rng.multivariate_normal(np.zeros(6), cov, 4000):
+            R, _ = cv2.Rodrigues(view.rvec + d[:3])
+            c = -R.T @ (view.tvec + d[3:])
+            rays = np.column_stack([norm, np.ones(4)]) @ R
+            lam = (MARKER.z_m - c[2]) / rays[:, 2]
+            centres.append((c[:2] + lam[:, None] * rays[:, :2]).mean(axis=0))
+        spread = math.sqrt(np.mean(np.var(np.array(centres), axis=0)))
+        assert parts.registration_m[0] == pytest.approx(spread, rel=0.05), xy
+        assert parts.bias_m[0] == 0.0 and parts.timing_m[0] == 0.0
+
+
+def test_registration_fallback_is_the_tracks():
+    """Without a covariance the planner takes the track's fallback term: the mean
+    prediction error rms * sqrt(p / n) of a least-squares fit (trace of the hat matrix,
+    Draper & Smith, Applied Regression Analysis, 3rd ed., sec. 8.1; p = 8) through
+    D / f metres per px looking straight down (pinhole, common practice), radial, so
+    / sqrt(2) per axis."""
+    from vidodo.planner import error_parts
+
+    view = _down(2.26)
+    D = 2.26 - 0.26
+    settings = replace(_corners_only(0.4), registration_px=0.5, registration_points=200)
+    parts = error_parts(np.array([[1.0, 1.0]]), MARKER, view, settings)
+    assert parts.registration_m[0] == pytest.approx(
+        0.5 * math.sqrt(8 / 200) * D / 1000 / math.sqrt(2), rel=1e-4)
+    none = error_parts(np.array([[1.0, 1.0]]), MARKER, view, _corners_only(0.4))
+    assert none.registration_m[0] == 0.0

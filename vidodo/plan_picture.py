@@ -113,7 +113,8 @@ def plan_of_grade(summary: dict, folder, out_dir) -> dict[str, Path]:
     The camera's pose and lens come from the first registration the track was measured
     with (``track.floor.csv`` in ``folder``), or else from registering the footage's
     first frame (``summary.inputs.video``, ``field``, ``camera``); the corner noise and
-    the registration's size from the track's quality in the summary. Empty when any of
+    the common corner shift from the track's quality in the summary, the registration's
+    parameter covariance (when the registration carries one) or size from it. Empty when any of
     these cannot be had (the report is written without the map).
     """
     import math
@@ -164,8 +165,10 @@ def plan_of_grade(summary: dict, folder, out_dir) -> dict[str, Path]:
     view = CameraView(np.asarray(reg.camera_matrix, float), np.asarray(reg.dist_coeffs, float),
                       np.asarray(reg.rvec, float).ravel(), np.asarray(reg.tvec, float).ravel(),
                       w, h)
-    settings = PlanSettings(sigma_corner_px=float(sigma_px), registration_px=reg.rms_px,
-                            registration_points=reg.n_points,
+    bias = quality.get("corner_bias_px")
+    settings = PlanSettings(sigma_corner_px=float(sigma_px), registration=reg,
+                            corner_bias_px=float(bias) if isinstance(bias, int | float)
+                            and math.isfinite(bias) else PlanSettings.corner_bias_px,
                             margin_m=min(robot.length_m, robot.width_m) / 2,
                             readout_sigma_s=quality_readout_sigma_s(quality))
     plan = plan_map(fld, robot.markers[0], view, settings)

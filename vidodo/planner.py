@@ -6,17 +6,20 @@ the field. From that projection follow
 
 * the marker's cell size in pixels (``sqrt(image area) / cells across``), against the
   smallest cell that detects reliably (README: 4-5 px);
-* the expected 1-sigma position error, from the project's own error model (the one
-  behind the track's 1-sigma, DEVELOPERS.md "How the 1-sigma is built"): independent
-  corner noise of ``sigma_px`` on each of the four corners, propagated through the
-  camera geometry by the Jacobian of the corners' pixels with respect to the marker's
-  floor pose (x, y, heading), ``cov = sigma_px^2 (J^T J)^-1``; the position 1-sigma is
-  ``sqrt(trace(cov_xy) / 2)`` (per axis, RMS of the two);
-* the timing term of the same model: a detection timed off by ``dt`` moves the
-  position by ``speed * dt``; the track's ``dt`` is the row fraction of the marker in
-  the image times how far the rolling-shutter readout may be off (0 when the camera
-  profile gives it, else a phone's readout of up to 30 ms); the planner takes the
-  speed as an assumed typical drive speed (:attr:`PlanSettings.speed_mps`);
+* the expected 1-sigma position error per axis, the track's own model (DEVELOPERS.md
+  "How the 1-sigma is built"), computed by the track's own code (:func:`error_parts`):
+  the marker's projected corners are fitted by the tracker's pose fit through the
+  camera taken as a registration, giving the corner-noise term ``sigma_px^2`` times the
+  fit's unit covariance; the registration's parameter covariance (when a registration
+  is given) carried through that fit (``registration_error.registration_pose_covs``),
+  else its mean prediction error, and at least its held-out prediction error
+  (``error_model.registration_sigma_m``); the common corner shift of the corner
+  refinement (``corner_bias_px``, ``error_model.corner_bias_var_m2``); and the timing
+  term (``error_model.timing_var_m2``): a detection timed off by the marker's row
+  fraction times how far the rolling-shutter readout may be off (0 when the camera
+  profile gives it, else a phone's readout of up to 30 ms), at an assumed typical drive
+  speed (:attr:`PlanSettings.speed_mps`). The smoother is not modelled (one frame's
+  corner term: the cautious side);
 * the part of the field out of view.
 
 :func:`plan_map` computes the map; :func:`suggest` searches the lowest camera height and
@@ -33,8 +36,12 @@ import numpy as np
 
 from .errors import InputError
 from .profiles import marker_corners_local
-from .tracking.detector import DEFAULT_REFINE, refine_bias_sigma_px
+from .registration.frame import FrameRegistration
+from .tracking.detector import DEFAULT_REFINE, Detection, refine_bias_sigma_px
+from .tracking.error_model import corner_bias_var_m2, registration_sigma_m, timing_var_m2
 from .tracking.finish import UNKNOWN_READOUT_MAX_S
+from .tracking.pose_fit import fit_pose
+from .tracking.registration_error import registration_pose_covs
 
 UNKNOWN_READOUT_SIGMA_S = UNKNOWN_READOUT_MAX_S / math.sqrt(3.0)
 """The track's readout uncertainty when none is known: a readout anywhere from 0 to
@@ -42,8 +49,7 @@ UNKNOWN_READOUT_SIGMA_S = UNKNOWN_READOUT_MAX_S / math.sqrt(3.0)
 
 __all__ = ["marker_cells_across", "marker_cell_px", "ProposedCamera", "CameraView", "view_of",
            "PlanSettings", "PlanMap", "camera_pose", "plan_map", "predict_at", "suggest",
-           "registration_term_px",
-           "Suggestion", "corner_jacobian"]
+           "ErrorParts", "error_parts", "Suggestion"]
 
 
 def marker_cells_across(family: str) -> int:
@@ -103,33 +109,6 @@ def marker_cell_px(rvec, tvec, K, dist, xy_m, marker) -> np.ndarray:
     area = 0.5 * np.abs(d1[:, 0] * d2[:, 1] - d1[:, 1] * d2[:, 0])
     out = np.sqrt(area) / marker_cells_across(marker.family)
     return np.where(_in_front(pts, rvec, tvec), out, np.nan)
-
-
-def corner_jacobian(rvec, tvec, K, dist, xy_m, size_m, z_m, *, step_m=1e-4):
-    """d(corner pixels) / d(x, y, heading) of a flat marker at each point.
-
-    Central differences of :func:`cv2.projectPoints` (step ``step_m`` in position,
-    ``step_m`` rad in heading).
-
-    Returns
-    -------
-    ndarray of shape (N, 8, 3)
-        Pixels per metre (columns 0, 1) and per radian (column 2).
-    """
-    xy = np.asarray(xy_m, float).reshape(-1, 2)
-    cols = []
-    for k in range(3):
-        pos, neg = xy.copy(), xy.copy()
-        yaw_p = yaw_n = 0.0
-        if k < 2:
-            pos[:, k] += step_m
-            neg[:, k] -= step_m
-        else:
-            yaw_p, yaw_n = step_m, -step_m
-        ip = _project(_marker_points(pos, size_m, z_m, yaw_p), rvec, tvec, K, dist)
-        im = _project(_marker_points(neg, size_m, z_m, yaw_n), rvec, tvec, K, dist)
-        cols.append(((ip - im) / (2 * step_m)).reshape(len(xy), 8))
-    return np.stack(cols, axis=2)
 
 
 @dataclass(frozen=True)
@@ -217,6 +196,11 @@ class PlanSettings:
     0 leaves the registration's error out."""
     registration_points: int = 0
     """Points the registration was fitted to (``n_points``)."""
+    registration: FrameRegistration | None = None
+    """A registration of this camera (a run's reference, or ``vidodo register``'s): its
+    parameter covariance is carried through the pose fit as the track carries it, with
+    its residual and held-out prediction error (replaces ``registration_px`` and
+    ``registration_points``); None: those two alone (the track's fallback term)."""
     margin_m: float = 0.0
     """Keep the marker this far inside the field edges [m] (half the robot)."""
     corner_bias_px: float = refine_bias_sigma_px(DEFAULT_REFINE)
@@ -270,58 +254,148 @@ def plan_map(fld, marker, cam, settings: PlanSettings = PlanSettings()) -> PlanM
     -------
     PlanMap
     """
+    return _grid_map(fld, marker, cam, settings, with_sigma=True)
+
+
+def _grid_map(fld, marker, cam, settings, *, with_sigma):
+    """:func:`plan_map`; without ``with_sigma`` only the view and the cells (NaN sigma)."""
     sx, sy = fld.size_m
     m = settings.margin_m
     gx = np.arange(m, sx - m + 1e-9, settings.grid_m)
     gy = np.arange(m, sy - m + 1e-9, settings.grid_m)
     xx, yy = np.meshgrid(gx, gy)
     xy = np.column_stack([xx.ravel(), yy.ravel()])
-    reg_px = math.hypot(registration_term_px(settings), settings.corner_bias_px)
-    sigma, cell, in_view = predict_at(xy, marker, cam, settings.sigma_corner_px, reg_px,
-                                      speed_mps=settings.speed_mps,
-                                      readout_sigma_s=settings.readout_sigma_s)
+    if with_sigma:
+        sigma, cell, in_view = predict_at(xy, marker, cam, settings)
+    else:
+        cell, in_view = _view_cells(xy, marker, _as_view(cam))
+        sigma = np.full(len(xy), np.nan)
     shape = xx.shape
     det = in_view & (np.nan_to_num(cell) >= settings.min_cell_px)
     return PlanMap(gx, gy, sigma.reshape(shape), cell.reshape(shape),
                    in_view.reshape(shape), det.reshape(shape))
 
 
-REGISTRATION_PARAMS = 8
-"""Parameters of a floor registration (a homography's 8), as in the track's model."""
+def _as_view(cam) -> CameraView:
+    return cam if isinstance(cam, CameraView) else view_of(cam)
 
 
-def registration_term_px(settings: PlanSettings) -> float:
-    """The registration's mean prediction error in image px: ``rms * sqrt(p / n)``.
+def _view_cells(xy, marker, v):
+    """Cell size [px] (NaN out of view) and whether the whole marker is in view."""
+    pts = _marker_points(xy, marker.size_m, marker.z_m)
+    img = _project(pts, v.rvec, v.tvec, v.camera_matrix, v.dist_coeffs)
+    inside = ((img[..., 0] >= 0) & (img[..., 0] <= v.width_px - 1)
+              & (img[..., 1] >= 0) & (img[..., 1] <= v.height_px - 1)).all(axis=1)
+    in_view = inside & _in_front(pts, v.rvec, v.tvec)
+    cell = marker_cell_px(v.rvec, v.tvec, v.camera_matrix, v.dist_coeffs, xy, marker)
+    return np.where(in_view, cell, np.nan), in_view
 
-    A least-squares fit of p parameters to n observations with residual sigma predicts
-    with mean variance sigma^2 p / n (trace of the hat matrix; Draper & Smith, *Applied
-    Regression Analysis*, 3rd ed., section 8.1): the term the track's 1-sigma adds.
+
+def _registration_of(v: CameraView, settings) -> FrameRegistration:
+    """The camera as the tracker's registration of it: its lens and pose, with the
+    parameter covariance, residual and prediction error of ``settings.registration``
+    (or only ``registration_px`` over ``registration_points``, no covariance)."""
+    given = settings.registration
+    if given is not None:
+        return FrameRegistration(
+            0.0, True, np.asarray(v.camera_matrix, float), np.asarray(v.dist_coeffs, float),
+            np.asarray(v.rvec, float), np.asarray(v.tvec, float), float(given.rms_px),
+            float(given.rms_floor_m), int(given.n_points), "plan",
+            prediction_px=float(given.prediction_px), param_cov=given.param_cov,
+            param_names=tuple(given.param_names))
+    counted = settings.registration_points > 0
+    return FrameRegistration(
+        0.0, True, np.asarray(v.camera_matrix, float), np.asarray(v.dist_coeffs, float),
+        np.asarray(v.rvec, float), np.asarray(v.tvec, float),
+        float(settings.registration_px) if counted else 0.0, float("nan"),
+        int(settings.registration_points), "plan")
+
+
+@dataclass(frozen=True)
+class ErrorParts:
+    """The track's 1-sigma at points, per axis, term by term [m] (NaN out of view)."""
+
+    corners_m: np.ndarray
+    """Corner noise through the pose fit (``sigma^2 x`` the fit's unit covariance)."""
+    registration_m: np.ndarray
+    """The registration's error through the pose fit."""
+    bias_m: np.ndarray
+    """A shift common to the marker's corners (``corner_bias_px``)."""
+    timing_m: np.ndarray
+    """The rolling-shutter timing term at the given speed."""
+    cell_px: np.ndarray
+    in_view: np.ndarray
+
+    @property
+    def sigma_xy_m(self) -> np.ndarray:
+        """All terms in quadrature [m]."""
+        return np.sqrt(self.corners_m**2 + self.registration_m**2 + self.bias_m**2
+                       + self.timing_m**2)
+
+
+def error_parts(xy_m, marker, cam, settings: PlanSettings = PlanSettings(), *,
+                speed_mps=None) -> ErrorParts:
+    """The track's 1-sigma model at marker positions, term by term, per axis.
+
+    The marker (heading 0, at its height) is projected into the camera at each point
+    and its corners are fitted by the tracker's own pose fit
+    (:func:`~vidodo.tracking.pose_fit.fit_pose`) through the camera taken as a
+    registration (:func:`_registration_of`); the terms are then the track's
+    (:mod:`vidodo.tracking.error_model`, :func:`~vidodo.tracking.registration_error.
+    registration_pose_covs`), each divided by sqrt(2) for one axis (the track's
+    ``sigma_xy_m`` is radial). The smoother is not modelled: the corner term is one
+    frame's, the cautious side.
+
+    Parameters
+    ----------
+    xy_m : ndarray of shape (N, 2)
+        Marker centres on the floor [m].
+    marker : Marker
+    cam : ProposedCamera or CameraView
+    settings : PlanSettings
+        ``sigma_corner_px``, the registration, ``corner_bias_px``, ``readout_sigma_s``.
+    speed_mps : float or ndarray of shape (N,), optional
+        The robot's speed at the points [m/s]; default ``settings.speed_mps``.
+
+    Returns
+    -------
+    ErrorParts
     """
-    if settings.registration_px <= 0 or settings.registration_points <= 0:
-        return 0.0
-    n = max(settings.registration_points, REGISTRATION_PARAMS)
-    return settings.registration_px * math.sqrt(REGISTRATION_PARAMS / n)
+    v = _as_view(cam)
+    xy = np.asarray(xy_m, float).reshape(-1, 2)
+    cell, in_view = _view_cells(xy, marker, v)
+    reg = _registration_of(v, settings)
+    flat = replace(marker, x_m=0.0, y_m=0.0, yaw_rad=0.0)
+    img = _project(_marker_points(xy, marker.size_m, marker.z_m), v.rvec, v.tvec,
+                   v.camera_matrix, v.dist_coeffs)
+    nan = np.full(len(xy), np.nan)
+    corner_var, mpp, reg_var = nan.copy(), nan.copy(), nan.copy()
+    frames, at = [], []
+    for k in np.flatnonzero(in_view):
+        fix = fit_pose([Detection(0, img[k])], [flat], reg)
+        if fix is None:
+            continue
+        corner_var[k] = settings.sigma_corner_px**2 * (fix.cov_unit[0, 0] + fix.cov_unit[1, 1])
+        mpp[k] = fix.m_per_px
+        frames.append((fix, [img[k]], [marker.z_m], reg))
+        at.append(k)
+    if frames:
+        covs = np.array(registration_pose_covs(frames))
+        reg_var[at] = covs[:, 0, 0] + covs[:, 1, 1]
+    reg_sigma = registration_sigma_m(reg_var, mpp, reg.rms_px, reg.n_points,
+                                     rms_m=reg.rms_floor_m, prediction_px=reg.prediction_px)
+    speed = settings.speed_mps if speed_mps is None else speed_mps
+    frac = np.clip(img.mean(axis=1)[:, 1] / v.height_px, 0.0, 1.0)
+    timing = timing_var_m2(np.broadcast_to(np.asarray(speed, float), (len(xy),)), frac,
+                           settings.readout_sigma_s)
+    half = np.sqrt(0.5)
+    return ErrorParts(np.sqrt(corner_var) * half, np.nan_to_num(reg_sigma) * half,
+                      np.sqrt(corner_bias_var_m2(settings.corner_bias_px, mpp)) * half,
+                      np.where(in_view, np.sqrt(timing) * half, np.nan), cell, in_view)
 
 
-def _floor_jacobian(xy, z_m, v):
-    """d(image px) / d(floor x, y) of a point at height ``z_m`` [px/m], (N, 2, 2)."""
-    step = 1e-4
-    pts = []
-    for d in ((step, 0.0), (-step, 0.0), (0.0, step), (0.0, -step)):
-        q = np.column_stack([xy + d, np.full(len(xy), z_m)])
-        pts.append(_project(q[:, None, :], v.rvec, v.tvec, v.camera_matrix,
-                            v.dist_coeffs)[:, 0])
-    return np.stack([(pts[0] - pts[1]) / (2 * step), (pts[2] - pts[3]) / (2 * step)], axis=2)
-
-
-def _metres_per_px(xy, z_m, v):
-    """Floor metres per image px at each point (RMS over the two axes) [m/px]."""
-    inv = np.linalg.pinv(_floor_jacobian(xy, z_m, v))  # d floor / d px, (N, 2, 2)
-    return np.sqrt(np.einsum("nij,nij->n", inv, inv) / 2)
-
-
-def predict_at(xy_m, marker, cam, sigma_corner_px, registration_px=0.0, *, speed_mps=0.0,
-               readout_sigma_s=0.0):
+def predict_at(xy_m, marker, cam, settings: PlanSettings = PlanSettings(), *,
+               speed_mps=None):
     """Expected 1-sigma position error per axis, cell size and visibility at points.
 
     Parameters
@@ -330,49 +404,20 @@ def predict_at(xy_m, marker, cam, sigma_corner_px, registration_px=0.0, *, speed
         Marker centres on the floor [m].
     marker : Marker
     cam : ProposedCamera or CameraView
-    sigma_corner_px : float
-        1-sigma corner noise per image coordinate [px].
-    registration_px : float
-        The registration's prediction error [px] (:func:`registration_term_px`; with a
-        common corner shift, its hypot with ``corner_bias_px``), added in quadrature
-        through the floor metres per px at the point.
-    speed_mps : float or ndarray of shape (N,)
-        The robot's speed at the points [m/s].
-    readout_sigma_s : float
-        How far the readout time may be off [s]: adds the track's timing term, ``speed
-        x row fraction x readout_sigma_s`` along the motion (per axis: / sqrt(2), the
-        direction of travel taken as random).
+    settings : PlanSettings
+    speed_mps : float or ndarray of shape (N,), optional
+        The robot's speed at the points [m/s]; default ``settings.speed_mps``.
 
     Returns
     -------
     sigma_xy_m : ndarray of shape (N,)
-        ``sqrt(trace(cov_xy) / 2)`` with ``cov = sigma^2 (J^T J)^-1`` [m], plus the
-        registration term; NaN out of view.
+        The track's 1-sigma per axis (:func:`error_parts`) [m]; NaN out of view.
     cell_px : ndarray of shape (N,)
         NaN out of view.
     in_view : ndarray of bool, shape (N,)
     """
-    v = cam if isinstance(cam, CameraView) else view_of(cam)
-    xy = np.asarray(xy_m, float).reshape(-1, 2)
-    K, dist, rvec, tvec = v.camera_matrix, v.dist_coeffs, v.rvec, v.tvec
-    pts = _marker_points(xy, marker.size_m, marker.z_m)
-    img = _project(pts, rvec, tvec, K, dist)
-    inside = ((img[..., 0] >= 0) & (img[..., 0] <= v.width_px - 1)
-              & (img[..., 1] >= 0) & (img[..., 1] <= v.height_px - 1)).all(axis=1)
-    in_view = inside & _in_front(pts, rvec, tvec)
-    cell = marker_cell_px(rvec, tvec, K, dist, xy, marker)
-    J = corner_jacobian(rvec, tvec, K, dist, xy, marker.size_m, marker.z_m)
-    info = np.einsum("nki,nkj->nij", J, J)
-    cov = sigma_corner_px**2 * np.linalg.pinv(info)
-    var = np.maximum((cov[:, 0, 0] + cov[:, 1, 1]) / 2, 0.0)
-    if registration_px > 0:
-        var = var + (registration_px * _metres_per_px(xy, marker.z_m, v)) ** 2
-    if readout_sigma_s > 0:
-        centre = img.mean(axis=1)
-        frac = np.clip(centre[:, 1] / v.height_px, 0.0, 1.0)
-        var = var + (np.asarray(speed_mps, float) * frac * readout_sigma_s) ** 2 / 2
-    sigma = np.sqrt(var)
-    return np.where(in_view, sigma, np.nan), np.where(in_view, cell, np.nan), in_view
+    parts = error_parts(xy_m, marker, cam, settings, speed_mps=speed_mps)
+    return np.where(parts.in_view, parts.sigma_xy_m, np.nan), parts.cell_px, parts.in_view
 
 
 @dataclass(frozen=True)
@@ -402,11 +447,13 @@ def suggest(fld, marker, cam: ProposedCamera, settings: PlanSettings = PlanSetti
     """
     coarse = replace(settings, grid_m=max(settings.grid_m, 0.1))
     height = next((float(h) for h in heights_m
-                   if plan_map(fld, marker, replace(cam, z_m=float(h)), coarse).all_detectable),
+                   if _grid_map(fld, marker, replace(cam, z_m=float(h)), coarse,
+                                with_sigma=False).all_detectable),
                   None)
 
     def fine(size_m):
-        m = plan_map(fld, replace(marker, size_m=float(size_m)), cam, coarse)
+        m = _grid_map(fld, replace(marker, size_m=float(size_m)), cam, coarse,
+                      with_sigma=False)
         return bool(np.all(m.detectable[m.in_view])) and m.in_view.any()
 
     lo, hi = sizes_m

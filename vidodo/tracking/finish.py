@@ -19,6 +19,7 @@ import pandas as pd
 
 from ..errors import TrackingError
 from .detector import ROTATION_EXCESS, refine_bias_sigma_px
+from .error_model import corner_bias_var_m2, registration_sigma_m, timing_var_m2
 from .noise import (
     CornerNoise,
     estimate_corner_noise,
@@ -35,9 +36,6 @@ from .smooth import rts_smooth_signals
 
 __all__ = ["finish_track", "MIN_CELL_PX", "UNKNOWN_READOUT_MAX_S", "readout_sigma_s",
            "quality_readout_sigma_s"]
-
-REGISTRATION_PARAMS = 8
-"""Parameters a floor registration fits: camera pose (6) plus up to two lens terms."""
 
 UNKNOWN_READOUT_MAX_S = 0.030
 """Longest sensor readout of a phone's video mode assumed when none is known [s] (a
@@ -169,7 +167,7 @@ def finish_track(records, robot, field_profile, settings=None, *, readout_source
     fixes = [acc.fix[i] for i in idx]
     noise, noise_parts = _corner_noise(fixes, idx, settings.corner_sigma_px)
     mpp, reg_err, reg_heading = _registration_error(acc, fixes, idx, n)
-    common = (2.0 * (_corner_bias_px(settings) * mpp) ** 2,
+    common = (corner_bias_var_m2(_corner_bias_px(settings), mpp),
               *_lock_var(acc, idx, n, settings.refine))
     run = _Run(t, idx, ok, _segments(idx, t, settings.max_gap_s), fixes, reg_err, mpp,
                common, reg_heading)
@@ -286,26 +284,16 @@ def _registration_error(acc, fixes, idx, n):
     mpp = np.interp(np.arange(n), idx, [f.m_per_px for f in fixes])
     # The registration's own parameter error carried through the pose fit
     # (registration_error.registration_pose_covs), where the registration has a
-    # covariance; else its mean prediction error: a least-squares fit of p parameters
-    # to n observations with residual sigma predicts with mean variance sigma^2 p / n
-    # (the trace of the hat matrix; e.g. Draper & Smith, Applied Regression Analysis,
-    # 3rd ed., section 8.1), carried to the floor through the image scale at the marker.
+    # covariance; else its mean prediction error; or, where larger, its held-out
+    # prediction error (error_model.registration_sigma_m, shared with the planner).
     held = [int(i) for i in idx if int(i) in acc.reg_inputs]
     by_frame = dict(zip(held, registration_pose_covs([acc.reg_inputs[i] for i in held]),
                         strict=True))
     cov = np.array([by_frame.get(int(i), np.full((3, 3), np.nan)) for i in idx])
     var_xy = np.interp(np.arange(n), idx, cov[:, 0, 0] + cov[:, 1, 1])
     var_h = np.interp(np.arange(n), idx, cov[:, 2, 2])
-    reg_px = np.asarray(acc.reg_rms_px, float)
-    reg_n = np.maximum(np.asarray(acc.reg_n, float), REGISTRATION_PARAMS)
-    reg_err = reg_px * np.sqrt(REGISTRATION_PARAMS / reg_n) * mpp
-    reg_err = np.where(np.isfinite(reg_err), reg_err, np.asarray(acc.reg_rms_m, float))
-    known = np.isfinite(var_xy) & (var_xy > 0)
-    reg_err = np.where(known, np.sqrt(np.where(known, var_xy, 0.0)), reg_err)
-    # ... or, where larger, the error the registration showed at clicked points it was
-    # not fitted to: it holds the lens and pose error its covariance does not (an
-    # unmodelled lens is a systematic error).
-    reg_err = np.fmax(reg_err, np.asarray(acc.reg_pred_px, float) * mpp)
+    reg_err = registration_sigma_m(var_xy, mpp, acc.reg_rms_px, acc.reg_n,
+                                   rms_m=acc.reg_rms_m, prediction_px=acc.reg_pred_px)
     return mpp, reg_err, np.sqrt(np.where(np.isfinite(var_h), var_h, 0.0))
 
 
@@ -472,7 +460,8 @@ def _add_timing_sigma(out, frac, sigma_readout_s, view=None):
         return
     dt = np.nan_to_num(frac) * sigma_readout_s
     speed = np.hypot(out["vx_mps"], out["vy_mps"])
-    out["sigma_xy_m"] = np.sqrt(out["sigma_xy_m"] ** 2 + np.nan_to_num(speed * dt) ** 2
+    out["sigma_xy_m"] = np.sqrt(out["sigma_xy_m"] ** 2
+                                + timing_var_m2(speed, frac, sigma_readout_s)
                                 + np.sum(view ** 2, axis=1))
     out["sigma_heading_rad"] = np.hypot(out["sigma_heading_rad"],
                                         np.abs(out["omega_radps"]) * dt)
