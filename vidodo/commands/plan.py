@@ -12,8 +12,9 @@ HELP = "plan the camera: expected error and marker size over the field for a pla
 DESCRIPTION = (
     "For a proposed camera (position, aim, field of view or a lens profile) and the "
     "robot's marker (size, height), draw a map of the field: expected 1-sigma position "
-    "error from corner noise propagated through the camera geometry (the model behind "
-    "the track's 1-sigma), marker cell size in pixels, where the marker is too small to "
+    "error by the track's own model (corner noise through the pose fit, the "
+    "registration's error, the corner refinement's common shift, rolling-shutter "
+    "timing), marker cell size in pixels, where the marker is too small to "
     "detect and what is out of view; then suggest the lowest camera height and the "
     "smallest marker that keep every point detectable. Writes plan.png and plan.json. "
     "Exit 2 for bad input."
