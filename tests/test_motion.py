@@ -151,6 +151,28 @@ def test_tripod_camera_looks_at_the_look_at_point():
     assert uv2.ravel()[1] < cam.cy_px
 
 
+@pytest.mark.parametrize("roll_deg", [180.0, 90.0])
+def test_rolled_camera_turns_the_image_about_the_principal_point(roll_deg):
+    """A camera turned about its optical axis by roll sees every point turned by roll
+    about the principal point, same position and aim (pinhole geometry, common
+    practice); checked with cv2.projectPoints against the level camera's image."""
+    level = load_scenario("default", **{"camera.distortion": [0.0] * 5})
+    rolled = load_scenario("default", **{"camera.distortion": [0.0] * 5,
+                                         "camera.roll_deg": roll_deg})
+    cam = level.camera_profile()
+    pts = np.array([[0.5, 0.5, 0.0], [3.0, 1.0, 0.26], [1.8, 3.0, 0.0]])
+    uv = [cv2.projectPoints(pts, *camera_pose_fn(sc)(0.0), cam.matrix, None)[0].reshape(-1, 2)
+          for sc in (level, rolled)]
+    c, s = math.cos(math.radians(roll_deg)), math.sin(math.radians(roll_deg))
+    d = uv[0] - [cam.cx_px, cam.cy_px]
+    assert_allclose(uv[1], np.column_stack([c * d[:, 0] + s * d[:, 1],
+                                            -s * d[:, 0] + c * d[:, 1]])
+                    + [cam.cx_px, cam.cy_px], atol=1e-6)
+    rot = cv2.Rodrigues(camera_pose_fn(rolled)(0.0)[0])[0]
+    assert_allclose(-rot.T @ camera_pose_fn(rolled)(0.0)[1], rolled.camera.position_m,
+                    atol=1e-12)
+
+
 def test_handheld_camera_sways_slowly_and_deterministically():
     sc = load_scenario("mecanum-handheld")
     f, g = camera_pose_fn(sc, 5), camera_pose_fn(sc, 5)

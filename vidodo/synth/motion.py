@@ -376,7 +376,9 @@ def camera_base_pose(cam) -> tuple[np.ndarray, np.ndarray]:
     """Floor -> camera rotation matrix and translation for a camera spec.
 
     The optical axis points from the lens centre to the look-at point; image x is
-    horizontal (floor z up maps to image up).
+    horizontal (floor z up maps to image up), then the camera is turned about its
+    optical axis by ``cam.roll_rad`` (positive: the picture turns counter-clockwise as seen; 180
+    deg: a phone held the other way up).
 
     Returns
     -------
@@ -384,7 +386,12 @@ def camera_base_pose(cam) -> tuple[np.ndarray, np.ndarray]:
     t : ndarray of shape (3,)
         ``X_cam = R @ X_floor + t`` [m].
     """
-    return look_at_pose(cam.position_m, cam.look_at_m)
+    rot, _ = look_at_pose(cam.position_m, cam.look_at_m)
+    roll = float(getattr(cam, "roll_rad", 0.0))
+    if roll:
+        c, s = math.cos(roll), math.sin(roll)
+        rot = np.array([[c, s, 0.0], [-s, c, 0.0], [0.0, 0.0, 1.0]]) @ rot
+    return rot, -rot @ np.asarray(cam.position_m, float)
 
 
 def look_at_pose(position_m, target_m) -> tuple[np.ndarray, np.ndarray]:

@@ -27,6 +27,7 @@ Layout (defaults in brackets)::
     hfov_deg [68] or focal_px         # horizontal field of view, or focal length
     distortion [0,0,0,0,0]            # k1, k2, p1, p2, k3 (OpenCV order)
     readout_s [0.0]                   # rolling-shutter top-to-bottom readout
+    roll_deg [0.0]                    # turn about the optical axis (180: upside down)
     sway_deg [0.4], sway_m [0.01], sway_period_s [5.0]   # handheld only
     [field]
     tiles_x, tiles_y [6, 6]; tile_size_m [0.6096]  (24 in foam tiles, common practice)
@@ -190,6 +191,8 @@ class CameraSpec:
     sway_m: float
     """Handheld: amplitude of the positional sway [m]."""
     sway_period_s: float
+    roll_rad: float = 0.0
+    """Turn of the camera about its optical axis [rad] (0: image x level)."""
 
 
 @dataclass(frozen=True)
@@ -620,6 +623,7 @@ def _camera(t: TomlTable, video: VideoSpec) -> CameraSpec:
         readout_s=t.get("readout_s", float, 0.0),
         sway_rad=math.radians(t.get("sway_deg", float, 0.4)),
         sway_m=t.get("sway_m", float, 0.01), sway_period_s=t.positive("sway_period_s", 5.0),
+        roll_rad=math.radians(t.get("roll_deg", float, 0.0)),
     )
 
 
