@@ -1,29 +1,33 @@
 """Placement planner against rendered runs: predicted vs measured error per field cell.
 
-For each camera placement the default scenario is rendered (1280x720) with several
-seeds. A seed is a new setup of the same placement, not only new image noise: its own
-floor texture, the camera moved by up to 5 cm and re-aimed (:data:`SETUP_JITTER_M`), the
-marker turned on the robot by a multiple of 90 deg; the robot rests 3 s before and after
-the path (:data:`REST_S`). The floor is registered the way a user would when the
+For each camera placement the default scenario's robot is rendered (1280x720) with
+several seeds. A seed is a new setup of the same placement and a new run, not only new
+image noise: its own floor texture, the camera moved by up to 5 cm and re-aimed
+(:data:`SETUP_JITTER_M`) and every other seed the other way up (a phone held either way
+up), the marker turned on the robot by a multiple of 90 deg, and its own path: the robot
+stops in two tiles of the placement (:data:`STOP_TILES`) on a spot and at a heading of
+the seed's own, :data:`REST_S` each, the leg between bent through a point of its own
+(:func:`_path`; no faults). The floor is registered the way a user would when the
 automatic registration is refused: points at the visible tile corners as the picker
 page produces them (:func:`_user_points`; the registrar then refines them on the seams),
 so that what is compared is the planner's model, not the automatic registration's
 self-check. Each run is tracked with `track_video`, and the planner's expected 1-sigma
-position error (per axis) is computed at the true marker positions, from the camera's
-true lens and pose, the corner noise the tracker measured in that run
+position error (per axis, :func:`vidodo.planner.error_parts`: the track's own model by
+the track's own code) is computed at the true marker positions, from the camera's true
+lens and pose, the corner noise the tracker measured in that run
 (``quality["corner_sigma_px"]``: the same number the track's own 1-sigma starts from),
-plus the registration term of the same model (RMS and point count of the run's
-reference registration) and its timing term (the robot's speed at the sample; zero
-here: the camera profile gives the readout time). Samples within an impact or shove
-(and 0.5 s after) are left out: there the smoother's motion model, not corner noise,
-sets the error.
+the run's reference registration (its parameter covariance carried through the pose
+fit, its held-out prediction error), the common corner shift the track carried
+(``quality["corner_bias_px"]``) and the timing term (the robot's speed at the sample;
+zero here: the camera profile gives the readout time). Samples within an impact or
+shove (and 0.5 s after) are left out (none in these runs).
 
 Cells are the floor tiles. A cell's measured RMS (track minus truth, per axis, pooled
 over the seeds) has its own sampling scatter: the errors of one run are correlated
 over tau samples (its integrated autocorrelation time, moving and at rest apart), the
-registration's error is one draw per run, and the seeds share the path, so their
-errors are correlated too (measured per placement: :func:`seed_correlation`; S seeds
-count as ``S / (1 + (S - 1) rho)``). A cell is compared only when its effective degrees
+registration's error is one draw per run, and the seeds' errors may be correlated
+(measured per placement: :func:`seed_correlation`; S seeds count as
+``S / (1 + (S - 1) rho)``). A cell is compared only when its effective degrees
 of freedom (Welch-Satterthwaite over the two parts, :func:`_cell_dof`) reach
 :func:`needed_dof`, the fewest for which sampling alone keeps a correct prediction
 within x1.5 with probability 0.99 (chi-square); the others are listed as "too few".
@@ -415,7 +419,7 @@ def _cell_dof(part, rho):
     Each seed's run gives the corner part ``n / tau`` draws per axis (tau the run's
     correlation time in samples, moving and at rest apart) and the registration part one
     draw per axis (every frame of a run uses the same registration). The seeds are not
-    independent (same path, same placement): with their correlation (``rho``: corner
+    independent (same placement; shared errors): with their correlation (``rho``: corner
     part moving, at rest, registration; :func:`seed_correlation`), S seeds count as
     ``S / (1 + (S - 1) rho)`` (the design effect of correlated clusters, Kish, *Survey
     Sampling*, 1965, section 5.4).

@@ -396,17 +396,8 @@ def error_parts(xy_m, marker, cam, settings: PlanSettings = PlanSettings(), *,
 
 def predict_at(xy_m, marker, cam, settings: PlanSettings = PlanSettings(), *,
                speed_mps=None):
-    """Expected 1-sigma position error per axis, cell size and visibility at points.
-
-    Parameters
-    ----------
-    xy_m : ndarray of shape (N, 2)
-        Marker centres on the floor [m].
-    marker : Marker
-    cam : ProposedCamera or CameraView
-    settings : PlanSettings
-    speed_mps : float or ndarray of shape (N,), optional
-        The robot's speed at the points [m/s]; default ``settings.speed_mps``.
+    """Expected 1-sigma position error per axis, cell size and visibility at points
+    (parameters as :func:`error_parts`).
 
     Returns
     -------
