@@ -418,7 +418,7 @@ def _cell_dof(part, rho):
 
     Each seed's run gives the corner part ``n / tau`` draws per axis (tau the run's
     correlation time in samples, moving and at rest apart) and the registration part one
-    draw per axis (every frame of a run uses the same registration). The seeds are not
+    draw per axis (every frame of a run uses the same registration). The seeds need not be
     independent (same placement; shared errors): with their correlation (``rho``: corner
     part moving, at rest, registration; :func:`seed_correlation`), S seeds count as
     ``S / (1 + (S - 1) rho)`` (the design effect of correlated clusters, Kish, *Survey
