@@ -342,7 +342,8 @@ def _samples(raw, info, ctx, settings):
     cx, cy = ex - raw["rx"].to_numpy(), ey - raw["ry"].to_numpy()
     df = pd.DataFrame({"ix": (xy[:, 0] // tile).astype(int), "iy": (xy[:, 1] // tile).astype(int),
                        "ex": ex, "ey": ey, "e2": (ex**2 + ey**2) / 2, "p2": pred**2,
-                       "f2": p_fix**2, "t2": raw["t2"].to_numpy(),
+                       "f2": p_fix**2, "g2": parts.registration_m**2,
+                       "t2": raw["t2"].to_numpy(),
                        "r2": (raw["rx"] ** 2 + raw["ry"] ** 2).to_numpy() / 2,
                        "c2": (cx**2 + cy**2) / 2, "rx": raw["rx"].to_numpy(),
                        "ry": raw["ry"].to_numpy(), "cx": cx, "cy": cy,
@@ -416,21 +417,28 @@ def _cell_dof(part, rho):
     """Effective degrees of freedom of one cell's pooled mean square (Welch-Satterthwaite,
     Satterthwaite 1946) and of its corner part alone.
 
-    Each seed's run gives the corner part ``n / tau`` draws per axis (tau the run's
-    correlation time in samples, moving and at rest apart) and the registration part one
-    draw per axis (every frame of a run uses the same registration). The seeds need not be
-    independent (same placement; shared errors): with their correlation (``rho``: corner
-    part moving, at rest, registration; :func:`seed_correlation`), S seeds count as
-    ``S / (1 + (S - 1) rho)`` (the design effect of correlated clusters, Kish, *Survey
-    Sampling*, 1965, section 5.4).
+    The prediction has three parts, each with its own draws. The corner noise: each
+    seed's run gives ``n / tau`` draws per axis (tau the run's correlation time in
+    samples, moving and at rest apart). The registration's error: one draw per axis and
+    run (every frame of a run uses the same registration). The common corner shift (and
+    the timing term, zero here): one draw per axis and run as well (it is fixed in image
+    axes for a run). The seeds need not be independent (same placement; shared errors):
+    with their measured correlation (``rho``: corner part, i.e. error minus the
+    registration's own, moving and at rest; registration; :func:`seed_correlation`), S
+    seeds count as ``S / (1 + (S - 1) rho)`` (the design effect of correlated clusters,
+    Kish, *Survey Sampling*, 1965, section 5.4); the common shift, seen only in the
+    corner part, takes the larger of its two correlations.
     """
     seeds = part["seed"].nunique()
-    f2, r2 = part["f2"].mean(), max(part["p2"].mean() - part["f2"].mean(), 0.0)
+    f2, g2 = part["f2"].mean(), part["g2"].mean()
+    b2 = max(part["p2"].mean() - f2 - g2, 0.0)
     moving = part["speed"] > MOVING_MPS
     k_fix = sum(float(2 * (1.0 / part["tau"][m]).sum()) / (1 + (seeds - 1) * r)
                 for m, r in ((moving, rho[0]), (~moving, rho[1])))
     k_reg = 2.0 * seeds / (1 + (seeds - 1) * rho[2])
-    return (f2 + r2) ** 2 / (f2**2 / k_fix + r2**2 / k_reg), k_fix
+    k_bias = 2.0 * seeds / (1 + (seeds - 1) * max(rho[0], rho[1]))
+    dof = (f2 + g2 + b2) ** 2 / (f2**2 / k_fix + g2**2 / k_reg + b2**2 / k_bias)
+    return dof, k_fix
 
 
 def tracked(i, seed, cache=None):
@@ -469,7 +477,8 @@ def evaluate(i, seeds, settings, cache=None):
         rows.append({"ix": ix, "iy": iy, "n": len(part), "dof": dof, "dof_fix": dof_fix,
                      "dof_indep": dof_indep,
                      "meas": np.sqrt(part["e2"].mean()), "pred": np.sqrt(part["p2"].mean()),
-                     "fix": np.sqrt(part["f2"].mean()), "track": np.sqrt(part["t2"].mean()),
+                     "fix": np.sqrt(part["f2"].mean()), "preg": np.sqrt(part["g2"].mean()),
+                     "track": np.sqrt(part["t2"].mean()),
                      "reg": np.sqrt(part["r2"].mean()), "rest": np.sqrt(part["c2"].mean())})
     g = pd.DataFrame(rows).set_index(["ix", "iy"])
     g["ratio"] = g["pred"] / g["meas"]
@@ -520,7 +529,8 @@ def _print_placement(i, g, infos, k_min):
         print(f"    cell ({ix}, {iy}) n={int(row.n):4d} dof={row.dof:5.1f}/{row.dof_fix:5.1f}"
               f"  measured {row.meas * 1000:5.2f} mm (registration's {row.reg * 1000:5.2f}, "
               f"rest {row.rest * 1000:5.2f})  predicted {row.pred * 1000:5.2f} mm (corners "
-              f"{row.fix * 1000:5.2f})  ratios {row.ratio:.2f} / {row.fix_ratio:.2f}"
+              f"{row.fix * 1000:5.2f}, registration {row.preg * 1000:5.2f})  ratios "
+              f"{row.ratio:.2f} / {row.fix_ratio:.2f}"
               f"  track's own {row.track * 1000:5.2f} mm")
     return ok, okf
 
