@@ -561,7 +561,7 @@ def main(argv=None):
             continue
         _print_placement(i, g, infos, k_min)
         print(f"    registration over the run's samples: the model's term "
-              f"{np.sqrt(max((df['p2'] - df['f2']).mean(), 0.0)) * 1000:.2f} mm RMS, its "
+              f"{np.sqrt(df['g2'].mean()) * 1000:.2f} mm RMS, its "
               f"actual error {np.sqrt(df['r2'].mean()) * 1000:.2f} mm RMS")
         samples.append(df.assign(placement=i))
         tables.append((i, g, infos[0]["rho"]))
