@@ -68,7 +68,7 @@ pred / meas 1.01, 1.23, 0.86, 1.17, 0.92, 0.86 (placements 0-5) at 24.1, 22.0, 1
 about 40 min to render and track on two busy cores, 30 s from the cache.
 
 Usage: ``.venv/bin/python benchmarks/planner_accuracy.py [--placements 0,1,2,3,4,5]
-[--seeds 0,1,2,3,4,5] [--cache DIR] [--map plan.png]``
+[--seeds 0,1,...,19] [--cache DIR] [--map plan.png]``
 """
 
 from __future__ import annotations
@@ -110,7 +110,7 @@ PLACEMENTS = [
     ((2.4, -1.4, 2.8), (1.9, 1.7), 70.0),
 ]
 FACTOR = 1.5
-SEEDS = 8
+SEEDS = 20
 """Seeds (setups) per placement by default."""
 
 
