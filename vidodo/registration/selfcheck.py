@@ -42,6 +42,7 @@ from .camera_fit import FitOptions, fit_camera
 from .frame import FrameRegistration
 from .grid import draw_registration
 from .grid.evidence import edge_rates, edge_samples, row_rates, search_half_width_px, tiles_end
+from .grid.lattice import FOCAL_RANGE
 
 __all__ = ["CheckLimits", "CheckReport", "ReferenceFacts", "check_reference", "check_track",
            "place_track", "refuse", "seam_evidence"]
@@ -64,9 +65,9 @@ class CheckLimits:
 
     height_range_m: tuple[float, float] = (0.5, 4.0)
     """Camera height above the floor a filming set-up has [m]."""
-    focal_range: tuple[float, float] = (0.25, 4.0)
-    """Estimated focal length over the larger image side: 0.25 is a 127 deg wide
-    lens across that side, 4 a 14 deg tele (phone and action cameras lie inside)."""
+    focal_range: tuple[float, float] = FOCAL_RANGE
+    """Estimated focal length over the larger image side (default
+    :data:`vidodo.registration.grid.lattice.FOCAL_RANGE`, the seam search's own)."""
     camera_height_m: float | None = None
     """The camera's approximate height, if the user gave it [m]."""
     camera_height_tolerance: float = 0.25

@@ -203,8 +203,9 @@ MAX_PAIRS = 4
 #: the first vanishing points are a degree or two off (registrations within 2 mm came
 #: from pairs 1-2 deg off perpendicular, ``benchmarks/registration_diagnosis.py``).
 PERPENDICULAR_DEG = 4.0
-#: Focal lengths a lens has, over the larger image side (the self-check's
-#: :attr:`vidodo.registration.selfcheck.CheckLimits.focal_range`).
+#: Focal lengths a lens has, over the larger image side: 0.25 is a 127 deg wide lens
+#: across that side, 4 a 14 deg tele (phone and action cameras lie inside); also the
+#: self-check's default :attr:`vidodo.registration.selfcheck.CheckLimits.focal_range`.
 FOCAL_RANGE = (0.25, 4.0)
 
 
