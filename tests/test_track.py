@@ -30,6 +30,7 @@ from vidodo.tracking.noise import estimate_corner_noise
 from vidodo.tracking.pose_fit import fit_pose
 from vidodo.tracking.result import TRACK_COLUMNS, load_track_csv, save_track_csv
 from vidodo.tracking.settings import TrackSettings
+from vidodo.tracking.shared_error import SHARED_COLUMNS
 from vidodo.tracking.tracker import track_video
 from vidodo.video import VideoTruncatedError
 
@@ -322,7 +323,10 @@ def test_track_accuracy_and_short_gap(single_tag_run):
     """Position within a few mm of the synthetic truth; 3 hidden frames bridged."""
     truth, res = single_tag_run
     tr = res.track
-    assert list(tr.columns) == TRACK_COLUMNS
+    assert list(tr.columns) == TRACK_COLUMNS + SHARED_COLUMNS
+    # the shared part never exceeds the whole 1-sigma
+    shared = np.sum(tr[SHARED_COLUMNS].to_numpy() ** 2, axis=1)
+    assert np.all(shared <= tr.sigma_xy_m.to_numpy() ** 2 * (1 + 1e-9))
     err = np.hypot(tr.x_m - truth[:, 0], tr.y_m - truth[:, 1])
     assert np.sqrt(np.mean(err**2)) < 0.002
     assert np.degrees(np.sqrt(np.mean((tr.heading_rad - truth[:, 2]) ** 2))) < 0.5
@@ -435,7 +439,10 @@ def test_csv_round_trip(tmp_path, single_tag_run):
     path = tmp_path / "track.csv"
     save_track_csv(res, path)
     back = load_track_csv(path)
-    assert list(back.columns) == TRACK_COLUMNS
+    assert list(back.columns) == TRACK_COLUMNS + SHARED_COLUMNS
+    # a track written before the shared modes existed still reads
+    res.track[TRACK_COLUMNS].to_csv(tmp_path / "old.csv", index=False)
+    assert list(load_track_csv(tmp_path / "old.csv").columns) == TRACK_COLUMNS
     pd.testing.assert_series_equal(back.detected, res.track.detected)
     np.testing.assert_allclose(back.x_m, res.track.x_m, rtol=1e-8)
 

@@ -7,8 +7,12 @@ the log on the video's time carry an uncertainty. The figures are not linear in 
 Monte Carlo (common practice: JCGM 101:2008, "Propagation of distributions using a
 Monte Carlo method"): each draw perturbs
 
-* the truth track by its 1-sigma per sample (``sigma_xy_m`` split equally over x and
-  y, ``sigma_heading_rad``), correlated in time as a first-order Gauss-Markov process
+* the truth track by its 1-sigma per sample: the part the run's samples share (the
+  track's shared-error modes, ``shared<k>_x_m, shared<k>_y_m``: one standard normal per
+  mode and draw, the same for every sample and the anchor, so that a difference of two
+  samples keeps only ``Var(a - b) = Var(a) + Var(b) - 2 Cov(a, b)`` of it), and the
+  rest (``sigma_xy_m`` less the shared variance, split equally over x and
+  y; ``sigma_heading_rad``), correlated in time as a first-order Gauss-Markov process
   with :data:`CORRELATION_S` (the smoothed track's errors persist over neighbouring
   frames; fully independent draws would average away under the final pose's local fit);
   the clock of that process runs only while the robot moves (:func:`moving_steps`): a
@@ -95,6 +99,12 @@ class DriftInputs:
     """1-sigma of the clock offset [s]."""
     metric_settings: MetricSettings
     """Settings of :func:`vidodo.metrics.source_metrics` as used."""
+    shared_m: np.ndarray | None = None
+    """The truth's shared position error as modes, ndarray (N, K, 2) [m] per unit
+    standard normal (:mod:`vidodo.tracking.shared_error`); None: none shared."""
+    anchor_index: int | None = None
+    """The truth sample the anchor pose stands for; its shared error moves the anchor
+    with the samples (None: the anchor's error is drawn on its own)."""
 
 
 def moving_steps(poses, cum_length_m, sigma_heading_rad):
@@ -176,20 +186,28 @@ def _draw_figures(inp: DriftInputs, rng, draws, *, truth_only):
     draws the truth track's noise alone (anchor pose and clock as measured)."""
     t = np.asarray(inp.t_s, float)
     q = np.asarray(inp.truth_poses, float)
-    sxy = np.nan_to_num(np.asarray(inp.sigma_xy_m, float)) / np.sqrt(2.0)
+    modes, sxy, sa_xy = _split_shared(inp)
     sh = np.nan_to_num(np.asarray(inp.sigma_heading_rad, float))
-    sa_xy, sa_h = (0.0, 0.0) if truth_only else inp.anchor_sigma
-    sc = 0.0 if truth_only else inp.clock_sigma_s
+    sa_h = inp.anchor_sigma[1]
+    sc = inp.clock_sigma_s
+    if truth_only:  # the shared part, like the anchor and the clock, moves the whole run
+        modes, sa_xy, sa_h, sc = modes[:, :0], 0.0, 0.0, 0.0
     moving = moving_steps(q, inp.cum_length_m, sh)
     values = {f: [] for f in FIGURES}
-    whole = _stratified_normals(rng, draws, 4)  # anchor x, y, heading and the clock
+    # anchor x, y, heading, the clock and the shared modes
+    whole = _stratified_normals(rng, draws, 4 + modes.shape[1])
+    ka = inp.anchor_index
     for k in range(draws):
         noise = _gauss_markov(t, rng, 3, CORRELATION_S, moving)
+        shared = np.einsum("nkj,k->nj", modes, whole[k, 4:])
         qd = q + noise * np.column_stack([sxy, sxy, sh])
+        qd[:, :2] += shared
         dt = float(whole[k, 3] * sc)
         p, pa = inp.source_at(dt)
         qa = np.asarray(inp.anchor_pose, float) + whole[k, :3] * (
             sa_xy / np.sqrt(2.0), sa_xy / np.sqrt(2.0), sa_h)
+        if ka is not None and modes.shape[1]:
+            qa[:2] += shared[ka]
         a = anchor_poses(p, pa, qa)
         try:
             m = source_metrics(t, qd, a, inp.cum_length_m, inp.metric_settings)
@@ -200,6 +218,21 @@ def _draw_figures(inp: DriftInputs, rng, draws, *, truth_only):
             if v is not None:
                 values[f].append(float(v))
     return values
+
+
+def _split_shared(inp: DriftInputs):
+    """The shared modes (N, K, 2) [m], the per-axis 1-sigma of the rest per sample (N,)
+    [m] and the anchor's radial 1-sigma less its shared part [m]."""
+    sxy = np.nan_to_num(np.asarray(inp.sigma_xy_m, float))
+    n = sxy.size
+    modes = np.zeros((n, 0, 2)) if inp.shared_m is None else np.nan_to_num(
+        np.asarray(inp.shared_m, float).reshape(n, -1, 2))
+    shared_var = np.sum(modes**2, axis=(1, 2))
+    rest = np.sqrt(np.clip(sxy**2 - shared_var, 0.0, None)) / np.sqrt(2.0)
+    sa_xy = float(inp.anchor_sigma[0])
+    if inp.anchor_index is not None and modes.shape[1]:
+        sa_xy = float(np.sqrt(max(sa_xy**2 - shared_var[inp.anchor_index], 0.0)))
+    return modes, rest, sa_xy
 
 
 def derived_sigmas(m, sig: dict) -> dict:

@@ -210,7 +210,7 @@ class TravelStretch:
 
 
 def anchor_heading_from_travel(t_s, truth_poses, anchored_poses, k0, *, sigma_m=None,
-                               t_stop_s=None, stretch=None):
+                               t_stop_s=None, stretch=None, shared_m=None):
     """Heading correction at the anchor from the first stretch of travel.
 
     A marker's heading is often less certain than its position. Over the first
@@ -230,7 +230,13 @@ def anchor_heading_from_travel(t_s, truth_poses, anchored_poses, k0, *, sigma_m=
     displacements from the anchor, the cross product in the plane); with the two
     errors independent, each with its own 1-sigma per axis (``sigma / sqrt 2``, the
     track's sigma being the radial RMS), that term is
-    ``sqrt(s_a^2 + s_stretch^2) / sqrt(2) * |sum(d)| / sum(|d|^2)``.
+    ``sqrt(s_a^2 + s_stretch^2) / sqrt(2) * |sum(d)| / sum(|d|^2)``. An error the
+    anchor and the stretch share (``shared_m``: the track's shared-error modes, e.g. one
+    registration error seen at both places) is not independent between them: its
+    difference is known per mode, and each mode turns the fit by
+    ``sum(d x (m_i - m_anchor)) / sum(|d|^2)``; those add in quadrature over the modes
+    (independent standard normals) and to the two parts above, which then take
+    ``sigma_m`` as the error not shared.
 
     Parameters
     ----------
@@ -247,6 +253,9 @@ def anchor_heading_from_travel(t_s, truth_poses, anchored_poses, k0, *, sigma_m=
     stretch : TravelStretch, optional
         Length, longest duration and correlated samples of the stretch (defaults: 1 m,
         2 s, 5 samples).
+    shared_m : ndarray of shape (N, K, 2), optional
+        The truth's shared position error as modes [m per unit standard normal]; with
+        it ``sigma_m`` is the rest of the 1-sigma.
 
     Returns
     -------
@@ -287,7 +296,13 @@ def anchor_heading_from_travel(t_s, truth_poses, anchored_poses, k0, *, sigma_m=
     fresh = s_stretch / rms * math.sqrt(corr_samples / idx.size)
     lever = float(np.hypot(*dq.sum(axis=0)) / np.sum(dq**2))
     place = math.hypot(s_anchor, s_stretch) / math.sqrt(2.0) * lever
-    return dh, math.hypot(fresh, place)
+    shared = 0.0
+    if shared_m is not None:
+        e = np.nan_to_num(np.asarray(shared_m, float).reshape(len(t), -1, 2))
+        e = e[idx] - e[k0]
+        turn = np.sum(dq[:, 0, None] * e[:, :, 1] - dq[:, 1, None] * e[:, :, 0], axis=0)
+        shared = float(np.sqrt(np.sum(turn**2))) / float(np.sum(dq**2))
+    return dh, math.sqrt(fresh**2 + place**2 + shared**2)
 
 
 def local_pose(t_s, poses, t0_s, sigma_m, *, half_s=0.3):

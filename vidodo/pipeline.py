@@ -52,6 +52,7 @@ from .profiles import FieldProfile, RobotProfile, load_camera, load_field, load_
 from .se2 import interpolate_poses
 from .sync import ClockSync, estimate_clock, manual_clock
 from .timings import StageTimes, merged
+from .tracking.result import shared_column_names
 
 __all__ = ["Tolerances", "GradeSettings", "GradeResult", "grade_run", "grade_tracks",
            "read_track_csv", "TRACK_COLUMNS"]
@@ -409,9 +410,13 @@ def _source_step(name, p, vdf, ref, events, warn, clock_sigma_s=0.0) -> _SourceG
     a = anchor_poses(p, pa, qa)
     k0 = int(np.searchsorted(t, ta))
     later = [e.t_start_s for e in events if e.t_start_s > ta]
+    shared = _shared_modes(ref.frame)
+    sig_rest = _filled(ref.frame["sigma_xy_m"].to_numpy(float), sxy)
+    if shared is not None:
+        sig_rest = np.sqrt(np.clip(sig_rest**2 - np.sum(shared**2, axis=(1, 2)), 0.0, None))
     dh, sig_rot = anchor_heading_from_travel(
-        t, q, a, k0, sigma_m=_filled(ref.frame["sigma_xy_m"].to_numpy(float), sxy),
-        t_stop_s=min(later) - 0.05 if later else None)
+        t, q, a, k0, sigma_m=sig_rest, t_stop_s=min(later) - 0.05 if later else None,
+        shared_m=shared)
     heading = None
     if dh is not None:
         # the truth heading at the start and the heading implied by the first
@@ -464,8 +469,17 @@ def _figure_sigmas(m, ref, vdf, k0, ta, qa, sig_rot, clock_sigma_s, kw):
         t_s=ref.t, truth_poses=ref.q, sigma_xy_m=sxy_all,
         sigma_heading_rad=ref.sigma_heading_each, cum_length_m=ref.path_m,
         source_at=_shifted_source(ref.t, vdf, ta), anchor_pose=tuple(qa),
-        anchor_sigma=(sa_xy, sa_h), clock_sigma_s=clock_sigma_s, metric_settings=kw),
-        measured=m.max_err_m))
+        anchor_sigma=(sa_xy, sa_h), clock_sigma_s=clock_sigma_s, metric_settings=kw,
+        shared_m=_shared_modes(ref.frame), anchor_index=k0), measured=m.max_err_m))
+
+
+def _shared_modes(truth):
+    """The truth track's shared-error modes, ndarray (N, K, 2) [m], or None when the
+    track has none (written before they existed, or made elsewhere)."""
+    cols = shared_column_names(truth.columns)
+    if not cols:
+        return None
+    return np.nan_to_num(truth[cols].to_numpy(float)).reshape(len(truth), -1, 2)
 
 
 def _summary_step(ref, clock, video_tracks, graded, ev, settings, quality, warn, *,

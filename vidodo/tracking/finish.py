@@ -32,6 +32,7 @@ from .pixel_lock import lock_attenuation, lock_floor_vars
 from .registration_error import registration_pose_covs
 from .result import REGISTRATION_COLUMNS, TRACK_COLUMNS, TrackResult
 from .settings import TrackSettings
+from .shared_error import shared_columns, shared_modes
 from .smooth import rts_smooth_signals
 
 __all__ = ["finish_track", "MIN_CELL_PX", "UNKNOWN_READOUT_MAX_S", "readout_sigma_s",
@@ -186,6 +187,8 @@ def finish_track(records, robot, field_profile, settings=None, *, readout_source
     track = pd.DataFrame(out, columns=TRACK_COLUMNS)
     track["detected"] = ok.copy()
     track["interpolated"] = interpolated
+    for name, v in shared_columns(_shared(acc, idx, n, settings, out["sigma_xy_m"])).items():
+        track[name] = v
     quality = _quality(acc, run, noise, readout, settings, gaps, interpolated, fits, seen,
                        timing)
     if video_info is not None:
@@ -349,6 +352,22 @@ def _lock_share(sx, sy, unit_sd, fresh_px, pos, step_px):
     with np.errstate(divide="ignore", invalid="ignore"):
         frames = np.maximum(np.interp(pos, np.arange(len(meas)), meas) / smoothed, 1.0)
     return np.nan_to_num(lock_attenuation(step_px * frames[:, None]), nan=1.0) ** 2
+
+
+def _shared(acc, idx, n, settings, sigma_xy_m):
+    """The run's shared position error as modes (:mod:`vidodo.tracking.shared_error`),
+    (n, SHARED_MODES, 2) [m]; scaled down where the modes hold more variance than the
+    sample's whole 1-sigma (the track's terms use the image scale, the modes the full
+    image-to-floor derivative), zero where the track is NaN."""
+    held = [int(i) for i in idx if int(i) in acc.reg_inputs]
+    still = bool(acc.policy.still) and acc.policy.moved_count == 0
+    modes = shared_modes([acc.reg_inputs[i] for i in held], np.array(held, int), n,
+                         _corner_bias_px(settings), still)
+    var = np.sum(modes**2, axis=(1, 2))
+    total = np.nan_to_num(np.asarray(sigma_xy_m, float)) ** 2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        scale = np.where(var > total, np.sqrt(total / var), 1.0)
+    return modes * np.nan_to_num(scale)[:, None, None]
 
 
 def _corner_bias_px(settings) -> float:

@@ -24,7 +24,7 @@ import numpy as np
 
 from .detector import PIXEL_LOCK_PX
 
-__all__ = ["lock_attenuation", "lock_sigma_px", "lock_floor_vars"]
+__all__ = ["lock_attenuation", "lock_sigma_px", "lock_floor_vars", "marker_floor_jacobians"]
 
 FLOOR_STEP_PX = 0.5
 """Central-difference step of the image-to-floor mapping [px]."""
@@ -86,14 +86,45 @@ def lock_sigma_px(corners_px, refine: str) -> np.ndarray:
     return out
 
 
+def marker_floor_jacobians(frames):
+    """How each marker's centre moves on its plane per image pixel [m/px].
+
+    Central differences of ``reg.image_to_floor`` at the mean of the marker's corners
+    (step :data:`FLOOR_STEP_PX`); pixels of frames that share a registration and a
+    height are mapped in one call.
+
+    Parameters
+    ----------
+    frames : list of (FrameRegistration, list of (4, 2) corners [px], list of heights [m])
+
+    Returns
+    -------
+    list of ndarray (M, 2, 2)
+        Per frame, per marker: floor (x, y) per image u (column 0) and per v (column 1).
+    """
+    out = [np.zeros((len(corners), 2, 2)) for _reg, corners, _h in frames]
+    groups = {}
+    h = FLOOR_STEP_PX
+    steps = np.array([[h, 0.0], [-h, 0.0], [0.0, h], [0.0, -h]])
+    for f, (reg, corners, heights) in enumerate(frames):
+        for m, (c, z) in enumerate(zip(corners, heights, strict=True)):
+            mid = np.asarray(c, float).reshape(-1, 2).mean(axis=0)
+            groups.setdefault((id(reg), float(z)), (reg, []))[1].append((f, m, mid + steps))
+    for (_, z), (reg, parts) in groups.items():
+        fl = reg.image_to_floor(np.concatenate([p for _, _, p in parts]), z).reshape(-1, 4, 2)
+        jac = np.stack([fl[:, 0] - fl[:, 1], fl[:, 2] - fl[:, 3]], axis=2) / (2 * h)
+        for (f, m, _), j in zip(parts, jac, strict=True):
+            out[f][m] = j
+    return out
+
+
 def lock_floor_vars(frames, refine: str) -> np.ndarray:
     """Floor variance of the robot's position from its markers' pixel locking [m^2].
 
     Each marker's ``(sigma_u, sigma_v)`` (:func:`lock_sigma_px`) is carried to its own
-    plane through the frame's image-to-floor mapping at the marker's centre (central
-    differences of ``reg.image_to_floor``); markers lock independently and the position
-    is about their mean, so the variances add and divide by the count squared. Pixels
-    of frames that share a registration and a height are mapped in one call.
+    plane through the frame's image-to-floor mapping at the marker's centre
+    (:func:`marker_floor_jacobians`); markers lock independently and the position
+    is about their mean, so the variances add and divide by the count squared.
 
     Parameters
     ----------
@@ -107,23 +138,11 @@ def lock_floor_vars(frames, refine: str) -> np.ndarray:
         u coordinate (the nearly vertical edges) and from that of v; 0 without locking.
     """
     out = np.zeros((len(frames), 2))
-    groups = {}
-    h = FLOOR_STEP_PX
-    steps = np.array([[h, 0.0], [-h, 0.0], [0.0, h], [0.0, -h]])
-    for f, (reg, corners, heights) in enumerate(frames):
-        n = len(corners)
-        for c, z in zip(corners, heights, strict=True):
-            sig = lock_sigma_px(c, refine)
-            if np.any(sig > 0):
-                mid = np.asarray(c, float).reshape(-1, 2).mean(axis=0)
-                groups.setdefault((id(reg), float(z)), (reg, []))[1].append(
-                    (f, sig / n, mid + steps))
-    for (_, z), (reg, parts) in groups.items():
-        fl = reg.image_to_floor(np.concatenate([p for _, _, p in parts]), z).reshape(-1, 4, 2)
-        jac_u = (fl[:, 0] - fl[:, 1]) / (2 * h)
-        jac_v = (fl[:, 2] - fl[:, 3]) / (2 * h)
-        sig = np.array([s for _, s, _ in parts])
-        var = np.column_stack([sig[:, 0] ** 2 * np.sum(jac_u**2, axis=1),
-                               sig[:, 1] ** 2 * np.sum(jac_v**2, axis=1)])
-        np.add.at(out, [f for f, _, _ in parts], np.nan_to_num(var))
+    if PIXEL_LOCK_PX.get(refine, 0.0) <= 0:
+        return out
+    for f, ((_reg, corners, _h), jac) in enumerate(zip(frames, marker_floor_jacobians(
+            frames), strict=True)):
+        for c, j in zip(corners, jac, strict=True):
+            sig = lock_sigma_px(c, refine) / len(corners)
+            out[f] += np.nan_to_num(sig ** 2 * np.sum(j ** 2, axis=0))
     return out

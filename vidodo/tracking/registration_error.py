@@ -18,8 +18,8 @@ import numpy as np
 
 from ..registration.uncertainty import floor_point_covariance
 
-__all__ = ["registration_pose_cov", "registration_pose_covs", "view_rate",
-           "VIEW_RATE_MAX_DT_S"]
+__all__ = ["registration_pose_cov", "registration_pose_covs", "registration_pose_loadings",
+           "view_rate", "VIEW_RATE_MAX_DT_S"]
 
 VIEW_RATE_MAX_DT_S = 0.2
 """Longest step between two registrations differenced for :func:`view_rate` [s]."""
@@ -43,6 +43,13 @@ def _jacobians(requests):
     return [np.concatenate(o) if o else np.zeros((0, 2, 0)) for o in out]
 
 
+def _gain(fix, jac):
+    """``G``: the rigid fit's pose (x, y, heading) per unit of the registration's
+    parameters, (3, P)."""
+    a = fix.jac
+    return np.linalg.solve(np.einsum("nji,njk->ik", a, a), np.einsum("nji,njp->ip", a, jac))
+
+
 def _through_fit(fix, jac, reg):
     """``G C G^T``: the registration's parameter covariance through the rigid fit."""
     cov = getattr(reg, "param_cov", None)
@@ -50,9 +57,34 @@ def _through_fit(fix, jac, reg):
         return np.zeros((3, 3))
     if not np.all(np.isfinite(jac)):
         return np.full((3, 3), np.nan)
-    a = fix.jac
-    g = np.linalg.solve(np.einsum("nji,njk->ik", a, a), np.einsum("nji,njp->ip", a, jac))
+    g = _gain(fix, jac)
     return g @ np.asarray(cov, float) @ g.T
+
+
+def _cov_root(cov):
+    """``L`` with ``L L^T = cov`` for a symmetric positive semi-definite ``cov``
+    (eigen-decomposition; negative rounding eigenvalues taken as 0)."""
+    w, v = np.linalg.eigh(0.5 * (cov + cov.T))
+    return v * np.sqrt(np.clip(w, 0.0, None))
+
+
+def registration_pose_loadings(frames):
+    """The registration's error in each frame's pose as loadings on its parameters'
+    standard normal errors: ``G L`` with ``L L^T = C`` (so ``G C G^T`` is the
+    covariance of :func:`registration_pose_covs` without a tied share), one (3, P)
+    array per ``(fix, corners, heights, reg)`` frame, or None where the registration
+    has no covariance or a derivative is not finite. Frames that share a registration
+    error (a still camera) share the standard normals, so the loadings give the
+    covariance between frames too: ``(G_i L) (G_j L)^T``."""
+    jac = _jacobians([(reg, corners, heights) for _fix, corners, heights, reg in frames])
+    out = []
+    for (fix, _c, _h, reg), j in zip(frames, jac, strict=True):
+        cov = getattr(reg, "param_cov", None)
+        if cov is None or j.shape[2] == 0 or not np.all(np.isfinite(j)):
+            out.append(None)
+            continue
+        out.append(_gain(fix, j) @ _cov_root(np.asarray(cov, float)))
+    return out
 
 
 def registration_pose_covs(frames):

@@ -9,13 +9,27 @@ import pandas as pd
 from ..errors import InputError
 
 __all__ = ["TRACK_COLUMNS", "REGISTRATION_COLUMNS", "TrackResult", "save_track_csv",
-           "load_track_csv"]
+           "load_track_csv", "shared_column_names"]
 
 TRACK_COLUMNS = [
     "t_s", "x_m", "y_m", "heading_rad", "sigma_xy_m", "sigma_heading_rad", "vx_mps",
     "vy_mps", "speed_mps", "omega_radps", "ax_mps2", "ay_mps2", "detected", "interpolated",
 ]
 REGISTRATION_COLUMNS = ["t_s", "ok", "rms_px", "rms_floor_m", "fresh"]
+SHARED_PREFIX = "shared"
+"""Optional columns after :data:`TRACK_COLUMNS`: ``shared<k>_x_m, shared<k>_y_m``, the
+modes of the position error the run's samples share
+(:mod:`vidodo.tracking.shared_error`); a track without them is read as before."""
+
+
+def shared_column_names(columns):
+    """The shared-error mode columns among ``columns``, in pairs of x and y, in order."""
+    out = []
+    k = 1
+    while f"{SHARED_PREFIX}{k}_x_m" in columns and f"{SHARED_PREFIX}{k}_y_m" in columns:
+        out += [f"{SHARED_PREFIX}{k}_x_m", f"{SHARED_PREFIX}{k}_y_m"]
+        k += 1
+    return out
 
 
 # ----------------------------------------------------------------------- results
@@ -24,7 +38,8 @@ class TrackResult:
     """The truth track of one video and how far to trust it."""
 
     track: pd.DataFrame
-    """One row per video frame, columns :data:`TRACK_COLUMNS` (SI units, floor frame;
+    """One row per video frame, columns :data:`TRACK_COLUMNS` and the shared error's
+    modes (:func:`shared_column_names`; SI units, floor frame;
     ``sigma_xy_m`` is the RMS of the position error magnitude: the smoother's
     uncertainty from the fresh part of the corner noise, plus the persistent part (both
     estimated from the rigid fits' residuals, over the run by
@@ -55,9 +70,11 @@ class TrackResult:
 
 # ------------------------------------------------------------------------- files
 def save_track_csv(result, path):
-    """Write the truth track as CSV (columns :data:`TRACK_COLUMNS`, SI units)."""
+    """Write the truth track as CSV (columns :data:`TRACK_COLUMNS`, then the shared
+    error's modes where the track has them; SI units)."""
     track = result.track if isinstance(result, TrackResult) else result
-    track.to_csv(path, index=False, columns=TRACK_COLUMNS, float_format="%.9g")
+    track.to_csv(path, index=False, columns=TRACK_COLUMNS + shared_column_names(
+        track.columns), float_format="%.9g")
 
 
 def load_track_csv(path) -> pd.DataFrame:
@@ -77,5 +94,5 @@ def load_track_csv(path) -> pd.DataFrame:
         raise InputError(f"{path}: column '{missing[0]}' missing; is this a vidodo track CSV?")
     for c in ("detected", "interpolated"):
         df[c] = df[c].astype(str).str.lower().isin(("true", "1"))
-    return df[TRACK_COLUMNS]
+    return df[TRACK_COLUMNS + shared_column_names(df.columns)]
 
