@@ -279,6 +279,42 @@ def test_anchor_heading_from_travel_sigma_holds_place_bound_errors():
     assert sigma == pytest.approx(np.std(draws), rel=0.06)
 
 
+
+def test_anchor_heading_from_travel_shared_error():
+    """An error the anchor and the stretch share does not turn the fit: a constant shift
+    of the whole truth leaves every displacement from the anchor unchanged, so it adds
+    nothing to the 1-sigma. A shared error that is itself a small rotation by delta
+    about the anchor (e_i = delta x (q_i - q_0), a registration's yaw error seen from a
+    camera above the anchor) turns the least-squares rotation by exactly delta (Umeyama
+    1991, translation fixed): the claimed 1-sigma is |delta|, and the estimator's own
+    response to that displacement (finite difference) agrees.
+
+    Reference: the rotation of a rigid motion, and a finite difference of the estimator;
+    were the shared mode drawn as an independent error at the anchor and along the
+    stretch (the place-bound term), the constant shift would add its full sigma."""
+    t = np.arange(0.0, 3.0, 1 / 30)
+    s = np.clip(t - 0.5, 0, None)
+    q = np.column_stack([s, 0.05 * s**2, np.zeros_like(s)])
+    sig = np.full(t.size, 1e-7)
+    _dh, base = anchor_heading_from_travel(t, q, q, 0, sigma_m=sig)
+    shift = np.zeros((t.size, 1, 2))
+    shift[:, 0] = (0.001, -0.002)
+    _dh, with_shift = anchor_heading_from_travel(t, q, q, 0, sigma_m=sig, shared_m=shift)
+    assert with_shift == pytest.approx(base, rel=1e-12)
+    delta = 1e-4
+    turn = np.zeros((t.size, 1, 2))
+    turn[:, 0, 0] = -delta * (q[:, 1] - q[0, 1])
+    turn[:, 0, 1] = delta * (q[:, 0] - q[0, 0])
+    _dh, with_turn = anchor_heading_from_travel(t, q, q, 0, sigma_m=sig, shared_m=turn)
+    assert with_turn == pytest.approx(delta, rel=1e-3)
+    moved = q.copy()
+    moved[:, :2] += turn[:, 0]
+    dh, _ = anchor_heading_from_travel(t, moved, q, 0, sigma_m=sig)
+    assert abs(dh) == pytest.approx(with_turn, rel=1e-3)
+    # the place-bound term of the same 2.2 mm taken as independent at anchor and stretch
+    _dh, indep = anchor_heading_from_travel(t, q, q, 0, sigma_m=np.full(t.size, 0.0022))
+    assert indep > 10 * base
+
 def test_local_pose_still_and_moving():
     """Still: the mean of the samples; moving: a quadratic fit (exact on a parabola)."""
     t = np.arange(0, 1, 0.05)
