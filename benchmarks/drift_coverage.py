@@ -126,6 +126,7 @@ from vidodo.errors import VidodoError  # noqa: E402
 from vidodo.logs import read_log  # noqa: E402
 from vidodo.pipeline import GradeSettings, grade_tracks  # noqa: E402
 from vidodo.profiles import load_camera, load_robot  # noqa: E402
+from vidodo.tracking.result import shared_column_names  # noqa: E402
 
 
 def _tracked(run):
@@ -196,11 +197,16 @@ def _clock_row(g, run):
     return float(g.clock.to_video(np.array([tl_log]))[0]) - true_v, g.clock.sigma_s
 
 
-def run_rows(run, seed):
+def run_rows(run, seed, *, shared=True):
     """``(seed, source, figure, error, sigma)`` rows of one rendered run (the clock's
-    as source ``"clock"``, figure ``"clock_offset_s"``)."""
+    as source ``"clock"``, figure ``"clock_offset_s"``); ``shared=False`` grades the
+    track without its shared-error modes (every error drawn per sample, as before)."""
     robot = load_robot(run / "robot.toml")
-    g = grade_tracks(_tracked(run), read_log(run / "log.csv", robot), robot)
+    tres = _tracked(run)
+    if not shared:
+        tres = replace(tres, track=tres.track.drop(
+            columns=shared_column_names(tres.track.columns)))
+    g = grade_tracks(tres, read_log(run / "log.csv", robot), robot)
     t = _true_grade(run, g)
     err, sig = _clock_row(g, run)
     rows = [(seed, "clock", "clock_offset_s", err, sig)] if sig else []
@@ -262,6 +268,9 @@ def main(argv=None):
     ap.add_argument("--csv", help="also write the rows (seed, source, figure, err, "
                     "sigma) here")
     ap.add_argument("--from-csv", help="summarise rows written by --csv; nothing run")
+    ap.add_argument("--without-shared", action="store_true",
+                    help="grade the tracks without their shared-error modes (the drift "
+                    "sigma as before they existed), for a side-by-side comparison")
     args = ap.parse_args(argv)
     if args.from_csv:
         print("\n".join(summary(pd.read_csv(args.from_csv))))
@@ -271,7 +280,8 @@ def main(argv=None):
     for seed in range(int(lo), int(hi or lo) + 1):
         over = camera_overrides(args.scenario, seed) if args.vary_camera else {}
         try:
-            new = run_rows(rendered(args.scenario, seed, **over), seed)
+            new = run_rows(rendered(args.scenario, seed, **over), seed,
+                           shared=not args.without_shared)
         except VidodoError as exc:  # e.g. a moved camera that no longer sees the field
             print(f"seed {seed}: not graded ({exc})", flush=True)
             continue
