@@ -26,8 +26,10 @@ MARKER = Marker(id=7, family="DICT_4X4_50", size_m=0.2, z_m=0.26)
 
 
 def _corners_only(sigma_px):
-    """Settings with the corner-noise term alone (no common shift, readout known)."""
-    return PlanSettings(sigma_corner_px=sigma_px, corner_bias_px=0.0, readout_sigma_s=0.0)
+    """Settings with the corner-noise term alone (no common shift, no pixel locking,
+    readout known)."""
+    return PlanSettings(sigma_corner_px=sigma_px, corner_bias_px=0.0, readout_sigma_s=0.0,
+                        refine=None)
 
 
 def _down(height_m, f_px=1000.0):

@@ -40,6 +40,7 @@ from .registration.frame import FrameRegistration
 from .tracking.detector import DEFAULT_REFINE, Detection, refine_bias_sigma_px
 from .tracking.error_model import corner_bias_var_m2, registration_sigma_m, timing_var_m2
 from .tracking.finish import UNKNOWN_READOUT_MAX_S
+from .tracking.pixel_lock import lock_attenuation, lock_floor_vars
 from .tracking.pose_fit import fit_pose
 from .tracking.registration_error import registration_pose_covs
 
@@ -62,11 +63,15 @@ def marker_cells_across(family: str) -> int:
 
 
 def _marker_points(xy_m, size_m, z_m, yaw_rad=0.0):
-    """(N, 4, 3) corners of a flat marker centred at each point [m]."""
+    """(N, 4, 3) corners of a flat marker centred at each point [m], turned by
+    ``yaw_rad`` (one angle, or one per point) [rad]."""
     loc = marker_corners_local(size_m)
-    c, s = math.cos(yaw_rad), math.sin(yaw_rad)
-    loc = loc @ np.array([[c, -s], [s, c]]).T
-    xy = np.asarray(xy_m, float).reshape(-1, 1, 2) + loc[None]
+    xy = np.asarray(xy_m, float).reshape(-1, 1, 2)
+    yaw = np.broadcast_to(np.asarray(yaw_rad, float), (len(xy),))
+    c, s = np.cos(yaw)[:, None], np.sin(yaw)[:, None]
+    turned = np.stack([c * loc[None, :, 0] - s * loc[None, :, 1],
+                       s * loc[None, :, 0] + c * loc[None, :, 1]], axis=2)
+    xy = xy + turned
     return np.concatenate([xy, np.full(xy.shape[:2] + (1,), z_m)], axis=2)
 
 
@@ -214,6 +219,12 @@ class PlanSettings:
     """How far the rolling-shutter readout the track uses may be off [s] (1-sigma): 0
     when the camera profile gives ``readout_s``; the default is the track's for an
     unknown readout."""
+    refine: str | None = DEFAULT_REFINE
+    """The tracker's corner refinement, whose pixel locking the map carries
+    (:mod:`vidodo.tracking.pixel_lock`); None leaves the locking out."""
+    frame_rate_hz: float = 30.0
+    """Frame rate of the video [Hz] (a phone's usual, from memory): how far the marker's
+    image moves between frames at ``speed_mps``, which averages the pixel locking."""
 
 
 @dataclass(frozen=True)
@@ -325,16 +336,37 @@ class ErrorParts:
     """The rolling-shutter timing term at the given speed."""
     cell_px: np.ndarray
     in_view: np.ndarray
+    lock_m: np.ndarray | None = None
+    """The pixel locking of the marker's edges (:func:`_lock_kept_var`); None: 0."""
 
     @property
     def sigma_xy_m(self) -> np.ndarray:
         """All terms in quadrature [m]."""
+        lock = 0.0 if self.lock_m is None else self.lock_m**2
         return np.sqrt(self.corners_m**2 + self.registration_m**2 + self.bias_m**2
-                       + self.timing_m**2)
+                       + self.timing_m**2 + lock)
+
+
+def _lock_kept_var(var_uv, speed_mps, m_per_px, frame_rate_hz):
+    """Radial floor variance of the pixel locking a sample keeps [m^2], (N,).
+
+    ``var_uv`` (N, 2) is the locking of u and of v at rest
+    (:func:`~vidodo.tracking.pixel_lock.lock_floor_vars`). A marker whose image moves
+    along an axis averages that axis's locking over the phases it crosses; the track
+    keeps ``lock_attenuation`` of the motion squared (``finish._lock_share``). The
+    planner knows neither the direction of travel nor the smoother's window: it takes
+    one frame's image motion (``speed / frame rate / m_per_px``) along the axis that
+    leaves the most (the cautious side): at rest all of both axes.
+    """
+    step = np.nan_to_num(np.asarray(speed_mps, float) / float(frame_rate_hz)
+                         / np.asarray(m_per_px, float))
+    kept = np.nan_to_num(lock_attenuation(step), nan=1.0) ** 2
+    vu, vv = var_uv[:, 0], var_uv[:, 1]
+    return np.maximum(vu + vv * kept, vv + vu * kept)
 
 
 def error_parts(xy_m, marker, cam, settings: PlanSettings = PlanSettings(), *,
-                speed_mps=None) -> ErrorParts:
+                speed_mps=None, heading_rad=0.0) -> ErrorParts:
     """The track's 1-sigma model at marker positions, term by term, per axis.
 
     The marker (heading 0, at its height) is projected into the camera at each point
@@ -343,7 +375,9 @@ def error_parts(xy_m, marker, cam, settings: PlanSettings = PlanSettings(), *,
     registration (:func:`_registration_of`); the terms are then the track's
     (:mod:`vidodo.tracking.error_model`, :func:`~vidodo.tracking.registration_error.
     registration_pose_covs`), each divided by sqrt(2) for one axis (the track's
-    ``sigma_xy_m`` is radial). The smoother is not modelled: the corner term is one
+    ``sigma_xy_m`` is radial), with the pixel locking of the marker's edges
+    (:func:`~vidodo.tracking.pixel_lock.lock_floor_vars`, kept as
+    :func:`_lock_kept_var`). The smoother is not modelled: the corner term is one
     frame's, the cautious side.
 
     Parameters
@@ -356,6 +390,9 @@ def error_parts(xy_m, marker, cam, settings: PlanSettings = PlanSettings(), *,
         ``sigma_corner_px``, the registration, ``corner_bias_px``, ``readout_sigma_s``.
     speed_mps : float or ndarray of shape (N,), optional
         The robot's speed at the points [m/s]; default ``settings.speed_mps``.
+    heading_rad : float or ndarray of shape (N,)
+        Which way the marker's edges point on the floor [rad] (0: along the field's
+        axes, a robot standing square to the field); the pixel locking depends on it.
 
     Returns
     -------
@@ -366,8 +403,8 @@ def error_parts(xy_m, marker, cam, settings: PlanSettings = PlanSettings(), *,
     cell, in_view = _view_cells(xy, marker, v)
     reg = _registration_of(v, settings)
     flat = replace(marker, x_m=0.0, y_m=0.0, yaw_rad=0.0)
-    img = _project(_marker_points(xy, marker.size_m, marker.z_m), v.rvec, v.tvec,
-                   v.camera_matrix, v.dist_coeffs)
+    img = _project(_marker_points(xy, marker.size_m, marker.z_m, heading_rad), v.rvec,
+                   v.tvec, v.camera_matrix, v.dist_coeffs)
     nan = np.full(len(xy), np.nan)
     corner_var, mpp, reg_var = nan.copy(), nan.copy(), nan.copy()
     frames, at = [], []
@@ -379,19 +416,26 @@ def error_parts(xy_m, marker, cam, settings: PlanSettings = PlanSettings(), *,
         mpp[k] = fix.m_per_px
         frames.append((fix, [img[k]], [marker.z_m], reg))
         at.append(k)
+    lock_uv = np.zeros((len(xy), 2))
     if frames:
         covs = np.array(registration_pose_covs(frames))
         reg_var[at] = covs[:, 0, 0] + covs[:, 1, 1]
+        if settings.refine is not None:
+            lock_uv[at] = lock_floor_vars([(r, c, h) for _f, c, h, r in frames],
+                                          settings.refine)
     reg_sigma = registration_sigma_m(reg_var, mpp, reg.rms_px, reg.n_points,
                                      rms_m=reg.rms_floor_m, prediction_px=reg.prediction_px)
     speed = settings.speed_mps if speed_mps is None else speed_mps
     frac = np.clip(img.mean(axis=1)[:, 1] / v.height_px, 0.0, 1.0)
     timing = timing_var_m2(np.broadcast_to(np.asarray(speed, float), (len(xy),)), frac,
                            settings.readout_sigma_s)
+    lock = _lock_kept_var(lock_uv, np.broadcast_to(np.asarray(speed, float), (len(xy),)),
+                          mpp, settings.frame_rate_hz)
     half = np.sqrt(0.5)
     return ErrorParts(np.sqrt(corner_var) * half, np.nan_to_num(reg_sigma) * half,
                       np.sqrt(corner_bias_var_m2(settings.corner_bias_px, mpp)) * half,
-                      np.where(in_view, np.sqrt(timing) * half, np.nan), cell, in_view)
+                      np.where(in_view, np.sqrt(timing) * half, np.nan), cell, in_view,
+                      np.sqrt(lock) * half)
 
 
 def predict_at(xy_m, marker, cam, settings: PlanSettings = PlanSettings(), *,

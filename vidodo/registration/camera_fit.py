@@ -20,7 +20,7 @@ from scipy.optimize import least_squares
 from ..errors import CalibrationError, InputError
 from ..profiles import CameraProfile
 from .frame import FrameRegistration
-from .uncertainty import cluster_covariance, pose_covariance
+from .uncertainty import cluster_covariance, pose_covariance, soft_l1_weights
 
 __all__ = ["read_points_csv", "check_correspondences", "focal_from_homography",
            "pose_from_homography", "CameraFit", "FitOptions", "fit_camera", "pose_fit_points",
@@ -277,6 +277,11 @@ class _Observations:
         _, seam_id = np.unique(seam, return_inverse=True)
         return np.concatenate([np.arange(n_pts), n_pts + seam_id.ravel()]).astype(int)
 
+    def n_independent(self):
+        """Independent observations kept: two per point (u and v), one per seam sample
+        (its residual only moves across the seam: a 2-D residual of rank one)."""
+        return int(2 * self.keep_pts.sum() + self.keep_seam.sum())
+
     def drop_outliers(self, res, limit_px):
         n_pts = len(self.pts_px)
         e = np.hypot(*res.reshape(-1, 2).T)
@@ -403,11 +408,13 @@ def fit_camera(image_size, *, points=None, seams=None, camera: CameraProfile | N
         x = sol.x
         if options.outlier_px and _round == 0:
             obs.drop_outliers(residuals(x), options.outlier_px)
-    return _finish_fit(obs, unpack(x), sol, free, warnings)
+    return _finish_fit(obs, unpack(x), sol, (free, options.loss_px), warnings)
 
 
-def _finish_fit(obs, model, sol, free, warnings):
-    """Residual statistics, the mirror check and the covariance of a converged fit."""
+def _finish_fit(obs, model, sol, free_loss, warnings):
+    """Residual statistics, the mirror check and the covariance of a converged fit
+    (``free_loss``: the freed terms and the soft-L1 loss scale the fit used [px])."""
+    free, loss_px = free_loss
     k, d, rv, tv = model
     res, floor_res = obs.residuals(k, d, rv, tv)
     e_px = np.hypot(*res.reshape(-1, 2).T) if len(res) else np.zeros(0)
@@ -428,7 +435,11 @@ def _finish_fit(obs, model, sol, free, warnings):
             "(x and y swapped, or one axis reversed); fix the points or the origin")
     cov = None
     if len(res) == sol.jac.shape[0]:
-        cov = cluster_covariance(sol.jac, res, np.repeat(obs.groups(), 2), len(sol.x))
+        # SciPy returns the Jacobian scaled by sqrt(psi') of the loss; the covariance
+        # takes the plain one and the loss's own weights.
+        plain = sol.jac / np.sqrt(soft_l1_weights(res, loss_px)[1])[:, None]
+        cov = cluster_covariance(plain, res, np.repeat(obs.groups(), 2), len(sol.x),
+                                 n_obs=obs.n_independent(), loss_scale=loss_px)
     return CameraFit(k, d, np.asarray(rv, float).copy(), np.asarray(tv, float).copy(),
                      rms_px, rms_fl, int(obs.keep_pts.sum() + obs.keep_seam.sum()),
                      np.concatenate([obs.keep_pts, obs.keep_seam]), tuple(warnings), cov,

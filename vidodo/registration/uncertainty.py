@@ -19,7 +19,7 @@ from dataclasses import replace
 
 import numpy as np
 
-__all__ = ["pose_covariance", "cluster_covariance", "floor_point_covariance", "PARAM_STEP",
+__all__ = ["pose_covariance", "cluster_covariance", "soft_l1_weights", "floor_point_covariance", "PARAM_STEP",
            "held_out_excess_px", "HELD_OUT_LEVEL"]
 
 PARAM_STEP = {"rvec": 1e-5, "tvec": 1e-5, "focal": 1e-5, "k1": 1e-5, "k2": 1e-5}
@@ -51,7 +51,7 @@ def _moved(reg, name, k, step):
     return replace(reg, dist_coeffs=dist)
 
 
-def pose_covariance(jac, res, n_params):
+def pose_covariance(jac, res, n_params, n_obs=None):
     """Least-squares parameter covariance ``s^2 (J^T J)^-1``, ``s^2 = r^T r / (n - p)``.
 
     The covariance of a Gauss-Newton fit with the residual variance estimated from the
@@ -60,12 +60,17 @@ def pose_covariance(jac, res, n_params):
 
     Parameters
     ----------
-    jac : ndarray (n, p)
+    jac : ndarray (m, p)
         Derivative of the residuals with respect to the parameters.
-    res : ndarray (n,)
+    res : ndarray (m,)
         Residuals at the solution.
     n_params : int
         Parameters fitted (p).
+    n_obs : int, optional
+        Independent observations (n) behind the ``m`` residuals; default ``m``. A
+        residual vector of rank one (a seam sample's 2-D pixel residual only moves across
+        the seam) is one observation, not two: ``r^T r`` holds one squared error per
+        such sample.
 
     Returns
     -------
@@ -74,7 +79,7 @@ def pose_covariance(jac, res, n_params):
     """
     jac = np.asarray(jac, float)
     res = np.asarray(res, float).ravel()
-    dof = len(res) - int(n_params)
+    dof = (len(res) if n_obs is None else int(n_obs)) - int(n_params)
     if dof <= 0:
         return None
     try:
@@ -83,45 +88,126 @@ def pose_covariance(jac, res, n_params):
         return None
 
 
-def cluster_covariance(jac, res, groups, n_params):
-    """Parameter covariance when residuals within a group share an error.
+def soft_l1_weights(res, scale):
+    """Weights of SciPy's soft-L1 loss ``rho(z) = 2 (sqrt(1 + z) - 1)``, ``z = (r / c)^2``.
 
-    Samples along one tile seam share that seam's error (its found position is offset
-    the same way along its length), so they are not independent and ``s^2 (J^T J)^-1``
-    counts each seam as hundreds of independent measurements. The cluster-robust
-    ("sandwich") covariance ``B M B`` with ``B = (J^T J)^-1`` and
-    ``M = sum_g (J_g^T r_g)(J_g^T r_g)^T`` over the groups g allows any correlation
-    within a group (Liang & Zeger, Biometrika 73(1):13, 1986), scaled by
-    ``G / (G - 1)`` for few groups (Cameron & Miller, J. Human Resources 50(2):317,
-    2015, section II.C). It is never taken below the independent one.
+    The fit solves ``sum psi(r_i) dr_i/dx = 0`` with ``psi(r) = rho'(z) r``; its
+    derivative is ``psi'(r) = rho'(z) + 2 z rho''(z) = (1 + z)^-1.5`` (the factor
+    ``scipy.optimize.least_squares`` puts under the square root into the Jacobian it
+    returns, ``J^T J`` then being its Gauss-Newton Hessian).
 
     Parameters
     ----------
-    jac : ndarray (n, p)
-    res : ndarray (n,)
-    groups : ndarray (n,) of int
+    res : array_like
+        Residuals [px].
+    scale : float or None
+        The loss scale ``c`` [px]; None: plain least squares (both weights 1).
+
+    Returns
+    -------
+    (ndarray, ndarray)
+        ``rho'(z)`` (``psi(r) / r``) and ``psi'(r)``, each like ``res``.
+    """
+    r = np.asarray(res, float)
+    if scale is None:
+        return np.ones_like(r), np.ones_like(r)
+    z = (r / float(scale)) ** 2
+    return (1.0 + z) ** -0.5, (1.0 + z) ** -1.5
+
+
+def cluster_covariance(jac, res, groups, n_params, *, n_obs=None, loss_scale=None):
+    """Parameter covariance of a (robust) least-squares fit whose residuals within a
+    group share an error.
+
+    Samples along one tile seam share that seam's error (its found position is offset
+    the same way along its length: the seam locator's error depends on where the thin
+    line falls within a pixel, which hardly changes along a seam that follows the
+    pixel rows or columns), so they are not independent and ``s^2 (J^T J)^-1`` counts
+    each seam as hundreds of independent measurements. The cluster-robust ("sandwich")
+    covariance ``A^-1 M A^-1`` allows any correlation within a group (Liang & Zeger,
+    Biometrika 73(1):13, 1986). For a fit with a robust loss both parts are the
+    M-estimator's (Huber & Ronchetti, *Robust Statistics*, 2nd ed., 2009, section 7.6):
+    with ``J~ = sqrt(psi') J`` and working residuals ``r~ = psi(r) / sqrt(psi')``,
+    ``A = J~^T J~`` and ``M = sum_g J~_g^T u_g u_g^T J~_g``; for plain least squares
+    ``J~ = J`` and ``r~ = r``.
+
+    A camera pose has 6 parameters and a floor in view about 10 seams: each seam's
+    leverage ``H_gg = J~_g A^-1 J~_g^T`` is large (the pose absorbs much of each seam's
+    offset, leaving its residuals smaller than its error), and the plain sandwich
+    (``u_g = r~_g``, even with the ``G / (G - 1)`` factor) falls short by about
+    ``1 - p / G`` in variance. The bias-reduced form ``u_g = (I - H_gg)^-1/2 r~_g``
+    (CR2; Bell & McCaffrey, Survey Methodology 28(2):169, 2002; recommended for few
+    clusters by Cameron & Miller, J. Human Resources 50(2):317, 2015, section VI.B) is
+    unbiased when the errors are in fact independent and equal. A group whose leverage
+    in some direction reaches :data:`MAX_LEVERAGE` (it alone fixes that direction) is
+    taken at that leverage. The result is never taken below the independent one,
+    ``s^2 A^-1 (J^T J) A^-1`` with ``s^2 = sum psi(r_i)^2 / (n - p)``.
+
+    Parameters
+    ----------
+    jac : ndarray (m, p)
+        Derivative of the residuals (not scaled by the loss).
+    res : ndarray (m,)
+    groups : ndarray (m,) of int
         Group of each residual.
     n_params : int
+    n_obs : int, optional
+        Independent observations behind the residuals (:func:`pose_covariance`).
+    loss_scale : float, optional
+        Scale of the soft-L1 loss the fit used [px] (:func:`soft_l1_weights`); None:
+        plain least squares.
 
     Returns
     -------
     ndarray (p, p) or None
         As :func:`pose_covariance` when there are at most ``p`` groups.
     """
-    iid = pose_covariance(jac, res, n_params)
+    jac = np.asarray(jac, float)
+    res = np.asarray(res, float).ravel()
+    w, dpsi = soft_l1_weights(res, loss_scale)
+    psi = w * res
+    n = len(res) if n_obs is None else int(n_obs)
+    if n <= int(n_params):
+        return None
+    root = np.sqrt(dpsi)
+    jt = jac * root[:, None]
+    try:
+        bread = np.linalg.inv(jt.T @ jt)
+    except np.linalg.LinAlgError:
+        return None
+    iid = bread @ (jac.T @ jac) @ bread * (float(psi @ psi) / (n - int(n_params)))
     groups = np.asarray(groups).ravel()
     uniq, inv = np.unique(groups, return_inverse=True)
-    g = len(uniq)
-    if iid is None or g <= int(n_params):
+    if len(uniq) <= int(n_params):
         return iid
-    jac = np.asarray(jac, float)
-    score = np.zeros((g, jac.shape[1]))
-    np.add.at(score, inv, jac * np.asarray(res, float).ravel()[:, None])
-    bread = np.linalg.inv(jac.T @ jac)
-    sandwich = bread @ (score.T @ score) @ bread * (g / (g - 1.0))
+    score = _cr2_scores(jt, psi / root, inv, len(uniq), bread)
+    sandwich = bread @ (score.T @ score) @ bread
     # the larger of the two in every direction: the sandwich where it is larger, else iid
     return sandwich if np.all(np.linalg.eigvalsh(sandwich - iid) >= 0) else \
         _larger(iid, sandwich)
+
+
+MAX_LEVERAGE = 0.99
+"""Largest leverage of one group in one direction that :func:`cluster_covariance`
+corrects for (beyond it the group alone fixes that direction; its residual is ~0)."""
+
+
+def _cr2_scores(jt, rt, inv, n_groups, bread):
+    """Per group ``J~_g^T (I - H_gg)^-1/2 r~_g``, (G, p). ``H_gg`` has rank at most p:
+    with ``J~_g A^-1/2 = U S V^T`` (thin SVD), ``(I - H_gg)^-1/2 = I + U ((1 - S^2)^-1/2
+    - 1) U^T``."""
+    half = np.linalg.cholesky(bread)  # A^-1 = L L^T: J~_g L has the leverages' SVD
+    out = np.zeros((n_groups, jt.shape[1]))
+    order = np.argsort(inv, kind="stable")
+    bounds = np.searchsorted(inv[order], np.arange(n_groups + 1))
+    for g in range(n_groups):
+        rows = order[bounds[g]:bounds[g + 1]]
+        jg, rg = jt[rows], rt[rows]
+        u, sv, _ = np.linalg.svd(jg @ half, full_matrices=False)
+        lev = np.minimum(sv ** 2, MAX_LEVERAGE)
+        adj = rg + u @ (((1.0 - lev) ** -0.5 - 1.0) * (u.T @ rg))
+        out[g] = jg.T @ adj
+    return out
 
 
 def _larger(a, b):
