@@ -19,8 +19,8 @@ from dataclasses import replace
 
 import numpy as np
 
-__all__ = ["pose_covariance", "cluster_covariance", "soft_l1_weights", "floor_point_covariance", "PARAM_STEP",
-           "held_out_excess_px", "HELD_OUT_LEVEL"]
+__all__ = ["pose_covariance", "cluster_covariance", "soft_l1_weights", "floor_point_covariance",
+           "PARAM_STEP", "held_out_excess_px", "HELD_OUT_LEVEL", "MAX_LEVERAGE"]
 
 PARAM_STEP = {"rvec": 1e-5, "tvec": 1e-5, "focal": 1e-5, "k1": 1e-5, "k2": 1e-5}
 """Central-difference step per parameter kind [rad, m, log focal, -, -]: small against
