@@ -301,6 +301,7 @@ def _raw(run, seed):
         "t_s": t_s, "x_m": xy[:, 0], "y_m": xy[:, 1],
         "ex": (tr["x_m"] - truth["x_m"]).to_numpy(), "ey": (tr["y_m"] - truth["y_m"]).to_numpy(),
         "rx": rerr[:, 0], "ry": rerr[:, 1],
+        "heading": truth["heading_rad"].to_numpy(float) + robot.markers[0].yaw_rad,
         "speed": np.hypot(np.gradient(xy[:, 0], t_s), np.gradient(xy[:, 1], t_s)),
         "detected": tr["detected"].to_numpy(bool),
         "excluded": _excluded(t_s, run), "t2": tr["sigma_xy_m"].to_numpy(float) ** 2 / 2})
@@ -327,8 +328,11 @@ def _samples(raw, info, ctx, settings):
     robot, fld, view = ctx
     xy = raw[["x_m", "y_m"]].to_numpy(float)
     marker = robot.markers[0]
-    parts = error_parts(xy, marker, view, _run_settings(info, settings),
-                        speed_mps=raw["speed"].to_numpy())
+    t_s = raw["t_s"].to_numpy()
+    run_settings = replace(_run_settings(info, settings),
+                           frame_rate_hz=1.0 / float(np.median(np.diff(t_s))))
+    parts = error_parts(xy, marker, view, run_settings, speed_mps=raw["speed"].to_numpy(),
+                        heading_rad=raw["heading"].to_numpy())
     p_fix, cell, pred = parts.corners_m, parts.cell_px, parts.sigma_xy_m
     use = (raw["detected"].to_numpy(bool) & ~raw["excluded"].to_numpy(bool)
            & (np.nan_to_num(cell) >= settings.min_cell_px))

@@ -223,3 +223,29 @@ def test_registration_fallback_is_the_tracks():
         0.5 * math.sqrt(8 / 200) * D / 1000 / math.sqrt(2), rel=1e-4)
     none = error_parts(np.array([[1.0, 1.0]]), MARKER, view, _corners_only(0.4))
     assert none.registration_m[0] == 0.0
+
+
+def test_pixel_lock_term_straight_down():
+    """Looking straight down, a marker square to the pixel grid keeps its edges' whole
+    pixel locking (``PIXEL_LOCK_PX``, measured in tests/test_corner_bias.py) on both image
+    axes: per floor axis ``lock * D / f`` at rest (closed form of the nadir scale
+    ``D / f`` m per px). Turned by 30 deg its edges cross many pixel phases and the term
+    all but vanishes (``lock_attenuation``). Moving fast along an unknown direction the
+    planner keeps the locking of one image axis whole (the cautious side): per floor
+    axis ``lock * D / f / sqrt(2)``."""
+    from vidodo.planner import error_parts
+    from vidodo.tracking.detector import PIXEL_LOCK_PX
+
+    view, D = _down(2.26), 2.26 - 0.26
+    settings = replace(_corners_only(0.0), refine="apriltag")
+    lock = PIXEL_LOCK_PX["apriltag"] * D / 1000.0
+    xy = np.array([[1.0, 1.0]])
+    rest = error_parts(xy, MARKER, view, settings, speed_mps=0.0)
+    assert rest.lock_m[0] == pytest.approx(lock, rel=1e-3)
+    assert rest.sigma_xy_m[0] == pytest.approx(lock, rel=1e-3)
+    turned = error_parts(xy, MARKER, view, settings, speed_mps=0.0,
+                         heading_rad=math.radians(30))
+    assert turned.lock_m[0] < 0.05 * lock
+    fast = error_parts(xy, MARKER, view, settings, speed_mps=3.0)
+    assert fast.lock_m[0] == pytest.approx(lock / math.sqrt(2), rel=0.01)
+    assert error_parts(xy, MARKER, view, replace(settings, refine=None)).lock_m[0] == 0.0
