@@ -369,7 +369,7 @@ def error_parts(xy_m, marker, cam, settings: PlanSettings = PlanSettings(), *,
                 speed_mps=None, heading_rad=0.0) -> ErrorParts:
     """The track's 1-sigma model at marker positions, term by term, per axis.
 
-    The marker (heading 0, at its height) is projected into the camera at each point
+    The marker (at ``heading_rad``, at its height) is projected into the camera at each point
     and its corners are fitted by the tracker's own pose fit
     (:func:`~vidodo.tracking.pose_fit.fit_pose`) through the camera taken as a
     registration (:func:`_registration_of`); the terms are then the track's
