@@ -83,8 +83,9 @@ ACCEL_CHANGE = 2
 """Break kind: only the acceleration is released (a jerk impulse): the start or end of
 a hard braking or a motor's ramp, where the path and the speed stay continuous."""
 
-BREAK_TRIAL_COLUMNS = 256
-"""Trial breaks filtered side by side in one batch (bounds the memory of long runs)."""
+BREAK_TRIAL_COLUMNS = 16384
+"""Trial breaks filtered side by side in one batch (bounds the memory of long runs:
+about 100 bytes a trial)."""
 
 BREAK_REJOIN_TOL = 1e-6
 """A trial break's filter stops once its state equals the baseline filter's to this
@@ -573,12 +574,12 @@ def _search_breaks(t_s, z, var_z, model):
                         cols += [(s, n_run, rows, kind) for rows, kind in _trials(pos, m)]
         if not cols:
             break
-        gain = np.concatenate([
-            _trial_gain(t_s, z, var_z, jump, base, cols[i:i + BREAK_TRIAL_COLUMNS], model)
-            for i in range(0, len(cols), BREAK_TRIAL_COLUMNS)])
+        gain = _trial_gain(t_s, z, var_z, jump, base, cols, model)
         best: dict = {}
-        for c, gval in zip(cols, gain, strict=True):
+        stretch: dict = {}  # (signal, stretch) -> its trials with their gains
+        for c, gval in zip(cols, gain.tolist(), strict=True):
             key = c[:2]
+            stretch.setdefault(key, []).append((c[2], c[3], gval))
             if gval > BREAK_MIN_GAIN and gval > best.get(key, (-np.inf, 0))[0]:
                 best[key] = (gval, c[2:])
         if not best:
@@ -587,9 +588,8 @@ def _search_breaks(t_s, z, var_z, model):
             if jump[pos[0], s]:
                 continue  # the same break kept for an overlapping stretch
             jump[list(pos), s] = kind
-            rivals = [(c[2], c[3], gval) for c, gval in zip(cols, gain, strict=True)
-                      if c[:2] == (s, n_run) and gval >= g_best - BREAK_RIVAL_NATS
-                      and c[2:] != (pos, kind)]
+            rivals = [(r_pos, r_kind, gval) for r_pos, r_kind, gval in stretch[s, n_run]
+                      if gval >= g_best - BREAK_RIVAL_NATS and (r_pos, r_kind) != (pos, kind)]
             alts.append((s, pos, kind, g_best, rivals))
         base = _run(t_s, z, var_z, ones, *model, smooth=False, jump=jump, filtered=True)
     return jump, alts
@@ -603,37 +603,42 @@ def _trial_gain(t_s, z, var_z, jump, base, cols, model):
     there and runs forward only until its state has rejoined the baseline's
     (:func:`_rejoined`): from then on both filters see the same data from the same
     state, and the rest of the run adds nothing to the difference. The gain is the
-    difference of the two log-likelihoods over that window. A batch holds at most
-    :data:`BREAK_TRIAL_COLUMNS` trials.
+    difference of the two log-likelihoods over that window. The trials run side by
+    side, each at its own measurement (a batch holds at most
+    :data:`BREAK_TRIAL_COLUMNS`); a trial's breaks are kept as its rows and kind, not
+    as a column of the whole run.
     """
     q, r_scale, prior_rate, prior_accel = model
     ll_k, _, _, xf, Pf = base
     m = t_s.size
-    sig = np.array([c[0] for c in cols])
-    first = np.array([c[2][0] for c in cols])
-    last = np.array([c[2][-1] for c in cols])
-    trial = jump[:, sig].copy()
-    for col, c in enumerate(cols):
-        trial[list(c[2]), col] = c[3]
     F_all, Q_all = _transition(np.diff(t_s, prepend=t_s[0]), np.ones(m))
     step = _break_step(t_s, np.ones(m, bool))
-    x, P = xf[first - 1, sig], Pf[first - 1, sig]
-    gain = np.zeros(sig.size)
-    k = first.copy()
-    live = np.arange(sig.size)  # trials still running
-    while live.size:
-        i, s = k[live], sig[live]
-        xl = x[live]
-        Pl = _release(xl, P[live], trial[i, live], step[i], prior_accel)
-        F = F_all[i]
-        xl = (F @ xl[:, :, None])[:, :, 0]
-        Pl = F @ Pl @ F.transpose(0, 2, 1) + q[s, None, None] * Q_all[i]
-        xl, Pl, ll, _ = _update(xl, Pl, z[i, s], var_z[i, s] * r_scale[s])
-        x[live], P[live] = xl, Pl
-        gain[live] += ll - ll_k[i, s]
-        done = (i + 1 >= m) | ((i >= last[live]) & _rejoined(xl, Pl, xf[i, s], Pf[i, s]))
-        k[live] += 1
-        live = live[~done]
+    gain = np.zeros(len(cols))
+    for lo in range(0, len(cols), BREAK_TRIAL_COLUMNS):
+        part = cols[lo:lo + BREAK_TRIAL_COLUMNS]
+        sig = np.array([c[0] for c in part])
+        first = np.array([c[2][0] for c in part])
+        last = np.array([c[2][-1] for c in part])
+        kind = np.array([c[3] for c in part], np.int8)
+        x, P = xf[first - 1, sig], Pf[first - 1, sig]
+        # Columns still running (in the batch's order) and where each stands.
+        live, k = np.arange(sig.size), first.copy()
+        g = np.zeros(sig.size)
+        while live.size:
+            s = sig[live]
+            own = (k == first[live]) | (k == last[live])
+            Pl = _release(x, P, np.where(own, kind[live], jump[k, s]), step[k], prior_accel)
+            F = F_all[k]
+            x = (F @ x[:, :, None])[:, :, 0]
+            Pl = F @ Pl @ F.transpose(0, 2, 1) + q[s, None, None] * Q_all[k]
+            x, P, ll, _ = _update(x, Pl, z[k, s], var_z[k, s] * r_scale[s])
+            g[live] += ll - ll_k[k, s]
+            done = (k + 1 >= m) | ((k >= last[live]) & _rejoined(x, P, xf[k, s], Pf[k, s]))
+            k += 1
+            if done.any():
+                going = ~done
+                live, k, x, P = live[going], k[going], x[going], P[going]
+        gain[lo:lo + len(part)] = g
     return gain
 
 
