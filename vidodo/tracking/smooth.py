@@ -163,6 +163,37 @@ def _transition(dt, q):
     return F, Q * np.asarray(q, dtype=float)[:, None, None]
 
 
+PREDICT_COMPONENTWISE_MIN = 64
+"""From this many parallel states on, :func:`_predict` works on the rows and columns of
+the covariances (a few operations on long arrays) rather than by stacked 3 x 3 matrix
+products, which cost several times more per state there; below, the matrix products
+cost fewer calls."""
+
+
+def _predict(x, P, dt, F=None):
+    """States (B, 3) and covariances (B, 3, 3) carried over steps ``dt`` (scalar or
+    (B,)) by the constant-acceleration transition, before the process noise:
+    F x and F P F^T (``F``: the transition matrices, (3, 3) or (B, 3, 3), when at hand).
+    """
+    if x.shape[0] < PREDICT_COMPONENTWISE_MIN:
+        if F is None:
+            F = _transition(np.atleast_1d(dt), np.zeros(1))[0]
+        Ft = np.swapaxes(F, -1, -2)
+        return x @ Ft if F.ndim == 2 else (F @ x[:, :, None])[:, :, 0], F @ P @ Ft
+    dt = np.asarray(dt, float)
+    half = 0.5 * dt * dt
+    d, h = (dt, half) if dt.ndim == 0 else (dt[:, None], half[:, None])
+    A = P.copy()
+    A[:, 0] += d * P[:, 1] + h * P[:, 2]  # rows: F P
+    A[:, 1] += d * P[:, 2]
+    A[:, :, 0] += d * A[:, :, 1] + h * A[:, :, 2]  # columns: (F P) F^T
+    A[:, :, 1] += d * A[:, :, 2]
+    y = x.copy()
+    y[:, 0] += dt * x[:, 1] + half * x[:, 2]
+    y[:, 1] += dt * x[:, 2]
+    return y, A
+
+
 def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
          jump=None, filtered=False):
     """Filter (and smooth) B parallel models over one event sequence.
@@ -225,9 +256,8 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
         if jump is not None and jump[k].any():
             P = _release(x, P, jump[k], step[k], prior_accel)
         if dts[k] > 0:
-            F = F_all[k]
-            x = x @ F.T
-            P = F @ P @ F.T + q[:, None, None] * Q_all[k]
+            x, P = _predict(x, P, dts[k], F_all[k])
+            P = P + q[:, None, None] * Q_all[k]
         if smooth:
             xp_all[k] = x
             Pp_all[k] = P
@@ -249,13 +279,14 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
     Ps = np.empty_like(Pf)
     xs[-1] = xf[-1]
     Ps[-1] = Pf[-1]
+    # The gains C = Pf F^T Ppn^-1 depend on the filter alone: all at once, by a solve
+    # (Ppn C^T = F Pf); the recursion then only applies them.
+    Cs = np.linalg.solve(Pp_all[1:], np.einsum("tij,tbjk->tbik", Fs[1:], Pf[:-1]))
+    Cs = Cs.transpose(0, 1, 3, 2)
     for k in range(T - 2, -1, -1):
-        Ppn = Pp_all[k + 1]
-        F = Fs[k + 1]
-        # C = Pf F^T Ppn^-1, computed by a solve: Ppn C^T = F Pf
-        C = np.linalg.solve(Ppn, np.einsum("ij,bjk->bik", F, Pf[k])).transpose(0, 2, 1)
+        C = Cs[k]
         xs[k] = xf[k] + np.einsum("bij,bj->bi", C, xs[k + 1] - xp_all[k + 1])
-        Ps[k] = Pf[k] + C @ (Ps[k + 1] - Ppn) @ C.transpose(0, 2, 1)
+        Ps[k] = Pf[k] + C @ (Ps[k + 1] - Pp_all[k + 1]) @ C.transpose(0, 2, 1)
     return loglik, nis, nu, xs, Ps
 
 
@@ -483,24 +514,30 @@ def _break_mixture(t, meas, jump_m, xs, Ps, q):
     out = xs[:, :, :2].copy()
     var = np.stack([Ps[:, :, 0, 0], Ps[:, :, 1, 1]], axis=-1).copy()
     pos = np.flatnonzero(meas)
-    for r, s in zip(*np.nonzero(jump_m), strict=True):
-        if r == 0:
-            continue
-        a, b = pos[r - 1], pos[r]
-        if b - a < 2 or t[b] <= t[a]:
-            continue
-        ev = np.arange(a + 1, b)
-        h = t[ev] - t[a]
-        F, Q = _transition(h, np.full(h.size, q[s]))
-        before = F @ xs[a, s]
-        Pb = F @ Ps[a, s] @ F.transpose(0, 2, 1) + Q
-        u = (h / (t[b] - t[a]))[:, None]
-        after = xs[ev, s, :2]
-        va = var[ev, s]
-        vb = np.stack([Pb[:, 0, 0], Pb[:, 1, 1]], axis=-1)
-        gap = after - before[:, :2]
-        out[ev, s] = u * after + (1.0 - u) * before[:, :2]
-        var[ev, s] = u * va + (1.0 - u) * vb + u * (1.0 - u) * gap**2
+    r, s = np.nonzero(jump_m)
+    keep = r > 0
+    r, s = r[keep], s[keep]
+    a, b = pos[r - 1], pos[r]
+    keep = (b - a >= 2) & (t[b] > t[a])
+    a, b, s = a[keep], b[keep], s[keep]
+    if a.size == 0:
+        return out, np.maximum(var, 0.0)
+    # Every event inside every break's step at once: its step's before-state a, signal s.
+    n_in = b - a - 1
+    ev = np.concatenate([np.arange(i + 1, j) for i, j in zip(a.tolist(), b.tolist(),
+                                                                strict=True)])
+    a_e, b_e, s_e = np.repeat(a, n_in), np.repeat(b, n_in), np.repeat(s, n_in)
+    h = t[ev] - t[a_e]
+    F, Q = _transition(h, q[s_e])
+    before = (F @ xs[a_e, s_e][:, :, None])[:, :, 0]
+    Pb = F @ Ps[a_e, s_e] @ F.transpose(0, 2, 1) + Q
+    u = (h / (t[b_e] - t[a_e]))[:, None]
+    after = xs[ev, s_e, :2]
+    va = var[ev, s_e]
+    vb = np.stack([Pb[:, 0, 0], Pb[:, 1, 1]], axis=-1)
+    gap = after - before[:, :2]
+    out[ev, s_e] = u * after + (1.0 - u) * before[:, :2]
+    var[ev, s_e] = u * va + (1.0 - u) * vb + u * (1.0 - u) * gap**2
     return out, np.maximum(var, 0.0)
 
 
@@ -611,7 +648,8 @@ def _trial_gain(t_s, z, var_z, jump, base, cols, model):
     q, r_scale, prior_rate, prior_accel = model
     ll_k, _, _, xf, Pf = base
     m = t_s.size
-    F_all, Q_all = _transition(np.diff(t_s, prepend=t_s[0]), np.ones(m))
+    dts = np.diff(t_s, prepend=t_s[0])
+    F_all, Q_all = _transition(dts, np.ones(m))
     step = _break_step(t_s, np.ones(m, bool))
     gain = np.zeros(len(cols))
     for lo in range(0, len(cols), BREAK_TRIAL_COLUMNS):
@@ -628,9 +666,8 @@ def _trial_gain(t_s, z, var_z, jump, base, cols, model):
             s = sig[live]
             own = (k == first[live]) | (k == last[live])
             Pl = _release(x, P, np.where(own, kind[live], jump[k, s]), step[k], prior_accel)
-            F = F_all[k]
-            x = (F @ x[:, :, None])[:, :, 0]
-            Pl = F @ Pl @ F.transpose(0, 2, 1) + q[s, None, None] * Q_all[k]
+            x, Pl = _predict(x, Pl, dts[k], F_all[k])
+            Pl = Pl + q[s, None, None] * Q_all[k]
             x, P, ll, _ = _update(x, Pl, z[k, s], var_z[k, s] * r_scale[s])
             g[live] += ll - ll_k[k, s]
             done = (k + 1 >= m) | ((k >= last[live]) & _rejoined(x, P, xf[k, s], Pf[k, s]))
