@@ -150,10 +150,33 @@ class CornerNoise:
     """Pairs of consecutive frames behind ``lag1_corr``."""
 
 
-def _whitened(fix):
-    """Residuals of a fix whitened to 1 px units, ndarray of shape (N, 2)."""
-    L = np.linalg.cholesky(fix.weight)  # W = L L^T, so r^T W r = |L^T r|^2
-    return np.einsum("nji,nj->ni", L, fix.resid_m)
+def _pair_terms(fixes, frame_index):
+    """Per fix k paired with fix k + 1 (consecutive frames, same corners): the sum of
+    the products of their whitened residuals, the mean of their sums of squares, and 1;
+    zeros where k is not paired. Three arrays (M,) [px^2, px^2, -]. The residuals are
+    whitened to 1 px units by each fix's weight, W = L L^T, so r^T W r = |L^T r|^2."""
+    m = len(fixes)
+    num, den, pair = np.zeros(m), np.zeros(m), np.zeros(m)
+    fi = list(frame_index)
+    paired = [k for k in range(m - 1) if fi[k + 1] == fi[k] + 1
+              and fixes[k].resid_m.shape == fixes[k + 1].resid_m.shape]
+    if not paired:
+        return num, den, pair
+    used = sorted(set(paired) | {k + 1 for k in paired})
+    by_shape: dict = {}  # fixes of one residual shape whitened in one call
+    for k in used:
+        by_shape.setdefault(fixes[k].resid_m.shape, []).append(k)
+    white = {}
+    for ks in by_shape.values():
+        L = np.linalg.cholesky(np.stack([fixes[k].weight for k in ks]))
+        r = np.einsum("knji,knj->kni", L, np.stack([fixes[k].resid_m for k in ks]))
+        white.update(zip(ks, r, strict=True))
+    for k in paired:
+        ra, rb = white[k], white[k + 1]
+        num[k] = float(np.sum(ra * rb))
+        den[k] = 0.5 * float(np.sum(ra * ra) + np.sum(rb * rb))
+        pair[k] = 1.0
+    return num, den, pair
 
 
 def estimate_corner_noise(fixes, frame_index=None, *, floor_px=0.02) -> CornerNoise:
@@ -189,15 +212,9 @@ def estimate_corner_noise(fixes, frame_index=None, *, floor_px=0.02) -> CornerNo
     num = den = 0.0
     pairs = 0
     if frame_index is not None:
-        frame_index = list(frame_index)
-        for k in range(len(fixes) - 1):
-            a, b = fixes[k], fixes[k + 1]
-            if frame_index[k + 1] != frame_index[k] + 1 or a.resid_m.shape != b.resid_m.shape:
-                continue
-            ra, rb = _whitened(a), _whitened(b)
-            num += float(np.sum(ra * rb))
-            den += 0.5 * float(np.sum(ra * ra) + np.sum(rb * rb))
-            pairs += 1
+        terms = _pair_terms(fixes, frame_index)
+        num, den = sum(terms[0].tolist(), 0.0), sum(terms[1].tolist(), 0.0)
+        pairs = int(terms[2].sum())
     rho = float(np.clip(num / den, 0.0, 1.0)) if pairs >= MIN_NOISE_PAIRS and den > 0 else 1.0
     sigma = max(math.sqrt(s2), floor_px)
     return CornerNoise(sigma, sigma * math.sqrt(1.0 - rho), sigma * math.sqrt(rho), rho, dof,
@@ -248,16 +265,7 @@ def local_corner_noise(fixes, frame_index, noise, *, half_window=LOCAL_NOISE_HAL
         dof = np.array([f.dof for f in fixes], float)
         scale = (_window_sums(chi2, half_window)
                  / np.maximum(_window_sums(dof, half_window), 1.0) / noise.sigma_px**2)
-    num, den, pair = np.zeros(m), np.zeros(m), np.zeros(m)
-    fi = list(frame_index)
-    for k in range(m - 1):
-        a, b = fixes[k], fixes[k + 1]
-        if fi[k + 1] != fi[k] + 1 or a.resid_m.shape != b.resid_m.shape:
-            continue
-        ra, rb = _whitened(a), _whitened(b)
-        num[k] = float(np.sum(ra * rb))
-        den[k] = 0.5 * float(np.sum(ra * ra) + np.sum(rb * rb))
-        pair[k] = 1.0
+    num, den, pair = _pair_terms(fixes, frame_index)
     pn, pd_, pc = (_window_sums(v, half_window) for v in (num, den, pair))
     with np.errstate(divide="ignore", invalid="ignore"):
         local = np.clip(pn / pd_, 0.0, 1.0)

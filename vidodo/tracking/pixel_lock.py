@@ -24,7 +24,8 @@ import numpy as np
 
 from .detector import PIXEL_LOCK_PX
 
-__all__ = ["lock_attenuation", "lock_sigma_px", "lock_floor_vars", "marker_floor_jacobians"]
+__all__ = ["lock_attenuation", "lock_sigma_px", "lock_sigmas_px", "lock_floor_vars",
+           "marker_floor_jacobians"]
 
 FLOOR_STEP_PX = 0.5
 """Central-difference step of the image-to-floor mapping [px]."""
@@ -72,17 +73,27 @@ def lock_sigma_px(corners_px, refine: str) -> np.ndarray:
         (a marker an integer number of pixels across does): their errors add up, not
         average down. Zero for a refinement without a measured locking.
     """
-    amp = PIXEL_LOCK_PX.get(refine, 0.0)
     c = np.asarray(corners_px, float).reshape(-1, 2)
-    if amp <= 0 or len(c) != 4:
+    if len(c) != 4:
         return np.zeros(2)
-    d = np.roll(c, -1, axis=0) - c  # the four edges
-    du, dv = np.abs(d[:, 0]), np.abs(d[:, 1])
+    return lock_sigmas_px(c[None], refine)[0]
+
+
+def lock_sigmas_px(corners_px, refine: str) -> np.ndarray:
+    """:func:`lock_sigma_px` of K markers at once: corners (K, 4, 2) [px] -> (K, 2) [px]."""
+    amp = PIXEL_LOCK_PX.get(refine, 0.0)
+    c = np.asarray(corners_px, float).reshape(-1, 4, 2)
+    out = np.zeros((c.shape[0], 2))
+    if amp <= 0 or c.shape[0] == 0:
+        return out
+    d = np.roll(c, -1, axis=1) - c  # the four edges
+    du, dv = np.abs(d[:, :, 0]), np.abs(d[:, :, 1])
     horizontal = du >= dv
-    out = np.zeros(2)
     for axis, sel, span in ((0, ~horizontal, du), (1, horizontal, dv)):
-        if sel.any():
-            out[axis] = amp * float(np.mean(lock_attenuation(span[sel])))
+        n = sel.sum(axis=1)
+        # the mean over the selected edges (a sum over at most four adds exact zeros)
+        att = np.where(sel, lock_attenuation(span), 0.0).sum(axis=1)
+        out[:, axis] = np.where(n > 0, amp * (att / np.maximum(n, 1)), 0.0)
     return out
 
 
@@ -140,9 +151,13 @@ def lock_floor_vars(frames, refine: str) -> np.ndarray:
     out = np.zeros((len(frames), 2))
     if PIXEL_LOCK_PX.get(refine, 0.0) <= 0:
         return out
-    for f, ((_reg, corners, _h), jac) in enumerate(zip(frames, marker_floor_jacobians(
-            frames), strict=True)):
-        for c, j in zip(corners, jac, strict=True):
-            sig = lock_sigma_px(c, refine) / len(corners)
-            out[f] += np.nan_to_num(sig ** 2 * np.sum(j ** 2, axis=0))
+    flat = [(f, np.asarray(c, float).reshape(-1, 2), len(corners), j)
+            for f, ((_reg, corners, _h), jac) in enumerate(zip(frames, marker_floor_jacobians(
+                frames), strict=True))
+            for c, j in zip(corners, jac, strict=True)]
+    four = [e for e in flat if len(e[1]) == 4]  # lock_sigma_px: zero for other outlines
+    sigs = lock_sigmas_px(np.stack([e[1] for e in four]) if four else np.zeros((0, 4, 2)),
+                          refine)
+    for (f, _c, n, j), sig in zip(four, sigs, strict=True):
+        out[f] += np.nan_to_num((sig / n) ** 2 * np.sum(j ** 2, axis=0))
     return out
