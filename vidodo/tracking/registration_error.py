@@ -103,14 +103,33 @@ def registration_pose_covs(frames):
                     for a, b, z in zip(at[:-1], at[1:], heights, strict=True)]
             tied.append((earlier, seen, heights))
             tied_at.append(k)
-    jac_own = _jacobians(own)
-    jac_tied = dict(zip(tied_at, _jacobians(tied), strict=True))
-    out = []
-    for k, (fix, _c, _h, reg) in enumerate(frames):
-        cov = _through_fit(fix, jac_own[k], reg)
-        if k in jac_tied:
-            cov = cov + float(reg.tied_share) * _through_fit(fix, jac_tied[k], reg.tied_to)
-        out.append(cov)
+    fixes = [f[0] for f in frames]
+    out = _through_fits(fixes, _jacobians(own), [f[3] for f in frames])
+    tied_covs = _through_fits([fixes[k] for k in tied_at], _jacobians(tied),
+                              [frames[k][3].tied_to for k in tied_at])
+    for k, cov in zip(tied_at, tied_covs, strict=True):
+        out[k] = out[k] + float(frames[k][3].tied_share) * cov
+    return out
+
+
+def _through_fits(fixes, jacs, regs):
+    """:func:`_through_fit` of many frames; those sharing a registration and the shapes
+    of their Jacobians in one batch."""
+    out = [None] * len(fixes)
+    groups: dict = {}
+    for k, (fix, jac, reg) in enumerate(zip(fixes, jacs, regs, strict=True)):
+        if getattr(reg, "param_cov", None) is None or not np.all(np.isfinite(jac)):
+            out[k] = _through_fit(fix, jac, reg)
+        else:
+            groups.setdefault((id(reg), fix.jac.shape, jac.shape), (reg, []))[1].append(k)
+    for reg, ks in groups.values():
+        a = np.stack([fixes[k].jac for k in ks])
+        jac = np.stack([jacs[k] for k in ks])
+        g = np.linalg.solve(np.einsum("mnji,mnjk->mik", a, a),
+                            np.einsum("mnji,mnjp->mip", a, jac))
+        covs = g @ np.asarray(reg.param_cov, float) @ g.transpose(0, 2, 1)
+        for k, cov in zip(ks, covs, strict=True):
+            out[k] = cov
     return out
 
 

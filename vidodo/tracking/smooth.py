@@ -247,22 +247,24 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
         Pf = np.empty((T, B, 3, 3))
         xp_all = np.empty((T, B, 3))
         Pp_all = np.empty((T, B, 3, 3))
-        Fs = np.empty((T, 3, 3))
     dts = np.diff(t, prepend=t[0])
     F_all, Q_all = _transition(dts, np.ones(T))
+    # Per-event flags as Python bools: the loop tests them once per event.
+    released = (np.zeros(T, bool) if jump is None else jump.any(axis=1)).tolist()
     if jump is not None:
         step = _break_step(t, is_meas)
-    for k in range(T):
-        if jump is not None and jump[k].any():
+    for k, (moved, measured) in enumerate(zip((dts > 0).tolist(),
+                                              np.asarray(is_meas, bool).tolist(),
+                                              strict=True)):
+        if released[k]:
             P = _release(x, P, jump[k], step[k], prior_accel)
-        if dts[k] > 0:
+        if moved:
             x, P = _predict(x, P, dts[k], F_all[k])
             P = P + q[:, None, None] * Q_all[k]
         if smooth:
             xp_all[k] = x
             Pp_all[k] = P
-            Fs[k] = F_all[k]
-        if is_meas[k]:
+        if measured:
             x, P, ll, nu[k] = _update(x, P, z[k], var_z[k] * r_scale)
             loglik += ll
             nis += nu[k] ** 2
@@ -281,7 +283,7 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
     Ps[-1] = Pf[-1]
     # The gains C = Pf F^T Ppn^-1 depend on the filter alone: all at once, by a solve
     # (Ppn C^T = F Pf); the recursion then only applies them.
-    Cs = np.linalg.solve(Pp_all[1:], np.einsum("tij,tbjk->tbik", Fs[1:], Pf[:-1]))
+    Cs = np.linalg.solve(Pp_all[1:], np.einsum("tij,tbjk->tbik", F_all[1:], Pf[:-1]))
     Cs = Cs.transpose(0, 1, 3, 2)
     for k in range(T - 2, -1, -1):
         C = Cs[k]
