@@ -70,6 +70,10 @@ BREAK_RIVAL_MARGIN = 30
 (1 s at 30 fps, several times the filter's memory at the densities fitted to robot
 runs)."""
 
+RIVAL_BATCH_COLUMNS = 256
+"""Placements of breaks and their rivals smoothed side by side in one batch
+(:func:`_smooth_stretches`; bounds the memory: about 0.2 MB a column of 100 events)."""
+
 BREAK_ROUNDS = 4
 """Rounds of the break search (each may add one break per flagged stretch)."""
 
@@ -200,12 +204,14 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
 
     Parameters
     ----------
-    t : ndarray (T,)
-        Event times, sorted.
+    t : ndarray (T,) or (T, B)
+        Event times, sorted; (T, B) when each model has its own events (then
+        ``is_meas`` is (T, B) too; a column may end in events at its last time that are
+        not measurements, which change nothing).
     z, var_z : ndarray (T,) or (T, B)
         Measurement and its variance (ignored where ``is_meas`` is False); one column
         per parallel model when 2-D.
-    is_meas : ndarray of bool (T,)
+    is_meas : ndarray of bool (T,) or (T, B)
     q, r_scale : ndarray (B,)
         Model parameters of the B parallel filters.
     jump : ndarray of int (T, B), optional
@@ -228,13 +234,19 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
     xs, Ps : ndarray (T, B, 3), (T, B, 3, 3)
         Smoothed (``smooth``) or filtered (``filtered``) states; None otherwise.
     """
-    T = t.size
+    T = t.shape[0]
     B = q.size
-    first = int(np.flatnonzero(is_meas)[0])
+    own = t.ndim == 2  # each model its own events
+    if own:
+        first = np.argmax(is_meas, axis=0)
+        z0, v0 = z[first, np.arange(B)], var_z[first, np.arange(B)]
+    else:
+        first = int(np.flatnonzero(is_meas)[0])
+        z0, v0 = z[first], var_z[first]
     x = np.zeros((B, 3))
-    x[:, 0] = z[first]
+    x[:, 0] = z0
     P = np.zeros((B, 3, 3))
-    P[:, 0, 0] = var_z[first] * r_scale * 1e4 + 1e-12
+    P[:, 0, 0] = v0 * r_scale * 1e4 + 1e-12
     P[:, 1, 1] = prior_rate**2
     P[:, 2, 2] = prior_accel**2
     loglik = np.zeros(B)
@@ -247,14 +259,20 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
         Pf = np.empty((T, B, 3, 3))
         xp_all = np.empty((T, B, 3))
         Pp_all = np.empty((T, B, 3, 3))
-    dts = np.diff(t, prepend=t[0])
-    F_all, Q_all = _transition(dts, np.ones(T))
-    # Per-event flags as Python bools: the loop tests them once per event.
+    dts = np.diff(t, axis=0, prepend=t[:1])
+    F_all, Q_all = _transition(dts.ravel(), np.ones(dts.size))
+    if own:
+        F_all, Q_all = F_all.reshape(T, B, 3, 3), Q_all.reshape(T, B, 3, 3)
+    # Per-event flags as Python bools: the loop tests them once per event. With own
+    # events, a model whose step is 0 is carried over it unchanged (F = 1, Q = 0).
     released = (np.zeros(T, bool) if jump is None else jump.any(axis=1)).tolist()
     if jump is not None:
-        step = _break_step(t, is_meas)
-    for k, (moved, measured) in enumerate(zip((dts > 0).tolist(),
-                                              np.asarray(is_meas, bool).tolist(),
+        step = (np.column_stack([_break_step(t[:, c], is_meas[:, c]) for c in range(B)])
+                if own else _break_step(t, is_meas))
+    moves, meas_k = dts > 0, np.asarray(is_meas, bool)
+    if own:
+        moves, meas_k = moves.any(axis=1), meas_k.any(axis=1)
+    for k, (moved, measured) in enumerate(zip(moves.tolist(), meas_k.tolist(),
                                               strict=True)):
         if released[k]:
             P = _release(x, P, jump[k], step[k], prior_accel)
@@ -265,9 +283,14 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
             xp_all[k] = x
             Pp_all[k] = P
         if measured:
-            x, P, ll, nu[k] = _update(x, P, z[k], var_z[k] * r_scale)
+            xn, Pn, ll, nu_k = _update(x, P, z[k], var_z[k] * r_scale)
+            if own:  # only the models measured at this event
+                m = is_meas[k]
+                xn, Pn = np.where(m[:, None], xn, x), np.where(m[:, None, None], Pn, P)
+                ll, nu_k = np.where(m, ll, 0.0), np.where(m, nu_k, np.nan)
+            x, P, nu[k] = xn, Pn, nu_k
             loglik += ll
-            nis += nu[k] ** 2
+            nis += np.nan_to_num(nu_k) ** 2 if own else nu_k**2
             if filtered:
                 ll_k[k] = ll
         if keep:
@@ -283,7 +306,8 @@ def _run(t, z, var_z, is_meas, q, r_scale, prior_rate, prior_accel, smooth=True,
     Ps[-1] = Pf[-1]
     # The gains C = Pf F^T Ppn^-1 depend on the filter alone: all at once, by a solve
     # (Ppn C^T = F Pf); the recursion then only applies them.
-    Cs = np.linalg.solve(Pp_all[1:], np.einsum("tij,tbjk->tbik", F_all[1:], Pf[:-1]))
+    Cs = np.linalg.solve(Pp_all[1:], np.einsum("tbij,tbjk->tbik" if own else
+                                               "tij,tbjk->tbik", F_all[1:], Pf[:-1]))
     Cs = Cs.transpose(0, 1, 3, 2)
     for k in range(T - 2, -1, -1):
         C = Cs[k]
@@ -421,8 +445,7 @@ def rts_smooth_signals(t_meas_s, z, sigma_z, t_out_s, settings=SmoothSettings())
     where[order] = np.arange(order.size)
     out_pos = where[tm.size:]
     vr, vr_var = _break_mixture(t, meas, jump_m, xs, Ps, q_best)
-    for alt in alts:
-        _average_rivals(ev, jump_m, alt, (q_best, r_best, *priors), vr, vr_var)
+    _average_rivals(ev, jump_m, alts, (q_best, r_best, *priors), vr, vr_var)
     out = []
     for s in range(n_sig):
         x = xs[out_pos, s]
@@ -449,8 +472,9 @@ def _event_jumps(meas, jump_m):
     return jump
 
 
-def _average_rivals(ev, jump_m, alt, model, vr, vr_var):
-    """Average a kept break with its rivals, weighted by their likelihoods (in place).
+def _average_rivals(ev, jump_m, alts, model, vr, vr_var):
+    """Average each kept break with its rivals, weighted by their likelihoods (in place,
+    in the order of ``alts``).
 
     Where the change lies (which step, one restart or a ramp) is itself uncertain
     when rival placements explain the data nearly as well: the estimate near the break
@@ -459,18 +483,29 @@ def _average_rivals(ev, jump_m, alt, model, vr, vr_var):
     the mixture's variance. Each placement is smoothed over :data:`BREAK_RIVAL_MARGIN`
     measurements either side of the break only; its difference from the kept
     placement over that stretch, smoothed the same way, is added to the whole run's
-    estimate.
+    estimate. The stretches of all breaks are smoothed side by side
+    (:func:`_smooth_stretches`).
     """
-    t, zz, vv, meas = ev
-    s, rows, kind, g_best, rivals = alt
-    if not rivals:
-        return
-    q, r_scale, prior_rate, prior_accel = model
-    pos_m = np.flatnonzero(meas)
+    pos_m = np.flatnonzero(ev[3])
+    stretches = [_rival_stretch(pos_m, jump_m, alt) for alt in alts if alt[4]]
+    for (lo, hi, s, _jm, gains), (mean_l, var_l) in zip(
+            stretches, _smooth_stretches(ev, stretches, model), strict=True):
+        w = np.exp(gains - gains.max())
+        w /= w.sum()
+        m_i = vr[lo:hi, s][:, None, :] + mean_l - mean_l[:, :1]  # (T, B, 2)
+        v_i = np.maximum(vr_var[lo:hi, s][:, None, :] + var_l - var_l[:, :1], 0.0)
+        mean = np.einsum("b,tbk->tk", w, m_i)
+        vr_var[lo:hi, s] = np.einsum("b,tbk->tk", w, v_i + (m_i - mean[:, None, :]) ** 2)
+        vr[lo:hi, s] = mean
+
+
+def _rival_stretch(pos_m, jump_m, alt):
+    """The events ``lo:hi`` around a kept break and its rivals, its signal, the breaks
+    per measurement there of each placement (kept first), (M_i, b), and their gains."""
+    s, rows, _kind, g_best, rivals = alt
     lo_m = max(min(min(r[0]) for r in rivals + [(rows,)]) - BREAK_RIVAL_MARGIN, 0)
     hi_m = min(max(max(r[0]) for r in rivals + [(rows,)]) + BREAK_RIVAL_MARGIN,
                pos_m.size - 1)
-    lo, hi = pos_m[lo_m], pos_m[hi_m] + 1
     local = jump_m[lo_m:hi_m + 1, s]
     cols = [local.copy()]
     for r_rows, r_kind, _g in rivals:
@@ -478,22 +513,50 @@ def _average_rivals(ev, jump_m, alt, model, vr, vr_var):
         c[np.asarray(rows) - lo_m] = 0
         c[np.asarray(r_rows) - lo_m] = r_kind
         cols.append(c)
-    jm = np.column_stack(cols)
-    b = jm.shape[1]
-    tl, ml = t[lo:hi], meas[lo:hi]
-    zl = np.repeat(zz[lo:hi, s:s + 1], b, axis=1)
-    vl = np.repeat(vv[lo:hi, s:s + 1], b, axis=1)
-    _, _, _, xl, Pl = _run(tl, zl, vl, ml, np.full(b, q[s]), np.full(b, r_scale[s]),
-                           prior_rate, prior_accel, smooth=True, jump=_event_jumps(ml, jm))
-    mean_l, var_l = _break_mixture(tl, ml, jm, xl, Pl, np.full(b, q[s]))
     gains = np.array([g_best] + [g for _r, _k, g in rivals])
-    w = np.exp(gains - gains.max())
-    w /= w.sum()
-    m_i = vr[lo:hi, s][:, None, :] + mean_l - mean_l[:, :1]  # (T, B, 2)
-    v_i = np.maximum(vr_var[lo:hi, s][:, None, :] + var_l - var_l[:, :1], 0.0)
-    mean = np.einsum("b,tbk->tk", w, m_i)
-    vr_var[lo:hi, s] = np.einsum("b,tbk->tk", w, v_i + (m_i - mean[:, None, :]) ** 2)
-    vr[lo:hi, s] = mean
+    return pos_m[lo_m], pos_m[hi_m] + 1, s, np.column_stack(cols), gains
+
+
+def _smooth_stretches(ev, stretches, model):
+    """Each stretch's placements smoothed over its events, value and rate with their
+    variances as :func:`_break_mixture` gives them, ``(T_i, b_i, 2)`` twice per stretch.
+
+    Stretches run side by side as the columns of one :func:`_run` with its own events
+    per column (at most :data:`RIVAL_BATCH_COLUMNS` columns a batch), a shorter
+    stretch held at its last time to the batch's length."""
+    t, zz, vv, meas = ev
+    q, r_scale, prior_rate, prior_accel = model
+    out = []
+    batch: list = []
+    for k, st in enumerate(stretches):
+        batch.append(st)
+        wide = sum(b[3].shape[1] for b in batch)
+        nxt = stretches[k + 1][3].shape[1] if k + 1 < len(stretches) else None
+        if nxt is not None and wide + nxt <= RIVAL_BATCH_COLUMNS:
+            continue
+        n_ev = max(hi - lo for lo, hi, *_ in batch)
+        tt, zc, vc = np.empty((n_ev, wide)), np.zeros((n_ev, wide)), np.ones((n_ev, wide))
+        mc, jc = np.zeros((n_ev, wide), bool), np.zeros((n_ev, wide), np.int8)
+        qc, rc = np.empty(wide), np.empty(wide)
+        c0 = 0
+        for lo, hi, s, jm, _g in batch:
+            n, c1 = hi - lo, c0 + jm.shape[1]
+            tt[:n, c0:c1], tt[n:, c0:c1] = t[lo:hi, None], t[hi - 1]
+            zc[:n, c0:c1], vc[:n, c0:c1] = zz[lo:hi, s, None], vv[lo:hi, s, None]
+            mc[:n, c0:c1] = meas[lo:hi, None]
+            jc[:n, c0:c1] = _event_jumps(meas[lo:hi], jm)
+            qc[c0:c1], rc[c0:c1] = q[s], r_scale[s]
+            c0 = c1
+        _, _, _, xl, Pl = _run(tt, zc, vc, mc, qc, rc, prior_rate, prior_accel,
+                               smooth=True, jump=jc)
+        c0 = 0
+        for lo, hi, _s, jm, _g in batch:
+            n, c1 = hi - lo, c0 + jm.shape[1]
+            out.append(_break_mixture(t[lo:hi], meas[lo:hi], jm, xl[:n, c0:c1],
+                                      Pl[:n, c0:c1], qc[c0:c1]))
+            c0 = c1
+        batch = []
+    return out
 
 
 def _break_mixture(t, meas, jump_m, xs, Ps, q):
