@@ -201,3 +201,50 @@ def test_drive_off_ramp_followed_without_inflated_sigma():
         sig_max = max(sig_max, float(np.max(s.sigma_value[near])))
     assert np.mean(np.array(ratios) <= 2.0) >= 0.9
     assert sig_max < 10 * 3e-4
+
+
+def test_rival_stretches_side_by_side_equal_one_at_a_time():
+    """The stretches around kept breaks and their rivals, smoothed side by side as the
+    columns of one run (shorter ones held at their last time), give what each stretch
+    gives smoothed alone (one RTS pass over its own events, Rauch, Tung & Striebel
+    1965) to rounding. Series: repeated stalls and hits (as above) on three signals of
+    different scales (six stretches with rivals, of different lengths)."""
+    from unittest import mock
+
+    from vidodo.tracking import smooth
+
+    rng = np.random.default_rng(5)  # seed fixed for reproducibility
+    parts, t0 = [], 0.0
+    for v, a in ((0.3, 15.0), (1.5, 150.0), (0.8, 150.0), (1.5, 15.0)):
+        t, x, _ = _stop_track(v, a, rng)
+        parts.append((t + t0, x + (parts[-1][1][-1] if parts else 0.0)))
+        t0 += 4.0
+    t = np.concatenate([p[0] for p in parts])
+    x = np.concatenate([p[1] for p in parts])
+    z = np.column_stack([x, 0.6 * x, 1.3 * x]) + rng.normal(0.0, 1e-3, (t.size, 3))
+    sig = np.full(z.shape, 1e-3)
+    t_out = t - 0.004  # output times between the measurements
+    calls = []
+    side_by_side = smooth._smooth_stretches
+
+    def spy(ev, stretches, model):
+        calls.append((ev, stretches, model))
+        return side_by_side(ev, stretches, model)
+
+    with mock.patch.object(smooth, "_smooth_stretches", spy):
+        smooth.rts_smooth_signals(t, z, sig, t_out)
+    ev, stretches, model = calls[-1]
+    assert len(stretches) >= 4 and len({hi - lo for lo, hi, *_ in stretches}) > 1
+    (tt, zz, vv, meas), (q, r_scale, prior_rate, prior_accel) = ev, model
+    for (lo, hi, s, jm, _g), (mean, var) in zip(stretches, side_by_side(ev, stretches, model),
+                                                  strict=True):
+        b, ml = jm.shape[1], meas[lo:hi]
+        _, _, _, xl, Pl = smooth._run(
+            tt[lo:hi], np.repeat(zz[lo:hi, s:s + 1], b, axis=1),
+            np.repeat(vv[lo:hi, s:s + 1], b, axis=1), ml, np.full(b, q[s]),
+            np.full(b, r_scale[s]), prior_rate, prior_accel, smooth=True,
+            jump=smooth._event_jumps(ml, jm))
+        ref_mean, ref_var = smooth._break_mixture(tt[lo:hi], ml, jm, xl, Pl, np.full(b, q[s]))
+        np.testing.assert_allclose(mean[..., 0], ref_mean[..., 0], rtol=0, atol=1e-9)
+        np.testing.assert_allclose(mean[..., 1], ref_mean[..., 1], rtol=0, atol=1e-8)
+        np.testing.assert_allclose(var, ref_var, rtol=1e-9, atol=1e-18)
