@@ -147,6 +147,17 @@ def test_smooth_motion_gets_no_break():
     np.testing.assert_allclose(s.value, held.value, atol=1e-12)
 
 
+def _stops_series(rng):
+    """Times and positions of four stops after one another: stalls and hits at 15 and
+    150 m/s^2 from 0.3-1.5 m/s (:func:`_stop_track`, demo values), 4 s apart."""
+    parts, t0 = [], 0.0
+    for v, a in ((0.3, 15.0), (1.5, 150.0), (0.8, 150.0), (1.5, 15.0)):
+        t, x, _ = _stop_track(v, a, rng)
+        parts.append((t + t0, x + (parts[-1][1][-1] if parts else 0.0)))
+        t0 += 4.0
+    return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts])
+
+
 def test_windowed_break_search_equals_whole_run_search():
     """Trial breaks evaluated over a window until they rejoin the baseline filter place
     the same breaks, and give the same track to rounding, as trials filtered over the
@@ -157,13 +168,8 @@ def test_windowed_break_search_equals_whole_run_search():
     from vidodo.tracking import smooth
 
     rng = np.random.default_rng(5)  # seed fixed for reproducibility
-    parts, t0 = [], 0.0
-    for v, a in ((0.3, 15.0), (1.5, 150.0), (0.8, 150.0), (1.5, 15.0)):
-        t, x, _ = _stop_track(v, a, rng)
-        parts.append((t + t0, x + (parts[-1][1][-1] if parts else 0.0)))
-        t0 += 4.0
-    t = np.concatenate([p[0] for p in parts])
-    z = np.column_stack([np.concatenate([p[1] for p in parts]), 0.5 * np.sin(0.8 * t)])
+    t, x = _stops_series(rng)
+    z = np.column_stack([x, 0.5 * np.sin(0.8 * t)])
     sig = np.full(z.shape, 1e-3)
     z = z + rng.normal(0.0, 1e-3, z.shape)
     windowed = smooth.rts_smooth_signals(t, z, sig, t)
@@ -214,13 +220,7 @@ def test_rival_stretches_side_by_side_equal_one_at_a_time():
     from vidodo.tracking import smooth
 
     rng = np.random.default_rng(5)  # seed fixed for reproducibility
-    parts, t0 = [], 0.0
-    for v, a in ((0.3, 15.0), (1.5, 150.0), (0.8, 150.0), (1.5, 15.0)):
-        t, x, _ = _stop_track(v, a, rng)
-        parts.append((t + t0, x + (parts[-1][1][-1] if parts else 0.0)))
-        t0 += 4.0
-    t = np.concatenate([p[0] for p in parts])
-    x = np.concatenate([p[1] for p in parts])
+    t, x = _stops_series(rng)
     z = np.column_stack([x, 0.6 * x, 1.3 * x]) + rng.normal(0.0, 1e-3, (t.size, 3))
     sig = np.full(z.shape, 1e-3)
     t_out = t - 0.004  # output times between the measurements
