@@ -41,8 +41,8 @@ from ..profiles import FieldProfile
 from .camera_fit import FitOptions, fit_camera
 from .frame import FrameRegistration
 from .grid import draw_registration
+from .grid.directions import FOCAL_RANGE
 from .grid.evidence import edge_rates, edge_samples, row_rates, search_half_width_px, tiles_end
-from .grid.lattice import FOCAL_RANGE
 
 __all__ = ["CheckLimits", "CheckReport", "ReferenceFacts", "check_reference", "check_track",
            "place_track", "refuse", "seam_evidence"]
@@ -67,7 +67,7 @@ class CheckLimits:
     """Camera height above the floor a filming set-up has [m]."""
     focal_range: tuple[float, float] = FOCAL_RANGE
     """Estimated focal length over the larger image side (default
-    :data:`vidodo.registration.grid.lattice.FOCAL_RANGE`, the seam search's own)."""
+    :data:`vidodo.registration.grid.directions.FOCAL_RANGE`, the seam search's own)."""
     camera_height_m: float | None = None
     """The camera's approximate height, if the user gave it [m]."""
     camera_height_tolerance: float = 0.25

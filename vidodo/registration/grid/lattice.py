@@ -12,8 +12,9 @@ import numpy as np
 from ...errors import CalibrationError
 from ...profiles import FieldProfile
 from .cover import MIN_LINE_PX, family_cover, family_rho, pixel_grid
+from .directions import MAX_PAIRS, candidate_pairs
 from .periodic import family_period, lattice_lines, line_rho, tiling_continues, window_starts
-from .segments import find_segments, find_vp, same_direction
+from .segments import find_segments
 
 __all__ = ["CORNER_NAMES", "TILING_CONTINUES", "initial_lattice", "orient",
            "homography_from_lattice", "distort"]
@@ -146,6 +147,9 @@ class _Families:
     line_angle: np.ndarray
     """Local line direction [rad], (H, W)."""
     n_segments: int
+    to_pinhole: np.ndarray = None
+    """Rectified points -> homogeneous undistorted pixels (3 x 3), the third coordinate
+    positive for floor points in front of the camera."""
 
 
 def _families(grey, camera, ignore, rng, colour=None) -> _Families:
@@ -163,136 +167,23 @@ def _families(grey, camera, ignore, rng, colour=None) -> _Families:
     scale = 2.0 / math.hypot(w, h)
     centre = np.array([w / 2.0, h / 2.0])
     cseg = np.column_stack([(seg[:, :2] - centre) * scale, (seg[:, 2:] - centre) * scale])
-    tol = math.radians(1.5)
-    vps = _directions(cseg, rng, tol)
-    if not vps:
-        raise CalibrationError("grid: no family of parallel tile seams found")
-    if len(vps) < 2:
-        raise CalibrationError("grid: only one direction of tile seams found; film the "
-                               "floor at an angle that shows both")
     ctx = dict(cseg=cseg, scale=scale, centre=centre, camera=camera, evidence=evidence,
                line_angle=line_angle, shape=(h, w),
                grid=pixel_grid((h, w), camera, centre, scale, ignore))
     # The two strongest directions need not be the tiles' (wall tops, tape, print,
-    # teeth): the pairs of directions are tried strongest first, only those whose two
-    # directions can be perpendicular on the floor (:func:`_perpendicular_deviation`),
-    # and the first pair whose both families show a periodic lattice wins.
-    pairs = [(i, j) for i in range(len(vps)) for j in range(i + 1, len(vps))]
-    pairs.sort(key=lambda ij: -min(vps[ij[0]][2], vps[ij[1]][2]))
-    fits = [ij for ij in pairs
-            if _perpendicular_deviation(vps[ij[0]][0], vps[ij[1]][0], ctx) <= PERPENDICULAR_DEG
-            and _below_horizon(cseg, vps[ij[0]], vps[ij[1]]) >= BELOW_HORIZON_SHARE]
+    # teeth): of the pairs that can be the seams' (:func:`.directions.candidate_pairs`,
+    # most convincing first) the first whose both families show a periodic lattice wins.
+    fits, fallback = candidate_pairs(cseg, ctx, rng)
     best, score = None, -math.inf
-    for i, j in fits[:MAX_PAIRS]:
-        fams = _rectified(ctx, vps[i][:2], vps[j][:2])
+    for fam_a, fam_b in fits[:MAX_PAIRS]:
+        fams = _rectified(ctx, fam_a, fam_b)
         sc = _lattice_score(fams)
         if sc > score:
             best, score = fams, sc
         if sc > 0:
             break
     if best is None:  # no pair can be perpendicular: the strongest (the checks refuse)
-        best = _rectified(ctx, vps[0][:2], vps[1][:2])
-    return best
-
-
-#: Most seam directions (vanishing points) looked for in a frame.
-MAX_DIRECTIONS = 5
-#: Most pairs of directions whose lattice is evaluated.
-MAX_PAIRS = 4
-#: Largest deviation from perpendicular of a pair of seam directions on the floor [deg]:
-#: the first vanishing points are a degree or two off (registrations within 2 mm came
-#: from pairs 1-2 deg off perpendicular, ``benchmarks/registration_diagnosis.py``).
-PERPENDICULAR_DEG = 4.0
-#: Focal lengths a lens has, over the larger image side: 0.25 is a 127 deg wide lens
-#: across that side, 4 a 14 deg tele (phone and action cameras lie inside); also the
-#: self-check's default :attr:`vidodo.registration.selfcheck.CheckLimits.focal_range`.
-FOCAL_RANGE = (0.25, 4.0)
-
-
-#: Least share of both families' segment length on one side of the line through
-#: their vanishing points: the floor's horizon, which no floor seam crosses (a
-#: vertical direction, perpendicular to every floor direction too, gives a line
-#: through the floor instead).
-BELOW_HORIZON_SHARE = 0.95
-
-
-def _below_horizon(cseg, dir_a, dir_b) -> float:
-    """Share of the two families' segment length on the majority side of the line
-    through their vanishing points (``dir_a``, ``dir_b``: :func:`_directions` items)."""
-    horizon = np.cross(dir_a[0], dir_b[0])
-    inl = dir_a[1] | dir_b[1]
-    seg = cseg[inl]
-    if not len(seg) or np.linalg.norm(horizon[:2]) < 1e-12 * abs(horizon[2]):
-        return 1.0  # both at infinity: the horizon is the line at infinity
-    length = np.hypot(seg[:, 2] - seg[:, 0], seg[:, 3] - seg[:, 1])
-    side = np.sign(seg[:, :2] @ horizon[:2] + horizon[2]) + np.sign(
-        seg[:, 2:] @ horizon[:2] + horizon[2])
-    pos, neg = length[side > 0].sum(), length[side < 0].sum()
-    return float(max(pos, neg) / max(length.sum(), 1e-300))
-
-
-def _directions(cseg, rng, tol):
-    """Up to :data:`MAX_DIRECTIONS` distinct vanishing points, strongest first.
-
-    Returns
-    -------
-    list of (vp, inlier mask over ``cseg``, total inlier length)
-    """
-    length = np.hypot(cseg[:, 2] - cseg[:, 0], cseg[:, 3] - cseg[:, 1])
-    rest = np.ones(len(cseg), bool)
-    out = []
-    for _ in range(MAX_DIRECTIONS):
-        if rest.sum() < 4:
-            break
-        exclude = out[0][0] if out else None
-        vp, inl_r = find_vp(cseg[rest], np.zeros(2), rng, tol, exclude=exclude)
-        if vp is None or inl_r.sum() < 3:
-            break
-        inl = np.zeros(len(cseg), bool)
-        inl[np.nonzero(rest)[0][inl_r]] = True
-        rest &= ~inl
-        if any(same_direction(vp, o[0], np.zeros(2)) for o in out):
-            continue
-        out.append((vp, inl, float(length[inl].sum())))
-    return out
-
-
-def _perpendicular_deviation(vp_a, vp_b, ctx) -> float:
-    """How far from perpendicular the floor directions of two vanishing points must be
-    [deg], at best over the focal lengths a lens has.
-
-    Two vanishing points ``v1``, ``v2`` of perpendicular floor lines satisfy
-    ``v1^T K^-T K^-1 v2 = 0`` (the image of the absolute conic; Hartley & Zisserman,
-    *Multiple View Geometry*, 2nd ed., section 8.6). With the lens known, ``K`` is
-    fixed; without it the principal point is taken at the image centre with square
-    pixels and the focal length ranges over :data:`FOCAL_RANGE`.
-    """
-    scale, centre = ctx["scale"], ctx["centre"]
-    # Conditioned coordinates -> (undistorted) pixels.
-    to_px = np.array([[1 / scale, 0.0, centre[0]], [0.0, 1 / scale, centre[1]], [0, 0, 1.0]])
-    a, b = to_px @ np.asarray(vp_a, float), to_px @ np.asarray(vp_b, float)
-    camera = ctx["camera"]
-    if camera is not None:
-        kinv = np.linalg.inv(camera.matrix)
-        focal_kinvs = [kinv]
-    else:
-        h, w = ctx["shape"]
-        lo, hi = np.asarray(FOCAL_RANGE) * max(h, w)
-        # The focal length making them perpendicular (if any), else the range's ends:
-        # (pa . pb) + f^2 wa wb = 0 with pa, pb relative to the principal point.
-        pa = a[:2] - centre * a[2]
-        pb = b[:2] - centre * b[2]
-        f2 = -(pa @ pb) / (a[2] * b[2]) if abs(a[2] * b[2]) > 1e-300 else -1.0
-        focal = [lo, hi] + ([math.sqrt(f2)] if lo * lo <= f2 <= hi * hi else [])
-        focal_kinvs = []
-        for f in focal:
-            focal_kinvs.append(np.array([[1 / f, 0, -centre[0] / f],
-                                         [0, 1 / f, -centre[1] / f], [0, 0, 1.0]]))
-    best = 90.0
-    for kinv in focal_kinvs:
-        ra, rb = kinv @ a, kinv @ b
-        cos = abs(ra @ rb) / max(np.linalg.norm(ra) * np.linalg.norm(rb), 1e-300)
-        best = min(best, 90.0 - math.degrees(math.acos(min(cos, 1.0))))
+        best = _rectified(ctx, *fallback)
     return best
 
 
@@ -337,12 +228,15 @@ def _rectified(ctx, fam1, fam2) -> _Families:
             img = distort(img, camera.matrix, camera.dist_coeffs)
         return img
 
-    fams = _Families(fam, to_image, ctx["evidence"], ctx["line_angle"],
-                     int(in1.sum() + in2.sum()))
-    # The floor's side of the horizon: where the two families' segments lie.
+    # The floor's side of the horizon: where the two families' segments lie. A floor
+    # point's homogeneous image coordinate w = 1 / (horizon . point) has its sign.
     mids = (cseg[in1 | in2, :2] + cseg[in1 | in2, 2:]) / 2
     side = mids @ rect[2, :2] + rect[2, 2]
     floor_sign = 1.0 if np.sum(np.sign(side)) >= 0 else -1.0
+    pinhole = floor_sign * np.array([[1 / scale, 0.0, centre[0]], [0.0, 1 / scale, centre[1]],
+                                     [0.0, 0.0, 1.0]]) @ rect_inv
+    fams = _Families(fam, to_image, ctx["evidence"], ctx["line_angle"],
+                     int(in1.sum() + in2.sum()), pinhole)
     for f in fam:
         _family_cover(fams, f, ctx, rect, floor_sign)
     return fams
@@ -413,15 +307,62 @@ def _span_cover(fams: _Families, shape, f_a, teeth_a, f_b, teeth_b):
     return float(np.mean(vals))
 
 
+def edge_views(to_pinhole, corners_rect, n_samples=41):
+    """Where each field edge lies in the picture, from its points in front of the
+    camera, and the handedness of the window's index frame on the floor.
+
+    Parameters
+    ----------
+    to_pinhole : ndarray (3, 3)
+        Rectified floor -> homogeneous undistorted pixels, third coordinate positive in
+        front of the camera (:class:`_Families`).
+    corners_rect : ndarray (4, 2)
+        The field corners (0, 0), (nx, 0), (nx, ny), (0, ny) in the rectified floor.
+
+    Returns
+    -------
+    ndarray (5,)
+        Per edge (corner k to corner k + 1) the mean image row of its points in front
+        of the camera (pinhole projection; -inf when none is); last, +1 when the index
+        frame (i, j) is right-handed on the floor seen from above, else -1. A
+        homography keeps or reverses orientation with the sign of det(H) / w^3 (the
+        Jacobian determinant of a plane projective map), and a right-handed floor
+        frame seen from above comes out clockwise in the picture (rows run down), so
+        with w > 0 in front the index frame is right-handed when det(H) < 0. Corners
+        behind the camera have no meaningful image position, so the near edge (the
+        lowest in the picture) and its left end are told from these, not from them.
+    """
+    out = np.full(5, -np.inf)
+    t = np.linspace(0.0, 1.0, n_samples)[:, None]
+    for k in range(4):
+        a, b = corners_rect[k], corners_rect[(k + 1) % 4]
+        pts = a + t * (b - a)
+        hom = pts @ to_pinhole[:, :2].T + to_pinhole[:, 2]
+        front = hom[:, 2] > 1e-12 * np.max(np.abs(hom[:, 2]))
+        if front.any():
+            out[k] = float(np.mean(hom[front, 1] / hom[front, 2]))
+    e_i, e_j = corners_rect[1] - corners_rect[0], corners_rect[3] - corners_rect[0]
+    index_to_rect = e_i[0] * e_j[1] - e_i[1] * e_j[0]
+    out[4] = -np.sign(np.linalg.det(to_pinhole) * index_to_rect) or 1.0
+    return out
+
+
+def _field_corners(grid_rect):
+    """The four field corners (0, 0), (nx, 0), (nx, ny), (0, ny) of a window's corner
+    array (nx + 1, ny + 1, 2)."""
+    return np.array([grid_rect[0, 0], grid_rect[-1, 0], grid_rect[-1, -1], grid_rect[0, -1]])
+
+
 def _periodic_lattices(fams: _Families, field: FieldProfile, shape):
     """Candidate field windows from each family's spacing and phase (:mod:`.periodic`):
     also when only part of the field is in view.
 
     Returns
     -------
-    list of (ndarray (tiles_x+1, tiles_y+1, 2), list of str, ndarray bool)
-        Image positions of the window's corners, warnings, and which corners are on
-        lattice lines with seam evidence in view (the ones to fit to).
+    list of (ndarray (tiles_x+1, tiles_y+1, 2), list of str, ndarray bool, ndarray (4, 2))
+        Image positions of the window's corners, warnings, which corners are on
+        lattice lines with seam evidence in view (the ones to fit to), and where the
+        field edges lie in the picture (:func:`edge_views`).
     """
     lines = []
     for f in fams.fam:
@@ -448,6 +389,10 @@ def _periodic_lattices(fams: _Families, field: FieldProfile, shape):
                         img = fams.to_image(rect).reshape(len(ii), len(jj), 2)
                         vis = ((ii >= lx["k_lo"]) & (ii <= lx["k_hi"]))[:, None] & (
                             (jj >= ly["k_lo"]) & (jj <= ly["k_hi"]))[None, :]
+                        # Only corners in front of the camera (a point behind it
+                        # projects onto the picture too, mirrored through the centre).
+                        w_front = rect @ fams.to_pinhole[2, :2] + fams.to_pinhole[2, 2]
+                        vis &= w_front.reshape(len(ii), len(jj)) > 0
                         vis &= np.all(np.isfinite(img), axis=-1) & (img[..., 0] >= 0) & (
                             img[..., 0] <= w - 1) & (img[..., 1] >= 0) & (img[..., 1] <= h - 1)
                         warn = []
@@ -455,7 +400,9 @@ def _periodic_lattices(fams: _Families, field: FieldProfile, shape):
                                 or tiling_continues(ly, field.tiles_y)):
                             warn.append(TILING_CONTINUES)
                         if vis.sum() >= 4:
-                            out.append((img, warn, vis))
+                            grid_rect = rect.reshape(len(ii), len(jj), 2)
+                            out.append((img, warn, vis, edge_views(
+                                fams.to_pinhole, _field_corners(grid_rect))))
     return out
 
 
@@ -465,9 +412,11 @@ def initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidates
 
     Returns
     -------
-    (list of (ndarray (tiles_x+1, tiles_y+1, 2), list of str, ndarray bool or None), int)
-        Candidates with their warnings and the corners to fit to (None: all), and the
-        number of seam segments. The periodic lattice's windows come first, then the
+    (list of (ndarray (tiles_x+1, tiles_y+1, 2), list of str, ndarray bool or None,
+    ndarray (4, 2)), int)
+        Candidates with their warnings, the corners to fit to (None: all) and where the
+        field edges lie in the picture (:func:`edge_views`), and the number of seam
+        segments. The periodic lattice's windows come first, then the
         windows of whole-field combs. ``colour``: the frame on its main colour axis
         (:func:`.segments.colour_contrast`), whose edges count as seam evidence too.
     """
@@ -479,9 +428,9 @@ def initial_lattice(grey, field: FieldProfile, camera, ignore, rng, n_candidates
         if not cands:
             raise
         combs = []
-    for lat, warn in combs:
+    for lat, warn, edges in combs:
         if not any(_same_lattice(lat, other[0]) for other in cands):
-            cands.append((lat, warn, None))
+            cands.append((lat, warn, None, edges))
     return cands, fams.n_segments
 
 
@@ -523,7 +472,7 @@ def _comb_lattices(fams: _Families, field: FieldProfile, shape, n_candidates):
     lattices, errors = [], []
     for _score, assign, comb_x, comb_y in keep:
         try:
-            lat = _lattice_corners(fam, assign, comb_x, comb_y, field, fams.to_image)
+            lat = _lattice_corners(fam, assign, comb_x, comb_y, field, fams)
         except CalibrationError as exc:
             errors.append(exc)
             continue
@@ -543,8 +492,9 @@ def _same_lattice(a, b, tol_px=3.0):
     return bool(d) and min(d) < tol_px
 
 
-def _lattice_corners(fam, assign, comb_x, comb_y, field, to_image):
-    """Image positions of the lattice corners of one field window, and warnings."""
+def _lattice_corners(fam, assign, comb_x, comb_y, field, fams: _Families):
+    """Image positions of the lattice corners of one field window, warnings, and where
+    the field edges lie in the picture (:func:`edge_views`)."""
     warnings = []
     out = []
     for f_i, (period, start, sc), n in ((assign[0], comb_x, field.tiles_x),
@@ -572,26 +522,39 @@ def _lattice_corners(fam, assign, comb_x, comb_y, field, to_image):
     for i, px_ in enumerate(out[0]):
         for j, py_ in enumerate(out[1]):
             corners[i, j] = np.linalg.solve(a_mat, [px_, py_]) + fx["ref"]
-    img = to_image(corners.reshape(-1, 2))
-    return img.reshape(field.tiles_x + 1, field.tiles_y + 1, 2), warnings
+    img = fams.to_image(corners.reshape(-1, 2))
+    return (img.reshape(field.tiles_x + 1, field.tiles_y + 1, 2), warnings,
+            edge_views(fams.to_pinhole, _field_corners(corners)))
 
 
-def orient(lat_img, field: FieldProfile, origin: str):
+def orient(lat_img, field: FieldProfile, origin: str, edge_view=None):
     """Floor coordinates of the lattice corners for a given origin corner.
 
     ``lat_img[i, j]`` is the image position of the corner between x-family line i and
     y-family line j of the window. The corner named ``origin`` (as seen from the
     camera: the near edge is the lowest in the image) becomes (0, 0); x and y follow
-    the field edges so that the frame is right-handed with z up.
+    the field edges so that the frame is right-handed with z up. ``edge_view``
+    (:func:`edge_views`): where the edges lie in the picture, from their points in
+    front of the camera, so that a field whose near corners lie out of the picture (or
+    behind the camera) is oriented too; without it, from the corners' image positions.
     """
     nx, ny = field.tiles_x, field.tiles_y
     idx = {(0, 0): lat_img[0, 0], (nx, 0): lat_img[nx, 0], (nx, ny): lat_img[nx, ny],
            (0, ny): lat_img[0, ny]}
     order = [(0, 0), (nx, 0), (nx, ny), (0, ny)]  # around the field
     edges = [(order[k], order[(k + 1) % 4]) for k in range(4)]
-    near = max(edges, key=lambda e: idx[e[0]][1] + idx[e[1]][1])
-    a, b = near
-    nl, nr = (a, b) if idx[a][0] <= idx[b][0] else (b, a)
+    if edge_view is not None and np.isfinite(np.max(edge_view[:4])):
+        k = int(np.argmax(edge_view[:4]))
+        a, b = edges[k]
+        # near-left: the end from which x (along the near edge) and y (into the field)
+        # make a right-handed floor frame.
+        f = order[(k + 3) % 4]
+        turn = (b[0] - a[0]) * (f[1] - a[1]) - (b[1] - a[1]) * (f[0] - a[0])
+        nl, nr = (a, b) if turn * edge_view[4] > 0 else (b, a)
+    else:
+        near = max(edges, key=lambda e: idx[e[0]][1] + idx[e[1]][1])
+        a, b = near
+        nl, nr = (a, b) if idx[a][0] <= idx[b][0] else (b, a)
     # far-left: the neighbour of near-left that is not near-right; far-right likewise.
     def other_neighbour(c, not_this):
         for e in edges:

@@ -46,9 +46,11 @@ def _fit_lattice(grey, field, lattice, camera, ignore, marker_px, marker_fl):
     """Orient one candidate lattice, fit the camera to its corners, refine on the seams.
 
     ``lattice``: (corner pixels (tiles_x+1, tiles_y+1, 2), warnings, corners to fit to
-    (bool, same shape but the last axis) or None for all in or near the frame).
+    (bool, same shape but the last axis) or None for all in or near the frame, and
+    optionally where the field edges lie in the picture, :func:`.lattice.edge_views`).
     """
     lat_img, warnings, use = lattice[0], list(lattice[1]), lattice[2]
+    edge_view = lattice[3] if len(lattice) > 3 else None
 
     h, w = grey.shape
     candidates = [field.origin_hint]
@@ -59,7 +61,7 @@ def _fit_lattice(grey, field, lattice, camera, ignore, marker_px, marker_fl):
     best = None
     for origin in candidates:
         try:
-            floor = orient(lat_img, field, origin)
+            floor = orient(lat_img, field, origin, edge_view)
         except CalibrationError:
             if len(candidates) == 1:
                 raise
@@ -132,7 +134,8 @@ def _initial_lattice_scaled(grey, field, camera, ignore, rng, colour=None):
     cands, n_seg = initial_lattice(small, field, _scaled_camera(camera, sx, sy), ig_small,
                                     rng, colour=colour)
     scale = np.array([sx, sy])
-    return [((lat + 0.5) / scale - 0.5, warn, use) for lat, warn, use in cands], n_seg
+    # Edge rows and column changes scale with the picture: their order and signs hold.
+    return [((c[0] + 0.5) / scale - 0.5, *c[1:]) for c in cands], n_seg
 
 
 def find_grid(grey, field: FieldProfile, *, camera: CameraProfile | None = None, ignore=None,

@@ -8,7 +8,7 @@ import cv2
 import numpy as np
 
 __all__ = ["ridge_strength", "colour_contrast", "find_segments", "hom_lines", "find_vp",
-           "same_direction"]
+           "refine_vp", "same_direction", "vp_consistent"]
 
 
 def ridge_strength(grey, sigma_px=1.5):
@@ -122,21 +122,6 @@ def hom_lines(seg):
     return ln / np.linalg.norm(ln[:, :2], axis=1, keepdims=True)
 
 
-def _vp_consistent(seg, vp, tol_rad):
-    """Angle between each segment and the direction from its midpoint to ``vp``."""
-    mid = (seg[:, :2] + seg[:, 2:]) / 2
-    d = seg[:, 2:] - seg[:, :2]
-    if abs(vp[2]) > 1e-12:
-        to = vp[:2] / vp[2] - mid
-    else:
-        to = np.broadcast_to(vp[:2], mid.shape)
-    cross = d[:, 0] * to[:, 1] - d[:, 1] * to[:, 0]
-    dot = d[:, 0] * to[:, 0] + d[:, 1] * to[:, 1]
-    ang = np.abs(np.arctan2(cross, dot))
-    ang = np.minimum(ang, math.pi - ang)
-    return ang < tol_rad
-
-
 def _fit_vp(lines, weights):
     """Least-squares vanishing point of homogeneous lines (smallest eigenvector)."""
     m = (lines * weights[:, None]).T @ lines
@@ -144,8 +129,22 @@ def _fit_vp(lines, weights):
     return v[:, 0]
 
 
-def _vp_consistent_many(seg, vps, tol_rad):
-    """:func:`_vp_consistent` for many vanishing points at once: (M, N) bool."""
+def _segment_tolerance(seg, tol_rad, end_tol):
+    """Per segment, the largest angle [rad] between it and the direction from its
+    midpoint to a vanishing point that it is consistent with: ``tol_rad``, but for long
+    segments no more than puts their end points ``end_tol`` (conditioned units) off
+    that direction (a long straight seam fixes its direction better than a short one;
+    the usual end-point residual of vanishing-point estimation, Hartley & Zisserman,
+    *Multiple View Geometry*, 2nd ed., section 8.6.1)."""
+    half = np.hypot(seg[:, 2] - seg[:, 0], seg[:, 3] - seg[:, 1]) / 2
+    if end_tol is None:
+        return np.full(len(seg), tol_rad)
+    return np.minimum(tol_rad, np.arctan2(end_tol, np.maximum(half, 1e-12)))
+
+
+def vp_consistent(seg, vps, tol_rad, end_tol=None):
+    """Whether each segment points at each vanishing point: (M, N) bool over ``vps``
+    (M, 3) and ``seg`` (N, 4); see :func:`_segment_tolerance`."""
     mid = (seg[:, :2] + seg[:, 2:]) / 2
     d = seg[:, 2:] - seg[:, :2]
     finite = np.abs(vps[:, 2]) > 1e-12
@@ -157,14 +156,15 @@ def _vp_consistent_many(seg, vps, tol_rad):
     dot = d[None, :, 0] * to_x + d[None, :, 1] * to_y
     ang = np.abs(np.arctan2(cross, dot))
     ang = np.minimum(ang, math.pi - ang)
-    return ang < tol_rad
+    return ang < _segment_tolerance(seg, tol_rad, end_tol)[None, :]
 
 
-def find_vp(seg, cond, rng, tol_rad, iters=600, exclude=None):
+def find_vp(seg, cond, rng, tol_rad, iters=600, exclude=None, end_tol=None):
     """RANSAC vanishing point over segments (conditioned coordinates).
 
     All ``iters`` hypotheses (two length-weighted segments each) are drawn and scored at
-    once; the one whose consistent segments are longest in total wins.
+    once; the one whose consistent segments (:func:`_segment_tolerance`) are longest in
+    total wins; it is then refined (:func:`refine_vp`).
     """
     n = len(seg)
     if n < 4:
@@ -185,16 +185,37 @@ def find_vp(seg, cond, rng, tol_rad, iters=600, exclude=None):
     vps = vps[good]
     if len(vps) == 0:
         return None, np.zeros(n, bool)
-    score = np.concatenate([_vp_consistent_many(seg, vps[c:c + 100], tol_rad) @ length
-                            for c in range(0, len(vps), 100)])
-    best = vps[int(np.argmax(score))]
-    inl = _vp_consistent(seg, best, tol_rad)
+    score = np.concatenate([vp_consistent(seg, vps[c:c + 100], tol_rad, end_tol)
+                            @ length for c in range(0, len(vps), 100)])
+    k = int(np.argmax(score))
+    return refine_vp(seg, vps[k], tol_rad, end_tol)
+
+
+def refine_vp(seg, vp, tol_rad, end_tol=None):
+    """A vanishing point refined by least squares over its consistent segments (length
+    weighted), each step kept only while their total length does not drop (a
+    refinement pulled between two nearby families would drift off both).
+
+    Returns
+    -------
+    (ndarray (3,), ndarray bool (N,))
+        The point and which segments of ``seg`` are consistent with it.
+    """
+    length = np.hypot(seg[:, 2] - seg[:, 0], seg[:, 3] - seg[:, 1])
+    lines = hom_lines(seg)
+    best = np.asarray(vp, float)
+    inl = vp_consistent(seg, best[None, :], tol_rad, end_tol)[0]
+    best_score = float(length[inl].sum())
     for _ in range(3):
         if inl.sum() < 2:
             break
-        vp = _fit_vp(lines[inl], length[inl])
-        new = _vp_consistent(seg, vp, tol_rad)
-        best, inl = vp, new
+        if length[inl].sum() <= 0:
+            break
+        cand = _fit_vp(lines[inl], length[inl])
+        new = vp_consistent(seg, cand[None, :], tol_rad, end_tol)[0]
+        if float(length[new].sum()) < best_score:
+            break
+        best, inl, best_score = cand, new, float(length[new].sum())
     return best, inl
 
 
