@@ -5,7 +5,11 @@ Steps (no markers, no clicks):
 1. Line segments (LSD, von Gioi et al., IEEE PAMI 32(4), 2010; also on the frame's
    main colour axis, so that tiles of equal brightness but different colour show their
    edges) are grouped by vanishing points, each found by RANSAC over segment pairs and
-   refined by least squares (up to five directions, strongest first). Pairs of them
+   refined by least squares while its support grows (up to five directions, strongest
+   first; a long segment must point at it within two pixels at its ends). For the
+   three strongest, the perpendicular floor direction is searched on its polar line
+   with respect to the image of the absolute conic (one segment per hypothesis, so a
+   weak seam family beside strong tape or print is found; :mod:`.directions`). Pairs
    are tried strongest first, only those that can be perpendicular on the floor (the
    image of the absolute conic with the lens, or some focal length a lens has without
    it) and have all their segments on one side of the line through both (the floor's
@@ -27,7 +31,8 @@ Steps (no markers, no clicks):
    field's line count, most seam evidence) are candidates too. The corner named by
    ``origin_hint`` (as seen from the camera) or the one that puts a visible floor
    fiducial where the profile says becomes the origin, with x and y right-handed
-   (z up).
+   (z up); the near edge and its left end are told from the edges' points in front of
+   the camera, so the near corners may be out of the picture or behind the camera.
 4. The lattice corners give a first camera fit; :func:`refine_fit` then samples the
    image across every seam, locates the seam to a fraction of a pixel, and fits pose,
    focal length and radial distortion to all seam samples (a seam must be straight on
