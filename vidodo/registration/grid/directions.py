@@ -229,12 +229,14 @@ def _direction_seen(vp):
 def candidate_pairs(cseg, ctx, rng):
     """Pairs of directions that can be the two seam families, most convincing first.
 
-    The vanishing points of the frame's straight edges (:func:`_directions`) and, for
-    the :data:`N_PARTNERS` strongest, their perpendicular partners
-    (:func:`perpendicular_partner`); kept are the pairs whose floor directions can be
+    The pairs among the vanishing points of the frame's straight edges
+    (:func:`_directions`; at most :data:`MAX_PAIRS`), then, for the :data:`N_PARTNERS`
+    strongest, the pairs with their perpendicular partners
+    (:func:`perpendicular_partner`): kept are the pairs whose floor directions can be
     perpendicular (:func:`_perpendicular_deviation`) and whose segments lie on one side
-    of the line through both (:func:`_below_horizon`), ordered by the weaker family's
-    total segment length.
+    of the line through both (:func:`_below_horizon`), each group ordered by the
+    weaker family's total segment length. The partners come last: they are tried only
+    when no pair of strong directions shows a lattice on both families.
 
     Returns
     -------
@@ -246,24 +248,30 @@ def candidate_pairs(cseg, ctx, rng):
     CalibrationError
         Fewer than two directions.
     """
-    vps = _directions(cseg, rng, ANGLE_TOL_RAD, END_TOL_PX * ctx["scale"])
+    vps = _directions(cseg, rng, ANGLE_TOL_RAD)
     if not vps:
         raise CalibrationError("grid: no family of parallel tile seams found")
     pairs = [(vps[i], vps[j]) for i in range(len(vps)) for j in range(i + 1, len(vps))]
+    pairs.sort(key=lambda ab: -min(ab[0][2], ab[1][2]))
+    partners = []
     for fam in vps[:N_PARTNERS]:
         partner = perpendicular_partner(cseg, fam, ctx, rng)
         if partner is not None:
-            pairs.append((fam, partner))
-    if not pairs:
+            partners.append((fam, partner))
+    partners.sort(key=lambda ab: -min(ab[0][2], ab[1][2]))
+    if not pairs and not partners:
         raise CalibrationError("grid: only one direction of tile seams found; film the "
                                "floor at an angle that shows both")
-    pairs.sort(key=lambda ab: -min(ab[0][2], ab[1][2]))
     fits = []
-    for a, b in pairs:
-        if (_perpendicular_deviation(a[0], b[0], ctx) <= PERPENDICULAR_DEG
-                and _below_horizon(cseg, a, b) >= BELOW_HORIZON_SHARE
-                and not any(_same_pair((a, b), o) for o in fits)):
-            fits.append((a, b))
-    fallback = ((vps[0][:2], vps[1][:2]) if len(vps) >= 2
-                else (pairs[0][0][:2], pairs[0][1][:2]))
+    for group, most in ((pairs, MAX_PAIRS), (partners, N_PARTNERS)):
+        kept = 0
+        for a, b in group:
+            if kept < most and (
+                    _perpendicular_deviation(a[0], b[0], ctx) <= PERPENDICULAR_DEG
+                    and _below_horizon(cseg, a, b) >= BELOW_HORIZON_SHARE
+                    and not any(_same_pair((a, b), o) for o in fits)):
+                fits.append((a, b))
+                kept += 1
+    first = pairs[0] if pairs else partners[0]
+    fallback = (first[0][:2], first[1][:2])
     return [(a[:2], b[:2]) for a, b in fits], fallback

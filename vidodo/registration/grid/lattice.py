@@ -12,7 +12,7 @@ import numpy as np
 from ...errors import CalibrationError
 from ...profiles import FieldProfile
 from .cover import MIN_LINE_PX, family_cover, family_rho, pixel_grid
-from .directions import MAX_PAIRS, candidate_pairs
+from .directions import candidate_pairs
 from .periodic import family_period, lattice_lines, line_rho, tiling_continues, window_starts
 from .segments import find_segments
 
@@ -175,7 +175,7 @@ def _families(grey, camera, ignore, rng, colour=None) -> _Families:
     # most convincing first) the first whose both families show a periodic lattice wins.
     fits, fallback = candidate_pairs(cseg, ctx, rng)
     best, score = None, -math.inf
-    for fam_a, fam_b in fits[:MAX_PAIRS]:
+    for fam_a, fam_b in fits:
         fams = _rectified(ctx, fam_a, fam_b)
         sc = _lattice_score(fams)
         if sc > score:

@@ -188,13 +188,13 @@ def find_vp(seg, cond, rng, tol_rad, iters=600, exclude=None, end_tol=None):
     score = np.concatenate([vp_consistent(seg, vps[c:c + 100], tol_rad, end_tol)
                             @ length for c in range(0, len(vps), 100)])
     k = int(np.argmax(score))
-    return refine_vp(seg, vps[k], tol_rad, end_tol)
+    return refine_vp(seg, vps[k], tol_rad, end_tol, guard=False)
 
 
-def refine_vp(seg, vp, tol_rad, end_tol=None):
+def refine_vp(seg, vp, tol_rad, end_tol=None, guard=True):
     """A vanishing point refined by least squares over its consistent segments (length
-    weighted), each step kept only while their total length does not drop (a
-    refinement pulled between two nearby families would drift off both).
+    weighted); with ``guard``, each step kept only while their total length does not
+    drop (a refinement pulled between two nearby families would drift off both).
 
     Returns
     -------
@@ -213,7 +213,7 @@ def refine_vp(seg, vp, tol_rad, end_tol=None):
             break
         cand = _fit_vp(lines[inl], length[inl])
         new = vp_consistent(seg, cand[None, :], tol_rad, end_tol)[0]
-        if float(length[new].sum()) < best_score:
+        if guard and float(length[new].sum()) < best_score:
             break
         best, inl, best_score = cand, new, float(length[new].sum())
     return best, inl
