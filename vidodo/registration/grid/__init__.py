@@ -5,12 +5,13 @@ Steps (no markers, no clicks):
 1. Line segments (LSD, von Gioi et al., IEEE PAMI 32(4), 2010; also on the frame's
    main colour axis, so that tiles of equal brightness but different colour show their
    edges) are grouped by vanishing points, each found by RANSAC over segment pairs and
-   refined by least squares while its support grows (up to five directions, strongest
-   first; a long segment must point at it within two pixels at its ends). For the
-   three strongest, the perpendicular floor direction is searched on its polar line
-   with respect to the image of the absolute conic (one segment per hypothesis, so a
-   weak seam family beside strong tape or print is found; :mod:`.directions`). Pairs
-   are tried strongest first, only those that can be perpendicular on the floor (the
+   refined by least squares (up to five directions, strongest first). Pairs of them
+   are tried strongest first, then, for the three strongest, the pair with the
+   perpendicular floor direction searched on its polar line with respect to the image
+   of the absolute conic (one segment per hypothesis, a long segment held to two
+   pixels at its ends, refined only while its support grows: a weak seam family beside
+   strong tape or print is found; :mod:`.directions`); only pairs that can be
+   perpendicular on the floor (the
    image of the absolute conic with the lens, or some focal length a lens has without
    it) and have all their segments on one side of the line through both (the floor's
    horizon; a vertical direction is perpendicular to the floor's too); the first pair
