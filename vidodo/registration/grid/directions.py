@@ -128,8 +128,6 @@ def _perpendicular_deviation(vp_a, vp_b, ctx) -> float:
     return best
 
 
-#: Most a single segment weighs in a direction's support, as a share of the image
-#: diagonal: a seam family is many lines across the floor, a wall top or tape line one.
 #: Largest angle between a segment and the direction to its vanishing point [rad]
 #: (short segments; long ones are held to :data:`END_TOL_PX`).
 ANGLE_TOL_RAD = math.radians(1.5)
