@@ -19,7 +19,7 @@ import cv2
 import numpy as np
 
 __all__ = ["HomographyMatch", "MatchSettings", "match_homography", "refine_homography",
-           "FloorPatchTracker", "to_grey"]
+           "FloorPatchTracker", "to_grey", "view_unmoved"]
 
 
 def to_grey(frame):
@@ -157,39 +157,39 @@ class FloorPatchTracker:
         self.ref_px = _bucketed_corners(ref_grey, usable_u8, max_points, md, cells)
         self.win = (15, 15)
         self.levels = 2
+        # Only this box of the reference holds corners (with room for the pyramid's
+        # windows); frames are warped into it alone. Its corner on multiples of
+        # 2^levels keeps the pyramid's pixel grid that of the whole frame.
+        self._roi = _corner_box(self.ref_px, ref_grey.shape, 2 ** self.levels,
+                                2 ** self.levels * (self.win[0] + 4))
+        x0, y0, x1, y1 = self._roi
+        self._ref_roi = np.ascontiguousarray(ref_grey[y0:y1, x0:x1])
 
     @property
     def n_points(self) -> int:
         """Corners held."""
         return len(self.ref_px)
 
-    def is_unmoved(self, grey, previous_px, *, tolerance_px=0.1, n_check=120):
-        """Cheap test that the view has not moved since ``previous_px`` were found.
+    def _track_both_ways(self, warped, p0, *, quick):
+        """Lucas-Kanade from the reference into ``warped`` (the reference's region of
+        interest) and back: new positions, status (1 = found both ways) and the
+        forward-backward error [px] per corner."""
+        crit = (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 30, 0.005)
+        # quick: the guess is close, so start there on the full-resolution level only
+        levels, start, flags = (0, p0.copy(), cv2.OPTFLOW_USE_INITIAL_FLOW) if quick \
+            else (self.levels, None, 0)
+        p1, st, _err = cv2.calcOpticalFlowPyrLK(self._ref_roi, warped, p0, start,
+                                                winSize=self.win, maxLevel=levels,
+                                                criteria=crit, flags=flags)
+        # Forward-backward check (Kalal et al., ICPR 2010) rejects patches that drifted:
+        # tracked back from where it was found, a corner must return to where it was.
+        p0b, st_b, _ = cv2.calcOpticalFlowPyrLK(warped, self._ref_roi, p1, None,
+                                                winSize=self.win, maxLevel=levels,
+                                                criteria=crit)
+        fb = np.linalg.norm(p0b.reshape(-1, 2) - p0.reshape(-1, 2), axis=1)
+        return p1, (st.ravel() == 1) & (st_b.ravel() == 1), fb
 
-        A spread subset of the corners is tracked with one pyramid level and a small
-        window from the reference straight into ``grey``; the view counts as unmoved when
-        their median shift from ``previous_px`` is below ``tolerance_px`` and three
-        quarters are within three times that.
-        """
-        prev = np.asarray(previous_px, float)
-        idx = np.nonzero(np.all(np.isfinite(prev), axis=1))[0]
-        if len(idx) < 12:
-            return False
-        idx = idx[np.linspace(0, len(idx) - 1, min(n_check, len(idx))).round().astype(int)]
-        p0 = self.ref_px[idx].astype(np.float32).reshape(-1, 1, 2)
-        start = prev[idx].astype(np.float32).reshape(-1, 1, 2)
-        crit = (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 10, 0.01)
-        p1, st, _err = cv2.calcOpticalFlowPyrLK(self.ref, grey, p0, start.copy(),
-                                                winSize=(15, 15), maxLevel=0, criteria=crit,
-                                                flags=cv2.OPTFLOW_USE_INITIAL_FLOW)
-        ok = st.ravel() == 1
-        if ok.sum() < 0.6 * len(idx):
-            return False
-        shift = np.linalg.norm(p1.reshape(-1, 2)[ok] - prev[idx][ok], axis=1)
-        return bool(np.median(shift) < tolerance_px
-                    and np.percentile(shift, 75) < 3 * tolerance_px)
-
-    def locate(self, grey, H_guess=None, *, ignore=None, max_err=None):
+    def locate(self, grey, H_guess=None, *, ignore=None, quick=False):
         """Where the reference corners are in ``grey``.
 
         Parameters
@@ -200,6 +200,10 @@ class FloorPatchTracker:
             Approximate map from reference pixels to new-frame pixels; None: identity.
         ignore : ndarray of bool, optional
             New-frame pixels to ignore (the robot).
+        quick : bool
+            ``H_guess`` is a close prediction (within a pixel or two): track on the
+            full-resolution level only, starting at the guess, and fall back to the
+            image pyramid when that does not hold (see ``_quick_pass_held``).
 
         Returns
         -------
@@ -212,23 +216,19 @@ class FloorPatchTracker:
         if H_guess is None:
             H_guess = np.eye(3)
         H_guess = np.asarray(H_guess, float)
-        h, w = self.ref.shape
+        x0, y0, x1, y1 = self._roi
         if np.allclose(H_guess, np.eye(3), atol=1e-9):
-            warped = grey
-        else:
-            warped = cv2.warpPerspective(grey, H_guess, (w, h),
+            warped = grey[y0:y1, x0:x1]
+        else:  # only the part of the reference view that holds corners
+            shift = np.array([[1.0, 0.0, x0], [0.0, 1.0, y0], [0.0, 0.0, 1.0]])
+            warped = cv2.warpPerspective(grey, H_guess @ shift, (x1 - x0, y1 - y0),
                                          flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP)
-        p0 = self.ref_px.astype(np.float32).reshape(-1, 1, 2)
-        crit = (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 30, 0.005)
-        p1, st, _err = cv2.calcOpticalFlowPyrLK(self.ref, warped, p0, None,
-                                                winSize=self.win, maxLevel=self.levels,
-                                                criteria=crit)
-        # Forward-backward check (Kalal et al., ICPR 2010) rejects patches that drifted.
-        p0b, st_b, _ = cv2.calcOpticalFlowPyrLK(warped, self.ref, p1, None,
-                                                winSize=self.win, maxLevel=self.levels,
-                                                criteria=crit)
-        fb = np.linalg.norm(p0b.reshape(-1, 2) - self.ref_px, axis=1)
-        ok = (st.ravel() == 1) & (st_b.ravel() == 1) & (fb < 0.5)
+        p0 = (self.ref_px - (x0, y0)).astype(np.float32).reshape(-1, 1, 2)
+        p1, st, fb = self._track_both_ways(warped, p0, quick=quick)
+        if quick and not _quick_pass_held(p0, p1, st, fb):
+            p1, st, fb = self._track_both_ways(warped, p0, quick=False)
+        ok = (st.ravel() == 1) & (fb < FB_LIMIT_PX)
+        p1 = p1.reshape(-1, 2) + (x0, y0)
         found = cv2.perspectiveTransform(p1.reshape(-1, 1, 2).astype(np.float64),
                                          H_guess).reshape(-1, 2)
         inside = ((found[:, 0] >= 0) & (found[:, 0] <= grey.shape[1] - 1)
@@ -240,6 +240,66 @@ class FloorPatchTracker:
             ok &= ~np.asarray(ignore, bool)[vi, ui]
         found[~ok] = np.nan
         return found, ok
+
+
+FB_LIMIT_PX = 0.5
+"""Largest forward-backward error of a corner found again [px]."""
+QUICK_SHIFT_PX = 2.0
+"""A quick (full-resolution) pass holds when the corners' median shift from the guess
+is below this [px] ..."""
+QUICK_FOUND = 0.7
+"""... and at least this share of the corners was found both ways."""
+
+
+def _quick_pass_held(p0, p1, st, fb):
+    """Whether a full-resolution pass from the guess can be trusted: most corners found
+    both ways, moved little from the guess (a larger move is beyond the reach of one
+    level and means the guess was poor)."""
+    good = st & (fb < FB_LIMIT_PX)
+    if good.sum() < QUICK_FOUND * len(good):
+        return False
+    shift = np.linalg.norm(p1.reshape(-1, 2)[good] - p0.reshape(-1, 2)[good], axis=1)
+    return bool(np.median(shift) < QUICK_SHIFT_PX)
+
+
+def _corner_box(px, shape, step, margin):
+    """(x0, y0, x1, y1) around points ``px`` with ``margin`` [px], inside an image of
+    ``shape``, x0 and y0 multiples of ``step``; the whole image without points."""
+    h, w = shape[:2]
+    if len(px) == 0:
+        return 0, 0, w, h
+    lo = np.floor((px.min(axis=0) - margin) / step).astype(int) * step
+    hi = np.ceil(px.max(axis=0) + margin).astype(int)
+    return (max(int(lo[0]), 0), max(int(lo[1]), 0), min(int(hi[0]), w), min(int(hi[1]), h))
+
+
+def view_unmoved(found_px, previous_px, *, tolerance_px=0.1, min_points=12):
+    """Whether the view has not moved between two sightings of the same floor corners.
+
+    Parameters
+    ----------
+    found_px, previous_px : ndarray of shape (N, 2)
+        Each corner's pixel now and in the earlier frame [px]; NaN where not found.
+    tolerance_px : float
+        The view counts as unmoved when the corners' median shift is below this and
+        three quarters of them moved less than three times it [px].
+    min_points : int
+        Fewer corners seen both times (or fewer than 60 % of those seen before found
+        again) is no evidence of a still view.
+
+    Returns
+    -------
+    bool
+    """
+    prev = np.asarray(previous_px, float)
+    now = np.asarray(found_px, float)
+    before = np.all(np.isfinite(prev), axis=1)
+    both = before & np.all(np.isfinite(now), axis=1)
+    if both.sum() < max(min_points, 0.6 * before.sum()):
+        return False
+    shift = np.linalg.norm(now[both] - prev[both], axis=1)
+    return bool(np.median(shift) < tolerance_px
+                and np.percentile(shift, 75) < 3 * tolerance_px)
 
 
 _BLOCK = 7  # Shi-Tomasi block size [px]

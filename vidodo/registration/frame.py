@@ -184,10 +184,29 @@ class FrameRegistration:
             return out
         norm = cv2.undistortPoints(pts[good].reshape(-1, 1, 2), self.camera_matrix,
                                    self.dist_coeffs).reshape(-1, 2)
-        rays_cam = np.column_stack([norm, np.ones(len(norm))])
         h = np.broadcast_to(np.asarray(height_m, float), (len(pts),))[good]
+        out[good] = self.rays_to_floor(norm, pts[good, 1], h)
+        return out
+
+    def rays_to_floor(self, norm, v_px, height_m=0.0):
+        """Where undistorted rays meet the plane ``z = height_m``, ndarray (N, 2) [m].
+
+        The second half of :meth:`image_to_floor`, for callers that map the same pixels
+        through several poses of one camera (the rays depend on the lens alone).
+
+        Parameters
+        ----------
+        norm : ndarray of shape (N, 2)
+            Normalised image coordinates (``cv2.undistortPoints`` without ``P``).
+        v_px : ndarray of shape (N,)
+            The pixels' rows [px] (which pose saw them, with a rolling shutter).
+        height_m : float or ndarray of shape (N,)
+            Height of the plane [m].
+        """
+        rays_cam = np.column_stack([norm, np.ones(len(norm))])
+        h = np.broadcast_to(np.asarray(height_m, float), (len(norm),))
         if self.rolling:
-            dt = self._row_dt(pts[good, 1])[:, None]  # each row its own pose
+            dt = self._row_dt(v_px)[:, None]  # each row its own pose
             r = projection.rodrigues_many(np.asarray(self.rvec, float) + dt * self.rvec_rate)
             rays = np.einsum("ni,nij->nj", rays_cam, r)
             c = -np.einsum("nji,nj->ni", r, np.asarray(self.tvec, float) + dt * self.tvec_rate)
@@ -198,8 +217,7 @@ class FrameRegistration:
             s = (h - c[:, 2]) / rays[:, 2]
         xy = c[:, :2] + s[:, None] * rays[:, :2]
         xy[~(s > 0)] = np.nan
-        out[good] = xy
-        return out
+        return xy
 
     def floor_to_image(self, points_m):
         """Floor positions -> distorted pixels.

@@ -38,7 +38,6 @@ frame's own error does not stay in every later frame.
 from __future__ import annotations
 
 import math
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field, replace
 
 import cv2
@@ -381,18 +380,12 @@ class FloorRegistrar:
                           ref.dist_coeffs)
         last = self._last if self._last is not None and self._last.ok else ref
         tr = self._tracker
-        # Cheap check first: the view has not moved since the last registered frame. It
-        # runs on a second thread while the corners are tracked (OpenCV releases the GIL
-        # in both), whose result is dropped when the view has not moved.
+        # Has the view moved since the last registered frame? The corners just tracked
+        # answer it (where they are now against where they were then).
         prev_px = tr.ref_px if last is ref else self._last_found
-        still = None if prev_px is None else _still_pool().submit(
-            tr.is_unmoved, grey, prev_px, tolerance_px=self.static_tolerance_px)
-        try:
-            found, ok = self._track_corners(grey, last, ignore)
-            failure = None
-        except Exception as exc:  # noqa: BLE001 - raised below unless the view is still
-            failure = exc
-        if still is not None and still.result():
+        found, ok = self._track_corners(grey, last, ignore)
+        if prev_px is not None and floor_features.view_unmoved(
+                found, prev_px, tolerance_px=self.static_tolerance_px):
             reg = replace(last, t_s=float(t_s), method="static", rvec_rate=None,
                           tvec_rate=None)
             self._last = reg
@@ -401,8 +394,6 @@ class FloorRegistrar:
                                  np.asarray(last.tvec, float))
             self._global_hist = [self._global_prev]
             return reg
-        if failure is not None:
-            raise failure
         ok &= np.all(np.isfinite(self._floor_ref), axis=1)
         source = "tracked"
         if ok.sum() < self.min_tracked:
@@ -454,7 +445,7 @@ class FloorRegistrar:
         h_guess = None
         if last is not self.reference and ok_pred.sum() >= 8:
             h_guess, _ = cv2.findHomography(tr.ref_px[ok_pred], pred[ok_pred], 0)
-        return tr.locate(grey, h_guess, ignore=ignore)
+        return tr.locate(grey, h_guess, ignore=ignore, quick=h_guess is not None)
 
     def _anchor_start(self, t_s):
         """Start the running mean of the tracked corners' floor positions."""
@@ -611,14 +602,18 @@ class FloorRegistrar:
         if self.readout_s > 0 and self._rate is not None:
             self._rate_used = True
             # Rolling shutter: move each observation to where the top-row pose would have
-            # seen it, using the rate of the previous frames, and fit again (twice).
+            # seen it, using the rate of the previous frames, and fit again (twice). The
+            # move is smooth over the view, so the one-pose fit's outliers stay outliers:
+            # the refits start from its inliers and drop outliers once more.
+            px, fl = px[fit.inliers], fl[fit.inliers]
             obj = np.column_stack([fl, np.zeros(len(fl))])
             dt = np.clip(px[:, 1] / shape[0], 0, 1) * self.readout_s
             for _ in range(2):
                 top = cv2.projectPoints(obj, fit.rvec, fit.tvec, k, d)[0].reshape(-1, 2)
                 rowed = project_rows(obj, (fit.rvec, fit.tvec), self._rate,
                                      dt, k, d)
-                fit = pose_fit_points(px - (rowed - top), fl, k, d, (fit.rvec, fit.tvec))
+                fit = pose_fit_points(px - (rowed - top), fl, k, d, (fit.rvec, fit.tvec),
+                                      rounds=1)
         return fit
 
     def _reacquire(self, grey, t_s, ignore):
@@ -669,16 +664,6 @@ class FloorRegistrar:
         pred = float(np.sqrt(np.mean(gaps ** 2))) if gaps.size else 0.0
         return replace(reg, tied_to=self.reference, tied_share=share,
                        prediction_px=max(reg.prediction_px, pred))
-
-
-_POOL: list = []
-
-
-def _still_pool() -> ThreadPoolExecutor:
-    """One worker thread for the still-view checks of every registrar (made on first use)."""
-    if not _POOL:
-        _POOL.append(ThreadPoolExecutor(max_workers=1, thread_name_prefix="vidodo-still"))
-    return _POOL[0]
 
 
 @dataclass(frozen=True)

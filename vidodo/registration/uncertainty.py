@@ -17,6 +17,7 @@ import functools
 import math
 from dataclasses import replace
 
+import cv2
 import numpy as np
 
 __all__ = ["pose_covariance", "cluster_covariance", "soft_l1_weights", "floor_point_covariance",
@@ -244,12 +245,24 @@ def floor_point_covariance(reg, points_px, height_m=0.0):
     names = _expand(getattr(reg, "param_names", ()))
     if cov is None or not names or len(names) != np.shape(cov)[0]:
         return np.zeros((len(pts), 2, 2)), np.zeros((len(pts), 2, 0))
-    jac = np.empty((len(pts), 2, len(names)))
+    jac = np.full((len(pts), 2, len(names)), np.nan)
+    good = np.all(np.isfinite(pts), axis=1) if reg.ok else np.zeros(len(pts), bool)
+    # A pose step leaves the lens alone: the pixels' rays are undistorted once.
+    norm = cv2.undistortPoints(pts[good].reshape(-1, 1, 2), reg.camera_matrix,
+                               reg.dist_coeffs).reshape(-1, 2) if good.any() else None
+    z = np.broadcast_to(np.asarray(height_m, float), (len(pts),))[good]
     for j, (name, k) in enumerate(names):
         h = PARAM_STEP[name]
-        plus = _moved(reg, name, k, h).image_to_floor(pts, height_m)
-        minus = _moved(reg, name, k, -h).image_to_floor(pts, height_m)
-        jac[:, :, j] = (plus - minus) / (2.0 * h)
+        if name in ("rvec", "tvec"):
+            if norm is None:
+                continue
+            plus = _moved(reg, name, k, h).rays_to_floor(norm, pts[good, 1], z)
+            minus = _moved(reg, name, k, -h).rays_to_floor(norm, pts[good, 1], z)
+            jac[good, :, j] = (plus - minus) / (2.0 * h)
+        else:
+            plus = _moved(reg, name, k, h).image_to_floor(pts, height_m)
+            minus = _moved(reg, name, k, -h).image_to_floor(pts, height_m)
+            jac[:, :, j] = (plus - minus) / (2.0 * h)
     return np.einsum("nip,pq,njq->nij", jac, np.asarray(cov, float), jac), jac
 
 
