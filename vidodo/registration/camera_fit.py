@@ -235,6 +235,7 @@ class _Observations:
     seam_val: np.ndarray
     keep_pts: np.ndarray
     keep_seam: np.ndarray
+    _rays: tuple | None = None
 
     @classmethod
     def of(cls, points, seams):
@@ -258,7 +259,7 @@ class _Observations:
         if self.keep_seam.any():
             r = cv2.Rodrigues(rv)[0]
             q = self.seam_px[self.keep_seam]
-            fl = _ray_floor(_undistort(q, k, d), r, tv)
+            fl = _ray_floor(self._seam_rays(k, d)[self.keep_seam], r, tv)
             ax = self.seam_axis[self.keep_seam]
             snapped = fl.copy()
             snapped[np.arange(len(fl)), ax] = self.seam_val[self.keep_seam]
@@ -267,6 +268,14 @@ class _Observations:
             out.append((proj.reshape(-1, 2) - q).ravel())
             floor_res = fl[np.arange(len(fl)), ax] - self.seam_val[self.keep_seam]
         return (np.concatenate(out) if out else np.zeros(0)), floor_res
+
+    def _seam_rays(self, k, d):
+        """Undistorted rays of all seam samples for this lens; the last lens's are kept,
+        as a fit with the lens held fixed asks for the same ones at every step."""
+        key = (np.asarray(k, float).tobytes(), np.asarray(d, float).tobytes())
+        if self._rays is None or self._rays[0] != key:
+            self._rays = (key, _undistort(self.seam_px, k, d))
+        return self._rays[1]
 
     def groups(self):
         """Group of each kept observation: every point its own, the samples of one

@@ -50,14 +50,9 @@ def project_rows(obj, pose, rates, dt, camera_matrix, dist_coeffs, bands=32):
     edges = np.linspace(lo, hi + 1e-12, bands + 1)
     idx = np.clip(np.searchsorted(edges, dt, side="right") - 1, 0, bands - 1)
     count = np.bincount(idx, minlength=bands)
-    # each band's mean as numpy sums a slice (pairwise), over the band's points in their
-    # own order: the same poses to the last bit as one projectPoints call per band
-    # (``np.add.reduce(x) / n`` is what ``x.mean()`` computes, without its overhead)
-    in_order = dt[np.argsort(idx, kind="stable")]
-    bounds = [0, *np.cumsum(count).tolist()]
-    add = np.add.reduce
-    d_b = np.array([add(in_order[a:b]) / (b - a) if b > a else 0.0
-                    for a, b in zip(bounds[:-1], bounds[1:], strict=True)])
+    # each band's mean time, summed in one pass over the points (the same poses as one
+    # projectPoints call per band, to rounding)
+    d_b = np.bincount(idx, weights=dt, minlength=bands) / np.maximum(count, 1)
     rvec, tvec = np.asarray(rvec, float).ravel(), np.asarray(tvec, float).ravel()
     rv_b = rvec + d_b[:, None] * np.asarray(rvec_rate, float).ravel()
     tv_b = tvec + d_b[:, None] * np.asarray(tvec_rate, float).ravel()
