@@ -19,7 +19,7 @@ import cv2
 import numpy as np
 
 __all__ = ["HomographyMatch", "MatchSettings", "match_homography", "refine_homography",
-           "FloorPatchTracker", "to_grey", "view_unmoved"]
+           "FloorPatchTracker", "to_grey"]
 
 
 def to_grey(frame):
@@ -170,6 +170,32 @@ class FloorPatchTracker:
         """Corners held."""
         return len(self.ref_px)
 
+    def is_unmoved(self, grey, previous_px, *, tolerance_px=0.1, n_check=120):
+        """Cheap test that the view has not moved since ``previous_px`` were found.
+
+        A spread subset of the corners is tracked with one pyramid level and a small
+        window from the reference straight into ``grey``; the view counts as unmoved when
+        their median shift from ``previous_px`` is below ``tolerance_px`` and three
+        quarters are within three times that.
+        """
+        prev = np.asarray(previous_px, float)
+        idx = np.nonzero(np.all(np.isfinite(prev), axis=1))[0]
+        if len(idx) < 12:
+            return False
+        idx = idx[np.linspace(0, len(idx) - 1, min(n_check, len(idx))).round().astype(int)]
+        p0 = self.ref_px[idx].astype(np.float32).reshape(-1, 1, 2)
+        start = prev[idx].astype(np.float32).reshape(-1, 1, 2)
+        crit = (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 10, 0.01)
+        p1, st, _err = cv2.calcOpticalFlowPyrLK(self.ref, grey, p0, start.copy(),
+                                                winSize=(15, 15), maxLevel=0, criteria=crit,
+                                                flags=cv2.OPTFLOW_USE_INITIAL_FLOW)
+        ok = st.ravel() == 1
+        if ok.sum() < 0.6 * len(idx):
+            return False
+        shift = np.linalg.norm(p1.reshape(-1, 2)[ok] - prev[idx][ok], axis=1)
+        return bool(np.median(shift) < tolerance_px
+                    and np.percentile(shift, 75) < 3 * tolerance_px)
+
     def _track_both_ways(self, warped, p0, *, quick):
         """Lucas-Kanade from the reference into ``warped`` (the reference's region of
         interest) and back: new positions, status (1 = found both ways) and the
@@ -271,35 +297,6 @@ def _corner_box(px, shape, step, margin):
     lo = np.floor((px.min(axis=0) - margin) / step).astype(int) * step
     hi = np.ceil(px.max(axis=0) + margin).astype(int)
     return (max(int(lo[0]), 0), max(int(lo[1]), 0), min(int(hi[0]), w), min(int(hi[1]), h))
-
-
-def view_unmoved(found_px, previous_px, *, tolerance_px=0.1, min_points=12):
-    """Whether the view has not moved between two sightings of the same floor corners.
-
-    Parameters
-    ----------
-    found_px, previous_px : ndarray of shape (N, 2)
-        Each corner's pixel now and in the earlier frame [px]; NaN where not found.
-    tolerance_px : float
-        The view counts as unmoved when the corners' median shift is below this and
-        three quarters of them moved less than three times it [px].
-    min_points : int
-        Fewer corners seen both times (or fewer than 60 % of those seen before found
-        again) is no evidence of a still view.
-
-    Returns
-    -------
-    bool
-    """
-    prev = np.asarray(previous_px, float)
-    now = np.asarray(found_px, float)
-    before = np.all(np.isfinite(prev), axis=1)
-    both = before & np.all(np.isfinite(now), axis=1)
-    if both.sum() < max(min_points, 0.6 * before.sum()):
-        return False
-    shift = np.linalg.norm(now[both] - prev[both], axis=1)
-    return bool(np.median(shift) < tolerance_px
-                and np.percentile(shift, 75) < 3 * tolerance_px)
 
 
 _BLOCK = 7  # Shi-Tomasi block size [px]

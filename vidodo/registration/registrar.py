@@ -38,6 +38,7 @@ frame's own error does not stay in every later frame.
 from __future__ import annotations
 
 import math
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field, replace
 
 import cv2
@@ -380,12 +381,18 @@ class FloorRegistrar:
                           ref.dist_coeffs)
         last = self._last if self._last is not None and self._last.ok else ref
         tr = self._tracker
-        # Has the view moved since the last registered frame? The corners just tracked
-        # answer it (where they are now against where they were then).
+        # Cheap check first: the view has not moved since the last registered frame. It
+        # runs on a second thread while the corners are tracked (OpenCV releases the GIL
+        # in both), whose result is dropped when the view has not moved.
         prev_px = tr.ref_px if last is ref else self._last_found
-        found, ok = self._track_corners(grey, last, ignore)
-        if prev_px is not None and floor_features.view_unmoved(
-                found, prev_px, tolerance_px=self.static_tolerance_px):
+        still = None if prev_px is None else _still_pool().submit(
+            tr.is_unmoved, grey, prev_px, tolerance_px=self.static_tolerance_px)
+        try:
+            found, ok = self._track_corners(grey, last, ignore)
+            failure = None
+        except Exception as exc:  # noqa: BLE001 - raised below unless the view is still
+            failure = exc
+        if still is not None and still.result():
             reg = replace(last, t_s=float(t_s), method="static", rvec_rate=None,
                           tvec_rate=None)
             self._last = reg
@@ -394,6 +401,8 @@ class FloorRegistrar:
                                  np.asarray(last.tvec, float))
             self._global_hist = [self._global_prev]
             return reg
+        if failure is not None:
+            raise failure
         ok &= np.all(np.isfinite(self._floor_ref), axis=1)
         source = "tracked"
         if ok.sum() < self.min_tracked:
@@ -664,6 +673,16 @@ class FloorRegistrar:
         pred = float(np.sqrt(np.mean(gaps ** 2))) if gaps.size else 0.0
         return replace(reg, tied_to=self.reference, tied_share=share,
                        prediction_px=max(reg.prediction_px, pred))
+
+
+_POOL: list = []
+
+
+def _still_pool() -> ThreadPoolExecutor:
+    """One worker thread for the still-view checks of every registrar (made on first use)."""
+    if not _POOL:
+        _POOL.append(ThreadPoolExecutor(max_workers=1, thread_name_prefix="vidodo-still"))
+    return _POOL[0]
 
 
 @dataclass(frozen=True)
