@@ -112,3 +112,21 @@ def test_soft_l1_weights_match_scipy_jacobian():
     _, dpsi = soft_l1_weights(sol.fun, 0.5)
     assert sol.jac == pytest.approx(plain * np.sqrt(dpsi)[:, None], rel=1e-5, abs=1e-7)
     assert math.isclose(soft_l1_weights(np.array([0.5]), 0.5)[0][0], 2 ** -0.5)
+
+
+def test_larger_of_two_covariances_survives_rounding_below_zero():
+    """A fit that hardly fixes one direction can leave its covariance with an eigenvalue
+    rounded just below zero (seen on a grazing-view registration). The larger of two
+    covariances must still be a covariance (symmetric, positive semi-definite: common
+    practice) and at least each input in every direction, not a failed factorisation."""
+    from vidodo.registration.uncertainty import _larger
+
+    rot, _ = np.linalg.qr(np.random.default_rng(3).normal(size=(3, 3)))
+    a = rot @ np.diag([1.0, 1e-3, -1e-10]) @ rot.T
+    b = np.diag([0.5, 0.5, 0.5])
+    with pytest.raises(np.linalg.LinAlgError):
+        np.linalg.cholesky(a)  # what the old factorisation met
+    out = _larger(a, b)
+    assert np.allclose(out, out.T)
+    assert np.linalg.eigvalsh(out - b).min() > -1e-9
+    assert np.linalg.eigvalsh(out - a).min() > -1e-9

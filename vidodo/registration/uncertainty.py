@@ -197,7 +197,7 @@ def _cr2_scores(jt, rt, inv, n_groups, bread):
     """Per group ``J~_g^T (I - H_gg)^-1/2 r~_g``, (G, p). ``H_gg`` has rank at most p:
     with ``J~_g A^-1/2 = U S V^T`` (thin SVD), ``(I - H_gg)^-1/2 = I + U ((1 - S^2)^-1/2
     - 1) U^T``."""
-    half = np.linalg.cholesky(bread)  # A^-1 = L L^T: J~_g L has the leverages' SVD
+    half = _psd_root(bread)  # A^-1 = L L^T: J~_g L has the leverages' SVD
     out = np.zeros((n_groups, jt.shape[1]))
     order = np.argsort(inv, kind="stable")
     bounds = np.searchsorted(inv[order], np.arange(n_groups + 1))
@@ -214,10 +214,20 @@ def _cr2_scores(jt, rt, inv, n_groups, bread):
 def _larger(a, b):
     """The covariance that is at least ``a`` and ``b`` in every direction along the
     eigenvectors of ``a^-1 b`` (simultaneous diagonalisation, each factor the larger)."""
-    la = np.linalg.cholesky(a)
+    la = _psd_root(a)
     li = np.linalg.inv(la)
     w, v = np.linalg.eigh(li @ b @ li.T)
     return la @ v @ np.diag(np.maximum(w, 1.0)) @ v.T @ la.T
+
+
+def _psd_root(m):
+    """Symmetric square root ``L`` (``L L^T = m``) of a covariance that rounding may
+    have left with eigenvalues at or just below zero: those are raised to a relative
+    floor of 1e-12 of the largest (a direction the fit hardly fixes keeps a tiny
+    variance rather than failing a Cholesky factorisation)."""
+    w, v = np.linalg.eigh(0.5 * (m + m.T))
+    floor = 1e-12 * max(float(np.max(np.abs(w))), np.finfo(float).tiny)
+    return v @ np.diag(np.sqrt(np.maximum(w, floor))) @ v.T
 
 
 def floor_point_covariance(reg, points_px, height_m=0.0):
