@@ -30,9 +30,10 @@ table counts scenes by first divergent stage (on the acceptance subset: at least
 field corners in view, seams visible). Per-scene rows go to a CSV.
 
 Run: ``nice -n 10 .venv/bin/python benchmarks/registration_diagnosis.py --cache
-/tmp/lat/cache [--seeds 0-239] [--all] [--csv /tmp/diagnosis.csv]``; without
-``--all`` only the acceptance subset is run (seeds outside it are skipped after
-loading).
+/tmp/lat/cache [--seeds 0-239] [--all] [--start-tile] [--csv /tmp/diagnosis.csv]``;
+without ``--all`` only the acceptance subset is run (seeds outside it are skipped after
+loading); ``--start-tile`` adds the class with the scene's start tile given, as
+``registration_robustness.py --start-tile`` registers it.
 """
 
 from __future__ import annotations
@@ -56,8 +57,9 @@ from vidodo.synth import scenes  # noqa: E402
 
 STAGES = ("families", "directions", "spacing", "window", "fit", "orientation", "selfcheck",
           "wrong_passed", "correct")
-COLUMNS = ("seed", "class", "stage", "subset", "exit_code", "rms_mm", "fit_rms_mm", "height_m",
-           "true_height_m", "n_corners", "lens_profile", "detail", "message")
+COLUMNS = ("seed", "class", "class_start", "stage", "subset", "exit_code", "rms_mm",
+           "fit_rms_mm", "height_m", "true_height_m", "n_corners", "lens_profile", "detail",
+           "message")
 _REC: dict = {}
 #: A family's vanishing point counts as grossly wrong beyond this angle, seen from the
 #: floor part of the picture [deg]: the spacing fit (a projective model of the line
@@ -256,8 +258,12 @@ def _reg_rms_mm(reg, scene):
     return rms, rb._lattice_rms_mm(est, true_m, scene.spec.field.tile_size_m)
 
 
-def diagnose(seed: int, cache, lens="scene") -> dict:
-    """Register one scene with the stages recorded; the first divergent stage."""
+def diagnose(seed: int, cache, lens="scene", start_tile=False) -> dict:
+    """Register one scene with the stages recorded; the first divergent stage.
+
+    ``start_tile``: also the class with the scene's start tile given, as ``grade``
+    registers (``registration_robustness._register_with_start_tile``; ``class_start``).
+    """
     rb._install_spy()
     _install_recorders()
     scene = rb._rendered(seed, cache)
@@ -267,6 +273,12 @@ def diagnose(seed: int, cache, lens="scene") -> dict:
     with tempfile.TemporaryDirectory(prefix=f"diag{seed}-") as tmp:
         picture = scenes.save_scene(scene, Path(tmp))
         code, message, reg = rb._register(picture, Path(tmp), with_lens)
+        rec = dict(_REC)
+        _REC.clear()  # the second registration records afresh; the first's is kept
+        started = (rb._register_with_start_tile(scene, picture, Path(tmp), with_lens)
+                   if start_tile else None)
+    _REC.clear()
+    _REC.update(rec)
     w, h = spec.setup.camera.width_px, spec.setup.camera.height_px
     from vidodo.registration.grid.search import LATTICE_DIAG_PX
 
@@ -289,6 +301,11 @@ def diagnose(seed: int, cache, lens="scene") -> dict:
     # The class as registration_robustness.py scores it.
     row["class"] = ("refused" if code == 3 else "correct" if code == 0 and rms <= rb.CORRECT_MM
                     else "wrong")
+    row["class_start"] = row["class"]
+    if started is not None:
+        px, true_m = rb._truth_points(scene)
+        row["class_start"] = rb._classify(started[0], started[2], px, true_m,
+                                          spec.field.tile_size_m)[0]
     return row
 
 
@@ -354,6 +371,8 @@ def main(argv=None) -> int:
     ap.add_argument("--lens", choices=("scene", "always", "never"), default="scene")
     ap.add_argument("--csv", type=Path, default=Path(tempfile.gettempdir()) /
                     "registration_diagnosis.csv")
+    ap.add_argument("--start-tile", action="store_true",
+                    help="also the class with the scene's start tile given (as grade)")
     args = ap.parse_args(argv)
     seeds = rb._parse_seeds(args.seeds) if args.seeds else list(scenes.BENCHMARK_SEEDS)
     rows = []
@@ -365,7 +384,7 @@ def main(argv=None) -> int:
                 scene = rb._rendered(s, args.cache)
                 if not (len(scene.corners) >= 12 and scene.seams_visible):
                     continue
-            r = diagnose(s, args.cache, args.lens)
+            r = diagnose(s, args.cache, args.lens, args.start_tile)
             rows.append(r)
             wr.writerow({k: (f"{v:.4g}" if isinstance(v, float) else v) for k, v in r.items()})
             fh.flush()
@@ -386,9 +405,12 @@ def stage_table(rows) -> list[str]:
         n_sub = sum(r["stage"] == st and r["subset"] for r in rows)
         out.append(f"{st:<24}{n_all:>6}{n_sub:>8}")
     out.append(f"{'total':<24}{len(rows):>6}{sum(r['subset'] for r in rows):>8}")
-    for kind in ("correct", "refused", "wrong"):
-        out.append(f"{'class ' + kind:<24}{sum(r['class'] == kind for r in rows):>6}"
-                   f"{sum(r['class'] == kind and r['subset'] for r in rows):>8}")
+    for key, name in (("class", "class"), ("class_start", "with start tile")):
+        if key == "class_start" and all(r["class_start"] == r["class"] for r in rows):
+            break
+        for kind in ("correct", "refused", "wrong"):
+            out.append(f"{name + ' ' + kind:<24}{sum(r[key] == kind for r in rows):>6}"
+                       f"{sum(r[key] == kind and r['subset'] for r in rows):>8}")
     return out
 
 
